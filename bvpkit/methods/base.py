@@ -1,0 +1,165 @@
+"""The small interface every solution method implements.
+
+Contract of a method (subclass :class:`Method`):
+
+1. ``name`` is the registry name (also the ``--method`` word); ``summary`` is one line for
+   docs and ``--help``.
+2. ``_solve(trial)`` solves the problem on the finite interval ``[trial.x[0], trial.x[-1]]``
+   starting from ``trial.y`` / ``trial.p`` and returns an :class:`Outcome`. It never raises
+   for a solve that fails; it sets ``status`` and ``message``. It never prints.
+3. ``_refine(trial, outcome)`` returns a more accurate solution of the same problem (finer
+   mesh, tighter integrator tolerance) started from ``outcome``; the base class compares the
+   two to estimate the error of ``outcome``, and tightens the tolerance when the estimate
+   misses it. A method need not know how the estimate is used.
+
+The base class does the shared work around these hooks: floating-point guards, the check
+that a result is finite, the error estimate and its tightening loop.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+
+from ..codegen import CompiledSystem
+from ..diagnostics import hermite
+from ..status import Status
+
+# Each round of tightening asks for this fraction of the tolerance times the ratio of the
+# tolerance to the error seen; three rounds cover a miss of several orders of magnitude.
+_TIGHTEN_SAFETY = 0.3
+_TIGHTEN_ROUNDS = 3
+_SMALLEST_TOL = 1e-13  # below this, double precision round-off dominates any method
+
+
+@dataclass
+class Trial:
+    """Input of one method call.
+
+    Attributes
+    ----------
+    compiled : CompiledSystem
+    x : ndarray, shape (m,)
+        Initial mesh on a finite interval (its ends are the ends of the problem).
+    y : ndarray, shape (n, m)
+        Guess of the states on the mesh.
+    p : ndarray, shape (n_p,)
+        Guess of the unknown parameters.
+    k : ndarray, shape (n_k,)
+        Values of the constants.
+    tol : float
+        Tolerance asked of the method's own error control.
+    max_nodes : int
+        Mesh limit.
+    verify : bool
+        Estimate the error (costs a second, refined solve).
+    singular : ndarray or None, shape (n, n)
+        The matrix ``S`` of a term ``S y / (x - a)`` singular at the left end.
+    """
+
+    compiled: CompiledSystem
+    x: np.ndarray
+    y: np.ndarray
+    p: np.ndarray
+    k: np.ndarray
+    tol: float
+    max_nodes: int = 20_000
+    verify: bool = True
+    singular: np.ndarray | None = None
+
+
+@dataclass
+class Outcome:
+    """Result of one method call (the raw material of a ``Solution``)."""
+
+    status: Status
+    message: str
+    x: np.ndarray
+    y: np.ndarray
+    p: np.ndarray
+    iterations: int = 0
+    error_estimate: float | None = None
+    parameter_errors: np.ndarray | None = None
+    condition: float | None = None
+    reference: Outcome | None = None  # the refined solve the estimate came from
+
+    @property
+    def ok(self) -> bool:
+        return self.status is Status.SOLVED
+
+
+class Method:
+    """Base of the solution methods; see the module docstring for the contract."""
+
+    name: ClassVar[str] = ""
+    summary: ClassVar[str] = ""
+
+    def solve(self, trial: Trial) -> Outcome:
+        """Solve, check the result is finite, and (if asked) estimate and control the error."""
+        with np.errstate(all="ignore"):
+            outcome = self._checked(self._solve(trial))
+            if not (outcome.ok and trial.verify):
+                return outcome
+            tol = trial.tol
+            for _ in range(_TIGHTEN_ROUNDS + 1):
+                reference = self._checked(self._refine(dataclasses.replace(trial, tol=tol), outcome))
+                if not reference.ok:
+                    outcome.error_estimate = np.inf
+                    outcome.reference = None
+                    outcome.message += f"; the refined solve for the error estimate failed ({reference.message})"
+                    return outcome
+                estimate, p_errors = compare(outcome, reference, trial)
+                outcome.error_estimate, outcome.parameter_errors = estimate, p_errors
+                outcome.reference = reference
+                if estimate <= trial.tol or tol <= _SMALLEST_TOL:
+                    break
+                tol = max(_SMALLEST_TOL, tol * min(0.1, _TIGHTEN_SAFETY * trial.tol / estimate))
+                retry = self._checked(
+                    self._solve(dataclasses.replace(trial, tol=tol, x=outcome.x, y=outcome.y, p=outcome.p))
+                )
+                if not retry.ok:
+                    break
+                retry.iterations += outcome.iterations
+                outcome = retry
+            if outcome.error_estimate is not None and outcome.error_estimate > trial.tol:
+                outcome.status = Status.ERROR_TOO_LARGE
+                outcome.message = (
+                    f"converged, but the estimated error {outcome.error_estimate:.2g} is above "
+                    f"the tolerance {trial.tol:.2g} even after tightening"
+                )
+            return outcome
+
+    def _checked(self, outcome: Outcome) -> Outcome:
+        if outcome.ok and not (np.all(np.isfinite(outcome.y)) and np.all(np.isfinite(outcome.p))):
+            bad = np.argwhere(~np.isfinite(outcome.y))
+            where = f" at x = {outcome.x[bad[0][1]]:.6g}" if len(bad) else " in the parameters"
+            outcome.status = Status.NON_FINITE
+            outcome.message = f"the solution holds NaN or inf{where}"
+        return outcome
+
+    def _solve(self, trial: Trial) -> Outcome:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+
+def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, np.ndarray]:
+    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes and midpoints.
+
+    Returns the state estimate (which includes the parameters) and the per-parameter
+    absolute differences.
+    """
+    compiled, k = trial.compiled, trial.k
+    x = outcome.x
+    points = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
+    mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(points)
+    theirs = hermite(compiled, reference.x, reference.y, reference.p, k)(points)
+    estimate = float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs))))
+    p_errors = np.abs(outcome.p - reference.p)
+    if p_errors.size:
+        estimate = max(estimate, float(np.max(p_errors / (1.0 + np.abs(reference.p)))))
+    return estimate, p_errors

@@ -1,0 +1,93 @@
+"""The one list of outcomes: status word, exit code of the command line, and what to try.
+
+Defined once here; the CLI's exit codes and the table in ``docs/failures.md`` come from
+this list (a test checks the page against it).
+"""
+
+from __future__ import annotations
+
+import enum
+
+
+class Status(enum.Enum):
+    """Outcome of a solve, or a class of command-line failure.
+
+    Each member carries ``(word, exit_code, meaning, what_to_try)``.
+    """
+
+    SOLVED = ("solved", 0, "the solve converged and its error estimate meets the tolerance", "")
+    NOT_CONVERGED = (
+        "not_converged",
+        3,
+        "Newton's method did not converge",
+        "give a better guess (guess = ... per function), or trace the solution from an easier "
+        "parameter value",
+    )
+    MESH_LIMIT = (
+        "mesh_limit",
+        4,
+        "the mesh reached its node limit before the residual met the tolerance",
+        "raise max_nodes, loosen tol, or give a guess closer to the solution",
+    )
+    SINGULAR = (
+        "singular_jacobian",
+        5,
+        "the Newton matrix is singular: the conditions do not fix the solution",
+        "check that the conditions are independent, and that the guess is not a point "
+        "where the problem degenerates (for eigenvalue problems: a non-zero guess)",
+    )
+    NON_FINITE = (
+        "non_finite",
+        6,
+        "the equations produced NaN or inf",
+        "check the guess against the domain of functions such as log and sqrt, or shrink "
+        "the domain",
+    )
+    INTEGRATION_FAILED = (
+        "integration_failed",
+        7,
+        "an initial-value integration blew up or its step size collapsed",
+        "use method = \"multiple_shooting\" or \"collocation\"",
+    )
+    ERROR_TOO_LARGE = (
+        "error_too_large",
+        8,
+        "the solve converged but its error estimate is above the tolerance",
+        "raise max_nodes or loosen tol",
+    )
+    TRUNCATION = (
+        "truncation_not_converged",
+        9,
+        "the solution kept changing as the infinite domain was truncated further out",
+        "check that the conditions at infinity are ones the solution approaches",
+    )
+    BAD_INPUT = (
+        "bad_input",
+        2,
+        "the problem, the spec or an option is invalid (nothing was solved)",
+        "correct the item the message names",
+    )
+    INTERRUPTED = ("interrupted", 130, "stopped by Ctrl-C; what was finished is kept", "")
+    INTERNAL = (
+        "internal_error",
+        70,
+        "an unexpected error inside bvpkit",
+        "report it with the spec that triggers it",
+    )
+
+    def __init__(self, word: str, exit_code: int, meaning: str, hint: str):
+        self.word = word
+        self.exit_code = exit_code
+        self.meaning = meaning
+        self.hint = hint
+
+    def __str__(self) -> str:
+        return self.word
+
+
+def failures_table() -> str:
+    """The Markdown table of every status, its exit code, meaning and what to try."""
+    rows = ["| status | exit code | meaning | what to try |", "| --- | --- | --- | --- |"]
+    for s in Status:
+        rows.append(f"| `{s.word}` | {s.exit_code} | {s.meaning} | {s.hint or '-'} |")
+    return "\n".join(rows) + "\n"

@@ -1,0 +1,88 @@
+"""Which method first, which next on failure, and why, in words.
+
+The selector does no numerics of its own: it reads a few cheap facts about the problem
+(:func:`survey`), orders the registered methods, and runs them until one succeeds.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import methods
+from .diagnostics import Attempt
+from .methods.base import Outcome, Trial
+from .status import Status
+
+
+@dataclass
+class Plan:
+    """Methods to try in order, each with the reason it is in that place."""
+
+    steps: list[tuple[str, str]]
+
+    @property
+    def selection(self) -> str:
+        name, reason = self.steps[0]
+        return f"chose {name.replace('_', ' ')}: {reason}"
+
+
+def plan(trial: Trial, method: str = "auto") -> Plan:
+    """Order the methods for ``trial``; a named method is tried alone."""
+    if method != "auto":
+        methods.get(method)  # validates the name
+        return Plan([(method, "asked for by name")])
+    steps = [("collocation", "robust default for nonlinear problems with mesh adaptation")]
+    for name in methods.REGISTRY:
+        if name not in [s[0] for s in steps]:
+            steps.append((name, f"fallback after {steps[-1][0].replace('_', ' ')}"))
+    return Plan(steps)
+
+
+def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str]:
+    """Try the methods of the plan in order until one succeeds.
+
+    Returns the successful outcome (or the last failure, when all fail), the attempts made
+    and the sentence saying why the first method was chosen.
+    """
+    chosen = plan(trial, method)
+    attempts: list[Attempt] = []
+    outcome: Outcome | None = None
+    domain = (float(trial.x[0]), float(trial.x[-1]))
+    for name, reason in chosen.steps:
+        start = time.perf_counter()
+        result = methods.get(name).solve(dataclasses.replace(trial))
+        attempts.append(
+            Attempt(
+                method=name,
+                reason=reason,
+                status=result.status.word,
+                message=result.message,
+                iterations=result.iterations,
+                nodes=int(result.x.size),
+                seconds=time.perf_counter() - start,
+                domain=domain,
+                error_estimate=result.error_estimate,
+            )
+        )
+        if result.ok:
+            result.method = name  # type: ignore[attr-defined]
+            return result, attempts, chosen.selection
+        if outcome is None or _better(result, outcome):
+            outcome = result
+            outcome.method = name  # type: ignore[attr-defined]
+    assert outcome is not None
+    return outcome, attempts, chosen.selection
+
+
+def _better(new: Outcome, old: Outcome) -> bool:
+    """Of two failures, keep the one that got furthest (converged but inaccurate beats diverged)."""
+    rank = {Status.ERROR_TOO_LARGE: 0, Status.MESH_LIMIT: 1}
+    return rank.get(new.status, 9) < rank.get(old.status, 9)
+
+
+def finite(values: np.ndarray) -> bool:
+    return bool(np.all(np.isfinite(values)))
