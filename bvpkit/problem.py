@@ -182,7 +182,10 @@ class Problem:
                     f"{closest(name, self.unknowns)}"
                 )
         e = e.xreplace(replace) if replace else e
-        for d in e.atoms(sp.Derivative):
+        # A point value's derivative is bound by its Subs (SymPy may share that node
+        # between problems with other variable names); point_values() checks those.
+        bound = {d for s in e.atoms(sp.Subs) for d in s.expr.atoms(sp.Derivative)}
+        for d in e.atoms(sp.Derivative) - bound:
             if len(d.variables) and any(v != self.x for v in d.variables):
                 raise ProblemError(
                     f"{where} ({text}): derivatives must be taken with respect to "
@@ -289,10 +292,14 @@ class Problem:
             d = s.expr
             if not isinstance(d, sp.Derivative) or not isinstance(d.expr, AppliedUndef):
                 raise ProblemError(f"cannot read the point value {s}")
-            if s.variables != (self.x,):
+            (v,) = s.variables if len(s.variables) == 1 else (None,)
+            if v is None or d.expr.args != (v,) or any(w != v for w in d.variables):
                 raise ProblemError(f"cannot read the point value {s}")
             found.append((s, d.expr.func.__name__, d.derivative_count, s.point[0]))
-        for f in e.atoms(AppliedUndef):
+        # Functions inside a Subs are bound by it (and SymPy's cache may hand back a Subs
+        # built for another variable name): only free applications are point values.
+        bound = {f for s in e.atoms(sp.Subs) for f in s.expr.atoms(AppliedUndef)}
+        for f in e.atoms(AppliedUndef) - bound:
             if f.args != (self.x,):
                 found.append((f, f.func.__name__, 0, f.args[0]))
         return found

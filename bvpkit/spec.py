@@ -87,7 +87,9 @@ def _where(loc: tuple[Any, ...]) -> str:
 
 
 def _explain(error: ValidationError, source: str) -> SpecError:
-    first = error.errors()[0]
+    # An unknown key is usually the cause of a "missing" one (a misspelt key): name it first.
+    errors = sorted(error.errors(), key=lambda e: e["type"] != "extra_forbidden")
+    first = errors[0]
     loc = _where(first["loc"])
     kind = first["type"]
     if kind == "extra_forbidden":
