@@ -76,26 +76,20 @@ def _from_expression(problem, system, e: sp.Expr, order: int, x, p, k) -> np.nda
 def _polynomial(system, name: str, order: int, x, p, k) -> np.ndarray:  # noqa: ANN001
     """Lowest-degree polynomial meeting the linear conditions that involve ``name`` alone."""
     a, b = float(x[0]), float(x[-1])
-    mine = {s for j in range(order) for s in (system.ya[system.index(name, j)], system.yb[system.index(name, j)])}
-    every = set(system.ya) | set(system.yb)
-    values = {**dict(zip(system.p, p)), **dict(zip(system.k, k))}
+    values = {**dict(zip(system.p, map(float, p))), **dict(zip(system.k, map(float, k)))}
     rows, rhs = [], []
-    for c in system.conditions:
-        used = c.free_symbols & every
-        if not used or not used <= mine:
-            continue
-        c = c.xreplace(values)
-        gradient = [sp.diff(c, s) for s in used]
-        if any(g.free_symbols for g in gradient):
-            continue  # nonlinear in the point values
-        constant = c.xreplace({s: 0 for s in used})
+    for gradient, constant in _linear_conditions(system, name):
+        try:
+            numbers = [(end, j, float(g.xreplace(values))) for end, j, g in gradient]
+            c0 = float(constant.xreplace(values))
+        except TypeError:
+            continue  # depends on a value we do not know here
         row = {}
-        for s, g in zip(used, gradient):
-            end = a if s in system.ya else b
-            j = system.states[int(s.name[3:])][1]
-            row[(end, j)] = row.get((end, j), 0.0) + float(g)
+        for end, j, g in numbers:
+            where = a if end == 0 else b
+            row[(where, j)] = row.get((where, j), 0.0) + g
         rows.append(row)
-        rhs.append(-float(constant))
+        rhs.append(-c0)
     if not rows:
         return np.zeros((order, x.size))
     degree = max(len(rows) - 1, 0)
@@ -114,6 +108,31 @@ def _polynomial(system, name: str, order: int, x, p, k) -> np.ndarray:  # noqa: 
         sum(coefficients[i] * basis_values for i, basis_values in enumerate(_powers(x, a, scale, degree, j)))
         for j in range(order)
     ])
+
+
+_LINEAR: dict[tuple[str, str], list] = {}
+
+
+def _linear_conditions(system, name: str) -> list:  # noqa: ANN001
+    """Conditions linear in the point values of ``name`` alone (symbolic work, cached per system)."""
+    key = (system.key(), name)
+    if key in _LINEAR:
+        return _LINEAR[key]
+    order = system.order(name)
+    mine = {s for j in range(order) for s in (system.ya[system.index(name, j)], system.yb[system.index(name, j)])}
+    every = set(system.ya) | set(system.yb)
+    found = []
+    for c in system.conditions:
+        used = c.free_symbols & every
+        if not used or not used <= mine:
+            continue
+        gradient = [(s, sp.diff(c, s)) for s in used]
+        if any(g.free_symbols & every for _, g in gradient):
+            continue  # nonlinear in the point values
+        terms = [(0 if s in system.ya else 1, system.states[int(s.name[3:])][1], sp.Float(1) * g) for s, g in gradient]
+        found.append((terms, sp.sympify(0) + c.xreplace({s: 0 for s in used})))
+    _LINEAR[key] = found
+    return found
 
 
 def _powers(x: np.ndarray, a: float, scale: float, degree: int, j: int) -> list[np.ndarray]:

@@ -93,8 +93,12 @@ class FirstOrderSystem:
 
     def key(self) -> str:
         """A content hash: equal systems have equal keys (used for compiled-code caches)."""
-        text = repr((self.states, self.rhs, self.conditions, self.parameters, self.constants))
-        return hashlib.sha256(text.encode()).hexdigest()[:32]
+        cached = self.__dict__.get("_key")
+        if cached is None:
+            text = repr((self.states, self.rhs, self.conditions, self.parameters, self.constants))
+            cached = hashlib.sha256(text.encode()).hexdigest()[:32]
+            object.__setattr__(self, "_key", cached)
+        return cached
 
 
 def reduce(problem) -> FirstOrderSystem:  # noqa: ANN001 - Problem imports us lazily

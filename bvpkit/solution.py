@@ -20,6 +20,11 @@ from .status import Status
 # times smooth functions of it to well below the solver's own error.
 _GAUSS_POINTS = 5
 
+# Parsed and compiled quantities, shared by every Solution of the same system: evaluating
+# "f''(0)" along a continuation must not re-parse or re-compile it at each point.
+_QUANTITIES: dict[tuple, Any] = {}
+_MAX_CACHED = 2_000
+
 
 class Solution:
     """Result of :func:`bvpkit.solve`.
@@ -85,7 +90,6 @@ class Solution:
         self._reference = reference
         self._previous = previous
         self._spline = hermite(compiled, self.x, self.y, self._p, self._k)
-        self._cache: dict[str, Any] = {}
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
         if self.x.size and np.all(np.isfinite(self.y)):
@@ -219,8 +223,9 @@ class Solution:
 
     def _internal(self, expression: str) -> tuple[sp.Expr, list]:
         """The expression in internal symbols, and its point values still to fill in."""
-        if expression in self._cache:
-            return self._cache[expression]
+        key = (self._compiled.system.key(), self.problem.independent, expression)
+        if key in _QUANTITIES:
+            return _QUANTITIES[key]
         problem, system = self.problem, self._compiled.system
         e = problem.parse_quantity(expression, where=f"expression '{expression}'")
         points = problem.point_values(e)
@@ -239,7 +244,9 @@ class Solution:
                 replace[node] = system.y[system.index(name, j)]
             replace[sp.Derivative(f, (problem.x, problem.orders[name]))] = system.highest(name)
         result = (e.xreplace(replace), placeholders)
-        self._cache[expression] = result
+        if len(_QUANTITIES) > _MAX_CACHED:
+            _QUANTITIES.clear()
+        _QUANTITIES[key] = result
         return result
 
     def _evaluate_on(self, x, y, p, expression: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
@@ -281,13 +288,13 @@ class Solution:
         return result if np.ndim(at) else float(result[0])
 
     def _compiled_quantity(self, e: sp.Expr):  # noqa: ANN202
-        key = sp.srepr(e)
-        if key not in self._cache:
+        key = (self._compiled.system.key(), sp.srepr(e))
+        if key not in _QUANTITIES:
             system = self._compiled.system
-            self._cache[key] = compile_expressions(
+            _QUANTITIES[key] = compile_expressions(
                 [e], [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k)], mesh="y"
             )
-        return self._cache[key]
+        return _QUANTITIES[key]
 
     def _point(self, point: sp.Expr, x: np.ndarray, p: np.ndarray) -> float:
         system = self._compiled.system
