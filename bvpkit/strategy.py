@@ -7,13 +7,14 @@ The selector does no numerics of its own: it reads a few cheap facts about the p
 from __future__ import annotations
 
 import dataclasses
+import math
 import time
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import methods
-from .diagnostics import Attempt
+from .diagnostics import Attempt, survey
 from .methods.base import Outcome, Trial
 from .status import Status
 
@@ -30,14 +31,45 @@ class Plan:
         return f"chose {name.replace('_', ' ')}: {reason}"
 
 
+# Thresholds of the selector, each with the reason it is where it is.
+STIFF = 500.0  # max |Re eig J| * length: explicit integrators need ~this many steps; layers form
+STEEP_GROWTH = 1e8  # single shooting loses ~log10(growth) digits and overflows soon after
+
+
 def plan(trial: Trial, method: str = "auto") -> Plan:
-    """Order the methods for ``trial``; a named method is tried alone."""
+    """Order the methods for ``trial``; a named method is tried alone.
+
+    With ``"auto"`` the order comes from a survey of the linearised problem along the guess
+    (:func:`bvpkit.diagnostics.survey`): stiff problems (layers) go to collocation, whose
+    mesh follows them; problems whose IVP sensitivities grow steeply go to multiple
+    shooting; everything else goes to collocation, which measured fastest on the small
+    smooth problems of the benchmarks (``benchmarks/RESULTS.md``). The other methods follow
+    as fallbacks, single shooting last.
+    """
     if method != "auto":
         methods.get(method)  # validates the name
         return Plan([(method, "asked for by name")])
-    steps = [("collocation", "robust default for nonlinear problems with mesh adaptation")]
-    for name in methods.REGISTRY:
-        if name not in [s[0] for s in steps]:
+    facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
+    if not math.isfinite(facts.stiffness):
+        first, reason = "collocation", "the Jacobian is not finite along the guess; collocation is the most forgiving start"
+    elif facts.stiffness >= STIFF:
+        first, reason = "collocation", (
+            f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the solution "
+            "has layers that collocation's adaptive mesh follows"
+        )
+    elif facts.growth > STEEP_GROWTH:
+        first, reason = "multiple_shooting", (
+            f"sensitivity grows by {facts.growth:.0e} across the domain; multiple shooting splits that growth "
+            "into segments"
+        )
+    else:
+        first, reason = "collocation", (
+            f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length {facts.stiffness:.2g}); "
+            "collocation is the fastest robust choice at this size"
+        )
+    steps = [(first, reason)]
+    for name in ("collocation", "multiple_shooting", "single_shooting", *methods.REGISTRY):
+        if name in methods.REGISTRY and name not in [s[0] for s in steps]:
             steps.append((name, f"fallback after {steps[-1][0].replace('_', ' ')}"))
     return Plan(steps)
 

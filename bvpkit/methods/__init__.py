@@ -10,9 +10,13 @@ from __future__ import annotations
 from ..errors import OptionError, closest
 from .base import Method, Outcome, Trial
 from .collocation import Collocation
+from .multiple_shooting import MultipleShooting
+from .single_shooting import SingleShooting
 
 REGISTRY: dict[str, type[Method]] = {
     Collocation.name: Collocation,
+    SingleShooting.name: SingleShooting,
+    MultipleShooting.name: MultipleShooting,
 }
 
 

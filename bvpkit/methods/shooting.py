@@ -1,0 +1,353 @@
+"""Shooting with exact sensitivities: the engine behind single and multiple shooting.
+
+The interval is split at nodes ``t_0 = a < t_1 < ... < t_M = b``; segment ``j`` is mapped
+onto ``tau in [0, 1]`` (``x = t_j + tau h_j``), so every segment is integrated in **one**
+vectorised ``solve_ivp`` call: the stacked state holds, per segment, the states ``y``, the
+sensitivities ``Phi = dy/ds`` (``Phi' = J Phi``, ``Phi(0) = I``) and ``Psi = dy/dp``
+(``Psi' = J Psi + f_p``, ``Psi(0) = 0``), with ``J`` and ``f_p`` the exact Jacobians from
+codegen. The unknowns are the states at the nodes and the parameters; the equations are
+continuity at interior nodes and the boundary conditions. Newton's method on them uses the
+sparse block structure (a sparse LU of the bordered block-bidiagonal matrix, never a dense
+solve of the whole system), with a backtracking line search.
+
+Single shooting is the case ``M = 1`` (Keller 1968, *Numerical Methods for Two-Point
+Boundary-Value Problems*); multiple shooting chooses ``M`` from the growth of the
+sensitivities along the guess and splits a segment whose sensitivity grows too much
+(Stoer and Bulirsch, *Introduction to Numerical Analysis*, section 7.3.5).
+
+Integrators: DOP853 (explicit, order 8; Hairer, Norsett and Wanner) for non-stiff problems,
+Radau IIA (implicit, order 5) when the Jacobian's eigenvalues say the problem is stiff.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+import scipy.sparse as sparse
+from scipy.integrate import solve_ivp
+from scipy.sparse.linalg import splu
+
+from ..diagnostics import hermite, survey
+from ..status import Status
+from .base import Method, Outcome, Trial
+
+# Integration tolerance relative to the tolerance asked: the integrator's local control
+# leaves a global error of a few times its rtol on smooth problems.
+_IVP_SHARE = 0.1
+_IVP_FLOOR = 1e-13  # DOP853 refuses rtol below 100 * machine epsilon
+_MAX_NEWTON = 40
+_MIN_STEP = 1.0 / 256  # smallest line-search step before giving up
+_STIFF = 2000.0  # max |Re eig J| * length above which an implicit integrator is used
+_SEGMENT_LOG_GROWTH = math.log(20.0)  # target sensitivity growth per segment (along the guess)
+_SPLIT_GROWTH = 1e6  # a segment whose sensitivities grow more than this is split
+_MAX_SEGMENTS = 400
+_BLOWUP = 1e150  # a state this large is a blow-up, not a solution
+
+
+class _BlowUp(Exception):
+    def __init__(self, x: float, state: int, what: str, segment: int = -1):
+        super().__init__(what)
+        self.x, self.state, self.what, self.segment = x, state, what, segment
+
+
+@dataclasses.dataclass
+class _Flow:
+    """Result of integrating every segment from given node states."""
+
+    ends: np.ndarray  # (n, M) states at the segment ends
+    phi: np.ndarray  # (n, n, M)
+    psi: np.ndarray  # (n, n_p, M)
+    dense: object  # OdeSolution of the stacked system (or None)
+    max_growth: np.ndarray  # (M,) max |Phi| per segment
+
+
+class Shooting(Method):
+    """Shared engine; subclasses fix how segments are chosen."""
+
+    fixed_segments: int | None = None  # 1 for single shooting
+
+    # -- the method contract ------------------------------------------------------------
+    def _solve(self, trial: Trial) -> Outcome:
+        c, k = trial.compiled, trial.k
+        x, y, p = np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float)
+        if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
+            return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
+        facts = survey(c, x, y, p, k)
+        stiff = facts.stiffness > _STIFF
+        nodes = self._nodes(x, facts)
+        spline = hermite(c, x, y, p, k)
+        s = spline(nodes[:-1])
+        if not np.all(np.isfinite(s)):
+            s = np.array([np.interp(nodes[:-1], x, row) for row in y])
+        rtol = max(_IVP_FLOOR, trial.tol * _IVP_SHARE)
+        return self._newton(trial, nodes, s, p, rtol, stiff)
+
+    def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
+        """The same solve with a 100 times tighter integrator, started from ``outcome``."""
+        refined = dataclasses.replace(trial, tol=max(trial.tol * 1e-2, _IVP_FLOOR / _IVP_SHARE),
+                                      x=outcome.x, y=outcome.y, p=outcome.p)
+        nodes = getattr(outcome, "nodes", None)
+        if nodes is None:
+            return self._solve(refined)
+        s = outcome.y[:, np.searchsorted(outcome.x, nodes[:-1])]
+        rtol = max(_IVP_FLOOR, refined.tol * _IVP_SHARE)
+        return self._newton(refined, nodes, s, outcome.p, rtol, getattr(outcome, "stiff", False))
+
+    # -- segments -----------------------------------------------------------------------
+    def _nodes(self, x: np.ndarray, facts) -> np.ndarray:  # noqa: ANN001
+        a, b = float(x[0]), float(x[-1])
+        if self.fixed_segments is not None:
+            return np.linspace(a, b, self.fixed_segments + 1)
+        log_growth = math.log(max(facts.growth, 1.0))
+        count = int(min(_MAX_SEGMENTS, max(4, math.ceil(log_growth / _SEGMENT_LOG_GROWTH))))
+        # equidistribute growth plus a uniform share, so quiet stretches still get nodes
+        weight = np.asarray(facts.rates) + (log_growth + 1.0) / (b - a)
+        cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (weight[1:] + weight[:-1]) * np.diff(x))])
+        targets = np.linspace(0.0, cumulative[-1], count + 1)
+        nodes = np.interp(targets, cumulative, x)
+        nodes[0], nodes[-1] = a, b
+        return np.unique(nodes)
+
+    # -- integration --------------------------------------------------------------------
+    def _flow(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
+              stiff: bool, dense: bool = False, sensitivities: bool = True) -> _Flow:
+        c, k = trial.compiled, trial.k
+        n, n_p, segments = c.n, c.n_parameters, nodes.size - 1
+        t0, h = nodes[:-1], np.diff(nodes)
+        size = n + (n * n + n * n_p if sensitivities else 0)
+        start = np.zeros((size, segments))
+        start[:n] = s
+        if sensitivities:
+            start[n:n + n * n] = np.repeat(np.eye(n).reshape(n * n, 1), segments, axis=1)
+
+        def rhs(tau, z):
+            z = z.reshape(size, segments)
+            xs = t0 + tau * h
+            ys = z[:n]
+            f = c.rhs(xs, ys, p, k) * h
+            out = np.empty_like(z)
+            out[:n] = f
+            if not np.all(np.isfinite(f)):
+                bad = np.argwhere(~np.isfinite(f))[0]
+                raise _BlowUp(float(xs[bad[1]]), int(bad[0]), "the right-hand side became NaN or inf", int(bad[1]))
+            if np.abs(ys).max() > _BLOWUP:
+                bad = np.unravel_index(np.argmax(np.abs(ys)), ys.shape)
+                raise _BlowUp(float(xs[bad[1]]), int(bad[0]), "the trajectory blew up", int(bad[1]))
+            if sensitivities:
+                jac = c.jac(xs, ys, p, k) * h
+                phi = z[n:n + n * n].reshape(n, n, segments)
+                out[n:n + n * n] = np.einsum("ijm,jkm->ikm", jac, phi).reshape(n * n, segments)
+                if n_p:
+                    psi = z[n + n * n:].reshape(n, n_p, segments)
+                    dpsi = np.einsum("ijm,jkm->ikm", jac, psi) + c.pjac(xs, ys, p, k) * h
+                    out[n + n * n:] = dpsi.reshape(n * n_p, segments)
+            return out.ravel()
+
+        options = dict(rtol=rtol, atol=rtol, dense_output=dense)
+        if stiff:
+            block = sparse.kron(np.ones((size, size)), sparse.eye(segments))
+            options.update(method="Radau", jac_sparsity=block)
+        else:
+            options.update(method="DOP853")
+        result = solve_ivp(rhs, (0.0, 1.0), start.ravel(), **options)
+        if result.status != 0:
+            tau = float(result.t[-1]) if result.t.size else 0.0
+            where = t0 + tau * h
+            raise _BlowUp(float(where[0] if segments == 1 else where.min()), -1,
+                          f"the integrator's step size collapsed ({result.message.rstrip('.')})")
+        end = result.y[:, -1].reshape(size, segments)
+        phi = end[n:n + n * n].reshape(n, n, segments) if sensitivities else np.zeros((n, n, segments))
+        psi = end[n + n * n:].reshape(n, n_p, segments) if sensitivities else np.zeros((n, n_p, segments))
+        growth = np.abs(phi).reshape(n * n, segments).max(axis=0) if sensitivities else np.ones(segments)
+        return _Flow(end[:n], phi, psi, result.sol if dense else None, growth)
+
+    # -- Newton -------------------------------------------------------------------------
+    def _residual(self, trial: Trial, s: np.ndarray, p: np.ndarray, flow: _Flow) -> np.ndarray:
+        c = trial.compiled
+        continuity = (flow.ends[:, :-1] - s[:, 1:]).T.ravel()
+        boundary = c.bc(s[:, 0], flow.ends[:, -1], p, trial.k)
+        return np.concatenate([continuity, boundary])
+
+    def _matrix(self, trial: Trial, s: np.ndarray, p: np.ndarray, flow: _Flow) -> sparse.csc_matrix:
+        c = trial.compiled
+        n, n_p, segments = c.n, c.n_parameters, s.shape[1]
+        a, b, dp = c.bc_jac(s[:, 0], flow.ends[:, -1], p, trial.k)
+        size = n * segments + n_p
+        blocks_r, blocks_c, blocks_v = [], [], []
+
+        def put(r0: int, c0: int, block: np.ndarray) -> None:
+            rr, cc = np.meshgrid(r0 + np.arange(block.shape[0]), c0 + np.arange(block.shape[1]), indexing="ij")
+            blocks_r.append(rr.ravel())
+            blocks_c.append(cc.ravel())
+            blocks_v.append(block.ravel())
+
+        for j in range(segments - 1):
+            put(j * n, j * n, flow.phi[:, :, j])
+            put(j * n, (j + 1) * n, -np.eye(n))
+            if n_p:
+                put(j * n, n * segments, flow.psi[:, :, j])
+        base = (segments - 1) * n
+        put(base, 0, a)
+        put(base, (segments - 1) * n, b @ flow.phi[:, :, -1])
+        if n_p:
+            put(base, n * segments, b @ flow.psi[:, :, -1] + dp)
+        return sparse.csc_matrix(
+            (np.concatenate(blocks_v), (np.concatenate(blocks_r), np.concatenate(blocks_c))), shape=(size, size)
+        )
+
+    def _newton(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
+                stiff: bool) -> Outcome:
+        n = trial.compiled.n
+        x_guess, y_guess = np.asarray(trial.x, float), np.asarray(trial.y, float)
+
+        def failure(status: Status, message: str, iterations: int) -> Outcome:
+            return Outcome(status, message, x_guess, y_guess, np.asarray(trial.p, float), iterations=iterations)
+
+        splits = 0
+        while True:
+            try:
+                flow = self._flow(trial, nodes, s, p, rtol, stiff)
+                break
+            except _BlowUp as err:
+                # Multiple shooting: shorten the segments where the guess blows up, and retry.
+                if self.fixed_segments is not None or nodes.size - 1 >= _MAX_SEGMENTS or splits >= 12:
+                    return failure(Status.INTEGRATION_FAILED, self._blowup_message(trial, err, "from the guess"), 0)
+                wide = np.arange(nodes.size - 1) if err.segment < 0 else np.array([err.segment])
+                nodes, s = self._split_from_guess(trial, nodes, s, wide)
+                splits += 1
+        iterations = 0
+        while iterations < _MAX_NEWTON:
+            # Split segments whose sensitivities grow too much (multiple shooting only).
+            if self.fixed_segments is None and nodes.size - 1 < _MAX_SEGMENTS and splits < 8:
+                wide = np.flatnonzero(flow.max_growth > _SPLIT_GROWTH)
+                if wide.size:
+                    nodes, s = self._split(trial, nodes, s, p, rtol, stiff, wide)
+                    splits += 1
+                    try:
+                        flow = self._flow(trial, nodes, s, p, rtol, stiff)
+                    except _BlowUp as err:
+                        return failure(Status.INTEGRATION_FAILED, self._blowup_message(trial, err, "after splitting"), iterations)
+                    continue
+            residual = self._residual(trial, s, p, flow)
+            norm = float(np.max(np.abs(residual))) if residual.size else 0.0
+            matrix = self._matrix(trial, s, p, flow)
+            if not np.all(np.isfinite(matrix.data)) or not np.isfinite(norm):
+                return failure(Status.NON_FINITE, "the shooting residual or its Jacobian is NaN or inf", iterations)
+            try:
+                step = splu(matrix).solve(-residual)
+            except RuntimeError:
+                return failure(Status.SINGULAR, "the shooting Newton matrix is singular; " + Status.SINGULAR.hint, iterations)
+            if not np.all(np.isfinite(step)):
+                return failure(Status.SINGULAR, "the shooting Newton matrix is numerically singular; " + Status.SINGULAR.hint, iterations)
+            iterations += 1
+            ds, dp = step[: n * s.shape[1]].reshape(s.shape[1], n).T, step[n * s.shape[1]:]
+            size = max(
+                float(np.max(np.abs(ds) / (1.0 + np.abs(s)))),
+                float(np.max(np.abs(dp) / (1.0 + np.abs(p)))) if dp.size else 0.0,
+            )
+            lam, accepted = 1.0, False
+            last_error: _BlowUp | None = None
+            while lam >= _MIN_STEP:
+                s_new, p_new = s + lam * ds, p + lam * dp
+                try:
+                    flow_new = self._flow(trial, nodes, s_new, p_new, rtol, stiff)
+                except _BlowUp as err:
+                    last_error = err
+                    lam *= 0.5
+                    continue
+                r_new = self._residual(trial, s_new, p_new, flow_new)
+                norm_new = float(np.max(np.abs(r_new))) if r_new.size else 0.0
+                if np.isfinite(norm_new) and (norm_new <= (1 - 0.25 * lam) * norm or size < trial.tol * 1e-2 or norm_new < 1e-14):
+                    accepted = True
+                    break
+                lam *= 0.5
+            if not accepted:
+                scale = np.concatenate([(1.0 + np.abs(s[:, 1:])).T.ravel(), np.ones(residual.size - n * (s.shape[1] - 1))])
+                if float(np.max(np.abs(residual) / scale)) <= 10 * rtol:
+                    # already at the integrator's noise level: converged
+                    return self._finish(trial, nodes, s, p, rtol, stiff, iterations, matrix)
+                if last_error is not None:
+                    return failure(Status.INTEGRATION_FAILED,
+                                   self._blowup_message(trial, last_error, "at every trial step of Newton's method"),
+                                   iterations)
+                return failure(Status.NOT_CONVERGED,
+                               f"the line search could not reduce the boundary residual ({norm:.3g}) after "
+                               f"{iterations} Newton iterations; " + Status.NOT_CONVERGED.hint, iterations)
+            s, p, flow = s_new, p_new, flow_new
+            if lam == 1.0 and size * lam <= trial.tol * 1e-2:
+                return self._finish(trial, nodes, s, p, rtol, stiff, iterations, matrix)
+        return failure(Status.NOT_CONVERGED,
+                       f"Newton's method did not converge in {_MAX_NEWTON} iterations; " + Status.NOT_CONVERGED.hint,
+                       iterations)
+
+    def _split_from_guess(self, trial, nodes, s, wide):  # noqa: ANN001, ANN202
+        """Halve segments ``wide``, taking the new node states from the guess."""
+        mids = 0.5 * (nodes[wide] + nodes[wide + 1])
+        spline = hermite(trial.compiled, trial.x, trial.y, trial.p, trial.k)
+        states = spline(mids)
+        starts = np.concatenate([nodes[:-1], mids])
+        keep = np.argsort(starts)
+        return np.sort(np.concatenate([nodes, mids])), np.concatenate([s, states], axis=1)[:, keep]
+
+    def _split(self, trial, nodes, s, p, rtol, stiff, wide):  # noqa: ANN001, ANN202
+        mids = 0.5 * (nodes[wide] + nodes[wide + 1])
+        try:
+            flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
+            states = flow.dense(0.5).reshape(trial.compiled.n, nodes.size - 1)[:, wide]
+        except _BlowUp:
+            states = np.array([np.interp(mids, nodes[:-1], row) for row in s])
+        new_nodes = np.concatenate([nodes, mids])
+        order = np.argsort(new_nodes)
+        new_s = np.concatenate([s, states], axis=1)
+        # node states belong to segment starts: the end node b carries no state
+        starts = np.concatenate([nodes[:-1], mids])
+        keep = np.argsort(starts)
+        return new_nodes[order], new_s[:, keep]
+
+    def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix) -> Outcome:  # noqa: ANN001
+        """Build the output mesh from the dense output, fine enough for the C1 interpolant."""
+        c, k, n = trial.compiled, trial.k, trial.compiled.n
+        try:
+            flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
+        except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
+            return Outcome(Status.INTEGRATION_FAILED, str(err), trial.x, trial.y, p, iterations=iterations)
+        segments = nodes.size - 1
+        h = np.diff(nodes)
+
+        def states(points: np.ndarray) -> np.ndarray:
+            j = np.clip(np.searchsorted(nodes, points, side="right") - 1, 0, segments - 1)
+            tau = np.clip((points - nodes[j]) / h[j], 0.0, 1.0)
+            values = flow.dense(tau).reshape(n, segments, tau.size)
+            return values[:, j, np.arange(tau.size)]
+
+        taus = np.unique(np.concatenate([np.linspace(0, 1, 5), flow.dense.ts]))
+        x = np.unique(np.concatenate([nodes[:-1, None] + taus[None, :] * h[:, None]]).ravel())
+        x = x[(x >= nodes[0]) & (x <= nodes[-1])]
+        y = states(x)
+        # Refine where the cubic interpolant between nodes misses the equations.
+        for _ in range(8):
+            spline = hermite(c, x, y, p, k)
+            mid = 0.5 * (x[1:] + x[:-1])
+            with np.errstate(all="ignore"):
+                f = c.rhs(mid, spline(mid), p, k)
+                miss = np.max(np.abs(spline.derivative()(mid) - f) / (1.0 + np.abs(f)), axis=0)
+            bad = miss > trial.tol * 0.1
+            if not bad.any() or x.size > trial.max_nodes:
+                break
+            x = np.sort(np.concatenate([x, mid[bad]]))
+            y = states(x)
+        outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iterations with {segments} "
+                          f"segment{'s' if segments > 1 else ''} ({'Radau' if stiff else 'DOP853'})",
+                          x, y, p, iterations=iterations)
+        outcome.nodes = nodes  # type: ignore[attr-defined]
+        outcome.stiff = stiff  # type: ignore[attr-defined]
+        return outcome
+
+    def _blowup_message(self, trial: Trial, err: _BlowUp, when: str) -> str:
+        names = trial.compiled.system.state_names
+        which = f" in {names[err.state]}" if 0 <= err.state < len(names) else ""
+        hint = ("; try method = \"multiple_shooting\" or \"collocation\""
+                if self.fixed_segments == 1 else "; try method = \"collocation\" or a better guess")
+        return f"integration failed {when}: {err.what}{which} near x = {err.x:.6g}{hint}"

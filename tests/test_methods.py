@@ -1,0 +1,144 @@
+"""Shooting, multiple shooting and the selector: checks against published and analytic values,
+honest error estimates, and the same diagnostics from every method."""
+
+import math
+
+import numpy as np
+import pytest
+
+import bvpkit
+from bvpkit.methods import REGISTRY
+
+from catalogue import BLASIUS_FPP0, bratu, bratu_slope
+
+METHODS = sorted(REGISTRY)
+# Troesch, mu = 5: y'(0) = 4.575046e-2 (Roberts and Shipman 1976, J. Comput. Phys. 10, to 7
+# digits). Our own high-accuracy runs (tol 1e-9) agree to 5e-12: collocation 0.0457504614065706,
+# multiple shooting 0.0457504614063611.
+TROESCH = 4.575046e-2
+
+
+def troesch():
+    return bvpkit.Problem(["y'' = mu*sinh(mu*y)"], ["y(0) = 0", "y(1) = 1"], (0, 1), constants={"mu": 5.0})
+
+
+def test_troesch_auto_succeeds_and_matches_the_published_slope():
+    sol = bvpkit.solve(troesch(), tol=1e-9)
+    assert sol.success, sol.message
+    assert sol.evaluate("y'(0)") == pytest.approx(TROESCH, rel=2e-7)  # Roberts and Shipman 1976
+
+
+def test_troesch_multiple_shooting_succeeds_where_single_shooting_blows_up():
+    multiple = bvpkit.solve(troesch(), tol=1e-9, method="multiple_shooting")
+    assert multiple.success, multiple.message
+    assert multiple.evaluate("y'(0)") == pytest.approx(TROESCH, rel=2e-7)  # Roberts and Shipman 1976
+    single = bvpkit.solve(troesch(), tol=1e-9, method="single_shooting")
+    if not single.success:  # the expected struggle: it must say what happened and where
+        assert single.status is bvpkit.Status.INTEGRATION_FAILED
+        assert "near x = " in single.message and "multiple_shooting" in single.message
+
+
+@pytest.mark.parametrize("method", METHODS)
+def test_blasius_by_every_method(method):
+    sol = bvpkit.solve(bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"],
+                                      (0, "inf"), independent="eta"), tol=1e-9, method=method)
+    assert sol.success, sol.message
+    assert sol.evaluate("f''(0)") == pytest.approx(BLASIUS_FPP0, rel=1e-9)  # Boyd 1999, Table 1
+
+
+def test_blasius_methods_agree_with_each_other():
+    p = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"], (0, "inf"))
+    values = [bvpkit.solve(p, tol=1e-9, method=m).evaluate("f'(1)") for m in METHODS]
+    assert max(values) - min(values) < 3e-9
+
+
+@pytest.mark.parametrize("method", METHODS)
+@pytest.mark.parametrize("branch", ["lower", "upper"])
+def test_bratu_branches_by_every_method(method, branch):
+    guess = {"y": "16*x*(1-x)"} if branch == "upper" else None
+    sol = bvpkit.solve(bratu(), tol=1e-8, method=method, guess=guess)
+    assert sol.success, sol.message
+    # analytic: y'(0) = t tanh(t/4), t = sqrt(2 lam) cosh(t/4)
+    assert sol.evaluate("y'(0)") == pytest.approx(bratu_slope(1.0, branch), rel=1e-7)
+
+
+@pytest.mark.parametrize("eps", [1e-1, 1e-2, 1e-3])
+def test_boundary_layer_auto_succeeds_with_an_honest_estimate(eps):
+    p = bvpkit.Problem(["eps*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1), constants={"eps": eps})
+    sol = bvpkit.solve(p, tol=1e-6)
+    assert sol.success, sol.message
+    x = np.linspace(0, 1, 2001)
+    exact = np.expm1(-x / eps) / np.expm1(-1 / eps)  # analytic: (1 - exp(-x/eps)) / (1 - exp(-1/eps))
+    err = np.max(np.abs(sol.evaluate("y", at=x) - exact) / (1 + np.abs(exact)))
+    assert err <= sol.diagnostics.error_estimate * 10
+    assert sol.diagnostics.error_estimate <= 1e-6
+
+
+# Problems with exact solutions that no method reproduces exactly (not polynomials):
+# (problem, exact y as a function of x, source)
+EXACT = [
+    (lambda: bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y(3) = sin(3)"], (0, 3)),
+     np.sin, "analytic: y = sin x"),
+    (lambda: bvpkit.Problem(["y'' = y' + 2*y"], ["y(0) = 1", "y'(2) = 2*exp(4)"], (0, 2)),
+     lambda x: np.exp(2 * x), "analytic: y = exp(2x)"),
+    (lambda: bvpkit.Problem(["y'' = 2*y**3"], ["y(0) = 1", "y(1) = 1/2"], (0, 1)),
+     lambda x: 1 / (1 + x), "analytic: y = 1/(1+x) solves y'' = 2 y^3"),
+    (lambda: bvpkit.Problem(["0.05*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1)),
+     lambda x: np.expm1(-x / 0.05) / np.expm1(-1 / 0.05), "analytic: boundary layer, eps = 0.05"),
+]
+
+
+@pytest.mark.parametrize("method", METHODS)
+@pytest.mark.parametrize("index", range(len(EXACT)))
+@pytest.mark.parametrize("tol", [1e-4, 1e-7])
+def test_error_estimate_is_within_a_factor_ten_of_the_true_error(method, index, tol):
+    make, exact, source = EXACT[index]
+    sol = bvpkit.solve(make(), tol=tol, method=method)
+    assert sol.success, sol.message
+    x = np.concatenate([sol.x, 0.5 * (sol.x[1:] + sol.x[:-1])])
+    true = np.max(np.abs(sol.evaluate("y", at=x) - exact(x)) / (1 + np.abs(exact(x))))
+    estimate = sol.diagnostics.discretisation_error
+    assert estimate >= 0.1 * true, (source, estimate, true)
+    if true > 1e-12:  # below that, both are round-off
+        assert estimate <= 10 * true, (source, estimate, true)
+
+
+@pytest.mark.parametrize("method", METHODS)
+def test_every_method_reports_the_same_diagnostics(method):
+    sol = bvpkit.solve(bratu(), tol=1e-7, method=method)
+    d = sol.diagnostics
+    assert sol.method == method == d.method
+    assert d.iterations >= 1 and d.mesh_nodes == sol.x.size
+    for value in (d.max_residual, d.bc_residual, d.error_estimate, d.condition, d.seconds):
+        assert math.isfinite(value)
+    assert d.max_residual < 1e-5 and d.bc_residual < 1e-9
+    assert 1 <= d.condition < 100  # Bratu's lower branch is well conditioned (common practice, no source)
+    assert [a.method for a in d.attempts] == [method]
+
+
+def test_selector_explains_layers_and_steep_growth():
+    layer = bvpkit.solve(bvpkit.Problem(["1e-3*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1)))
+    assert layer.diagnostics.selection.startswith("chose collocation: stiff")
+    steep = bvpkit.solve(bvpkit.Problem(["y'' = 400*y"], ["y(0) = 0", "y(1) = 1"], (0, 1)), tol=1e-8)
+    assert steep.success, steep.message
+    assert steep.diagnostics.selection.startswith("chose multiple shooting: sensitivity grows by")
+    # analytic: y = sinh(20 x) / sinh(20)
+    assert steep.evaluate("y(1/2)") == pytest.approx(math.sinh(10) / math.sinh(20), rel=1e-7)
+    assert "chose multiple shooting" in steep.summary()
+
+
+def test_auto_falls_back_and_records_every_attempt():
+    p = bvpkit.Problem(["1e-4*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1))
+    sol = bvpkit.solve(p, tol=1e-6, max_nodes=30)
+    attempts = sol.diagnostics.attempts
+    assert attempts[0].method == "collocation" and attempts[0].status == "mesh_limit"
+    assert len(attempts) >= 2 and attempts[1].reason.startswith("fallback after collocation")
+    assert sol.success == (attempts[-1].status == "solved")
+
+
+def test_outputs_carry_error_estimates():
+    p = bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y'(0) = 1"], (0, 2), outputs={"end": "y(2)"})
+    sol = bvpkit.solve(p, tol=1e-6)
+    err = abs(sol.outputs["end"] - math.sin(2))  # analytic: y = sin x
+    assert sol.output_errors["end"] >= 0.1 * err
+    assert "+/-" in sol.summary()
