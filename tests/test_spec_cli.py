@@ -108,7 +108,8 @@ def test_cli_exit_codes_and_one_line_errors(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "not an end of the domain" in err and "Traceback" not in err
     hard = GOOD.replace("y'' = -y", "1e-4*y'' + y' = 0").replace("y'(0) = 1", "y(1) = 1")
-    code = main(["solve", _write(tmp_path, hard, "hard.toml"), "--max-nodes", "20", "--tol", "1e-9"])
+    code = main(["solve", _write(tmp_path, hard, "hard.toml"), "--max-nodes", "20", "--tol", "1e-9",
+                 "--method", "collocation"])
     assert code == Status.MESH_LIMIT.exit_code
 
 
