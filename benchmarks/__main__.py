@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from . import collocation
+from . import collocation, shooting
 from .harness import record
 
-SUITES = [*collocation.SECTIONS]
+SUITES = [*collocation.SECTIONS, *shooting.SECTIONS]
 
 
 def main(argv: list[str]) -> None:

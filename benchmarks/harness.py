@@ -20,17 +20,25 @@ class Contender:
     run: Callable[[], float]  # returns the computed check value
     times: list[float] = field(default_factory=list)
     value: float = float("nan")
+    failure: str = ""
+
+    def __call__(self) -> float:
+        try:
+            return float(self.run())
+        except Exception as err:  # noqa: BLE001 - a contender that fails is a result, not a crash
+            self.failure = f"{type(err).__name__}: {str(err)[:80]}"
+            return float("nan")
 
 
 def race(contenders: list[Contender], repeats: int = 7, warmup: int = 1) -> None:
     """Run every contender ``repeats`` times, alternating, after ``warmup`` untimed runs each."""
     for c in contenders:
         for _ in range(warmup):
-            c.value = c.run()
+            c.value = c()
     for _ in range(repeats):
         for c in contenders:
             start = time.perf_counter()
-            c.value = c.run()
+            c.value = c()
             c.times.append(time.perf_counter() - start)
 
 
@@ -50,7 +58,8 @@ def table(title: str, contenders: list[Contender], baseline: str, reference: flo
     for c in contenders:
         t = statistics.median(c.times)
         err = abs(c.value - reference) / abs(reference) if reference else abs(c.value)
-        lines.append(f"| {c.name} | {1e3 * t:.2f} | {t / base:.2f} | {err:.1e} |")
+        shown = f"failed ({c.failure})" if c.failure and c.value != c.value else f"{err:.1e}"
+        lines.append(f"| {c.name} | {1e3 * t:.2f} | {t / base:.2f} | {shown} |")
     return "\n".join(lines) + "\n"
 
 

@@ -217,18 +217,22 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
     eye = np.eye(n)
     left = -eye[:, :, None] / h - 0.5 * jac[:, :, :-1]  # d/dy_i of (y_i+1 - y_i)/h - (f_i + f_i+1)/2
     right = eye[:, :, None] / h - 0.5 * jac[:, :, 1:]
-    rows, cols, vals = [], [], []
+    # Interval blocks, all at once: block i occupies rows i*n.. and columns i*n.. (left)
+    # and (i+1)*n.. (right); entries ordered (interval, row, column).
     r = np.arange(n)
-    for i in range(m - 1):
-        rr, cc = np.meshgrid(i * n + r, i * n + r, indexing="ij")
-        rows += [rr.ravel(), rr.ravel()]
-        cols += [cc.ravel(), (cc + n).ravel()]
-        vals += [left[:, :, i].ravel(), right[:, :, i].ravel()]
-        if n_p:
-            rp, cp = np.meshgrid(i * n + r, n * m + np.arange(n_p), indexing="ij")
-            rows.append(rp.ravel())
-            cols.append(cp.ravel())
-            vals.append((-0.5 * (pjac[:, :, i] + pjac[:, :, i + 1])).ravel())
+    i = np.arange(m - 1)[:, None, None]
+    block_rows = (i * n + r[None, :, None]).repeat(n, axis=2)
+    block_cols = (i * n + r[None, None, :]).repeat(n, axis=1)
+    rows = [block_rows.ravel(), block_rows.ravel()]
+    cols = [block_cols.ravel(), (block_cols + n).ravel()]
+    vals = [np.moveaxis(left, -1, 0).ravel(), np.moveaxis(right, -1, 0).ravel()]
+    if n_p:
+        q = np.arange(n_p)
+        prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
+        pcol = np.broadcast_to(n * m + q[None, None, :], prow.shape)
+        rows.append(prow.ravel())
+        cols.append(pcol.ravel())
+        vals.append(np.moveaxis(-0.5 * (pjac[:, :, :-1] + pjac[:, :, 1:]), -1, 0).ravel())
     base = (m - 1) * n
     nb = a.shape[0]
     for block, offset in ((a, 0), (b, (m - 1) * n)):

@@ -1,0 +1,73 @@
+"""bvpkit's shooting methods against the hand-written integrator-inside-a-root-finder."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.integrate import solve_ivp
+from scipy.optimize import newton
+
+import bvpkit
+
+from .harness import Contender, race, table
+
+BLASIUS = 0.33205733621519630  # Boyd 1999, SIAM Review, Table 1
+TROESCH = 0.0457504614065706  # our collocation at tol 1e-9; Roberts and Shipman 1976 give 4.575046e-2
+
+
+def _hand_blasius(tol: float, length: float):
+    def miss(s):
+        sol = solve_ivp(lambda x, y: [y[1], y[2], -0.5 * y[0] * y[2]], (0, length), [0.0, 0.0, s],
+                        method="DOP853", rtol=tol, atol=tol)
+        return sol.y[1, -1] - 1.0
+
+    return lambda: newton(miss, 0.3, tol=tol)  # secant: derivatives by finite differences
+
+
+def blasius_shooting(tol: float = 1e-8, length: float = 10.0) -> str:
+    finite = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", f"f'({length}) = 1"],
+                            (0, length), guess={"f": "x - 1 + exp(-x)"})
+    contenders = [
+        Contender("hand-written: DOP853 inside a secant root finder", _hand_blasius(tol * 0.1, length)),
+        Contender("bvpkit single shooting, verify off",
+                  lambda: bvpkit.solve(finite, method="single_shooting", tol=tol, verify=False).evaluate("f''(0)")),
+        Contender("bvpkit single shooting, with error estimate",
+                  lambda: bvpkit.solve(finite, method="single_shooting", tol=tol).evaluate("f''(0)")),
+        Contender("bvpkit multiple shooting, verify off",
+                  lambda: bvpkit.solve(finite, method="multiple_shooting", tol=tol, verify=False).evaluate("f''(0)")),
+        Contender("bvpkit collocation, verify off",
+                  lambda: bvpkit.solve(finite, method="collocation", tol=tol, verify=False).evaluate("f''(0)")),
+        Contender("bvpkit auto, with error estimate",
+                  lambda: bvpkit.solve(finite, tol=tol).evaluate("f''(0)")),
+    ]
+    race(contenders, repeats=5)
+    return table(f"Blasius on [0, {length:g}] by shooting, tol = {tol:g}", contenders, contenders[0].name, BLASIUS,
+                 "Same truncated problem for all rows (f'(10) = 1); the error includes truncation at 10 (~1e-9).")
+
+
+def troesch(tol: float = 1e-8) -> str:
+    def hand(start):
+        def miss(s):
+            sol = solve_ivp(lambda x, y: [y[1], 25 * np.sinh(5 * y[0])], (0, 1), [0.0, s],
+                            method="DOP853", rtol=tol * 0.1, atol=tol * 0.1)
+            if sol.status != 0:
+                return 1e6  # blew up: a typical hand-written guard
+            return sol.y[0, -1] - 1.0
+        return lambda: newton(miss, start, tol=tol)
+
+    p = bvpkit.Problem(["y'' = mu*sinh(mu*y)"], ["y(0) = 0", "y(1) = 1"], (0, 1), constants={"mu": 5.0})
+    contenders = [
+        Contender("hand-written: DOP853 inside a secant root finder, s0 = 0.05", hand(0.05)),
+        Contender("hand-written: DOP853 inside a secant root finder, s0 = 0.046", hand(0.046)),
+        Contender("bvpkit multiple shooting, verify off",
+                  lambda: bvpkit.solve(p, method="multiple_shooting", tol=tol, verify=False).evaluate("y'(0)")),
+        Contender("bvpkit collocation, verify off",
+                  lambda: bvpkit.solve(p, method="collocation", tol=tol, verify=False).evaluate("y'(0)")),
+        Contender("bvpkit auto, with error estimate", lambda: bvpkit.solve(p, tol=tol).evaluate("y'(0)")),
+    ]
+    race(contenders, repeats=5)
+    return table(f"Troesch, mu = 5, tol = {tol:g}", contenders, contenders[1].name, TROESCH,
+                 "The hand-written shooter is given a good starting slope (0.05); from y = x "
+                 "(slope 1) it overflows, as does bvpkit's single shooting, which auto does not choose.")
+
+
+SECTIONS = [blasius_shooting, troesch]
