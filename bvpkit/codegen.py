@@ -205,7 +205,17 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
 def compile_expressions(
     exprs: Sequence[sp.Expr], args: Sequence[tuple[str, Sequence[sp.Symbol]]], mesh: str
 ) -> Callable:
-    """A vectorised callable ``(*args) -> ndarray, shape (len(exprs), m)``."""
-    entries = {(i,): e for i, e in enumerate(exprs)}
-    source = _function_source("quantity", args, entries, (len(exprs),), mesh)
-    return _build(source, ["quantity"])["quantity"]
+    """A vectorised callable ``(*args) -> ndarray, shape (len(exprs), m)`` (cached by content)."""
+    key = (tuple(sp.srepr(e) for e in exprs), tuple((a, tuple(map(str, s))) for a, s in args), mesh)
+    cached = _QUANTITIES.get(key)
+    if cached is None:
+        entries = {(i,): e for i, e in enumerate(exprs)}
+        source = _function_source("quantity", args, entries, (len(exprs),), mesh)
+        cached = _build(source, ["quantity"])["quantity"]
+        if len(_QUANTITIES) > 2_000:
+            _QUANTITIES.clear()
+        _QUANTITIES[key] = cached
+    return cached
+
+
+_QUANTITIES: dict[tuple, Callable] = {}

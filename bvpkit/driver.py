@@ -93,8 +93,9 @@ def solve(
     max_nodes : int, optional
         Mesh limit (default 20000).
     verify : bool, optional
-        Estimate the error by a refined re-solve (default True). Without it, the solve is
-        about twice as fast and ``error_estimate`` is NaN.
+        Estimate the error by a refined re-solve and the stability constant of the problem
+        (default True). Without it, the solve is up to twice as fast and
+        ``error_estimate`` and ``condition`` are not computed (NaN and None).
     truncation : float, optional
         First placement of an infinite end, measured from the finite end (default 10). The
         domain is lengthened from there until the solution stops changing.
@@ -235,6 +236,7 @@ def _change(compiled, old: Outcome, new: Outcome, k) -> float:  # noqa: ANN001
 def _assemble(problem, compiled, k, outcome, attempts, selection, start, length, change,  # noqa: ANN001
               previous: Outcome | None = None) -> Solution:
     residual, bc_residual = residuals(compiled, outcome.x, outcome.y, outcome.p, k)
+    verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
     discretisation = outcome.error_estimate
     estimate = math.nan
     if discretisation is not None:
@@ -257,7 +259,8 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
         truncation_error=change if length is not None else None,
         truncation_length=length,
         condition=condition_estimate(compiled, outcome.x, outcome.y, outcome.p, k)
-        if status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.all(np.isfinite(outcome.y)) else None,
+        if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.all(np.isfinite(outcome.y))
+        else None,
         seconds=time.perf_counter() - start,
         attempts=attempts,
         selection=selection,
