@@ -47,7 +47,7 @@ def blasius_shooting(tol: float = 1e-8, length: float = 10.0) -> str:
 def troesch(tol: float = 1e-8) -> str:
     def hand(start):
         def miss(s):
-            sol = solve_ivp(lambda x, y: [y[1], 25 * np.sinh(5 * y[0])], (0, 1), [0.0, s],
+            sol = solve_ivp(lambda x, y: [y[1], 5 * np.sinh(5 * y[0])], (0, 1), [0.0, s],
                             method="DOP853", rtol=tol * 0.1, atol=tol * 0.1)
             if sol.status != 0:
                 return 1e6  # blew up: a typical hand-written guard
@@ -66,7 +66,7 @@ def troesch(tol: float = 1e-8) -> str:
     ]
     race(contenders, repeats=5)
     return table(f"Troesch, mu = 5, tol = {tol:g}", contenders, contenders[1].name, TROESCH,
-                 "The hand-written shooter is given a good starting slope (0.05); from y = x "
+                 "The hand-written shooter is given starting slopes near the answer; from y = x "
                  "(slope 1) it overflows, as does bvpkit's single shooting, which auto does not choose.")
 
 
