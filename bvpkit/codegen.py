@@ -27,7 +27,8 @@ from .reduce import X, FirstOrderSystem
 _NAMESPACE = {"numpy": np, "scipy": scipy, "functools": functools}
 _ALLOWED_WORDS = re.compile(
     r"^(_[xyptk]\w*|_ya\d+|_yb\d+|numpy(\.\w+)*|scipy(\.\w+)*|functools\.reduce|def|return|"
-    r"out|x|y|p|k|ya|yb|shape|abs|rhs|jac|pjac|bc|bc_jac_[abp]|quantity)$"
+    r"out|x|y|p|k|ya|yb|shape|abs|rhs|jac|pjac|bc|bc_jac_[abp]|quantity|physical|singular_matrix|"
+    r"domain_ends)$"
 )
 
 
@@ -122,6 +123,9 @@ class CompiledSystem:
     bc_jac: Callable
     jac_pattern: np.ndarray
     source: str
+    physical: Callable | None = None
+    singular_matrix: Callable | None = None
+    domain_ends: Callable | None = None
 
     @property
     def n(self) -> int:
@@ -130,6 +134,38 @@ class CompiledSystem:
     @property
     def n_parameters(self) -> int:
         return len(self.system.parameters)
+
+    def singular(self, p: np.ndarray, k: np.ndarray) -> np.ndarray | None:
+        """The matrix ``S`` of the term ``S y / (x - a)``, or None."""
+        return None if self.system.singular is None else self.singular_matrix(p, k)
+
+    def slopes(self, x, y, p, k, physical: bool = False) -> np.ndarray:  # noqa: ANN001
+        """``y'`` in the method's variable (or the physical one), singular term included.
+
+        At the singular end itself the limit ``(I - S)^-1 f(a, y(a))`` is used (the value
+        SciPy's ``solve_bvp`` also takes).
+        """
+        if physical and self.system.rescaled:
+            a, b = self.domain_ends(p, k)
+            return self.slopes((np.asarray(x) - a) / (b - a), y, p, k) / (b - a)
+        f = self.rhs(x, y, p, k)
+        if self.system.singular is None:
+            return f
+        S = self.singular_matrix(p, k)
+        a = self.domain_ends(p, k)[0]
+        d = np.asarray(x, float) - a
+        out = np.array(f, dtype=float)
+        at = d == 0
+        with np.errstate(all="ignore"):
+            term = np.tensordot(S, y, axes=(1, 0)) / np.where(at, 1.0, d)
+        out = out + np.where(at, 0.0, term)
+        if np.any(at):
+            limit = np.linalg.solve(np.eye(S.shape[0]) - S, np.reshape(f, (S.shape[0], -1))[:, np.ravel(at)])
+            if out.ndim == 1:
+                out = limit[:, 0]
+            else:
+                out[:, at] = limit
+        return out
 
 
 def _system_source(system: FirstOrderSystem) -> tuple[str, np.ndarray]:
@@ -161,7 +197,15 @@ def _system_source(system: FirstOrderSystem) -> tuple[str, np.ndarray]:
             d = sp.diff(e, s)
             if d != 0:
                 bcp[(i, j)] = d
+    physical = {(i,): e for i, e in enumerate(system.physical_rhs or system.rhs) if e != 0}
+    singular = {}
+    if system.singular is not None:
+        singular = {(i, j): e for i, row in enumerate(system.singular) for j, e in enumerate(row) if e != 0}
+    finite_ends = {(i,): e for i, e in enumerate(system.domain) if e not in (sp.oo, -sp.oo)}
     parts = [
+        _function_source("physical", xyk, physical, (n,), "y"),
+        _function_source("singular_matrix", [("p", system.p), ("k", system.k)], singular, (n, n), None),
+        _function_source("domain_ends", [("p", system.p), ("k", system.k)], finite_ends, (2,), None),
         _function_source("rhs", xyk, rhs, (n,), "y"),
         _function_source("jac", xyk, jac, (n, n), "y"),
         _function_source("pjac", xyk, pjac, (n, n_p), "y"),
@@ -183,7 +227,8 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
     if cached is not None:
         return cached
     source, pattern = _system_source(system)
-    f = _build(source, ["rhs", "jac", "pjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p"])
+    f = _build(source, ["rhs", "jac", "pjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p",
+                        "physical", "singular_matrix", "domain_ends"])
 
     def bc_jac(ya, yb, p, k, _a=f["bc_jac_a"], _b=f["bc_jac_b"], _p=f["bc_jac_p"]):
         return _a(ya, yb, p, k), _b(ya, yb, p, k), _p(ya, yb, p, k)
@@ -197,6 +242,9 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
         bc_jac=bc_jac,
         jac_pattern=pattern,
         source=source,
+        physical=f["physical"],
+        singular_matrix=f["singular_matrix"],
+        domain_ends=f["domain_ends"],
     )
     _MEMORY[key] = compiled
     return compiled

@@ -112,18 +112,19 @@ def _clean(value: Any) -> Any:
     return value
 
 
-def hermite(compiled, x, y, p, k):  # noqa: ANN001, ANN201
+def hermite(compiled, x, y, p, k, physical: bool = False):  # noqa: ANN001, ANN201
     """The C1 cubic interpolant through the states with slopes from the equations.
 
     For collocation this is the solution SciPy's ``solve_bvp`` itself returns; for shooting
-    it is a 4th-order accurate interpolant of the nodes. Returns a callable
+    it is a 4th-order accurate interpolant of the nodes. ``physical`` says that ``x`` is
+    the physical variable of a rescaled (free-end) problem. Returns a callable
     ``(points) -> ndarray, shape (n, len(points))``.
     """
     import numpy as np
     from scipy.interpolate import CubicHermiteSpline
 
     with np.errstate(all="ignore"):
-        slopes = compiled.rhs(x, y, p, k)
+        slopes = compiled.slopes(x, y, p, k, physical)
     return CubicHermiteSpline(x, y, slopes, axis=1, extrapolate=False)
 
 
@@ -141,7 +142,7 @@ def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001
         mid = 0.5 * (x[1:] + x[:-1])
         s = spline(mid)
         ds = spline.derivative()(mid)
-        f = compiled.rhs(mid, s, p, k)
+        f = compiled.slopes(mid, s, p, k)
         r = np.abs(ds - f) / (1.0 + np.abs(f))
         bc = np.abs(compiled.bc(y[:, 0], y[:, -1], p, k))
     equation = float(np.max(r)) if r.size else 0.0

@@ -115,14 +115,27 @@ def solve(
     start = time.perf_counter()
     compiled = compile_system(problem.system)
     k = np.array([problem.constants[c] for c in problem.system.constants], dtype=float)
+    system = problem.system
     a, b = (problem.end_value(e) for e in problem.domain)
     if math.isinf(a) or math.isinf(b):
+        if system.eigenvalue is not None:
+            raise OptionError("eigenvalue problems on infinite domains are not supported; truncate the domain")
         return _solve_infinite(problem, compiled, k, a, b, guess, options, start)
+    if system.rescaled and isinstance(guess, Solution):
+        a, b = float(guess.x[0]), float(guess.x[-1])
     x = _guess.initial_mesh(a, b, min(_guess.INITIAL_NODES, options["max_nodes"] // 2))
     if isinstance(guess, Solution) and np.isclose(guess.x[0], a) and np.isclose(guess.x[-1], b):
         x = guess.x.copy()  # its mesh already fits the solution
     y, p = _start(problem, compiled, x, k, guess)
-    trial = Trial(compiled, x, y, p, k, options["tol"], options["max_nodes"], options["verify"])
+    method_x = (x - a) / (b - a) if system.rescaled else x
+    if system.eigenvalue is not None and not isinstance(guess, Solution):
+        vectors, lam = _guess.eigen_guess(compiled, method_x, k, system.mode)
+        if not guess:
+            y[: system.users] = vectors
+        p[system.eigenvalue] = lam
+        _guess.fill_integrals(compiled, x, y, p, k)
+    trial = Trial(compiled, method_x, y, p, k, options["tol"], options["max_nodes"], options["verify"],
+                  singular=compiled.singular(p, k))
     outcome, attempts, selection = strategy.run(trial, options["method"])
     return _assemble(problem, compiled, k, outcome, attempts, selection, start, None, None)
 
@@ -265,12 +278,29 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
         attempts=attempts,
         selection=selection,
     )
-    reference = None
-    if outcome.reference is not None:
-        r = outcome.reference
-        reference = (r.x, r.y, r.p)
-    shorter = (previous.x, previous.y, previous.p) if previous is not None else None
+    system = compiled.system
+    if system.eigenvalue is not None and status is Status.SOLVED:
+        found = _guess.interior_zeros(outcome.y[system.index(system.states[0][0], 0)])
+        if found != system.mode - 1:
+            status = Status.OTHER_MODE
+            message = (
+                f"asked for mode {system.mode} ({system.mode - 1} interior zeros of "
+                f"{system.states[0][0]}), but the solution found has {found} interior zeros "
+                f"(mode {found + 1}); " + Status.OTHER_MODE.hint
+            )
+    reference = _physical(compiled, k, outcome.reference) if outcome.reference is not None else None
+    shorter = _physical(compiled, k, previous) if previous is not None else None
+    x, y, p = _physical(compiled, k, outcome)
     return Solution(
-        problem, compiled, k, status, message, diagnostics.method, outcome.x, outcome.y, outcome.p,
+        problem, compiled, k, status, message, diagnostics.method, x, y, p,
         diagnostics, outcome.parameter_errors, reference, shorter,
     )
+
+
+def _physical(compiled, k, outcome: Outcome) -> tuple[np.ndarray, np.ndarray, np.ndarray]:  # noqa: ANN001
+    """Mesh, states and parameters with the mesh in the physical variable."""
+    x = outcome.x
+    if compiled.system.rescaled:
+        a, b = compiled.domain_ends(outcome.p, k)
+        x = a + (b - a) * x
+    return x, outcome.y, outcome.p

@@ -72,6 +72,22 @@ FUNCTIONS: dict[str, tuple[object, int]] = {
 #: Names with a fixed meaning; they cannot name a constant, parameter or function.
 RESERVED: dict[str, sp.Expr] = {"pi": sp.pi, "e": sp.E, "inf": sp.oo, "oo": sp.oo}
 
+
+class DomainIntegral(sp.Function):
+    """``integral(expr)``: the integral of ``expr`` over the whole domain (conditions only).
+
+    Kept unevaluated; :mod:`bvpkit.reduce` turns each one into an added state ``z`` with
+    ``z' = expr``, ``z(a) = 0``, and reads the integral as ``z(b)``.
+    """
+
+    nargs = 1
+
+    def _sympystr(self, printer):  # noqa: ANN001, ANN202
+        return f"integral({printer.doprint(self.args[0])})"
+
+
+INTEGRAL = "integral"
+
 _TOKEN = re.compile(
     r"""
     (?P<space>\s+)
@@ -318,6 +334,15 @@ class _Parser:
                     token,
                 )
             return func(*args)
+        if name == INTEGRAL:
+            if primes or not called:
+                raise self._error("write integral(expression) for an integral over the domain", token)
+            args = self._arguments()
+            if len(args) != 1:
+                raise self._error("integral takes one argument: the integrand", token)
+            if args[0].has(DomainIntegral):
+                raise self._error("integrals cannot be nested", token)
+            return DomainIntegral(args[0])
         if name in RESERVED:
             if primes or called:
                 raise self._error(f"'{name}' is a reserved constant, not a function", token)
@@ -406,7 +431,7 @@ def check_name(name: object, role: str) -> str:
         )
     if keyword.iskeyword(name) or keyword.issoftkeyword(name):
         raise ExpressionError(f"{role} name '{name}' is a Python keyword")
-    if name in RESERVED or name in FUNCTIONS:
+    if name in RESERVED or name in FUNCTIONS or name == INTEGRAL:
         raise ExpressionError(f"{role} name '{name}' is reserved (a built-in constant or function)")
     if len(name) > 64:
         raise ExpressionError(f"{role} name '{name[:20]}...' is longer than 64 characters")

@@ -49,6 +49,7 @@ def initial_guess(
             y[rows] = _from_expression(problem, system, expressions[name], order, x, p, k)
         else:
             y[rows] = _polynomial(system, name, order, x, p, k)
+    fill_integrals(compiled, x, y, p, k)
     if not np.all(np.isfinite(y)):
         bad = np.argwhere(~np.isfinite(y))[0]
         raise ProblemError(
@@ -158,3 +159,102 @@ def from_solution(solution, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:  # 
     if left.any():
         y[:, left] += slopes[0][:, None] * (x[left] - solution.x[0])
     return y, np.array(solution._p, dtype=float)
+
+
+def fill_integrals(compiled: CompiledSystem, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> None:
+    """Set the added integral states to the running integrals of their integrands (in place).
+
+    ``x`` is the physical variable.
+    """
+    system = compiled.system
+    if system.n == system.users:
+        return
+    with np.errstate(all="ignore"):
+        integrands = compiled.physical(x, y, p, k)[system.users:]
+    steps = 0.5 * (integrands[:, 1:] + integrands[:, :-1]) * np.diff(x)
+    y[system.users:] = np.concatenate([np.zeros((steps.shape[0], 1)), np.cumsum(steps, axis=1)], axis=1)
+
+
+def interior_zeros(values: np.ndarray) -> int:
+    """Sign changes of a sampled function, ignoring samples within round-off of zero."""
+    scale = np.max(np.abs(values)) if values.size else 0.0
+    signs = np.sign(values[np.abs(values) > 1e-8 * scale])
+    return int(np.count_nonzero(signs[1:] != signs[:-1]))
+
+
+def eigen_guess(compiled: CompiledSystem, x: np.ndarray, k: np.ndarray, mode: int) -> tuple[np.ndarray, float]:
+    """States ``(users, len(x))`` and eigenvalue of mode ``mode`` of a linear problem.
+
+    Solves the trapezoidal-rule discretisation of the problem on a uniform mesh as a
+    generalized matrix eigenproblem ``K v = lam L v`` (the equations are affine in the
+    eigenvalue, so ``K`` and ``L`` come from the exact Jacobian at ``lam = 0`` and ``1``),
+    and picks the eigenvector whose first unknown has ``mode - 1`` interior zeros, the
+    smallest such eigenvalue in magnitude. A singular term ``S y / (x - a)`` enters through
+    its limit at ``x = a``.
+    """
+    import scipy.linalg
+
+    system = compiled.system
+    n, users = system.n, system.users
+    which = system.eigenvalue
+    a, b = float(x[0]), float(x[-1])
+    nodes = max(121, 30 * mode + 1)
+    t = np.linspace(a, b, nodes)
+    y0 = np.zeros((n, nodes))
+    p0 = np.zeros(len(system.parameters))
+    p1 = p0.copy()
+    p1[which] = 1.0
+    with np.errstate(all="ignore"):
+        A = compiled.jac(t, y0, p0, k)[:users, :users]
+        B = compiled.jac(t, y0, p1, k)[:users, :users] - A
+        ba, bb, _ = compiled.bc_jac(y0[:, 0], y0[:, -1], p0, k)
+        ba1, bb1, _ = compiled.bc_jac(y0[:, 0], y0[:, -1], p1, k)
+    S = compiled.singular(p0, k)
+    if S is not None:
+        S = S[:users, :users]
+        with np.errstate(all="ignore"):
+            A[:, :, 1:] += S[:, :, None] / (t[1:] - a)
+        inverse = np.linalg.inv(np.eye(users) - S)
+        A[:, :, 0] = inverse @ A[:, :, 0]
+        B[:, :, 0] = inverse @ B[:, :, 0]
+    m_user = users  # the homogeneous conditions come first, one per order
+    ba_lam, bb_lam = ba1[:m_user, :users] - ba[:m_user, :users], bb1[:m_user, :users] - bb[:m_user, :users]
+    ba, bb = ba[:m_user, :users], bb[:m_user, :users]
+    size = users * nodes
+    K = np.zeros((size, size))
+    L = np.zeros((size, size))
+    h = np.diff(t)
+    eye = np.eye(users)
+    for i in range(nodes - 1):
+        r = slice(i * users, (i + 1) * users)
+        c0, c1 = slice(i * users, (i + 1) * users), slice((i + 1) * users, (i + 2) * users)
+        K[r, c0] = -eye / h[i] - 0.5 * A[:, :, i]
+        K[r, c1] = eye / h[i] - 0.5 * A[:, :, i + 1]
+        L[r, c0] = 0.5 * B[:, :, i]
+        L[r, c1] = 0.5 * B[:, :, i + 1]
+    rows = slice((nodes - 1) * users, size)
+    K[rows, :users] = ba
+    K[rows, size - users:] = bb
+    L[rows, :users] = -ba_lam  # conditions affine in the eigenvalue (a column's shear condition)
+    L[rows, size - users:] = -bb_lam
+    values, vectors = scipy.linalg.eig(K, L)
+    finite = np.isfinite(values) & (np.abs(values.imag) <= 1e-6 * (1 + np.abs(values.real)))
+    candidates = []
+    first = system.index(system.states[0][0], 0)
+    for lam, v in zip(values[finite].real, vectors[:, finite].T):
+        v = v.real.reshape(nodes, users).T
+        if not np.any(v[first]):
+            continue
+        candidates.append((interior_zeros(v[first]), abs(lam), lam, v))
+    if not candidates:
+        raise ProblemError("the discretised eigenproblem has no real eigenvalue; check the equations and conditions")
+    wanted = [c for c in candidates if c[0] == mode - 1]
+    pool = sorted(wanted or candidates, key=lambda c: c[1])
+    _, _, lam, v = pool[0] if wanted else pool[min(mode - 1, len(pool) - 1)]
+    values_rows = [i for i, (_, order) in enumerate(system.states[:users]) if order == 0]
+    norm = np.trapezoid(np.sum(v[values_rows] ** 2, axis=0), t)
+    v = v / np.sqrt(norm)
+    peak = np.argmax(np.abs(v[first][: max(2, nodes // (2 * mode))]))
+    if v[first][peak] < 0:
+        v = -v
+    return np.array([np.interp(x, t, row) for row in v]), float(lam)

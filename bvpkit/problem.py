@@ -54,6 +54,13 @@ class Problem:
         arguments of :func:`bvpkit.solve` override them.
     title : str, optional
         A one-line description used in summaries.
+    eigenvalue : str, optional
+        For a linear homogeneous problem: the name of the eigenvalue. bvpkit adds it as an
+        unknown parameter and adds the normalisation ``integral(sum of squares of the
+        unknown functions) = 1``, so the conditions are the homogeneous ones only.
+    mode : int, optional
+        Which eigenvalue: mode ``k`` has ``k - 1`` interior zeros in the first unknown
+        function (the Sturm-Liouville count); default 1 when ``eigenvalue`` is given.
 
     Raises
     ------
@@ -76,6 +83,8 @@ class Problem:
         outputs: Mapping[str, str] | None = None,
         settings: Mapping[str, Any] | None = None,
         title: str = "",
+        eigenvalue: str | None = None,
+        mode: int | None = None,
     ):
         self.title = str(title)
         self.independent = _expr.check_name(independent, "independent variable")
@@ -90,6 +99,21 @@ class Problem:
             )
         if self.independent in self.constants or self.independent in self.unknown_parameters:
             raise ProblemError(f"'{self.independent}' is the independent variable and a constant")
+        self.eigenvalue = None
+        self.mode = None
+        if eigenvalue is not None:
+            _expr.check_name(eigenvalue, "eigenvalue")
+            if eigenvalue in self.constants or eigenvalue in self.unknown_parameters:
+                raise ProblemError(
+                    f"eigenvalue '{eigenvalue}' must not also be a constant or unknown parameter"
+                )
+            self.eigenvalue = eigenvalue
+            self.unknown_parameters[eigenvalue] = 0.0  # its guess comes from a discrete eigenproblem
+            self.mode = 1 if mode is None else mode
+            if isinstance(self.mode, bool) or not isinstance(self.mode, int) or not 1 <= self.mode <= 1000:
+                raise ProblemError(f"mode must be a whole number from 1 to 1000, got {mode!r}")
+        elif mode is not None:
+            raise ProblemError("mode is given but no eigenvalue: name it with eigenvalue=\"...\"")
 
         if isinstance(equations, str | sp.Basic):
             equations = [equations]
@@ -214,6 +238,11 @@ class Problem:
                         f"equation point values such as {f} are not supported; "
                         "introduce an unknown parameter instead"
                     )
+            if eq.has(_expr.DomainIntegral):
+                raise ProblemError(
+                    "integral(...) may appear in conditions only; for an integral inside an "
+                    "equation introduce a new unknown function"
+                )
             if eq.atoms(sp.Subs):
                 raise ProblemError(
                     "equation point values such as f'(0) are not supported; "
@@ -321,13 +350,21 @@ class Problem:
     def _check_conditions(self) -> None:
         for i, c in enumerate(self.conditions):
             where = f"condition {i + 1} ({self.condition_text[i]})"
-            if self.x in c.free_symbols:
+            integrals = c.atoms(_expr.DomainIntegral)
+            outside = c.xreplace({g: sp.Symbol("_integral") for g in integrals})
+            if self.x in outside.free_symbols:
                 raise ProblemError(
                     f"{where}: a condition holds at an end of the domain; write point values "
                     f"such as f(0) or f'(inf), not '{self.independent}' or bare functions"
                 )
-            points = self.point_values(c)
-            if not points:
+            for g in integrals:
+                if self.point_values(g.args[0]):
+                    raise ProblemError(f"{where}: an integrand may not hold point values such as f(0)")
+                if any(isinstance(d, sp.Derivative) and d.derivative_count >= self.orders[d.expr.func.__name__]
+                       for d in g.args[0].atoms(sp.Derivative)):
+                    raise ProblemError(f"{where}: an integrand may use derivatives below each function's order")
+            points = self.point_values(outside)
+            if not points and not integrals:
                 raise ProblemError(f"{where}: names no point value such as f(0)")
             for _, name, k, point in points:
                 if self.which_end(point) is None:
@@ -342,16 +379,49 @@ class Problem:
                         f"condition may use its derivatives up to order {self.orders[name] - 1}, "
                         f"not {k}"
                     )
-        needed = sum(self.orders.values()) + len(self.unknown_parameters)
+        self.phase = self._needs_phase()
+        free_parameters = len(self.unknown_parameters) - (self.eigenvalue is not None)
+        needed = sum(self.orders.values()) + free_parameters - self.phase
         if len(self.conditions) != needed:
             parts = " + ".join(f"{self.orders[n]} for {n}" for n in self.unknowns)
-            if self.unknown_parameters:
-                parts += f" + {len(self.unknown_parameters)} for unknown parameters"
+            if free_parameters:
+                parts += f" + {free_parameters} for unknown parameters"
+            if self.phase:
+                parts += " - 1 phase condition bvpkit adds to this periodic problem"
+            if self.eigenvalue:
+                parts += f"; the eigenvalue '{self.eigenvalue}' brings its own normalisation"
             raise ProblemError(
                 f"{len(self.conditions)} boundary condition(s) given, {needed} needed "
                 f"({parts}): the count must equal the total differential order plus the "
                 "number of unknown parameters"
             )
+
+    def _needs_phase(self) -> bool:
+        """A periodic problem with an unknown period on autonomous equations needs a phase condition.
+
+        Periodic means: an end of the domain is an unknown parameter and every condition is
+        ``f^(j)(a) = f^(j)(b)`` for some state. Autonomous: no equation holds the
+        independent variable. Then shifting a solution along the orbit gives another one,
+        and bvpkit pins it with ``u'(a) = 0`` for the first unknown (see reduce.py).
+        """
+        ends_free = any(
+            s.name in self.unknown_parameters for end in self.domain for s in end.free_symbols
+        )
+        if not ends_free or any(self.x in _without_functions(eq).free_symbols for eq in self.equations):
+            return False
+        if not self.conditions:
+            return False
+        for c in self.conditions:
+            points = self.point_values(c)
+            if len(points) != 2 or c.has(_expr.DomainIntegral):
+                return False
+            (n1, f1, k1, p1), (n2, f2, k2, p2) = points
+            ends = {self.which_end(p1), self.which_end(p2)}
+            if (f1, k1) != (f2, k2) or ends != {0, 1}:
+                return False
+            if sp.expand(c - (n1 - n2)) != 0 and sp.expand(c + (n1 - n2)) != 0:
+                return False
+        return True
 
     def _guesses(self, guess: Mapping[str, Any]) -> dict[str, sp.Expr]:
         result = {}
@@ -440,6 +510,12 @@ class Problem:
         bcs = "; ".join(self.condition_text)
         a, b = (_describe(e) for e in self.domain)
         return f"Problem({eqs} | {bcs} | {self.independent} in ({a}, {b}))"
+
+
+def _without_functions(e: sp.Expr) -> sp.Expr:
+    """``e`` with every unknown function and derivative replaced by a plain symbol."""
+    nodes = e.atoms(sp.Derivative) | e.atoms(AppliedUndef)
+    return e.xreplace({node: sp.Dummy() for node in nodes})
 
 
 def _list(items: Any, what: str) -> list:

@@ -9,12 +9,13 @@ generated code.
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 
 import sympy as sp
 from sympy.core.function import AppliedUndef
 
 from .errors import ProblemError
+from .expr import DomainIntegral
 
 X = sp.Symbol("_x")
 
@@ -42,7 +43,21 @@ class FirstOrderSystem:
     parameters, constants : tuple of str
         Names of the unknown parameters (solved for) and known constants (given values).
     domain : (sympy.Expr, sympy.Expr)
-        Ends in the symbols ``k`` and ``p``; ``oo`` for an infinite end.
+        Physical ends in the symbols ``k`` and ``p``; ``oo`` for an infinite end.
+    physical_rhs : tuple of sympy.Expr
+        The full right-hand side in the physical independent variable (``rhs`` differs from
+        it when the domain is rescaled or a singular term is split off).
+    rescaled : bool
+        A domain end is an unknown parameter: ``rhs`` is in ``t = (x - a) / (b - a)`` on
+        ``[0, 1]`` and carries the factor ``b - a``.
+    singular : tuple of tuple of sympy.Expr, or None
+        The matrix ``S`` of a term ``S y / (x - a)`` singular at the left end; ``rhs`` then
+        holds the regular rest.
+    eigenvalue : int or None
+        Index in ``parameters`` of the eigenvalue, and ``mode`` the mode asked for.
+    users : int
+        States ``0 .. users - 1`` hold the unknown functions; later ones are added states
+        (integrals over the domain).
     """
 
     independent: str
@@ -54,6 +69,12 @@ class FirstOrderSystem:
     domain: tuple[sp.Expr, sp.Expr]
     condition_text: tuple[str, ...] = ()
     equation_text: tuple[str, ...] = ()
+    physical_rhs: tuple[sp.Expr, ...] = ()
+    rescaled: bool = False
+    singular: tuple[tuple[sp.Expr, ...], ...] | None = None
+    eigenvalue: int | None = None
+    mode: int | None = None
+    users: int = 0
     y: tuple[sp.Symbol, ...] = field(init=False)
     ya: tuple[sp.Symbol, ...] = field(init=False)
     yb: tuple[sp.Symbol, ...] = field(init=False)
@@ -88,14 +109,14 @@ class FirstOrderSystem:
         return 1 + max(k for f, k in self.states if f == name)
 
     def highest(self, name: str) -> sp.Expr:
-        """Expression of the highest derivative of ``name`` (the rhs of its last state)."""
-        return self.rhs[self.index(name, self.order(name) - 1)]
+        """Expression of the highest derivative of ``name`` in the physical variable."""
+        return self.physical_rhs[self.index(name, self.order(name) - 1)]
 
     def key(self) -> str:
         """A content hash: equal systems have equal keys (used for compiled-code caches)."""
         cached = self.__dict__.get("_key")
         if cached is None:
-            text = repr((self.states, self.rhs, self.conditions, self.parameters, self.constants))
+            text = repr(tuple(getattr(self, f.name) for f in fields(self) if f.init))
             cached = hashlib.sha256(text.encode()).hexdigest()[:32]
             object.__setattr__(self, "_key", cached)
         return cached
@@ -143,27 +164,166 @@ def reduce(problem) -> FirstOrderSystem:  # noqa: ANN001 - Problem imports us la
         else:
             rhs.append(solved[problem.unknowns.index(name)])
 
-    conditions = []
+    # Integrals over the domain in conditions become added states z' = integrand, z(a) = 0.
+    integrals: list[sp.Basic] = []
     for c in problem.conditions:
-        swap: dict[sp.Basic, sp.Basic] = {}
-        for node, name, order, point in problem.point_values(c):
-            end = problem.which_end(point)
-            swap[node] = (ya if end == 0 else yb)[states.index((name, order))]
-        swap.update({s: names[s] for s in c.free_symbols if s in names})
-        conditions.append(c.xreplace(swap))
+        for g in sorted(c.atoms(DomainIntegral), key=sp.default_sort_key):
+            if g not in integrals:
+                integrals.append(g)
+    extra_states = [(f"integral({_as_written(g.args[0], problem)})", 0) for g in integrals]
+    extra_rhs = [g.args[0].xreplace(replace) for g in integrals]
+    eigen_index = None
+    if problem.eigenvalue is not None:
+        eigen_index = list(problem.unknown_parameters).index(problem.eigenvalue)
+        _check_linear(rhs, conditions_of(problem, states, ya, yb, names), y[:n], p[eigen_index], problem)
+        values = [y[i] for i, (_, order) in enumerate(states) if order == 0]
+        extra_states.append(("integral of the squares (normalisation)", 0))
+        extra_rhs.append(sum(v**2 for v in values))
+    total = n + len(extra_states)
+    y = _symbols("y", total)
+    ya, yb = _symbols("ya", total), _symbols("yb", total)
+    all_states = states + tuple(extra_states)
+
+    conditions = conditions_of(problem, states, ya, yb, names, {g: yb[n + j] for j, g in enumerate(integrals)})
+    for j in range(len(extra_states)):
+        conditions.append(ya[n + j])
+    if problem.eigenvalue is not None:
+        conditions.append(yb[total - 1] - 1)
+    physical = list(rhs) + extra_rhs
+    if problem.phase:
+        # u'(a) = 0 for the first unknown pins the phase of an autonomous periodic orbit
+        conditions.append(physical[0].xreplace(dict(zip(y, ya))))
 
     domain = tuple(end.xreplace(names) for end in problem.domain)
+    rescaled = any(s in end.free_symbols for end in domain for s in p)
+    method_rhs = list(physical)
+    singular = None
+    if rescaled:
+        if any(e in (sp.oo, -sp.oo) for e in domain):
+            raise ProblemError("a domain with an unknown end must be finite at the other end")
+        a, b = domain
+        method_rhs = [(b - a) * r.xreplace({X: a + (b - a) * X}) for r in physical]
+        _refuse_singular(method_rhs, sp.Integer(0), sp.Integer(1), problem, "an unknown end")
+    elif all(e not in (sp.oo, -sp.oo) for e in domain):
+        singular, method_rhs = _split_singular(physical, y, domain, problem)
     return FirstOrderSystem(
         independent=problem.independent,
-        states=states,
-        rhs=tuple(rhs),
+        states=all_states,
+        rhs=tuple(method_rhs),
         conditions=tuple(conditions),
         parameters=tuple(problem.unknown_parameters),
         constants=tuple(problem.constants),
         domain=domain,  # type: ignore[arg-type]
         condition_text=tuple(problem.condition_text),
         equation_text=tuple(problem.equation_text),
+        physical_rhs=tuple(physical),
+        rescaled=rescaled,
+        singular=singular,
+        eigenvalue=eigen_index,
+        mode=problem.mode,
+        users=n,
     )
+
+
+def _as_written(e: sp.Expr, problem) -> str:  # noqa: ANN001
+    """``e`` printed as a person writes it: ``y'`` rather than ``Derivative(y(x), x)``."""
+    swap = {}
+    for d in e.atoms(sp.Derivative):
+        swap[d] = sp.Symbol(d.expr.func.__name__ + "'" * d.derivative_count)
+    for f in e.atoms(AppliedUndef):
+        swap[f] = sp.Symbol(f.func.__name__)
+    return sp.sstr(e.xreplace(swap))
+
+
+def conditions_of(problem, states, ya, yb, names, integrals=None) -> list[sp.Expr]:  # noqa: ANN001
+    """The problem's conditions with point values (and integrals) replaced by end states."""
+    conditions = []
+    for c in problem.conditions:
+        swap: dict[sp.Basic, sp.Basic] = dict(integrals or {})
+        for node, name, order, point in problem.point_values(c):
+            end = problem.which_end(point)
+            swap[node] = (ya if end == 0 else yb)[states.index((name, order))]
+        swap.update({s: names[s] for s in c.free_symbols if s in names})
+        conditions.append(c.xreplace(swap))
+    return conditions
+
+
+def _check_linear(rhs, conditions, y, lam, problem) -> None:  # noqa: ANN001
+    """An eigenvalue problem must be linear and homogeneous, and linear in the eigenvalue."""
+    name = problem.eigenvalue
+    jac = sp.Matrix(rhs).jacobian(list(y))
+    if any(jac.has(s) for s in y) or any(sp.simplify(r.xreplace({s: 0 for s in y})) != 0 for r in rhs):
+        raise ProblemError(
+            f"eigenvalue '{name}': the equations must be linear and homogeneous in the unknown "
+            "functions (no terms without them, no products of them)"
+        )
+    if any(sp.simplify(sp.diff(entry, lam, 2)) != 0 for entry in jac):
+        raise ProblemError(
+            f"eigenvalue '{name}': the equations are not linear in the eigenvalue once solved for "
+            "the highest derivatives; write them so that it multiplies the functions, "
+            f"e.g. y'' + {name}*y = 0"
+        )
+    ends = [s for c in conditions for s in c.free_symbols if s.name.startswith(("_ya", "_yb"))]
+    for c in conditions:
+        if sp.diff(c, lam, 2) != 0:
+            raise ProblemError(f"eigenvalue '{name}': the boundary conditions are not linear in it")
+        zero = c.xreplace({s: 0 for s in ends})
+        if sp.simplify(zero) != 0 or any(sp.diff(c, s, 2) != 0 for s in c.free_symbols if s in ends):
+            raise ProblemError(
+                f"eigenvalue '{name}': the conditions must be linear and homogeneous (= 0); "
+                "bvpkit adds the normalisation itself"
+            )
+
+
+def _refuse_singular(rhs, a, b, problem, what: str) -> None:  # noqa: ANN001
+    for end in (a, b):
+        for r in rhs:
+            if _blows_up(r.xreplace({X: end})):
+                raise ProblemError(
+                    f"the equations are singular at an end of a domain with {what} "
+                    f"(a term like 1/{problem.independent}); this combination is not supported"
+                )
+
+
+def _blows_up(e: sp.Expr) -> bool:
+    return bool(e.has(sp.zoo, sp.nan, sp.oo, -sp.oo))
+
+
+def _split_singular(physical, y, domain, problem):  # noqa: ANN001, ANN202
+    """Split ``S y / (x - a) + f(x, y)`` off a right-hand side singular at the left end ``a``.
+
+    SciPy's ``solve_bvp`` treats such a term exactly (its argument ``S``). Terms singular
+    at the right end, or singular terms that are not of this form, are refused by name.
+    """
+    a, b = domain
+    name = problem.independent
+    for r in physical:
+        if _blows_up(r.xreplace({X: b})):
+            raise ProblemError(
+                f"the equations are singular at the right end {name} = {b}: bvpkit treats "
+                f"singular terms at the left end only; reverse the direction of {name}"
+            )
+    rows = [i for i, r in enumerate(physical) if _blows_up(r.xreplace({X: a}))]
+    if not rows:
+        return None, list(physical)
+    n = len(physical)
+    S = [[sp.Integer(0)] * n for _ in range(n)]
+    regular = list(physical)
+    for i in rows:
+        g = sp.cancel(sp.together((X - a) * physical[i]))
+        for j in range(n):
+            entry = sp.simplify(sp.diff(g, y[j]).xreplace({X: a}))
+            if entry.has(*y) or _blows_up(entry):
+                raise ProblemError(f"the singular coefficient {sp.sstr(entry)} at {name} = {a} is not of the form S y/({name} - a)")
+            S[i][j] = entry
+        rest = sp.cancel(sp.together(physical[i] - sum(S[i][j] * y[j] for j in range(n)) / (X - a)))
+        if _blows_up(rest.xreplace({X: a})):
+            raise ProblemError(
+                f"the term {sp.sstr(physical[i])} is singular at {name} = {a} in a way bvpkit cannot "
+                f"treat (only terms S y/({name} - a) are, e.g. (2/{name})*y')"
+            )
+        regular[i] = rest
+    return tuple(tuple(row) for row in S), regular
 
 
 def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[sp.Expr]:  # noqa: ANN001

@@ -89,7 +89,7 @@ class Solution:
         self.parameter_errors = {q: float(v) for q, v in zip(names, errs)}
         self._reference = reference
         self._previous = previous
-        self._spline = hermite(compiled, self.x, self.y, self._p, self._k)
+        self._spline = hermite(compiled, self.x, self.y, self._p, self._k, physical=True)
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
         if self.x.size and np.all(np.isfinite(self.y)):
@@ -206,7 +206,7 @@ class Solution:
     def _slopes_at_ends(self) -> tuple[np.ndarray, np.ndarray]:
         c = self._compiled
         with np.errstate(all="ignore"):
-            f = c.rhs(self.x[[0, -1]], self.y[:, [0, -1]], self._p, self._k)
+            f = c.slopes(self.x[[0, -1]], self.y[:, [0, -1]], self._p, self._k, physical=True)
         return f[:, 0], f[:, 1]
 
     def _output(self, text: str) -> tuple[float, float]:
@@ -252,7 +252,7 @@ class Solution:
     def _evaluate_on(self, x, y, p, expression: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
         e, placeholders = self._internal(expression)
         system, k = self._compiled.system, self._k
-        spline = self._spline if x is self.x else hermite(self._compiled, x, y, p, k)
+        spline = self._spline if x is self.x else hermite(self._compiled, x, y, p, k, physical=True)
         values: dict[sp.Basic, sp.Basic] = {}
         for symbol, name, order, point in placeholders:
             where = self._point(point, x, p)
@@ -261,7 +261,7 @@ class Solution:
                 v = state[system.index(name, order), 0]
             else:
                 with np.errstate(all="ignore"):
-                    v = self._compiled.rhs(np.array([where]), state, p, k)[
+                    v = self._compiled.slopes(np.array([where]), state, p, k, physical=True)[
                         system.index(name, order - 1), 0
                     ]
             values[symbol] = sp.Float(float(v))

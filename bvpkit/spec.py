@@ -11,7 +11,7 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     conditions = ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"]
     constants = { Re_x = 2.0e5 }
     guess = { f = "eta - 1 + exp(-eta)" }
-    # unknowns = ["f"]; unknown_parameters = { lam = 1.0 }
+    # unknowns = ["f"]; unknown_parameters = { lam = 1.0 }; eigenvalue = "P"; mode = 1
 
     [solver]          # method, tol, max_nodes, verify, truncation
     tol = 1e-8
@@ -58,6 +58,8 @@ class ProblemSection(_Model):
     constants: dict[str, Number] = {}
     unknown_parameters: dict[str, Number] = {}
     guess: dict[str, StrictStr | Number] = {}
+    eigenvalue: StrictStr | None = None
+    mode: StrictInt | None = None
 
 
 class SolverSection(_Model):
@@ -152,6 +154,8 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
             outputs=spec.outputs,
             settings=settings,
             title=spec.title,
+            eigenvalue=section.eigenvalue,
+            mode=section.mode,
         )
     except ExpressionError as err:
         raise SpecError(f"{source}: [problem] {err.one_line()}") from err

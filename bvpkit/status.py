@@ -61,6 +61,12 @@ class Status(enum.Enum):
         "the solution kept changing as the infinite domain was truncated further out",
         "check that the conditions at infinity are ones the solution approaches",
     )
+    OTHER_MODE = (
+        "other_mode",
+        10,
+        "an eigenvalue was found, but of another mode than the one asked for",
+        "give a guess with mode - 1 interior zeros (guess = ...) or ask for a neighbouring mode",
+    )
     BAD_INPUT = (
         "bad_input",
         2,
@@ -91,3 +97,22 @@ def failures_table() -> str:
     for s in Status:
         rows.append(f"| `{s.word}` | {s.exit_code} | {s.meaning} | {s.hint or '-'} |")
     return "\n".join(rows) + "\n"
+
+
+def failures_page() -> str:
+    """The whole of ``docs/failures.md`` (regenerate with ``python -m bvpkit.status``)."""
+    return (
+        "# Failure classes, exit codes and messages\n\n"
+        "Every outcome of `bvpkit.solve` has a status word (`Solution.status.word`), and every\n"
+        "outcome of the `bvpkit` command an exit code. This page is generated from\n"
+        "`bvpkit/status.py` by `python -m bvpkit.status > docs/failures.md`; a test checks that\n"
+        "it matches the code.\n\n"
+        + failures_table()
+        + "\nA bad input (`bad_input`, exit 2) also covers command-line usage errors reported by the\n"
+        "argument parser. With `--json`, every failure prints one JSON object\n"
+        '`{"success": false, "status": ..., "message": ...}` on standard output.\n'
+    )
+
+
+if __name__ == "__main__":  # pragma: no cover
+    print(failures_page(), end="")

@@ -49,6 +49,9 @@ def plan(trial: Trial, method: str = "auto") -> Plan:
     if method != "auto":
         methods.get(method)  # validates the name
         return Plan([(method, "asked for by name")])
+    if trial.singular is not None:
+        return Plan([("collocation", "the equations hold a term S y/(x - a) singular at the left end, "
+                      "which collocation treats exactly (shooting would need a series start)")])
     facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
     if not math.isfinite(facts.stiffness):
         first, reason = "collocation", "the Jacobian is not finite along the guess; collocation is the most forgiving start"

@@ -11,7 +11,7 @@ import bvpkit
 from bvpkit import SpecError
 from bvpkit.cli import main
 from bvpkit.spec import loads
-from bvpkit.status import Status, failures_table
+from bvpkit.status import Status, failures_page, failures_table
 
 ROOT = Path(__file__).resolve().parent.parent
 SPECS = sorted((ROOT / "specs").glob("*.toml"))
@@ -156,4 +156,5 @@ def test_console_entry_point_runs_in_a_fresh_process():
 
 def test_failures_page_matches_the_status_list():
     page = (ROOT / "docs/failures.md").read_text()
+    assert page == failures_page(), "regenerate with: python -m bvpkit.status > docs/failures.md"
     assert failures_table() in page

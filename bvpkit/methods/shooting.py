@@ -72,6 +72,9 @@ class Shooting(Method):
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x, y, p = np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float)
+        if trial.singular is not None:
+            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end (a term like "
+                           "(2/x) y'); shooting would need a series start there: use collocation", x, y, p)
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
         facts = survey(c, x, y, p, k)
