@@ -7,6 +7,7 @@
 
 from __future__ import annotations
 
+from .continuation import Branch, Fold, trace
 from .diagnostics import Attempt, Diagnostics
 from .driver import solve
 from .errors import (
@@ -33,6 +34,8 @@ def load(path):  # noqa: ANN001, ANN201
 
 __all__ = [
     "Attempt",
+    "Branch",
+    "Fold",
     "BvpkitError",
     "Diagnostics",
     "ExpressionError",
@@ -46,4 +49,5 @@ __all__ = [
     "__version__",
     "load",
     "solve",
+    "trace",
 ]

@@ -52,6 +52,26 @@ def _parser() -> argparse.ArgumentParser:
         "--overwrite", action="store_true", help="let files named in the spec's [save] replace existing files"
     )
 
+    trace = commands.add_parser(
+        "trace", help="trace solutions as a constant changes (continuation through folds)",
+        description="Trace the solution family of a spec through one of its constants, around folds; "
+        "settings come from the spec's [trace] section or from these options.", epilog=_EPILOG,
+    )
+    trace.add_argument("spec", help="path of the TOML spec file")
+    trace.add_argument("--parameter", help="the constant to trace")
+    trace.add_argument("--start", type=float, help="first value of the parameter")
+    trace.add_argument("--stop", type=float, help="last value of the parameter")
+    trace.add_argument("--output", action="append", metavar="EXPR",
+                       help="an expression (or output name) to record; repeatable (default: the spec's)")
+    trace.add_argument("--max-points", type=int, help="upper bound on the points (default 200)")
+    trace.add_argument("--tol", type=float, help="tolerance of each point")
+    trace.add_argument("--method", choices=_methods(), help="method of the natural steps")
+    trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
+    trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
+    trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
+    trace.add_argument("--plot", metavar="FILE.png", help="draw the branch (needs the plot extra)")
+    trace.add_argument("--quiet", action="store_true", help="no progress bar")
+
     check = commands.add_parser(
         "check", help="validate a spec without solving", description="Validate a spec and show its first-order form.", epilog=_EPILOG
     )
@@ -130,6 +150,55 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     return solution.status.exit_code, None
 
 
+def _trace(args: argparse.Namespace) -> tuple[int, Any]:
+    from . import load, trace
+    from .errors import OptionError
+
+    problem = load(args.spec)
+    if args.set:
+        problem = problem.with_constants(**_constants(args.set))
+    settings = dict(problem.settings.get("trace", {}))
+    for key in ("parameter", "start", "stop", "max_points"):
+        value = getattr(args, key)
+        if value is not None:
+            settings[key] = value
+    if args.output:
+        settings["outputs"] = args.output
+    missing = [key for key in ("parameter", "start", "stop") if key not in settings]
+    if missing:
+        raise OptionError(
+            f"trace needs {', '.join(missing)}: give --{missing[0]} or a [trace] section in the spec"
+        )
+    branch = trace(
+        problem,
+        settings["parameter"],
+        start=float(settings["start"]),
+        stop=float(settings["stop"]),
+        outputs=settings.get("outputs"),
+        tol=args.tol,
+        method=args.method,
+        step=settings.get("step"),
+        max_points=settings.get("max_points", 200),
+        progress=not args.quiet and not args.json,
+    )
+    if args.csv:
+        branch.to_csv(args.csv)
+    if args.plot:
+        branch.plot(args.plot)
+    code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
+    if branch.message.startswith("interrupted"):
+        code = Status.INTERRUPTED.exit_code
+    if args.json:
+        return code, branch.as_dict()
+    title = f"{problem.title}\n" if problem.title else ""
+    print(title + branch.summary())
+    if args.csv:
+        print(f"branch written to {args.csv}")
+    if args.plot:
+        print(f"plot written to {args.plot}")
+    return code, None
+
+
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load
 
@@ -164,7 +233,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         from .errors import BvpkitError
 
-        handler = {"solve": _solve, "check": _check}[args.command]
+        handler = {"solve": _solve, "check": _check, "trace": _trace}[args.command]
         code, report = handler(args)
     except KeyboardInterrupt:
         return _fail(Status.INTERRUPTED, "interrupted", wants_json)
@@ -175,8 +244,21 @@ def main(argv: Sequence[str] | None = None) -> int:
             raise
         return _fail(Status.INTERNAL, f"{type(err).__name__}: {err}", wants_json)
     if report is not None:
-        print(json.dumps(report, indent=2, allow_nan=False))
+        print(json.dumps(_json_ready(report), indent=2, allow_nan=False))
     return code
+
+
+def _json_ready(value: Any) -> Any:
+    """NaN and inf become null so the output is strict JSON."""
+    import math
+
+    if isinstance(value, dict):
+        return {str(k): _json_ready(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_ready(v) for v in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
 
 
 def _fail(status: Status, message: str, wants_json: bool) -> int:

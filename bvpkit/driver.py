@@ -121,14 +121,14 @@ def solve(
         if system.eigenvalue is not None:
             raise OptionError("eigenvalue problems on infinite domains are not supported; truncate the domain")
         return _solve_infinite(problem, compiled, k, a, b, guess, options, start)
-    if system.rescaled and isinstance(guess, Solution):
+    if system.rescaled and isinstance(guess, Solution | _guess.Start):
         a, b = float(guess.x[0]), float(guess.x[-1])
     x = _guess.initial_mesh(a, b, min(_guess.INITIAL_NODES, options["max_nodes"] // 2))
-    if isinstance(guess, Solution) and np.isclose(guess.x[0], a) and np.isclose(guess.x[-1], b):
+    if isinstance(guess, Solution | _guess.Start) and np.isclose(guess.x[0], a) and np.isclose(guess.x[-1], b):
         x = guess.x.copy()  # its mesh already fits the solution
     y, p = _start(problem, compiled, x, k, guess)
     method_x = (x - a) / (b - a) if system.rescaled else x
-    if system.eigenvalue is not None and not isinstance(guess, Solution):
+    if system.eigenvalue is not None and not isinstance(guess, Solution | _guess.Start):
         vectors, lam = _guess.eigen_guess(compiled, method_x, k, system.mode)
         if not guess:
             y[: system.users] = vectors
@@ -141,7 +141,7 @@ def solve(
 
 
 def _start(problem, compiled, x, k, guess) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
-    if isinstance(guess, Solution):
+    if isinstance(guess, Solution | _guess.Start):
         if guess.state_names != compiled.system.state_names:
             raise OptionError(
                 f"the guess solution has states {guess.state_names}, this problem "
@@ -170,6 +170,10 @@ def _solve_infinite(problem, compiled, k, a, b, guess, options, start) -> Soluti
     # change between two lengths measures truncation, not the noise of two discretisations.
     inner_tol = tol * _SHARE_DISCRETISATION
     length = options["truncation"]
+    if isinstance(guess, Solution | _guess.Start):
+        # a previous solution already knows a good length: start there (continuation, sweeps)
+        known = float(guess.x[-1] - guess.x[0]) if not (math.isinf(a) and math.isinf(b)) else float(guess.x[-1])
+        length = max(length, known)
     attempts = []
     previous: Outcome | None = None
     change = math.inf

@@ -258,3 +258,37 @@ def eigen_guess(compiled: CompiledSystem, x: np.ndarray, k: np.ndarray, mode: in
     if v[first][peak] < 0:
         v = -v
     return np.array([np.interp(x, t, row) for row in v]), float(lam)
+
+
+class Start:
+    """A guess given as arrays on a mesh (what continuation predicts), used like a Solution.
+
+    Parameters
+    ----------
+    compiled : CompiledSystem
+    x : ndarray, shape (m,)
+        Mesh in the physical variable.
+    y : ndarray, shape (n, m)
+    p : ndarray, shape (n_p,)
+    k : ndarray
+        Constants the slopes are evaluated with.
+    """
+
+    def __init__(self, compiled: CompiledSystem, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):
+        from .diagnostics import hermite
+
+        self.x, self.y, self._p = np.asarray(x, float), np.asarray(y, float), np.asarray(p, float)
+        self._compiled, self._k = compiled, np.asarray(k, float)
+        self._spline = hermite(compiled, self.x, self.y, self._p, self._k, physical=True)
+
+    @property
+    def state_names(self) -> tuple[str, ...]:
+        return self._compiled.system.state_names
+
+    def _states(self, points: np.ndarray) -> np.ndarray:
+        return self._spline(np.asarray(points, float))
+
+    def _slopes_at_ends(self) -> tuple[np.ndarray, np.ndarray]:
+        with np.errstate(all="ignore"):
+            f = self._compiled.slopes(self.x[[0, -1]], self.y[:, [0, -1]], self._p, self._k, physical=True)
+        return f[:, 0], f[:, 1]

@@ -505,6 +505,19 @@ class Problem:
         new.constants = {**self.constants, **_numbers(values, "constant")}
         return new
 
+    def _freed(self, name: str):  # noqa: ANN202 - a FirstOrderSystem
+        """The reduced system with the constant ``name`` turned into an unknown parameter.
+
+        It has one condition fewer than unknowns: continuation adds the arclength equation.
+        """
+        from .reduce import reduce
+
+        copy = object.__new__(Problem)
+        copy.__dict__.update(self.__dict__)
+        copy.constants = {k: v for k, v in self.constants.items() if k != name}
+        copy.unknown_parameters = {**self.unknown_parameters, name: self.constants[name]}
+        return reduce(copy)
+
     def __repr__(self) -> str:
         eqs = "; ".join(self.equation_text)
         bcs = "; ".join(self.condition_text)

@@ -19,6 +19,11 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     [outputs]         # name = expression of the solution
     wall_shear = "f''(0)"
 
+    [trace]           # for `bvpkit trace`: parameter, start, stop, outputs, max_points, step
+    parameter = "Re_x"
+    start = 1e4
+    stop = 1e5
+
     [save]            # files written by `bvpkit solve`, relative to the working directory
     solution_csv = "plate.csv"
     report_json = "plate.json"
@@ -70,6 +75,15 @@ class SolverSection(_Model):
     truncation: Number | None = None
 
 
+class TraceSection(_Model):
+    parameter: StrictStr
+    start: Number
+    stop: Number
+    outputs: list[StrictStr] | None = None
+    max_points: StrictInt | None = None
+    step: Number | None = None
+
+
 class SaveSection(_Model):
     solution_csv: StrictStr | None = None
     report_json: StrictStr | None = None
@@ -82,6 +96,7 @@ class Spec(_Model):
     solver: SolverSection = SolverSection()
     outputs: dict[str, StrictStr] = {}
     save: SaveSection = SaveSection()
+    trace: TraceSection | None = None
 
 
 def _where(loc: tuple[Any, ...]) -> str:
@@ -141,6 +156,8 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     section = spec.problem
     settings = {k: v for k, v in spec.solver.model_dump().items() if v is not None}
     settings["save"] = spec.save.model_dump()
+    if spec.trace is not None:
+        settings["trace"] = {k: v for k, v in spec.trace.model_dump().items() if v is not None}
     try:
         return Problem(
             equations=section.equations,

@@ -68,6 +68,8 @@ class Collocation(Method):
                 return c.bc_jac(ya, yb, empty, k)[:2]
 
         x, y = np.asarray(trial.x, float), np.asarray(trial.y, float)
+        if x.size < 2 or not np.all(np.diff(x) > 0):
+            return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x, y, trial.p)
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(trial.p))):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, trial.p)
         f0 = fun(x, y, trial.p) if n_p else fun(x, y)
@@ -112,7 +114,9 @@ class Collocation(Method):
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
         x = outcome.x
         mid = 0.5 * (x[1:] + x[:-1])
-        fine = np.sort(np.concatenate([x, mid]))
+        fine = np.unique(np.concatenate([x, mid]))
+        spacing = np.diff(fine) > 1e-13 * max(1.0, float(np.abs(fine).max()))
+        fine = fine[np.concatenate([[True], spacing])]
         y = hermite(trial.compiled, x, outcome.y, outcome.p, trial.k)(fine)
         refined = dataclasses.replace(
             trial, x=fine, y=y, p=outcome.p, max_nodes=max(trial.max_nodes, 2 * fine.size)

@@ -1,0 +1,621 @@
+"""Continuation: trace a solution family through a parameter, around folds.
+
+Two steppers, switched automatically:
+
+* **natural** steps in the parameter, each a full :func:`bvpkit.solve` (the selector, error
+  estimate and diagnostics at every point), started from a secant prediction; the step grows
+  after easy solves and shrinks (to a floor) after failures;
+* **pseudo-arclength** steps (Keller 1977) on the discretised problem when the branch turns:
+  the collocation equations of ``solve_bvp`` (3-stage Lobatto IIIA) on the mesh of the last
+  solution, with the parameter as one more unknown, bordered by the arclength equation.
+  Their Jacobian is exact (from codegen's ``df/dy``, ``df/dp``) and sparse; the tangent is
+  the solution of the bordered system ``[G_z; t_prev] t = [0; 1]``.
+
+A fold is a sign change of the tangent's parameter component; it is located by Brent's
+method on that component along the arclength, on the mesh and on the halved mesh (their
+difference is the reported error).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import sys
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import scipy.sparse as sparse
+from scipy.optimize import brentq
+from scipy.sparse.linalg import splu
+
+from . import guess as _guess
+from .codegen import compile_system
+from .diagnostics import Attempt, Diagnostics, hermite, residuals
+from .driver import DEFAULT_TOL, solve
+from .errors import MissingExtraError, OptionError, closest
+from .methods.base import Outcome
+from .problem import Problem
+from .solution import Solution
+from .status import Status
+
+_GROW, _SHRINK = 1.5, 0.5
+_TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
+_STRAIGHT = 0.6  # |d lam / ds| above this (after a fold): back to natural steps
+_MAX_NEWTON = 12
+
+
+@dataclass
+class Fold:
+    """A located fold (turning point) of the branch.
+
+    Attributes
+    ----------
+    parameter : float
+        Value of the parameter at the fold.
+    outputs : dict of str to float
+        The requested outputs at the fold.
+    error : float
+        Estimated error of ``parameter`` (fold on the mesh against the halved mesh).
+    index : int
+        The fold lies between branch points ``index - 1`` and ``index``.
+    solution : Solution
+    """
+
+    parameter: float
+    outputs: dict[str, float]
+    error: float
+    index: int
+    solution: Solution = field(repr=False)
+
+
+class Branch:
+    """A traced solution family; see :func:`trace`.
+
+    Attributes
+    ----------
+    name : str
+        The parameter traced.
+    parameter : ndarray, shape (N,)
+    outputs : dict of str to ndarray, shape (N,)
+    solutions : list of Solution
+    folds : list of Fold
+    success : bool
+    message : str
+    steps : list of str
+        ``"natural"`` or ``"arclength"`` for each point.
+    """
+
+    def __init__(self, name: str, outputs: dict[str, str]):
+        self.name = name
+        self._outputs = list(outputs)
+        self._expressions = dict(outputs)
+        self.solutions: list[Solution] = []
+        self.steps: list[str] = []
+        self._values: list[float] = []
+        self.folds: list[Fold] = []
+        self.success = False
+        self.message = ""
+        self.seconds = 0.0
+
+    @property
+    def parameter(self) -> np.ndarray:
+        return np.array(self._values)
+
+    @property
+    def outputs(self) -> dict[str, np.ndarray]:
+        return {o: np.array([s.evaluate(self._expressions[o]) for s in self.solutions]) for o in self._outputs}
+
+    def _add(self, value: float, solution: Solution, how: str) -> None:
+        self._values.append(float(value))
+        self.solutions.append(solution)
+        self.steps.append(how)
+
+    def table(self) -> dict[str, np.ndarray]:
+        """Columns: the parameter, each output, and how each point was reached."""
+        return {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
+
+    def to_csv(self, path: str | Path) -> None:
+        columns = self.table()
+        with open(path, "w", newline="") as handle:
+            writer = csv.writer(handle)
+            writer.writerow(columns)
+            for row in zip(*columns.values()):
+                writer.writerow([v if isinstance(v, str) else repr(float(v)) for v in row])
+
+    def as_dict(self) -> dict[str, Any]:
+        outputs = self.outputs
+        return {
+            "success": self.success,
+            "status": "solved" if self.success else "not_converged",
+            "message": self.message,
+            "parameter_name": self.name,
+            "parameter": self.parameter.tolist(),
+            "outputs": {k: v.tolist() for k, v in outputs.items()},
+            "steps": list(self.steps),
+            "folds": [
+                {"parameter": f.parameter, "error": f.error, "outputs": f.outputs, "index": f.index}
+                for f in self.folds
+            ],
+            "seconds": self.seconds,
+        }
+
+    def summary(self) -> str:
+        lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
+        outputs = self.outputs
+        header = [self.name, *self._outputs, "step"]
+        lines.append("  ".join(f"{h:>14s}" for h in header))
+        for i, value in enumerate(self._values):
+            row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{self.steps[i]:>14s}"]
+            lines.append("  ".join(row))
+        for f in self.folds:
+            shown = ", ".join(f"{k} = {v:.10g}" for k, v in f.outputs.items())
+            lines.append(f"fold at {self.name} = {f.parameter:.12g} (+/- {f.error:.2g}){'; ' + shown if shown else ''}")
+        return "\n".join(lines)
+
+    def plot(self, path: str | Path, output: str | None = None) -> None:
+        """Draw one output against the parameter, folds marked (needs the ``plot`` extra)."""
+        try:
+            import matplotlib
+
+            matplotlib.use("Agg")
+            import matplotlib.pyplot as plt
+        except ImportError:
+            raise MissingExtraError('plotting needs matplotlib: pip install "bvpkit[plot]"') from None
+        output = output or (self._outputs[0] if self._outputs else None)
+        if output is None:
+            raise OptionError("plot needs an output to draw; give outputs=[...]")
+        fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=120)
+        ax.plot(self.parameter, self.outputs[output], "-", color="tab:blue", lw=1.6, label="branch")
+        ax.plot(self.parameter, self.outputs[output], ".", color="tab:blue", ms=3)
+        for f in self.folds:
+            ax.plot([f.parameter], [f.outputs[output]], "o", color="tab:red", ms=7,
+                    label=f"fold, {self.name} = {f.parameter:.8g}")
+        ax.set_xlabel(self.name)
+        ax.set_ylabel(output)
+        ax.grid(True, alpha=0.3)
+        ax.legend(loc="best")
+        fig.tight_layout()
+        fig.savefig(path)
+        plt.close(fig)
+
+
+class _Discrete:
+    """The collocation equations of ``solve_bvp`` on a fixed mesh, the parameter an unknown.
+
+    Unknowns ``z = (y.ravel() in node-major order, p)``; equations: the Lobatto IIIA
+    residuals ``y_i+1 - y_i - h/6 (f_i + 4 f_mid + f_i+1)`` with
+    ``y_mid = (y_i + y_i+1)/2 - h/8 (f_i+1 - f_i)``, then the boundary conditions.
+    """
+
+    def __init__(self, compiled, x: np.ndarray, k: np.ndarray):  # noqa: ANN001
+        self.c, self.x, self.k = compiled, x, k
+        self.n, self.m = compiled.n, x.size
+        self.n_p = compiled.n_parameters
+        self.h = np.diff(x)
+        self.mid = x[:-1] + 0.5 * self.h
+        scale = (x[-1] - x[0]) or 1.0
+        w = np.zeros(self.m)
+        w[:-1] += 0.5 * self.h
+        w[1:] += 0.5 * self.h
+        self.weights = np.concatenate([np.repeat(w / scale, self.n), np.ones(self.n_p)])
+
+    def split(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return z[: self.n * self.m].reshape(self.m, self.n).T, z[self.n * self.m:]
+
+    def join(self, y: np.ndarray, p: np.ndarray) -> np.ndarray:
+        return np.concatenate([y.T.ravel(), p])
+
+    def residual(self, z: np.ndarray) -> np.ndarray:
+        y, p = self.split(z)
+        c, k, h = self.c, self.k, self.h
+        f = c.rhs(self.x, y, p, k)
+        ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
+        fm = c.rhs(self.mid, ym, p, k)
+        col = y[:, 1:] - y[:, :-1] - h / 6 * (f[:, :-1] + f[:, 1:] + 4 * fm)
+        return np.concatenate([col.T.ravel(), c.bc(y[:, 0], y[:, -1], p, k)])
+
+    def jacobian(self, z: np.ndarray) -> sparse.csc_matrix:
+        y, p = self.split(z)
+        c, k, h, n, m, n_p = self.c, self.k, self.h, self.n, self.m, self.n_p
+        f = c.rhs(self.x, y, p, k)
+        ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
+        J = np.moveaxis(c.jac(self.x, y, p, k), -1, 0)  # (m, n, n)
+        Jm = np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0)  # (m-1, n, n)
+        eye = np.eye(n)
+        hh = h[:, None, None]
+        left = -eye - hh / 6 * (J[:-1] + 4 * Jm @ (0.5 * eye + hh / 8 * J[:-1]))
+        right = eye - hh / 6 * (J[1:] + 4 * Jm @ (0.5 * eye - hh / 8 * J[1:]))
+        i = np.arange(m - 1)[:, None, None]
+        r = np.arange(n)
+        rows = (i * n + r[None, :, None]).repeat(n, axis=2)
+        cols = (i * n + r[None, None, :]).repeat(n, axis=1)
+        R, C, V = [rows.ravel(), rows.ravel()], [cols.ravel(), (cols + n).ravel()], [left.ravel(), right.ravel()]
+        if n_p:
+            P = np.moveaxis(c.pjac(self.x, y, p, k), -1, 0)  # (m, n, n_p)
+            Pm = np.moveaxis(c.pjac(self.mid, ym, p, k), -1, 0)
+            dym = -hh / 8 * (P[1:] - P[:-1])
+            block = -hh / 6 * (P[:-1] + P[1:] + 4 * (Pm + Jm @ dym))
+            prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
+            pcol = np.broadcast_to(n * m + np.arange(n_p)[None, None, :], prow.shape)
+            R.append(prow.ravel()); C.append(pcol.ravel()); V.append(block.ravel())  # noqa: E702
+        a, b, dp = c.bc_jac(y[:, 0], y[:, -1], p, k)
+        base = (m - 1) * n
+        nb = a.shape[0]
+        for block, offset, width in ((a, 0, n), (b, (m - 1) * n, n), (dp, n * m, n_p)):
+            if width == 0:
+                continue
+            rr, cc = np.meshgrid(base + np.arange(nb), offset + np.arange(width), indexing="ij")
+            R.append(rr.ravel()); C.append(cc.ravel()); V.append(np.asarray(block).ravel())  # noqa: E702
+        shape = (base + nb, n * m + n_p)
+        return sparse.csc_matrix((np.concatenate(V), (np.concatenate(R), np.concatenate(C))), shape=shape)
+
+    def tangent(self, z: np.ndarray, previous: np.ndarray) -> np.ndarray:
+        """Unit tangent (weighted norm) of the solution curve at ``z``, oriented like ``previous``."""
+        matrix = sparse.vstack([self.jacobian(z), sparse.csr_matrix(previous * self.weights)]).tocsc()
+        rhs = np.zeros(matrix.shape[0])
+        rhs[-1] = 1.0
+        t = splu(matrix).solve(rhs)
+        t /= math.sqrt(float(np.sum(self.weights * t * t)))
+        return t if float(np.sum(self.weights * t * previous)) >= 0 else -t
+
+    def correct(self, predicted: np.ndarray, tangent: np.ndarray, tol: float) -> tuple[np.ndarray | None, int]:
+        """Newton on ``G(z) = 0``, ``<t, z - z_pred> = 0``; None when it does not converge."""
+        z = predicted.copy()
+        border = sparse.csr_matrix(tangent * self.weights)
+        for it in range(1, _MAX_NEWTON + 1):
+            g = self.residual(z)
+            r = np.concatenate([g, [float(np.sum(self.weights * tangent * (z - predicted)))]])
+            if not np.all(np.isfinite(r)):
+                return None, it
+            try:
+                step = splu(sparse.vstack([self.jacobian(z), border]).tocsc()).solve(-r)
+            except RuntimeError:
+                return None, it
+            z = z + step
+            if not np.all(np.isfinite(z)):
+                return None, it
+            if np.max(np.abs(step) / (1.0 + np.abs(z))) <= 0.01 * tol:
+                return z, it
+        return None, _MAX_NEWTON
+
+
+def _resolve_outputs(problem: Problem, outputs: Sequence[str] | None) -> dict[str, str]:
+    """Label -> expression: a name of the problem's outputs keeps its name as the label."""
+    labels = {}
+    for text in outputs if outputs is not None else list(problem.outputs):
+        if not isinstance(text, str):
+            raise OptionError(f"outputs must be expressions as text, got {text!r}")
+        labels[text] = problem.outputs.get(text, text)
+    for label, text in labels.items():
+        problem.parse_quantity(text, where=f"output '{label}'")
+    return labels
+
+
+def trace(
+    problem: Problem,
+    name: str,
+    *,
+    start: float,
+    stop: float,
+    outputs: Sequence[str] | None = None,
+    tol: float | None = None,
+    method: str | None = None,
+    step: float | None = None,
+    max_points: int = 200,
+    progress: bool = False,
+) -> Branch:
+    """Trace the solutions of ``problem`` as the constant ``name`` goes from ``start`` to ``stop``.
+
+    Parameters
+    ----------
+    problem : Problem
+    name : str
+        A constant of the problem.
+    start, stop : float
+        The range. After a fold the branch may come back; the trace ends when the parameter
+        reaches ``stop`` or leaves the range on the other side.
+    outputs : sequence of str, optional
+        Expressions (or names of the problem's outputs) recorded along the branch; default
+        the problem's outputs.
+    tol : float, optional
+        Tolerance of each point (default: the problem's, else 1e-6).
+    method : str, optional
+        Method of the natural steps (default auto: the selector decides at each point).
+    step : float, optional
+        First step in the parameter (default (stop - start) / 50).
+    max_points : int
+        Upper bound on the points of the branch.
+    progress : bool
+        Show a progress bar (needs the ``progress`` extra: tqdm).
+
+    Returns
+    -------
+    Branch
+        Ctrl-C keeps what was traced: the branch is returned with ``success`` False.
+    """
+    if not isinstance(problem, Problem):
+        raise OptionError(f"trace() takes a bvpkit.Problem, got {type(problem).__name__}")
+    if name not in problem.constants:
+        raise OptionError(
+            f"'{name}' is not a constant of the problem{closest(name, problem.constants)}; "
+            "a traced parameter must be one of its constants"
+        )
+    for label, value in (("start", start), ("stop", stop)):
+        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+            raise OptionError(f"{label} must be a finite number, got {value!r}")
+    if start == stop:
+        raise OptionError("start and stop must differ")
+    if isinstance(max_points, bool) or not isinstance(max_points, int) or max_points < 2:
+        raise OptionError(f"max_points must be a whole number of at least 2, got {max_points!r}")
+    tol = float(tol if tol is not None else problem.settings.get("tol", DEFAULT_TOL))
+    names = _resolve_outputs(problem, outputs)
+    tracer = _Tracer(problem, name, float(start), float(stop), names, tol, method, step, max_points, progress)
+    return tracer.run()
+
+
+class _Tracer:
+    def __init__(self, problem, name, start, stop, outputs, tol, method, step, max_points, progress):  # noqa: ANN001
+        self.problem, self.name, self.start, self.stop = problem, name, start, stop
+        self.tol, self.method, self.max_points = tol, method, max_points
+        self.span = abs(stop - start)
+        self.step = abs(step) if step else self.span / 50
+        self.min_step = self.span * 1e-7
+        self.lo, self.hi = min(start, stop), max(start, stop)
+        self.direction = 1.0 if stop > start else -1.0
+        self.edge = stop  # the end of the range the natural steps head for
+        self.branch = Branch(name, outputs)
+        self.compiled = compile_system(problem.system)
+        self.free = compile_system(problem._freed(name))
+        self.index = list(problem.system.constants).index(name)
+        self.k_free = np.array([problem.constants[c] for c in self.free.system.constants], float)
+        self.lam_at = list(self.free.system.parameters).index(name)
+        self.bar = _progress_bar(progress, max_points)
+
+    # -- helpers ------------------------------------------------------------------------
+    def _solve_at(self, value: float, guess: Any) -> Solution:
+        return solve(self.problem.with_constants(**{self.name: value}), tol=self.tol, method=self.method, guess=guess)
+
+    def _z(self, sol: Solution, value: float) -> np.ndarray:
+        p = np.insert(sol._p, self.lam_at, value)
+        return np.concatenate([sol.y.T.ravel(), p])
+
+    def _solution(self, disc: _Discrete, z: np.ndarray, iterations: int, seconds: float) -> Solution:
+        y, pz = disc.split(z)
+        value = float(pz[self.lam_at])
+        p = np.delete(pz, self.lam_at)
+        problem = self.problem.with_constants(**{self.name: value})
+        k = np.array([problem.constants[c] for c in problem.system.constants], float)
+        residual, bc = residuals(self.compiled, disc.x, y, p, k)
+        attempt = Attempt("arclength", "the branch turns: pseudo-arclength step on the collocation equations",
+                          "solved", "converged", iterations, disc.m, seconds, (float(disc.x[0]), float(disc.x[-1])))
+        d = Diagnostics("arclength", iterations, disc.m, residual, bc, math.nan, seconds=seconds,
+                        attempts=[attempt], selection="pseudo-arclength continuation near a fold")
+        return Solution(problem, self.compiled, k, Status.SOLVED,
+                        f"pseudo-arclength point, {self.name} = {value:.10g}", "arclength", disc.x, y, p, d)
+
+    def _inside(self, value: float) -> bool:
+        slack = 1e-12 * max(1.0, abs(self.lo), abs(self.hi))
+        return self.lo - slack <= value <= self.hi + slack
+
+    def _add(self, value: float, sol: Solution, how: str) -> None:
+        self.branch._add(value, sol, how)
+        if self.bar is not None:
+            self.bar.update(1)
+
+    # -- the trace ----------------------------------------------------------------------
+    def run(self) -> Branch:
+        started = time.perf_counter()
+        b = self.branch
+        try:
+            first = self._solve_at(self.start, None)
+            if not first.success:
+                b.message = f"the first point ({self.name} = {self.start:g}) did not solve: {first.message}"
+                return b
+            self._add(self.start, first, "natural")
+            self._loop()
+        except KeyboardInterrupt:
+            b.success = False
+            b.message = f"interrupted after {len(b.solutions)} points; what was traced is kept"
+        finally:
+            b.seconds = time.perf_counter() - started
+            if self.bar is not None:
+                self.bar.close()
+        return b
+
+    def _loop(self) -> None:
+        b = self.branch
+        value = self.start
+        step = self.step
+        while len(b.solutions) < self.max_points:
+            # ---- natural step -------------------------------------------------------------
+            target = value + self.direction * step
+            crossing = (target - self.edge) * self.direction >= 0
+            if crossing:
+                target = self.edge
+            guess = self._predict(target)
+            sol = self._solve_at(target, guess)
+            turning = self._turning(sol, target) if sol.success else False
+            if sol.success and not turning:
+                self._add(target, sol, "natural")
+                value = target
+                if crossing:
+                    b.success, b.message = True, self._done(self._ending(self.edge))
+                    return
+                iterations = sol.diagnostics.iterations
+                step = min(step * (_GROW if iterations <= 4 else 1.0), self.span / 4)
+                continue
+            if not turning and step > self.span * 1e-3:
+                step *= _SHRINK
+                continue
+            # ---- the branch turns (or natural steps fail): pseudo-arclength ---------------
+            outcome = self._arclength()
+            if outcome is not None:
+                b.success, b.message = outcome
+                return
+            value = b.parameter[-1]
+            step = max(abs(b.parameter[-1] - b.parameter[-2]), self.span / 100)
+        b.success = False
+        b.message = self._done(f"stopped after max_points = {self.max_points} points")
+
+    def _ending(self, edge: float) -> str:
+        if edge == self.stop:
+            return f"reached {self.name} = {self.stop:g}"
+        return f"the branch turned back and reached the other end of the range, {self.name} = {edge:g},"
+
+    def _done(self, what: str) -> str:
+        folds = f"; {len(self.branch.folds)} fold(s) located" if self.branch.folds else ""
+        return f"{what} in {len(self.branch.solutions)} points{folds}"
+
+    def _predict(self, target: float) -> Any:
+        b = self.branch
+        last = b.solutions[-1]
+        if len(b.solutions) < 2:
+            return last
+        prev = b.solutions[-2]
+        d_last = b.parameter[-1] - b.parameter[-2]
+        if d_last == 0 or prev.x.size == 0 or last.x[-1] != prev.x[-1] or last.x[0] != prev.x[0]:
+            return last
+        ratio = (target - b.parameter[-1]) / d_last
+        y_prev = prev._states(last.x)
+        y = last.y + ratio * (last.y - y_prev)
+        p = last._p + ratio * (last._p - prev._p)
+        k = np.array([self.problem.constants[c] for c in self.problem.system.constants], float)
+        k[self.index] = target
+        return _guess.Start(self.compiled, last.x, y, p, k)
+
+    def _turning(self, sol: Solution, target: float) -> bool:
+        """Is the branch turning here (small |d lam/ds| from the secant)?"""
+        last = self.branch.solutions[-1]
+        if sol.x[0] != last.x[0] or sol.x[-1] != last.x[-1]:
+            return False
+        dy = sol._states(last.x) - last.y
+        disc = _Discrete(self.free, last.x, self.k_free)
+        w = disc.weights[: disc.n * disc.m].reshape(disc.m, disc.n).T
+        dlam = target - self.branch.parameter[-1]
+        norm = math.sqrt(float(np.sum(w * dy * dy)) + float(np.sum((sol._p - last._p) ** 2)) + dlam**2)
+        return norm > 0 and abs(dlam) / norm < _TURNING
+
+    def _arclength(self) -> tuple[bool, str] | None:
+        """Step in arclength until the branch is straight again; return an end state or None."""
+        b = self.branch
+        last = b.solutions[-1]
+        x = last.x
+        if self.free.system.singular is not None or self.free.system.rescaled:
+            return False, self._done(
+                f"the branch turns near {self.name} = {b.parameter[-1]:.6g}, and pseudo-arclength steps "
+                "are not available for singular or free-end problems"
+            )
+        disc = _Discrete(self.free, x, self.k_free)
+        z = self._z(last, b.parameter[-1])
+        if len(b.solutions) >= 2:
+            prev = b.solutions[-2]
+            zp = self._z(_on_mesh(prev, x, self.compiled), b.parameter[-2])
+            t = z - zp
+        else:
+            t = np.zeros_like(z)
+            t[disc.n * disc.m + self.lam_at] = self.direction
+        z, _ = disc.correct(z, disc.tangent(z, t), self.tol)  # polish onto the discrete curve
+        if z is None:
+            return False, self._done(f"pseudo-arclength could not start at {self.name} = {b.parameter[-1]:.6g}")
+        t = disc.tangent(z, t)
+        ds = 0.05 * math.sqrt(float(np.sum(disc.weights * z * z)) + 1.0)
+        min_ds = ds * 1e-6
+        while len(b.solutions) < self.max_points:
+            started = time.perf_counter()
+            z_new, its = disc.correct(z + ds * t, t, self.tol)
+            if z_new is None:
+                ds *= _SHRINK
+                if ds < min_ds:
+                    return False, self._done(
+                        f"the arclength step fell below its floor near {self.name} = {b.parameter[-1]:.6g}; "
+                        "the branch may end or branch off here"
+                    )
+                continue
+            t_new = disc.tangent(z_new, t)
+            lam_old, lam_new = z[-disc.n_p + self.lam_at], z_new[-disc.n_p + self.lam_at]
+            if t[-disc.n_p + self.lam_at] * t_new[-disc.n_p + self.lam_at] < 0:
+                self._locate_fold(disc, z, t, ds)
+            sol = self._solution(disc, z_new, its, time.perf_counter() - started)
+            if not self._inside(lam_new):
+                # left the range: finish exactly on its end if the branch allows
+                edge = self.hi if lam_new > self.hi else self.lo
+                end = self._solve_at(edge, sol)
+                if end.success:
+                    self._add(edge, end, "natural")
+                return True, self._done(self._ending(edge))
+            self._add(lam_new, sol, "arclength")
+            z, t = z_new, t_new
+            ds = ds * _GROW if its <= 3 else ds * (_SHRINK if its >= 8 else 1.0)
+            if abs(t[-disc.n_p + self.lam_at]) > _STRAIGHT and self.branch.folds and abs(lam_new - lam_old) > 0:
+                self.direction = 1.0 if lam_new > lam_old else -1.0
+                self.edge = self.hi if self.direction > 0 else self.lo
+                return None
+        return False, self._done(f"stopped after max_points = {self.max_points} points")
+
+    def _locate_fold(self, disc: _Discrete, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
+        """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh."""
+        found = _fold_on(disc, z0, t0, ds, self.lam_at, self.tol)
+        if found is None:
+            return
+        z_fold = found
+        # the same on the halved mesh, for the error estimate
+        x = disc.x
+        fine_x = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
+        y, pz = disc.split(z0)
+        k = self.k_free
+        y_fine = hermite(self.free, x, y, pz, k)(fine_x)
+        fine = _Discrete(self.free, fine_x, k)
+        yt, pt = disc.split(t0)
+        t_fine = fine.join(np.array([np.interp(fine_x, x, row) for row in yt]), pt)
+        z_fine0, _ = fine.correct(fine.join(y_fine, pz), fine.tangent(fine.join(y_fine, pz), t_fine), self.tol)
+        error = math.nan
+        if z_fine0 is not None:
+            t_f = fine.tangent(z_fine0, t_fine)
+            other = _fold_on(fine, z_fine0, t_f, ds * 1.5, self.lam_at, self.tol)
+            if other is not None:
+                error = abs(float(other[-fine.n_p + self.lam_at]) - float(z_fold[-disc.n_p + self.lam_at]))
+        sol = self._solution(disc, z_fold, 0, 0.0)
+        value = float(z_fold[-disc.n_p + self.lam_at])
+        outputs = {o: float(sol.evaluate(e)) for o, e in self.branch._expressions.items()}
+        self.branch.folds.append(Fold(value, outputs, error, len(self.branch.solutions), sol))
+
+
+def _fold_on(disc: _Discrete, z0: np.ndarray, t0: np.ndarray, ds: float, lam_at: int, tol: float) -> np.ndarray | None:
+    """Brent's method on the tangent's parameter component along the arclength from ``z0``."""
+    where = -disc.n_p + lam_at
+    cache: dict[float, np.ndarray] = {}
+
+    def component(s: float) -> float:
+        z, _ = disc.correct(z0 + s * t0, t0, tol * 1e-2)
+        if z is None:
+            raise ArithmeticError
+        cache[s] = z
+        return float(disc.tangent(z, t0)[where])
+
+    try:
+        lo, hi = component(0.0), component(ds)
+        if lo * hi > 0:
+            return None
+        s = brentq(component, 0.0, ds, xtol=1e-12 * max(ds, 1e-300), rtol=4 * np.finfo(float).eps, maxiter=60)
+    except (ArithmeticError, ValueError, RuntimeError):
+        return None
+    return cache.get(s, disc.correct(z0 + s * t0, t0, tol * 1e-2)[0])
+
+
+def _on_mesh(sol: Solution, x: np.ndarray, compiled) -> Any:  # noqa: ANN001
+    y = sol._states(np.clip(x, sol.x[0], sol.x[-1]))
+    return type("OnMesh", (), {"y": y, "_p": sol._p})()
+
+
+def _progress_bar(enabled: bool, total: int):  # noqa: ANN202
+    if not enabled or not sys.stderr.isatty():
+        return None
+    try:
+        from tqdm import tqdm
+    except ImportError:
+        return None  # the progress bar is a convenience: without the extra, trace quietly
+    return tqdm(total=total, unit="point", leave=False)

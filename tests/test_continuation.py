@@ -1,0 +1,116 @@
+"""Continuation through folds, against analytic and published values."""
+
+import json
+import math
+
+import numpy as np
+import pytest
+from scipy.optimize import minimize_scalar
+
+import bvpkit
+from bvpkit.cli import main
+
+from catalogue import bratu_slope
+
+
+def bratu(lam=1.0):
+    return bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": lam})
+
+
+def bratu_fold() -> float:
+    # analytic: lam = t^2 / (2 cosh^2(t/4)) along the family; its maximum over t is the fold
+    res = minimize_scalar(lambda t: -(t**2) / (2 * math.cosh(t / 4) ** 2), bounds=(1, 10), method="bounded",
+                          options={"xatol": 1e-12})
+    return -res.fun
+
+
+@pytest.fixture(scope="module")
+def bratu_branch():
+    return bvpkit.trace(bratu(0.1), "lam", start=0.1, stop=5.0, outputs=["y'(0)", "y(1/2)"], tol=1e-8)
+
+
+def test_bratu_fold_is_located_to_1e8(bratu_branch):
+    b = bratu_branch
+    assert b.success, b.message
+    assert len(b.folds) == 1
+    fold = b.folds[0]
+    assert fold.parameter == pytest.approx(bratu_fold(), rel=1e-8)  # analytic, 3.51383071912516
+    assert fold.parameter == pytest.approx(3.51383071912516, rel=1e-8)  # the value quoted in the issue
+    assert fold.error < 1e-7
+    assert fold.outputs["y'(0)"] == pytest.approx(4.0, rel=1e-6)  # analytic: t tanh(t/4) = 4 at the fold
+
+
+def test_bratu_branch_goes_past_the_fold_onto_the_upper_family(bratu_branch):
+    b = bratu_branch
+    lam, slope = b.parameter, b.outputs["y'(0)"]
+    assert lam.max() < 3.52 and "arclength" in b.steps
+    # every point lies on the analytic family (lower or upper root of t = sqrt(2 lam) cosh(t/4))
+    for value, s in zip(lam, slope):
+        branch = "upper" if s > 4 else "lower"
+        assert s == pytest.approx(bratu_slope(value, branch), rel=1e-7)
+    # the upper branch at lam = 1, reached from the nearest traced point: y'(0) = 10.8468990194 (analytic)
+    upper = [i for i, s in enumerate(slope) if s > 4]
+    nearest = min(upper, key=lambda i: abs(lam[i] - 1.0))
+    sol = bvpkit.solve(bratu(1.0), guess=b.solutions[nearest], tol=1e-9)
+    assert sol.evaluate("y'(0)") == pytest.approx(10.8468990194, rel=1e-9)
+    assert b.parameter[-1] == pytest.approx(0.1)  # it came back to the start side of the range
+
+
+def test_falkner_skan_family_from_beta_one_down_to_zero():
+    p = bvpkit.Problem(["f''' + f*f'' + beta*(1 - f'**2) = 0"], ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"],
+                       (0, "inf"), independent="eta", constants={"beta": 1.0}, guess={"f": "eta - 1 + exp(-eta)"})
+    b = bvpkit.trace(p, "beta", start=1.0, stop=0.0, outputs=["f''(0)"], tol=1e-9)
+    assert b.success, b.message
+    shear = b.outputs["f''(0)"]
+    # Hartree 1937; White, Viscous Fluid Flow, table of Falkner-Skan solutions
+    assert shear[0] == pytest.approx(1.232587658, rel=1e-8)
+    assert shear[-1] == pytest.approx(0.469599988, rel=1e-8)
+    assert np.all(np.diff(shear) < 0)  # smooth, monotone in beta: no jumps to another family
+    assert not b.folds
+
+
+def test_branch_table_csv_json_and_plot(bratu_branch, tmp_path):
+    b = bratu_branch
+    table = b.table()
+    assert list(table) == ["lam", "y'(0)", "y(1/2)", "step"]
+    b.to_csv(tmp_path / "b.csv")
+    lines = (tmp_path / "b.csv").read_text().splitlines()
+    assert len(lines) == len(b.parameter) + 1
+    data = json.loads(json.dumps(b.as_dict(), allow_nan=False))
+    assert data["folds"][0]["parameter"] == pytest.approx(3.51383071912516, rel=1e-8)
+    pytest.importorskip("matplotlib")
+    b.plot(tmp_path / "b.png")
+    assert (tmp_path / "b.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_trace_checks_its_arguments():
+    with pytest.raises(bvpkit.OptionError, match="not a constant of the problem .*did you mean 'lam'"):
+        bvpkit.trace(bratu(), "lamb", start=0, stop=1)
+    with pytest.raises(bvpkit.OptionError, match="start and stop must differ"):
+        bvpkit.trace(bratu(), "lam", start=1, stop=1)
+    with pytest.raises(bvpkit.ProblemError, match="'z' is not an unknown function"):
+        bvpkit.trace(bratu(), "lam", start=0.1, stop=1, outputs=["z(0)"])
+
+
+def test_natural_steps_use_the_selector_and_record_diagnostics():
+    b = bvpkit.trace(bratu(0.1), "lam", start=0.1, stop=1.0, outputs=["y'(0)"], tol=1e-8)
+    assert b.success and not b.folds and set(b.steps) == {"natural"}
+    for s in b.solutions:
+        assert s.diagnostics.selection.startswith("chose ")
+        assert s.diagnostics.error_estimate <= 1e-8
+    assert b.outputs["y'(0)"][-1] == pytest.approx(bratu_slope(1.0, "lower"), rel=1e-8)  # analytic
+
+
+def test_cli_trace_prints_the_fold_and_writes_a_plot(tmp_path, capsys):
+    from pathlib import Path
+
+    spec = Path(__file__).resolve().parent.parent / "specs/reacting_slab_ignition.toml"
+    pytest.importorskip("matplotlib")
+    code = main(["trace", str(spec), "--quiet", "--plot", str(tmp_path / "fold.png"), "--csv", str(tmp_path / "b.csv")])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "fold at lam = 3.5138307191" in out
+    assert (tmp_path / "fold.png").exists() and (tmp_path / "b.csv").exists()
+    assert main(["trace", str(spec), "--json", "--max-points", "5"]) == bvpkit.Status.NOT_CONVERGED.exit_code
+    data = json.loads(capsys.readouterr().out)
+    assert data["success"] is False and "max_points" in data["message"] and len(data["parameter"]) == 5
