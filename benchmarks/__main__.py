@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from . import collocation, shooting
+from . import collocation, continuation, shooting
 from .harness import record
 
-SUITES = [*collocation.SECTIONS, *shooting.SECTIONS]
+SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS]
 
 
 def main(argv: list[str]) -> None:

@@ -307,6 +307,8 @@ def trace(
     step: float | None = None,
     max_points: int = 200,
     progress: bool = False,
+    fixed_step: bool = False,
+    verify: bool = True,
 ) -> Branch:
     """Trace the solutions of ``problem`` as the constant ``name`` goes from ``start`` to ``stop``.
 
@@ -331,6 +333,10 @@ def trace(
         Upper bound on the points of the branch.
     progress : bool
         Show a progress bar (needs the ``progress`` extra: tqdm).
+    fixed_step : bool
+        Keep the natural step at ``step`` instead of adapting it (it still shrinks on failure).
+    verify : bool
+        Estimate the error at each natural point (default True; off is about twice as fast).
 
     Returns
     -------
@@ -354,6 +360,7 @@ def trace(
     tol = float(tol if tol is not None else problem.settings.get("tol", DEFAULT_TOL))
     names = _resolve_outputs(problem, outputs)
     tracer = _Tracer(problem, name, float(start), float(stop), names, tol, method, step, max_points, progress)
+    tracer.fixed, tracer.verify = fixed_step, verify
     return tracer.run()
 
 
@@ -374,10 +381,12 @@ class _Tracer:
         self.k_free = np.array([problem.constants[c] for c in self.free.system.constants], float)
         self.lam_at = list(self.free.system.parameters).index(name)
         self.bar = _progress_bar(progress, max_points)
+        self.fixed, self.verify = False, True
 
     # -- helpers ------------------------------------------------------------------------
     def _solve_at(self, value: float, guess: Any) -> Solution:
-        return solve(self.problem.with_constants(**{self.name: value}), tol=self.tol, method=self.method, guess=guess)
+        return solve(self.problem.with_constants(**{self.name: value}), tol=self.tol, method=self.method,
+                     guess=guess, verify=self.verify)
 
     def _z(self, sol: Solution, value: float) -> np.ndarray:
         p = np.insert(sol._p, self.lam_at, value)
@@ -446,7 +455,8 @@ class _Tracer:
                     b.success, b.message = True, self._done(self._ending(self.edge))
                     return
                 iterations = sol.diagnostics.iterations
-                step = min(step * (_GROW if iterations <= 4 else 1.0), self.span / 4)
+                if not self.fixed:
+                    step = min(step * (_GROW if iterations <= 4 else 1.0), self.span / 4)
                 continue
             if not turning and step > self.span * 1e-3:
                 step *= _SHRINK

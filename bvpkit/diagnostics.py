@@ -112,7 +112,64 @@ def _clean(value: Any) -> Any:
     return value
 
 
-def hermite(compiled, x, y, p, k, physical: bool = False):  # noqa: ANN001, ANN201
+class Hermite:
+    """C1 piecewise-cubic Hermite interpolant of ``y`` with slopes ``dy`` on the mesh ``x``.
+
+    A lean stand-in for ``scipy.interpolate.CubicHermiteSpline`` (whose input checks cost
+    more than the evaluation on the meshes of a continuation); evaluating outside
+    ``[x[0], x[-1]]`` gives NaN. ``y`` and ``dy`` have shape ``(n, m)``.
+    """
+
+    def __init__(self, x, y, dy):  # noqa: ANN001
+        import numpy as np
+
+        self.x = np.asarray(x, float)
+        self.y = np.asarray(y, float)
+        self.dy = np.asarray(dy, float)
+        self.h = np.diff(self.x)
+
+    def _locate(self, points):  # noqa: ANN001, ANN202
+        import numpy as np
+
+        points = np.asarray(points, float)
+        i = np.clip(np.searchsorted(self.x, points, side="right") - 1, 0, self.x.size - 2)
+        h = self.h[i]
+        t = (points - self.x[i]) / h
+        outside = (points < self.x[0]) | (points > self.x[-1]) | ~np.isfinite(points)
+        return points, i, h, t, outside
+
+    def __call__(self, points):  # noqa: ANN001, ANN204
+        import numpy as np
+
+        if np.ndim(points) == 0:
+            return self(np.array([points], float))[:, 0]
+        points, i, h, t, outside = self._locate(points)
+        t2, t3 = t * t, t * t * t
+        h00, h10, h01, h11 = 2 * t3 - 3 * t2 + 1, t3 - 2 * t2 + t, -2 * t3 + 3 * t2, t3 - t2
+        out = (h00 * self.y[:, i] + h10 * h * self.dy[:, i] + h01 * self.y[:, i + 1] + h11 * h * self.dy[:, i + 1])
+        if np.any(outside):
+            out[:, outside] = np.nan
+        return out
+
+    def derivative(self):  # noqa: ANN201
+        """A callable giving the interpolant's first derivative."""
+        import numpy as np
+
+        def first(points):  # noqa: ANN001, ANN202
+            if np.ndim(points) == 0:
+                return first(np.array([points], float))[:, 0]
+            points, i, h, t, outside = self._locate(points)
+            t2 = t * t
+            d00, d10, d01, d11 = (6 * t2 - 6 * t) / h, 3 * t2 - 4 * t + 1, (-6 * t2 + 6 * t) / h, 3 * t2 - 2 * t
+            out = d00 * self.y[:, i] + d10 * self.dy[:, i] + d01 * self.y[:, i + 1] + d11 * self.dy[:, i + 1]
+            if np.any(outside):
+                out[:, outside] = np.nan
+            return out
+
+        return first
+
+
+def hermite(compiled, x, y, p, k, physical: bool = False) -> Hermite:  # noqa: ANN001
     """The C1 cubic interpolant through the states with slopes from the equations.
 
     For collocation this is the solution SciPy's ``solve_bvp`` itself returns; for shooting
@@ -121,11 +178,10 @@ def hermite(compiled, x, y, p, k, physical: bool = False):  # noqa: ANN001, ANN2
     ``(points) -> ndarray, shape (n, len(points))``.
     """
     import numpy as np
-    from scipy.interpolate import CubicHermiteSpline
 
     with np.errstate(all="ignore"):
         slopes = compiled.slopes(x, y, p, k, physical)
-    return CubicHermiteSpline(x, y, slopes, axis=1, extrapolate=False)
+    return Hermite(x, y, slopes)
 
 
 def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001
