@@ -314,6 +314,25 @@ class Shooting(Method):
     def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix) -> Outcome:  # noqa: ANN001
         """Build the output mesh from the dense output, fine enough for the C1 interpolant."""
         c, k, n = trial.compiled, trial.k, trial.compiled.n
+        # A tiny Newton step is not enough: on an ill-conditioned shooting matrix the step
+        # stalls while the conditions are still missed. Check the residual itself.
+        try:
+            flow = self._flow(trial, nodes, s, p, rtol, stiff, sensitivities=False)
+        except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
+            return Outcome(Status.INTEGRATION_FAILED, str(err), trial.x, trial.y, p, iterations=iterations)
+        residual = self._residual(trial, s, p, flow)
+        # continuity rows relative to the node states, condition rows to the end states
+        size = 1.0 + max(float(np.max(np.abs(s[:, 0]))), float(np.max(np.abs(flow.ends[:, -1]))))
+        scale = np.concatenate([(1.0 + np.abs(s[:, 1:])).T.ravel(), np.full(residual.size - n * (s.shape[1] - 1), size)])
+        miss = float(np.max(np.abs(residual) / scale)) if residual.size else 0.0
+        if not miss <= trial.tol:
+            return Outcome(
+                Status.NOT_CONVERGED,
+                f"Newton's steps stalled with the conditions missed by {miss:.2g}: the shooting matrix is too "
+                "ill-conditioned (sensitivities grow too much across a segment); use method = "
+                "\"multiple_shooting\" or \"collocation\"",
+                trial.x, trial.y, trial.p, iterations=iterations,
+            )
         try:
             flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
         except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
@@ -328,8 +347,12 @@ class Shooting(Method):
             return values[:, j, np.arange(tau.size)]
 
         taus = np.unique(np.concatenate([np.linspace(0, 1, 5), flow.dense.ts]))
-        x = np.unique(np.concatenate([nodes[:-1, None] + taus[None, :] * h[:, None]]).ravel())
-        x = x[(x >= nodes[0]) & (x <= nodes[-1])]
+        # segment points, clipped (t_j + 1 * h_j may round past the end), ends exact
+        x = np.clip((nodes[:-1, None] + taus[None, :] * h[:, None]).ravel(), nodes[0], nodes[-1])
+        x = np.unique(np.concatenate([[nodes[0]], x, [nodes[-1]]]))
+        keep = np.concatenate([np.diff(x) > 1e-14 * max(1.0, float(np.abs(x).max())), [True]])
+        keep[0] = True
+        x = x[keep]
         y = states(x)
         # Refine where the C1 cubic interpolant (what a Solution evaluates) misses the
         # integrator's own dense output by more than a tenth of the tolerance.

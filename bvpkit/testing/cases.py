@@ -1,0 +1,40 @@
+"""A drawn problem with its exact solution."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import sympy as sp
+
+
+@dataclass
+class Manufactured:
+    """A well-posed problem whose exact solution is known.
+
+    Attributes
+    ----------
+    problem : bvpkit.Problem
+    exact : sympy.Expr
+        The exact solution ``u(x)`` (the one unknown function is named ``u``).
+    description : str
+        The equation, conditions and exact solution, for failure messages.
+    """
+
+    problem: object
+    exact: sp.Expr
+    description: str
+    _numeric: dict = field(default_factory=dict, repr=False)
+
+    def __call__(self, x, derivative: int = 0) -> np.ndarray:  # noqa: ANN001
+        """The exact solution (or its ``derivative``-th derivative) at ``x``."""
+        if derivative not in self._numeric:
+            symbol = self.problem.x
+            expr = sp.diff(self.exact, symbol, derivative) if derivative else self.exact
+            # lambdify runs on an expression this module built itself, never on user text
+            self._numeric[derivative] = sp.lambdify(symbol, expr, modules="numpy")
+        values = self._numeric[derivative](np.asarray(x, float))
+        return np.broadcast_to(values, np.shape(x)).astype(float)
+
+    def __repr__(self) -> str:
+        return f"Manufactured({self.description})"
