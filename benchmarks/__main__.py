@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from . import collocation, continuation, shooting
+from . import collocation, continuation, scale, shooting
 from .harness import record
 
-SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS]
+SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS]
 
 
 def main(argv: list[str]) -> None:

@@ -28,16 +28,14 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import scipy.sparse as sparse
 from scipy.optimize import brentq
-from scipy.sparse.linalg import splu
 
 from . import guess as _guess
 from .codegen import compile_system
+from .discrete import CollocationEquations
 from .diagnostics import Attempt, Diagnostics, hermite, residuals
 from .driver import DEFAULT_TOL, solve
 from .errors import MissingExtraError, OptionError, closest
-from .methods.base import Outcome
 from .problem import Problem
 from .solution import Solution
 from .status import Status
@@ -45,7 +43,6 @@ from .status import Status
 _GROW, _SHRINK = 1.5, 0.5
 _TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
 _STRAIGHT = 0.6  # |d lam / ds| above this (after a fold): back to natural steps
-_MAX_NEWTON = 12
 
 
 @dataclass
@@ -183,106 +180,6 @@ class Branch:
         plt.close(fig)
 
 
-class _Discrete:
-    """The collocation equations of ``solve_bvp`` on a fixed mesh, the parameter an unknown.
-
-    Unknowns ``z = (y.ravel() in node-major order, p)``; equations: the Lobatto IIIA
-    residuals ``y_i+1 - y_i - h/6 (f_i + 4 f_mid + f_i+1)`` with
-    ``y_mid = (y_i + y_i+1)/2 - h/8 (f_i+1 - f_i)``, then the boundary conditions.
-    """
-
-    def __init__(self, compiled, x: np.ndarray, k: np.ndarray):  # noqa: ANN001
-        self.c, self.x, self.k = compiled, x, k
-        self.n, self.m = compiled.n, x.size
-        self.n_p = compiled.n_parameters
-        self.h = np.diff(x)
-        self.mid = x[:-1] + 0.5 * self.h
-        scale = (x[-1] - x[0]) or 1.0
-        w = np.zeros(self.m)
-        w[:-1] += 0.5 * self.h
-        w[1:] += 0.5 * self.h
-        self.weights = np.concatenate([np.repeat(w / scale, self.n), np.ones(self.n_p)])
-
-    def split(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return z[: self.n * self.m].reshape(self.m, self.n).T, z[self.n * self.m:]
-
-    def join(self, y: np.ndarray, p: np.ndarray) -> np.ndarray:
-        return np.concatenate([y.T.ravel(), p])
-
-    def residual(self, z: np.ndarray) -> np.ndarray:
-        y, p = self.split(z)
-        c, k, h = self.c, self.k, self.h
-        f = c.rhs(self.x, y, p, k)
-        ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
-        fm = c.rhs(self.mid, ym, p, k)
-        col = y[:, 1:] - y[:, :-1] - h / 6 * (f[:, :-1] + f[:, 1:] + 4 * fm)
-        return np.concatenate([col.T.ravel(), c.bc(y[:, 0], y[:, -1], p, k)])
-
-    def jacobian(self, z: np.ndarray) -> sparse.csc_matrix:
-        y, p = self.split(z)
-        c, k, h, n, m, n_p = self.c, self.k, self.h, self.n, self.m, self.n_p
-        f = c.rhs(self.x, y, p, k)
-        ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
-        J = np.moveaxis(c.jac(self.x, y, p, k), -1, 0)  # (m, n, n)
-        Jm = np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0)  # (m-1, n, n)
-        eye = np.eye(n)
-        hh = h[:, None, None]
-        left = -eye - hh / 6 * (J[:-1] + 4 * Jm @ (0.5 * eye + hh / 8 * J[:-1]))
-        right = eye - hh / 6 * (J[1:] + 4 * Jm @ (0.5 * eye - hh / 8 * J[1:]))
-        i = np.arange(m - 1)[:, None, None]
-        r = np.arange(n)
-        rows = (i * n + r[None, :, None]).repeat(n, axis=2)
-        cols = (i * n + r[None, None, :]).repeat(n, axis=1)
-        R, C, V = [rows.ravel(), rows.ravel()], [cols.ravel(), (cols + n).ravel()], [left.ravel(), right.ravel()]
-        if n_p:
-            P = np.moveaxis(c.pjac(self.x, y, p, k), -1, 0)  # (m, n, n_p)
-            Pm = np.moveaxis(c.pjac(self.mid, ym, p, k), -1, 0)
-            dym = -hh / 8 * (P[1:] - P[:-1])
-            block = -hh / 6 * (P[:-1] + P[1:] + 4 * (Pm + Jm @ dym))
-            prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
-            pcol = np.broadcast_to(n * m + np.arange(n_p)[None, None, :], prow.shape)
-            R.append(prow.ravel()); C.append(pcol.ravel()); V.append(block.ravel())  # noqa: E702
-        a, b, dp = c.bc_jac(y[:, 0], y[:, -1], p, k)
-        base = (m - 1) * n
-        nb = a.shape[0]
-        for block, offset, width in ((a, 0, n), (b, (m - 1) * n, n), (dp, n * m, n_p)):
-            if width == 0:
-                continue
-            rr, cc = np.meshgrid(base + np.arange(nb), offset + np.arange(width), indexing="ij")
-            R.append(rr.ravel()); C.append(cc.ravel()); V.append(np.asarray(block).ravel())  # noqa: E702
-        shape = (base + nb, n * m + n_p)
-        return sparse.csc_matrix((np.concatenate(V), (np.concatenate(R), np.concatenate(C))), shape=shape)
-
-    def tangent(self, z: np.ndarray, previous: np.ndarray) -> np.ndarray:
-        """Unit tangent (weighted norm) of the solution curve at ``z``, oriented like ``previous``."""
-        matrix = sparse.vstack([self.jacobian(z), sparse.csr_matrix(previous * self.weights)]).tocsc()
-        rhs = np.zeros(matrix.shape[0])
-        rhs[-1] = 1.0
-        t = splu(matrix).solve(rhs)
-        t /= math.sqrt(float(np.sum(self.weights * t * t)))
-        return t if float(np.sum(self.weights * t * previous)) >= 0 else -t
-
-    def correct(self, predicted: np.ndarray, tangent: np.ndarray, tol: float) -> tuple[np.ndarray | None, int]:
-        """Newton on ``G(z) = 0``, ``<t, z - z_pred> = 0``; None when it does not converge."""
-        z = predicted.copy()
-        border = sparse.csr_matrix(tangent * self.weights)
-        for it in range(1, _MAX_NEWTON + 1):
-            g = self.residual(z)
-            r = np.concatenate([g, [float(np.sum(self.weights * tangent * (z - predicted)))]])
-            if not np.all(np.isfinite(r)):
-                return None, it
-            try:
-                step = splu(sparse.vstack([self.jacobian(z), border]).tocsc()).solve(-r)
-            except RuntimeError:
-                return None, it
-            z = z + step
-            if not np.all(np.isfinite(z)):
-                return None, it
-            if np.max(np.abs(step) / (1.0 + np.abs(z))) <= 0.01 * tol:
-                return z, it
-        return None, _MAX_NEWTON
-
-
 def _resolve_outputs(problem: Problem, outputs: Sequence[str] | None) -> dict[str, str]:
     """Label -> expression: a name of the problem's outputs keeps its name as the label."""
     labels = {}
@@ -392,7 +289,7 @@ class _Tracer:
         p = np.insert(sol._p, self.lam_at, value)
         return np.concatenate([sol.y.T.ravel(), p])
 
-    def _solution(self, disc: _Discrete, z: np.ndarray, iterations: int, seconds: float) -> Solution:
+    def _solution(self, disc: CollocationEquations, z: np.ndarray, iterations: int, seconds: float) -> Solution:
         y, pz = disc.split(z)
         value = float(pz[self.lam_at])
         p = np.delete(pz, self.lam_at)
@@ -503,7 +400,7 @@ class _Tracer:
         if sol.x[0] != last.x[0] or sol.x[-1] != last.x[-1]:
             return False
         dy = sol._states(last.x) - last.y
-        disc = _Discrete(self.free, last.x, self.k_free)
+        disc = CollocationEquations(self.free, last.x, self.k_free)
         w = disc.weights[: disc.n * disc.m].reshape(disc.m, disc.n).T
         dlam = target - self.branch.parameter[-1]
         norm = math.sqrt(float(np.sum(w * dy * dy)) + float(np.sum((sol._p - last._p) ** 2)) + dlam**2)
@@ -519,7 +416,7 @@ class _Tracer:
                 f"the branch turns near {self.name} = {b.parameter[-1]:.6g}, and pseudo-arclength steps "
                 "are not available for singular or free-end problems"
             )
-        disc = _Discrete(self.free, x, self.k_free)
+        disc = CollocationEquations(self.free, x, self.k_free)
         z = self._z(last, b.parameter[-1])
         if len(b.solutions) >= 2:
             prev = b.solutions[-2]
@@ -566,7 +463,7 @@ class _Tracer:
                 return None
         return False, self._done(f"stopped after max_points = {self.max_points} points")
 
-    def _locate_fold(self, disc: _Discrete, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
+    def _locate_fold(self, disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
         """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh."""
         found = _fold_on(disc, z0, t0, ds, self.lam_at, self.tol)
         if found is None:
@@ -578,7 +475,7 @@ class _Tracer:
         y, pz = disc.split(z0)
         k = self.k_free
         y_fine = hermite(self.free, x, y, pz, k)(fine_x)
-        fine = _Discrete(self.free, fine_x, k)
+        fine = CollocationEquations(self.free, fine_x, k)
         yt, pt = disc.split(t0)
         t_fine = fine.join(np.array([np.interp(fine_x, x, row) for row in yt]), pt)
         z_fine0, _ = fine.correct(fine.join(y_fine, pz), fine.tangent(fine.join(y_fine, pz), t_fine), self.tol)
@@ -594,7 +491,7 @@ class _Tracer:
         self.branch.folds.append(Fold(value, outputs, error, len(self.branch.solutions), sol))
 
 
-def _fold_on(disc: _Discrete, z0: np.ndarray, t0: np.ndarray, ds: float, lam_at: int, tol: float) -> np.ndarray | None:
+def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, lam_at: int, tol: float) -> np.ndarray | None:
     """Brent's method on the tangent's parameter component along the arclength from ``z0``."""
     where = -disc.n_p + lam_at
     cache: dict[float, np.ndarray] = {}

@@ -81,6 +81,8 @@ class Diagnostics:
         Everything that was tried, in order.
     selection : str
         Why the first method was chosen.
+    tol : float or None
+        The tolerance the solve was asked for.
     """
 
     method: str
@@ -96,6 +98,7 @@ class Diagnostics:
     seconds: float = 0.0
     attempts: list[Attempt] = field(default_factory=list)
     selection: str = ""
+    tol: float | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Plain JSON-ready data (non-finite floats become None)."""
@@ -318,4 +321,15 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
     try:
         return float(onenormest(inverse_t))
     except (ValueError, RuntimeError):  # pragma: no cover - onenormest on degenerate input
+        return None
+
+
+def stability_constant(lu, size: int) -> float | None:  # noqa: ANN001
+    """``||M^-1||_inf`` from a sparse LU of ``M`` (Hager's estimate on the transpose)."""
+    from scipy.sparse.linalg import LinearOperator, onenormest
+
+    inverse_t = LinearOperator((size, size), matvec=lambda v: lu.solve(v, trans="T"), rmatvec=lu.solve, dtype=float)
+    try:
+        return float(onenormest(inverse_t))
+    except (ValueError, RuntimeError):  # pragma: no cover - degenerate input
         return None

@@ -137,7 +137,7 @@ def solve(
     trial = Trial(compiled, method_x, y, p, k, options["tol"], options["max_nodes"], options["verify"],
                   singular=compiled.singular(p, k))
     outcome, attempts, selection = strategy.run(trial, options["method"])
-    return _assemble(problem, compiled, k, outcome, attempts, selection, start, None, None)
+    return _assemble(problem, compiled, k, outcome, attempts, selection, start, None, None, tol=options["tol"])
 
 
 def _start(problem, compiled, x, k, guess) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
@@ -192,13 +192,13 @@ def _solve_infinite(problem, compiled, k, a, b, guess, options, start) -> Soluti
         selection = selection or chosen
         if not outcome.ok:
             if previous is None:
-                return _assemble(problem, compiled, k, outcome, attempts, selection, start, length, None)
+                return _assemble(problem, compiled, k, outcome, attempts, selection, start, length, None, tol=tol)
             break
         if previous is not None:
             change = _change(compiled, previous, outcome, k)
             if change <= _SHARE_TRUNCATION * tol:
                 return _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
-                                 change, previous)
+                                 change, previous, tol=tol)
         previous = outcome
         length *= _GROWTH
     assert outcome is not None and previous is not None
@@ -208,7 +208,7 @@ def _solve_infinite(problem, compiled, k, a, b, guess, options, start) -> Soluti
             f"the solution still changed by {change:.2g} when infinity was moved out to "
             f"{length / _GROWTH:.4g}; " + Status.TRUNCATION.hint
         )
-        return _assemble(problem, compiled, k, outcome, attempts, selection, start, length / _GROWTH, change)
+        return _assemble(problem, compiled, k, outcome, attempts, selection, start, length / _GROWTH, change, tol=tol)
     # A longer domain failed: hand back the last converged one, marked as not settled.
     previous.status = Status.TRUNCATION
     previous.message = (
@@ -216,7 +216,7 @@ def _solve_infinite(problem, compiled, k, a, b, guess, options, start) -> Soluti
         f"the solution shown stops at {previous.x[-1]:.4g} and had not settled "
         f"(last change {change:.2g})"
     )
-    return _assemble(problem, compiled, k, previous, attempts, selection, start, float(previous.x[-1]), change)
+    return _assemble(problem, compiled, k, previous, attempts, selection, start, float(previous.x[-1]), change, tol=tol)
 
 
 def _extend(compiled, previous: Outcome, k, lo: float, hi: float):  # noqa: ANN001, ANN202
@@ -251,7 +251,7 @@ def _change(compiled, old: Outcome, new: Outcome, k) -> float:  # noqa: ANN001
 
 
 def _assemble(problem, compiled, k, outcome, attempts, selection, start, length, change,  # noqa: ANN001
-              previous: Outcome | None = None) -> Solution:
+              previous: Outcome | None = None, tol: float | None = None) -> Solution:
     residual, bc_residual = residuals(compiled, outcome.x, outcome.y, outcome.p, k)
     verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
     discretisation = outcome.error_estimate
@@ -275,12 +275,14 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
         discretisation_error=discretisation,
         truncation_error=change if length is not None else None,
         truncation_length=length,
-        condition=condition_estimate(compiled, outcome.x, outcome.y, outcome.p, k)
+        condition=(outcome.condition if outcome.condition is not None
+                   else condition_estimate(compiled, outcome.x, outcome.y, outcome.p, k))
         if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.all(np.isfinite(outcome.y))
         else None,
         seconds=time.perf_counter() - start,
         attempts=attempts,
         selection=selection,
+        tol=tol,
     )
     system = compiled.system
     if system.eigenvalue is not None and status is Status.SOLVED:

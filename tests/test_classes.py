@@ -9,7 +9,7 @@ import scipy.special as special
 from scipy.integrate import solve_ivp
 
 import bvpkit
-from bvpkit import ProblemError
+
 
 
 @pytest.mark.parametrize("k", [1, 2, 3, 4, 5])

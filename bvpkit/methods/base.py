@@ -107,13 +107,20 @@ class Method:
             for _ in range(_TIGHTEN_ROUNDS + 1):
                 reference = self._checked(self._refine(dataclasses.replace(trial, tol=tol), outcome))
                 if not reference.ok:
+                    # no estimate, no claim of success
                     outcome.error_estimate = np.inf
                     outcome.reference = None
-                    outcome.message += f"; the refined solve for the error estimate failed ({reference.message})"
+                    outcome.status = Status.ERROR_TOO_LARGE
+                    outcome.message = (
+                        f"{outcome.message}, but the refined solve for the error estimate failed "
+                        f"({reference.message}), so the error is unknown"
+                    )
                     return outcome
                 estimate, p_errors = compare(outcome, reference, trial)
                 outcome.error_estimate, outcome.parameter_errors = estimate, p_errors
                 outcome.reference = reference
+                if reference.condition is not None:
+                    outcome.condition = reference.condition
                 if estimate <= trial.tol or tol <= _SMALLEST_TOL:
                     break
                 tol = max(_SMALLEST_TOL, tol * min(0.1, _TIGHTEN_SAFETY * trial.tol / estimate))

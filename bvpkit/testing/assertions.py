@@ -11,7 +11,6 @@ from typing import Any
 
 import numpy as np
 import sympy as sp
-from sympy.core.function import AppliedUndef
 
 from .cases import Manufactured
 
@@ -61,8 +60,8 @@ def assert_solves(problem, solution, *, tol: float | None = None, points: np.nda
     Parameters
     ----------
     tol : float, optional
-        Allowed relative residual. Default ``max(1e-6, 30 e**0.75)`` with ``e`` the solve's
-        error estimate: the derivative of a C1 cubic interpolant is one order less accurate
+        Allowed relative residual. Default ``max(1e-6, 30 e**0.75)`` with ``e`` the larger of
+        the solve's error estimate and its tolerance: the derivative of a C1 cubic interpolant is one order less accurate
         than its values (``h**3`` against ``h**4``), so a correct solution with value error
         ``e`` has a residual of about ``e**0.75``; a wrong solution misses by far more.
     points : ndarray, optional
@@ -78,8 +77,9 @@ def assert_solves(problem, solution, *, tol: float | None = None, points: np.nda
     if not np.all(np.isfinite(solution.y)):
         raise VerificationError("the solution holds NaN or inf")
     estimate = float(solution.diagnostics.error_estimate)
+    asked = solution.diagnostics.tol or 0.0
     if tol is None:
-        tol = max(1e-6, 30 * estimate**0.75) if np.isfinite(estimate) else 1e-4
+        tol = max(1e-6, 30 * max(estimate, asked) ** 0.75) if np.isfinite(estimate) else 1e-4
     points = _sample(solution) if points is None else np.asarray(points, float)
     values = _values(problem, solution, points)
     params = {sp.Symbol(k): v for k, v in problem.constants.items()}
