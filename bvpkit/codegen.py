@@ -17,8 +17,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.constants
-import scipy.special
+import scipy  # submodules (scipy.special for erf) load on first use by generated code
 import sympy as sp
 from sympy.printing.numpy import SciPyPrinter
 
@@ -39,8 +38,15 @@ def check_source(source: str) -> None:
             raise RuntimeError(f"generated code holds an unexpected name {word!r}")
 
 
+class _Printer(SciPyPrinter):
+    """SciPy's printer, with pi from NumPy (importing scipy.constants costs 0.15 s at start-up)."""
+
+    def _print_Pi(self, expr):  # noqa: ANN001, ANN202, N802
+        return "numpy.pi"
+
+
 def _printer() -> SciPyPrinter:
-    return SciPyPrinter({"fully_qualified_modules": True, "inline": True})
+    return _Printer({"fully_qualified_modules": True, "inline": True})
 
 
 def _unpack(lines: list[str], name: str, symbols: Sequence[sp.Symbol], used: set) -> None:
@@ -218,15 +224,86 @@ def _system_source(system: FirstOrderSystem) -> tuple[str, np.ndarray]:
 
 
 _MEMORY: dict[str, CompiledSystem] = {}
+CACHE_VARIABLE = "BVPKIT_CACHE_DIR"  # where generated code is kept; "off" disables the disk cache
+
+
+def _cache_dir():  # noqa: ANN202
+    import os
+    from pathlib import Path
+
+    chosen = os.environ.get(CACHE_VARIABLE)
+    if chosen == "off":
+        return None
+    if chosen:
+        return Path(chosen)
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return Path(base) / "bvpkit"
+
+
+def _cache_file(key: str):  # noqa: ANN202
+    from . import __version__
+
+    folder = _cache_dir()
+    return None if folder is None else folder / f"system-{key}-{__version__}.json"
+
+
+def _read_cache(key: str) -> tuple[str, np.ndarray] | None:
+    """The cached source and Jacobian pattern, or None (missing, unreadable or corrupted)."""
+    import hashlib
+    import json
+
+    path = _cache_file(key)
+    if path is None:
+        return None
+    try:
+        data = json.loads(path.read_text())
+        source, pattern, digest = data["source"], data["pattern"], data["sha256"]
+        if hashlib.sha256(source.encode()).hexdigest() != digest or data["key"] != key:
+            return None
+        return source, np.array(pattern, dtype=bool)
+    except (OSError, ValueError, KeyError, TypeError):
+        return None  # a corrupted or half-written file is regenerated, never trusted
+
+
+def _write_cache(key: str, source: str, pattern: np.ndarray) -> None:
+    """Write atomically: a temporary file in the same folder, then os.replace (safe for concurrent writers)."""
+    import hashlib
+    import json
+    import os
+    import tempfile
+
+    path = _cache_file(key)
+    if path is None:
+        return
+    data = {"key": key, "source": source, "pattern": pattern.tolist(),
+            "sha256": hashlib.sha256(source.encode()).hexdigest()}
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        handle, temporary = tempfile.mkstemp(prefix=".system-", suffix=".tmp", dir=path.parent)
+        with os.fdopen(handle, "w") as out:
+            json.dump(data, out)
+        os.replace(temporary, path)
+    except OSError:
+        pass  # a read-only or full disk costs speed, not correctness
 
 
 def compile_system(system: FirstOrderSystem) -> CompiledSystem:
-    """Generate (or fetch from the in-process cache) the callables of ``system``."""
+    """Generate (or fetch from the in-process or disk cache) the callables of ``system``.
+
+    The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is
+    keyed by the system's content and the bvpkit version; generated code is re-checked by
+    :func:`check_source` before it is compiled, whatever its origin.
+    """
     key = system.key()
     cached = _MEMORY.get(key)
     if cached is not None:
         return cached
-    source, pattern = _system_source(system)
+    stored = _read_cache(key)
+    if stored is not None:
+        source, pattern = stored
+    else:
+        source, pattern = _system_source(system)
+        _write_cache(key, source, pattern)
     f = _build(source, ["rhs", "jac", "pjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p",
                         "physical", "singular_matrix", "domain_ends"])
 

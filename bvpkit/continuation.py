@@ -28,7 +28,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from scipy.optimize import brentq
 
 from . import guess as _guess
 from .codegen import compile_system
@@ -502,6 +501,8 @@ def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: flo
             raise ArithmeticError
         cache[s] = z
         return float(disc.tangent(z, t0)[where])
+
+    from scipy.optimize import brentq  # imported here: scipy.optimize costs 0.3 s at start-up
 
     try:
         lo, hi = component(0.0), component(ds)
