@@ -21,6 +21,7 @@ from .errors import (
 from .problem import Problem
 from .solution import Solution
 from .status import Status
+from .sweep import SweepResult, sweep
 
 __version__ = "0.1.0"
 
@@ -46,8 +47,10 @@ __all__ = [
     "Solution",
     "SpecError",
     "Status",
+    "SweepResult",
     "__version__",
     "load",
     "solve",
+    "sweep",
     "trace",
 ]

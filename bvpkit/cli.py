@@ -72,6 +72,25 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--plot", metavar="FILE.png", help="draw the branch (needs the plot extra)")
     trace.add_argument("--quiet", action="store_true", help="no progress bar")
 
+    sweep = commands.add_parser(
+        "sweep", help="solve over a grid of constants (design charts), resumable",
+        description="Solve the spec's problem at every point of the grid in its [sweep] section, on local "
+        "processes or a Dask cluster; with --store, a rerun solves only what is missing.", epilog=_EPILOG,
+    )
+    sweep.add_argument("spec", help="path of the TOML spec file")
+    sweep.add_argument("--store", metavar="FILE.sqlite", help="SQLite store of finished points (resumable)")
+    sweep.add_argument("--workers", type=int, help="local worker processes (default: one per core)")
+    sweep.add_argument("--serial", action="store_true", help="solve in this process, no workers")
+    sweep.add_argument("--scheduler", metavar="ADDRESS", help="a Dask scheduler, e.g. tcp://127.0.0.1:8786 (dask extra)")
+    sweep.add_argument("--retry-failed", action="store_true", help="solve again the points stored as failed")
+    sweep.add_argument("--output", action="append", metavar="EXPR", help="an expression or output name; repeatable")
+    sweep.add_argument("--tol", type=float, help="tolerance of each point")
+    sweep.add_argument("--method", choices=_methods(), help="solution method")
+    sweep.add_argument("--csv", metavar="FILE", help="write the table as CSV")
+    sweep.add_argument("--json", action="store_true", help="print the table as JSON")
+    sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra)")
+    sweep.add_argument("--quiet", action="store_true", help="no progress bar")
+
     check = commands.add_parser(
         "check", help="validate a spec without solving", description="Validate a spec and show its first-order form.", epilog=_EPILOG
     )
@@ -199,6 +218,48 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     return code, None
 
 
+def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
+    from . import load, sweep
+    from .errors import MissingExtraError, OptionError
+
+    problem = load(args.spec)
+    settings = problem.settings.get("sweep")
+    if not settings:
+        raise OptionError(f"{args.spec} has no [sweep] section with a grid")
+    client = None
+    executor: Any = "serial" if args.serial else None
+    if args.scheduler:
+        try:
+            from distributed import Client
+        except ImportError:
+            raise MissingExtraError('--scheduler needs the dask extra: pip install "bvpkit[dask]"') from None
+        client = executor = Client(args.scheduler, timeout=30)
+    try:
+        result = sweep(problem, settings["grid"], outputs=args.output or settings.get("outputs"), store=args.store,
+                       executor=executor, workers=args.workers, retry_failed=args.retry_failed, tol=args.tol,
+                       method=args.method, progress=not args.quiet and not args.json)
+    finally:
+        if client is not None:
+            client.close()
+    if args.csv:
+        result.to_csv(args.csv)
+    if args.plot:
+        result.plot(args.plot)
+    code = 0 if result.success else Status.NOT_CONVERGED.exit_code
+    if args.json:
+        return code, result.as_dict()
+    names = [*result.parameters, *result.outputs, "status"]
+    print((f"{problem.title}\n" if problem.title else "") + result.message)
+    print("  ".join(f"{n:>14s}" for n in names))
+    for row in result.table:
+        cells = [f"{row[n]:14.8g}" if isinstance(row[n], float) else f"{str(row[n]):>14s}" for n in names]
+        print("  ".join(cells))
+    for path, what in ((args.csv, "table"), (args.plot, "chart")):
+        if path:
+            print(f"{what} written to {path}")
+    return code, None
+
+
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load
 
@@ -233,10 +294,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         from .errors import BvpkitError
 
-        handler = {"solve": _solve, "check": _check, "trace": _trace}[args.command]
+        handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep}[args.command]
         code, report = handler(args)
     except KeyboardInterrupt:
         return _fail(Status.INTERRUPTED, "interrupted", wants_json)
+    except BrokenPipeError:
+        # the reader went away (e.g. `| head`): stop quietly, as command-line tools do
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except BvpkitError as err:
         return _fail(Status.BAD_INPUT, err.one_line(), wants_json)
     except Exception as err:  # noqa: BLE001 - the last line of defence: one line, no traceback
@@ -244,7 +310,11 @@ def main(argv: Sequence[str] | None = None) -> int:
             raise
         return _fail(Status.INTERNAL, f"{type(err).__name__}: {err}", wants_json)
     if report is not None:
-        print(json.dumps(_json_ready(report), indent=2, allow_nan=False))
+        try:
+            print(json.dumps(_json_ready(report), indent=2, allow_nan=False))
+        except BrokenPipeError:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
     return code
 
 

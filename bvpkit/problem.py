@@ -86,6 +86,14 @@ class Problem:
         eigenvalue: str | None = None,
         mode: int | None = None,
     ):
+        # The arguments as given: plain, picklable data from which a worker process (or a
+        # cluster node) rebuilds this problem; see bvpkit.sweep.
+        self.arguments = dict(
+            equations=equations, conditions=conditions, domain=domain, independent=independent,
+            unknowns=unknowns, constants=dict(constants or {}), unknown_parameters=dict(unknown_parameters or {}),
+            guess=dict(guess or {}), outputs=dict(outputs or {}), settings=dict(settings or {}), title=title,
+            eigenvalue=eigenvalue, mode=mode,
+        )
         self.title = str(title)
         self.independent = _expr.check_name(independent, "independent variable")
         self.x = sp.Symbol(self.independent)

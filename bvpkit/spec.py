@@ -24,6 +24,11 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     start = 1e4
     stop = 1e5
 
+    [sweep]           # for `bvpkit sweep`: the first grid key is the fast axis
+    outputs = ["wall_shear"]
+    [sweep.grid]
+    Re_x = { from = 1e4, to = 1e6, count = 30, spacing = "geometric" }
+
     [save]            # files written by `bvpkit solve`, relative to the working directory
     solution_csv = "plate.csv"
     report_json = "plate.json"
@@ -84,6 +89,18 @@ class TraceSection(_Model):
     step: Number | None = None
 
 
+class RangeModel(_Model):
+    start: Number = Field(alias="from")
+    stop: Number = Field(alias="to")
+    count: StrictInt
+    spacing: StrictStr = "linear"
+
+
+class SweepSection(_Model):
+    grid: dict[str, list[Number] | RangeModel]
+    outputs: list[StrictStr] | None = None
+
+
 class SaveSection(_Model):
     solution_csv: StrictStr | None = None
     report_json: StrictStr | None = None
@@ -97,6 +114,7 @@ class Spec(_Model):
     outputs: dict[str, StrictStr] = {}
     save: SaveSection = SaveSection()
     trace: TraceSection | None = None
+    sweep: SweepSection | None = None
 
 
 def _where(loc: tuple[Any, ...]) -> str:
@@ -158,6 +176,9 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     settings["save"] = spec.save.model_dump()
     if spec.trace is not None:
         settings["trace"] = {k: v for k, v in spec.trace.model_dump().items() if v is not None}
+    if spec.sweep is not None:
+        settings["sweep"] = {"grid": {name: _values(name, axis, source) for name, axis in spec.sweep.grid.items()},
+                             "outputs": spec.sweep.outputs}
     try:
         return Problem(
             equations=section.equations,
@@ -178,6 +199,23 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
         raise SpecError(f"{source}: [problem] {err.one_line()}") from err
     except BvpkitError as err:
         raise SpecError(f"{source}: [problem] {err}") from err
+
+
+def _values(name: str, axis: Any, source: str) -> list[float]:
+    """A grid axis: a list as given, or ``{from, to, count, spacing = linear | geometric}``."""
+    import numpy as np
+
+    if isinstance(axis, list):
+        return [float(v) for v in axis]
+    if not 1 <= axis.count <= 100_000:
+        raise SpecError(f"{source}: sweep.grid.{name}.count must be from 1 to 100000, got {axis.count}")
+    if axis.spacing == "linear":
+        return np.linspace(axis.start, axis.stop, axis.count).tolist()
+    if axis.spacing == "geometric":
+        if axis.start <= 0 or axis.stop <= 0:
+            raise SpecError(f"{source}: sweep.grid.{name}: geometric spacing needs positive ends")
+        return np.geomspace(axis.start, axis.stop, axis.count).tolist()
+    raise SpecError(f"{source}: sweep.grid.{name}.spacing must be 'linear' or 'geometric', got '{axis.spacing}'")
 
 
 def loads(text: str, source: str = "<spec>") -> Problem:

@@ -1,0 +1,142 @@
+"""Sweeps: local processes, a real Dask cluster on loopback, kill-and-resume, failed points."""
+
+import json
+import math
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import bvpkit
+from bvpkit.cli import main
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def pellet():
+    return bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c'(1) = Bi*(1 - c(1))"], (0, 1),
+                          independent="r", constants={"phi": 1.0, "Bi": 10.0},
+                          outputs={"effectiveness": "3*c'(1)/phi**2"})
+
+
+def analytic(phi, bi):
+    # analytic: sphere with film resistance, eta = 3 f / (phi^2 (1 + f/Bi)), f = phi coth(phi) - 1
+    f = phi / math.tanh(phi) - 1
+    return 3 * f / (phi**2 * (1 + f / bi))
+
+
+GRID = {"phi": np.geomspace(0.2, 50, 12), "Bi": [2.0, 20.0]}
+
+
+def _values(result):
+    return [(r["phi"], r["Bi"], r["effectiveness"], r["success"]) for r in result.table]
+
+
+def test_serial_sweep_is_in_grid_order_and_matches_the_formula():
+    result = bvpkit.sweep(pellet(), GRID, executor="serial", tol=1e-8)
+    assert result.success and result.solved == 24 and len(result.table) == 24
+    assert [r["phi"] for r in result.table[:12]] == pytest.approx(list(GRID["phi"]))  # the first key is fastest
+    for r in result.table:
+        assert r["effectiveness"] == pytest.approx(analytic(r["phi"], r["Bi"]), rel=1e-6)
+        assert r["method"] and r["error_estimate"] <= 1e-8
+
+
+def test_local_process_pool_gives_the_same_table():
+    serial = bvpkit.sweep(pellet(), GRID, executor="serial", tol=1e-8, chunk=4)
+    pooled = bvpkit.sweep(pellet(), GRID, workers=2, tol=1e-8, chunk=4)
+    assert _values(pooled) == _values(serial)
+
+
+def test_dask_local_cluster_on_loopback_gives_the_same_table():
+    distributed = pytest.importorskip("distributed")
+    serial = bvpkit.sweep(pellet(), GRID, executor="serial", tol=1e-8, chunk=4)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None,
+                                  processes=True) as cluster, distributed.Client(cluster) as client:
+        result = bvpkit.sweep(pellet(), GRID, executor=client, tol=1e-8, chunk=4)
+    assert _values(result) == _values(serial)
+
+
+SCRIPT = textwrap.dedent(
+    """
+    import sys, numpy as np, bvpkit
+    p = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c'(1) = Bi*(1 - c(1))"], (0, 1),
+                       independent="r", constants={"phi": 1.0, "Bi": 10.0},
+                       outputs={"effectiveness": "3*c'(1)/phi**2"})
+    grid = {"phi": np.geomspace(0.2, 50, 40), "Bi": [2.0, 20.0, 200.0]}
+    bvpkit.sweep(p, grid, store=sys.argv[1], executor="serial", tol=1e-8, chunk=2)
+    """
+)
+
+
+def test_a_sweep_killed_mid_run_resumes_to_exactly_the_clean_table(tmp_path):
+    store = tmp_path / "run.sqlite"
+    script = tmp_path / "sweep_script.py"
+    script.write_text(SCRIPT)
+    child = subprocess.Popen([sys.executable, str(script), str(store)], env={**os.environ})
+    stored = 0
+    deadline = time.time() + 120
+    while time.time() < deadline and child.poll() is None:
+        if store.exists():
+            try:
+                with sqlite3.connect(store, timeout=5) as db:
+                    stored = db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+            except sqlite3.Error:
+                stored = 0
+            if stored >= 10:
+                break
+        time.sleep(0.02)
+    child.send_signal(signal.SIGKILL)
+    child.wait()
+    assert 0 < stored < 120, "the sweep was not caught mid-run"
+    grid = {"phi": np.geomspace(0.2, 50, 40), "Bi": [2.0, 20.0, 200.0]}
+    resumed = bvpkit.sweep(pellet(), grid, store=store, executor="serial", tol=1e-8, chunk=2)
+    clean = bvpkit.sweep(pellet(), grid, store=tmp_path / "clean.sqlite", executor="serial", tol=1e-8, chunk=2)
+    assert resumed.reused >= stored and resumed.solved == 120 - resumed.reused
+    assert resumed.table == clean.table  # nothing lost, nothing duplicated, the same numbers
+    with sqlite3.connect(store) as db:
+        assert db.execute("SELECT COUNT(*) FROM points").fetchone()[0] == 120
+
+
+def test_failed_points_are_stored_and_retried_only_when_asked(tmp_path):
+    # Bratu has no solution beyond its fold at lam = 3.5138 (analytic)
+    bratu = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 1.0})
+    grid = {"lam": [1.0, 2.0, 3.0, 4.0, 5.0]}
+    store = tmp_path / "bratu.sqlite"
+    first = bvpkit.sweep(bratu, grid, outputs=["y'(0)"], store=store, executor="serial")
+    assert first.failed == 2 and not first.success
+    failed = [r for r in first.table if not r["success"]]
+    assert all(r["message"] for r in failed) and {r["lam"] for r in failed} == {4.0, 5.0}
+    again = bvpkit.sweep(bratu, grid, outputs=["y'(0)"], store=store, executor="serial")
+    assert again.solved == 0 and again.reused == 5
+    retried = bvpkit.sweep(bratu, grid, outputs=["y'(0)"], store=store, executor="serial", retry_failed=True)
+    assert retried.solved == 2
+
+
+def test_sweep_checks_its_arguments():
+    with pytest.raises(bvpkit.OptionError, match="not a constant .*did you mean 'phi'"):
+        bvpkit.sweep(pellet(), {"ph": [1.0]})
+    with pytest.raises(bvpkit.OptionError, match="finite"):
+        bvpkit.sweep(pellet(), {"phi": [1.0, float("nan")]})
+    with pytest.raises(bvpkit.OptionError, match="executor must be"):
+        bvpkit.sweep(pellet(), {"phi": [1.0]}, executor=object())
+
+
+def test_cli_sweep_from_the_bundled_spec(tmp_path, capsys):
+    spec = ROOT / "specs/pellet_design_chart.toml"
+    store, table = tmp_path / "chart.sqlite", tmp_path / "chart.csv"
+    assert main(["sweep", str(spec), "--store", str(store), "--csv", str(table), "--serial", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "300 points: 300 solved now" in out
+    assert len(table.read_text().splitlines()) == 301
+    assert main(["sweep", str(spec), "--store", str(store), "--json", "--serial"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["message"].startswith("300 points: 0 solved now, 300 from the store")
+    row = data["table"][0]
+    assert row["effectiveness"] == pytest.approx(analytic(row["phi"], row["Bi"]), rel=1e-5)
