@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from . import collocation, continuation, scale, shooting
+from . import collocation, continuation, scale, shooting, sweeps
 from .harness import record
 
-SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS]
+SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS]
 
 
 def main(argv: list[str]) -> None:
