@@ -24,8 +24,18 @@ def _methods() -> list[str]:
     return ["auto", *REGISTRY]
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage errors are bad input: one line (or one JSON object with --json), exit code 2."""
+
+    def error(self, message: str):  # noqa: ANN201
+        if "--json" in getattr(self, "_argv", sys.argv[1:]):
+            print(json.dumps({"success": False, "status": Status.BAD_INPUT.word, "message": message}))
+            sys.exit(Status.BAD_INPUT.exit_code)
+        super().error(message)
+
+
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="bvpkit",
         description="Solve two-point boundary-value problems written as on paper.",
         epilog=_EPILOG,
@@ -33,7 +43,7 @@ def _parser() -> argparse.ArgumentParser:
     from . import __version__
 
     parser.add_argument("--version", action="version", version=f"bvpkit {__version__}")
-    commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True, parser_class=_Parser)
 
     solve = commands.add_parser(
         "solve", help="solve the problem of a TOML spec", description="Solve the problem of a TOML spec and print a summary.", epilog=_EPILOG
@@ -114,6 +124,23 @@ def _constants(pairs: list[str]) -> dict[str, float]:
     return values
 
 
+def _writable(name: str | None) -> Path | None:
+    """A path given on the command line: the user's choice, but its folder must exist."""
+    from .errors import OptionError
+
+    if name is None:
+        return None
+    path = Path(name)
+    if path.is_dir():
+        raise OptionError(f"cannot write {name}: it is a folder")
+    folder = path.parent
+    if not folder.is_dir():
+        raise OptionError(f"cannot write {name}: the folder {folder} does not exist")
+    if not os.access(folder, os.W_OK):
+        raise OptionError(f"cannot write {name}: the folder {folder} is not writable")
+    return path
+
+
 def safe_output_path(name: str, overwrite: bool) -> Path:
     """Where a file named inside a spec may be written: under the working directory only."""
     from .errors import OptionError
@@ -138,7 +165,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     save = problem.settings.get("save", {})
-    csv_path = Path(args.csv) if args.csv else None
+    csv_path = _writable(args.csv)
     json_path = None
     if csv_path is None and save.get("solution_csv"):
         csv_path = safe_output_path(save["solution_csv"], args.overwrite)
@@ -173,6 +200,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load, trace
     from .errors import OptionError
 
+    _writable(args.csv), _writable(args.plot)
     problem = load(args.spec)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
@@ -222,6 +250,7 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load, sweep
     from .errors import MissingExtraError, OptionError
 
+    _writable(args.csv), _writable(args.plot)
     problem = load(args.spec)
     settings = problem.settings.get("sweep")
     if not settings:
@@ -289,6 +318,7 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit code."""
     parser = _parser()
+    _Parser._argv = list(argv) if argv is not None else sys.argv[1:]  # type: ignore[attr-defined]
     args = parser.parse_args(argv)
     wants_json = getattr(args, "json", False)
     try:
@@ -305,6 +335,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 0
     except BvpkitError as err:
         return _fail(Status.BAD_INPUT, err.one_line(), wants_json)
+    except OSError as err:  # writing an output file failed after all (disk full, permissions)
+        return _fail(Status.BAD_INPUT, f"cannot write {err.filename or 'an output file'}: {err.strerror}", wants_json)
     except Exception as err:  # noqa: BLE001 - the last line of defence: one line, no traceback
         if os.environ.get("BVPKIT_DEBUG"):
             raise

@@ -239,7 +239,8 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
 
     with np.errstate(all="ignore"):
         jac = compiled.jac(x, y, p, k)  # (n, n, m)
-        eig = np.linalg.eigvals(np.moveaxis(jac, -1, 0))  # (m, n)
+        finite = bool(np.all(np.isfinite(jac)))
+        eig = np.linalg.eigvals(np.moveaxis(jac, -1, 0)) if finite else np.full((x.size, 1), np.nan)  # (m, n)
     if not np.all(np.isfinite(eig)):
         return Survey(float(x[-1] - x[0]), math.inf, math.inf, np.full(x.size, np.inf))
     rates = np.maximum(eig.real.max(axis=1), 0.0)

@@ -284,6 +284,12 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
         selection=selection,
         tol=tol,
     )
+    # The last guard: success never comes with non-finite values or an estimate above tol.
+    if status is Status.SOLVED and not (np.all(np.isfinite(outcome.y)) and np.all(np.isfinite(outcome.p))):
+        status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
+    if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
+        status = Status.ERROR_TOO_LARGE
+        message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
     system = compiled.system
     if system.eigenvalue is not None and status is Status.SOLVED:
         found = _guess.interior_zeros(outcome.y[system.index(system.states[0][0], 0)])

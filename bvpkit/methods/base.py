@@ -98,7 +98,20 @@ class Method:
     summary: ClassVar[str] = ""
 
     def solve(self, trial: Trial) -> Outcome:
-        """Solve, check the result is finite, and (if asked) estimate and control the error."""
+        """Solve, check the result is finite, and (if asked) estimate and control the error.
+
+        An error raised inside SciPy on the way (non-finite values it refuses, a failed
+        factorisation) becomes a failed outcome that says so, never a traceback.
+        """
+        try:
+            return self._solve_and_verify(trial)
+        except (ValueError, ArithmeticError, np.linalg.LinAlgError, RuntimeError) as err:
+            text = str(err).strip().rstrip(".") or type(err).__name__
+            status = Status.NON_FINITE if "finite" in text or "nan" in text.lower() else Status.NOT_CONVERGED
+            return Outcome(status, f"{self.name.replace('_', ' ')} stopped: {text}; {status.hint}",
+                           np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float))
+
+    def _solve_and_verify(self, trial: Trial) -> Outcome:
         with np.errstate(all="ignore"):
             outcome = self._checked(self._solve(trial))
             if not (outcome.ok and trial.verify):

@@ -80,10 +80,12 @@ class Collocation(Method):
         f0 = fun(x, y, trial.p) if n_p else fun(x, y)
         if not np.all(np.isfinite(f0)):
             i, j = np.argwhere(~np.isfinite(f0))[0]
+            names = c.system.state_names
+            values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
             return Outcome(
                 Status.NON_FINITE,
-                f"the right-hand side is NaN or inf at the guess: equation of state y{i} at "
-                f"x = {x[j]:.6g}",
+                f"the equations give NaN or inf for the derivative of {names[i]} at x = {x[j]:.6g} with the "
+                f"guess ({values}): {Status.NON_FINITE.hint}",
                 x,
                 y,
                 trial.p,

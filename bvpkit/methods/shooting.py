@@ -44,6 +44,7 @@ _SEGMENT_LOG_GROWTH = math.log(20.0)  # target sensitivity growth per segment (a
 _SPLIT_GROWTH = 1e6  # a segment whose sensitivities grow more than this is split
 _MAX_SEGMENTS = 400
 _BLOWUP = 1e150  # a state this large is a blow-up, not a solution
+_MAX_CALLS = 60_000  # right-hand-side calls per integration (~5000 DOP853 steps): bounds time and memory
 
 
 class _BlowUp(Exception):
@@ -125,7 +126,13 @@ class Shooting(Method):
         if sensitivities:
             start[n:n + n * n] = np.repeat(np.eye(n).reshape(n * n, 1), segments, axis=1)
 
+        calls = [0]
+
         def rhs(tau, z):
+            calls[0] += 1
+            if calls[0] > _MAX_CALLS:
+                raise _BlowUp(float(t0[0] + tau * h[0]), -1, f"the integration needed more than {_MAX_CALLS} "
+                              "evaluations (the step size is collapsing or the problem is too stiff)")
             z = z.reshape(size, segments)
             xs = t0 + tau * h
             ys = z[:n]
@@ -292,6 +299,8 @@ class Shooting(Method):
         mids = 0.5 * (nodes[wide] + nodes[wide + 1])
         spline = hermite(trial.compiled, trial.x, trial.y, trial.p, trial.k)
         states = spline(mids)
+        if not np.all(np.isfinite(states)):  # slopes of a guess outside the equations' domain
+            states = np.array([np.interp(mids, trial.x, row) for row in trial.y])
         starts = np.concatenate([nodes[:-1], mids])
         keep = np.argsort(starts)
         return np.sort(np.concatenate([nodes, mids])), np.concatenate([s, states], axis=1)[:, keep]
