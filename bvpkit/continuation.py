@@ -18,7 +18,6 @@ difference is the reported error).
 
 from __future__ import annotations
 
-import csv
 import math
 import sys
 import time
@@ -34,7 +33,8 @@ from .codegen import compile_system
 from .discrete import CollocationEquations
 from .diagnostics import Attempt, Diagnostics, hermite, residuals
 from .driver import DEFAULT_TOL, solve
-from .errors import MissingExtraError, OptionError, closest
+from ._output import pyplot, write_columns
+from .errors import OptionError, closest
 from .problem import Problem
 from .solution import Solution
 from .status import Status
@@ -115,12 +115,7 @@ class Branch:
         return {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
 
     def to_csv(self, path: str | Path) -> None:
-        columns = self.table()
-        with open(path, "w", newline="") as handle:
-            writer = csv.writer(handle)
-            writer.writerow(columns)
-            for row in zip(*columns.values()):
-                writer.writerow([v if isinstance(v, str) else repr(float(v)) for v in row])
+        write_columns(path, self.table())
 
     def as_dict(self) -> dict[str, Any]:
         outputs = self.outputs
@@ -154,13 +149,7 @@ class Branch:
 
     def plot(self, path: str | Path, output: str | None = None) -> None:
         """Draw one output against the parameter, folds marked (needs the ``plot`` extra)."""
-        try:
-            import matplotlib
-
-            matplotlib.use("Agg")
-            import matplotlib.pyplot as plt
-        except ImportError:
-            raise MissingExtraError('plotting needs matplotlib: pip install "bvpkit[plot]"') from None
+        plt = pyplot()
         output = output or (self._outputs[0] if self._outputs else None)
         if output is None:
             raise OptionError("plot needs an output to draw; give outputs=[...]")

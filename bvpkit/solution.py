@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import csv
 import math
 from pathlib import Path
 from typing import Any
@@ -12,6 +11,7 @@ import sympy as sp
 
 from .codegen import CompiledSystem, compile_expressions
 from .diagnostics import Diagnostics, hermite
+from ._output import write_columns
 from .errors import BvpkitError
 from .reduce import X
 from .status import Status
@@ -145,12 +145,7 @@ class Solution:
 
     def to_csv(self, path: str | Path) -> None:
         """Write :meth:`table` as CSV (one row per mesh node)."""
-        columns = self.table()
-        with open(path, "w", newline="") as handle:
-            writer = csv.writer(handle)
-            writer.writerow(columns)
-            for row in zip(*columns.values()):
-                writer.writerow([repr(float(v)) for v in row])
+        write_columns(path, self.table())
 
     def as_dict(self) -> dict[str, Any]:
         """Plain JSON-ready data: outcome, outputs with errors, parameters, diagnostics."""

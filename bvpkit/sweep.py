@@ -36,7 +36,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import MissingExtraError, OptionError, closest
+from ._output import pyplot
+from .errors import OptionError, closest
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
 #: short enough to spread a grid over the workers.
@@ -191,13 +192,7 @@ class SweepResult:
 
     def plot(self, path: str | Path, output: str | None = None) -> None:
         """Design chart: one curve per value of the slower parameter (needs the ``plot`` extra)."""
-        try:
-            import matplotlib
-
-            matplotlib.use("Agg")
-            import matplotlib.pyplot as plt
-        except ImportError:
-            raise MissingExtraError('plotting needs matplotlib: pip install "bvpkit[plot]"') from None
+        plt = pyplot()
         output = output or self.outputs[0]
         names = list(self.parameters)
         fast = names[0]

@@ -1,0 +1,31 @@
+"""Shared helpers for the tables and pictures that Solution, Branch and SweepResult write."""
+
+from __future__ import annotations
+
+import csv
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+
+def write_columns(path: str | Path, columns: Mapping[str, Any]) -> None:
+    """Write equal-length columns as CSV: a header row, then numbers in full precision (text as is)."""
+    with open(path, "w", newline="") as handle:
+        writer = csv.writer(handle)
+        writer.writerow(columns)
+        for row in zip(*columns.values()):
+            writer.writerow([v if isinstance(v, str) else repr(float(v)) for v in row])
+
+
+def pyplot():  # noqa: ANN201
+    """matplotlib's pyplot on a file-only backend, or a clear error naming the extra to install."""
+    from .errors import MissingExtraError
+
+    try:
+        import matplotlib
+
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+    except ImportError:
+        raise MissingExtraError('plotting needs matplotlib: pip install "bvpkit[plot]"') from None
+    return plt
