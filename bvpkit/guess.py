@@ -131,7 +131,7 @@ def _linear_conditions(system, name: str) -> list:  # noqa: ANN001
         if any(g.free_symbols & every for _, g in gradient):
             continue  # nonlinear in the point values
         terms = [(0 if s in system.ya else 1, system.states[int(s.name[3:])][1], sp.Float(1) * g) for s, g in gradient]
-        found.append((terms, sp.sympify(0) + c.xreplace({s: 0 for s in used})))
+        found.append((terms, sp.S.Zero + c.xreplace({s: 0 for s in used})))
     _LINEAR[key] = found
     return found
 
