@@ -29,3 +29,16 @@ def pyplot():  # noqa: ANN201
     except ImportError:
         raise MissingExtraError('plotting needs matplotlib: pip install "bvpkit[plot]"') from None
     return plt
+
+
+def progress_bar(enabled: bool, total: int):  # noqa: ANN201
+    """A tqdm bar on a terminal when asked and installed (the ``progress`` extra), else None."""
+    import sys
+
+    if not enabled or not sys.stderr.isatty():
+        return None
+    try:
+        from tqdm import tqdm
+    except ImportError:
+        return None  # a convenience only: without the extra, work quietly
+    return tqdm(total=total, unit="point", leave=False)

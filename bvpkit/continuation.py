@@ -19,7 +19,6 @@ difference is the reported error).
 from __future__ import annotations
 
 import math
-import sys
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -33,7 +32,7 @@ from .codegen import compile_system
 from .discrete import CollocationEquations
 from .diagnostics import Attempt, Diagnostics, hermite, residuals
 from .driver import DEFAULT_TOL, solve
-from ._output import pyplot, write_columns
+from ._output import progress_bar, pyplot, write_columns
 from .errors import OptionError, closest
 from .problem import Problem
 from .solution import Solution
@@ -265,7 +264,7 @@ class _Tracer:
         self.index = list(problem.system.constants).index(name)
         self.k_free = np.array([problem.constants[c] for c in self.free.system.constants], float)
         self.lam_at = list(self.free.system.parameters).index(name)
-        self.bar = _progress_bar(progress, max_points)
+        self.bar = progress_bar(progress, max_points)
         self.fixed, self.verify = False, True
 
     # -- helpers ------------------------------------------------------------------------
@@ -506,13 +505,3 @@ def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: flo
 def _on_mesh(sol: Solution, x: np.ndarray, compiled) -> Any:  # noqa: ANN001
     y = sol._states(np.clip(x, sol.x[0], sol.x[-1]))
     return type("OnMesh", (), {"y": y, "_p": sol._p})()
-
-
-def _progress_bar(enabled: bool, total: int):  # noqa: ANN202
-    if not enabled or not sys.stderr.isatty():
-        return None
-    try:
-        from tqdm import tqdm
-    except ImportError:
-        return None  # the progress bar is a convenience: without the extra, trace quietly
-    return tqdm(total=total, unit="point", leave=False)

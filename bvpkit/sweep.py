@@ -27,7 +27,6 @@ import json
 import math
 import os
 import sqlite3
-import sys
 import time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -36,7 +35,7 @@ from typing import Any
 
 import numpy as np
 
-from ._output import pyplot
+from ._output import progress_bar, pyplot
 from .errors import OptionError, closest
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
@@ -333,7 +332,7 @@ def sweep(
 
 def _run(units, db, problem_key, executor, workers, progress, done) -> int:  # noqa: ANN001
     """Run the units, writing each to the store as it finishes; return the points solved."""
-    bar = _bar(progress, sum(len(u.fast_values) for u in units))
+    bar = progress_bar(progress, sum(len(u.fast_values) for u in units))
     solved = 0
     owned = None
     try:
@@ -363,13 +362,3 @@ def _run(units, db, problem_key, executor, workers, progress, done) -> int:  # n
         if bar is not None:
             bar.close()
     return solved
-
-
-def _bar(enabled: bool, total: int):  # noqa: ANN202
-    if not enabled or not sys.stderr.isatty():
-        return None
-    try:
-        from tqdm import tqdm
-    except ImportError:
-        return None
-    return tqdm(total=total, unit="point", leave=False)
