@@ -29,7 +29,7 @@ import numpy as np
 
 from . import guess as _guess
 from .codegen import compile_system
-from .discrete import CollocationEquations
+from .discrete import CollocationEquations, node_weights
 from .diagnostics import Attempt, Diagnostics, hermite, residuals
 from .driver import DEFAULT_TOL, solve
 from ._output import progress_bar, pyplot, write_columns
@@ -272,9 +272,10 @@ class _Tracer:
         return solve(self.problem.with_constants(**{self.name: value}), tol=self.tol, method=self.method,
                      guess=guess, verify=self.verify)
 
-    def _z(self, sol: Solution, value: float) -> np.ndarray:
-        p = np.insert(sol._p, self.lam_at, value)
-        return np.concatenate([sol.y.T.ravel(), p])
+    def _z(self, sol: Solution, value: float, x: np.ndarray | None = None) -> np.ndarray:
+        """The unknowns of the collocation equations: states on ``x`` (default its own mesh), then p."""
+        y = sol.y if x is None else sol._states(np.clip(x, sol.x[0], sol.x[-1]))
+        return np.concatenate([y.T.ravel(), np.insert(sol._p, self.lam_at, value)])
 
     def _solution(self, disc: CollocationEquations, z: np.ndarray, iterations: int, seconds: float) -> Solution:
         y, pz = disc.split(z)
@@ -387,8 +388,7 @@ class _Tracer:
         if sol.x[0] != last.x[0] or sol.x[-1] != last.x[-1]:
             return False
         dy = sol._states(last.x) - last.y
-        disc = CollocationEquations(self.free, last.x, self.k_free)
-        w = disc.weights[: disc.n * disc.m].reshape(disc.m, disc.n).T
+        w = node_weights(last.x)
         dlam = target - self.branch.parameter[-1]
         norm = math.sqrt(float(np.sum(w * dy * dy)) + float(np.sum((sol._p - last._p) ** 2)) + dlam**2)
         return norm > 0 and abs(dlam) / norm < _TURNING
@@ -407,7 +407,7 @@ class _Tracer:
         z = self._z(last, b.parameter[-1])
         if len(b.solutions) >= 2:
             prev = b.solutions[-2]
-            zp = self._z(_on_mesh(prev, x, self.compiled), b.parameter[-2])
+            zp = self._z(prev, b.parameter[-2], x)
             t = z - zp
         else:
             t = np.zeros_like(z)
@@ -500,8 +500,3 @@ def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: flo
     except (ArithmeticError, ValueError, RuntimeError):
         return None
     return cache.get(s, disc.correct(z0 + s * t0, t0, tol * 1e-2)[0])
-
-
-def _on_mesh(sol: Solution, x: np.ndarray, compiled) -> Any:  # noqa: ANN001
-    y = sol._states(np.clip(x, sol.x[0], sol.x[-1]))
-    return type("OnMesh", (), {"y": y, "_p": sol._p})()

@@ -19,6 +19,16 @@ from scipy.sparse.linalg import splu
 _MAX_NEWTON = 12
 
 
+def node_weights(x: np.ndarray) -> np.ndarray:
+    """Trapezoidal weights of the mesh nodes, divided by the length: sums over the nodes
+    approximate mean values, so norms of states do not grow with the mesh."""
+    h = np.diff(x)
+    w = np.zeros(x.size)
+    w[:-1] += 0.5 * h
+    w[1:] += 0.5 * h
+    return w / ((x[-1] - x[0]) or 1.0)
+
+
 class CollocationEquations:
     """The collocation equations of ``solve_bvp`` on a fixed mesh, the parameter an unknown.
 
@@ -33,11 +43,7 @@ class CollocationEquations:
         self.n_p = compiled.n_parameters
         self.h = np.diff(x)
         self.mid = x[:-1] + 0.5 * self.h
-        scale = (x[-1] - x[0]) or 1.0
-        w = np.zeros(self.m)
-        w[:-1] += 0.5 * self.h
-        w[1:] += 0.5 * self.h
-        self.weights = np.concatenate([np.repeat(w / scale, self.n), np.ones(self.n_p)])
+        self.weights = np.concatenate([np.repeat(node_weights(x), self.n), np.ones(self.n_p)])
 
     def row_scale(self) -> np.ndarray:
         """Row factors putting each interval's rows in derivative units (1/h); conditions as they are."""
