@@ -97,9 +97,9 @@ def test_free_end_found_by_rescaling():
                        unknown_parameters={"s": 1.0})
     sol = bvpkit.solve(p, tol=1e-9)
     assert sol.success, sol.message
-    assert sol.parameters["s"] == pytest.approx(math.pi / 6, rel=1e-8)
+    assert sol.parameters["s"] == pytest.approx(math.pi / 6, rel=1e-8)  # analytic: sin(s) = 1/2
     assert sol.x[-1] == pytest.approx(sol.parameters["s"])  # the mesh is in x, not in [0, 1]
-    assert sol.evaluate("y'(s)") == pytest.approx(math.cos(math.pi / 6), rel=1e-7)
+    assert sol.evaluate("y'(s)") == pytest.approx(math.cos(math.pi / 6), rel=1e-7)  # analytic: y' = cos x
 
 
 def test_fin_length_for_a_tip_temperature_free_end():
@@ -186,7 +186,7 @@ def test_bad_problem_classes_are_explained(kwargs, message):
 def test_mode_mismatch_is_reported():
     p = bvpkit.Problem(["y'' + lam*y = 0"], ["y(0) = 0", "y(pi) = 0"], (0, "pi"), eigenvalue="lam", mode=2)
     sol = bvpkit.solve(p, guess={"y": "sin(3*x)"}, tol=1e-8)  # a guess with the zeros of mode 3
-    if sol.parameters["lam"] == pytest.approx(9.0, rel=1e-6):
+    if sol.parameters["lam"] == pytest.approx(9.0, rel=1e-6):  # analytic: lam_3 = 9, lam_2 = 4
         assert sol.status is bvpkit.Status.OTHER_MODE and "mode 3" in sol.message
     else:
         assert sol.success and sol.parameters["lam"] == pytest.approx(4.0, rel=1e-6)

@@ -116,7 +116,7 @@ def test_cli_exit_codes_and_one_line_errors(tmp_path, capsys):
 def test_cli_json_is_valid_on_success_and_failure(tmp_path, capsys):
     assert main(["solve", _write(tmp_path, GOOD), "--json"]) == 0
     data = json.loads(capsys.readouterr().out)
-    assert data["success"] and data["outputs"]["end_value"] == pytest.approx(0.8414709848, rel=1e-8)
+    assert data["success"] and data["outputs"]["end_value"] == pytest.approx(0.8414709848, rel=1e-8)  # analytic: sin(1)
     assert main(["solve", str(tmp_path / "nothing.toml"), "--json"]) == 2
     data = json.loads(capsys.readouterr().out)
     assert data == {"success": False, "status": "bad_input", "message": data["message"]}
