@@ -349,11 +349,17 @@ class Shooting(Method):
         segments = nodes.size - 1
         h = np.diff(nodes)
 
+        # Each segment's end misses the next node state by the continuity residual; spread
+        # that miss linearly over the segment so the output is continuous at the nodes (a
+        # jump there, seen across a tiny interval, would spoil the interpolant's slope).
+        gap = np.zeros((n, segments))
+        gap[:, :-1] = s[:, 1:] - flow.ends[:, :-1]
+
         def states(points: np.ndarray) -> np.ndarray:
             j = np.clip(np.searchsorted(nodes, points, side="right") - 1, 0, segments - 1)
             tau = np.clip((points - nodes[j]) / h[j], 0.0, 1.0)
             values = flow.dense(tau).reshape(n, segments, tau.size)
-            return values[:, j, np.arange(tau.size)]
+            return values[:, j, np.arange(tau.size)] + tau * gap[:, j]
 
         taus = np.unique(np.concatenate([np.linspace(0, 1, 5), flow.dense.ts]))
         # segment points, clipped (t_j + 1 * h_j may round past the end), ends exact
