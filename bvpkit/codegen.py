@@ -117,6 +117,10 @@ class CompiledSystem:
     bc_jac : callable ``(ya, yb, p, k) -> (dbc/dya, dbc/dyb, dbc/dp)``
     jac_pattern : ndarray of bool, shape (n, n)
         Which entries of ``jac`` can be non-zero.
+    bc_sides : ndarray of int, shape (n + n_p,)
+        Per boundary condition, which states it can involve: 0 those at the left end only,
+        1 those at the right end only, 2 both ends or the unknown parameters. Separated
+        conditions let collocation solve its Newton steps with a banded LU.
     source : str
         The generated Python source (what a disk cache stores).
     """
@@ -129,6 +133,7 @@ class CompiledSystem:
     bc_jac: Callable
     jac_pattern: np.ndarray
     source: str
+    bc_sides: np.ndarray = None  # type: ignore[assignment]
     physical: Callable | None = None
     singular_matrix: Callable | None = None
     domain_ends: Callable | None = None
@@ -172,6 +177,18 @@ class CompiledSystem:
             else:
                 out[:, at] = limit
         return out
+
+
+def _bc_sides(system: FirstOrderSystem) -> np.ndarray:
+    sides = []
+    for e in system.conditions:
+        used = e.free_symbols
+        left, right = bool(used & set(system.ya)), bool(used & set(system.yb))
+        if used & set(system.p) or left == right:
+            sides.append(2)
+        else:
+            sides.append(0 if left else 1)
+    return np.array(sides, dtype=int)
 
 
 def _system_source(system: FirstOrderSystem) -> tuple[str, np.ndarray]:
@@ -247,8 +264,8 @@ def _cache_file(key: str):  # noqa: ANN202
     return None if folder is None else folder / f"system-{key}-{__version__}.json"
 
 
-def _read_cache(key: str) -> tuple[str, np.ndarray] | None:
-    """The cached source and Jacobian pattern, or None (missing, unreadable or corrupted)."""
+def _read_cache(key: str) -> tuple[str, np.ndarray, np.ndarray] | None:
+    """The cached source, Jacobian pattern and condition sides, or None (missing, unreadable or corrupted)."""
     import hashlib
     import json
 
@@ -257,15 +274,15 @@ def _read_cache(key: str) -> tuple[str, np.ndarray] | None:
         return None
     try:
         data = json.loads(path.read_text())
-        source, pattern, digest = data["source"], data["pattern"], data["sha256"]
+        source, pattern, sides, digest = data["source"], data["pattern"], data["sides"], data["sha256"]
         if hashlib.sha256(source.encode()).hexdigest() != digest or data["key"] != key:
             return None
-        return source, np.array(pattern, dtype=bool)
+        return source, np.array(pattern, dtype=bool), np.array(sides, dtype=int)
     except (OSError, ValueError, KeyError, TypeError):
         return None  # a corrupted or half-written file is regenerated, never trusted
 
 
-def _write_cache(key: str, source: str, pattern: np.ndarray) -> None:
+def _write_cache(key: str, source: str, pattern: np.ndarray, sides: np.ndarray) -> None:
     """Write atomically: a temporary file in the same folder, then os.replace (safe for concurrent writers)."""
     import hashlib
     import json
@@ -275,7 +292,7 @@ def _write_cache(key: str, source: str, pattern: np.ndarray) -> None:
     path = _cache_file(key)
     if path is None:
         return
-    data = {"key": key, "source": source, "pattern": pattern.tolist(),
+    data = {"key": key, "source": source, "pattern": pattern.tolist(), "sides": sides.tolist(),
             "sha256": hashlib.sha256(source.encode()).hexdigest()}
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
@@ -300,10 +317,11 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
         return cached
     stored = _read_cache(key)
     if stored is not None:
-        source, pattern = stored
+        source, pattern, sides = stored
     else:
         source, pattern = _system_source(system)
-        _write_cache(key, source, pattern)
+        sides = _bc_sides(system)
+        _write_cache(key, source, pattern, sides)
     f = _build(source, ["rhs", "jac", "pjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p",
                         "physical", "singular_matrix", "domain_ends"])
 
@@ -319,6 +337,7 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
         bc_jac=bc_jac,
         jac_pattern=pattern,
         source=source,
+        bc_sides=sides,
         physical=f["physical"],
         singular_matrix=f["singular_matrix"],
         domain_ends=f["domain_ends"],

@@ -4,8 +4,15 @@
 ``y_i+1 - y_i - h/6 (f_i + 4 f_mid + f_i+1) = 0`` with
 ``y_mid = (y_i + y_i+1)/2 - h/8 (f_i+1 - f_i)``, then the boundary conditions. The Jacobian
 is assembled from codegen's exact ``df/dy`` and ``df/dp`` (the block formulas are those of
-SciPy's own ``construct_global_jac``). Used for the collocation error estimate (a Newton step
-on the halved mesh) and for pseudo-arclength continuation.
+SciPy's own ``construct_global_jac``, with batched matrix products). Used by bvpkit's
+collocation solver, its error estimate (Newton on the halved mesh) and pseudo-arclength
+continuation.
+
+Linear algebra: when every boundary condition involves one end only and there are no
+unknown parameters, the rows are ordered left conditions, interval rows, right conditions,
+which makes the Newton matrix banded (``n - 1 + k_left`` sub- and ``2n - 1 - k_left``
+super-diagonals); it is factored with LAPACK's banded LU (``dgbtrf``), several times faster
+than a general sparse LU of the same matrix. Otherwise a sparse LU (SuperLU) is used.
 """
 
 from __future__ import annotations
@@ -29,6 +36,34 @@ def node_weights(x: np.ndarray) -> np.ndarray:
     return w / ((x[-1] - x[0]) or 1.0)
 
 
+class SingularMatrix(RuntimeError):
+    """The Newton matrix is exactly singular (or holds NaN or inf)."""
+
+
+class Factored:
+    """An LU of the Newton matrix with ``solve(b, trans="N" | "T")``, banded or sparse.
+
+    ``rows`` is the row order of the banded form (None for the sparse LU).
+    """
+
+    def __init__(self, size: int, lu=None, band=None, rows=None):  # noqa: ANN001
+        self.size, self._lu, self._band, self._rows = size, lu, band, rows
+
+    def solve(self, b: np.ndarray, trans: str = "N") -> np.ndarray:
+        if self._lu is not None:
+            return self._lu.solve(b, trans=trans)
+        from scipy.linalg.lapack import dgbtrs
+
+        lu, piv, kl, ku = self._band
+        if trans == "N":
+            x, info = dgbtrs(lu, kl, ku, b[self._rows], piv)
+            return x
+        u, info = dgbtrs(lu, kl, ku, b, piv, trans=1)
+        out = np.empty_like(u)
+        out[self._rows] = u
+        return out
+
+
 class CollocationEquations:
     """The collocation equations of ``solve_bvp`` on a fixed mesh, the parameter an unknown.
 
@@ -43,12 +78,24 @@ class CollocationEquations:
         self.n_p = compiled.n_parameters
         self.h = np.diff(x)
         self.mid = x[:-1] + 0.5 * self.h
-        self.weights = np.concatenate([np.repeat(node_weights(x), self.n), np.ones(self.n_p)])
+        self._weights = None
+        self._pattern = None
+        sides = compiled.bc_sides
+        if sides is None:
+            sides = np.full(compiled.bc(np.zeros(self.n), np.zeros(self.n), np.zeros(self.n_p), k).size, 2)
+        self.n_bc = sides.size
+        self.banded = bool(self.n_p == 0 and sides is not None and np.all(sides < 2))
+        self.sides = sides
+
+    @property
+    def weights(self) -> np.ndarray:
+        if self._weights is None:
+            self._weights = np.concatenate([np.repeat(node_weights(self.x), self.n), np.ones(self.n_p)])
+        return self._weights
 
     def row_scale(self) -> np.ndarray:
         """Row factors putting each interval's rows in derivative units (1/h); conditions as they are."""
-        nb = self.c.bc(np.zeros(self.n), np.zeros(self.n), np.zeros(self.n_p), self.k).size
-        return np.concatenate([np.repeat(1.0 / self.h, self.n), np.ones(nb)])
+        return np.concatenate([np.repeat(1.0 / self.h, self.n), np.ones(self.n_bc)])
 
     def split(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return z[: self.n * self.m].reshape(self.m, self.n).T, z[self.n * self.m:]
@@ -56,49 +103,149 @@ class CollocationEquations:
     def join(self, y: np.ndarray, p: np.ndarray) -> np.ndarray:
         return np.concatenate([y.T.ravel(), p])
 
-    def residual(self, z: np.ndarray) -> np.ndarray:
-        y, p = self.split(z)
+    def parts(self, y: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Interval residuals ``(n, m-1)``, boundary residuals, and ``f``, ``y_mid``, ``f_mid``."""
         c, k, h = self.c, self.k, self.h
         f = c.rhs(self.x, y, p, k)
         ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
         fm = c.rhs(self.mid, ym, p, k)
         col = y[:, 1:] - y[:, :-1] - h / 6 * (f[:, :-1] + f[:, 1:] + 4 * fm)
-        return np.concatenate([col.T.ravel(), c.bc(y[:, 0], y[:, -1], p, k)])
+        return col, c.bc(y[:, 0], y[:, -1], p, k), f, ym, fm
 
-    def jacobian(self, z: np.ndarray) -> sparse.csc_matrix:
+    def residual(self, z: np.ndarray) -> np.ndarray:
         y, p = self.split(z)
-        c, k, h, n, m, n_p = self.c, self.k, self.h, self.n, self.m, self.n_p
-        f = c.rhs(self.x, y, p, k)
-        ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
+        col, bc, _, _, _ = self.parts(y, p)
+        return np.concatenate([col.T.ravel(), bc])
+
+    def _blocks(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None):  # noqa: ANN202
+        """``d col_i / d y_i``, ``d col_i / d y_i+1`` (each ``(m-1, n, n)``), the parameter
+        block ``(m-1, n, n_p)`` or None, and the condition Jacobians."""
+        c, k, h, n = self.c, self.k, self.h, self.n
+        if ym is None:
+            f = c.rhs(self.x, y, p, k)
+            ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
         J = np.moveaxis(c.jac(self.x, y, p, k), -1, 0)  # (m, n, n)
         Jm = np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0)  # (m-1, n, n)
-        eye = np.eye(n)
         hh = h[:, None, None]
-        left = -eye - hh / 6 * (J[:-1] + 4 * Jm @ (0.5 * eye + hh / 8 * J[:-1]))
-        right = eye - hh / 6 * (J[1:] + 4 * Jm @ (0.5 * eye - hh / 8 * J[1:]))
-        i = np.arange(m - 1)[:, None, None]
-        r = np.arange(n)
-        rows = (i * n + r[None, :, None]).repeat(n, axis=2)
-        cols = (i * n + r[None, None, :]).repeat(n, axis=1)
-        R, C, V = [rows.ravel(), rows.ravel()], [cols.ravel(), (cols + n).ravel()], [left.ravel(), right.ravel()]
-        if n_p:
+        # left = -I - h/6 (J_i + 4 Jm (I/2 + h/8 J_i)), right = I - h/6 (J_i+1 + 4 Jm (I/2 - h/8 J_i+1))
+        JmJl = Jm @ J[:-1]
+        JmJr = Jm @ J[1:]
+        left = -(hh / 6) * (J[:-1] + 2 * Jm + (hh / 2) * JmJl)
+        right = -(hh / 6) * (J[1:] + 2 * Jm - (hh / 2) * JmJr)
+        diagonal = np.arange(n)
+        left[:, diagonal, diagonal] -= 1.0
+        right[:, diagonal, diagonal] += 1.0
+        block = None
+        if self.n_p:
             P = np.moveaxis(c.pjac(self.x, y, p, k), -1, 0)  # (m, n, n_p)
             Pm = np.moveaxis(c.pjac(self.mid, ym, p, k), -1, 0)
             dym = -hh / 8 * (P[1:] - P[:-1])
             block = -hh / 6 * (P[:-1] + P[1:] + 4 * (Pm + Jm @ dym))
-            prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
-            pcol = np.broadcast_to(n * m + np.arange(n_p)[None, None, :], prow.shape)
-            R.append(prow.ravel()); C.append(pcol.ravel()); V.append(block.ravel())  # noqa: E702
-        a, b, dp = c.bc_jac(y[:, 0], y[:, -1], p, k)
-        base = (m - 1) * n
-        nb = a.shape[0]
-        for block, offset, width in ((a, 0, n), (b, (m - 1) * n, n), (dp, n * m, n_p)):
-            if width == 0:
-                continue
-            rr, cc = np.meshgrid(base + np.arange(nb), offset + np.arange(width), indexing="ij")
-            R.append(rr.ravel()); C.append(cc.ravel()); V.append(np.asarray(block).ravel())  # noqa: E702
-        shape = (base + nb, n * m + n_p)
-        return sparse.csc_matrix((np.concatenate(V), (np.concatenate(R), np.concatenate(C))), shape=shape)
+        return left, right, block, c.bc_jac(y[:, 0], y[:, -1], p, k)
+
+    def _sparse_pattern(self):  # noqa: ANN202
+        if self._pattern is None:
+            n, m, n_p = self.n, self.m, self.n_p
+            i = np.arange(m - 1)[:, None, None]
+            r = np.arange(n)
+            rows = (i * n + r[None, :, None]).repeat(n, axis=2).ravel()
+            cols = (i * n + r[None, None, :]).repeat(n, axis=1).ravel()
+            R, C = [rows, rows], [cols, cols + n]
+            if n_p:
+                prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
+                R.append(prow.ravel())
+                C.append(np.broadcast_to(n * m + np.arange(n_p)[None, None, :], prow.shape).ravel())
+            base, nb = (m - 1) * n, self.n_bc
+            for offset, width in ((0, n), ((m - 1) * n, n), (n * m, n_p)):
+                if width:
+                    rr, cc = np.meshgrid(base + np.arange(nb), offset + np.arange(width), indexing="ij")
+                    R.append(rr.ravel())
+                    C.append(cc.ravel())
+            self._pattern = (np.concatenate(R), np.concatenate(C))
+        return self._pattern
+
+    def jacobian(self, z: np.ndarray, scale: np.ndarray | None = None) -> sparse.csc_matrix:
+        y, p = self.split(z)
+        return self._sparse(self._blocks(y, p), scale)
+
+    def _sparse(self, blocks, scale: np.ndarray | None) -> sparse.csc_matrix:  # noqa: ANN001
+        left, right, pblock, (a, b, dp) = blocks
+        values = [left.ravel(), right.ravel()]
+        if pblock is not None:
+            values.append(pblock.ravel())
+        values += [np.asarray(a).ravel(), np.asarray(b).ravel()]
+        if self.n_p:
+            values.append(np.asarray(dp).ravel())
+        rows, cols = self._pattern_rows_cols()
+        v = np.concatenate(values)
+        if scale is not None:
+            v = v * scale[rows]
+        shape = ((self.m - 1) * self.n + self.n_bc, self.n * self.m + self.n_p)
+        return sparse.csc_matrix((v, (rows, cols)), shape=shape)
+
+    def _pattern_rows_cols(self):  # noqa: ANN202
+        return self._sparse_pattern()
+
+    def _band_layout(self):  # noqa: ANN202
+        """Row order, positions in LAPACK's banded storage and the band widths (separated conditions)."""
+        if getattr(self, "_layout", None) is None:
+            n, m = self.n, self.m
+            size = n * m
+            left_rows = np.flatnonzero(self.sides == 0)
+            right_rows = np.flatnonzero(self.sides == 1)
+            base = (m - 1) * n
+            # banded row order: left conditions, interval rows, right conditions
+            order = np.concatenate([base + left_rows, np.arange(base), base + right_rows])
+            position = np.empty(size, dtype=int)
+            position[order] = np.arange(size)
+            i = np.arange(m - 1)[:, None, None]
+            r = np.arange(n)
+            rows = (i * n + r[None, :, None]).repeat(n, axis=2).ravel()
+            cols = (i * n + r[None, None, :]).repeat(n, axis=1).ravel()
+            ra, ca = np.meshgrid(base + left_rows, r, indexing="ij")
+            rb, cb = np.meshgrid(base + right_rows, base + r, indexing="ij")
+            rows = np.concatenate([rows, rows, ra.ravel(), rb.ravel()])
+            cols = np.concatenate([cols, cols + n, ca.ravel(), cb.ravel()])
+            brow = position[rows]
+            kl = int(np.max(brow - cols))
+            ku = int(np.max(cols - brow))
+            ldab = 2 * kl + ku + 1
+            flat = (kl + ku + brow - cols) * size + cols
+            self._layout = (order, flat, rows, kl, ku, ldab, left_rows, right_rows)
+        return self._layout
+
+    def factor(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None,
+               scale: np.ndarray | None = None) -> Factored:
+        """LU of the Newton matrix at ``(y, p)`` (rows multiplied by ``scale``, if given).
+
+        Raises :class:`SingularMatrix` when it is singular or not finite.
+        """
+        blocks = self._blocks(y, p, ym)
+        size = self.n * self.m + self.n_p
+        if not self.banded:
+            matrix = self._sparse(blocks, scale)
+            if not np.all(np.isfinite(matrix.data)):
+                raise SingularMatrix("the collocation matrix holds NaN or inf")
+            try:
+                return Factored(size, lu=splu(matrix))
+            except RuntimeError as err:
+                raise SingularMatrix(str(err)) from None
+        from scipy.linalg.lapack import dgbtrf
+
+        order, flat, rows, kl, ku, ldab, left_rows, right_rows = self._band_layout()
+        left, right, _, (a, b, _) = blocks
+        v = np.concatenate([left.ravel(), right.ravel(), np.asarray(a)[left_rows].ravel(),
+                            np.asarray(b)[right_rows].ravel()])
+        if scale is not None:
+            v = v * scale[rows]
+        if not np.all(np.isfinite(v)):
+            raise SingularMatrix("the collocation matrix holds NaN or inf")
+        ab = np.zeros(ldab * size)
+        ab[flat] = v  # the (row, column) pairs are distinct
+        lu, piv, info = dgbtrf(ab.reshape(ldab, size), kl, ku, overwrite_ab=1)
+        if info > 0:
+            raise SingularMatrix("the collocation matrix is singular")
+        return Factored(size, band=(lu, piv, kl, ku), rows=order)
 
     def tangent(self, z: np.ndarray, previous: np.ndarray) -> np.ndarray:
         """Unit tangent (weighted norm) of the solution curve at ``z``, oriented like ``previous``."""

@@ -54,7 +54,7 @@ def test_a_corrupted_cache_file_is_regenerated(cache, damage):
 def test_concurrent_writers_leave_one_valid_file(cache):
     system = _problem().system
     source, pattern = codegen._system_source(system)
-    threads = [threading.Thread(target=codegen._write_cache, args=(system.key(), source, pattern)) for _ in range(8)]
+    threads = [threading.Thread(target=codegen._write_cache, args=(system.key(), source, pattern, codegen._bc_sides(system))) for _ in range(8)]
     for t in threads:
         t.start()
     for t in threads:

@@ -1,12 +1,18 @@
-"""Collocation: SciPy's ``solve_bvp`` with the exact Jacobians from codegen.
+"""Collocation: 4th-order Lobatto IIIA collocation with residual control, exact Jacobians.
 
-``solve_bvp`` is a 4th-order collocation method (3-stage Lobatto IIIA, a cubic C1 spline
-solution) with residual control and mesh refinement (Kierzenka and Shampine, 2001, ACM
-TOMS 27, 299-316). bvpkit supplies the exact Jacobians ``df/dy``, ``df/dp`` and those of
-the boundary conditions, so no finite differences are taken.
+The method is that of SciPy's ``solve_bvp`` (3-stage Lobatto IIIA, a C1 cubic solution,
+control of the relative residual by a 5-point Lobatto quadrature on each interval, nodes
+added where it is too large; Kierzenka and Shampine, 2001, ACM TOMS 27, 299-316), run on
+bvpkit's own equations (``discrete.py``): the exact Jacobians ``df/dy``, ``df/dp`` from
+codegen, the blocks formed with batched matrix products, and a banded LU when the
+boundary conditions are separated. The Newton iteration, its Armijo line search, the reuse
+of the Jacobian after full steps and the stopping rule follow ``solve_bvp``, so a
+tolerance means the same here as there. Problems with a term singular at the left end go
+through ``solve_bvp`` itself (with the exact Jacobians), which treats that term.
 
-Error estimate: the final mesh is halved and the problem solved again from the solution;
-with a 4th-order method the difference is close to the error of the coarse solution.
+Error estimate: the final mesh is halved and the collocation equations solved there from
+the solution (one LU, a few chord steps); with a 4th-order method the difference is close
+to the error of the coarse solution.
 """
 
 from __future__ import annotations
@@ -14,18 +20,19 @@ from __future__ import annotations
 import dataclasses
 
 import numpy as np
-from scipy.integrate import solve_bvp
 
-import scipy.sparse as sparse
-from scipy.sparse.linalg import splu
-
-from ..diagnostics import hermite, stability_constant
-from ..discrete import CollocationEquations
+from ..diagnostics import Hermite, hermite, stability_constant
+from ..discrete import CollocationEquations, SingularMatrix
 from ..status import Status
 from .base import Method, Outcome, Trial
 
-_REFINE_STEPS = 3  # Newton steps on the halved mesh; one or two reach it from the coarse solution
+_REFINE_STEPS = 6  # chord steps on the halved mesh; two or three reach it from the coarse solution
+_ROUNDS = 10  # mesh refinements (as solve_bvp)
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
+# Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
+_T = np.array([0.5 - 0.5 * np.sqrt(3 / 7), 0.5 + 0.5 * np.sqrt(3 / 7)])
+_H = np.array([2 * _T**3 - 3 * _T**2 + 1, _T**3 - 2 * _T**2 + _T, -2 * _T**3 + 3 * _T**2, _T**3 - _T**2])
+_DH = np.array([6 * _T**2 - 6 * _T, 3 * _T**2 - 4 * _T + 1, -6 * _T**2 + 6 * _T, 3 * _T**2 - 2 * _T])
 
 
 def _trouble(x: np.ndarray, rms: np.ndarray | None) -> str:
@@ -36,11 +43,147 @@ def _trouble(x: np.ndarray, rms: np.ndarray | None) -> str:
     return f" the residual is largest near x = {0.5 * (x[i] + x[i + 1]):.4g} (a thin layer or steep front?);"
 
 
+def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):  # noqa: ANN202
+    """Damped Newton on the collocation equations of one mesh (the iteration of ``solve_bvp``).
+
+    Returns ``(y, p, iterations, parts)`` with ``parts`` the residual pieces at the result;
+    raises :class:`SingularMatrix` when a Newton matrix is singular.
+    """
+    n, m = eq.n, eq.m
+    tol_r = 2 / 3 * eq.h * 5e-2 * tol  # interval residuals 1.5 orders below the residual tolerance
+    sigma, tau, trials = 0.2, 0.5, 4
+    parts = eq.parts(y, p)
+    res = np.concatenate([parts[0].T.ravel(), parts[1]])
+    recompute, njev, iteration = True, 0, 0
+    for iteration in range(1, 9):
+        if recompute:
+            lu = eq.factor(y, p, parts[3])
+            njev += 1
+            step = lu.solve(res)
+            cost = float(step @ step)
+        y_step, p_step = step[: n * m].reshape(m, n).T, step[n * m:]
+        alpha = 1.0
+        for trial in range(trials + 1):
+            y_new, p_new = y - alpha * y_step, p - alpha * p_step
+            parts = eq.parts(y_new, p_new)
+            res = np.concatenate([parts[0].T.ravel(), parts[1]])
+            step_new = lu.solve(res)
+            cost_new = float(step_new @ step_new)
+            if cost_new < (1 - 2 * alpha * sigma) * cost:
+                break
+            if trial < trials:
+                alpha *= tau
+        y, p = y_new, p_new
+        if njev == 4 or not np.isfinite(cost_new):
+            break
+        col, bc, _, _, fm = parts
+        if np.all(np.abs(col) < tol_r * (1 + np.abs(fm))) and np.all(np.abs(bc) < tol):
+            break
+        if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp and BVP_SOLVER do)
+            step, cost, recompute = step_new, cost_new, False
+        else:
+            recompute = True
+    return y, p, iteration, parts
+
+
+def _rms_residuals(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts) -> np.ndarray:  # noqa: ANN001
+    """RMS over each interval of the relative residual ``|S' - f(x, S)| / (1 + |f|)`` of the
+    cubic ``S``, by 5-point Lobatto quadrature (the ends are exact; the middle is ``1.5 col / h``)."""
+    col, _, f, _, fm = parts
+    h = eq.h
+    r_mid = np.sum((1.5 * col / h / (1 + np.abs(fm))) ** 2, axis=0)
+    y0, y1, f0, f1 = y[:, :-1], y[:, 1:], f[:, :-1], f[:, 1:]
+    total = 32 / 45 * r_mid
+    for j in range(2):
+        xs = eq.x[:-1] + _T[j] * h
+        ys = _H[0, j] * y0 + _H[1, j] * h * f0 + _H[2, j] * y1 + _H[3, j] * h * f1
+        ds = (_DH[0, j] * y0 + _DH[2, j] * y1) / h + _DH[1, j] * f0 + _DH[3, j] * f1
+        fs = eq.c.rhs(xs, ys, p, eq.k)
+        total = total + 49 / 90 * np.sum(((ds - fs) / (1 + np.abs(fs))) ** 2, axis=0)
+    return np.sqrt(0.5 * total)
+
+
 class Collocation(Method):
     name = "collocation"
-    summary = "4th-order collocation with mesh refinement (SciPy solve_bvp, exact Jacobians)"
+    summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
 
     def _solve(self, trial: Trial) -> Outcome:
+        c, k = trial.compiled, trial.k
+        x, y = np.asarray(trial.x, float), np.asarray(trial.y, float)
+        p = np.asarray(trial.p, float)
+        if x.size < 2 or not np.all(np.diff(x) > 0):
+            return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x, y, p)
+        if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
+            return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
+        f0 = c.rhs(x, y, p, k)
+        if not np.all(np.isfinite(f0)):
+            i, j = np.argwhere(~np.isfinite(f0))[0]
+            names = c.system.state_names
+            values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
+            return Outcome(
+                Status.NON_FINITE,
+                f"the equations give NaN or inf for the derivative of {names[i]} at x = {x[j]:.6g} with the "
+                f"guess ({values}): {Status.NON_FINITE.hint}",
+                x,
+                y,
+                p,
+            )
+        if trial.singular is not None:
+            return self._solve_singular(trial, x, y, p)
+        return self._lobatto(trial, x, y, p)
+
+    def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
+        tol = max(trial.tol, 1e-13)
+        iterations, rms, code = 0, None, 3
+        for _ in range(_ROUNDS):
+            eq = CollocationEquations(trial.compiled, x, trial.k)
+            try:
+                y, p, used, parts = _newton(eq, y, p, tol)
+            except SingularMatrix:
+                code = 2
+                break
+            iterations += used
+            if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
+                return Outcome(Status.NON_FINITE, "Newton's method ran into NaN or inf; " + Status.NON_FINITE.hint,
+                               x, y, p, iterations=iterations)
+            rms = _rms_residuals(eq, y, p, parts)
+            if not np.all(np.isfinite(rms)):
+                return Outcome(Status.NON_FINITE, "the residual holds NaN or inf; " + Status.NON_FINITE.hint,
+                               x, y, p, iterations=iterations)
+            one = np.flatnonzero((rms > tol) & (rms < 100 * tol))
+            two = np.flatnonzero(rms >= 100 * tol)
+            if x.size + one.size + 2 * two.size > trial.max_nodes:
+                code = 1
+                break
+            if one.size or two.size:
+                spline = Hermite(x, y, parts[2])
+                x = np.sort(np.concatenate([x, 0.5 * (x[one] + x[one + 1]), (2 * x[two] + x[two + 1]) / 3,
+                                            (x[two] + 2 * x[two + 1]) / 3]))
+                y = spline(x)
+                continue
+            code = 0 if np.max(np.abs(parts[1]), initial=0.0) <= tol else 3
+            break
+        return self._outcome(trial, code, x, y, p, iterations, rms)
+
+    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms) -> Outcome:  # noqa: ANN001
+        status = _STATUS.get(code, Status.NOT_CONVERGED)
+        if status is Status.SOLVED:
+            message = f"converged in {iterations} Newton iterations on {x.size} nodes"
+        elif status is Status.MESH_LIMIT:
+            message = (
+                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms)} raise "
+                "max_nodes, loosen tol or give a better guess"
+            )
+        elif status is Status.SINGULAR:
+            message = "the collocation Newton matrix is singular; " + status.hint
+        else:
+            message = "Newton's method did not meet the boundary-condition tolerance; " + status.hint
+        return Outcome(status, message, x, y, p, iterations=int(iterations))
+
+    def _solve_singular(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
+        """SciPy's ``solve_bvp``, which treats the singular term ``S y / (x - a)``."""
+        from scipy.integrate import solve_bvp
+
         c, k = trial.compiled, trial.k
         n_p = c.n_parameters
         empty = np.zeros(0)
@@ -72,59 +215,18 @@ class Collocation(Method):
             def bc_jac(ya, yb):
                 return c.bc_jac(ya, yb, empty, k)[:2]
 
-        x, y = np.asarray(trial.x, float), np.asarray(trial.y, float)
-        if x.size < 2 or not np.all(np.diff(x) > 0):
-            return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x, y, trial.p)
-        if not (np.all(np.isfinite(y)) and np.all(np.isfinite(trial.p))):
-            return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, trial.p)
-        f0 = fun(x, y, trial.p) if n_p else fun(x, y)
-        if not np.all(np.isfinite(f0)):
-            i, j = np.argwhere(~np.isfinite(f0))[0]
-            names = c.system.state_names
-            values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
-            return Outcome(
-                Status.NON_FINITE,
-                f"the equations give NaN or inf for the derivative of {names[i]} at x = {x[j]:.6g} with the "
-                f"guess ({values}): {Status.NON_FINITE.hint}",
-                x,
-                y,
-                trial.p,
-            )
-        res = solve_bvp(
-            fun,
-            bc,
-            x,
-            y,
-            p=trial.p if n_p else None,
-            S=trial.singular,
-            fun_jac=fun_jac,
-            bc_jac=bc_jac,
-            tol=max(trial.tol, 1e-13),
-            max_nodes=trial.max_nodes,
-            verbose=0,
-        )
-        status = _STATUS.get(res.status, Status.NOT_CONVERGED)
+        res = solve_bvp(fun, bc, x, y, p=p if n_p else None, S=trial.singular, fun_jac=fun_jac, bc_jac=bc_jac,
+                        tol=max(trial.tol, 1e-13), max_nodes=trial.max_nodes, verbose=0)
         p = np.asarray(res.p, float) if n_p else empty
-        if status is Status.SOLVED:
-            message = f"converged in {res.niter} Newton iterations on {res.x.size} nodes"
-        elif status is Status.MESH_LIMIT:
-            message = (
-                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(res.x, res.rms_residuals)} raise "
-                "max_nodes, loosen tol or give a better guess"
-            )
-        elif status is Status.SINGULAR:
-            message = "the collocation Newton matrix is singular; " + status.hint
-        else:
-            message = "Newton's method did not meet the boundary-condition tolerance; " + status.hint
-        return Outcome(status, message, res.x, res.y, p, iterations=int(res.niter))
+        return self._outcome(trial, res.status, res.x, res.y, p, res.niter, res.rms_residuals)
 
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
-        """The solution on the halved mesh, by Newton's method on the collocation equations.
+        """The solution on the halved mesh, by chord steps on the collocation equations.
 
         Started from the coarse solution, which is already within its error of the fine
-        one, one or two Newton steps reach the fine discrete solution (quadratic
-        convergence); the LU of that step also gives the stability constant. Problems with a
-        singular term go through ``solve_bvp`` instead.
+        one, two or three steps with one LU reach the fine discrete solution; that LU also
+        gives the stability constant. Problems with a singular term go through
+        ``solve_bvp`` instead.
         """
         x = outcome.x
         fine = np.unique(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
@@ -139,20 +241,31 @@ class Collocation(Method):
         equations = CollocationEquations(trial.compiled, fine, trial.k)
         z = equations.join(y, outcome.p)
         scale = equations.row_scale()
-        for step in range(_REFINE_STEPS):
+        if not np.all(np.isfinite(z)):
+            return Outcome(Status.NON_FINITE, "the refined collocation equations hold NaN or inf", fine, y, outcome.p)
+        try:
+            lu = equations.factor(y, outcome.p, scale=scale)
+        except SingularMatrix:
+            return Outcome(Status.SINGULAR, "the refined collocation matrix is singular", fine, y, outcome.p)
+        last = np.inf
+        for step in range(1, _REFINE_STEPS + 1):
             residual = equations.residual(z)
-            matrix = sparse.diags(scale) @ equations.jacobian(z)
-            if not (np.all(np.isfinite(residual)) and np.all(np.isfinite(matrix.data))):
-                return Outcome(Status.NON_FINITE, "the refined collocation equations hold NaN or inf", fine, y, outcome.p)
-            try:
-                lu = splu(matrix.tocsc())
-            except RuntimeError:
-                return Outcome(Status.SINGULAR, "the refined collocation matrix is singular", fine, y, outcome.p)
+            if not np.all(np.isfinite(residual)):
+                return Outcome(Status.NON_FINITE, "the refined collocation equations hold NaN or inf", fine, y,
+                               outcome.p)
             delta = lu.solve(-scale * residual)
             z = z + delta
-            if np.max(np.abs(delta) / (1.0 + np.abs(z))) <= 1e-3 * trial.tol:
+            size = float(np.max(np.abs(delta) / (1.0 + np.abs(z))))
+            if size <= 1e-3 * trial.tol:
                 break
+            if size > 0.25 * last:  # slow chord convergence: a fresh Newton matrix
+                y_now, p_now = equations.split(z)
+                try:
+                    lu = equations.factor(y_now, p_now, scale=scale)
+                except SingularMatrix:
+                    return Outcome(Status.SINGULAR, "the refined collocation matrix is singular", fine, y, outcome.p)
+            last = size
         y_fine, p_fine = equations.split(z)
-        result = Outcome(Status.SOLVED, "refined", fine, y_fine, p_fine, iterations=step + 1)
-        result.condition = stability_constant(lu, matrix.shape[0])
+        result = Outcome(Status.SOLVED, "refined", fine, y_fine, p_fine, iterations=step)
+        result.condition = stability_constant(lu, lu.size)
         return result
