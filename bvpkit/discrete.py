@@ -187,32 +187,51 @@ class CollocationEquations:
         return self._sparse_pattern()
 
     def _band_layout(self):  # noqa: ANN202
-        """Row order, positions in LAPACK's banded storage and the band widths (separated conditions)."""
+        """Row order and band widths for separated conditions (rows: left conditions, interval
+        rows, right conditions), and the banded-storage offsets of the interval blocks."""
         if getattr(self, "_layout", None) is None:
             n, m = self.n, self.m
-            size = n * m
             left_rows = np.flatnonzero(self.sides == 0)
             right_rows = np.flatnonzero(self.sides == 1)
+            ka = left_rows.size
             base = (m - 1) * n
-            # banded row order: left conditions, interval rows, right conditions
             order = np.concatenate([base + left_rows, np.arange(base), base + right_rows])
-            position = np.empty(size, dtype=int)
-            position[order] = np.arange(size)
-            i = np.arange(m - 1)[:, None, None]
-            r = np.arange(n)
-            rows = (i * n + r[None, :, None]).repeat(n, axis=2).ravel()
-            cols = (i * n + r[None, None, :]).repeat(n, axis=1).ravel()
-            ra, ca = np.meshgrid(base + left_rows, r, indexing="ij")
-            rb, cb = np.meshgrid(base + right_rows, base + r, indexing="ij")
-            rows = np.concatenate([rows, rows, ra.ravel(), rb.ravel()])
-            cols = np.concatenate([cols, cols + n, ca.ravel(), cb.ravel()])
-            brow = position[rows]
-            kl = int(np.max(brow - cols))
-            ku = int(np.max(cols - brow))
-            ldab = 2 * kl + ku + 1
-            flat = (kl + ku + brow - cols) * size + cols
-            self._layout = (order, flat, rows, kl, ku, ldab, left_rows, right_rows)
+            kl = ka + n - 1  # interval rows: row ka + i n + j, columns i n .. (i + 2) n - 1
+            ku = max(2 * n - 1 - ka, n - 1)
+            self._layout = (order, kl, ku, 2 * kl + ku + 1, left_rows, right_rows)
         return self._layout
+
+    def _banded(self, blocks, scale: np.ndarray | None) -> tuple[np.ndarray, int, int, np.ndarray]:  # noqa: ANN001
+        """LAPACK banded storage ``ab[kl + ku + r - c, c] = M[r, c]`` of the Newton matrix.
+
+        The interval blocks are written through strided views (entry ``(i, r, c)`` of the
+        left block goes to ``ab[kl + ku + ka + r - c, i n + c]``), no index arrays; ``ab`` is
+        column-major, as LAPACK takes it.
+        """
+        from numpy.lib.stride_tricks import as_strided
+
+        order, kl, ku, ldab, left_rows, right_rows = self._band_layout()
+        left, right, _, (a, b, _) = blocks
+        n, m = self.n, self.m
+        size = n * m
+        ka = left_rows.size
+        if scale is not None:
+            row = scale[: (m - 1) * n].reshape(m - 1, n, 1)
+            left, right = left * row, right * row
+            a, b = a * scale[(m - 1) * n:, None], b * scale[(m - 1) * n:, None]
+        flat = np.zeros(size * ldab)  # column-major (LAPACK's order): entry (d, c) at c * ldab + d
+        item = flat.itemsize
+        strides = (n * ldab * item, item, (ldab - 1) * item)
+        top = kl + ku + ka
+        as_strided(flat[top:], shape=left.shape, strides=strides, writeable=True)[...] = left
+        as_strided(flat[n * ldab + top - n:], shape=right.shape, strides=strides, writeable=True)[...] = right
+        ab = flat.reshape(size, ldab).T
+        cols = np.arange(n)
+        for rows, block, first_col in ((np.arange(ka), np.asarray(a)[left_rows], 0),
+                                       (np.arange(size - right_rows.size, size), np.asarray(b)[right_rows], size - n)):
+            r, c = np.meshgrid(rows, first_col + cols, indexing="ij")
+            ab[kl + ku + r - c, c] = block
+        return ab, kl, ku, order
 
     def factor(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None,
                scale: np.ndarray | None = None) -> Factored:
@@ -232,17 +251,10 @@ class CollocationEquations:
                 raise SingularMatrix(str(err)) from None
         from scipy.linalg.lapack import dgbtrf
 
-        order, flat, rows, kl, ku, ldab, left_rows, right_rows = self._band_layout()
-        left, right, _, (a, b, _) = blocks
-        v = np.concatenate([left.ravel(), right.ravel(), np.asarray(a)[left_rows].ravel(),
-                            np.asarray(b)[right_rows].ravel()])
-        if scale is not None:
-            v = v * scale[rows]
-        if not np.all(np.isfinite(v)):
+        ab, kl, ku, order = self._banded(blocks, scale)
+        if not np.all(np.isfinite(ab)):
             raise SingularMatrix("the collocation matrix holds NaN or inf")
-        ab = np.zeros(ldab * size)
-        ab[flat] = v  # the (row, column) pairs are distinct
-        lu, piv, info = dgbtrf(ab.reshape(ldab, size), kl, ku, overwrite_ab=1)
+        lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
         if info > 0:
             raise SingularMatrix("the collocation matrix is singular")
         return Factored(size, band=(lu, piv, kl, ku), rows=order)
