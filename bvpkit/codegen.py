@@ -26,7 +26,7 @@ from .reduce import X, FirstOrderSystem
 _NAMESPACE = {"numpy": np, "scipy": scipy, "functools": functools}
 _ALLOWED_WORDS = re.compile(
     r"^(_[xyptk]\w*|_ya\d+|_yb\d+|numpy(\.\w+)*|scipy(\.\w+)*|functools\.reduce|def|return|"
-    r"out|x|y|p|k|ya|yb|shape|abs|rhs|jac|pjac|bc|bc_jac_[abp]|quantity|physical|singular_matrix|"
+    r"out|x|y|p|k|t|ya|yb|shape|abs|rhs|jac|pjac|bc|bc_jac_[abp]|quantity|physical|singular_matrix|"
     r"domain_ends)$"
 )
 

@@ -216,8 +216,9 @@ class Solution:
                 error = math.nan  # e.g. a point outside the shorter truncated domain
         return value, error
 
-    def _internal(self, expression: str) -> tuple[sp.Expr, list]:
-        """The expression in internal symbols, and its point values still to fill in."""
+    def _internal(self, expression: str) -> tuple[Any, list, bool]:
+        """The expression compiled over ``(x, y, p, k, t)`` with ``t`` its point values, the
+        point values still to fill in, and whether it depends on the running point."""
         key = (self._compiled.system.key(), self.problem.independent, expression)
         if key in _QUANTITIES:
             return _QUANTITIES[key]
@@ -227,30 +228,41 @@ class Solution:
         replace: dict[sp.Basic, sp.Basic] = {problem.x: X}
         replace.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
         replace.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
-        placeholders = []
+        placeholders, symbols = [], []
         for i, (node, name, order, point) in enumerate(points):
             symbol = sp.Symbol(f"_t_point{i}")
             replace[node] = symbol
-            placeholders.append((symbol, name, order, point.xreplace(replace)))
+            point = point.xreplace(replace)
+            placeholders.append((float(point) if point.is_Number and point.is_finite else point, name, order))
+            symbols.append(symbol)
         for name in problem.unknowns:
             f = sp.Function(name)(problem.x)
             for j in range(problem.orders[name]):
                 node = f if j == 0 else sp.Derivative(f, (problem.x, j))
                 replace[node] = system.y[system.index(name, j)]
             replace[sp.Derivative(f, (problem.x, problem.orders[name]))] = system.highest(name)
-        result = (e.xreplace(replace), placeholders)
+        e = e.xreplace(replace)
+        running = bool(e.free_symbols & ({X} | set(system.y)))
+        compiled = compile_expressions(
+            [e], [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k), ("t", symbols)], mesh="y"
+        )
+        result = (compiled, placeholders, running)
         if len(_QUANTITIES) > _MAX_CACHED:
             _QUANTITIES.clear()
         _QUANTITIES[key] = result
         return result
 
     def _evaluate_on(self, x, y, p, expression: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
-        e, placeholders = self._internal(expression)
+        f, placeholders, running = self._internal(expression)
         system, k = self._compiled.system, self._k
         spline = self._spline if x is self.x else hermite(self._compiled, x, y, p, k, physical=True)
-        values: dict[sp.Basic, sp.Basic] = {}
-        for symbol, name, order, point in placeholders:
-            where = self._point(point, x, p)
+        values = np.empty(len(placeholders))
+        for i, (point, name, order) in enumerate(placeholders):
+            if isinstance(point, float):
+                where = point
+                self._check_inside(np.array([where]), x)
+            else:
+                where = self._point(point, x, p)
             state = spline(np.array([where]))
             if order < self.problem.orders[name]:
                 v = state[system.index(name, order), 0]
@@ -259,9 +271,7 @@ class Solution:
                     v = self._compiled.slopes(np.array([where]), state, p, k, physical=True)[
                         system.index(name, order - 1), 0
                     ]
-            values[symbol] = sp.Float(float(v))
-        e = e.xreplace(values)
-        running = bool(e.free_symbols & ({X} | set(system.y)))
+            values[i] = v
         if at is None:
             if running:
                 raise BvpkitError(
@@ -274,22 +284,12 @@ class Solution:
             if points.ndim != 1:
                 raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
             self._check_inside(points, x)
-        f = self._compiled_quantity(e)
         with np.errstate(all="ignore"):
-            result = f(points, spline(points), p, k)[0]
+            result = f(points, spline(points) if running else np.zeros((system.n, points.size)), p, k, values)[0]
         result = np.broadcast_to(result, points.shape).astype(float)
         if at is None:
             return float(result[0])
         return result if np.ndim(at) else float(result[0])
-
-    def _compiled_quantity(self, e: sp.Expr):  # noqa: ANN202
-        key = (self._compiled.system.key(), sp.srepr(e))
-        if key not in _QUANTITIES:
-            system = self._compiled.system
-            _QUANTITIES[key] = compile_expressions(
-                [e], [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k)], mesh="y"
-            )
-        return _QUANTITIES[key]
 
     def _point(self, point: sp.Expr, x: np.ndarray, p: np.ndarray) -> float:
         system = self._compiled.system
