@@ -7,9 +7,6 @@
 
 from __future__ import annotations
 
-from .continuation import Branch, Fold, trace
-from .diagnostics import Attempt, Diagnostics
-from .driver import solve
 from .errors import (
     BvpkitError,
     ExpressionError,
@@ -18,10 +15,30 @@ from .errors import (
     ProblemError,
     SpecError,
 )
-from .problem import Problem
-from .solution import Solution
 from .status import Status
-from .sweep import SweepResult, sweep
+
+# The rest loads on first use (PEP 562), so that `import bvpkit` and a cached
+# `bvpkit solve` stay light: SymPy, for one, is imported only when a problem is built.
+_LAZY = {
+    "Attempt": "diagnostics", "Diagnostics": "diagnostics", "Branch": "continuation", "Fold": "continuation",
+    "trace": "continuation", "solve": "driver", "Problem": "problem", "Solution": "solution",
+    "SweepResult": "sweep", "sweep": "sweep",
+}
+
+
+def __getattr__(name: str):  # noqa: ANN202
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'bvpkit' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)
+
 
 __version__ = "0.1.0"
 

@@ -158,12 +158,20 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
-    from . import load, solve
+    from .driver import solve
     from .errors import OptionError
+    from .prepared import cached_problem, remember, spec_key
 
-    problem = load(args.spec)
-    if args.set:
-        problem = problem.with_constants(**_constants(args.set))
+    overrides = _constants(args.set)
+    key = spec_key(args.spec, overrides)
+    problem = cached_problem(key)  # prepared by an earlier run: no parsing, no SymPy
+    fresh = problem is None
+    if fresh:
+        from . import load
+
+        problem = load(args.spec)
+        if overrides:
+            problem = problem.with_constants(**overrides)
     save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
     json_path = None
@@ -180,6 +188,8 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         max_nodes=args.max_nodes,
         verify=False if args.no_verify else None,
     )
+    if fresh:
+        remember(key, problem)
     if csv_path is not None:
         solution.to_csv(csv_path)
     report = solution.as_dict()

@@ -20,7 +20,6 @@ import numpy as np
 from . import guess as _guess
 from . import methods
 from . import strategy
-from .codegen import compile_system
 from .diagnostics import Diagnostics, condition_estimate, hermite, residuals
 from .errors import OptionError
 from .methods.base import Outcome, Trial
@@ -113,10 +112,10 @@ def solve(
         {"method": method, "tol": tol, "max_nodes": max_nodes, "verify": verify, "truncation": truncation},
     )
     start = time.perf_counter()
-    compiled = compile_system(problem.system)
-    k = np.array([problem.constants[c] for c in problem.system.constants], dtype=float)
-    system = problem.system
-    a, b = (problem.end_value(e) for e in problem.domain)
+    compiled = problem.compiled()
+    system = compiled.layout
+    k = np.array([problem.constants[c] for c in system.constants], dtype=float)
+    a, b = problem.ends()
     if math.isinf(a) or math.isinf(b):
         if system.eigenvalue is not None:
             raise OptionError("eigenvalue problems on infinite domains are not supported; truncate the domain")
@@ -142,10 +141,10 @@ def solve(
 
 def _start(problem, compiled, x, k, guess) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
     if isinstance(guess, Solution | _guess.Start):
-        if guess.state_names != compiled.system.state_names:
+        if guess.state_names != compiled.layout.state_names:
             raise OptionError(
                 f"the guess solution has states {guess.state_names}, this problem "
-                f"{compiled.system.state_names}"
+                f"{compiled.layout.state_names}"
             )
         return _guess.from_solution(guess, x)
     if guess is not None and not isinstance(guess, Mapping):
@@ -290,7 +289,7 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
     if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
         status = Status.ERROR_TOO_LARGE
         message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
-    system = compiled.system
+    system = compiled.layout
     if system.eigenvalue is not None and status is Status.SOLVED:
         found = _guess.interior_zeros(outcome.y[system.index(system.states[0][0], 0)])
         if found != system.mode - 1:
@@ -312,7 +311,7 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
 def _physical(compiled, k, outcome: Outcome) -> tuple[np.ndarray, np.ndarray, np.ndarray]:  # noqa: ANN001
     """Mesh, states and parameters with the mesh in the physical variable."""
     x = outcome.x
-    if compiled.system.rescaled:
+    if compiled.layout.rescaled:
         a, b = compiled.domain_ends(outcome.p, k)
         x = a + (b - a) * x
     return x, outcome.y, outcome.p

@@ -13,11 +13,12 @@ from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
-import sympy as sp
 
-from .codegen import CompiledSystem, compile_expressions
+from ._lazy import LazyModule
+from .compiled import CompiledSystem
 from .errors import ProblemError
-from .reduce import X
+
+sp = LazyModule("sympy")
 
 #: Nodes of the first mesh; solve_bvp refines it where the residual asks.
 INITIAL_NODES = 41
@@ -34,9 +35,20 @@ def initial_guess(
     k: np.ndarray,
     override: Mapping[str, Any] | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """States ``(n, m)`` and parameters ``(n_p,)`` to start from on the mesh ``x``."""
-    system = compiled.system
-    p = np.array([problem.unknown_parameters[q] for q in system.parameters], dtype=float)
+    """States ``(n, m)`` and parameters ``(n_p,)`` to start from on the mesh ``x``.
+
+    Guesses without ``override`` are remembered per problem, mesh and constants
+    (``problem._starts``); a problem rebuilt from a cache (see ``prepared.py``) brings them
+    along, so its solve needs no SymPy.
+    """
+    layout = compiled.layout
+    p = np.array([problem.unknown_parameters[q] for q in layout.parameters], dtype=float)
+    remembered = problem.__dict__.setdefault("_starts", {})
+    key = start_key(x, k, p)
+    if not override and key in remembered:
+        y, p = remembered[key]
+        return np.array(y, dtype=float), np.array(p, dtype=float)
+    system = compiled.system if compiled.system is not None else problem.system
     y = np.zeros((system.n, x.size))
     expressions = dict(problem.guess)
     if override:
@@ -56,10 +68,25 @@ def initial_guess(
             f"the guess for {system.state_names[bad[0]]} is NaN or inf at "
             f"{problem.independent} = {x[bad[1]]:.6g}; give a guess defined on the whole domain"
         )
+    if not override:
+        if len(remembered) >= 8:
+            remembered.clear()
+        remembered[key] = (y.copy(), p.copy())
     return y, p
 
 
+def start_key(x: np.ndarray, k: np.ndarray, p: np.ndarray) -> str:
+    """Key of a remembered guess: the mesh, the constants and the parameter guesses."""
+    import hashlib
+
+    data = b"".join(np.ascontiguousarray(a, dtype=float).tobytes() for a in (x, k, p))
+    return hashlib.sha256(data).hexdigest()[:24]
+
+
 def _from_expression(problem, system, e: sp.Expr, order: int, x, p, k) -> np.ndarray:  # noqa: ANN001
+    from .codegen import compile_expressions
+    from .reduce import X
+
     names = {problem.x: X}
     names.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
     names.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
@@ -166,7 +193,7 @@ def fill_integrals(compiled: CompiledSystem, x: np.ndarray, y: np.ndarray, p: np
 
     ``x`` is the physical variable.
     """
-    system = compiled.system
+    system = compiled.layout
     if system.n == system.users:
         return
     with np.errstate(all="ignore"):
@@ -194,7 +221,7 @@ def eigen_guess(compiled: CompiledSystem, x: np.ndarray, k: np.ndarray, mode: in
     """
     import scipy.linalg
 
-    system = compiled.system
+    system = compiled.layout
     n, users = system.n, system.users
     which = system.eigenvalue
     a, b = float(x[0]), float(x[-1])
@@ -283,7 +310,7 @@ class Start:
 
     @property
     def state_names(self) -> tuple[str, ...]:
-        return self._compiled.system.state_names
+        return self._compiled.layout.state_names
 
     def _states(self, points: np.ndarray) -> np.ndarray:
         return self._spline(np.asarray(points, float))

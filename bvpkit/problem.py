@@ -11,13 +11,13 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-import sympy as sp
-from sympy.core.function import AppliedUndef
-
-from . import expr as _expr
+from ._lazy import LazyModule, applied_undef
 from .errors import BvpkitError, ExpressionError, ProblemError, closest
 
-Text = str | sp.Basic
+sp = LazyModule("sympy")  # imported when a problem is first built from text, not for a cached one
+_expr = LazyModule("bvpkit.expr")
+
+Text = Any  # a string, or a SymPy expression
 
 
 def _describe(item: Text) -> str:
@@ -168,7 +168,7 @@ class Problem:
     def _infer_unknowns(self, equations: list[sp.Expr], given: Sequence[str] | None) -> list[str]:
         found: list[str] = []
         for eq in equations:
-            for f in sorted(eq.atoms(AppliedUndef), key=sp.default_sort_key):
+            for f in sorted(eq.atoms(applied_undef()), key=sp.default_sort_key):
                 if f.func.__name__ not in found:
                     found.append(f.func.__name__)
         if given is None:
@@ -206,7 +206,7 @@ class Problem:
                 replace[s] = sp.Symbol(s.name)
             else:
                 raise ProblemError(f"{where} ({text}): unknown name '{s.name}'{closest(s.name, known)}")
-        for f in e.atoms(AppliedUndef):
+        for f in e.atoms(applied_undef()):
             name = f.func.__name__
             if name not in self.unknowns:
                 raise ProblemError(
@@ -223,7 +223,7 @@ class Problem:
                     f"{where} ({text}): derivatives must be taken with respect to "
                     f"'{self.independent}'"
                 )
-            if not isinstance(d.expr, AppliedUndef):
+            if not isinstance(d.expr, applied_undef()):
                 raise ProblemError(f"{where} ({text}): write derivatives of unknown functions only")
         return e
 
@@ -240,7 +240,7 @@ class Problem:
                 if d.expr.args != (self.x,):
                     continue  # a point value inside an equation; checked below
                 orders[name] = max(orders[name], d.derivative_count)
-            for f in eq.atoms(AppliedUndef):
+            for f in eq.atoms(applied_undef()):
                 if f.args != (self.x,):
                     raise ProblemError(
                         f"equation point values such as {f} are not supported; "
@@ -293,7 +293,7 @@ class Problem:
                     f"domain end '{end}': unknown name '{bad[0]}' (a domain end may use "
                     f"constants and unknown parameters){closest(bad[0], allowed)}"
                 )
-            if value.has(AppliedUndef, sp.Derivative, sp.Subs):
+            if value.has(applied_undef(), sp.Derivative, sp.Subs):
                 raise ProblemError(f"domain end '{end}' may not use unknown functions")
             ends.append(value.xreplace({s: sp.Symbol(s.name) for s in value.free_symbols}))
         a, b = ends
@@ -327,7 +327,7 @@ class Problem:
         found = []
         for s in e.atoms(sp.Subs):
             d = s.expr
-            if not isinstance(d, sp.Derivative) or not isinstance(d.expr, AppliedUndef):
+            if not isinstance(d, sp.Derivative) or not isinstance(d.expr, applied_undef()):
                 raise ProblemError(f"cannot read the point value {s}")
             (v,) = s.variables if len(s.variables) == 1 else (None,)
             if v is None or d.expr.args != (v,) or any(w != v for w in d.variables):
@@ -335,8 +335,8 @@ class Problem:
             found.append((s, d.expr.func.__name__, d.derivative_count, s.point[0]))
         # Functions inside a Subs are bound by it (and SymPy's cache may hand back a Subs
         # built for another variable name): only free applications are point values.
-        bound = {f for s in e.atoms(sp.Subs) for f in s.expr.atoms(AppliedUndef)}
-        for f in e.atoms(AppliedUndef) - bound:
+        bound = {f for s in e.atoms(sp.Subs) for f in s.expr.atoms(applied_undef())}
+        for f in e.atoms(applied_undef()) - bound:
             if f.args != (self.x,):
                 found.append((f, f.func.__name__, 0, f.args[0]))
         return found
@@ -457,7 +457,7 @@ class Problem:
                     raise ProblemError(
                         f"guess for '{name}': unknown name '{s.name}'{closest(s.name, allowed)}"
                     )
-            if e.has(AppliedUndef, sp.Derivative, sp.Subs):
+            if e.has(applied_undef(), sp.Derivative, sp.Subs):
                 raise ProblemError(f"guess for '{name}' may not use unknown functions")
             result[name] = e.xreplace(
                 {s: (self.x if s.name == self.independent else sp.Symbol(s.name)) for s in e.free_symbols}
@@ -499,7 +499,76 @@ class Problem:
     @property
     def infinite(self) -> tuple[bool, bool]:
         """Whether each end of the domain is infinite."""
-        return tuple(self.domain[i] in (sp.oo, -sp.oo) for i in range(2))  # type: ignore[return-value]
+        cached = self.__dict__.get("_infinite")
+        if cached is None:
+            cached = tuple(self.domain[i] in (sp.oo, -sp.oo) for i in range(2))
+            self.__dict__["_infinite"] = cached
+        return cached  # type: ignore[return-value]
+
+    def ends(self) -> tuple[float, float]:
+        """Both ends of the domain as numbers (constants and parameter guesses substituted)."""
+        cached = self.__dict__.get("_ends")
+        if cached is None:
+            cached = tuple(self.end_value(e) for e in self.domain)
+            self.__dict__["_ends"] = cached
+        return cached  # type: ignore[return-value]
+
+    def compiled(self):  # noqa: ANN201 - a bvpkit.compiled.CompiledSystem
+        """The compiled system; a problem rebuilt from the cache takes it from there."""
+        layout = self.__dict__.get("_layout")
+        if layout is not None and not self.__dict__.get("_symbolic", True):
+            from .compiled import load_compiled
+
+            found = load_compiled(layout)
+            if found is not None:
+                return found
+        from .codegen import compile_system
+
+        return compile_system(self.system)
+
+    # -- a problem rebuilt from the cache (see prepared.py) --------------------------------
+    _PLAIN = ("arguments", "title", "independent", "constants", "unknown_parameters", "settings", "eigenvalue",
+              "mode", "equation_text", "condition_text", "unknowns", "orders", "outputs")
+
+    def plain(self) -> dict[str, Any]:
+        """The facts a solve needs, as plain data (JSON-ready when the arguments are text)."""
+        data = {name: getattr(self, name) for name in self._PLAIN}
+        data["orders"] = {name: int(order) for name, order in self.orders.items()}
+        data["infinite"] = list(self.infinite)
+        data["ends"] = list(self.ends())
+        data["layout"] = self.system.state_layout().as_dict()
+        return data
+
+    @classmethod
+    def from_plain(cls, data: Mapping[str, Any], starts: Mapping[str, Any] | None = None) -> Problem:
+        """A problem from :meth:`plain` data, without SymPy: its symbolic parts (equations,
+        domain, reduced system) are built from ``arguments`` when first asked for."""
+        from .layout import StateLayout
+
+        new = object.__new__(cls)
+        d = new.__dict__
+        d.update({name: data[name] for name in cls._PLAIN})
+        d["orders"] = {str(k): int(v) for k, v in data["orders"].items()}
+        d["_infinite"] = tuple(bool(v) for v in data["infinite"])
+        d["_ends"] = tuple(float(v) for v in data["ends"])
+        d["_layout"] = StateLayout.from_dict(data["layout"])
+        d["_starts"] = dict(starts or {})
+        d["_symbolic"] = False
+        return new
+
+    def __getattr__(self, name: str):  # noqa: ANN204
+        # Only called for attributes not set: those of a problem rebuilt by from_plain,
+        # which builds its symbolic parts now (importing SymPy) from its arguments.
+        d = self.__dict__
+        if name.startswith("__") or d.get("_symbolic", True):
+            raise AttributeError(name)
+        full = Problem(**d["arguments"])
+        if full.constants != d["constants"]:
+            full = full.with_constants(**{k: v for k, v in d["constants"].items() if k in full.constants})
+        for key, value in full.__dict__.items():
+            d.setdefault(key, value)
+        d["_symbolic"] = True
+        return getattr(self, name)
 
     def with_constants(self, **values: float) -> Problem:
         """A copy of this problem with some constants changed (no re-validation of text)."""
@@ -511,6 +580,8 @@ class Problem:
                 f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
             )
         new.constants = {**self.constants, **_numbers(values, "constant")}
+        new.__dict__.pop("_ends", None)  # a domain end may be one of the constants
+        new.__dict__.pop("_quantities", None)  # their point values hold the old constants
         return new
 
     def _freed(self, name: str):  # noqa: ANN202 - a FirstOrderSystem
@@ -535,7 +606,7 @@ class Problem:
 
 def _without_functions(e: sp.Expr) -> sp.Expr:
     """``e`` with every unknown function and derivative replaced by a plain symbol."""
-    nodes = e.atoms(sp.Derivative) | e.atoms(AppliedUndef)
+    nodes = e.atoms(sp.Derivative) | e.atoms(applied_undef())
     return e.xreplace({node: sp.Dummy() for node in nodes})
 
 

@@ -108,6 +108,16 @@ class FirstOrderSystem:
     def order(self, name: str) -> int:
         return 1 + max(k for f, k in self.states if f == name)
 
+    def state_layout(self):  # noqa: ANN201 - a bvpkit.layout.StateLayout
+        """The plain facts of this system (what the numerical side needs; no SymPy)."""
+        from .layout import StateLayout
+
+        return StateLayout(
+            key=self.key(), independent=self.independent, states=self.states, parameters=self.parameters,
+            constants=self.constants, rescaled=self.rescaled, singular=self.singular is not None,
+            eigenvalue=self.eigenvalue, mode=self.mode, users=self.users,
+        )
+
     def highest(self, name: str) -> sp.Expr:
         """Expression of the highest derivative of ``name`` in the physical variable."""
         return self.physical_rhs[self.index(name, self.order(name) - 1)]

@@ -7,14 +7,15 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import sympy as sp
 
-from .codegen import CompiledSystem, compile_expressions
-from .diagnostics import Diagnostics, hermite
+from ._lazy import LazyModule
 from ._output import write_columns
+from .compiled import CompiledSystem
+from .diagnostics import Diagnostics, hermite
 from .errors import BvpkitError
-from .reduce import X
 from .status import Status
+
+sp = LazyModule("sympy")
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -83,7 +84,7 @@ class Solution:
         self._compiled = compiled
         self._k = np.asarray(k, float)
         self.diagnostics = diagnostics
-        names = compiled.system.parameters
+        names = compiled.layout.parameters
         self.parameters = {q: float(v) for q, v in zip(names, self._p)}
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
         self.parameter_errors = {q: float(v) for q, v in zip(names, errs)}
@@ -100,7 +101,7 @@ class Solution:
     @property
     def state_names(self) -> tuple[str, ...]:
         """What each row of ``y`` holds: ``("f", "f'", "f''")``."""
-        return self._compiled.system.state_names
+        return self._compiled.layout.state_names
 
     def evaluate(self, expression: str, at: Any = None) -> float | np.ndarray:
         """Evaluate an expression of the solution.
@@ -219,10 +220,16 @@ class Solution:
     def _internal(self, expression: str) -> tuple[Any, list, bool]:
         """The expression compiled over ``(x, y, p, k, t)`` with ``t`` its point values, the
         point values still to fill in, and whether it depends on the running point."""
-        key = (self._compiled.system.key(), self.problem.independent, expression)
+        prepared = self.problem.__dict__.get("_quantities")
+        if prepared and expression in prepared:
+            return prepared[expression]
+        key = (self._compiled.layout.key, self.problem.independent, expression)
         if key in _QUANTITIES:
             return _QUANTITIES[key]
-        problem, system = self.problem, self._compiled.system
+        from .codegen import compile_expressions
+        from .reduce import X
+
+        problem, system = self.problem, self._symbolic_system()
         e = problem.parse_quantity(expression, where=f"expression '{expression}'")
         points = problem.point_values(e)
         replace: dict[sp.Basic, sp.Basic] = {problem.x: X}
@@ -233,7 +240,8 @@ class Solution:
             symbol = sp.Symbol(f"_t_point{i}")
             replace[node] = symbol
             point = point.xreplace(replace)
-            placeholders.append((float(point) if point.is_Number and point.is_finite else point, name, order))
+            plain = point.is_Number or point in (sp.oo, -sp.oo)
+            placeholders.append((float(point) if plain else point, name, order))
             symbols.append(symbol)
         for name in problem.unknowns:
             f = sp.Function(name)(problem.x)
@@ -254,13 +262,16 @@ class Solution:
 
     def _evaluate_on(self, x, y, p, expression: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
         f, placeholders, running = self._internal(expression)
-        system, k = self._compiled.system, self._k
+        system, k = self._compiled.layout, self._k
         spline = self._spline if x is self.x else hermite(self._compiled, x, y, p, k, physical=True)
         values = np.empty(len(placeholders))
         for i, (point, name, order) in enumerate(placeholders):
             if isinstance(point, float):
-                where = point
-                self._check_inside(np.array([where]), x)
+                if math.isinf(point):
+                    where = float(x[-1] if point > 0 else x[0])
+                else:
+                    where = point
+                    self._check_inside(np.array([where]), x)
             else:
                 where = self._point(point, x, p)
             state = spline(np.array([where]))
@@ -291,8 +302,12 @@ class Solution:
             return float(result[0])
         return result if np.ndim(at) else float(result[0])
 
+    def _symbolic_system(self):  # noqa: ANN202 - a FirstOrderSystem
+        """The symbolic system (built on demand for a problem rebuilt from the cache)."""
+        return self._compiled.system if self._compiled.system is not None else self.problem.system
+
     def _point(self, point: sp.Expr, x: np.ndarray, p: np.ndarray) -> float:
-        system = self._compiled.system
+        system = self._symbolic_system()
         value = point.xreplace({**dict(zip(system.k, map(sp.Float, self._k))), **dict(zip(system.p, map(sp.Float, p)))})
         if value == sp.oo:
             return float(x[-1])
@@ -340,3 +355,31 @@ def _json_ready(value: Any) -> Any:
     if isinstance(value, np.integer):
         return int(value)
     return value
+
+
+def known_quantity(problem, text: str) -> tuple[Any, list, bool] | None:  # noqa: ANN001
+    """The compiled form of an expression already evaluated for ``problem``, with its point
+    values as numbers for this problem's constants (what ``prepared.py`` keeps), or None
+    when a point depends on an unknown parameter."""
+    compiled = problem.compiled()
+    known = _QUANTITIES.get((compiled.layout.key, problem.independent, text))
+    if known is None:
+        return None
+    function, placeholders, running = known
+    system = compiled.system if compiled.system is not None else problem.system
+    values = {s: sp.Float(problem.constants[c]) for s, c in zip(system.k, system.constants)}
+    points = []
+    for point, name, order in placeholders:
+        if not isinstance(point, float):
+            point = point.xreplace(values)
+            if not (point.is_Number or point in (sp.oo, -sp.oo)):
+                return None
+            point = float(point)
+        points.append((point, str(name), int(order)))
+    return function, points, running
+
+
+def remember_quantity(problem, text: str, function: Any, points: list, running: bool) -> None:  # noqa: ANN001
+    """Install a compiled expression kept by ``prepared.py`` for this problem only (its point
+    values hold its constants); ``Problem.with_constants`` drops them from the copy."""
+    problem.__dict__.setdefault("_quantities", {})[text] = (function, points, running)

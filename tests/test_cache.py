@@ -54,13 +54,13 @@ def test_a_corrupted_cache_file_is_regenerated(cache, damage):
 def test_concurrent_writers_leave_one_valid_file(cache):
     system = _problem().system
     source, pattern = codegen._system_source(system)
-    threads = [threading.Thread(target=codegen._write_cache, args=(system.key(), source, pattern, codegen._bc_sides(system))) for _ in range(8)]
+    threads = [threading.Thread(target=codegen.write_cache, args=(system.key(), source, pattern, codegen._bc_sides(system))) for _ in range(8)]
     for t in threads:
         t.start()
     for t in threads:
         t.join()
     assert [p.name for p in cache.iterdir() if p.name.startswith(".")] == []  # no temporary files left
-    assert codegen._read_cache(system.key())[0] == source
+    assert codegen.read_cache(system.key())[0] == source
 
 
 def test_cache_can_be_turned_off(tmp_path, monkeypatch):
@@ -68,3 +68,99 @@ def test_cache_can_be_turned_off(tmp_path, monkeypatch):
     codegen._MEMORY.clear()
     assert bvpkit.solve(_problem(2.0)).success
     assert not any(tmp_path.iterdir())
+
+
+# -- prepared problems: a second `bvpkit solve` of the same spec without SymPy ------------
+
+SPECS = sorted(p.name for p in (__import__("pathlib").Path(__file__).parents[1] / "specs").glob("*.toml"))
+_WARM = """
+import sys
+from bvpkit.cli import main
+code = main(["solve", sys.argv[1], *sys.argv[2:]])
+print("imported sympy:", "sympy" in sys.modules, "pydantic:", "pydantic" in sys.modules)
+sys.exit(code)
+"""
+
+
+def _run(spec, cache, *extra):
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    root = Path(__file__).parents[1]
+    env = {**os.environ, codegen.CACHE_VARIABLE: str(cache)}
+    done = subprocess.run([sys.executable, "-c", _WARM, str(root / "specs" / spec), *extra], capture_output=True,
+                          text=True, env=env, cwd=cache, timeout=300)
+    lines = done.stdout.splitlines()
+    # the last line of the summary ends with the seconds taken; that one may differ
+    return done.returncode, [line for line in lines[:-1] if not line.endswith(" s")], lines[-1]
+
+
+@pytest.mark.parametrize("spec", SPECS)
+def test_a_second_solve_of_a_spec_imports_no_sympy_and_prints_the_same(spec, tmp_path):
+    code1, first, imported1 = _run(spec, tmp_path)
+    assert imported1 == "imported sympy: True pydantic: True"  # the first run prepares the problem
+    assert list(tmp_path.glob("problem-*.json"))
+    code2, second, imported2 = _run(spec, tmp_path)
+    assert imported2 == "imported sympy: False pydantic: False"
+    assert (code2, second) == (code1, first)
+
+
+def test_a_set_value_makes_a_different_prepared_problem(tmp_path):
+    _run("cantilever_shelf.toml", tmp_path)
+    code, lines, imported = _run("cantilever_shelf.toml", tmp_path, "--set", "q=3000")
+    assert imported.startswith("imported sympy: True")  # a new key: prepared afresh
+    assert len(list(tmp_path.glob("problem-*.json"))) == 2
+    code, again, imported = _run("cantilever_shelf.toml", tmp_path, "--set", "q=3000")
+    assert imported.startswith("imported sympy: False") and again == lines
+
+
+def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(cache):
+    from bvpkit import prepared
+
+    spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "cantilever_shelf.toml"
+    original = bvpkit.load(spec)
+    expected = bvpkit.solve(original)
+    key = prepared.spec_key(spec, {})
+    prepared.remember(key, original)
+    codegen._MEMORY.clear()
+    light = prepared.cached_problem(key)
+    assert light is not None and light.__dict__["_symbolic"] is False
+    solution = bvpkit.solve(light)
+    assert solution.outputs == expected.outputs
+    assert light.__dict__["_symbolic"] is False  # solved and its outputs evaluated from plain data
+    # a question the cache does not cover builds the symbolic parts, and answers alike
+    assert solution.evaluate("w''(0.3)") == pytest.approx(expected.evaluate("w''(0.3)"), rel=1e-12)
+    assert light.__dict__["_symbolic"] is True
+    # with_constants on the rebuilt problem does not reuse point values of the old constants
+    longer = prepared.cached_problem(key).with_constants(L=1.5)
+    assert bvpkit.solve(longer).outputs["tip_deflection_m"] == pytest.approx(
+        bvpkit.solve(original.with_constants(L=1.5)).outputs["tip_deflection_m"], rel=1e-10)
+
+
+@pytest.mark.parametrize("damage", ["truncate", "tamper"])
+def test_a_damaged_prepared_problem_is_ignored(cache, damage):
+    from bvpkit import prepared
+
+    spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "pin_fin.toml"
+    key = prepared.spec_key(spec, {})
+    problem = bvpkit.load(spec)
+    bvpkit.solve(problem)
+    prepared.remember(key, problem)
+    path = next(cache.glob("problem-*.json"))
+    text = path.read_text()
+    if damage == "truncate":
+        path.write_text(text[: len(text) // 3])
+    else:
+        path.write_text(text.replace('"title": "', '"title": "changed '))
+    assert prepared.cached_problem(key) is None
+
+
+def test_importing_bvpkit_imports_no_sympy():
+    import subprocess
+    import sys
+
+    code = "import sys, bvpkit; bvpkit.Status; print('sympy' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout.strip()
+    assert out == "False"

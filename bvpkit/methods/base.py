@@ -24,7 +24,7 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..codegen import CompiledSystem
+from ..compiled import CompiledSystem
 from ..diagnostics import hermite
 from ..status import Status
 

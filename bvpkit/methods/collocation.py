@@ -118,7 +118,7 @@ class Collocation(Method):
         f0 = c.rhs(x, y, p, k)
         if not np.all(np.isfinite(f0)):
             i, j = np.argwhere(~np.isfinite(f0))[0]
-            names = c.system.state_names
+            names = c.layout.state_names
             values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
             return Outcome(
                 Status.NON_FINITE,

@@ -26,7 +26,6 @@ import math
 
 import numpy as np
 import scipy.sparse as sparse
-from scipy.integrate import solve_ivp
 from scipy.sparse.linalg import splu
 
 from ..diagnostics import hermite, survey
@@ -156,6 +155,8 @@ class Shooting(Method):
                     dpsi = np.einsum("ijm,jkm->ikm", jac, psi) + c.pjac(xs, ys, p, k) * h
                     out[n + n * n:] = dpsi.reshape(n * n_p, segments)
             return out.ravel()
+
+        from scipy.integrate import solve_ivp  # imported here: a collocation-only run never needs it
 
         options = dict(rtol=rtol, atol=rtol, dense_output=dense)
         if stiff:
@@ -394,7 +395,7 @@ class Shooting(Method):
         return outcome
 
     def _blowup_message(self, trial: Trial, err: _BlowUp, when: str) -> str:
-        names = trial.compiled.system.state_names
+        names = trial.compiled.layout.state_names
         which = f" in {names[err.state]}" if 0 <= err.state < len(names) else ""
         hint = ("; try method = \"multiple_shooting\" or \"collocation\""
                 if self.fixed_segments == 1 else "; try method = \"collocation\" or a better guess")

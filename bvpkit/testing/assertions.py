@@ -37,7 +37,7 @@ def _values(problem, solution, points: np.ndarray) -> dict[sp.Basic, np.ndarray]
     """
     states = solution._states(points)
     spline = solution._spline.derivative()(points)
-    system = solution._compiled.system
+    system = solution._compiled.layout
     values: dict[sp.Basic, np.ndarray] = {}
     for name in problem.unknowns:
         f = sp.Function(name)(problem.x)
@@ -140,7 +140,7 @@ def assert_matches_exact(solution, case: Manufactured, *, factor: float = 10.0, 
     problem = case.problem
     points = _sample(solution)
     states = solution._states(points)
-    system = solution._compiled.system
+    system = solution._compiled.layout
     name = problem.unknowns[0]
     estimate = float(solution.diagnostics.error_estimate)
     allowed = factor * (estimate if np.isfinite(estimate) else 0.0) + floor
