@@ -336,11 +336,16 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
         return None
 
 
-def stability_constant(lu, size: int) -> float | None:  # noqa: ANN001
-    """``||M^-1||_inf`` from a sparse LU of ``M`` (Hager's estimate on the transpose)."""
+def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN001
+    """``||(D M)^-1||_inf`` from an LU of ``M`` (Hager's estimate on the transpose), with
+    ``D = diag(scale)`` the row factors (none: ``D = I``)."""
+    import numpy as np
     from scipy.sparse.linalg import LinearOperator, onenormest
 
-    inverse_t = LinearOperator((size, size), matvec=lambda v: lu.solve(v, trans="T"), rmatvec=lu.solve, dtype=float)
+    inverse = 1.0 / np.asarray(scale, float) if scale is not None else 1.0
+    # (D M)^-T = D^-1 M^-T and its transpose M^-1 D^-1
+    inverse_t = LinearOperator((size, size), matvec=lambda v: inverse * lu.solve(v, trans="T"),
+                               rmatvec=lambda v: lu.solve(inverse * v), dtype=float)
     try:
         return float(onenormest(inverse_t, t=1))  # Hager's original one-column form: a few solves
     except (ValueError, RuntimeError):  # pragma: no cover - degenerate input

@@ -85,6 +85,7 @@ class Outcome:
     parameter_errors: np.ndarray | None = None
     condition: float | None = None
     reference: Outcome | None = None  # the refined solve the estimate came from
+    workspace: object = None  # what a method keeps from its solve for its own _refine
 
     @property
     def ok(self) -> bool:
