@@ -342,10 +342,16 @@ def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN0
     import numpy as np
     from scipy.sparse.linalg import LinearOperator, onenormest
 
-    inverse = 1.0 / np.asarray(scale, float) if scale is not None else 1.0
-    # (D M)^-T = D^-1 M^-T and its transpose M^-1 D^-1
-    inverse_t = LinearOperator((size, size), matvec=lambda v: inverse * lu.solve(v, trans="T"),
-                               rmatvec=lambda v: lu.solve(inverse * v), dtype=float)
+    inverse = 1.0 / np.asarray(scale, float) if scale is not None else np.ones(size)
+
+    def matvec(v):  # noqa: ANN001, ANN202 - (D M)^-T v = D^-1 M^-T v
+        v = np.asarray(v, float).reshape(size)
+        return inverse * lu.solve(v, trans="T")
+
+    def rmatvec(v):  # noqa: ANN001, ANN202 - its transpose, M^-1 D^-1 v
+        return lu.solve(inverse * np.asarray(v, float).reshape(size))
+
+    inverse_t = LinearOperator((size, size), matvec=matvec, rmatvec=rmatvec, dtype=float)
     try:
         return float(onenormest(inverse_t, t=1))  # Hager's original one-column form: a few solves
     except (ValueError, RuntimeError):  # pragma: no cover - degenerate input
