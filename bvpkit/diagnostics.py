@@ -353,6 +353,6 @@ def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN0
 
     inverse_t = LinearOperator((size, size), matvec=matvec, rmatvec=rmatvec, dtype=float)
     try:
-        return float(onenormest(inverse_t, t=1))  # Hager's original one-column form: a few solves
+        return float(onenormest(inverse_t))
     except (ValueError, RuntimeError):  # pragma: no cover - degenerate input
         return None

@@ -142,3 +142,16 @@ def test_outputs_carry_error_estimates():
     err = abs(sol.outputs["end"] - math.sin(2))  # analytic: y = sin x
     assert sol.output_errors["end"] >= 0.1 * err
     assert "+/-" in sol.summary()
+
+
+@pytest.mark.parametrize("problem", ["bratu", "chain"])
+def test_stability_constant_is_the_same_from_collocation_and_multiple_shooting(problem):
+    # common practice, no source: the constant is a property of the problem, not of the
+    # method (each computes it from its own Newton matrix or final mesh)
+    if problem == "bratu":
+        p = bratu()
+    else:
+        p = bvpkit.Problem(["u'' = 2*u**2", "v'' = 2*v**2 - 2*u**2"],
+                           ["u'(0) = 0", "u(1) = 1", "v'(0) = 0", "v(1) = 0.1"], (0, 1))
+    values = [bvpkit.solve(p, method=m, tol=1e-8).diagnostics.condition for m in ("collocation", "multiple_shooting")]
+    assert values[0] == pytest.approx(values[1], rel=0.05)
