@@ -336,6 +336,9 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
         return None
 
 
+_EXACT_INVERSE = 600  # unknowns up to which the stability constant is computed exactly
+
+
 def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN001
     """``||(D M)^-1||_inf`` from an LU of ``M`` (Hager's estimate on the transpose), with
     ``D = diag(scale)`` the row factors (none: ``D = I``)."""
@@ -343,6 +346,11 @@ def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN0
     from scipy.sparse.linalg import LinearOperator, onenormest
 
     inverse = 1.0 / np.asarray(scale, float) if scale is not None else np.ones(size)
+    if size <= _EXACT_INVERSE:  # small: the inverse itself is cheaper than the estimator's overhead
+        try:
+            return float(np.max(np.sum(np.abs(lu.solve(np.diag(inverse))), axis=1)))
+        except (ValueError, RuntimeError):  # pragma: no cover - degenerate input
+            return None
 
     def matvec(v):  # noqa: ANN001, ANN202 - (D M)^-T v = D^-1 M^-T v
         v = np.asarray(v, float).reshape(size)

@@ -176,9 +176,21 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
     """
     compiled, k = trial.compiled, trial.k
     x = outcome.x
-    points = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
-    mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(points)
-    theirs = hermite(compiled, reference.x, reference.y, reference.p, k)(points)
+    mid = 0.5 * (x[1:] + x[:-1])
+    if reference.x.size == 2 * x.size - 1 and np.array_equal(reference.x[::2], x) and np.array_equal(
+            reference.x[1::2], mid):
+        # the reference lives on the halved mesh: its values are the comparison points
+        h = np.diff(x)
+        with np.errstate(all="ignore"):
+            f = compiled.slopes(x, outcome.y, outcome.p, k)
+        mine = np.empty_like(reference.y)
+        mine[:, ::2] = outcome.y
+        mine[:, 1::2] = 0.5 * (outcome.y[:, 1:] + outcome.y[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])
+        theirs = reference.y
+    else:
+        points = np.sort(np.concatenate([x, mid]))
+        mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(points)
+        theirs = hermite(compiled, reference.x, reference.y, reference.p, k)(points)
     estimate = float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs))))
     p_errors = np.abs(outcome.p - reference.p)
     if p_errors.size:
