@@ -336,7 +336,7 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
         return None
 
 
-_EXACT_INVERSE = 600  # unknowns up to which the stability constant is computed exactly
+_EXACT_INVERSE = 120  # unknowns up to which the inverse itself is cheaper than the estimator
 
 
 def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN001
@@ -346,7 +346,7 @@ def stability_constant(lu, size: int, scale=None) -> float | None:  # noqa: ANN0
     from scipy.sparse.linalg import LinearOperator, onenormest
 
     inverse = 1.0 / np.asarray(scale, float) if scale is not None else np.ones(size)
-    if size <= _EXACT_INVERSE:  # small: the inverse itself is cheaper than the estimator's overhead
+    if size <= _EXACT_INVERSE:  # exact, and cheaper than the estimator at this size
         try:
             return float(np.max(np.sum(np.abs(lu.solve(np.diag(inverse))), axis=1)))
         except (ValueError, RuntimeError):  # pragma: no cover - degenerate input

@@ -155,3 +155,43 @@ def test_stability_constant_is_the_same_from_collocation_and_multiple_shooting(p
                            ["u'(0) = 0", "u(1) = 1", "v'(0) = 0", "v(1) = 0.1"], (0, 1))
     values = [bvpkit.solve(p, method=m, tol=1e-8).diagnostics.condition for m in ("collocation", "multiple_shooting")]
     assert values[0] == pytest.approx(values[1], rel=0.05)
+
+
+def _scipy_reference(case):
+    """The same problem through scipy.integrate.solve_bvp (the reference implementation of
+    the Lobatto IIIA collocation bvpkit runs on its own linear algebra)."""
+    from scipy.integrate import solve_bvp
+
+    if case == "bratu":
+        f = lambda x, y: np.vstack([y[1], -np.exp(y[0])])  # noqa: E731
+        bc = lambda a, b: np.array([a[0], b[0]])  # noqa: E731
+        x = np.linspace(0, 1, 11)
+        problem = bvpkit.Problem(["y'' + exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1))
+    elif case == "blasius":
+        f = lambda x, y: np.vstack([y[1], y[2], -0.5 * y[0] * y[2]])  # noqa: E731
+        bc = lambda a, b: np.array([a[0], a[1], b[1] - 1])  # noqa: E731
+        x = np.linspace(0, 10, 21)
+        problem = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(10) = 1"], (0, 10))
+    else:  # a coupled pair with a condition joining both ends (the sparse LU path)
+        f = lambda x, y: np.vstack([y[1], y[2] - y[0], y[3], -np.sin(y[0])])  # noqa: E731
+        bc = lambda a, b: np.array([a[0] - 1, b[0] + a[2], a[3], b[2] - 0.5])  # noqa: E731
+        x = np.linspace(0, 2, 11)
+        problem = bvpkit.Problem(["u'' = v - u", "v'' = -sin(u)"],
+                                 ["u(0) = 1", "u(2) = -v(0)", "v'(0) = 0", "v(2) = 0.5"], (0, 2))
+    y = np.zeros((4 if case == "pair" else (3 if case == "blasius" else 2), x.size))
+    if case == "blasius":
+        y[1] = x / 10
+    reference = solve_bvp(f, bc, x, y, tol=1e-9, max_nodes=100_000)
+    assert reference.status == 0, reference.message
+    return problem, reference
+
+
+@pytest.mark.parametrize("case", ["bratu", "blasius", "pair"])
+def test_collocation_matches_scipy_solve_bvp(case):
+    problem, reference = _scipy_reference(case)
+    sol = bvpkit.solve(problem, method="collocation", tol=1e-9)
+    assert sol.success, sol.message
+    points = np.linspace(reference.x[0], reference.x[-1], 57)
+    ours = np.vstack([sol.evaluate(name, at=points) for name in sol.state_names])
+    theirs = reference.sol(points)  # scipy.integrate.solve_bvp at tol 1e-9
+    assert np.max(np.abs(ours - theirs) / (1 + np.abs(theirs))) < 1e-8
