@@ -195,3 +195,25 @@ def test_collocation_matches_scipy_solve_bvp(case):
     ours = np.vstack([sol.evaluate(name, at=points) for name in sol.state_names])
     theirs = reference.sol(points)  # scipy.integrate.solve_bvp at tol 1e-9
     assert np.max(np.abs(ours - theirs) / (1 + np.abs(theirs))) < 1e-8
+
+
+@pytest.mark.parametrize("equations, conditions, domain", [
+    (["u'' = 2*u**2", "v'' = 2*v**2 - 2*u**2"], ["u'(0) = 0", "u(1) = 1", "v'(0) = 0", "v(1) = 0.1"], (0, 1)),
+    (["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(10) = 1"], (0, 10)),
+    (["0.01*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1)),
+    (["y'''' = 1"], ["y(0) = 0", "y'(0) = 0", "y''(1) = 0", "y'''(1) = 0"], (0, 1)),
+    (["y'' = 100*y"], ["y(0) = 1", "y(1) = 0"], (0, 1)),
+])
+def test_hager_estimate_of_the_stability_constant_equals_the_exact_norm(equations, conditions, domain, monkeypatch):
+    # exact value: the inverse of the same Newton matrix, formed column by column
+    from bvpkit import diagnostics
+    from bvpkit.discrete import CollocationEquations
+
+    sol = bvpkit.solve(bvpkit.Problem(equations, conditions, domain), method="collocation", tol=1e-6)
+    eq = CollocationEquations(sol._compiled, sol.x, sol._k)
+    lu = eq.factor(sol.y, sol._p)
+    monkeypatch.setattr(diagnostics, "_EXACT_INVERSE", 10**6)
+    exact = diagnostics.stability_constant(lu, lu.size, eq.row_scale())
+    monkeypatch.setattr(diagnostics, "_EXACT_INVERSE", 0)
+    estimate = diagnostics.stability_constant(lu, lu.size, eq.row_scale())
+    assert estimate == pytest.approx(exact, rel=1e-6)
