@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from . import collocation, continuation, scale, shooting, sweeps
+from . import collocation, continuation, scale, shooting, startup, sweeps
 from .harness import record
 
-SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS]
+SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
 
 
 def main(argv: list[str]) -> None:

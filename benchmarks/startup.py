@@ -1,0 +1,60 @@
+"""Whole-process start-up: `bvpkit solve SPEC` as an engineer runs it, cold and warm.
+
+Cold: an empty cache folder, so the spec is parsed and validated (pydantic), reduced and
+its code generated (SymPy). Warm: the same spec again; the prepared problem and generated
+code come from the cache (no SymPy, no pydantic) and the problem is solved afresh. The floor
+is a Python process that only imports what the warm path must (NumPy, SciPy's sparse and
+banded LU): no run of bvpkit can start faster.
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).parents[1]
+SPECS = ["cantilever_shelf.toml", "plate_boundary_layer.toml", "strut_buckling.toml"]
+_FLOOR = "import numpy, scipy.sparse.linalg, scipy.linalg.lapack"
+
+
+def _time(command: list[str], env: dict[str, str]) -> float:
+    start = time.perf_counter()
+    done = subprocess.run(command, env=env, cwd=ROOT, capture_output=True, text=True)
+    seconds = time.perf_counter() - start
+    if done.returncode not in (0,):
+        raise RuntimeError(f"{' '.join(command)} failed: {done.stdout[-200:]} {done.stderr[-200:]}")
+    return seconds
+
+
+def startup(repeats: int = 5) -> str:
+    lines = [
+        "### Whole-process `bvpkit solve`, cold and warm",
+        "",
+        f"Medians of {repeats} runs each, alternating; cold runs start from an empty cache folder. "
+        f"Floor: `python -c \"{_FLOOR}\"`.",
+        "",
+        "| spec | cold (s) | warm (s) | floor (s) |",
+        "| --- | --- | --- | --- |",
+    ]
+    for spec in SPECS:
+        cold, warm, floor = [], [], []
+        command = [sys.executable, "-m", "bvpkit", "solve", f"specs/{spec}"]
+        with tempfile.TemporaryDirectory() as kept:
+            warm_env = {**os.environ, "BVPKIT_CACHE_DIR": kept}
+            _time(command, warm_env)  # prepares the warm cache
+            for _ in range(repeats):
+                with tempfile.TemporaryDirectory() as empty:
+                    cold.append(_time(command, {**os.environ, "BVPKIT_CACHE_DIR": empty}))
+                warm.append(_time(command, warm_env))
+                floor.append(_time([sys.executable, "-c", _FLOOR], dict(os.environ)))
+        lines.append(f"| {spec} | {statistics.median(cold):.2f} | {statistics.median(warm):.2f} | "
+                     f"{statistics.median(floor):.2f} |")
+    return "\n".join(lines) + "\n"
+
+
+SECTIONS = [startup]
