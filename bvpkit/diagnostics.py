@@ -64,7 +64,8 @@ class Diagnostics:
         Max absolute residual of the boundary conditions.
     error_estimate : float
         Estimated max relative error ``|y - y_exact| / (1 + |y|)`` over the states:
-        discretisation (from a re-solve on a refined mesh) plus truncation.
+        discretisation (collocation: deferred correction of the solution with its own
+        Newton matrix; shooting: a re-solve with a tighter integrator) plus truncation.
     discretisation_error : float or None
         The part of ``error_estimate`` from the mesh.
     truncation_error : float or None
@@ -175,7 +176,7 @@ class Hermite:
 def hermite(compiled, x, y, p, k, physical: bool = False) -> Hermite:  # noqa: ANN001
     """The C1 cubic interpolant through the states with slopes from the equations.
 
-    For collocation this is the solution SciPy's ``solve_bvp`` itself returns; for shooting
+    For collocation this is the collocation solution itself (as in SciPy's ``solve_bvp``); for shooting
     it is a 4th-order accurate interpolant of the nodes. ``physical`` says that ``x`` is
     the physical variable of a rescaled (free-end) problem. Returns a callable
     ``(points) -> ndarray, shape (n, len(points))``.

@@ -5,8 +5,7 @@
 ``y_mid = (y_i + y_i+1)/2 - h/8 (f_i+1 - f_i)``, then the boundary conditions. The Jacobian
 is assembled from codegen's exact ``df/dy`` and ``df/dp`` (the block formulas are those of
 SciPy's own ``construct_global_jac``, with batched matrix products). Used by bvpkit's
-collocation solver, its error estimate (Newton on the halved mesh) and pseudo-arclength
-continuation.
+collocation solver (with its error estimate) and pseudo-arclength continuation.
 
 Linear algebra: when every boundary condition involves one end only and there are no
 unknown parameters, the rows are ordered left conditions, interval rows, right conditions,

@@ -20,7 +20,7 @@ from .errors import ProblemError
 
 sp = LazyModule("sympy")
 
-#: Nodes of the first mesh; solve_bvp refines it where the residual asks.
+#: Nodes of the first mesh; collocation refines it where the residual asks.
 INITIAL_NODES = 41
 
 
