@@ -197,7 +197,14 @@ class CollocationEquations:
             order = np.concatenate([base + left_rows, np.arange(base), base + right_rows])
             kl = ka + n - 1  # interval rows: row ka + i n + j, columns i n .. (i + 2) n - 1
             ku = max(2 * n - 1 - ka, n - 1)
-            self._layout = (order, kl, ku, 2 * kl + ku + 1, left_rows, right_rows)
+            ldab = 2 * kl + ku + 1
+            # flat positions (column-major banded storage) of the condition blocks' entries
+            size = n * m
+            positions = []
+            for rows, first_col in ((np.arange(ka), 0), (np.arange(size - right_rows.size, size), size - n)):
+                r, c = np.meshgrid(rows, first_col + np.arange(n), indexing="ij")
+                positions.append((c * ldab + kl + ku + r - c).ravel())
+            self._layout = (order, kl, ku, ldab, left_rows, right_rows, positions)
         return self._layout
 
     def _banded(self, blocks, scale: np.ndarray | None) -> tuple[np.ndarray, int, int, np.ndarray]:  # noqa: ANN001
@@ -209,7 +216,7 @@ class CollocationEquations:
         """
         from numpy.lib.stride_tricks import as_strided
 
-        order, kl, ku, ldab, left_rows, right_rows = self._band_layout()
+        order, kl, ku, ldab, left_rows, right_rows, positions = self._band_layout()
         left, right, _, (a, b, _) = blocks
         n, m = self.n, self.m
         size = n * m
@@ -224,13 +231,9 @@ class CollocationEquations:
         top = kl + ku + ka
         as_strided(flat[top:], shape=left.shape, strides=strides, writeable=True)[...] = left
         as_strided(flat[n * ldab + top - n:], shape=right.shape, strides=strides, writeable=True)[...] = right
-        ab = flat.reshape(size, ldab).T
-        cols = np.arange(n)
-        for rows, block, first_col in ((np.arange(ka), np.asarray(a)[left_rows], 0),
-                                       (np.arange(size - right_rows.size, size), np.asarray(b)[right_rows], size - n)):
-            r, c = np.meshgrid(rows, first_col + cols, indexing="ij")
-            ab[kl + ku + r - c, c] = block
-        return ab, kl, ku, order
+        flat[positions[0]] = np.asarray(a)[left_rows].ravel()
+        flat[positions[1]] = np.asarray(b)[right_rows].ravel()
+        return flat.reshape(size, ldab).T, kl, ku, order
 
     def factor(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None,
                scale: np.ndarray | None = None) -> Factored:

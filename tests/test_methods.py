@@ -217,3 +217,27 @@ def test_hager_estimate_of_the_stability_constant_equals_the_exact_norm(equation
     monkeypatch.setattr(diagnostics, "_EXACT_INVERSE", 0)
     estimate = diagnostics.stability_constant(lu, lu.size, eq.row_scale())
     assert estimate == pytest.approx(exact, rel=1e-6)
+
+
+# derivatives of the EXACT solutions above (analytic, differentiated by hand)
+EXACT_SLOPES = [
+    np.cos,
+    lambda x: 2 * np.exp(2 * x),
+    lambda x: -1 / (1 + x) ** 2,
+    lambda x: -np.exp(-x / 0.05) / 0.05 / np.expm1(-1 / 0.05),
+]
+
+
+@pytest.mark.parametrize("index", range(len(EXACT)))
+@pytest.mark.parametrize("tol", [1e-4, 1e-7])
+def test_collocation_estimate_is_within_a_factor_two_of_the_error_of_every_state(index, tol):
+    # the deferred-correction estimate measures the error of y and y' alike
+    make, exact, source = EXACT[index]
+    sol = bvpkit.solve(make(), tol=tol, method="collocation")
+    assert sol.success, sol.message
+    x = np.concatenate([sol.x, 0.5 * (sol.x[1:] + sol.x[:-1])])
+    errors = [np.abs(sol.evaluate(name, at=x) - f(x)) / (1 + np.abs(f(x)))
+              for name, f in (("y", exact), ("y'", EXACT_SLOPES[index]))]
+    true = max(float(np.max(e)) for e in errors)
+    estimate = sol.diagnostics.discretisation_error
+    assert 0.5 * true <= estimate <= 2 * true, (source, estimate, true)
