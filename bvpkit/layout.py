@@ -12,8 +12,29 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 
+class States:
+    """What a system's ``states`` (``(function, derivative order)`` per state) tell."""
+
+    states: tuple[tuple[str, int], ...]
+
+    @property
+    def n(self) -> int:
+        return len(self.states)
+
+    @property
+    def state_names(self) -> tuple[str, ...]:
+        """``("f", "f'", "f''")``: what each state holds, as a person writes it."""
+        return tuple(name + "'" * k for name, k in self.states)
+
+    def index(self, name: str, order: int) -> int:
+        return self.states.index((name, order))
+
+    def order(self, name: str) -> int:
+        return 1 + max(k for f, k in self.states if f == name)
+
+
 @dataclass(frozen=True)
-class StateLayout:
+class StateLayout(States):
     """Plain facts of a first-order system.
 
     Attributes
@@ -46,21 +67,6 @@ class StateLayout:
     eigenvalue: int | None = None
     mode: int | None = None
     users: int = 0
-
-    @property
-    def n(self) -> int:
-        return len(self.states)
-
-    @property
-    def state_names(self) -> tuple[str, ...]:
-        """``("f", "f'", "f''")``: what each state holds, as a person writes it."""
-        return tuple(name + "'" * k for name, k in self.states)
-
-    def index(self, name: str, order: int) -> int:
-        return self.states.index((name, order))
-
-    def order(self, name: str) -> int:
-        return 1 + max(k for f, k in self.states if f == name)
 
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)

@@ -16,6 +16,7 @@ from sympy.core.function import AppliedUndef
 
 from .errors import ProblemError
 from .expr import DomainIntegral
+from .layout import States
 
 X = sp.Symbol("_x")
 
@@ -29,7 +30,7 @@ def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
 
 
 @dataclass(frozen=True)
-class FirstOrderSystem:
+class FirstOrderSystem(States):
     """A first-order system ``y' = rhs(x, y, p, k)`` with conditions ``bc(ya, yb, p, k) = 0``.
 
     Attributes
@@ -89,24 +90,9 @@ class FirstOrderSystem:
         object.__setattr__(self, "p", _symbols("p", len(self.parameters)))
         object.__setattr__(self, "k", _symbols("k", len(self.constants)))
 
-    @property
-    def n(self) -> int:
-        return len(self.states)
-
-    @property
-    def state_names(self) -> tuple[str, ...]:
-        """``("f", "f'", "f''")``: what each state holds, as a person writes it."""
-        return tuple(name + "'" * k for name, k in self.states)
-
     def layout(self) -> str:
         """The state layout as one line, for messages: ``y0 = f, y1 = f', y2 = f''``."""
         return ", ".join(f"y{i} = {s}" for i, s in enumerate(self.state_names))
-
-    def index(self, name: str, order: int) -> int:
-        return self.states.index((name, order))
-
-    def order(self, name: str) -> int:
-        return 1 + max(k for f, k in self.states if f == name)
 
     def state_layout(self):  # noqa: ANN201 - a bvpkit.layout.StateLayout
         """The plain facts of this system (what the numerical side needs; no SymPy)."""
