@@ -167,25 +167,42 @@ def read_cache(key: str) -> tuple[str, np.ndarray, np.ndarray] | None:
 
 
 def write_cache(key: str, source: str, pattern: np.ndarray, sides: np.ndarray) -> None:
-    """Write atomically: a temporary file in the same folder, then os.replace (safe for concurrent writers)."""
+    """Keep generated code on disk (see :func:`write_atomically`)."""
     import hashlib
     import json
-    import os
-    import tempfile
 
     path = _cache_file(key)
     if path is None:
         return
     data = {"key": key, "source": source, "pattern": pattern.tolist(), "sides": sides.tolist(),
             "sha256": hashlib.sha256(source.encode()).hexdigest()}
+    write_atomically(path, json.dumps(data))
+
+
+CACHE_KEEP = 500  # files of each kind (system-, problem-) kept; the oldest go first
+
+
+def write_atomically(path: Any, text: str) -> None:
+    """Write a cache file: a temporary file in the same folder, then ``os.replace`` (safe
+    for concurrent writers and readers); then drop the oldest files of the same kind beyond
+    ``CACHE_KEEP``. Never raises: a read-only or full disk costs speed, not correctness."""
+    import os
+    import tempfile
+
+    kind = path.name.split("-", 1)[0]
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        handle, temporary = tempfile.mkstemp(prefix=".system-", suffix=".tmp", dir=path.parent)
+        handle, temporary = tempfile.mkstemp(prefix=f".{kind}-", suffix=".tmp", dir=path.parent)
         with os.fdopen(handle, "w") as out:
-            json.dump(data, out)
+            out.write(text)
         os.replace(temporary, path)
+        files = list(path.parent.glob(f"{kind}-*.json"))
+        if len(files) > CACHE_KEEP:
+            files.sort(key=lambda f: f.stat().st_mtime)
+            for old in files[: len(files) - CACHE_KEEP]:
+                old.unlink(missing_ok=True)
     except OSError:
-        pass  # a read-only or full disk costs speed, not correctness
+        pass
 
 
 _FUNCTIONS = ["rhs", "jac", "pjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p", "physical", "singular_matrix",

@@ -10,8 +10,8 @@ SymPy; anything the facts do not cover (a new expression, a guess on another mes
 the symbolic parts on demand. The solve itself is done afresh every time: only the
 preparation is cached.
 
-A cache file is written atomically (temporary file, then ``os.replace``) and carries a
-SHA-256 checksum; one that is unreadable, tampered with or from another version is ignored
+A cache file is written atomically (temporary file, then ``os.replace``; the oldest files
+beyond ``compiled.CACHE_KEEP`` are dropped) and carries a SHA-256 checksum; one that is unreadable, tampered with or from another version is ignored
 and rewritten. Generated code is re-checked by ``compiled.check_source`` before it runs.
 """
 
@@ -19,15 +19,13 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
-import tempfile
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from .compiled import _cache_dir, build_quantity
+from .compiled import _cache_dir, build_quantity, write_atomically
 from .problem import Problem
 
 _KIND = "problem"
@@ -101,10 +99,6 @@ def remember(key: str | None, problem: Problem) -> None:
                   for k, (y, p) in problem.__dict__.get("_starts", {}).items()}
         body = {"key": key, "problem": problem.plain(), "starts": starts, "quantities": quantities}
         text = json.dumps({"body": body, "sha256": _checksum(body)})
-        path.parent.mkdir(parents=True, exist_ok=True)
-        handle, temporary = tempfile.mkstemp(prefix=f".{_KIND}-", suffix=".tmp", dir=path.parent)
-        with os.fdopen(handle, "w") as out:
-            out.write(text)
-        os.replace(temporary, path)
-    except (OSError, TypeError, ValueError, AttributeError):
-        pass  # not JSON-ready (SymPy objects in the arguments) or no room: costs speed only
+    except (TypeError, ValueError, AttributeError):
+        return  # not JSON-ready (SymPy objects in the arguments): costs speed only
+    write_atomically(path, text)

@@ -164,3 +164,19 @@ def test_importing_bvpkit_imports_no_sympy():
     code = "import sys, bvpkit; bvpkit.Status; print('sympy' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout.strip()
     assert out == "False"
+
+
+def test_the_cache_keeps_only_the_newest_files_of_a_kind(cache, monkeypatch):
+    import os
+    import time
+
+    from bvpkit import compiled
+
+    monkeypatch.setattr(compiled, "CACHE_KEEP", 3)
+    for i in range(5):
+        compiled.write_atomically(cache / f"problem-{i}-x.json", "{}")
+        os.utime(cache / f"problem-{i}-x.json", (time.time() - 100 + i, time.time() - 100 + i))
+    compiled.write_atomically(cache / "system-a-x.json", "{}")
+    assert sorted(p.name for p in cache.glob("problem-*.json")) == ["problem-2-x.json", "problem-3-x.json",
+                                                                    "problem-4-x.json"]
+    assert (cache / "system-a-x.json").exists()  # other kinds are counted apart
