@@ -10,9 +10,8 @@ of the Jacobian after full steps and the stopping rule follow ``solve_bvp``, so 
 tolerance means the same here as there. Problems with a term singular at the left end go
 through ``solve_bvp`` itself (with the exact Jacobians), which treats that term.
 
-Error estimate: the final mesh is halved and the collocation equations solved there from
-the solution (one LU, a few chord steps); with a 4th-order method the difference is close
-to the error of the coarse solution.
+Error estimate: deferred correction (:func:`_defect_correction`), one solve with the last
+Newton matrix; with a singular term, a re-solve on the halved mesh.
 """
 
 from __future__ import annotations
@@ -26,7 +25,6 @@ from ..discrete import CollocationEquations, SingularMatrix
 from ..status import Status
 from .base import Method, Outcome, Trial
 
-_REFINE_STEPS = 6  # chord steps on the halved mesh; two or three reach it from the coarse solution
 _ROUNDS = 10  # mesh refinements (as solve_bvp)
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 # Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
@@ -177,7 +175,7 @@ class Collocation(Method):
                 p,
             )
         if trial.singular is not None:
-            return self._solve_singular(trial, x, y, p)
+            return self._scipy(trial, x, y, p)
         return self._lobatto(trial, x, y, p)
 
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
@@ -231,8 +229,8 @@ class Collocation(Method):
             message = "Newton's method did not meet the boundary-condition tolerance; " + status.hint
         return Outcome(status, message, x, y, p, iterations=int(iterations))
 
-    def _solve_singular(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
-        """SciPy's ``solve_bvp``, which treats the singular term ``S y / (x - a)``."""
+    def _scipy(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
+        """SciPy's ``solve_bvp`` with the exact Jacobians (it treats a singular term ``S y / (x - a)``)."""
         from scipy.integrate import solve_bvp
 
         c, k = trial.compiled, trial.k
@@ -289,51 +287,13 @@ class Collocation(Method):
         return result
 
     def _halved(self, trial: Trial, outcome: Outcome) -> Outcome:
-        """The solution on the halved mesh, by chord steps on the collocation equations.
-
-        Started from the coarse solution, which is already within its error of the fine
-        one, two or three steps with one LU reach the fine discrete solution; that LU also
-        gives the stability constant. Problems with a singular term go through
-        ``solve_bvp`` instead.
-        """
+        """The solution on the halved mesh by SciPy's ``solve_bvp``, started from ``outcome``
+        (for a singular term, which ``solve_bvp`` treats, and for an outcome that does not
+        come with the workspace of this solver)."""
         x = outcome.x
         fine = np.unique(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
         spacing = np.diff(fine) > 1e-13 * max(1.0, float(np.abs(fine).max()))
         fine = fine[np.concatenate([[True], spacing])]
         y = hermite(trial.compiled, x, outcome.y, outcome.p, trial.k)(fine)
-        if trial.singular is not None:
-            refined = dataclasses.replace(
-                trial, x=fine, y=y, p=outcome.p, max_nodes=max(trial.max_nodes, 2 * fine.size)
-            )
-            return self._solve(refined)
-        equations = CollocationEquations(trial.compiled, fine, trial.k)
-        z = equations.join(y, outcome.p)
-        scale = equations.row_scale()
-        if not np.all(np.isfinite(z)):
-            return Outcome(Status.NON_FINITE, "the refined collocation equations hold NaN or inf", fine, y, outcome.p)
-        try:
-            lu = equations.factor(y, outcome.p, scale=scale)
-        except SingularMatrix:
-            return Outcome(Status.SINGULAR, "the refined collocation matrix is singular", fine, y, outcome.p)
-        last = np.inf
-        for step in range(1, _REFINE_STEPS + 1):
-            residual = equations.residual(z)
-            if not np.all(np.isfinite(residual)):
-                return Outcome(Status.NON_FINITE, "the refined collocation equations hold NaN or inf", fine, y,
-                               outcome.p)
-            delta = lu.solve(-scale * residual)
-            z = z + delta
-            size = float(np.max(np.abs(delta) / (1.0 + np.abs(z))))
-            if size <= 1e-3 * trial.tol:
-                break
-            if size > 0.25 * last:  # slow chord convergence: a fresh Newton matrix
-                y_now, p_now = equations.split(z)
-                try:
-                    lu = equations.factor(y_now, p_now, scale=scale)
-                except SingularMatrix:
-                    return Outcome(Status.SINGULAR, "the refined collocation matrix is singular", fine, y, outcome.p)
-            last = size
-        y_fine, p_fine = equations.split(z)
-        result = Outcome(Status.SOLVED, "refined", fine, y_fine, p_fine, iterations=step)
-        result.condition = stability_constant(lu, lu.size)
-        return result
+        refined = dataclasses.replace(trial, x=fine, y=y, p=outcome.p, max_nodes=max(trial.max_nodes, 2 * fine.size))
+        return self._scipy(refined, fine, y, np.asarray(outcome.p, float))
