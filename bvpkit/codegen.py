@@ -152,7 +152,7 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
     """Generate (or fetch from the in-process or disk cache) the callables of ``system``.
 
     The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is
-    keyed by the system's content and the bvpkit version; generated code is re-checked by
+    keyed by the system's content and the bvpkit code (compiled.code_stamp); generated code is re-checked by
     :func:`check_source` before it is compiled, whatever its origin.
     """
     key = system.key()

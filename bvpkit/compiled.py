@@ -1,7 +1,7 @@
 """Compiled systems: the numerical callables of a first-order system, and their disk cache.
 
 Nothing here imports SymPy: a system whose generated code is in the cache (keyed by its
-content and the bvpkit version) is rebuilt from that code alone. ``codegen.py`` writes the
+content and the bvpkit code, see code_stamp) is rebuilt from that code alone. ``codegen.py`` writes the
 code in the first place.
 
 The generated source holds only internal names (``_x``, ``_y0``, ``_p0``, ``_k0``, ``_t0``)
@@ -142,10 +142,31 @@ def _cache_dir():  # noqa: ANN202
 
 
 def _cache_file(key: str):  # noqa: ANN202
-    from . import __version__
-
     folder = _cache_dir()
-    return None if folder is None else folder / f"system-{key}-{__version__}.json"
+    return None if folder is None else folder / f"system-{key}-{code_stamp()}.json"
+
+
+_STAMP: list[str] = []
+
+
+def code_stamp() -> str:
+    """The bvpkit version and a hash of its source files' names, sizes and modification
+    times: part of every cache file's name, so that code changed in place (a development
+    checkout) never meets files written by the old code."""
+    if not _STAMP:
+        import hashlib
+        import os
+
+        from . import __version__
+
+        folder = os.path.dirname(os.path.abspath(__file__))
+        digest = hashlib.sha256()
+        for root, _, files in sorted(os.walk(folder)):
+            for name in sorted(f for f in files if f.endswith(".py")):
+                info = os.stat(os.path.join(root, name))
+                digest.update(f"{os.path.relpath(os.path.join(root, name), folder)}:{info.st_size}:{info.st_mtime_ns};".encode())
+        _STAMP.append(f"{__version__}-{digest.hexdigest()[:12]}")
+    return _STAMP[0]
 
 
 def read_cache(key: str) -> tuple[str, np.ndarray, np.ndarray] | None:

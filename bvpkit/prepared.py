@@ -4,7 +4,7 @@ The first ``bvpkit solve`` of a spec parses its text, reduces the equations and 
 code (SymPy's work, most of a second). It then keeps, in the cache folder beside the
 generated code, the plain facts of the problem (``Problem.plain``), the starting guesses it
 computed and the generated code of the spec's outputs, under a key made of the spec file's
-bytes, the ``--set`` values and the bvpkit version. The next run with the same key rebuilds
+bytes, the ``--set`` values and the bvpkit code (``compiled.code_stamp``). The next run with the same key rebuilds
 the problem from those facts (``Problem.from_plain``) and solves it without importing
 SymPy; anything the facts do not cover (a new expression, a guess on another mesh) builds
 the symbolic parts on demand. The solve itself is done afresh every time: only the
@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from .compiled import _cache_dir, build_quantity, write_atomically
+from .compiled import _cache_dir, build_quantity, code_stamp, write_atomically
 from .problem import Problem
 
 _KIND = "problem"
@@ -33,24 +33,20 @@ _KIND = "problem"
 
 def spec_key(path: str | Path, overrides: Mapping[str, float]) -> str | None:
     """Key of a spec file with ``--set`` values (None when the file cannot be read)."""
-    from . import __version__
-
     try:
         data = Path(path).read_bytes()
     except OSError:
         return None
     digest = hashlib.sha256()
-    digest.update(__version__.encode())
+    digest.update(code_stamp().encode())
     digest.update(b"\0" + data + b"\0")
     digest.update(json.dumps(sorted(overrides.items())).encode())
     return digest.hexdigest()[:32]
 
 
 def _file(key: str) -> Path | None:
-    from . import __version__
-
     folder = _cache_dir()
-    return None if folder is None else folder / f"{_KIND}-{key}-{__version__}.json"
+    return None if folder is None else folder / f"{_KIND}-{key}-{code_stamp()}.json"
 
 
 def _checksum(body: Mapping[str, Any]) -> str:
