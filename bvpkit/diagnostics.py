@@ -250,9 +250,9 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     at = np.unique(np.concatenate([np.arange(0, x.size, every), [x.size - 1]]))
     with np.errstate(all="ignore"):
         jac = compiled.jac(x[at], y[:, at], p, k)  # (n, n, len(at))
-        finite = bool(np.all(np.isfinite(jac)))
+        finite = bool(np.isfinite(jac).all())
         eig = np.linalg.eigvals(np.moveaxis(jac, -1, 0)) if finite else np.full((at.size, 1), np.nan)
-    if not np.all(np.isfinite(eig)):
+    if not np.isfinite(eig).all():
         return Survey(float(x[-1] - x[0]), math.inf, math.inf, np.full(x.size, np.inf))
     sampled = np.maximum(eig.real.max(axis=1), 0.0)
     rates = np.interp(x, x[at], sampled)
@@ -321,7 +321,7 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
     matrix = sparse.csc_matrix(
         (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(size, size)
     )
-    if not np.all(np.isfinite(matrix.data)):
+    if not np.isfinite(matrix.data).all():
         return math.inf
     try:
         lu = splu(matrix)

@@ -211,12 +211,10 @@ class CollocationEquations:
     def _banded(self, blocks, scale: np.ndarray | None) -> tuple[np.ndarray, int, int, np.ndarray]:  # noqa: ANN001
         """LAPACK banded storage ``ab[kl + ku + r - c, c] = M[r, c]`` of the Newton matrix.
 
-        The interval blocks are written through strided views (entry ``(i, r, c)`` of the
+        The interval blocks are written through strided views of the storage (entry ``(i, r, c)`` of the
         left block goes to ``ab[kl + ku + ka + r - c, i n + c]``), no index arrays; ``ab`` is
         column-major, as LAPACK takes it.
         """
-        from numpy.lib.stride_tricks import as_strided
-
         order, kl, ku, ldab, left_rows, right_rows, positions = self._band_layout()
         left, right, _, (a, b, _) = blocks
         n, m = self.n, self.m
@@ -230,8 +228,8 @@ class CollocationEquations:
         item = flat.itemsize
         strides = (n * ldab * item, item, (ldab - 1) * item)
         top = kl + ku + ka
-        as_strided(flat[top:], shape=left.shape, strides=strides, writeable=True)[...] = left
-        as_strided(flat[n * ldab + top - n:], shape=right.shape, strides=strides, writeable=True)[...] = right
+        for block, offset in ((left, top), (right, n * ldab + top - n)):
+            np.ndarray(block.shape, float, flat, offset * item, strides)[...] = block
         flat[positions[0]] = np.asarray(a)[left_rows].ravel()
         flat[positions[1]] = np.asarray(b)[right_rows].ravel()
         return flat.reshape(size, ldab).T, kl, ku, order
@@ -246,7 +244,7 @@ class CollocationEquations:
         size = self.n * self.m + self.n_p
         if not self.banded:
             matrix = self._sparse(blocks, scale)
-            if not np.all(np.isfinite(matrix.data)):
+            if not np.isfinite(matrix.data).all():
                 raise SingularMatrix("the collocation matrix holds NaN or inf")
             try:
                 return Factored(size, lu=splu(matrix))
@@ -258,7 +256,7 @@ class CollocationEquations:
         lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
         if info > 0:
             raise SingularMatrix("the collocation matrix is singular")
-        if not np.all(np.isfinite(lu[kl + ku])):  # NaN or inf anywhere in the matrix reach U's diagonal
+        if not np.isfinite(lu[kl + ku]).all():  # NaN or inf anywhere in the matrix reach U's diagonal
             raise SingularMatrix("the collocation matrix holds NaN or inf")
         return Factored(size, band=(lu, piv, kl, ku), rows=order)
 
@@ -278,14 +276,14 @@ class CollocationEquations:
         for it in range(1, _MAX_NEWTON + 1):
             g = self.residual(z)
             r = np.concatenate([g, [float(np.sum(self.weights * tangent * (z - predicted)))]])
-            if not np.all(np.isfinite(r)):
+            if not np.isfinite(r).all():
                 return None, it
             try:
                 step = splu(sparse.vstack([self.jacobian(z), border]).tocsc()).solve(-r)
             except RuntimeError:
                 return None, it
             z = z + step
-            if not np.all(np.isfinite(z)):
+            if not np.isfinite(z).all():
                 return None, it
             if np.max(np.abs(step) / (1.0 + np.abs(z))) <= 0.01 * tol:
                 return z, it

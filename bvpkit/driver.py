@@ -277,7 +277,7 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
         truncation_length=length,
         condition=(outcome.condition if outcome.condition is not None
                    else condition_estimate(compiled, outcome.x, outcome.y, outcome.p, k))
-        if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.all(np.isfinite(outcome.y))
+        if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all()
         else None,
         seconds=time.perf_counter() - start,
         attempts=attempts,
@@ -285,7 +285,7 @@ def _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
         tol=tol,
     )
     # The last guard: success never comes with non-finite values or an estimate above tol.
-    if status is Status.SOLVED and not (np.all(np.isfinite(outcome.y)) and np.all(np.isfinite(outcome.p))):
+    if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
     if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
         status = Status.ERROR_TOO_LARGE

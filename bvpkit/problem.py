@@ -262,7 +262,7 @@ class Problem:
                     f"'{name}' appears without derivatives: every unknown function needs a "
                     "derivative in the equations (algebraic unknowns are not supported)"
                 )
-        return orders
+        return {name: int(order) for name, order in orders.items()}  # plain ints, not SymPy's
 
     def _domain(self, domain: Sequence[Any]) -> tuple[sp.Expr, sp.Expr]:
         if isinstance(domain, str) or not isinstance(domain, Sequence | tuple) or len(domain) != 2:

@@ -93,7 +93,7 @@ class Solution:
         self._spline = hermite(compiled, self.x, self.y, self._p, self._k, physical=True)
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
-        if self.x.size and np.all(np.isfinite(self.y)):
+        if self.x.size and np.isfinite(self.y).all():
             for name, text in problem.outputs.items():
                 self.outputs[name], self.output_errors[name] = self._output(text)
 
@@ -319,7 +319,7 @@ class Solution:
 
     def _check_inside(self, points: np.ndarray, x: np.ndarray) -> None:
         slack = 1e-12 * max(1.0, abs(x[0]), abs(x[-1]))
-        if not np.all(np.isfinite(points)) or points.min() < x[0] - slack or points.max() > x[-1] + slack:
+        if not np.isfinite(points).all() or points.min() < x[0] - slack or points.max() > x[-1] + slack:
             bad = points[~((points >= x[0] - slack) & (points <= x[-1] + slack))]
             shown = bad[0] if bad.size else float("nan")
             note = " (the infinite domain was truncated there)" if any(self.problem.infinite) else ""

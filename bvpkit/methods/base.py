@@ -154,7 +154,7 @@ class Method:
             return outcome
 
     def _checked(self, outcome: Outcome) -> Outcome:
-        if outcome.ok and not (np.all(np.isfinite(outcome.y)) and np.all(np.isfinite(outcome.p))):
+        if outcome.ok and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
             bad = np.argwhere(~np.isfinite(outcome.y))
             where = f" at x = {outcome.x[bad[0][1]]:.6g}" if len(bad) else " in the parameters"
             outcome.status = Status.NON_FINITE

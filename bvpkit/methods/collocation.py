@@ -77,7 +77,7 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
         if njev == 4 or not np.isfinite(cost_new):
             break
         col, bc, _, _, fm = parts
-        if np.all(np.abs(col) < tol_r * (1 + np.abs(fm))) and np.all(np.abs(bc) < tol):
+        if (np.abs(col) < tol_r * (1 + np.abs(fm))).all() and (np.abs(bc) < tol).all():
             break
         if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp and BVP_SOLVER do)
             step, cost, recompute = step_new, cost_new, False
@@ -159,10 +159,10 @@ class Collocation(Method):
         p = np.asarray(trial.p, float)
         if x.size < 2 or not np.all(np.diff(x) > 0):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x, y, p)
-        if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
+        if not (np.isfinite(y).all() and np.isfinite(p).all()):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
         f0 = c.rhs(x, y, p, k)
-        if not np.all(np.isfinite(f0)):
+        if not np.isfinite(f0).all():
             i, j = np.argwhere(~np.isfinite(f0))[0]
             names = c.layout.state_names
             values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
@@ -189,11 +189,11 @@ class Collocation(Method):
                 code = 2
                 break
             iterations += used
-            if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
+            if not (np.isfinite(y).all() and np.isfinite(p).all()):
                 return Outcome(Status.NON_FINITE, "Newton's method ran into NaN or inf; " + Status.NON_FINITE.hint,
                                x, y, p, iterations=iterations)
             rms = _rms_residuals(eq, y, p, parts)
-            if not np.all(np.isfinite(rms)):
+            if not np.isfinite(rms).all():
                 return Outcome(Status.NON_FINITE, "the residual holds NaN or inf; " + Status.NON_FINITE.hint,
                                x, y, p, iterations=iterations)
             one = np.flatnonzero((rms > tol) & (rms < 100 * tol))
