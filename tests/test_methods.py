@@ -241,3 +241,18 @@ def test_collocation_estimate_is_within_a_factor_two_of_the_error_of_every_state
     true = max(float(np.max(e)) for e in errors)
     estimate = sol.diagnostics.discretisation_error
     assert 0.5 * true <= estimate <= 2 * true, (source, estimate, true)
+
+
+@pytest.mark.parametrize("eps, tol", [(1e-4, 1e-8), (1e-5, 1e-6)])
+def test_collocation_refines_as_long_as_it_adds_nodes(eps, tol):
+    # a layer of width eps needs many rounds of refinement (solve_bvp takes 11 and 12 here);
+    # the estimate stays honest down in the layer
+    p = bvpkit.Problem(["eps*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1), constants={"eps": eps})
+    sol = bvpkit.solve(p, tol=tol, method="collocation")
+    assert sol.success, sol.message
+    x = np.unique(np.concatenate([sol.x, 0.5 * (sol.x[1:] + sol.x[:-1])]))
+    exact = np.expm1(-x / eps) / np.expm1(-1 / eps)  # analytic: (1 - exp(-x/eps)) / (1 - exp(-1/eps))
+    slope = -np.exp(-x / eps) / eps / np.expm1(-1 / eps)  # analytic: its derivative
+    true = max(float(np.max(np.abs(sol.evaluate("y", at=x) - exact) / (1 + np.abs(exact)))),
+               float(np.max(np.abs(sol.evaluate("y'", at=x) - slope) / (1 + np.abs(slope)))))
+    assert 0.5 * true <= sol.diagnostics.error_estimate <= 2 * true

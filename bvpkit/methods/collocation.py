@@ -25,7 +25,7 @@ from ..discrete import CollocationEquations, SingularMatrix
 from ..status import Status
 from .base import Method, Outcome, Trial
 
-_ROUNDS = 10  # mesh refinements (as solve_bvp)
+_ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 # Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
 _D = 0.5 * np.sqrt(3 / 7)  # = sqrt(21) / 14
@@ -180,8 +180,9 @@ class Collocation(Method):
 
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
         tol = max(trial.tol, 1e-13)
-        iterations, rms, code = 0, None, 3
-        for _ in range(_ROUNDS):
+        iterations, rms, code, rounds = 0, None, 3, 0
+        while True:  # ends: nodes are added each round until the residual is met or max_nodes is hit
+            rounds += 1
             eq = CollocationEquations(trial.compiled, x, trial.k)
             try:
                 y, p, used, parts, lu = _newton(eq, y, p, tol)
@@ -207,8 +208,11 @@ class Collocation(Method):
                                             (x[two] + 2 * x[two + 1]) / 3]))
                 y = spline(x)
                 continue
-            code = 0 if np.max(np.abs(parts[1]), initial=0.0) <= tol else 3
-            break
+            if np.max(np.abs(parts[1]), initial=0.0) <= tol:
+                code = 0
+                break
+            if rounds >= _ROUNDS:  # the residual is met but the conditions are not: Newton again, within limits
+                break
         outcome = self._outcome(trial, code, x, y, p, iterations, rms)
         if code == 0:
             outcome.workspace = (eq, parts, lu)  # for the error estimate
