@@ -175,7 +175,7 @@ class Solution:
         for name, value in self.outputs.items():
             lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.output_errors[name])})")
         facts = [
-            f"{d.iterations} Newton iterations",
+            f"{d.iterations} Newton iteration{_s(d.iterations)}",
             f"{d.mesh_nodes} nodes",
             f"residual {d.max_residual:.2g}",
             f"boundary residual {d.bc_residual:.2g}",
@@ -337,6 +337,10 @@ class Solution:
         total = float(np.sum(values.reshape(h.size, -1) * (0.5 * h[:, None] * weights[None, :])))
         tail = float(self._evaluate_on(x, y, p, expression, [x[-1]])[0])
         return total, tail
+
+
+def _s(count: int) -> str:
+    return "" if count == 1 else "s"
 
 
 def _fmt_err(value: float | None) -> str:

@@ -221,7 +221,7 @@ class Collocation(Method):
     def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms) -> Outcome:  # noqa: ANN001
         status = _STATUS.get(code, Status.NOT_CONVERGED)
         if status is Status.SOLVED:
-            message = f"converged in {iterations} Newton iterations on {x.size} nodes"
+            message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} on {x.size} nodes"
         elif status is Status.MESH_LIMIT:
             message = (
                 f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms)} raise "

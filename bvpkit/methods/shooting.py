@@ -387,7 +387,7 @@ class Shooting(Method):
                 break
             x = np.sort(np.concatenate([x, mid[bad]]))
             y = states(x)
-        outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iterations with {segments} "
+        outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} with {segments} "
                           f"segment{'s' if segments > 1 else ''} ({'Radau' if stiff else 'DOP853'})",
                           x, y, p, iterations=iterations)
         outcome.nodes = nodes  # type: ignore[attr-defined]
