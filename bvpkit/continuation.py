@@ -9,7 +9,10 @@ Two steppers, switched automatically:
   the collocation equations of ``solve_bvp`` (3-stage Lobatto IIIA) on the mesh of the last
   solution, with the parameter as one more unknown, bordered by the arclength equation.
   Their Jacobian is exact (from codegen's ``df/dy``, ``df/dp``) and sparse; the tangent is
-  the solution of the bordered system ``[G_z; t_prev] t = [0; 1]``.
+  the solution of the bordered system ``[G_z; t_prev] t = [0; 1]``. Each arclength point
+  carries collocation's deferred-correction error estimate; one whose estimate misses the
+  tolerance is solved again at its parameter value with mesh refinement, and the arclength
+  steps go on on the refined mesh.
 
 A fold is a sign change of the tangent's parameter component; it is located by Brent's
 method on that component along the arclength, on the mesh and on the halved mesh (their
@@ -277,19 +280,71 @@ class _Tracer:
         y = sol.y if x is None else sol._states(np.clip(x, sol.x[0], sol.x[-1]))
         return np.concatenate([y.T.ravel(), np.insert(sol._p, self.lam_at, value)])
 
-    def _solution(self, disc: CollocationEquations, z: np.ndarray, iterations: int, seconds: float) -> Solution:
+    def _solution(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray, iterations: int,
+                  seconds: float, fold: bool = False) -> Solution:
         y, pz = disc.split(z)
         value = float(pz[self.lam_at])
         p = np.delete(pz, self.lam_at)
         problem = self.problem.with_constants(**{self.name: value})
         k = np.array([problem.constants[c] for c in problem.system.constants], float)
         residual, bc = residuals(self.compiled, disc.x, y, p, k)
+        estimate, reference = self._estimate(disc, z, t, k, fold)
         attempt = Attempt("arclength", "the branch turns: pseudo-arclength step on the collocation equations",
-                          "solved", "converged", iterations, disc.m, seconds, (float(disc.x[0]), float(disc.x[-1])))
-        d = Diagnostics("arclength", iterations, disc.m, residual, bc, math.nan, seconds=seconds,
-                        attempts=[attempt], selection="pseudo-arclength continuation near a fold")
-        return Solution(problem, self.compiled, k, Status.SOLVED,
-                        f"pseudo-arclength point, {self.name} = {value:.10g}", "arclength", disc.x, y, p, d)
+                          "solved", "converged", iterations, disc.m, seconds, (float(disc.x[0]), float(disc.x[-1])),
+                          estimate)
+        d = Diagnostics("arclength", iterations, disc.m, residual, bc, estimate, discretisation_error=estimate,
+                        seconds=seconds, attempts=[attempt], selection="pseudo-arclength continuation near a fold",
+                        tol=self.tol)
+        status, message = Status.SOLVED, f"pseudo-arclength point, {self.name} = {value:.10g}"
+        if math.isfinite(estimate) and estimate > self.tol:
+            status = Status.ERROR_TOO_LARGE
+            message += (f", but its estimated error {estimate:.2g} is above the tolerance {self.tol:.2g} "
+                        "(near a fold the states are sensitive to the parameter; arclength steps keep their mesh)")
+        return Solution(problem, self.compiled, k, status, message, "arclength", disc.x, y, p, d, reference=reference)
+
+    def _estimate(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray, k: np.ndarray,  # noqa: ANN202
+                  fold: bool = False):
+        """Error of an arclength point by deferred correction, as collocation's own estimate:
+        the error of its states against the exact solution at its parameter value (the defect
+        solved with the Newton matrix at that value; it grows, truthfully, as the point nears
+        a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
+        exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
+        Returns the estimate and the corrected point ``(x, y, p)``."""
+        import scipy.sparse as sparse
+        from scipy.sparse.linalg import splu
+
+        from .discrete import SingularMatrix
+        from .methods.base import Outcome, Trial, compare
+        from .methods.collocation import _defect_correction
+
+        y, pz = disc.split(z)
+        p = np.delete(pz, self.lam_at)
+        with np.errstate(all="ignore"):
+            fixed = CollocationEquations(self.compiled, disc.x, k)
+            parts = fixed.parts(y, p)
+            try:
+                if fold:
+                    raise SingularMatrix("at a fold")
+                eq, y0, p0, lu, trial = fixed, y, p, fixed.factor(y, p, parts[3]), Trial(self.compiled, disc.x, y, p, k, self.tol)
+            except SingularMatrix:
+                try:
+                    bordered = splu(sparse.vstack([disc.jacobian(z), sparse.csr_matrix(t * disc.weights)]).tocsc())
+                except RuntimeError:
+                    return math.nan, None
+
+                class lu:  # noqa: N801 - the arclength row of the correction is zero
+                    @staticmethod
+                    def solve(b: np.ndarray) -> np.ndarray:
+                        return bordered.solve(np.append(b, 0.0))
+
+                eq, y0, p0, parts, trial = disc, y, pz, disc.parts(y, pz), Trial(self.free, disc.x, y, pz, self.k_free,
+                                                                                 self.tol)
+            x2, y2, p2 = _defect_correction(eq, y0, p0, parts, lu)
+            estimate, _ = compare(Outcome(Status.SOLVED, "", disc.x, y0, p0), Outcome(Status.SOLVED, "", x2, y2, p2),
+                                  trial)
+        if not math.isfinite(estimate):
+            return math.nan, None
+        return estimate, (x2, y2, p2 if eq is fixed else np.delete(p2, self.lam_at))
 
     def _inside(self, value: float) -> bool:
         slack = 1e-12 * max(1.0, abs(self.lo), abs(self.hi))
@@ -433,7 +488,7 @@ class _Tracer:
             lam_old, lam_new = z[-disc.n_p + self.lam_at], z_new[-disc.n_p + self.lam_at]
             if t[-disc.n_p + self.lam_at] * t_new[-disc.n_p + self.lam_at] < 0:
                 self._locate_fold(disc, z, t, ds)
-            sol = self._solution(disc, z_new, its, time.perf_counter() - started)
+            sol = self._solution(disc, z_new, t_new, its, time.perf_counter() - started)
             if not self._inside(lam_new):
                 # left the range: finish exactly on its end if the branch allows
                 edge = self.hi if lam_new > self.hi else self.lo
@@ -441,6 +496,13 @@ class _Tracer:
                 if end.success:
                     self._add(edge, end, "natural")
                 return True, self._done(self._ending(edge))
+            if sol.status is Status.ERROR_TOO_LARGE:
+                # the mesh no longer fits the branch: a full solve at this value (mesh refinement,
+                # its own estimate) from this point, and the arclength steps go on on its mesh
+                better = self._solve_at(float(lam_new), sol)
+                if better.success:
+                    sol = better
+                    disc, z_new, t_new = self._remeshed(disc, better, float(lam_new), t_new)
             self._add(lam_new, sol, "arclength")
             z, t = z_new, t_new
             ds = ds * _GROW if its <= 3 else ds * (_SHRINK if its >= 8 else 1.0)
@@ -449,6 +511,15 @@ class _Tracer:
                 self.edge = self.hi if self.direction > 0 else self.lo
                 return None
         return False, self._done(f"stopped after max_points = {self.max_points} points")
+
+    def _remeshed(self, disc: CollocationEquations, sol: Solution, value: float, t: np.ndarray):  # noqa: ANN202
+        """The collocation equations on ``sol``'s mesh, its unknowns, and the tangent ``t``
+        carried over (interpolated, then the tangent of the new discrete curve)."""
+        new = CollocationEquations(self.free, sol.x, self.k_free)
+        z = self._z(sol, value)
+        ty, tp = disc.split(t)
+        carried = new.join(np.array([np.interp(sol.x, disc.x, row) for row in ty]), tp)
+        return new, z, new.tangent(z, carried)
 
     def _locate_fold(self, disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
         """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh."""
@@ -472,7 +543,7 @@ class _Tracer:
             other = _fold_on(fine, z_fine0, t_f, ds * 1.5, self.lam_at, self.tol)
             if other is not None:
                 error = abs(float(other[-fine.n_p + self.lam_at]) - float(z_fold[-disc.n_p + self.lam_at]))
-        sol = self._solution(disc, z_fold, 0, 0.0)
+        sol = self._solution(disc, z_fold, disc.tangent(z_fold, t0), 0, 0.0, fold=True)
         value = float(z_fold[-disc.n_p + self.lam_at])
         outputs = {o: float(sol.evaluate(e)) for o, e in self.branch._expressions.items()}
         self.branch.folds.append(Fold(value, outputs, error, len(self.branch.solutions), sol))

@@ -56,6 +56,37 @@ def test_bratu_branch_goes_past_the_fold_onto_the_upper_family(bratu_branch):
     assert b.parameter[-1] == pytest.approx(0.1)  # it came back to the start side of the range
 
 
+def _bratu_states(lam: float, slope: float, x: np.ndarray) -> list[np.ndarray]:
+    """Analytic y and y' on the branch through (lam, y'(0) ~ slope): y = -2 ln(cosh((x - 1/2) t/2) / cosh(t/4))
+    with t = sqrt(2 lam) cosh(t/4), the root whose t tanh(t/4) is nearest the slope."""
+    from scipy.optimize import brentq
+
+    g = lambda t: t - math.sqrt(2 * lam) * math.cosh(t / 4)  # noqa: E731
+    roots = [brentq(g, lo, hi) for lo, hi in ((1e-9, 4.7987), (4.7987, 40.0)) if g(lo) * g(hi) < 0]
+    t = min(roots, key=lambda r: abs(r * math.tanh(r / 4) - slope))
+    return [-2 * np.log(np.cosh((x - 0.5) * t / 2) / math.cosh(t / 4)), -t * np.tanh((x - 0.5) * t / 2)]
+
+
+@pytest.mark.parametrize("tol", [1e-5, 1e-8])
+def test_every_traced_point_meets_the_tolerance_with_an_honest_estimate(tol):
+    b = bvpkit.trace(bratu(0.1), "lam", start=0.1, stop=3.6, outputs=["y'(0)"], tol=tol, max_points=80)
+    assert b.success and "arclength" in b.steps
+    for lam, s, how in zip(b.parameter, b.solutions, b.steps):
+        assert s.success, (how, lam, s.message)  # arclength points past the fold remesh when they must
+        x = np.unique(np.concatenate([s.x, 0.5 * (s.x[1:] + s.x[:-1])]))
+        exact = _bratu_states(lam, s.evaluate("y'(0)"), x)  # analytic, see _bratu_states
+        true = max(float(np.max(np.abs(s.evaluate(n, at=x) - e) / (1 + np.abs(e)))) for n, e in zip(("y", "y'"), exact))
+        estimate = s.diagnostics.error_estimate
+        assert estimate <= tol and true <= 2 * estimate + 1e-12, (how, lam, true, estimate)
+        if how == "arclength":
+            assert estimate <= 2 * true, (lam, true, estimate)
+    fold = b.folds[0]
+    # the fold's own point: its estimate is the distance to the exact branch, of the size of
+    # the fold's parameter error (analytic fold 3.51383071912516)
+    miss = abs(fold.parameter - bratu_fold()) / bratu_fold()
+    assert 0.2 * miss <= fold.solution.diagnostics.error_estimate <= 5 * miss + 1e-12
+
+
 def test_falkner_skan_family_from_beta_one_down_to_zero():
     p = bvpkit.Problem(["f''' + f*f'' + beta*(1 - f'**2) = 0"], ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"],
                        (0, "inf"), independent="eta", constants={"beta": 1.0}, guess={"f": "eta - 1 + exp(-eta)"})
