@@ -310,9 +310,6 @@ class _Tracer:
         a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
         exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
         Returns the estimate and the corrected point ``(x, y, p)``."""
-        import scipy.sparse as sparse
-        from scipy.sparse.linalg import splu
-
         from .discrete import SingularMatrix
         from .methods.base import Outcome, Trial, compare
         from .methods.collocation import _defect_correction
@@ -320,31 +317,25 @@ class _Tracer:
         y, pz = disc.split(z)
         p = np.delete(pz, self.lam_at)
         with np.errstate(all="ignore"):
-            fixed = CollocationEquations(self.compiled, disc.x, k)
-            parts = fixed.parts(y, p)
             try:
                 if fold:
                     raise SingularMatrix("at a fold")
-                eq, y0, p0, lu, trial = fixed, y, p, fixed.factor(y, p, parts[3]), Trial(self.compiled, disc.x, y, p, k, self.tol)
+                eq = CollocationEquations(self.compiled, disc.x, k)
+                parts = eq.parts(y, p)
+                lu = eq.factor(y, p, parts[3])
+                trial = Trial(self.compiled, disc.x, y, p, k, self.tol)
             except SingularMatrix:
+                eq, p, parts = disc, pz, disc.parts(y, pz)
                 try:
-                    bordered = splu(sparse.vstack([disc.jacobian(z), sparse.csr_matrix(t * disc.weights)]).tocsc())
+                    lu = _BorderedSolve(disc, z, t)
                 except RuntimeError:
                     return math.nan, None
-
-                class lu:  # noqa: N801 - the arclength row of the correction is zero
-                    @staticmethod
-                    def solve(b: np.ndarray) -> np.ndarray:
-                        return bordered.solve(np.append(b, 0.0))
-
-                eq, y0, p0, parts, trial = disc, y, pz, disc.parts(y, pz), Trial(self.free, disc.x, y, pz, self.k_free,
-                                                                                 self.tol)
-            x2, y2, p2 = _defect_correction(eq, y0, p0, parts, lu)
-            estimate, _ = compare(Outcome(Status.SOLVED, "", disc.x, y0, p0), Outcome(Status.SOLVED, "", x2, y2, p2),
-                                  trial)
+                trial = Trial(self.free, disc.x, y, pz, self.k_free, self.tol)
+            x2, y2, p2 = _defect_correction(eq, y, p, parts, lu)
+            estimate, _ = compare(Outcome(Status.SOLVED, "", disc.x, y, p), Outcome(Status.SOLVED, "", x2, y2, p2), trial)
         if not math.isfinite(estimate):
             return math.nan, None
-        return estimate, (x2, y2, p2 if eq is fixed else np.delete(p2, self.lam_at))
+        return estimate, (x2, y2, np.delete(p2, self.lam_at) if eq is disc else p2)
 
     def _inside(self, value: float) -> bool:
         slack = 1e-12 * max(1.0, abs(self.lo), abs(self.hi))
@@ -547,6 +538,20 @@ class _Tracer:
         value = float(z_fold[-disc.n_p + self.lam_at])
         outputs = {o: float(sol.evaluate(e)) for o, e in self.branch._expressions.items()}
         self.branch.folds.append(Fold(value, outputs, error, len(self.branch.solutions), sol))
+
+
+class _BorderedSolve:
+    """Solves with the arclength-bordered matrix ``[G_z; t]``, the border's right side zero
+    (a correction normal to the branch); regular at a fold, where ``G_y`` alone is not."""
+
+    def __init__(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray):
+        import scipy.sparse as sparse
+        from scipy.sparse.linalg import splu
+
+        self._lu = splu(sparse.vstack([disc.jacobian(z), sparse.csr_matrix(t * disc.weights)]).tocsc())
+
+    def solve(self, b: np.ndarray) -> np.ndarray:
+        return self._lu.solve(np.append(b, 0.0))
 
 
 def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, lam_at: int, tol: float) -> np.ndarray | None:
