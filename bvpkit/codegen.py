@@ -17,7 +17,7 @@ import numpy as np
 import sympy as sp
 from sympy.printing.numpy import SciPyPrinter
 
-from .compiled import (  # noqa: F401 - CompiledSystem and check_source are re-exported
+from .compiled import (
     CACHE_VARIABLE,
     CompiledSystem,
     _MEMORY,
@@ -28,6 +28,9 @@ from .compiled import (  # noqa: F401 - CompiledSystem and check_source are re-e
     write_cache,
 )
 from .reduce import X, FirstOrderSystem
+
+# names of compiled.py that code and tests reach through this module
+__all__ = ["CACHE_VARIABLE", "CompiledSystem", "check_source", "compile_expressions", "compile_system"]
 
 
 class _Printer(SciPyPrinter):

@@ -176,15 +176,12 @@ class CollocationEquations:
         values += [np.asarray(a).ravel(), np.asarray(b).ravel()]
         if self.n_p:
             values.append(np.asarray(dp).ravel())
-        rows, cols = self._pattern_rows_cols()
+        rows, cols = self._sparse_pattern()
         v = np.concatenate(values)
         if scale is not None:
             v = v * scale[rows]
         shape = ((self.m - 1) * self.n + self.n_bc, self.n * self.m + self.n_p)
         return sparse.csc_matrix((v, (rows, cols)), shape=shape)
-
-    def _pattern_rows_cols(self):  # noqa: ANN202
-        return self._sparse_pattern()
 
     def _band_layout(self):  # noqa: ANN202
         """Row order and band widths for separated conditions (rows: left conditions, interval
