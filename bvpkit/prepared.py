@@ -69,7 +69,8 @@ def cached_problem(key: str | None) -> Problem | None:
         from .solution import remember_quantity
 
         for text, q in body["quantities"].items():
-            points = [(float(point), str(name), int(order)) for point, name, order in q["points"]]
+            points = [(float(point) if not isinstance(point, dict) else build_quantity(point["source"]), str(name),
+                       int(order)) for point, name, order in q["points"]]
             remember_quantity(problem, text, build_quantity(q["source"]), points, bool(q["running"]))
         return problem
     except (OSError, ValueError, KeyError, TypeError, RuntimeError, SyntaxError):
@@ -89,8 +90,9 @@ def remember(key: str | None, problem: Problem) -> None:
             known = known_quantity(problem, text)
             if known is not None:
                 function, points, running = known
-                quantities[text] = {"source": function.source, "points": [list(p) for p in points],
-                                    "running": running}
+                plain = [[point if isinstance(point, float) else {"source": point.source}, str(name), int(order)]
+                         for point, name, order in points]
+                quantities[text] = {"source": function.source, "points": plain, "running": running}
         starts = {k: {"y": y.ravel().tolist(), "shape": list(y.shape), "p": p.tolist()}
                   for k, (y, p) in problem.__dict__.get("_starts", {}).items()}
         body = {"key": key, "problem": problem.plain(), "starts": starts, "quantities": quantities}

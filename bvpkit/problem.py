@@ -581,7 +581,6 @@ class Problem:
             )
         new.constants = {**self.constants, **_numbers(values, "constant")}
         new.__dict__.pop("_ends", None)  # a domain end may be one of the constants
-        new.__dict__.pop("_quantities", None)  # their point values hold the old constants
         return new
 
     def _freed(self, name: str):  # noqa: ANN202 - a FirstOrderSystem

@@ -240,8 +240,11 @@ class Solution:
             symbol = sp.Symbol(f"_t_point{i}")
             replace[node] = symbol
             point = point.xreplace(replace)
-            plain = point.is_Number or point in (sp.oo, -sp.oo)
-            placeholders.append((float(point) if plain else point, name, order))
+            if point.is_Number or point in (sp.oo, -sp.oo):
+                placeholders.append((float(point), name, order))
+            else:  # a point that depends on constants or parameters: compiled as a function of them
+                where = compile_expressions([point], [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
+                placeholders.append((where, name, order))
             symbols.append(symbol)
         for name in problem.unknowns:
             f = sp.Function(name)(problem.x)
@@ -266,14 +269,7 @@ class Solution:
         spline = self._spline if x is self.x else hermite(self._compiled, x, y, p, k, physical=True)
         values = np.empty(len(placeholders))
         for i, (point, name, order) in enumerate(placeholders):
-            if isinstance(point, float):
-                if math.isinf(point):
-                    where = float(x[-1] if point > 0 else x[0])
-                else:
-                    where = point
-                    self._check_inside(np.array([where]), x)
-            else:
-                where = self._point(point, x, p)
+            where = self._point(point, x, p)
             state = spline(np.array([where]))
             if order < self.problem.orders[name]:
                 v = state[system.index(name, order), 0]
@@ -306,16 +302,15 @@ class Solution:
         """The symbolic system (built on demand for a problem rebuilt from the cache)."""
         return self._compiled.system if self._compiled.system is not None else self.problem.system
 
-    def _point(self, point: sp.Expr, x: np.ndarray, p: np.ndarray) -> float:
-        system = self._symbolic_system()
-        value = point.xreplace({**dict(zip(system.k, map(sp.Float, self._k))), **dict(zip(system.p, map(sp.Float, p)))})
-        if value == sp.oo:
-            return float(x[-1])
-        if value == -sp.oo:
-            return float(x[0])
-        where = float(value)
-        self._check_inside(np.array([where]), x)
-        return where
+    def _point(self, point: Any, x: np.ndarray, p: np.ndarray) -> float:
+        """Where a point value is taken: a number, or a compiled function of ``(x, p, k)``."""
+        if not isinstance(point, float):
+            with np.errstate(all="ignore"):
+                point = float(point(np.zeros(1), p, self._k)[0, 0])
+        if math.isinf(point):
+            return float(x[-1] if point > 0 else x[0])
+        self._check_inside(np.array([point]), x)
+        return point
 
     def _check_inside(self, points: np.ndarray, x: np.ndarray) -> None:
         slack = 1e-12 * max(1.0, abs(x[0]), abs(x[-1]))
@@ -362,28 +357,11 @@ def _json_ready(value: Any) -> Any:
 
 
 def known_quantity(problem, text: str) -> tuple[Any, list, bool] | None:  # noqa: ANN001
-    """The compiled form of an expression already evaluated for ``problem``, with its point
-    values as numbers for this problem's constants (what ``prepared.py`` keeps), or None
-    when a point depends on an unknown parameter."""
-    compiled = problem.compiled()
-    known = _QUANTITIES.get((compiled.layout.key, problem.independent, text))
-    if known is None:
-        return None
-    function, placeholders, running = known
-    system = compiled.system if compiled.system is not None else problem.system
-    values = {s: sp.Float(problem.constants[c]) for s, c in zip(system.k, system.constants)}
-    points = []
-    for point, name, order in placeholders:
-        if not isinstance(point, float):
-            point = point.xreplace(values)
-            if not (point.is_Number or point in (sp.oo, -sp.oo)):
-                return None
-            point = float(point)
-        points.append((point, str(name), int(order)))
-    return function, points, running
+    """The compiled form of an expression already evaluated for ``problem`` (what
+    ``prepared.py`` keeps), or None."""
+    return _QUANTITIES.get((problem.compiled().layout.key, problem.independent, text))
 
 
 def remember_quantity(problem, text: str, function: Any, points: list, running: bool) -> None:  # noqa: ANN001
-    """Install a compiled expression kept by ``prepared.py`` for this problem only (its point
-    values hold its constants); ``Problem.with_constants`` drops them from the copy."""
+    """Install a compiled expression kept by ``prepared.py`` (no parsing, no SymPy)."""
     problem.__dict__.setdefault("_quantities", {})[text] = (function, points, running)
