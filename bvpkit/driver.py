@@ -94,8 +94,8 @@ def solve(
     verify : bool, optional
         Estimate the error (collocation: by deferred correction; shooting: by a re-solve with
         a tighter integrator) and the stability constant of the problem (default True).
-        Without it, the solve is faster (collocation: about 1.5x) and
-        ``error_estimate`` and ``condition`` are not computed (NaN and None).
+        Without it, the solve is faster (see ``benchmarks/``) and ``error_estimate`` and
+        ``condition`` are not computed (NaN and None).
     truncation : float, optional
         First placement of an infinite end, measured from the finite end (default 10). The
         domain is lengthened from there until the solution stops changing.
