@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -48,24 +49,20 @@ def initial_guess(
     if not override and key in remembered:
         y, p = remembered[key]
         return np.array(y, dtype=float), np.array(p, dtype=float)
-    system = compiled.system if compiled.system is not None else problem.system
-    y = np.zeros((system.n, x.size))
-    expressions = dict(problem.guess)
+    y = np.zeros((layout.n, x.size))
+    recipes = guess_recipes(problem, compiled)
     if override:
-        for name, value in override.items():
-            expressions[name] = problem._guesses({name: value})[name]
+        system = compiled.system if compiled.system is not None else problem.system
+        recipes = {**recipes, **{name: _expression_recipe(problem, system, name, problem._guesses({name: value})[name])
+                                 for name, value in override.items()}}
     for name in problem.unknowns:
-        order = problem.orders[name]
-        rows = [system.index(name, j) for j in range(order)]
-        if name in expressions:
-            y[rows] = _from_expression(problem, system, expressions[name], order, x, p, k)
-        else:
-            y[rows] = _polynomial(system, name, order, x, p, k)
+        recipe = recipes[name]
+        y[[layout.index(name, j) for j in range(recipe.order)]] = recipe(x, p, k)
     fill_integrals(compiled, x, y, p, k)
-    if not np.all(np.isfinite(y)):
+    if not np.isfinite(y).all():
         bad = np.argwhere(~np.isfinite(y))[0]
         raise ProblemError(
-            f"the guess for {system.state_names[bad[0]]} is NaN or inf at "
+            f"the guess for {layout.state_names[bad[0]]} is NaN or inf at "
             f"{problem.independent} = {x[bad[1]]:.6g}; give a guess defined on the whole domain"
         )
     if not override:
@@ -83,7 +80,83 @@ def start_key(x: np.ndarray, k: np.ndarray, p: np.ndarray) -> str:
     return hashlib.sha256(data).hexdigest()[:24]
 
 
-def _from_expression(problem, system, e: sp.Expr, order: int, x, p, k) -> np.ndarray:  # noqa: ANN001
+@dataclass
+class GuessRecipe:
+    """How to guess one unknown function on any mesh, as plain data (no SymPy).
+
+    ``kind`` is ``"expression"`` (``source`` computes the function and its derivatives from
+    ``(x, p, k)``) or ``"polynomial"`` (the lowest-degree polynomial meeting the linear
+    conditions on the function alone: ``conditions`` lists each one's ``(end, derivative)``
+    terms, and ``source`` computes their coefficients and constants from ``(p, k)``).
+    """
+
+    name: str
+    order: int
+    kind: str
+    source: str = ""
+    conditions: list = field(default_factory=list)
+
+    def __call__(self, x: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """The function and its derivatives up to ``order - 1`` on ``x``: ``(order, len(x))``."""
+        if self.kind == "expression":
+            with np.errstate(all="ignore"):
+                return np.broadcast_to(_function(self.source)(x, p, k), (self.order, x.size)).astype(float)
+        if not self.conditions:
+            return np.zeros((self.order, x.size))
+        with np.errstate(all="ignore"):
+            values = iter(_function(self.source)(np.zeros(1), p, k)[:, 0])
+        a, b = float(x[0]), float(x[-1])
+        rows, rhs = [], []
+        for terms in self.conditions:
+            row: dict = {}
+            for end, j in terms:
+                where = (a if end == 0 else b, j)
+                row[where] = row.get(where, 0.0) + float(next(values))
+            constant = float(next(values))
+            if all(math.isfinite(v) for v in row.values()) and math.isfinite(constant):
+                rows.append(row)
+                rhs.append(-constant)
+        return _fit(rows, rhs, self.order, x)
+
+    def plain(self) -> dict[str, Any]:
+        return {"name": self.name, "order": self.order, "kind": self.kind, "source": self.source,
+                "conditions": [[list(t) for t in terms] for terms in self.conditions]}
+
+    @classmethod
+    def from_plain(cls, data: Mapping[str, Any]) -> GuessRecipe:
+        return cls(str(data["name"]), int(data["order"]), str(data["kind"]), str(data["source"]),
+                   [[(int(end), int(j)) for end, j in terms] for terms in data["conditions"]])
+
+
+_FUNCTIONS: dict[str, Any] = {}
+
+
+def _function(source: str) -> Any:
+    function = _FUNCTIONS.get(source)
+    if function is None:
+        from .compiled import build_quantity
+
+        function = _FUNCTIONS[source] = build_quantity(source)
+    return function
+
+
+def guess_recipes(problem, compiled: CompiledSystem) -> dict[str, GuessRecipe]:  # noqa: ANN001
+    """The recipe of every unknown's default guess (its own guess expression, else the
+    polynomial), built with SymPy once per problem and kept in ``problem._recipes``."""
+    recipes = problem.__dict__.get("_recipes")
+    if recipes is None:
+        system = compiled.system if compiled.system is not None else problem.system
+        recipes = {}
+        for name in problem.unknowns:
+            if name in problem.guess:
+                recipes[name] = _expression_recipe(problem, system, name, problem.guess[name])
+            else:
+                recipes[name] = _polynomial_recipe(system, name)
+        problem.__dict__["_recipes"] = recipes
+    return recipes
+
+
+def _expression_recipe(problem, system, name: str, e: sp.Expr) -> GuessRecipe:  # noqa: ANN001
     from .codegen import compile_expressions
     from .reduce import X
 
@@ -91,35 +164,36 @@ def _from_expression(problem, system, e: sp.Expr, order: int, x, p, k) -> np.nda
     names.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
     names.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
     e = e.xreplace(names)
+    order = system.order(name)
     derivatives = [e]
     for _ in range(order - 1):
         derivatives.append(sp.diff(derivatives[-1], X))
-    f = compile_expressions(
-        derivatives, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x"
-    )
-    with np.errstate(all="ignore"):
-        return np.broadcast_to(f(x, p, k), (order, x.size)).astype(float)
+    f = compile_expressions(derivatives, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
+    return GuessRecipe(name, order, "expression", f.source)
 
 
-def _polynomial(system, name: str, order: int, x, p, k) -> np.ndarray:  # noqa: ANN001
+def _polynomial_recipe(system, name: str) -> GuessRecipe:  # noqa: ANN001
     """Lowest-degree polynomial meeting the linear conditions that involve ``name`` alone."""
-    a, b = float(x[0]), float(x[-1])
-    values = {**dict(zip(system.p, map(float, p))), **dict(zip(system.k, map(float, k)))}
-    rows, rhs = [], []
+    from .codegen import compile_expressions
+    from .reduce import X
+
+    order = system.order(name)
+    conditions, exprs = [], []
     for gradient, constant in _linear_conditions(system, name):
-        try:
-            numbers = [(end, j, float(g.xreplace(values))) for end, j, g in gradient]
-            c0 = float(constant.xreplace(values))
-        except TypeError:
-            continue  # depends on a value we do not know here
-        row = {}
-        for end, j, g in numbers:
-            where = a if end == 0 else b
-            row[(where, j)] = row.get((where, j), 0.0) + g
-        rows.append(row)
-        rhs.append(-c0)
+        conditions.append([(end, j) for end, j, _ in gradient])
+        exprs += [g for _, _, g in gradient] + [constant]
+    if not conditions:
+        return GuessRecipe(name, order, "polynomial")
+    f = compile_expressions(exprs, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
+    return GuessRecipe(name, order, "polynomial", f.source, conditions)
+
+
+def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray) -> np.ndarray:
+    """The lowest-degree polynomial meeting ``rows`` (``{(point, derivative): coefficient}``
+    = ``rhs``), and its derivatives up to ``order - 1`` on ``x``."""
     if not rows:
         return np.zeros((order, x.size))
+    a, b = float(x[0]), float(x[-1])
     degree = max(len(rows) - 1, 0)
     scale = b - a
 
