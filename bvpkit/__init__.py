@@ -16,13 +16,13 @@ from .errors import (
     SpecError,
 )
 from .status import Status
+from .sweep import SweepResult, sweep  # eager: the function shares its name with its module
 
 # The rest loads on first use (PEP 562), so that `import bvpkit` and a cached
 # `bvpkit solve` stay light: SymPy, for one, is imported only when a problem is built.
 _LAZY = {
     "Attempt": "diagnostics", "Diagnostics": "diagnostics", "Branch": "continuation", "Fold": "continuation",
     "trace": "continuation", "solve": "driver", "Problem": "problem", "Solution": "solution",
-    "SweepResult": "sweep", "sweep": "sweep",
 }
 
 

@@ -1,18 +1,20 @@
-"""Problems prepared once, solved many times: the cache behind a fast second ``bvpkit solve``.
+"""Problems prepared once, solved many times: a fast second ``bvpkit solve``, light workers.
 
 The first ``bvpkit solve`` of a spec parses its text, reduces the equations and generates
 code (SymPy's work, most of a second). It then keeps, in the cache folder beside the
-generated code, the plain facts of the problem (``Problem.plain``), the starting guesses it
-computed and the generated code of the spec's outputs, under a key made of the spec file's
-bytes, the ``--set`` values and the bvpkit code (``compiled.code_stamp``). The next run with the same key rebuilds
-the problem from those facts (``Problem.from_plain``) and solves it without importing
-SymPy; anything the facts do not cover (a new expression, a guess on another mesh) builds
-the symbolic parts on demand. The solve itself is done afresh every time: only the
-preparation is cached.
+generated code, the problem's preparation (:func:`plain_problem`): its plain facts
+(``Problem.plain``, with its guess recipes), the generated code of its system and of the
+spec's outputs, and the starting guesses it computed, under a key made of the spec file's
+bytes, the ``--set`` values and the bvpkit code (``compiled.code_stamp``). The next run
+with the same key rebuilds the problem from it (:func:`problem_from_plain`) and solves it
+without importing SymPy; anything the preparation does not cover (a new expression) builds
+the symbolic parts on demand. The solve itself is done afresh every time. Sweeps ship the
+same preparation to their workers.
 
 A cache file is written atomically (temporary file, then ``os.replace``; the oldest files
-beyond ``compiled.CACHE_KEEP`` are dropped) and carries a SHA-256 checksum; one that is unreadable, tampered with or from another version is ignored
-and rewritten. Generated code is re-checked by ``compiled.check_source`` before it runs.
+beyond ``compiled.CACHE_KEEP`` are dropped) and carries a SHA-256 checksum; one that is
+unreadable, tampered with or from other code is ignored and rewritten. Generated code is
+re-checked by ``compiled.check_source`` before it runs.
 """
 
 from __future__ import annotations
@@ -25,7 +27,7 @@ from typing import Any
 
 import numpy as np
 
-from .compiled import _cache_dir, build_quantity, code_stamp, write_atomically
+from .compiled import _MEMORY, _cache_dir, assemble, build_quantity, code_stamp, write_atomically
 from .problem import Problem
 
 _KIND = "problem"
@@ -53,6 +55,42 @@ def _checksum(body: Mapping[str, Any]) -> str:
     return hashlib.sha256(json.dumps(body, sort_keys=True).encode()).hexdigest()
 
 
+def plain_problem(problem: Problem, expressions: list[str]) -> dict[str, Any]:
+    """JSON-ready preparation of ``problem``: its plain facts (with guess recipes), the
+    guesses it has computed, and ``expressions`` compiled (SymPy's work, done here once)."""
+    from .solution import compile_quantity
+
+    compiled = problem.compiled()
+    quantities = {}
+    for text in expressions:
+        function, points, running = compile_quantity(problem, compiled, text)
+        plain = [[point if isinstance(point, float) else {"source": point.source}, str(name), int(order)]
+                 for point, name, order in points]
+        quantities[text] = {"source": function.source, "points": plain, "running": running}
+    starts = {k: {"y": y.ravel().tolist(), "shape": list(y.shape), "p": p.tolist()}
+              for k, (y, p) in problem.__dict__.get("_starts", {}).items()}
+    system = {"source": compiled.source, "pattern": compiled.jac_pattern.tolist(), "sides": compiled.bc_sides.tolist()}
+    return {"problem": problem.plain(), "system": system, "starts": starts, "quantities": quantities}
+
+
+def problem_from_plain(body: dict[str, Any]) -> Problem:
+    """The problem of :func:`plain_problem`'s data, rebuilt without SymPy."""
+    from .solution import remember_quantity
+
+    starts = {k: (np.array(v["y"], dtype=float).reshape(v["shape"]), np.array(v["p"], dtype=float))
+              for k, v in body["starts"].items()}
+    problem = Problem.from_plain(body["problem"], starts)
+    layout = problem.__dict__["_layout"]
+    if layout.key not in _MEMORY:  # the generated code travels along (no disk cache needed)
+        system = body["system"]
+        assemble(layout, system["source"], np.array(system["pattern"], dtype=bool), np.array(system["sides"], dtype=int))
+    for text, q in body["quantities"].items():
+        points = [(float(point) if not isinstance(point, dict) else build_quantity(point["source"]), str(name),
+                   int(order)) for point, name, order in q["points"]]
+        remember_quantity(problem, text, build_quantity(q["source"]), points, bool(q["running"]))
+    return problem
+
+
 def cached_problem(key: str | None) -> Problem | None:
     """The problem kept under ``key``, rebuilt without SymPy, or None."""
     path = None if key is None else _file(key)
@@ -63,39 +101,18 @@ def cached_problem(key: str | None) -> Problem | None:
         body = data["body"]
         if data["sha256"] != _checksum(body) or body["key"] != key:
             return None
-        starts = {k: (np.array(v["y"], dtype=float).reshape(v["shape"]), np.array(v["p"], dtype=float))
-                  for k, v in body["starts"].items()}
-        problem = Problem.from_plain(body["problem"], starts)
-        from .solution import remember_quantity
-
-        for text, q in body["quantities"].items():
-            points = [(float(point) if not isinstance(point, dict) else build_quantity(point["source"]), str(name),
-                       int(order)) for point, name, order in q["points"]]
-            remember_quantity(problem, text, build_quantity(q["source"]), points, bool(q["running"]))
-        return problem
+        return problem_from_plain(body)
     except (OSError, ValueError, KeyError, TypeError, RuntimeError, SyntaxError):
         return None  # missing, corrupted or tampered with: prepare afresh
 
 
 def remember(key: str | None, problem: Problem) -> None:
-    """Keep the prepared facts of ``problem`` (after a solve) under ``key``; never raises."""
+    """Keep the preparation of ``problem`` (after a solve) under ``key``; never raises."""
     path = None if key is None else _file(key)
     if path is None:
         return
-    from .solution import known_quantity
-
     try:
-        quantities = {}
-        for text in problem.outputs.values():
-            known = known_quantity(problem, text)
-            if known is not None:
-                function, points, running = known
-                plain = [[point if isinstance(point, float) else {"source": point.source}, str(name), int(order)]
-                         for point, name, order in points]
-                quantities[text] = {"source": function.source, "points": plain, "running": running}
-        starts = {k: {"y": y.ravel().tolist(), "shape": list(y.shape), "p": p.tolist()}
-                  for k, (y, p) in problem.__dict__.get("_starts", {}).items()}
-        body = {"key": key, "problem": problem.plain(), "starts": starts, "quantities": quantities}
+        body = {"key": key, **plain_problem(problem, list(problem.outputs.values()))}
         text = json.dumps({"body": body, "sha256": _checksum(body)})
     except (TypeError, ValueError, AttributeError):
         return  # not JSON-ready (SymPy objects in the arguments): costs speed only

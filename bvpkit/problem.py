@@ -509,7 +509,18 @@ class Problem:
         """Both ends of the domain as numbers (constants and parameter guesses substituted)."""
         cached = self.__dict__.get("_ends")
         if cached is None:
-            cached = tuple(self.end_value(e) for e in self.domain)
+            if self.__dict__.get("_symbolic", True):
+                cached = tuple(self.end_value(e) for e in self.domain)
+            else:  # rebuilt from plain data: the compiled domain ends, no SymPy
+                import numpy as np
+
+                compiled = self.compiled()
+                layout = compiled.layout
+                p = np.array([self.unknown_parameters[q] for q in layout.parameters], dtype=float)
+                k = np.array([self.constants[c] for c in layout.constants], dtype=float)
+                finite = compiled.domain_ends(p, k)
+                cached = tuple(float(v) if not inf else (-math.inf, math.inf)[i]
+                               for i, (v, inf) in enumerate(zip(finite, self.infinite)))
             self.__dict__["_ends"] = cached
         return cached  # type: ignore[return-value]
 
@@ -537,6 +548,9 @@ class Problem:
         data["infinite"] = list(self.infinite)
         data["ends"] = list(self.ends())
         data["layout"] = self.system.state_layout().as_dict()
+        from .guess import guess_recipes
+
+        data["recipes"] = [r.plain() for r in guess_recipes(self, self.compiled()).values()]
         return data
 
     @classmethod
@@ -553,6 +567,10 @@ class Problem:
         d["_ends"] = tuple(float(v) for v in data["ends"])
         d["_layout"] = StateLayout.from_dict(data["layout"])
         d["_starts"] = dict(starts or {})
+        if "recipes" in data:
+            from .guess import GuessRecipe
+
+            d["_recipes"] = {r["name"]: GuessRecipe.from_plain(r) for r in data["recipes"]}
         d["_symbolic"] = False
         return new
 
@@ -579,7 +597,7 @@ class Problem:
             raise ProblemError(
                 f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
             )
-        new.constants = {**self.constants, **_numbers(values, "constant")}
+        new.constants = {**self.constants, **_numbers(values, "constant", names_known=True)}
         new.__dict__.pop("_ends", None)  # a domain end may be one of the constants
         return new
 
@@ -615,12 +633,13 @@ def _list(items: Any, what: str) -> list:
     return list(items)
 
 
-def _numbers(values: Mapping[str, Any], role: str) -> dict[str, float]:
+def _numbers(values: Mapping[str, Any], role: str, names_known: bool = False) -> dict[str, float]:
     if not isinstance(values, Mapping):
         raise ProblemError(f"{role}s must be a mapping of name to number")
     result = {}
     for name, value in values.items():
-        _expr.check_name(name, role)
+        if not names_known:
+            _expr.check_name(name, role)
         if isinstance(value, bool) or not isinstance(value, int | float):
             try:
                 value = float(value)  # numpy scalars, sympy numbers

@@ -223,45 +223,7 @@ class Solution:
         prepared = self.problem.__dict__.get("_quantities")
         if prepared and expression in prepared:
             return prepared[expression]
-        key = (self._compiled.layout.key, self.problem.independent, expression)
-        if key in _QUANTITIES:
-            return _QUANTITIES[key]
-        from .codegen import compile_expressions
-        from .reduce import X
-
-        problem, system = self.problem, self._symbolic_system()
-        e = problem.parse_quantity(expression, where=f"expression '{expression}'")
-        points = problem.point_values(e)
-        replace: dict[sp.Basic, sp.Basic] = {problem.x: X}
-        replace.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
-        replace.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
-        placeholders, symbols = [], []
-        for i, (node, name, order, point) in enumerate(points):
-            symbol = sp.Symbol(f"_t_point{i}")
-            replace[node] = symbol
-            point = point.xreplace(replace)
-            if point.is_Number or point in (sp.oo, -sp.oo):
-                placeholders.append((float(point), name, order))
-            else:  # a point that depends on constants or parameters: compiled as a function of them
-                where = compile_expressions([point], [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
-                placeholders.append((where, name, order))
-            symbols.append(symbol)
-        for name in problem.unknowns:
-            f = sp.Function(name)(problem.x)
-            for j in range(problem.orders[name]):
-                node = f if j == 0 else sp.Derivative(f, (problem.x, j))
-                replace[node] = system.y[system.index(name, j)]
-            replace[sp.Derivative(f, (problem.x, problem.orders[name]))] = system.highest(name)
-        e = e.xreplace(replace)
-        running = bool(e.free_symbols & ({X} | set(system.y)))
-        compiled = compile_expressions(
-            [e], [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k), ("t", symbols)], mesh="y"
-        )
-        result = (compiled, placeholders, running)
-        if len(_QUANTITIES) > _MAX_CACHED:
-            _QUANTITIES.clear()
-        _QUANTITIES[key] = result
-        return result
+        return compile_quantity(self.problem, self._compiled, expression)
 
     def _evaluate_on(self, x, y, p, expression: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
         f, placeholders, running = self._internal(expression)
@@ -297,10 +259,6 @@ class Solution:
         if at is None:
             return float(result[0])
         return result if np.ndim(at) else float(result[0])
-
-    def _symbolic_system(self):  # noqa: ANN202 - a FirstOrderSystem
-        """The symbolic system (built on demand for a problem rebuilt from the cache)."""
-        return self._compiled.system if self._compiled.system is not None else self.problem.system
 
     def _point(self, point: Any, x: np.ndarray, p: np.ndarray) -> float:
         """Where a point value is taken: a number, or a compiled function of ``(x, p, k)``."""
@@ -356,12 +314,52 @@ def _json_ready(value: Any) -> Any:
     return value
 
 
-def known_quantity(problem, text: str) -> tuple[Any, list, bool] | None:  # noqa: ANN001
-    """The compiled form of an expression already evaluated for ``problem`` (what
-    ``prepared.py`` keeps), or None."""
-    return _QUANTITIES.get((problem.compiled().layout.key, problem.independent, text))
-
-
 def remember_quantity(problem, text: str, function: Any, points: list, running: bool) -> None:  # noqa: ANN001
     """Install a compiled expression kept by ``prepared.py`` (no parsing, no SymPy)."""
     problem.__dict__.setdefault("_quantities", {})[text] = (function, points, running)
+
+
+def compile_quantity(problem, compiled: CompiledSystem, expression: str) -> tuple[Any, list, bool]:  # noqa: ANN001
+    """An expression of the solution compiled over ``(x, y, p, k, t)`` with ``t`` its point
+    values; the point values (numbers, or compiled functions of ``(x, p, k)``); whether it
+    depends on the running point. Cached per system and text."""
+    key = (compiled.layout.key, problem.independent, expression)
+    if key in _QUANTITIES:
+        return _QUANTITIES[key]
+    from .codegen import compile_expressions
+    from .reduce import X
+
+    system = compiled.system if compiled.system is not None else problem.system
+    e = problem.parse_quantity(expression, where=f"expression '{expression}'")
+    points = problem.point_values(e)
+    replace: dict[sp.Basic, sp.Basic] = {problem.x: X}
+    replace.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
+    replace.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
+    placeholders, symbols = [], []
+    for i, (node, name, order, point) in enumerate(points):
+        symbol = sp.Symbol(f"_t_point{i}")
+        replace[node] = symbol
+        point = point.xreplace(replace)
+        if point.is_Number or point in (sp.oo, -sp.oo):
+            placeholders.append((float(point), name, order))
+        else:  # a point that depends on constants or parameters: compiled as a function of them
+            where = compile_expressions([point], [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
+            placeholders.append((where, name, order))
+        symbols.append(symbol)
+    for name in problem.unknowns:
+        f = sp.Function(name)(problem.x)
+        for j in range(problem.orders[name]):
+            node = f if j == 0 else sp.Derivative(f, (problem.x, j))
+            replace[node] = system.y[system.index(name, j)]
+        replace[sp.Derivative(f, (problem.x, problem.orders[name]))] = system.highest(name)
+    e = e.xreplace(replace)
+    running = bool(e.free_symbols & ({X} | set(system.y)))
+    function = compile_expressions(
+        [e], [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k), ("t", symbols)], mesh="y"
+    )
+    result = (function, placeholders, running)
+    if len(_QUANTITIES) > _MAX_CACHED:
+        _QUANTITIES.clear()
+    _QUANTITIES[key] = result
+    return result
+

@@ -5,8 +5,9 @@ fast axis. Work is cut into chunks of grid lines (fixed slow parameters, a conti
 of the fast one) and each chunk is solved in order, every solve started from its
 neighbour's solution (continuation), so a chunk, not a point, is the unit of work.
 
-Units are small and picklable (the problem's own arguments and numbers, never compiled
-functions); a worker rebuilds and compiles a problem once and keeps it. Execution is on any
+Units are small and picklable (the problem's own arguments, its prepared plain facts and
+generated sources, numbers; never compiled functions); a worker rebuilds a problem once,
+without SymPy (``prepared.py``), and keeps it. Execution is on any
 ``concurrent.futures.Executor`` (default: a local process pool sized to the cores) or a
 Dask ``distributed.Client`` (through its ``get_executor()``); there is no scheduler here.
 
@@ -54,6 +55,7 @@ class _Unit:
     slow: tuple[tuple[str, float], ...]
     outputs: tuple[str, ...]
     options: tuple[tuple[str, Any], ...]
+    prepared: dict | None = None  # prepared.plain_problem(): the worker then needs no SymPy
 
 
 def _key(value: Any) -> str:
@@ -70,9 +72,14 @@ _WORKER_PROBLEMS: dict[str, Any] = {}
 def _worker_problem(unit: _Unit):  # noqa: ANN202
     problem = _WORKER_PROBLEMS.get(unit.problem_key)
     if problem is None:
-        from .problem import Problem
+        if unit.prepared is not None:
+            from .prepared import problem_from_plain
 
-        problem = Problem(**unit.arguments)
+            problem = problem_from_plain(unit.prepared)
+        else:
+            from .problem import Problem
+
+            problem = Problem(**unit.arguments)
         _WORKER_PROBLEMS[unit.problem_key] = problem
     return problem
 
@@ -306,13 +313,18 @@ def sweep(
     db = _Store(store)
     try:
         done = db.done(problem_key, retry_failed)
+        from .prepared import plain_problem
+
+        # what workers rebuild the problem from: its plain facts and compiled expressions
+        # (no SymPy in the workers; the generated code of the system is in the disk cache)
+        prepared = plain_problem(problem, sorted(set(labels.values()) | set(problem.outputs.values())))
         units = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):
             slow = tuple(zip(slow_names, map(float, slow_values)))
             todo = [float(v) for v in axes[fast] if _grid_key({**dict(slow), fast: v}) not in done]
             for i in range(0, len(todo), chunk):
                 units.append(_Unit(arguments, problem_key, fast, tuple(todo[i:i + chunk]), slow,
-                                   tuple(labels.values()), tuple(sorted(options.items()))))
+                                   tuple(labels.values()), tuple(sorted(options.items())), prepared))
         solved = _run(units, db, problem_key, executor, workers, progress, done)
         rows = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):

@@ -180,3 +180,13 @@ def test_the_cache_keeps_only_the_newest_files_of_a_kind(cache, monkeypatch):
     assert sorted(p.name for p in cache.glob("problem-*.json")) == ["problem-2-x.json", "problem-3-x.json",
                                                                     "problem-4-x.json"]
     assert (cache / "system-a-x.json").exists()  # other kinds are counted apart
+
+
+def test_public_names_survive_importing_their_modules_first():
+    import subprocess
+    import sys
+
+    code = ("import bvpkit.sweep, bvpkit.continuation, bvpkit.driver, bvpkit; "
+            "print(callable(bvpkit.sweep), callable(bvpkit.trace), callable(bvpkit.solve))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout.strip()
+    assert out == "True True True"

@@ -140,3 +140,38 @@ def test_cli_sweep_from_the_bundled_spec(tmp_path, capsys):
     assert data["message"].startswith("300 points: 0 solved now, 300 from the store")
     row = data["table"][0]
     assert row["effectiveness"] == pytest.approx(analytic(row["phi"], row["Bi"]), rel=1e-5)
+
+
+def test_a_worker_rebuilds_the_problem_without_sympy(tmp_path, monkeypatch):
+    # the unit a worker gets, solved in a fresh process: same rows as here, SymPy never imported
+    import importlib
+    import pickle
+
+    from bvpkit import codegen
+
+    sweep_module = importlib.import_module("bvpkit.sweep")  # bvpkit.sweep is the function
+
+    monkeypatch.setenv(codegen.CACHE_VARIABLE, str(tmp_path / "cache"))
+    units = []
+    real = sweep_module._run
+
+    def keep(units_, *args, **kwargs):  # noqa: ANN001, ANN202
+        units.extend(units_)
+        return real(units_, *args, **kwargs)
+
+    monkeypatch.setattr(sweep_module, "_run", keep)
+    result = bvpkit.sweep(pellet(), {"phi": [0.5, 2.0, 8.0], "Bi": [10.0]}, executor="serial")
+    assert result.success and units and units[0].prepared is not None
+    (tmp_path / "unit.pickle").write_bytes(pickle.dumps(units[0]))
+    script = textwrap.dedent(f"""
+        import pickle, sys
+        from bvpkit.sweep import _solve_unit
+        rows = _solve_unit(pickle.loads(open({str(tmp_path / "unit.pickle")!r}, "rb").read()))
+        print(repr([round(r["outputs"]["3*c'(1)/phi**2"], 12) for r in rows]), "sympy" in sys.modules)
+    """)
+    env = {**os.environ, codegen.CACHE_VARIABLE: str(tmp_path / "cache"), "PYTHONPATH": str(ROOT)}
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, env=env, timeout=300)
+    values, imported = out.stdout.rsplit(" ", 1)
+    assert imported.strip() == "False", out.stderr
+    expected = [round(r["effectiveness"], 12) for r in result.table]
+    assert eval(values) == expected  # noqa: S307 - our own repr of a list of floats
