@@ -22,6 +22,8 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.sparse.linalg import splu
 
+from .diagnostics import midpoint_values
+
 _MAX_NEWTON = 12
 
 
@@ -106,7 +108,7 @@ class CollocationEquations:
         """Interval residuals ``(n, m-1)``, boundary residuals, and ``f``, ``y_mid``, ``f_mid``."""
         c, k, h = self.c, self.k, self.h
         f = c.rhs(self.x, y, p, k)
-        ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
+        ym = midpoint_values(y, f, h)
         fm = c.rhs(self.mid, ym, p, k)
         col = y[:, 1:] - y[:, :-1] - h / 6 * (f[:, :-1] + f[:, 1:] + 4 * fm)
         return col, c.bc(y[:, 0], y[:, -1], p, k), f, ym, fm
@@ -122,7 +124,7 @@ class CollocationEquations:
         c, k, h, n = self.c, self.k, self.h, self.n
         if ym is None:
             f = c.rhs(self.x, y, p, k)
-            ym = 0.5 * (y[:, 1:] + y[:, :-1]) - h / 8 * (f[:, 1:] - f[:, :-1])
+            ym = midpoint_values(y, f, h)
         # (m, n, n) and (m-1, n, n), contiguous: batched products run twice as fast on them
         J = np.ascontiguousarray(np.moveaxis(c.jac(self.x, y, p, k), -1, 0))
         Jm = np.ascontiguousarray(np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0))

@@ -25,7 +25,7 @@ from typing import ClassVar
 import numpy as np
 
 from ..compiled import CompiledSystem
-from ..diagnostics import hermite
+from ..diagnostics import hermite, midpoint_values
 from ..status import Status
 
 # Each round of tightening asks for this fraction of the tolerance times the ratio of the
@@ -185,7 +185,7 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
             f = compiled.slopes(x, outcome.y, outcome.p, k)
         mine = np.empty_like(reference.y)
         mine[:, ::2] = outcome.y
-        mine[:, 1::2] = 0.5 * (outcome.y[:, 1:] + outcome.y[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])
+        mine[:, 1::2] = midpoint_values(outcome.y, f, h)
         theirs = reference.y
     else:
         points = np.sort(np.concatenate([x, mid]))

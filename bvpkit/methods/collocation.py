@@ -20,7 +20,7 @@ import dataclasses
 
 import numpy as np
 
-from ..diagnostics import Hermite, hermite, stability_constant
+from ..diagnostics import Hermite, hermite, midpoint_values, stability_constant
 from ..discrete import CollocationEquations, SingularMatrix
 from ..status import Status
 from .base import Method, Outcome, Trial
@@ -141,7 +141,7 @@ def _defect_correction(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, p
     # on the halved mesh: the corrected cubic at the midpoints, plus the error built up
     # inside the interval, -R(mid) = -h c / 64
     f = eq.c.rhs(eq.x, y_nodes, p_new, eq.k)
-    middle = (0.5 * (y_nodes[:, 1:] + y_nodes[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])) - h * c / 64.0
+    middle = midpoint_values(y_nodes, f, h) - h * c / 64.0
     fine = np.empty((y.shape[0], 2 * eq.m - 1))
     fine[:, ::2], fine[:, 1::2] = y_nodes, middle
     x = np.empty(2 * eq.m - 1)
