@@ -190,3 +190,22 @@ def test_public_names_survive_importing_their_modules_first():
             "print(callable(bvpkit.sweep), callable(bvpkit.trace), callable(bvpkit.solve))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout.strip()
     assert out == "True True True"
+
+
+def test_a_prepared_file_with_foreign_code_is_refused_even_with_a_fresh_checksum(cache):
+    # the checksum guards against damage; check_source guards against code that is not ours
+    from bvpkit import prepared
+
+    spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "cantilever_shelf.toml"
+    key = prepared.spec_key(spec, {})
+    problem = bvpkit.load(spec)
+    bvpkit.solve(problem)
+    prepared.remember(key, problem)
+    path = next(cache.glob("problem-*.json"))
+    data = json.loads(path.read_text())
+    text = next(iter(data["body"]["quantities"]))
+    quantity = data["body"]["quantities"][text]
+    quantity["source"] = quantity["source"].replace("return out", "__import__('os').getcwd()\n    return out")
+    data["sha256"] = prepared._checksum(data["body"])
+    path.write_text(json.dumps(data))
+    assert prepared.cached_problem(key) is None
