@@ -77,7 +77,7 @@ class CompiledSystem:
     bc_jac: Callable
     jac_pattern: np.ndarray
     source: str
-    bc_sides: np.ndarray = None  # type: ignore[assignment]
+    bc_sides: np.ndarray
     physical: Callable | None = None
     singular_matrix: Callable | None = None
     domain_ends: Callable | None = None

@@ -82,10 +82,8 @@ class CollocationEquations:
         self._weights = None
         self._pattern = None
         sides = compiled.bc_sides
-        if sides is None:
-            sides = np.full(compiled.bc(np.zeros(self.n), np.zeros(self.n), np.zeros(self.n_p), k).size, 2)
         self.n_bc = sides.size
-        self.banded = bool(self.n_p == 0 and sides is not None and np.all(sides < 2))
+        self.banded = bool(self.n_p == 0 and (sides < 2).all())
         self.sides = sides
 
     @property
