@@ -86,6 +86,7 @@ def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str
     chosen = plan(trial, method)
     attempts: list[Attempt] = []
     outcome: Outcome | None = None
+    converged: list[tuple[str, Outcome]] = []  # converged but inaccurate: witnesses against a later claim
     domain = (float(trial.x[0]), float(trial.x[-1]))
     for name, reason in chosen.steps:
         start = time.perf_counter()
@@ -104,13 +105,44 @@ def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str
             )
         )
         if result.ok:
-            result.method = name  # type: ignore[attr-defined]
-            return result, attempts, chosen.selection
+            conflict = _disagreement(result, converged, trial)
+            if conflict is None:
+                result.method = name  # type: ignore[attr-defined]
+                return result, attempts, chosen.selection
+            result.status = Status.ERROR_TOO_LARGE
+            result.message = f"{result.message}, but {conflict}"
+            attempts[-1].status, attempts[-1].message = result.status.word, result.message
+        if result.status is Status.ERROR_TOO_LARGE and np.isfinite(result.y).all():
+            converged.append((name, result))
         if outcome is None or _better(result, outcome):
             outcome = result
             outcome.method = name  # type: ignore[attr-defined]
     assert outcome is not None
     return outcome, attempts, chosen.selection
+
+
+def _disagreement(result: Outcome, converged: list[tuple[str, Outcome]], trial: Trial) -> str | None:
+    """Why ``result`` cannot be a success: it differs from an earlier method's converged (if
+    inaccurate) solution by more than both error estimates allow; None when they agree.
+
+    Two methods that disagree beyond their estimates cannot both be right, and the later
+    claim has no better title than the earlier one (seen on an ill-conditioned problem:
+    shooting claimed 1e-13 where collocation honestly reported 0.05 and the truth was 10).
+    """
+    from .diagnostics import hermite
+
+    for name, other in converged:
+        points = other.x
+        with np.errstate(all="ignore"):
+            mine = hermite(trial.compiled, result.x, result.y, result.p, trial.k)(points)
+            theirs = hermite(trial.compiled, other.x, other.y, other.p, trial.k)(points)
+            distance = float(np.nanmax(np.abs(mine - theirs) / (1.0 + np.abs(theirs))))
+        allowed = 2.0 * ((result.error_estimate or 0.0) + (other.error_estimate or 0.0)) + 10.0 * trial.tol
+        if not distance <= allowed:
+            return (f"it differs by {distance:.2g} from the converged solution of {name.replace('_', ' ')} "
+                    f"(estimated error {other.error_estimate or math.nan:.2g}): the methods disagree beyond "
+                    "their estimates, so neither is trusted")
+    return None
 
 
 def _better(new: Outcome, old: Outcome) -> bool:

@@ -256,3 +256,46 @@ def test_collocation_refines_as_long_as_it_adds_nodes(eps, tol):
     true = max(float(np.max(np.abs(sol.evaluate("y", at=x) - exact) / (1 + np.abs(exact)))),
                float(np.max(np.abs(sol.evaluate("y'", at=x) - slope) / (1 + np.abs(slope)))))
     assert 0.5 * true <= sol.diagnostics.error_estimate <= 2 * true
+
+
+def _twin_layer_exact(x: np.ndarray, eps: float) -> np.ndarray:
+    """Exact solution of eps y'' - x y' + y = 0, y(-1) = 1, y(1) = 2 (analytic, reduction of order):
+    y = x/2 + (3/2) w(x)/w(1), w(x) = -exp(x^2/(2 eps)) + (x/eps) integral_0^x exp(t^2/(2 eps)) dt, the
+    integral written through Dawson's function (scipy.special.dawsn) so nothing overflows."""
+    from scipy.special import dawsn
+
+    def g(z):  # w(z) exp(-z^2 / (2 eps))
+        return -1.0 + z * np.sqrt(2.0 / eps) * dawsn(z / np.sqrt(2.0 * eps))
+
+    return x / 2 + 1.5 * np.exp((x**2 - 1) / (2 * eps)) * g(x) / g(1.0)
+
+
+@pytest.mark.parametrize("eps", [1e-2, 1e-3])
+@pytest.mark.parametrize("method", ["auto", *sorted(REGISTRY)])
+def test_no_false_success_on_the_ill_conditioned_twin_layer_problem(method, eps):
+    # A turning-point problem of the singular-perturbation test literature: its outer
+    # solution x/2 is fixed by exponentially small terms, so its stability constant is about
+    # exp(1/(2 eps)) and double precision cannot give 1e-7. Shooting once claimed success here
+    # with an estimate of 1e-13 and a true error of 10.
+    p = bvpkit.Problem(["eps*y'' - x*y' + y = 0"], ["y(-1) = 1", "y(1) = 2"], (-1, 1), constants={"eps": eps})
+    tol = 1e-7
+    sol = bvpkit.solve(p, tol=tol, method=method)
+    if sol.success:
+        x = np.linspace(-1, 1, 2001)
+        exact = _twin_layer_exact(x, eps)
+        true = np.max(np.abs(sol.evaluate("y", at=x) - exact) / (1 + np.abs(exact)))
+        assert true <= 10 * tol, (sol.method, true, sol.diagnostics.error_estimate)
+    else:
+        assert sol.status.word in ("error_too_large", "not_converged", "integration_failed", "mesh_limit",
+                                   "singular_jacobian", "non_finite", "truncation_not_converged")
+
+
+def test_twin_layer_exact_solution_meets_its_equation():
+    # the check value's own check: residual of the exact solution by finite differences
+    eps, h = 1e-2, 1e-5
+    x = np.linspace(-0.95, 0.95, 191)
+    y = lambda z: _twin_layer_exact(z, eps)  # noqa: E731
+    d1 = (y(x + h) - y(x - h)) / (2 * h)
+    d2 = (y(x + h) - 2 * y(x) + y(x - h)) / h**2
+    assert np.max(np.abs(eps * d2 - x * d1 + y(x))) < 1e-6
+    assert _twin_layer_exact(np.array([-1.0, 1.0]), eps) == pytest.approx([1.0, 2.0], rel=1e-12)

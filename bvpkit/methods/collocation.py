@@ -149,6 +149,34 @@ def _defect_correction(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, p
     return x, fine, p_new
 
 
+def check_by_defect(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
+    """The error of any solution ``(x, y, p)`` measured by collocation's deferred correction on its mesh.
+
+    The defect of the solution's C1 cubic (values ``y``, slopes from the equations) is solved
+    with the collocation Newton matrix at the solution: an estimate of ``y_exact - y`` that
+    owes nothing to the method that produced ``y`` (shooting's own estimate re-solves with
+    the same segments and shares their bias), and that grows, truthfully, with the
+    stability constant of an ill-conditioned problem. Returns ``(estimate, stability
+    constant)``, ``(inf, inf)`` when the matrix is singular or the values are not finite.
+    """
+    from .base import Outcome, Trial, compare
+
+    with np.errstate(all="ignore"):
+        try:
+            eq = CollocationEquations(compiled, np.asarray(x, float), k)
+            parts = eq.parts(y, p)
+            lu = eq.factor(y, p, parts[3])
+            fine_x, fine_y, fine_p = _defect_correction(eq, y, p, parts, lu)
+        except (SingularMatrix, ValueError, np.linalg.LinAlgError):
+            return np.inf, np.inf
+        if not (np.isfinite(fine_y).all() and np.isfinite(fine_p).all()):
+            return np.inf, np.inf
+        trial = Trial(compiled, eq.x, y, p, k, 1.0)
+        estimate, _ = compare(Outcome(Status.SOLVED, "", eq.x, y, p), Outcome(Status.SOLVED, "", fine_x, fine_y, fine_p),
+                              trial)
+        return estimate, stability_constant(lu, lu.size, eq.row_scale())
+
+
 class Collocation(Method):
     name = "collocation"
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
