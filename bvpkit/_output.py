@@ -42,3 +42,19 @@ def progress_bar(enabled: bool, total: int):  # noqa: ANN201
     except ImportError:
         return None  # a convenience only: without the extra, work quietly
     return tqdm(total=total, unit="point", leave=False)
+
+
+def json_ready(value: Any) -> Any:
+    """The one cleaner of results for JSON: NaN and inf become null, NumPy scalars and arrays
+    plain numbers and lists, tuples lists, keys strings."""
+    import math
+
+    if isinstance(value, dict):
+        return {str(k): json_ready(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [json_ready(v) for v in value]
+    if hasattr(value, "tolist") and not isinstance(value, str):  # NumPy arrays and scalars
+        return json_ready(value.tolist())
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    return value

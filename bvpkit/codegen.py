@@ -27,7 +27,7 @@ from .compiled import (
     read_cache,
     write_cache,
 )
-from .reduce import X, FirstOrderSystem
+from .reduce import X, StandardForm
 
 # names of compiled.py that code and tests reach through this module
 __all__ = ["CACHE_VARIABLE", "CompiledSystem", "check_source", "compile_expressions", "compile_system"]
@@ -90,86 +90,86 @@ def _function_source(
     return "\n".join(lines) + "\n"
 
 
-def _bc_sides(system: FirstOrderSystem) -> np.ndarray:
+def _bc_sides(form: StandardForm) -> np.ndarray:
     sides = []
-    for e in system.conditions:
+    for e in form.conditions:
         used = e.free_symbols
-        left, right = bool(used & set(system.ya)), bool(used & set(system.yb))
-        if used & set(system.p) or left == right:
+        left, right = bool(used & set(form.ya)), bool(used & set(form.yb))
+        if used & set(form.p) or left == right:
             sides.append(2)
         else:
             sides.append(0 if left else 1)
     return np.array(sides, dtype=int)
 
 
-def _system_source(system: FirstOrderSystem) -> tuple[str, np.ndarray]:
-    n, n_p = system.n, len(system.p)
-    xyk = [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k)]
-    ab = [("ya", system.ya), ("yb", system.yb), ("p", system.p), ("k", system.k)]
-    m = len(system.conditions)
-    rhs = {(i,): e for i, e in enumerate(system.rhs) if e != 0}
-    jac, pjac, pattern = {}, {}, np.zeros((n, n), dtype=bool)
-    for i, e in enumerate(system.rhs):
-        for j, s in enumerate(system.y):
-            d = sp.diff(e, s)
-            if d != 0:
-                jac[(i, j)] = d
-                pattern[i, j] = True
-        for j, s in enumerate(system.p):
-            d = sp.diff(e, s)
-            if d != 0:
-                pjac[(i, j)] = d
-    bc = {(i,): e for i, e in enumerate(system.conditions) if e != 0}
-    bca, bcb, bcp = {}, {}, {}
-    for i, e in enumerate(system.conditions):
-        for j in range(n):
-            for store, s in ((bca, system.ya[j]), (bcb, system.yb[j])):
+def _derivatives(exprs, symbols) -> dict:  # noqa: ANN001
+    """``{(i, j): d exprs[i] / d symbols[j]}`` for the entries that are not zero."""
+    found = {}
+    for i, e in enumerate(exprs):
+        used = e.free_symbols
+        for j, s in enumerate(symbols):
+            if s in used:
                 d = sp.diff(e, s)
                 if d != 0:
-                    store[(i, j)] = d
-        for j, s in enumerate(system.p):
-            d = sp.diff(e, s)
-            if d != 0:
-                bcp[(i, j)] = d
-    physical = {(i,): e for i, e in enumerate(system.physical_rhs or system.rhs) if e != 0}
+                    found[(i, j)] = d
+    return found
+
+
+def _system_source(form: StandardForm) -> tuple[str, np.ndarray]:
+    """Source of the standard form's callables: ``rhs``, its Jacobians in ``y``, ``p`` and the
+    constants ``k`` (continuation frees a constant by reading its column), the conditions and
+    their Jacobians, the singular matrix and the region maps."""
+    n, n_p, n_k = len(form.rhs), len(form.p), len(form.k)
+    xyk = [("x", [X]), ("y", form.y), ("p", form.p), ("k", form.k)]
+    ab = [("ya", form.ya), ("yb", form.yb), ("p", form.p), ("k", form.k)]
+    pk = [("p", form.p), ("k", form.k)]
+    m = len(form.conditions)
+    rhs = {(i,): e for i, e in enumerate(form.rhs) if e != 0}
+    jac = _derivatives(form.rhs, form.y)
+    pattern = np.zeros((n, n), dtype=bool)
+    for i, j in jac:
+        pattern[i, j] = True
     singular = {}
-    if system.singular is not None:
-        singular = {(i, j): e for i, row in enumerate(system.singular) for j, e in enumerate(row) if e != 0}
-    finite_ends = {(i,): e for i, e in enumerate(system.domain) if e not in (sp.oo, -sp.oo)}
+    if form.singular is not None:
+        singular = {(i, j): e for i, row in enumerate(form.singular) for j, e in enumerate(row) if e != 0}
+        for i, j in singular:
+            pattern[i, j] = True
+    maps = {(r, c): e for r, pair in enumerate(form.maps) for c, e in enumerate(pair) if e != 0}
     parts = [
-        _function_source("physical", xyk, physical, (n,), "y"),
-        _function_source("singular_matrix", [("p", system.p), ("k", system.k)], singular, (n, n), None),
-        _function_source("domain_ends", [("p", system.p), ("k", system.k)], finite_ends, (2,), None),
         _function_source("rhs", xyk, rhs, (n,), "y"),
         _function_source("jac", xyk, jac, (n, n), "y"),
-        _function_source("pjac", xyk, pjac, (n, n_p), "y"),
-        _function_source("bc", ab, bc, (m,), None),
-        _function_source("bc_jac_a", ab, bca, (m, n), None),
-        _function_source("bc_jac_b", ab, bcb, (m, n), None),
-        _function_source("bc_jac_p", ab, bcp, (m, n_p), None),
+        _function_source("pjac", xyk, _derivatives(form.rhs, form.p), (n, n_p), "y"),
+        _function_source("kjac", xyk, _derivatives(form.rhs, form.k), (n, n_k), "y"),
+        _function_source("bc", ab, {(i,): e for i, e in enumerate(form.conditions) if e != 0}, (m,), None),
+        _function_source("bc_jac_a", ab, _derivatives(form.conditions, form.ya), (m, n), None),
+        _function_source("bc_jac_b", ab, _derivatives(form.conditions, form.yb), (m, n), None),
+        _function_source("bc_jac_p", ab, _derivatives(form.conditions, form.p), (m, n_p), None),
+        _function_source("bc_jac_k", ab, _derivatives(form.conditions, form.k), (m, n_k), None),
+        _function_source("singular_matrix", pk, singular, (n, n), None),
+        _function_source("region_maps", pk, maps, (len(form.maps), 2), None),
     ]
     return "".join(parts), pattern
 
 
-def compile_system(system: FirstOrderSystem) -> CompiledSystem:
-    """Generate (or fetch from the in-process or disk cache) the callables of ``system``.
+def compile_system(form: StandardForm) -> CompiledSystem:
+    """Generate (or fetch from the in-process or disk cache) the callables of ``form``.
 
     The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is
-    keyed by the system's content and the bvpkit code (compiled.code_stamp); generated code is re-checked by
-    :func:`check_source` before it is compiled, whatever its origin.
+    keyed by the form's content and the bvpkit code (compiled.code_stamp); generated code is
+    re-checked before it is compiled, whatever its origin.
     """
-    key = system.key()
+    key = form.key()
     cached = _MEMORY.get(key)
-    if cached is not None and cached.system is not None:
+    if cached is not None:
         return cached
     stored = read_cache(key)
     if stored is not None:
         source, pattern, sides = stored
     else:
-        source, pattern = _system_source(system)
-        sides = _bc_sides(system)
+        source, pattern = _system_source(form)
+        sides = _bc_sides(form)
         write_cache(key, source, pattern, sides)
-    return assemble(system.state_layout(), source, pattern, sides, system)
+    return assemble(form.layout(), source, pattern, sides)
 
 
 def compile_expressions(

@@ -11,10 +11,10 @@ and the names of NumPy/SciPy functions: no text a user typed ever reaches ``comp
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import re
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -25,8 +25,8 @@ from .layout import StateLayout
 _NAMESPACE = {"numpy": np, "scipy": scipy, "functools": functools}
 _ALLOWED_WORDS = re.compile(
     r"^(_[xyptk]\w*|_ya\d+|_yb\d+|numpy(\.\w+)*|scipy(\.\w+)*|functools\.reduce|def|return|"
-    r"out|x|y|p|k|t|ya|yb|shape|abs|rhs|jac|pjac|bc|bc_jac_[abp]|quantity|physical|singular_matrix|"
-    r"domain_ends)$"
+    r"out|x|y|p|k|t|ya|yb|shape|abs|rhs|jac|pjac|kjac|bc|bc_jac_[abpk]|quantity|singular_matrix|"
+    r"region_maps)$"
 )
 
 
@@ -46,42 +46,55 @@ def _build(source: str, names: Sequence[str]) -> dict[str, Callable]:
     return {name: namespace[name] for name in names}
 
 
-@dataclass(frozen=True)
 class CompiledSystem:
-    """Numerical callables of a first-order system (see :class:`~bvpkit.reduce.FirstOrderSystem`).
+    """The numerical callables of a standard form (see :class:`~bvpkit.reduce.StandardForm`):
+    what every method calls.
+
+    ``rhs`` is the whole right-hand side ``F(t, Y, p, k) + S Y / t`` in the method variable
+    ``t`` on ``[0, 1]``; at ``t = 0`` it takes the limit ``(I - S)^+ F`` of a singular term
+    (as SciPy's ``solve_bvp`` does), so methods need not know that a term is singular.
 
     Attributes
     ----------
     layout : StateLayout
-        The states, parameters and constants the callables work on.
+        The states, regions, parameters and constants the callables work on.
     rhs : callable ``(x, y, p, k) -> ndarray, shape (n, m)``
     jac : callable ``(x, y, p, k) -> ndarray, shape (n, n, m)``; ``d rhs_i / d y_j``
     pjac : callable ``(x, y, p, k) -> ndarray, shape (n, n_p, m)``; ``d rhs_i / d p_j``
+    kjac : callable ``(x, y, p, k) -> ndarray, shape (n, n_k, m)``; ``d rhs_i / d k_j``
     bc : callable ``(ya, yb, p, k) -> ndarray, shape (n + n_p,)``
     bc_jac : callable ``(ya, yb, p, k) -> (dbc/dya, dbc/dyb, dbc/dp)``
+    bc_kjac : callable ``(ya, yb, p, k) -> dbc/dk``
+    maps : callable ``(p, k) -> ndarray, shape (regions, 2)``
+        ``(c_r, h_r)`` per region: ``x = c_r + h_r t``.
     jac_pattern : ndarray of bool, shape (n, n)
         Which entries of ``jac`` can be non-zero.
     bc_sides : ndarray of int, shape (n + n_p,)
-        Per boundary condition, which states it can involve: 0 those at the left end only,
-        1 those at the right end only, 2 both ends or the unknown parameters. Separated
-        conditions let collocation solve its Newton steps with a banded LU.
+        Per condition, which states it can involve: 0 those at ``t = 0`` only, 1 those at
+        ``t = 1`` only, 2 both or the parameters. Separated conditions let collocation
+        solve its Newton steps with a banded LU.
     source : str
-        The generated Python source (what a disk cache stores).
+        The generated Python source (what the disk cache stores).
     """
 
-    layout: StateLayout
-    rhs: Callable
-    jac: Callable
-    pjac: Callable
-    bc: Callable
-    bc_jac: Callable
-    jac_pattern: np.ndarray
-    source: str
-    bc_sides: np.ndarray
-    physical: Callable | None = None
-    singular_matrix: Callable | None = None
-    domain_ends: Callable | None = None
-    system: Any = None  # the symbolic FirstOrderSystem, when this process built it
+    def __init__(self, layout: StateLayout, functions: dict[str, Callable], pattern: np.ndarray,
+                 sides: np.ndarray, source: str):
+        self.layout, self.jac_pattern, self.bc_sides, self.source = layout, pattern, sides, source
+        self._f = functions
+        self.bc = functions["bc"]
+        self.bc_kjac = functions["bc_jac_k"]
+        self.maps = functions["region_maps"]
+        self._singular: dict[bytes, tuple[np.ndarray, np.ndarray]] = {}
+        if layout.singular:
+            self.rhs, self.jac = self._rhs_singular, self._jac_singular
+            self.pjac = functools.partial(self._flat_singular, functions["pjac"])
+            self.kjac = functools.partial(self._flat_singular, functions["kjac"])
+        else:
+            self.rhs, self.jac, self.pjac, self.kjac = (functions[name] for name in ("rhs", "jac", "pjac", "kjac"))
+
+    def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        f = self._f
+        return f["bc_jac_a"](ya, yb, p, k), f["bc_jac_b"](ya, yb, p, k), f["bc_jac_p"](ya, yb, p, k)
 
     @property
     def n(self) -> int:
@@ -91,37 +104,122 @@ class CompiledSystem:
     def n_parameters(self) -> int:
         return len(self.layout.parameters)
 
+    def slopes(self, x, y, p, k) -> np.ndarray:  # noqa: ANN001
+        """``dY/dt`` (the right-hand side, singular term and its limit included)."""
+        return self.rhs(x, y, p, k)
+
     def singular(self, p: np.ndarray, k: np.ndarray) -> np.ndarray | None:
-        """The matrix ``S`` of the term ``S y / (x - a)``, or None."""
-        return self.singular_matrix(p, k) if self.layout.singular else None
+        """The matrix ``S`` of the term ``S Y / t``, or None."""
+        return self._matrices(p, k)[0] if self.layout.singular else None
 
-    def slopes(self, x, y, p, k, physical: bool = False) -> np.ndarray:  # noqa: ANN001
-        """``y'`` in the method's variable (or the physical one), singular term included.
+    def _matrices(self, p, k) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
+        """``S`` and ``D = (I - S)^+`` (the limit at ``t = 0``) for these values."""
+        key = np.ascontiguousarray(p, float).tobytes() + np.ascontiguousarray(k, float).tobytes()
+        found = self._singular.get(key)
+        if found is None:
+            S = np.asarray(self._f["singular_matrix"](p, k), float)
+            found = (S, np.linalg.pinv(np.eye(S.shape[0]) - S))
+            if len(self._singular) > 64:
+                self._singular.clear()
+            self._singular[key] = found
+        return found
 
-        At the singular end itself the limit ``(I - S)^-1 f(a, y(a))`` is used (the value
-        SciPy's ``solve_bvp`` also takes).
-        """
-        if physical and self.layout.rescaled:
-            a, b = self.domain_ends(p, k)
-            return self.slopes((np.asarray(x) - a) / (b - a), y, p, k) / (b - a)
-        f = self.rhs(x, y, p, k)
-        if not self.layout.singular:
-            return f
-        S = self.singular_matrix(p, k)
-        a = self.domain_ends(p, k)[0]
-        d = np.asarray(x, float) - a
-        out = np.array(f, dtype=float)
-        at = d == 0
+    def _rhs_singular(self, x, y, p, k):  # noqa: ANN001, ANN202
+        f = self._f["rhs"](x, y, p, k)
+        S, D = self._matrices(p, k)
+        x = np.asarray(x, float)
+        at = x == 0
         with np.errstate(all="ignore"):
-            term = np.tensordot(S, y, axes=(1, 0)) / np.where(at, 1.0, d)
-        out = out + np.where(at, 0.0, term)
+            term = np.tensordot(S, y, axes=(1, 0)) / np.where(at, 1.0, x)
+        out = f + np.where(at, 0.0, term)
         if np.any(at):
-            limit = np.linalg.solve(np.eye(S.shape[0]) - S, np.reshape(f, (S.shape[0], -1))[:, np.ravel(at)])
             if out.ndim == 1:
-                out = limit[:, 0]
+                out = D @ f
             else:
-                out[:, at] = limit
+                out[:, at] = D @ f[:, at]
         return out
+
+    def _jac_singular(self, x, y, p, k):  # noqa: ANN001, ANN202
+        J = self._f["jac"](x, y, p, k)
+        S, D = self._matrices(p, k)
+        x = np.asarray(x, float)
+        if J.ndim == 2:  # one point
+            return D @ J if x == 0 else J + S / x
+        at = x == 0
+        with np.errstate(all="ignore"):
+            out = J + S[:, :, None] / np.where(at, 1.0, x)
+        if np.any(at):
+            out[:, :, at] = np.einsum("ij,jkm->ikm", D, J[:, :, at])
+        return out
+
+    def _flat_singular(self, function, x, y, p, k):  # noqa: ANN001, ANN202
+        """``pjac``/``kjac`` with the limit at ``t = 0`` (the singular term holds no parameter)."""
+        P = function(x, y, p, k)
+        x = np.asarray(x, float)
+        at = x == 0
+        if np.any(at):
+            _, D = self._matrices(p, k)
+            if P.ndim == 3:
+                P = P.copy()
+                P[:, :, at] = np.einsum("ij,jkm->ikm", D, P[:, :, at])
+            else:
+                P = D @ P
+        return P
+
+    def freeing(self, name: str) -> Freed:
+        """A view of this system with the constant ``name`` solved for, as the last parameter."""
+        return Freed(self, self.layout.constants.index(name))
+
+
+class Freed:
+    """A compiled system with one constant turned into an unknown parameter (the last one).
+
+    Continuation traces a branch through a constant by solving for it; the Jacobians in
+    the constants are compiled with the system, so no new code is needed.
+    """
+
+    def __init__(self, base: CompiledSystem, index: int):
+        self.base, self.index = base, index
+        lay = base.layout
+        self.layout = dataclasses.replace(lay, parameters=(*lay.parameters, lay.constants[index]))
+        self.jac_pattern, self.source = base.jac_pattern, base.source
+        self.bc_sides = np.full(base.bc_sides.size, 2)
+
+    n = CompiledSystem.n
+    n_parameters = CompiledSystem.n_parameters
+
+    def _split(self, p, k):  # noqa: ANN001, ANN202
+        k = np.array(k, dtype=float)
+        k[self.index] = p[-1]
+        return p[:-1], k
+
+    def rhs(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.rhs(x, y, *self._split(p, k))
+
+    slopes = rhs
+
+    def jac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.jac(x, y, *self._split(p, k))
+
+    def pjac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        q, kk = self._split(p, k)
+        column = self.base.kjac(x, y, q, kk)[:, self.index: self.index + 1]
+        return np.concatenate([self.base.pjac(x, y, q, kk), column], axis=1)
+
+    def bc(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        return self.base.bc(ya, yb, *self._split(p, k))
+
+    def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        q, kk = self._split(p, k)
+        a, b, dp = self.base.bc_jac(ya, yb, q, kk)
+        column = self.base.bc_kjac(ya, yb, q, kk)[:, self.index: self.index + 1]
+        return a, b, np.concatenate([np.reshape(dp, (a.shape[0], -1)), column], axis=1)
+
+    def maps(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.maps(*self._split(p, k))
+
+    def singular(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.singular(*self._split(p, k))
 
 
 _MEMORY: dict[str, CompiledSystem] = {}
@@ -226,32 +324,13 @@ def write_atomically(path: Any, text: str) -> None:
         pass
 
 
-_FUNCTIONS = ["rhs", "jac", "pjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p", "physical", "singular_matrix",
-              "domain_ends"]
+_FUNCTIONS = ["rhs", "jac", "pjac", "kjac", "bc", "bc_jac_a", "bc_jac_b", "bc_jac_p", "bc_jac_k", "singular_matrix",
+              "region_maps"]
 
 
-def assemble(layout: StateLayout, source: str, pattern: np.ndarray, sides: np.ndarray, system: Any = None) -> CompiledSystem:
+def assemble(layout: StateLayout, source: str, pattern: np.ndarray, sides: np.ndarray) -> CompiledSystem:
     """The callables of generated ``source`` (checked by :func:`check_source` first)."""
-    f = _build(source, _FUNCTIONS)
-
-    def bc_jac(ya, yb, p, k, _a=f["bc_jac_a"], _b=f["bc_jac_b"], _p=f["bc_jac_p"]):
-        return _a(ya, yb, p, k), _b(ya, yb, p, k), _p(ya, yb, p, k)
-
-    compiled = CompiledSystem(
-        layout=layout,
-        rhs=f["rhs"],
-        jac=f["jac"],
-        pjac=f["pjac"],
-        bc=f["bc"],
-        bc_jac=bc_jac,
-        jac_pattern=pattern,
-        source=source,
-        bc_sides=sides,
-        physical=f["physical"],
-        singular_matrix=f["singular_matrix"],
-        domain_ends=f["domain_ends"],
-        system=system,
-    )
+    compiled = CompiledSystem(layout, _build(source, _FUNCTIONS), pattern, sides, source)
     _MEMORY[layout.key] = compiled
     return compiled
 

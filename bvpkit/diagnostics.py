@@ -103,17 +103,9 @@ class Diagnostics:
 
     def as_dict(self) -> dict[str, Any]:
         """Plain JSON-ready data (non-finite floats become None)."""
-        return _clean(dataclasses.asdict(self))
+        from ._output import json_ready
 
-
-def _clean(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_clean(v) for v in value]
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
+        return json_ready(dataclasses.asdict(self))
 
 
 class Hermite:
@@ -179,18 +171,17 @@ def midpoint_values(y, f, h):  # noqa: ANN001, ANN201
     return 0.5 * (y[:, 1:] + y[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])
 
 
-def hermite(compiled, x, y, p, k, physical: bool = False) -> Hermite:  # noqa: ANN001
+def hermite(compiled, x, y, p, k) -> Hermite:  # noqa: ANN001
     """The C1 cubic interpolant through the states with slopes from the equations.
 
-    For collocation this is the collocation solution itself (as in SciPy's ``solve_bvp``); for shooting
-    it is a 4th-order accurate interpolant of the nodes. ``physical`` says that ``x`` is
-    the physical variable of a rescaled (free-end) problem. Returns a callable
-    ``(points) -> ndarray, shape (n, len(points))``.
+    For collocation this is the collocation solution itself (as in SciPy's ``solve_bvp``);
+    for shooting it is a 4th-order accurate interpolant of the nodes. ``x`` is the standard
+    variable. Returns a callable ``(points) -> ndarray, shape (n, len(points))``.
     """
     import numpy as np
 
     with np.errstate(all="ignore"):
-        slopes = compiled.slopes(x, y, p, k, physical)
+        slopes = compiled.rhs(x, y, p, k)
     return Hermite(x, y, slopes)
 
 
@@ -204,13 +195,13 @@ def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001
     import numpy as np
 
     with np.errstate(all="ignore"):
-        f = compiled.slopes(x, y, p, k)
+        f = compiled.rhs(x, y, p, k)
         h = np.diff(x)
         mid = x[:-1] + 0.5 * h
         # the cubic Hermite interpolant and its derivative at the midpoints of the intervals
         s = midpoint_values(y, f, h)
         ds = 1.5 * (y[:, 1:] - y[:, :-1]) / h - 0.25 * (f[:, :-1] + f[:, 1:])
-        fm = compiled.slopes(mid, s, p, k)
+        fm = compiled.rhs(mid, s, p, k)
         r = np.abs(ds - fm) / (1.0 + np.abs(fm))
         bc = np.abs(compiled.bc(y[:, 0], y[:, -1], p, k))
     equation = float(np.max(r)) if r.size else 0.0

@@ -1,11 +1,15 @@
-"""``solve``: options, infinite domains, and assembling the ``Solution``.
+"""``solve``: options, the start, infinite domains, and settling the outcome into a ``Solution``.
 
-Infinite ends are truncated: the solve starts at a length ``L0`` and the domain is
-lengthened by ``_GROWTH`` (each solve started from the previous one) until the states on
-the common interval change by less than half the tolerance. Each truncated solve is
-error-controlled to an eighth of the tolerance, so the change measures truncation rather
-than discretisation noise, and the reported error estimate (the sum of both) meets the
-tolerance when ``success`` is True.
+Everything here works on the prepared problem (``prepared.py``): the standard form on
+``t`` in ``[0, 1]``. An infinite end is truncated at the length ``_length`` (a constant of
+the standard form): the solve starts at a length ``L0`` and lengthens it by ``_GROWTH``
+(each solve started from the previous one) until the states on the common interval change
+by less than half the tolerance. Each truncated solve is error-controlled to an eighth of
+the tolerance, so the change measures truncation rather than discretisation noise, and the
+reported error estimate (the sum of both) meets the tolerance when ``success`` is True.
+
+:func:`settle` is the one place that turns a method's outcome into a :class:`Solution` and
+settles its status (``solve`` and continuation both use it).
 """
 
 from __future__ import annotations
@@ -18,18 +22,17 @@ from typing import Any
 import numpy as np
 
 from . import guess as _guess
-from . import methods
-from . import strategy
-from .diagnostics import Diagnostics, condition_estimate, hermite, residuals
+from . import methods, strategy
+from .diagnostics import Diagnostics, condition_estimate, residuals
 from .errors import OptionError
+from .layout import LENGTH
 from .methods.base import Outcome, Trial
-from .problem import Problem
-from .solution import Solution
+from .prepared import DEFAULT_TRUNCATION, Prepared, prepare
+from .solution import Interpolant, Solution
 from .status import Status
 
 DEFAULT_TOL = 1e-6
 DEFAULT_MAX_NODES = 20_000
-DEFAULT_TRUNCATION = 10.0  # first placement of an infinite end, measured from the finite one
 _GROWTH = 1.5  # lengthening factor of a truncated domain
 _MAX_LENGTHENINGS = 12  # 1.5**12 ~ 130: from 10 to ~1300 units before giving up
 _SHARE_TRUNCATION = 0.5  # part of the tolerance allowed to truncation
@@ -38,35 +41,31 @@ _SHARE_DISCRETISATION = 0.125  # each truncated solve's error target: two of the
 _OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation"}
 
 
-def _options(problem: Problem, given: Mapping[str, Any]) -> dict[str, Any]:
-    settings = {k: v for k, v in problem.settings.items() if k in _OPTIONS}
-    settings.update({k: v for k, v in given.items() if v is not None})
-    method = settings.get("method", "auto")
+def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, Any]:
+    """Solver options from a problem's settings and the arguments given (which win), checked."""
+    chosen = {k: v for k, v in settings.items() if k in _OPTIONS}
+    chosen.update({k: v for k, v in given.items() if v is not None})
+    method = chosen.get("method", "auto")
     if method != "auto":
         methods.get(method)
-    tol = settings.get("tol", DEFAULT_TOL)
+    tol = chosen.get("tol", DEFAULT_TOL)
     if isinstance(tol, bool) or not isinstance(tol, int | float) or not (1e-13 <= tol <= 0.1):
         raise OptionError(f"tol must be a number between 1e-13 and 0.1, got {tol!r}")
-    max_nodes = settings.get("max_nodes", DEFAULT_MAX_NODES)
+    max_nodes = chosen.get("max_nodes", DEFAULT_MAX_NODES)
     if isinstance(max_nodes, bool) or not isinstance(max_nodes, int) or not 10 <= max_nodes <= 10**7:
         raise OptionError(f"max_nodes must be a whole number from 10 to 10**7, got {max_nodes!r}")
-    verify = settings.get("verify", True)
+    verify = chosen.get("verify", True)
     if not isinstance(verify, bool):
         raise OptionError(f"verify must be true or false, got {verify!r}")
-    truncation = settings.get("truncation", DEFAULT_TRUNCATION)
+    truncation = chosen.get("truncation", DEFAULT_TRUNCATION)
     if isinstance(truncation, bool) or not isinstance(truncation, int | float) or not 0 < truncation < 1e8:
         raise OptionError(f"truncation must be a positive length, got {truncation!r}")
-    return {
-        "method": method,
-        "tol": float(tol),
-        "max_nodes": max_nodes,
-        "verify": verify,
-        "truncation": float(truncation),
-    }
+    return {"method": method, "tol": float(tol), "max_nodes": max_nodes, "verify": verify,
+            "truncation": float(truncation)}
 
 
 def solve(
-    problem: Problem,
+    problem: Any,
     *,
     method: str | None = None,
     tol: float | None = None,
@@ -79,7 +78,7 @@ def solve(
 
     Parameters
     ----------
-    problem : Problem
+    problem : Problem or Prepared
     method : {"auto", "collocation", ...}, optional
         ``"auto"`` (default) lets the selector choose and fall back; a name from
         ``bvpkit.methods.REGISTRY`` runs that method alone.
@@ -87,15 +86,15 @@ def solve(
         Tolerance on the estimated relative error of the states, ``|dy| / (1 + |y|)``
         (default 1e-6, or the problem's settings).
     guess : Solution or mapping of str to expression, optional
-        Start from a previous solution, or from expressions per unknown function (these
-        replace the problem's own guesses).
+        Start from a previous solution of the same problem (other constants allowed), or from
+        expressions per unknown function (these replace the problem's own guesses).
     max_nodes : int, optional
         Mesh limit (default 20000).
     verify : bool, optional
         Estimate the error (collocation: by deferred correction; shooting: by a re-solve with
-        a tighter integrator) and the stability constant of the problem (default True).
-        Without it, the solve is faster (see ``benchmarks/``) and ``error_estimate`` and
-        ``condition`` are not computed (NaN and None).
+        a tighter integrator, checked by deferred correction) and the stability constant of
+        the problem (default True). Without it, the solve is faster (see ``benchmarks/``)
+        and ``error_estimate`` and ``condition`` are not computed (NaN and None).
     truncation : float, optional
         First placement of an infinite end, measured from the finite end (default 10). The
         domain is lengthened from there until the solution stops changing.
@@ -106,213 +105,264 @@ def solve(
         ``success`` is False (and ``message`` says why) when the solve failed; bad input
         raises a :class:`~bvpkit.BvpkitError` instead.
     """
-    if not isinstance(problem, Problem):
+    from .problem import Problem
+
+    if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"solve() takes a bvpkit.Problem, got {type(problem).__name__}")
-    options = _options(
-        problem,
-        {"method": method, "tol": tol, "max_nodes": max_nodes, "verify": verify, "truncation": truncation},
-    )
+    prepared = prepare(problem)
+    chosen = options(prepared.settings, {"method": method, "tol": tol, "max_nodes": max_nodes, "verify": verify,
+                                         "truncation": truncation})
     start = time.perf_counter()
-    compiled = problem.compiled()
-    system = compiled.layout
-    k = np.array([problem.constants[c] for c in system.constants], dtype=float)
-    a, b = problem.ends()
-    if math.isinf(a) or math.isinf(b):
-        if system.eigenvalue is not None:
-            raise OptionError("eigenvalue problems on infinite domains are not supported; truncate the domain")
-        return _solve_infinite(problem, compiled, k, a, b, guess, options, start)
-    if system.rescaled and isinstance(guess, Solution | _guess.Start):
-        a, b = float(guess.x[0]), float(guess.x[-1])
-    x = _guess.initial_mesh(a, b, min(_guess.INITIAL_NODES, options["max_nodes"] // 2))
-    if isinstance(guess, Solution | _guess.Start) and np.isclose(guess.x[0], a) and np.isclose(guess.x[-1], b):
-        x = guess.x.copy()  # its mesh already fits the solution
-    y, p = _start(problem, compiled, x, k, guess)
-    method_x = (x - a) / (b - a) if system.rescaled else x
-    if system.eigenvalue is not None and not isinstance(guess, Solution | _guess.Start):
-        vectors, lam = _guess.eigen_guess(compiled, method_x, k, system.mode)
-        if not guess:
-            y[: system.users] = vectors
-        p[system.eigenvalue] = lam
-        _guess.fill_integrals(compiled, x, y, p, k)
-    trial = Trial(compiled, method_x, y, p, k, options["tol"], options["max_nodes"], options["verify"],
-                  singular=compiled.singular(p, k))
-    outcome, attempts, selection = strategy.run(trial, options["method"])
-    return _assemble(problem, compiled, k, outcome, attempts, selection, start, None, None, tol=options["tol"])
+    _check_guess(prepared, guess)
+    if any(prepared.infinite):
+        return _solve_infinite(prepared, guess, chosen, start)
+    k = prepared.k()
+    t, y, p = _start(prepared, k, guess, chosen)
+    outcome, attempts, selection = _run(prepared, t, y, p, k, chosen["tol"], chosen)
+    return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - start, chosen["tol"])
 
 
-def _start(problem, compiled, x, k, guess) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
+def _check_guess(prepared: Prepared, guess: Any) -> None:
+    if guess is None or isinstance(guess, Mapping):
+        return
     if isinstance(guess, Solution | _guess.Start):
-        if guess.state_names != compiled.layout.state_names:
+        layout = guess.interpolant.layout if isinstance(guess, Solution) else guess.layout
+        if layout.row_names != prepared.layout.row_names:
             raise OptionError(
-                f"the guess solution has states {guess.state_names}, this problem "
-                f"{compiled.layout.state_names}"
+                f"the guess solution has states {layout.row_names}, this problem {prepared.layout.row_names}"
             )
-        return _guess.from_solution(guess, x)
-    if guess is not None and not isinstance(guess, Mapping):
-        raise OptionError(
-            f"guess must be a Solution or a mapping of function name to expression, got "
-            f"{type(guess).__name__}"
-        )
-    return _guess.initial_guess(problem, compiled, x, k, guess)
+        return
+    raise OptionError(
+        f"guess must be a Solution or a mapping of function name to expression, got {type(guess).__name__}"
+    )
 
 
-def _truncated(a: float, b: float, length: float) -> tuple[float, float]:
-    if math.isinf(a) and math.isinf(b):
-        return -length, length
-    if math.isinf(b):
-        return a, a + length
-    return b - length, b
+def place(compiled, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
+    """How a point of the standard variable reads in the user's variable, for messages."""
+    with np.errstate(all="ignore"):
+        maps = np.asarray(compiled.maps(p, k), float)
+    name = compiled.layout.independent
+
+    def where(t: float) -> str:
+        xs = maps[:, 0] + maps[:, 1] * float(t)
+        if xs.size == 1:
+            return f"{name} = {xs[0]:.6g}"
+        return f"{name} = " + " / ".join(f"{x:.6g}" for x in xs) + " (the same place in each region)"
+
+    return where
 
 
-def _solve_infinite(problem, compiled, k, a, b, guess, options, start) -> Solution:  # noqa: ANN001
-    tol = options["tol"]
+def _run(prepared: Prepared, t, y, p, k, tol: float, chosen: dict) -> tuple[Outcome, list, str]:  # noqa: ANN001
+    compiled = prepared.compiled
+    with np.errstate(all="ignore"):
+        ends = _guess.positions(np.asarray(compiled.maps(p, k), float))
+    trial = Trial(compiled, t, y, p, k, tol, chosen["max_nodes"], chosen["verify"], place=place(compiled, p, k))
+    return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])))
+
+
+def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Mesh, states and parameters to start from."""
+    compiled = prepared.compiled
+    layout = compiled.layout
+    nodes = min(_guess.INITIAL_NODES, chosen["max_nodes"] // 2)
+    if isinstance(guess, Solution | _guess.Start):
+        start = _as_start(guess)
+        p = start.p.copy()
+        t = start.t.copy()
+        return t, _guess.carried(start, compiled, t, p, k), p
+    p = prepared.p0()
+    t = _guess.initial_mesh(nodes)
+    recipes = dict(prepared.recipes)
+    for name, expression in (guess or {}).items():
+        if name not in recipes:
+            from .errors import closest
+
+            raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
+        recipes[name] = prepared.recipe(name, expression)
+    y = _guess.from_recipes(recipes, compiled, t, p, k)
+    if layout.eigenvalue is not None:
+        vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
+        if not guess:
+            y[layout.user_rows] = vectors[layout.user_rows]
+        p[layout.eigenvalue] = lam
+        _guess.fill_integrals(compiled, t, y, p, k)
+    return t, y, p
+
+
+def _as_start(guess: Any) -> _guess.Start:
+    if isinstance(guess, _guess.Start):
+        return guess
+    view = guess.interpolant
+    return _guess.Start(view.compiled, view.t, view.y, view.p, view.k)
+
+
+def _length_of(prepared: Prepared, k: np.ndarray) -> float:
+    return float(k[prepared.layout.constants.index(LENGTH)])
+
+
+def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float) -> Solution:
+    tol = chosen["tol"]
     # Every truncated solve is error-controlled to a fraction of the tolerance, so that the
     # change between two lengths measures truncation, not the noise of two discretisations.
     inner_tol = tol * _SHARE_DISCRETISATION
-    length = options["truncation"]
+    length = chosen["truncation"]
     if isinstance(guess, Solution | _guess.Start):
         # a previous solution already knows a good length: start there (continuation, sweeps)
-        known = float(guess.x[-1] - guess.x[0]) if not (math.isinf(a) and math.isinf(b)) else float(guess.x[-1])
-        length = max(length, known)
-    attempts = []
+        length = max(length, _length_of(prepared, _as_start(guess).k))
+    attempts: list = []
     previous: Outcome | None = None
+    previous_k = None
     change = math.inf
     selection = ""
     outcome: Outcome | None = None
     for _ in range(_MAX_LENGTHENINGS):
-        lo, hi = _truncated(a, b, length)
+        k = prepared.k(length)
         if previous is None:
-            x = _guess.initial_mesh(lo, hi, min(_guess.INITIAL_NODES, options["max_nodes"] // 2))
-            y, p = _start(problem, compiled, x, k, guess)
+            t, y, p = _start(prepared, k, guess, chosen)
         else:
-            x, y, p = _extend(compiled, previous, k, lo, hi)
-        trial = Trial(compiled, x, y, p, k, inner_tol, options["max_nodes"], verify=options["verify"])
-        outcome, tried, chosen = strategy.run(trial, options["method"])
+            t = _extended_mesh(previous.x, _length_of(prepared, previous_k) / length, prepared.layout)
+            p = previous.p.copy()
+            y = _guess.carried(_guess.Start(prepared.compiled, previous.x, previous.y, previous.p, previous_k),
+                               prepared.compiled, t, p, k)
+        outcome, tried, chosen_reason = _run(prepared, t, y, p, k, inner_tol, chosen)
         attempts += tried
-        selection = selection or chosen
+        selection = selection or chosen_reason
         if not outcome.ok:
             if previous is None:
-                return _assemble(problem, compiled, k, outcome, attempts, selection, start, length, None, tol=tol)
+                return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length)
             break
         if previous is not None:
-            change = _change(compiled, previous, outcome, k)
+            change = _change(prepared, previous, previous_k, outcome, k)
             if change <= _SHARE_TRUNCATION * tol:
-                return _assemble(problem, compiled, k, outcome, attempts, selection, start, length,
-                                 change, previous, tol=tol)
-        previous = outcome
+                return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length,
+                              change, Interpolant(prepared.compiled, previous.x, previous.y, previous.p, previous_k))
+        previous, previous_k = outcome, k
         length *= _GROWTH
     assert outcome is not None and previous is not None
+    elapsed = time.perf_counter() - started
     if outcome.ok:
         outcome.status = Status.TRUNCATION
         outcome.message = (
-            f"the solution still changed by {change:.2g} when infinity was moved out to "
-            f"{length / _GROWTH:.4g}; " + Status.TRUNCATION.hint
+            f"the solution still changed by {change:.2g} when infinity was moved out to {length / _GROWTH:.4g}; "
+            + Status.TRUNCATION.hint
         )
-        return _assemble(problem, compiled, k, outcome, attempts, selection, start, length / _GROWTH, change, tol=tol)
+        return settle(prepared, prepared.k(length / _GROWTH), outcome, attempts, selection, elapsed, tol,
+                      length / _GROWTH, change)
     # A longer domain failed: hand back the last converged one, marked as not settled.
     previous.status = Status.TRUNCATION
+    shorter = _length_of(prepared, previous_k)
     previous.message = (
-        f"the solve failed when infinity was moved out to {length:.4g} ({outcome.message}); "
-        f"the solution shown stops at {previous.x[-1]:.4g} and had not settled "
-        f"(last change {change:.2g})"
+        f"the solve failed when infinity was moved out to {length:.4g} ({outcome.message}); the solution shown "
+        f"stops at a length of {shorter:.4g} and had not settled (last change {change:.2g})"
     )
-    return _assemble(problem, compiled, k, previous, attempts, selection, start, float(previous.x[-1]), change, tol=tol)
+    return settle(prepared, previous_k, previous, attempts, selection, elapsed, tol, shorter, change)
 
 
-def _extend(compiled, previous: Outcome, k, lo: float, hi: float):  # noqa: ANN001, ANN202
-    """Mesh and states on a longer interval, continuing ``previous`` along its end slopes."""
-    x0 = previous.x
-    h = max(float(np.diff(x0[-5:]).mean()), (hi - lo) / 400)
-    pieces = [x0]
-    if hi > x0[-1]:
-        pieces.append(np.linspace(x0[-1], hi, max(2, int(math.ceil((hi - x0[-1]) / h)) + 1))[1:])
-    if lo < x0[0]:
-        pieces.insert(0, np.linspace(lo, x0[0], max(2, int(math.ceil((x0[0] - lo) / h)) + 1))[:-1])
-    x = np.concatenate(pieces)
-    spline = hermite(compiled, x0, previous.y, previous.p, k)
-    y = spline(np.clip(x, x0[0], x0[-1]))
-    with np.errstate(all="ignore"):
-        slopes = compiled.rhs(x0[[0, -1]], previous.y[:, [0, -1]], previous.p, k)
-    right, left = x > x0[-1], x < x0[0]
-    y[:, right] += slopes[:, 1:2] * (x[right] - x0[-1])
-    y[:, left] += slopes[:, 0:1] * (x[left] - x0[0])
-    return x, y, previous.p.copy()
+def _extended_mesh(t: np.ndarray, ratio: float, layout) -> np.ndarray:  # noqa: ANN001
+    """The standard mesh after an infinite end moved out by ``1 / ratio``: the old points where
+    they were in the user's variable, new ones beyond at the spacing of the old far end."""
+    if layout.regions > 1:
+        return t.copy()  # other regions keep their mesh; the far region is read by interpolation
+    both = all(layout.infinite)
+    if both:  # x = L (2 t - 1): the old mesh shrinks towards the middle
+        old = 0.5 + (t - 0.5) * ratio
+    elif layout.infinite[1]:
+        old = t * ratio
+    else:
+        old = 1.0 - (1.0 - t) * ratio
+    h = max(float(np.diff(old[-5:]).mean()), 1.0 / 400)
+    pieces = [old]
+    if old[-1] < 1.0:
+        pieces.append(np.linspace(old[-1], 1.0, max(2, int(math.ceil((1.0 - old[-1]) / h)) + 1))[1:])
+    if old[0] > 0.0:
+        pieces.insert(0, np.linspace(0.0, old[0], max(2, int(math.ceil(old[0] / h)) + 1))[:-1])
+    mesh = np.concatenate(pieces)
+    mesh[0], mesh[-1] = 0.0, 1.0
+    return mesh
 
 
-def _change(compiled, old: Outcome, new: Outcome, k) -> float:  # noqa: ANN001
+def _change(prepared: Prepared, old: Outcome, old_k: np.ndarray, new: Outcome, new_k: np.ndarray) -> float:
     """Max relative change of the states on the shorter interval, and of the parameters."""
-    points = old.x
-    a = hermite(compiled, old.x, old.y, old.p, k)(points)
-    b = hermite(compiled, new.x, new.y, new.p, k)(points)
-    change = float(np.max(np.abs(a - b) / (1.0 + np.abs(b))))
+    compiled = prepared.compiled
+    theirs = _guess.carried(_guess.Start(compiled, new.x, new.y, new.p, new_k), compiled, old.x, old.p, old_k)
+    change = float(np.max(np.abs(old.y - theirs) / (1.0 + np.abs(theirs))))
     if old.p.size:
         change = max(change, float(np.max(np.abs(old.p - new.p) / (1.0 + np.abs(new.p)))))
     return change
 
 
-def _assemble(problem, compiled, k, outcome, attempts, selection, start, length, change,  # noqa: ANN001
-              previous: Outcome | None = None, tol: float | None = None) -> Solution:
+def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, selection: str, seconds: float,
+           tol: float | None, length: float | None = None, change: float | None = None,
+           previous: Interpolant | None = None) -> Solution:
+    """Turn a method's outcome into a :class:`Solution`, settling its status: the last guards
+    (finite values, the estimate within the tolerance, the eigenvalue's mode), the residuals
+    and stability constant, and the words of the message."""
+    compiled = prepared.compiled
+    layout = compiled.layout
     residual, bc_residual = residuals(compiled, outcome.x, outcome.y, outcome.p, k)
-    verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
     discretisation = outcome.error_estimate
     estimate = math.nan
     if discretisation is not None:
         estimate = discretisation + (change if change is not None and math.isfinite(change) else 0.0)
     status, message = outcome.status, outcome.message
     if status is Status.SOLVED and length is not None:
-        ends = [f"{outcome.x[i]:.4g}" for i, inf in zip((0, -1), problem.infinite) if inf]
+        a, b = _guess.positions(np.asarray(compiled.maps(outcome.p, k), float))[[0, -1]]
+        ends = [f"{v:.4g}" for v, inf in zip((a, b), layout.infinite) if inf]
         message += (
-            f"; infinity placed at {problem.independent} = {' and '.join(ends)} (the solution "
-            f"changed by {change:.2g} from the last shorter domain)"
+            f"; infinity placed at {layout.independent} = {' and '.join(ends)} (the solution changed by "
+            f"{change:.2g} from the last shorter domain)"
         )
+    verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
+    condition = None
+    if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all():
+        condition = outcome.condition if outcome.condition is not None else condition_estimate(
+            compiled, outcome.x, outcome.y, outcome.p, k)
+    # The last guards: success never comes with non-finite values or an estimate above tol.
+    if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
+        status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
+    if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
+        status = Status.ERROR_TOO_LARGE
+        message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
+    if layout.eigenvalue is not None and status is Status.SOLVED:
+        found = _guess.interior_zeros(_guess.first_function(layout, outcome.y))
+        if found != layout.mode - 1:
+            name = layout.functions[0][0]
+            status = Status.OTHER_MODE
+            message = (
+                f"asked for mode {layout.mode} ({layout.mode - 1} interior zeros of {name}), but the solution "
+                f"found has {found} interior zeros (mode {found + 1}); " + Status.OTHER_MODE.hint
+            )
     diagnostics = Diagnostics(
-        method=getattr(outcome, "method", attempts[-1].method if attempts else ""),
+        method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,
-        mesh_nodes=int(outcome.x.size),
+        mesh_nodes=int(outcome.x.size * layout.regions),
         max_residual=residual,
         bc_residual=bc_residual,
         error_estimate=estimate,
         discretisation_error=discretisation,
         truncation_error=change if length is not None else None,
         truncation_length=length,
-        condition=(outcome.condition if outcome.condition is not None
-                   else condition_estimate(compiled, outcome.x, outcome.y, outcome.p, k))
-        if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all()
-        else None,
-        seconds=time.perf_counter() - start,
+        condition=condition,
+        seconds=seconds,
         attempts=attempts,
-        selection=selection,
+        selection=_selection_words(selection, attempts, outcome),
         tol=tol,
     )
-    # The last guard: success never comes with non-finite values or an estimate above tol.
-    if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
-        status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
-    if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
-        status = Status.ERROR_TOO_LARGE
-        message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
-    system = compiled.layout
-    if system.eigenvalue is not None and status is Status.SOLVED:
-        found = _guess.interior_zeros(outcome.y[system.index(system.states[0][0], 0)])
-        if found != system.mode - 1:
-            status = Status.OTHER_MODE
-            message = (
-                f"asked for mode {system.mode} ({system.mode - 1} interior zeros of "
-                f"{system.states[0][0]}), but the solution found has {found} interior zeros "
-                f"(mode {found + 1}); " + Status.OTHER_MODE.hint
-            )
-    reference = _physical(compiled, k, outcome.reference) if outcome.reference is not None else None
-    shorter = _physical(compiled, k, previous) if previous is not None else None
-    x, y, p = _physical(compiled, k, outcome)
-    return Solution(
-        problem, compiled, k, status, message, diagnostics.method, x, y, p,
-        diagnostics, outcome.parameter_errors, reference, shorter,
-    )
+    reference = None
+    if outcome.reference is not None:
+        ref = outcome.reference
+        reference = Interpolant(compiled, ref.x, ref.y, ref.p, k)
+    return Solution(prepared, k, status, message, diagnostics.method, outcome.x, outcome.y, outcome.p,
+                    diagnostics, outcome.parameter_errors, reference, previous)
 
 
-def _physical(compiled, k, outcome: Outcome) -> tuple[np.ndarray, np.ndarray, np.ndarray]:  # noqa: ANN001
-    """Mesh, states and parameters with the mesh in the physical variable."""
-    x = outcome.x
-    if compiled.layout.rescaled:
-        a, b = compiled.domain_ends(outcome.p, k)
-        x = a + (b - a) * x
-    return x, outcome.y, outcome.p
+def _selection_words(selection: str, attempts: list, outcome: Outcome) -> str:
+    """What was chosen, what failed and what took over, in one line."""
+    if not attempts:
+        return selection
+    first = attempts[0].method
+    final = outcome.method or attempts[-1].method
+    if final == first:
+        return selection
+    failed = ", ".join(f"{a.method.replace('_', ' ')} ({a.status})" for a in attempts if a.method != final)
+    return f"{selection}; that failed ({failed}), and {final.replace('_', ' ')} took over"

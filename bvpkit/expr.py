@@ -7,7 +7,7 @@ Grammar (``=`` only in equations)::
     term       := unary (('*' | '/') unary)*
     unary      := ('+' | '-') unary | power
     power      := postfix ['**' unary]            # right-associative; -x**2 == -(x**2)
-    postfix    := NAME PRIMES? ['(' arguments ')'] | NUMBER | '(' expression ')'
+    postfix    := NAME PRIMES? ['(' arguments ')'] | NUMBER | '(' expression ')' PRIMES?
 
 Meaning of names:
 
@@ -16,6 +16,10 @@ Meaning of names:
 * ``f'''`` -- a derivative of the unknown function ``f`` with respect to the independent
   variable: ``Derivative(f(x), (x, 3))``;
 * ``f(0)``, ``f'(inf)``, ``f(L)`` -- a point evaluation: ``f(0)``, ``Subs(Derivative(f(x), x), x, oo)``;
+* ``f(L-)``, ``f'(L+)`` -- a one-sided value at an interface (from the left, from the right):
+  :class:`SideValue`;
+* ``(expression)'`` -- the derivative of a bracket (``((1 + b*T)*T')'``), kept as an
+  unevaluated ``Derivative`` until the names in it are known;
 * any other bare name -- a ``Symbol`` (the independent variable, a constant, a parameter, or
   an unknown function at the running point; :mod:`bvpkit.problem` decides which).
 
@@ -87,6 +91,19 @@ class DomainIntegral(sp.Function):
 
 
 INTEGRAL = "integral"
+
+
+class SideValue(sp.Function):
+    """``f(X-)``, ``f'(X+)``: the value of ``f`` (or a derivative) at ``X`` from the left
+    (``side = -1``) or from the right (``side = +1``), for a state that may jump at an
+    interface. ``args = (point value, side)``; :mod:`bvpkit.problem` reads them."""
+
+    nargs = 2
+
+    def _sympystr(self, printer):  # noqa: ANN001, ANN202
+        value, side = self.args
+        text = printer.doprint(value)
+        return f"{text[:-1]}{'-' if side < 0 else '+'})" if text.endswith(")") else f"{text}{'-' if side < 0 else '+'}"
 
 _TOKEN = re.compile(
     r"""
@@ -204,6 +221,11 @@ class _Parser:
             raise ExpressionError(f"expected {what}, found {found}", self.text, self.tok.column)
         return self._advance()
 
+    def _side_marker(self) -> bool:
+        """A '+' or '-' right before ')': the side of a one-sided point value, f(L-)."""
+        following = self.tokens[self.pos + 1] if self.pos + 1 < len(self.tokens) else None
+        return following is not None and following.kind == "op" and following.text == ")"
+
     def _error(self, reason: str, token: _Token | None = None) -> ExpressionError:
         token = token or self.tok
         return ExpressionError(reason, self.text, token.column)
@@ -236,7 +258,7 @@ class _Parser:
     def expression(self) -> sp.Expr:
         self._enter()
         value = self.term()
-        while self._is("+") or self._is("-"):
+        while (self._is("+") or self._is("-")) and not self._side_marker():
             op = self._advance().text
             right = self.term()
             value = value + right if op == "+" else value - right
@@ -299,6 +321,13 @@ class _Parser:
             self._advance()
             value = self.expression()
             self._expect(")", "')'")
+            if self.tok.kind == "primes":
+                # ((1 + b*T)*T')': the derivative of the bracket, taken once the names are
+                # known (problem.py evaluates it after reading T as a function of x)
+                primes = len(self._advance().text)
+                if primes > MAX_DERIVATIVE:
+                    raise self._error(f"more than {MAX_DERIVATIVE} primes on a bracket", token)
+                return sp.Derivative(value, (self.x, primes), evaluate=False)
             return value
         if token.kind == "name":
             return self._name()
@@ -359,11 +388,17 @@ class _Parser:
         value = sp.Derivative(function, (self.x, primes)) if primes else function
         if not called:
             return value
-        args = self._arguments()
-        if len(args) != 1:
+        self._expect("(", "'('")
+        point = self.expression()
+        side = 0
+        if (self._is("-") or self._is("+")) and self._side_marker():
+            side = -1 if self._advance().text == "-" else 1
+        if self._is(","):
             raise self._error(f"a point value of '{name}' takes one argument", token)
-        point = args[0]
+        self._expect(")", "')'")
         if point == self.x:
+            if side:
+                raise self._error(f"a one-sided value needs a point, e.g. {name}(1-)", token)
             return value
         if self.x in point.free_symbols:
             raise self._error(
@@ -373,9 +408,8 @@ class _Parser:
             )
         if point.has(sp.Function) or point.has(sp.Derivative) or point.has(sp.Subs):
             raise self._error("the point of an evaluation must be a number or constant", token)
-        if primes:
-            return sp.Subs(value, self.x, point)
-        return sp.Function(name)(point)
+        at = sp.Subs(value, self.x, point) if primes else sp.Function(name)(point)
+        return SideValue(at, side) if side else at
 
     def _arguments(self) -> list[sp.Expr]:
         self._expect("(", "'('")

@@ -1,9 +1,13 @@
-"""Initial meshes and guesses.
+"""Initial meshes and guesses, in the standard form's variable ``t`` on ``[0, 1]``.
 
 Per unknown function, in order of preference: a guess passed to ``solve``, the problem's
-own guess expression, or a default: the lowest-degree polynomial that satisfies the
-function's linear boundary conditions (so ``y(0) = 0, y(1) = 1`` gives ``y = x``, and
-``f(0) = f'(0) = 0, f'(L) = 1`` gives ``f = x**2 / (2 L)``).
+own guess expression, or a default: the lowest-degree polynomial (in the user's variable,
+over the whole domain) that satisfies the function's linear conditions, at the ends and at
+interfaces (so ``y(0) = 0, y(1) = 1`` gives ``y = x``, and ``f(0) = f'(0) = 0, f'(L) = 1``
+gives ``f = x**2 / (2 L)``). Each guess is a :class:`GuessRecipe`: plain data made once
+with SymPy (``prepared.py``), then evaluated on any mesh and for any constants without it.
+Added states (integrals) start from the running integrals of their integrands; an
+eigenvalue problem starts from a discretised matrix eigenproblem.
 """
 
 from __future__ import annotations
@@ -15,69 +19,26 @@ from typing import Any
 
 import numpy as np
 
-from ._lazy import LazyModule
-from .compiled import CompiledSystem
 from .errors import ProblemError
-
-sp = LazyModule("sympy")
 
 #: Nodes of the first mesh; collocation refines it where the residual asks.
 INITIAL_NODES = 41
 
 
-def initial_mesh(a: float, b: float, nodes: int = INITIAL_NODES) -> np.ndarray:
-    return np.linspace(a, b, nodes)
+def initial_mesh(nodes: int = INITIAL_NODES) -> np.ndarray:
+    """The first mesh of the standard variable ``t`` on ``[0, 1]``."""
+    return np.linspace(0.0, 1.0, nodes)
 
 
-def initial_guess(
-    problem,  # noqa: ANN001 - a bvpkit.Problem
-    compiled: CompiledSystem,
-    x: np.ndarray,
-    k: np.ndarray,
-    override: Mapping[str, Any] | None = None,
-) -> tuple[np.ndarray, np.ndarray]:
-    """States ``(n, m)`` and parameters ``(n_p,)`` to start from on the mesh ``x``.
-
-    Guesses without ``override`` are remembered per problem, mesh and constants
-    (``problem._starts``); a problem rebuilt from a cache (see ``prepared.py``) brings them
-    along, so its solve needs no SymPy.
-    """
-    layout = compiled.layout
-    p = np.array([problem.unknown_parameters[q] for q in layout.parameters], dtype=float)
-    remembered = problem.__dict__.setdefault("_starts", {})
-    key = start_key(x, k, p)
-    if not override and key in remembered:
-        y, p = remembered[key]
-        return np.array(y, dtype=float), np.array(p, dtype=float)
-    y = np.zeros((layout.n, x.size))
-    recipes = guess_recipes(problem, compiled)
-    if override:
-        system = compiled.system if compiled.system is not None else problem.system
-        recipes = {**recipes, **{name: _expression_recipe(problem, system, name, problem._guesses({name: value})[name])
-                                 for name, value in override.items()}}
-    for name in problem.unknowns:
-        recipe = recipes[name]
-        y[[layout.index(name, j) for j in range(recipe.order)]] = recipe(x, p, k)
-    fill_integrals(compiled, x, y, p, k)
-    if not np.isfinite(y).all():
-        bad = np.argwhere(~np.isfinite(y))[0]
-        raise ProblemError(
-            f"the guess for {layout.state_names[bad[0]]} is NaN or inf at "
-            f"{problem.independent} = {x[bad[1]]:.6g}; give a guess defined on the whole domain"
-        )
-    if not override:
-        if len(remembered) >= 8:
-            remembered.clear()
-        remembered[key] = (y.copy(), p.copy())
-    return y, p
+def positions(maps: np.ndarray) -> np.ndarray:
+    """The ends and interfaces ``(X_0, ..., X_R)`` in the user's variable, from the region
+    maps ``(c_r, h_r)`` (a truncated infinite end where it is placed now)."""
+    return np.concatenate([maps[:, 0], [maps[-1, 0] + maps[-1, 1]]])
 
 
-def start_key(x: np.ndarray, k: np.ndarray, p: np.ndarray) -> str:
-    """Key of a remembered guess: the mesh, the constants and the parameter guesses."""
-    import hashlib
-
-    data = b"".join(np.ascontiguousarray(a, dtype=float).tobytes() for a in (x, k, p))
-    return hashlib.sha256(data).hexdigest()[:24]
+def physical(t: np.ndarray, maps: np.ndarray) -> np.ndarray:
+    """The user's variable of every region at the standard mesh ``t``: ``(regions, len(t))``."""
+    return maps[:, 0:1] + maps[:, 1:2] * np.asarray(t, float)[None, :]
 
 
 @dataclass
@@ -86,7 +47,7 @@ class GuessRecipe:
 
     ``kind`` is ``"expression"`` (``source`` computes the function and its derivatives from
     ``(x, p, k)``) or ``"polynomial"`` (the lowest-degree polynomial meeting the linear
-    conditions on the function alone: ``conditions`` lists each one's ``(end, derivative)``
+    conditions on the function alone: ``conditions`` lists each one's ``(point, derivative)``
     terms, and ``source`` computes their coefficients and constants from ``(p, k)``).
     """
 
@@ -96,8 +57,10 @@ class GuessRecipe:
     source: str = ""
     conditions: list = field(default_factory=list)
 
-    def __call__(self, x: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:
-        """The function and its derivatives up to ``order - 1`` on ``x``: ``(order, len(x))``."""
+    def __call__(self, x: np.ndarray, points: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """The function and its derivatives up to ``order - 1`` at ``x``: ``(order, len(x))``.
+
+        ``points`` are the ends and interfaces in the user's variable."""
         if self.kind == "expression":
             with np.errstate(all="ignore"):
                 return np.broadcast_to(_function(self.source)(x, p, k), (self.order, x.size)).astype(float)
@@ -105,18 +68,17 @@ class GuessRecipe:
             return np.zeros((self.order, x.size))
         with np.errstate(all="ignore"):
             values = iter(_function(self.source)(np.zeros(1), p, k)[:, 0])
-        a, b = float(x[0]), float(x[-1])
         rows, rhs = [], []
         for terms in self.conditions:
             row: dict = {}
-            for end, j in terms:
-                where = (a if end == 0 else b, j)
+            for point, j in terms:
+                where = (float(points[point]), j)
                 row[where] = row.get(where, 0.0) + float(next(values))
             constant = float(next(values))
             if all(math.isfinite(v) for v in row.values()) and math.isfinite(constant):
                 rows.append(row)
                 rhs.append(-constant)
-        return _fit(rows, rhs, self.order, x)
+        return _fit(rows, rhs, self.order, x, float(points[0]), float(points[-1]))
 
     def plain(self) -> dict[str, Any]:
         return {"name": self.name, "order": self.order, "kind": self.kind, "source": self.source,
@@ -125,7 +87,7 @@ class GuessRecipe:
     @classmethod
     def from_plain(cls, data: Mapping[str, Any]) -> GuessRecipe:
         return cls(str(data["name"]), int(data["order"]), str(data["kind"]), str(data["source"]),
-                   [[(int(end), int(j)) for end, j in terms] for terms in data["conditions"]])
+                   [[(int(point), int(j)) for point, j in terms] for terms in data["conditions"]])
 
 
 _FUNCTIONS: dict[str, Any] = {}
@@ -140,62 +102,72 @@ def _function(source: str) -> Any:
     return function
 
 
-def guess_recipes(problem, compiled: CompiledSystem) -> dict[str, GuessRecipe]:  # noqa: ANN001
-    """The recipe of every unknown's default guess (its own guess expression, else the
-    polynomial), built with SymPy once per problem and kept in ``problem._recipes``."""
-    recipes = problem.__dict__.get("_recipes")
-    if recipes is None:
-        system = compiled.system if compiled.system is not None else problem.system
-        recipes = {}
-        for name in problem.unknowns:
-            if name in problem.guess:
-                recipes[name] = _expression_recipe(problem, system, name, problem.guess[name])
-            else:
-                recipes[name] = _polynomial_recipe(system, name)
-        problem.__dict__["_recipes"] = recipes
+# -- recipes (made with SymPy, once per problem) --------------------------------------------
+def guess_recipes(problem, form) -> dict[str, GuessRecipe]:  # noqa: ANN001 - Problem, StandardForm
+    """The recipe of every unknown's default guess: its own guess expression, else the polynomial."""
+    recipes = {}
+    for name, order in form.functions:
+        if name in problem.guess:
+            recipes[name] = expression_recipe(problem, form, name, problem.guess[name])
+        else:
+            recipes[name] = _polynomial_recipe(form, name, order)
     return recipes
 
 
-def _expression_recipe(problem, system, name: str, e: sp.Expr) -> GuessRecipe:  # noqa: ANN001
+def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa: ANN001
+    """A guess expression of the user's variable (and constants, parameters) as a recipe."""
+    import sympy as sp
+
     from .codegen import compile_expressions
     from .reduce import X
 
     names = {problem.x: X}
-    names.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
-    names.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
-    e = e.xreplace(names)
-    order = system.order(name)
+    names.update({sp.Symbol(c): form.k[i] for i, c in enumerate(form.constants) if c in problem.constants})
+    names.update({sp.Symbol(q): form.p[i] for i, q in enumerate(form.parameters)})
+    e = sp.sympify(e).xreplace(names)
+    order = dict(form.functions)[name]
     derivatives = [e]
     for _ in range(order - 1):
         derivatives.append(sp.diff(derivatives[-1], X))
-    f = compile_expressions(derivatives, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
+    f = compile_expressions(derivatives, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
     return GuessRecipe(name, order, "expression", f.source)
 
 
-def _polynomial_recipe(system, name: str) -> GuessRecipe:  # noqa: ANN001
+def _polynomial_recipe(form, name: str, order: int) -> GuessRecipe:  # noqa: ANN001
     """Lowest-degree polynomial meeting the linear conditions that involve ``name`` alone."""
+    import sympy as sp
+
     from .codegen import compile_expressions
     from .reduce import X
 
-    order = system.order(name)
-    conditions, exprs = [], []
-    for gradient, constant in _linear_conditions(system, name):
-        conditions.append([(end, j) for end, j, _ in gradient])
-        exprs += [g for _, _, g in gradient] + [constant]
-    if not conditions:
+    if not form.point_conditions:
         return GuessRecipe(name, order, "polynomial")
-    f = compile_expressions(exprs, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
-    return GuessRecipe(name, order, "polynomial", f.source, conditions)
+    conditions, symbols = form.point_conditions
+    what = {sp.Symbol(s, real=True): (state, point) for s, state, point, _ in symbols}
+    mine = {s for s, (state, _) in what.items() if form.states[state][0] == name}
+    terms_found, exprs = [], []
+    for c in conditions:
+        used = c.free_symbols & set(what)
+        if not used or not used <= mine:
+            continue
+        gradient = [(s, sp.diff(c, s)) for s in used]
+        if any(g.free_symbols & set(what) for _, g in gradient):
+            continue  # nonlinear in the point values
+        terms_found.append([(what[s][1], form.states[what[s][0]][1]) for s, _ in gradient])
+        exprs += [sp.Float(1) * g for _, g in gradient] + [sp.S.Zero + c.xreplace({s: 0 for s in used})]
+    if not terms_found:
+        return GuessRecipe(name, order, "polynomial")
+    f = compile_expressions(exprs, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
+    return GuessRecipe(name, order, "polynomial", f.source, terms_found)
 
 
-def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray) -> np.ndarray:
+def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray, a: float, b: float) -> np.ndarray:
     """The lowest-degree polynomial meeting ``rows`` (``{(point, derivative): coefficient}``
-    = ``rhs``), and its derivatives up to ``order - 1`` on ``x``."""
+    = ``rhs``), and its derivatives up to ``order - 1`` at ``x``."""
     if not rows:
         return np.zeros((order, x.size))
-    a, b = float(x[0]), float(x[-1])
     degree = max(len(rows) - 1, 0)
-    scale = b - a
+    scale = (b - a) or 1.0
 
     def basis(point: float, j: int) -> np.ndarray:
         s = (point - a) / scale
@@ -206,74 +178,59 @@ def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray) -> np.nd
 
     matrix = np.array([sum(g * basis(end, j) for (end, j), g in row.items()) for row in rows])
     coefficients = np.linalg.lstsq(matrix, np.array(rhs), rcond=None)[0]
+    s = (x - a) / scale
     return np.array([
-        sum(coefficients[i] * basis_values for i, basis_values in enumerate(_powers(x, a, scale, degree, j)))
+        sum(coefficients[i] * (math.perm(i, j) * s ** (i - j) / scale**j if i >= j else 0.0 * s)
+            for i in range(degree + 1))
         for j in range(order)
     ])
 
 
-_LINEAR: dict[tuple[str, str], list] = {}
+# -- guesses on a mesh (no SymPy) --------------------------------------------------------------
+def from_recipes(recipes: Mapping[str, GuessRecipe], compiled, t: np.ndarray, p: np.ndarray,  # noqa: ANN001
+                 k: np.ndarray) -> np.ndarray:
+    """The states ``Y`` on the standard mesh ``t`` from the user functions' recipes, the added
+    states from their integrands."""
+    layout = compiled.layout
+    maps = np.asarray(compiled.maps(p, k), float)
+    points = positions(maps)
+    x = physical(t, maps)
+    size = layout.region_size
+    y = np.zeros((layout.n, t.size))
+    for name, _ in layout.functions:
+        recipe = recipes[name]
+        values = recipe(x.ravel(), points, p, k).reshape(recipe.order, layout.regions, t.size)
+        for j in range(recipe.order):
+            i = layout.index(name, j)
+            for r in range(layout.regions):
+                # the recipe gives d^j f / dx^j; states hold them in the user's variable
+                y[r * size + i] = values[j, r]
+    fill_integrals(compiled, t, y, p, k)
+    if not np.isfinite(y).all():
+        bad = np.argwhere(~np.isfinite(y))[0]
+        r, i = divmod(int(bad[0]), size)
+        raise ProblemError(
+            f"the guess for {layout.state_names[i]} is NaN or inf at {layout.independent} = "
+            f"{x[r, bad[1]]:.6g}; give a guess defined on the whole domain"
+        )
+    return y
 
 
-def _linear_conditions(system, name: str) -> list:  # noqa: ANN001
-    """Conditions linear in the point values of ``name`` alone (symbolic work, cached per system)."""
-    key = (system.key(), name)
-    if key in _LINEAR:
-        return _LINEAR[key]
-    order = system.order(name)
-    mine = {s for j in range(order) for s in (system.ya[system.index(name, j)], system.yb[system.index(name, j)])}
-    every = set(system.ya) | set(system.yb)
-    found = []
-    for c in system.conditions:
-        used = c.free_symbols & every
-        if not used or not used <= mine:
-            continue
-        gradient = [(s, sp.diff(c, s)) for s in used]
-        if any(g.free_symbols & every for _, g in gradient):
-            continue  # nonlinear in the point values
-        terms = [(0 if s in system.ya else 1, system.states[int(s.name[3:])][1], sp.Float(1) * g) for s, g in gradient]
-        found.append((terms, sp.S.Zero + c.xreplace({s: 0 for s in used})))
-    _LINEAR[key] = found
-    return found
-
-
-def _powers(x: np.ndarray, a: float, scale: float, degree: int, j: int) -> list[np.ndarray]:
-    s = (x - a) / scale
-    return [
-        (math.perm(i, j) * s ** (i - j) / scale**j) if i >= j else np.zeros_like(x)
-        for i in range(degree + 1)
-    ]
-
-
-def from_solution(solution, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
-    """States of a previous :class:`~bvpkit.Solution` on the mesh ``x``.
-
-    Beyond the solution's own interval (a longer truncation of an infinite domain) the
-    states are continued along their slope at the end.
-    """
-    y = solution._states(np.clip(x, solution.x[0], solution.x[-1]))
-    slopes = solution._slopes_at_ends()
-    right = x > solution.x[-1]
-    left = x < solution.x[0]
-    if right.any():
-        y[:, right] += slopes[1][:, None] * (x[right] - solution.x[-1])
-    if left.any():
-        y[:, left] += slopes[0][:, None] * (x[left] - solution.x[0])
-    return y, np.array(solution._p, dtype=float)
-
-
-def fill_integrals(compiled: CompiledSystem, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> None:
-    """Set the added integral states to the running integrals of their integrands (in place).
-
-    ``x`` is the physical variable.
-    """
-    system = compiled.layout
-    if system.n == system.users:
+def fill_integrals(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> None:  # noqa: ANN001
+    """Set the added states to the running integrals of their integrands (in place), carried
+    on from region to region."""
+    layout = compiled.layout
+    size = layout.region_size
+    if size == layout.users:
         return
     with np.errstate(all="ignore"):
-        integrands = compiled.physical(x, y, p, k)[system.users:]
-    steps = 0.5 * (integrands[:, 1:] + integrands[:, :-1]) * np.diff(x)
-    y[system.users:] = np.concatenate([np.zeros((steps.shape[0], 1)), np.cumsum(steps, axis=1)], axis=1)
+        slopes = compiled.rhs(t, y, p, k)
+    carried = np.zeros(size - layout.users)
+    for r in range(layout.regions):
+        rows = slice(r * size + layout.users, (r + 1) * size)
+        steps = 0.5 * (slopes[rows, 1:] + slopes[rows, :-1]) * np.diff(t)
+        y[rows] = carried[:, None] + np.concatenate([np.zeros((steps.shape[0], 1)), np.cumsum(steps, axis=1)], axis=1)
+        carried = y[rows, -1].copy()
 
 
 def interior_zeros(values: np.ndarray) -> int:
@@ -283,113 +240,137 @@ def interior_zeros(values: np.ndarray) -> int:
     return int(np.count_nonzero(signs[1:] != signs[:-1]))
 
 
-def eigen_guess(compiled: CompiledSystem, x: np.ndarray, k: np.ndarray, mode: int) -> tuple[np.ndarray, float]:
-    """States ``(users, len(x))`` and eigenvalue of mode ``mode`` of a linear problem.
+def first_function(layout, y: np.ndarray) -> np.ndarray:  # noqa: ANN001
+    """The values of the first unknown function along the whole domain, regions in order."""
+    i = layout.index(layout.functions[0][0], 0)
+    return np.concatenate([y[r] for r in layout.rows(i)])
 
-    Solves the trapezoidal-rule discretisation of the problem on a uniform mesh as a
+
+def eigen_guess(compiled, t: np.ndarray, k: np.ndarray, mode: int) -> tuple[np.ndarray, float]:  # noqa: ANN001
+    """States ``Y`` (user rows filled) and eigenvalue of mode ``mode`` of a linear problem.
+
+    Solves the trapezoidal-rule discretisation of the standard form on a uniform mesh as a
     generalized matrix eigenproblem ``K v = lam L v`` (the equations are affine in the
     eigenvalue, so ``K`` and ``L`` come from the exact Jacobian at ``lam = 0`` and ``1``),
     and picks the eigenvector whose first unknown has ``mode - 1`` interior zeros, the
-    smallest such eigenvalue in magnitude. A singular term ``S y / (x - a)`` enters through
-    its limit at ``x = a``.
+    smallest such eigenvalue in magnitude. A singular term enters through its limit at
+    ``t = 0`` (the compiled Jacobian carries it).
     """
     import scipy.linalg
 
-    system = compiled.layout
-    n, users = system.n, system.users
-    which = system.eigenvalue
-    a, b = float(x[0]), float(x[-1])
+    layout = compiled.layout
+    which = layout.eigenvalue
+    users = layout.user_rows
+    u = len(users)
     nodes = max(121, 30 * mode + 1)
-    t = np.linspace(a, b, nodes)
-    y0 = np.zeros((n, nodes))
-    p0 = np.zeros(len(system.parameters))
+    s = np.linspace(0.0, 1.0, nodes)
+    y0 = np.zeros((layout.n, nodes))
+    p0 = np.zeros(len(layout.parameters))
     p1 = p0.copy()
     p1[which] = 1.0
     with np.errstate(all="ignore"):
-        A = compiled.jac(t, y0, p0, k)[:users, :users]
-        B = compiled.jac(t, y0, p1, k)[:users, :users] - A
+        A = compiled.jac(s, y0, p0, k)[np.ix_(users, users)]
+        B = compiled.jac(s, y0, p1, k)[np.ix_(users, users)] - A
         ba, bb, _ = compiled.bc_jac(y0[:, 0], y0[:, -1], p0, k)
         ba1, bb1, _ = compiled.bc_jac(y0[:, 0], y0[:, -1], p1, k)
-    S = compiled.singular(p0, k)
-    if S is not None:
-        S = S[:users, :users]
-        with np.errstate(all="ignore"):
-            A[:, :, 1:] += S[:, :, None] / (t[1:] - a)
-        inverse = np.linalg.inv(np.eye(users) - S)
-        A[:, :, 0] = inverse @ A[:, :, 0]
-        B[:, :, 0] = inverse @ B[:, :, 0]
-    m_user = users  # the homogeneous conditions come first, one per order
-    ba_lam, bb_lam = ba1[:m_user, :users] - ba[:m_user, :users], bb1[:m_user, :users] - bb[:m_user, :users]
-    ba, bb = ba[:m_user, :users], bb[:m_user, :users]
-    size = users * nodes
+    rows = [i for i, kind in enumerate(layout.condition_kinds) if kind != "added"]
+    ba_lam, bb_lam = (ba1 - ba)[np.ix_(rows, users)], (bb1 - bb)[np.ix_(rows, users)]
+    ba, bb = ba[np.ix_(rows, users)], bb[np.ix_(rows, users)]
+    size = u * nodes
     K = np.zeros((size, size))
     L = np.zeros((size, size))
-    h = np.diff(t)
-    eye = np.eye(users)
+    h = np.diff(s)
+    eye = np.eye(u)
     for i in range(nodes - 1):
-        r = slice(i * users, (i + 1) * users)
-        c0, c1 = slice(i * users, (i + 1) * users), slice((i + 1) * users, (i + 2) * users)
+        r = slice(i * u, (i + 1) * u)
+        c0, c1 = slice(i * u, (i + 1) * u), slice((i + 1) * u, (i + 2) * u)
         K[r, c0] = -eye / h[i] - 0.5 * A[:, :, i]
         K[r, c1] = eye / h[i] - 0.5 * A[:, :, i + 1]
         L[r, c0] = 0.5 * B[:, :, i]
         L[r, c1] = 0.5 * B[:, :, i + 1]
-    rows = slice((nodes - 1) * users, size)
-    K[rows, :users] = ba
-    K[rows, size - users:] = bb
-    L[rows, :users] = -ba_lam  # conditions affine in the eigenvalue (a column's shear condition)
-    L[rows, size - users:] = -bb_lam
+    last = slice((nodes - 1) * u, size)
+    K[last, :u] = ba
+    K[last, size - u:] = bb
+    L[last, :u] = -ba_lam  # conditions affine in the eigenvalue (a column's shear condition)
+    L[last, size - u:] = -bb_lam
     values, vectors = scipy.linalg.eig(K, L)
     finite = np.isfinite(values) & (np.abs(values.imag) <= 1e-6 * (1 + np.abs(values.real)))
+    first_rows = [users.index(row) for row in layout.rows(layout.index(layout.functions[0][0], 0))]
     candidates = []
-    first = system.index(system.states[0][0], 0)
     for lam, v in zip(values[finite].real, vectors[:, finite].T):
-        v = v.real.reshape(nodes, users).T
-        if not np.any(v[first]):
+        v = v.real.reshape(nodes, u).T
+        along = np.concatenate([v[i] for i in first_rows])
+        if not np.any(along):
             continue
-        candidates.append((interior_zeros(v[first]), abs(lam), lam, v))
+        candidates.append((interior_zeros(along), abs(lam), lam, v))
     if not candidates:
         raise ProblemError("the discretised eigenproblem has no real eigenvalue; check the equations and conditions")
     wanted = [c for c in candidates if c[0] == mode - 1]
     pool = sorted(wanted or candidates, key=lambda c: c[1])
     _, _, lam, v = pool[0] if wanted else pool[min(mode - 1, len(pool) - 1)]
-    values_rows = [i for i, (_, order) in enumerate(system.states[:users]) if order == 0]
-    norm = np.trapezoid(np.sum(v[values_rows] ** 2, axis=0), t)
-    v = v / np.sqrt(norm)
-    peak = np.argmax(np.abs(v[first][: max(2, nodes // (2 * mode))]))
-    if v[first][peak] < 0:
+    value_rows = [j for j, row in enumerate(users) if layout.states[row % layout.region_size][1] == 0]
+    norm = np.trapezoid(np.sum(v[value_rows] ** 2, axis=0), s)
+    v = v / np.sqrt(norm) if norm > 0 else v
+    along = np.concatenate([v[i] for i in first_rows])
+    peak = np.argmax(np.abs(along[: max(2, along.size // (2 * mode))]))
+    if along[peak] < 0:
         v = -v
-    return np.array([np.interp(x, t, row) for row in v]), float(lam)
+    y = np.zeros((layout.n, t.size))
+    for j, row in enumerate(users):
+        y[row] = np.interp(t, s, v[j])
+    return y, float(lam)
 
 
 class Start:
-    """A guess given as arrays on a mesh (what continuation predicts), used like a Solution.
+    """A guess given as standard-form arrays (what continuation predicts), used like a Solution.
 
     Parameters
     ----------
     compiled : CompiledSystem
-    x : ndarray, shape (m,)
-        Mesh in the physical variable.
+    t : ndarray, shape (m,)
+        The standard mesh.
     y : ndarray, shape (n, m)
     p : ndarray, shape (n_p,)
     k : ndarray
-        Constants the slopes are evaluated with.
+        The constants it belongs to (its region maps).
     """
 
-    def __init__(self, compiled: CompiledSystem, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):
-        from .diagnostics import hermite
-
-        self.x, self.y, self._p = np.asarray(x, float), np.asarray(y, float), np.asarray(p, float)
-        self._compiled, self._k = compiled, np.asarray(k, float)
-        self._spline = hermite(compiled, self.x, self.y, self._p, self._k, physical=True)
+    def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001
+        self.compiled = compiled
+        self.t, self.y, self.p, self.k = (np.asarray(a, float) for a in (t, y, p, k))
 
     @property
-    def state_names(self) -> tuple[str, ...]:
-        return self._compiled.layout.state_names
+    def layout(self):  # noqa: ANN201
+        return self.compiled.layout
 
-    def _states(self, points: np.ndarray) -> np.ndarray:
-        return self._spline(np.asarray(points, float))
 
-    def _slopes_at_ends(self) -> tuple[np.ndarray, np.ndarray]:
-        with np.errstate(all="ignore"):
-            f = self._compiled.slopes(self.x[[0, -1]], self.y[:, [0, -1]], self._p, self._k, physical=True)
-        return f[:, 0], f[:, 1]
+def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:  # noqa: ANN001
+    """The states of a previous solution (or :class:`Start`) on the standard mesh ``t`` of a
+    problem with the same layout but other constants (other region maps).
+
+    Each region's states are read at the same points of the user's variable; beyond the
+    previous solution's own interval (a longer truncation of an infinite domain) they are
+    continued along their slope at the end.
+    """
+    from .diagnostics import hermite
+
+    layout = compiled.layout
+    old_maps = np.asarray(compiled.maps(start.p, start.k), float)
+    new_maps = np.asarray(compiled.maps(p, k), float)
+    if np.allclose(old_maps, new_maps, rtol=0, atol=0) and t.size == start.t.size and np.array_equal(t, start.t):
+        return start.y.copy()
+    spline = hermite(start.compiled, start.t, start.y, start.p, start.k)
+    size = layout.region_size
+    y = np.empty((layout.n, t.size))
+    with np.errstate(all="ignore"):
+        slopes = start.compiled.rhs(start.t[[0, -1]], start.y[:, [0, -1]], start.p, start.k)
+    for r in range(layout.regions):
+        rows = slice(r * size, (r + 1) * size)
+        x = new_maps[r, 0] + new_maps[r, 1] * t
+        s = (x - old_maps[r, 0]) / old_maps[r, 1]
+        values = spline(np.clip(s, 0.0, 1.0))[rows]
+        right, left = s > 1.0, s < 0.0
+        values[:, right] += slopes[rows, 1:2] * (s[right] - 1.0)
+        values[:, left] += slopes[rows, 0:1] * s[left]
+        y[rows] = values
+    return y

@@ -1,20 +1,26 @@
-"""``Problem``: a boundary-value problem as written on paper, validated once.
+"""``Problem``: a boundary-value problem as written on paper, validated once, then frozen.
 
-A ``Problem`` holds SymPy expressions only; it does no number crunching. Unknown
-functions are ``Function(name)(x)``, derivatives are ``Derivative``, point values at the
-ends are ``f(0)`` or ``Subs(Derivative(f(x), x), x, oo)``.
+A ``Problem`` holds SymPy expressions only; it does no number crunching and keeps no
+caches. Unknown functions are ``Function(name)(x)``, derivatives are ``Derivative``, point
+values are ``f(0)`` or ``Subs(Derivative(f(x), x), x, oo)``, one-sided values at an
+interface ``SideValue(f(L), -1)`` (``f(L-)``).
+
+What a solver needs is made from it by :func:`bvpkit.prepare` (the reduction to the one
+standard form, then compiled code); see ``reduce.py`` and ``prepared.py``.
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
 from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 from ._lazy import LazyModule, applied_undef
-from .errors import BvpkitError, ExpressionError, ProblemError, closest
+from .errors import ExpressionError, ProblemError, closest
 
-sp = LazyModule("sympy")  # imported when a problem is first built from text, not for a cached one
+sp = LazyModule("sympy")  # imported when a problem is first built from text
 _expr = LazyModule("bvpkit.expr")
 
 Text = Any  # a string, or a SymPy expression
@@ -24,8 +30,55 @@ def _describe(item: Text) -> str:
     return item if isinstance(item, str) else sp.sstr(item)
 
 
+@dataclass(frozen=True)
+class PointValue:
+    """One point value in a condition or expression.
+
+    Attributes
+    ----------
+    node : sympy.Basic
+        The node as it stands in the expression (``f(0)``, a ``Subs``, or a ``SideValue``).
+    name : str
+        The unknown function.
+    order : int
+        The derivative taken.
+    point : sympy.Expr
+        Where: a number, an expression of constants and parameters, or ``oo``.
+    side : int
+        -1 from the left (``f(L-)``), +1 from the right (``f(L+)``), 0 as written ``f(L)``.
+    """
+
+    node: Any
+    name: str
+    order: int
+    point: Any
+    side: int = 0
+
+
+@dataclass(frozen=True)
+class Region:
+    """A stretch of the domain between two neighbouring points (ends or interfaces).
+
+    Attributes
+    ----------
+    equations : tuple of sympy.Expr
+        The equations that hold here (each ``expr = 0``).
+    equation_text : tuple of str
+    constants : dict of str to float
+        Constants with a value of their own in this region (they replace the problem's
+        value in this region's equations).
+    label : str
+        How messages name the region ("region 2", or the problem itself for one region).
+    """
+
+    equations: tuple
+    equation_text: tuple
+    constants: dict
+    label: str
+
+
 class Problem:
-    """A two-point boundary-value problem for ordinary differential equations.
+    """A boundary-value problem for ordinary differential equations.
 
     Parameters
     ----------
@@ -33,10 +86,13 @@ class Problem:
         The differential equations as on paper, e.g. ``"f''' + f*f''/2 = 0"``. A SymPy
         ``Expr`` means ``expr = 0``.
     conditions : sequence of str or SymPy Eq/Expr
-        Boundary conditions at the ends of the domain, e.g. ``"f'(inf) = 1"``.
+        Boundary conditions, e.g. ``"f'(inf) = 1"``. A point value inside the domain makes
+        that point an interface (``"w(L) = 0"`` on a domain ``(0, 2*L)``); at an interface
+        ``f(L-)`` and ``f(L+)`` are the values from the left and from the right. Every state
+        is continuous across an interface unless a condition there uses its one-sided values.
     domain : (a, b)
         Ends of the interval: numbers, ``"inf"``/``"-inf"``/``sympy.oo``, or an expression
-        of constants (``"L"``, ``"pi/2"``).
+        of constants and unknown parameters (``"L"``, ``"pi/2"``, ``"s"``).
     independent : str
         Name of the independent variable (default ``"x"``).
     unknowns : sequence of str, optional
@@ -61,6 +117,11 @@ class Problem:
     mode : int, optional
         Which eigenvalue: mode ``k`` has ``k - 1`` interior zeros in the first unknown
         function (the Sturm-Liouville count); default 1 when ``eigenvalue`` is given.
+    regions : sequence of mappings, optional
+        The domain cut into regions, left to right, each ``{"end": point, "equations":
+        [...], "constants": {...}}``: ``end`` is where the region stops (omit it for the
+        last), ``equations`` replace the problem's equations there, ``constants`` give
+        constants a value of their own there. Every region has the same unknown functions.
 
     Raises
     ------
@@ -85,14 +146,15 @@ class Problem:
         title: str = "",
         eigenvalue: str | None = None,
         mode: int | None = None,
+        regions: Sequence[Mapping[str, Any]] | None = None,
     ):
-        # The arguments as given: plain, picklable data from which a worker process (or a
-        # cluster node) rebuilds this problem; see bvpkit.sweep.
+        # The arguments as given: plain data from which a worker process (or a cluster
+        # node, or a cached preparation) rebuilds this problem.
         self.arguments = dict(
             equations=equations, conditions=conditions, domain=domain, independent=independent,
             unknowns=unknowns, constants=dict(constants or {}), unknown_parameters=dict(unknown_parameters or {}),
             guess=dict(guess or {}), outputs=dict(outputs or {}), settings=dict(settings or {}), title=title,
-            eigenvalue=eigenvalue, mode=mode,
+            eigenvalue=eigenvalue, mode=mode, regions=[dict(r) for r in regions] if regions is not None else None,
         )
         self.title = str(title)
         self.independent = _expr.check_name(independent, "independent variable")
@@ -102,26 +164,10 @@ class Problem:
         self.settings = dict(settings or {})
         overlap = set(self.constants) & set(self.unknown_parameters)
         if overlap:
-            raise ProblemError(
-                f"'{sorted(overlap)[0]}' is both a constant and an unknown parameter"
-            )
+            raise ProblemError(f"'{sorted(overlap)[0]}' is both a constant and an unknown parameter")
         if self.independent in self.constants or self.independent in self.unknown_parameters:
             raise ProblemError(f"'{self.independent}' is the independent variable and a constant")
-        self.eigenvalue = None
-        self.mode = None
-        if eigenvalue is not None:
-            _expr.check_name(eigenvalue, "eigenvalue")
-            if eigenvalue in self.constants or eigenvalue in self.unknown_parameters:
-                raise ProblemError(
-                    f"eigenvalue '{eigenvalue}' must not also be a constant or unknown parameter"
-                )
-            self.eigenvalue = eigenvalue
-            self.unknown_parameters[eigenvalue] = 0.0  # its guess comes from a discrete eigenproblem
-            self.mode = 1 if mode is None else mode
-            if isinstance(self.mode, bool) or not isinstance(self.mode, int) or not 1 <= self.mode <= 1000:
-                raise ProblemError(f"mode must be a whole number from 1 to 1000, got {mode!r}")
-        elif mode is not None:
-            raise ProblemError("mode is given but no eigenvalue: name it with eigenvalue=\"...\"")
+        self.eigenvalue, self.mode = self._eigenvalue(eigenvalue, mode)
 
         if isinstance(equations, str | sp.Basic):
             equations = [equations]
@@ -129,28 +175,52 @@ class Problem:
         self.condition_text = [_describe(c) for c in _list(conditions, "conditions")]
         raw_equations = [self._read(e, f"equation {i + 1}") for i, e in enumerate(equations)]
         raw_conditions = [self._read(c, f"condition {i + 1}") for i, c in enumerate(conditions)]
-
-        self.unknowns = self._infer_unknowns(raw_equations, unknowns)
-        self.equations = [
-            self._canonical(e, f"equation {i + 1}", self.equation_text[i])
-            for i, e in enumerate(raw_equations)
+        region_input = self._region_input(regions)
+        raw_regional = [
+            [self._read(e, f"{label}, equation {i + 1}") for i, e in enumerate(items)] if items is not None else None
+            for label, _, items, _ in region_input
         ]
-        self.orders = self._orders()
+
+        everything = raw_equations + [e for eqs in raw_regional if eqs for e in eqs]
+        self.unknowns = self._infer_unknowns(everything, raw_conditions, unknowns)
+        self.equations = [
+            self._canonical(e, f"equation {i + 1}", self.equation_text[i]) for i, e in enumerate(raw_equations)
+        ]
+        self.orders = self._orders(self.equations, "the equations")
         self.domain = self._domain(domain)
         self.conditions = [
-            self._canonical(c, f"condition {i + 1}", self.condition_text[i])
-            for i, c in enumerate(raw_conditions)
+            self._canonical(c, f"condition {i + 1}", self.condition_text[i]) for i, c in enumerate(raw_conditions)
         ]
-        self._check_conditions()
+        self.regions, self.points = self._regions(region_input, raw_regional)
+        self.jumps = self._check_conditions()
         self.guess = self._guesses(guess or {})
         self.outputs = self._outputs(outputs or {})
-        # The reduction validates what only it can see (isolating the highest derivatives),
-        # so a Problem that constructs is a Problem that can be solved.
-        from .reduce import reduce
+        self._frozen = True
+        # The reduction validates what only it can see (isolating the highest derivatives,
+        # singular terms), so a Problem that constructs is a Problem that can be prepared.
+        from .reduce import standard_form
 
-        self.system = reduce(self)
+        standard_form(self)
+
+    def __setattr__(self, name: str, value: Any) -> None:
+        if self.__dict__.get("_frozen"):
+            raise AttributeError(f"a Problem is frozen once built; use with_constants(...) (tried to set '{name}')")
+        object.__setattr__(self, name, value)
 
     # -- reading ------------------------------------------------------------------------
+    def _eigenvalue(self, eigenvalue: str | None, mode: Any) -> tuple[str | None, int | None]:
+        if eigenvalue is None:
+            if mode is not None:
+                raise ProblemError("mode is given but no eigenvalue: name it with eigenvalue=\"...\"")
+            return None, None
+        _expr.check_name(eigenvalue, "eigenvalue")
+        if eigenvalue in self.constants or eigenvalue in self.unknown_parameters:
+            raise ProblemError(f"eigenvalue '{eigenvalue}' must not also be a constant or unknown parameter")
+        mode = 1 if mode is None else mode
+        if isinstance(mode, bool) or not isinstance(mode, int) or not 1 <= mode <= 1000:
+            raise ProblemError(f"mode must be a whole number from 1 to 1000, got {mode!r}")
+        return eigenvalue, mode
+
     def _read(self, item: Text, where: str) -> sp.Expr:
         if isinstance(item, str):
             try:
@@ -161,14 +231,18 @@ class Problem:
             return item.lhs - item.rhs
         if isinstance(item, sp.Expr):
             return item
-        raise ProblemError(
-            f"{where}: expected a string or a SymPy expression, got {type(item).__name__}"
-        )
+        raise ProblemError(f"{where}: expected a string or a SymPy expression, got {type(item).__name__}")
 
-    def _infer_unknowns(self, equations: list[sp.Expr], given: Sequence[str] | None) -> list[str]:
+    @property
+    def _names(self) -> list[str]:
+        return [*self.constants, *self.unknown_parameters, *([self.eigenvalue] if self.eigenvalue else [])]
+
+    def _infer_unknowns(self, equations: list, conditions: list, given: Sequence[str] | None) -> list[str]:
         found: list[str] = []
         for eq in equations:
             for f in sorted(eq.atoms(applied_undef()), key=sp.default_sort_key):
+                if f.args != (self.x,):
+                    self._check_applied(f, eq)  # a point value (refused later) or a mistyped function
                 if f.func.__name__ not in found:
                     found.append(f.func.__name__)
         if given is None:
@@ -180,229 +254,358 @@ class Problem:
             extra = [n for n in found if n not in names]
             if extra:
                 raise ProblemError(
-                    f"'{extra[0]}' is used as a function in the equations but is not among "
-                    f"the unknowns {names}"
+                    f"'{extra[0]}' is used as a function in the equations but is not among the unknowns {names}"
                 )
         if not names:
-            raise ProblemError(
-                "no unknown function found: write derivatives with primes, e.g. \"y'' + y = 0\""
-            )
+            raise ProblemError("no unknown function found: write derivatives with primes, e.g. \"y'' + y = 0\"")
         for n in names:
             _expr.check_name(n, "unknown function")
-            if n == self.independent or n in self.constants or n in self.unknown_parameters:
+            if n == self.independent or n in self._names:
                 raise ProblemError(f"'{n}' is an unknown function and also another kind of name")
         return names
+
+    def _is_point(self, f: sp.Basic) -> bool:
+        return not (f.args[0].free_symbols - {sp.Symbol(n) for n in self._names})
+
+    def _check_applied(self, f: sp.Basic, where: sp.Expr) -> None:
+        """``exq(y)``: a name applied like a function to something that is not a point."""
+        if self._is_point(f):
+            return
+        name = f.func.__name__
+        raise ProblemError(
+            f"'{name}({sp.sstr(f.args[0])})': '{name}' is not a known function{closest(name, _expr.FUNCTIONS)}; "
+            f"an unknown function is written bare or with primes (y, y'), and evaluated at a point as y(0)"
+        )
 
     def _canonical(self, e: sp.Expr, where: str, text: str) -> sp.Expr:
         """Map free names onto the problem's own symbols and functions; check every name."""
         replace: dict[sp.Basic, sp.Basic] = {}
-        known = [self.independent, *self.constants, *self.unknown_parameters, *self.unknowns]
+        known = [self.independent, *self._names, *self.unknowns]
         for s in e.free_symbols:
             if s.name == self.independent:
                 replace[s] = self.x
             elif s.name in self.unknowns:
                 replace[s] = sp.Function(s.name)(self.x)
-            elif s.name in self.constants or s.name in self.unknown_parameters:
+            elif s.name in self._names:
                 replace[s] = sp.Symbol(s.name)
             else:
                 raise ProblemError(f"{where} ({text}): unknown name '{s.name}'{closest(s.name, known)}")
         for f in e.atoms(applied_undef()):
             name = f.func.__name__
             if name not in self.unknowns:
-                raise ProblemError(
-                    f"{where} ({text}): '{name}' is not an unknown function"
-                    f"{closest(name, self.unknowns)}"
-                )
+                if f.args != (self.x,) and not self._is_point(f):
+                    self._check_applied(f, e)
+                raise ProblemError(f"{where} ({text}): '{name}' is not an unknown function{closest(name, self.unknowns)}")
         e = e.xreplace(replace) if replace else e
-        # A point value's derivative is bound by its Subs (SymPy may share that node
-        # between problems with other variable names); point_values() checks those.
+        # brackets with primes, ((1 + b*T)*T')', are differentiated now that T is T(x)
+        e = e.replace(lambda d: isinstance(d, sp.Derivative) and not isinstance(d.expr, applied_undef()),
+                      lambda d: d.doit())
         bound = {d for s in e.atoms(sp.Subs) for d in s.expr.atoms(sp.Derivative)}
         for d in e.atoms(sp.Derivative) - bound:
             if len(d.variables) and any(v != self.x for v in d.variables):
-                raise ProblemError(
-                    f"{where} ({text}): derivatives must be taken with respect to "
-                    f"'{self.independent}'"
-                )
+                raise ProblemError(f"{where} ({text}): derivatives must be taken with respect to '{self.independent}'")
             if not isinstance(d.expr, applied_undef()):
                 raise ProblemError(f"{where} ({text}): write derivatives of unknown functions only")
         return e
 
-    def _orders(self) -> dict[str, int]:
+    def _orders(self, equations: list, where: str) -> dict[str, int]:
         orders = {n: 0 for n in self.unknowns}
-        if len(self.equations) != len(self.unknowns):
+        if len(equations) != len(self.unknowns):
             raise ProblemError(
-                f"{len(self.equations)} equation(s) for {len(self.unknowns)} unknown "
+                f"{len(equations)} equation(s) in {where} for {len(self.unknowns)} unknown "
                 f"function(s) {self.unknowns}: give one differential equation per unknown"
             )
-        for eq in self.equations:
-            for d in eq.atoms(sp.Derivative):
-                name = d.expr.func.__name__
-                if d.expr.args != (self.x,):
-                    continue  # a point value inside an equation; checked below
-                orders[name] = max(orders[name], d.derivative_count)
-            for f in eq.atoms(applied_undef()):
-                if f.args != (self.x,):
-                    raise ProblemError(
-                        f"equation point values such as {f} are not supported; "
-                        "introduce an unknown parameter instead"
-                    )
+        for eq in equations:
             if eq.has(_expr.DomainIntegral):
                 raise ProblemError(
-                    "integral(...) may appear in conditions only; for an integral inside an "
+                    "integral(...) may appear in conditions and outputs only; for an integral inside an "
                     "equation introduce a new unknown function"
                 )
-            if eq.atoms(sp.Subs):
+            if eq.atoms(sp.Subs) or eq.has(_expr.SideValue) or any(f.args != (self.x,) for f in eq.atoms(applied_undef())):
                 raise ProblemError(
-                    "equation point values such as f'(0) are not supported; "
-                    "introduce an unknown parameter instead"
+                    "point values such as f'(0) inside an equation are not supported; introduce an unknown "
+                    "parameter instead"
                 )
+            for d in eq.atoms(sp.Derivative):
+                orders[d.expr.func.__name__] = max(orders[d.expr.func.__name__], d.derivative_count)
         for name, order in orders.items():
             if order == 0:
                 raise ProblemError(
-                    f"'{name}' appears without derivatives: every unknown function needs a "
+                    f"'{name}' appears without derivatives in {where}: every unknown function needs a "
                     "derivative in the equations (algebraic unknowns are not supported)"
                 )
         return {name: int(order) for name, order in orders.items()}  # plain ints, not SymPy's
 
+    # -- the domain, its interfaces and regions -------------------------------------------
+    def _point(self, end: Any, what: str) -> sp.Expr:
+        """A domain end or interface: a number, 'inf', or an expression of constants and parameters."""
+        if isinstance(end, bool):
+            raise ProblemError(f"{what} {end!r} is not a number")
+        if isinstance(end, int | float):
+            if math.isnan(end):
+                raise ProblemError(f"{what} is NaN")
+            if math.isinf(end):
+                return sp.oo if end > 0 else -sp.oo
+            return sp.Integer(end) if isinstance(end, int) else sp.Float(end)
+        if isinstance(end, str):
+            try:
+                value = _expr.parse(end, self.x)
+            except ExpressionError as err:
+                raise ExpressionError(f"{what}: {err.reason}", err.text, err.column) from None
+        elif isinstance(end, sp.Expr):
+            value = end
+        else:
+            raise ProblemError(f"{what} {end!r}: expected a number, 'inf' or a name")
+        bad = [s.name for s in value.free_symbols if s.name not in self._names]
+        if bad:
+            raise ProblemError(
+                f"{what} '{end}': unknown name '{bad[0]}' (it may use constants and unknown parameters)"
+                f"{closest(bad[0], self._names)}"
+            )
+        if value.has(applied_undef(), sp.Derivative, sp.Subs):
+            raise ProblemError(f"{what} '{end}' may not use unknown functions")
+        return value.xreplace({s: sp.Symbol(s.name) for s in value.free_symbols})
+
     def _domain(self, domain: Sequence[Any]) -> tuple[sp.Expr, sp.Expr]:
         if isinstance(domain, str) or not isinstance(domain, Sequence | tuple) or len(domain) != 2:
             raise ProblemError(f"domain must be a pair (a, b), got {domain!r}")
-        ends = []
-        allowed = set(self.constants) | set(self.unknown_parameters)
-        for end in domain:
-            if isinstance(end, bool):
-                raise ProblemError(f"domain end {end!r} is not a number")
-            if isinstance(end, int | float):
-                if math.isnan(end):
-                    raise ProblemError("domain end is NaN")
-                value = sp.oo if end == math.inf else -sp.oo if end == -math.inf else sp.Float(end)
-                if isinstance(end, int):
-                    value = sp.Integer(end)
-            elif isinstance(end, str):
-                try:
-                    value = _expr.parse(end, self.x)
-                except ExpressionError as err:
-                    raise ExpressionError(f"domain end: {err.reason}", err.text, err.column) from None
-            elif isinstance(end, sp.Expr):
-                value = end
-            else:
-                raise ProblemError(f"domain end {end!r}: expected a number, 'inf' or a name")
-            bad = [s.name for s in value.free_symbols if s.name not in allowed]
-            if bad:
-                raise ProblemError(
-                    f"domain end '{end}': unknown name '{bad[0]}' (a domain end may use "
-                    f"constants and unknown parameters){closest(bad[0], allowed)}"
-                )
-            if value.has(applied_undef(), sp.Derivative, sp.Subs):
-                raise ProblemError(f"domain end '{end}' may not use unknown functions")
-            ends.append(value.xreplace({s: sp.Symbol(s.name) for s in value.free_symbols}))
-        a, b = ends
-        a_value, b_value = (self.end_value(e) for e in ends)
-        if not a_value < b_value:
-            raise ProblemError(
-                f"domain ({_describe(domain[0])}, {_describe(domain[1])}) must have a < b "
-                f"(got {a_value:g} and {b_value:g})"
-            )
+        a, b = (self._point(end, "domain end") for end in domain)
+        self._check_order([a, b], [_describe(domain[0]), _describe(domain[1])])
         return a, b
 
-    def end_value(self, end: sp.Expr) -> float:
-        """The value of a domain end (constants and parameter guesses substituted)."""
-        values = {sp.Symbol(k): v for k, v in {**self.constants, **self.unknown_parameters}.items()}
-        value = end.xreplace(values)
-        if value == sp.oo:
-            return math.inf
-        if value == -sp.oo:
-            return -math.inf
-        try:
-            number = float(value)
-        except (TypeError, ValueError):
-            raise ProblemError(f"domain end {end} is not a real number") from None
-        if math.isnan(number):
-            raise ProblemError(f"domain end {end} is not a real number")
-        return number
+    def value(self, point: sp.Expr, constants: Mapping[str, float] | None = None) -> float:
+        """The value of a point (constants and parameter guesses substituted)."""
+        values = {**self.constants, **(constants or {}), **self.unknown_parameters}
+        return point_value(point, values)
+
+    def _check_order(self, points: list, labels: list[str]) -> None:
+        """Domain ends and interfaces strictly increasing, finite inside (one place for every value)."""
+        check_positions([self.value(p) for p in points], labels, self.independent)
+
+    def _region_input(self, regions: Any) -> list[tuple[str, Any, Any, dict]]:
+        """``(label, end or None, equations or None, constants)`` per region as given."""
+        if regions is None:
+            return []
+        if isinstance(regions, str | Mapping) or not isinstance(regions, Iterable):
+            raise ProblemError("regions must be a list of mappings, each {\"end\": ..., \"equations\": [...]}")
+        found = []
+        items = list(regions)
+        if len(items) < 2:
+            raise ProblemError("regions: give at least two regions (one region is the problem itself)")
+        for i, region in enumerate(items):
+            label = f"region {i + 1}"
+            if not isinstance(region, Mapping):
+                raise ProblemError(f"{label}: expected a mapping with keys end, equations, constants")
+            unknown = set(region) - {"end", "equations", "constants"}
+            if unknown:
+                key = sorted(unknown)[0]
+                raise ProblemError(f"{label}: unknown key '{key}'{closest(key, ['end', 'equations', 'constants'])}"
+                                   " (known keys: end, equations, constants)")
+            end = region.get("end")
+            if end is None and i < len(items) - 1:
+                raise ProblemError(f"{label}: give its end (where it meets {label[:-1]}{i + 2})")
+            if end is not None and i == len(items) - 1:
+                raise ProblemError(f"{label} is the last region: it ends where the domain does; drop its 'end'")
+            equations = region.get("equations")
+            if equations is not None:
+                equations = [equations] if isinstance(equations, str) else _list(equations, f"{label} equations")
+            own = region.get("constants") or {}
+            if not isinstance(own, Mapping):
+                raise ProblemError(f"{label}: constants must be a mapping of name to number")
+            for name in own:
+                if name not in self.constants:
+                    raise ProblemError(
+                        f"{label}: '{name}' is not a constant of the problem{closest(name, self.constants)}; "
+                        "a region gives its own value to constants the problem declares"
+                    )
+            found.append((label, end, equations, _numbers(own, f"{label} constant", names_known=True)))
+        return found
+
+    def _regions(self, given: list, raw: list) -> tuple[list[Region], list]:
+        """The regions between neighbouring points, and the points: ends, then interfaces in order.
+
+        Interfaces are the ends of the regions given, and every point inside the domain at
+        which a condition takes a value. Points are matched by their expression (``L``
+        and ``L`` are one point; ``1`` and ``L`` with ``L = 1`` are two, and refused).
+        """
+        a, b = self.domain
+        cuts: list[tuple[sp.Expr, int | None]] = []  # (point, index of the region given that ends there)
+        for i, (label, end, _, _) in enumerate(given):
+            if end is not None:
+                point = self._point(end, f"{label} end")
+                cuts.append((point, i))
+        for i, c in enumerate(self.conditions):
+            for pv in self.point_values(c, f"condition {i + 1} ({self.condition_text[i]})"):
+                if self._same(pv.point, a) or self._same(pv.point, b):
+                    continue
+                if all(not self._same(pv.point, q) for q, _ in cuts):
+                    cuts.append((pv.point, None))
+        labels = {id(p): _describe(p) for p, _ in cuts}
+        for point, _ in cuts:
+            if point in (sp.oo, -sp.oo):
+                raise ProblemError(f"an interface at {point} is not inside the domain")
+        ordered = sorted(cuts, key=lambda c: self.value(c[0]))
+        self._check_order([a, *(p for p, _ in ordered), b],
+                          [_describe(a), *(labels[id(p)] for p, _ in ordered), _describe(b)])
+        regions = []
+        region_given = 0
+        for piece in range(len(ordered) + 1):
+            label = f"region {piece + 1}" if ordered else "the domain"
+            if given:
+                _, _, equations_raw, own = given[region_given]
+                text = self.arguments["regions"][region_given].get("equations")
+                if equations_raw is not None:
+                    texts = [text] if isinstance(text, str) else [_describe(t) for t in text]
+                    equations = [self._canonical(e, f"{given[region_given][0]}, equation {j + 1}", texts[j])
+                                 for j, e in enumerate(equations_raw)]
+                    orders = self._orders(equations, f"{given[region_given][0]}")
+                    if orders != self.orders:
+                        raise ProblemError(
+                            f"{given[region_given][0]}: its equations give the orders {orders}, the problem's "
+                            f"{self.orders}; every region needs the same unknown functions of the same orders"
+                        )
+                else:
+                    equations, texts = self.equations, self.equation_text
+            else:
+                own, equations, texts = {}, self.equations, self.equation_text
+            regions.append(Region(tuple(equations), tuple(texts), dict(own), label))
+            if piece < len(ordered) and ordered[piece][1] is not None:
+                region_given += 1
+        return regions, [a, *(p for p, _ in ordered), b]
+
+    def _same(self, p: sp.Expr, q: sp.Expr) -> bool:
+        if p == q:
+            return True
+        if p.is_number and q.is_number:
+            try:
+                return abs(float(p) - float(q)) <= 1e-12 * max(1.0, abs(float(q)))
+            except (TypeError, ValueError):
+                return False
+        return sp.simplify(p - q) == 0 if not (p.has(sp.oo) or q.has(sp.oo)) else False
+
+    def which_point(self, point: sp.Expr) -> int | None:
+        """Index of ``point`` among :attr:`points` (ends and interfaces), or None."""
+        for j, q in enumerate(self.points):
+            if self._same(point, q):
+                return j
+        return None
 
     # -- conditions -----------------------------------------------------------------------
-    def point_values(self, e: sp.Expr) -> list[tuple[sp.Basic, str, int, sp.Expr]]:
-        """Every point value in ``e``: (the SymPy node, function name, derivative order, point)."""
+    def point_values(self, e: sp.Expr, where: str = "expression") -> list[PointValue]:
+        """Every point value in ``e``, one-sided ones included."""
+        found: list[PointValue] = []
+        sided = list(e.atoms(_expr.SideValue))
+        inner = set()
+        for s in sided:
+            value, side = s.args
+            for pv in self._plain_points(value, where):
+                found.append(PointValue(s, pv.name, pv.order, pv.point, int(side)))
+                inner.add(pv.node)
+        found += [pv for pv in self._plain_points(e.xreplace({s: sp.Dummy() for s in sided}), where)
+                  if pv.node not in inner]
+        return found
+
+    def _plain_points(self, e: sp.Expr, where: str) -> list[PointValue]:
         found = []
         for s in e.atoms(sp.Subs):
             d = s.expr
             if not isinstance(d, sp.Derivative) or not isinstance(d.expr, applied_undef()):
-                raise ProblemError(f"cannot read the point value {s}")
+                raise ProblemError(f"{where}: cannot read the point value {s}")
             (v,) = s.variables if len(s.variables) == 1 else (None,)
             if v is None or d.expr.args != (v,) or any(w != v for w in d.variables):
-                raise ProblemError(f"cannot read the point value {s}")
-            found.append((s, d.expr.func.__name__, d.derivative_count, s.point[0]))
-        # Functions inside a Subs are bound by it (and SymPy's cache may hand back a Subs
-        # built for another variable name): only free applications are point values.
+                raise ProblemError(f"{where}: cannot read the point value {s}")
+            found.append(PointValue(s, d.expr.func.__name__, d.derivative_count, s.point[0]))
         bound = {f for s in e.atoms(sp.Subs) for f in s.expr.atoms(applied_undef())}
         for f in e.atoms(applied_undef()) - bound:
             if f.args != (self.x,):
-                found.append((f, f.func.__name__, 0, f.args[0]))
+                found.append(PointValue(f, f.func.__name__, 0, f.args[0]))
         return found
 
-    def which_end(self, point: sp.Expr) -> int | None:
-        """0 for the left end, 1 for the right end, None if ``point`` is neither."""
-        try:
-            value = self.end_value(point)
-        except ProblemError:
-            return None
-        for i, end in enumerate(self.domain):
-            end_value = self.end_value(end)
-            if value == end_value or (
-                math.isfinite(value) and abs(value - end_value) <= 1e-12 * max(1.0, abs(value))
-            ):
-                return i
-        return None
-
-    def _check_conditions(self) -> None:
+    def _check_conditions(self) -> dict[int, set]:
+        """Check every condition; return the states that jump at each interface (point index ->
+        {(function, order)}): those a condition takes one-sided values of."""
+        jumps: dict[int, set] = {j: set() for j in range(1, len(self.points) - 1)}
+        plain: list[tuple[str, PointValue, int]] = []
         for i, c in enumerate(self.conditions):
             where = f"condition {i + 1} ({self.condition_text[i]})"
             integrals = c.atoms(_expr.DomainIntegral)
             outside = c.xreplace({g: sp.Symbol("_integral") for g in integrals})
             if self.x in outside.free_symbols:
                 raise ProblemError(
-                    f"{where}: a condition holds at an end of the domain; write point values "
-                    f"such as f(0) or f'(inf), not '{self.independent}' or bare functions"
+                    f"{where}: a condition holds at points; write point values such as f(0) or f'(inf), "
+                    f"not '{self.independent}' or bare functions"
                 )
             for g in integrals:
                 if self.point_values(g.args[0]):
                     raise ProblemError(f"{where}: an integrand may not hold point values such as f(0)")
-                if any(isinstance(d, sp.Derivative) and d.derivative_count >= self.orders[d.expr.func.__name__]
-                       for d in g.args[0].atoms(sp.Derivative)):
+                if any(d.derivative_count >= self.orders[d.expr.func.__name__] for d in g.args[0].atoms(sp.Derivative)):
                     raise ProblemError(f"{where}: an integrand may use derivatives below each function's order")
-            points = self.point_values(outside)
+            points = self.point_values(outside, where)
             if not points and not integrals:
                 raise ProblemError(f"{where}: names no point value such as f(0)")
-            for _, name, k, point in points:
-                if self.which_end(point) is None:
-                    ends = ", ".join(_describe(e) for e in self.domain)
+            for pv in points:
+                j = self.which_point(pv.point)
+                if j is None:  # pragma: no cover - every interior point became an interface
+                    raise ProblemError(f"{where}: the point {pv.point} is not an end or interface of the domain")
+                if pv.order >= self.orders[pv.name]:
                     raise ProblemError(
-                        f"{where}: the point {point} is not an end of the domain ({ends}); "
-                        "interior conditions are not supported"
+                        f"{where}: {pv.name} has order {self.orders[pv.name]} in the equations, so a condition "
+                        f"may use its derivatives up to order {self.orders[pv.name] - 1}, not {pv.order}"
                     )
-                if k >= self.orders[name]:
-                    raise ProblemError(
-                        f"{where}: {name} has order {self.orders[name]} in the equations, so a "
-                        f"condition may use its derivatives up to order {self.orders[name] - 1}, "
-                        f"not {k}"
-                    )
-        self.phase = self._needs_phase()
-        free_parameters = len(self.unknown_parameters) - (self.eigenvalue is not None)
-        needed = sum(self.orders.values()) + free_parameters - self.phase
-        if len(self.conditions) != needed:
-            parts = " + ".join(f"{self.orders[n]} for {n}" for n in self.unknowns)
-            if free_parameters:
-                parts += f" + {free_parameters} for unknown parameters"
-            if self.phase:
-                parts += " - 1 phase condition bvpkit adds to this periodic problem"
-            if self.eigenvalue:
-                parts += f"; the eigenvalue '{self.eigenvalue}' brings its own normalisation"
-            raise ProblemError(
-                f"{len(self.conditions)} boundary condition(s) given, {needed} needed "
-                f"({parts}): the count must equal the total differential order plus the "
-                "number of unknown parameters"
-            )
+                if pv.side and j in (0, len(self.points) - 1):
+                    inner = 1 if j == 0 else -1
+                    if pv.side != inner:
+                        raise ProblemError(
+                            f"{where}: {_describe(pv.point)} is an end of the domain; there is no value from "
+                            f"{'the left' if pv.side < 0 else 'the right'} there (write {pv.name}"
+                            f"{chr(39) * pv.order}({_describe(pv.point)}))"
+                        )
+                elif pv.side:
+                    jumps[j].add((pv.name, pv.order))
+                elif 0 < j < len(self.points) - 1:
+                    plain.append((where, pv, j))
+        for where, pv, j in plain:
+            if (pv.name, pv.order) in jumps[j]:
+                shown = pv.name + "'" * pv.order
+                raise ProblemError(
+                    f"{where}: {shown}({_describe(pv.point)}) is ambiguous: {shown} jumps there (another "
+                    f"condition takes its one-sided values); write {shown}({_describe(pv.point)}-) or "
+                    f"{shown}({_describe(pv.point)}+)"
+                )
+        self._count(jumps)
+        return jumps
+
+    def _count(self, jumps: dict[int, set]) -> None:
+        self_phase = self.phase = self._needs_phase()
+        free = len(self.unknown_parameters)
+        total = sum(self.orders.values())
+        jumping = sum(len(s) for s in jumps.values())
+        needed = total + free + jumping - self_phase
+        if len(self.conditions) == needed:
+            return
+        parts = [" + ".join(f"{self.orders[n]} for {n}" for n in self.unknowns)]
+        if free:
+            parts.append(f"{free} for unknown parameters")
+        for j, states in sorted(jumps.items()):
+            where = f"{self.independent} = {_describe(self.points[j])}"
+            if states:
+                names = ", ".join(n + "'" * k for n, k in sorted(states))
+                parts.append(f"{len(states)} at {where}, where {names} jump{'s' if len(states) == 1 else ''}")
+        text = " + ".join(parts)
+        if self_phase:
+            text += " - 1 phase condition bvpkit adds to this periodic problem"
+        if self.eigenvalue:
+            text += f"; the eigenvalue '{self.eigenvalue}' brings its own normalisation"
+        interfaces = ""
+        if len(self.points) > 2:
+            held = ", ".join(_describe(p) for p in self.points[1:-1])
+            interfaces = (f"; at the interface{'s' if len(self.points) > 3 else ''} {self.independent} = {held} every "
+                          "state is continuous unless a condition takes its one-sided values (f(L-), f(L+)), and "
+                          "each state that jumps needs one more condition")
+        raise ProblemError(
+            f"{len(self.conditions)} boundary condition(s) given, {needed} needed ({text}): the count must "
+            f"equal the total differential order plus the number of unknown parameters{interfaces}"
+        )
 
     def _needs_phase(self) -> bool:
         """A periodic problem with an unknown period on autonomous equations needs a phase condition.
@@ -412,33 +615,32 @@ class Problem:
         independent variable. Then shifting a solution along the orbit gives another one,
         and bvpkit pins it with ``u'(a) = 0`` for the first unknown (see reduce.py).
         """
-        ends_free = any(
-            s.name in self.unknown_parameters for end in self.domain for s in end.free_symbols
-        )
-        if not ends_free or any(self.x in _without_functions(eq).free_symbols for eq in self.equations):
+        ends_free = any(s.name in self.unknown_parameters for end in self.domain for s in end.free_symbols)
+        if not ends_free or len(self.points) > 2 or not self.conditions:
             return False
-        if not self.conditions:
+        if any(self.x in _without_functions(eq).free_symbols for eq in self.equations):
             return False
         for c in self.conditions:
             points = self.point_values(c)
-            if len(points) != 2 or c.has(_expr.DomainIntegral):
+            if len(points) != 2 or c.has(_expr.DomainIntegral) or any(pv.side for pv in points):
                 return False
-            (n1, f1, k1, p1), (n2, f2, k2, p2) = points
-            ends = {self.which_end(p1), self.which_end(p2)}
-            if (f1, k1) != (f2, k2) or ends != {0, 1}:
+            first, second = points
+            ends = {self.which_point(first.point), self.which_point(second.point)}
+            if (first.name, first.order) != (second.name, second.order) or ends != {0, 1}:
                 return False
-            if sp.expand(c - (n1 - n2)) != 0 and sp.expand(c + (n1 - n2)) != 0:
+            # c = +-(value at one end - value at the other), compared without expanding powers
+            difference = first.node - second.node
+            if not (c - difference == 0 or c + difference == 0 or sp.expand(c - difference) == 0
+                    or sp.expand(c + difference) == 0):
                 return False
         return True
 
     def _guesses(self, guess: Mapping[str, Any]) -> dict[str, sp.Expr]:
         result = {}
-        allowed = {self.independent, *self.constants, *self.unknown_parameters}
+        allowed = {self.independent, *self._names}
         for name, value in guess.items():
             if name not in self.unknowns:
-                raise ProblemError(
-                    f"guess for '{name}', which is not an unknown function{closest(name, self.unknowns)}"
-                )
+                raise ProblemError(f"guess for '{name}', which is not an unknown function{closest(name, self.unknowns)}")
             if isinstance(value, bool):
                 raise ProblemError(f"guess for '{name}': expected an expression or number")
             if isinstance(value, int | float):
@@ -454,9 +656,7 @@ class Problem:
                 raise ProblemError(f"guess for '{name}': expected an expression, got {type(value).__name__}")
             for s in e.free_symbols:
                 if s.name not in allowed:
-                    raise ProblemError(
-                        f"guess for '{name}': unknown name '{s.name}'{closest(s.name, allowed)}"
-                    )
+                    raise ProblemError(f"guess for '{name}': unknown name '{s.name}'{closest(s.name, allowed)}")
             if e.has(applied_undef(), sp.Derivative, sp.Subs):
                 raise ProblemError(f"guess for '{name}' may not use unknown functions")
             result[name] = e.xreplace(
@@ -475,150 +675,113 @@ class Problem:
         return result
 
     def parse_quantity(self, text: str, where: str = "expression") -> sp.Expr:
-        """Parse an expression of the solution (point values, states, constants) and check its names."""
+        """Parse an expression of the solution (point values, states, integrals, constants)."""
         try:
             e = _expr.parse(text, self.x)
         except ExpressionError as err:
             raise ExpressionError(f"{where}: {err.reason}", err.text, err.column) from None
         e = self._canonical(e, where, text)
-        for _, name, k, point in self.point_values(e):
-            if k > self.orders[name]:
+        for pv in self.point_values(e, f"{where} ({text})"):
+            if pv.order > self.orders[pv.name]:
                 raise ProblemError(
-                    f"{where} ({text}): {name} has order {self.orders[name]}; derivatives up to "
-                    f"that order can be evaluated, not {k}"
+                    f"{where} ({text}): {pv.name} has order {self.orders[pv.name]}; derivatives up to "
+                    f"that order can be evaluated, not {pv.order}"
                 )
         for d in e.atoms(sp.Derivative):
             if d.expr.args == (self.x,) and d.derivative_count > self.orders[d.expr.func.__name__]:
                 raise ProblemError(
-                    f"{where} ({text}): derivative of order {d.derivative_count} is above the "
-                    f"order of {d.expr.func.__name__} in the equations"
+                    f"{where} ({text}): derivative of order {d.derivative_count} is above the order of "
+                    f"{d.expr.func.__name__} in the equations"
                 )
         return e
 
-    # -- helpers ------------------------------------------------------------------------
+    # -- identity and copies --------------------------------------------------------------
     @property
     def infinite(self) -> tuple[bool, bool]:
         """Whether each end of the domain is infinite."""
-        cached = self.__dict__.get("_infinite")
-        if cached is None:
-            cached = tuple(self.domain[i] in (sp.oo, -sp.oo) for i in range(2))
-            self.__dict__["_infinite"] = cached
-        return cached  # type: ignore[return-value]
+        return tuple(self.domain[i] in (sp.oo, -sp.oo) for i in range(2))  # type: ignore[return-value]
 
-    def ends(self) -> tuple[float, float]:
-        """Both ends of the domain as numbers (constants and parameter guesses substituted)."""
-        cached = self.__dict__.get("_ends")
-        if cached is None:
-            if self.__dict__.get("_symbolic", True):
-                cached = tuple(self.end_value(e) for e in self.domain)
-            else:  # rebuilt from plain data: the compiled domain ends, no SymPy
-                import numpy as np
+    def key(self, *, generated: bool = False) -> str:
+        """A hash of the problem's structure: what it says, not the values of its constants or
+        the guesses of its parameters (those change without new code). With ``generated``,
+        also what else is turned into code: the guess expressions and the outputs."""
+        parts = [self.independent, self.unknowns, self.equation_text, self.condition_text,
+                 [sp.srepr(p) for p in self.points], list(self.constants), list(self.unknown_parameters),
+                 self.eigenvalue, self.mode,
+                 [(r.equation_text, sorted(r.constants)) for r in self.regions]]
+        if generated:
+            parts += [sorted((k, sp.srepr(v)) for k, v in self.guess.items()), sorted(self.outputs.items())]
+        return hashlib.sha256(repr(parts).encode()).hexdigest()[:32]
 
-                compiled = self.compiled()
-                layout = compiled.layout
-                p = np.array([self.unknown_parameters[q] for q in layout.parameters], dtype=float)
-                k = np.array([self.constants[c] for c in layout.constants], dtype=float)
-                finite = compiled.domain_ends(p, k)
-                cached = tuple(float(v) if not inf else (-math.inf, math.inf)[i]
-                               for i, (v, inf) in enumerate(zip(finite, self.infinite)))
-            self.__dict__["_ends"] = cached
-        return cached  # type: ignore[return-value]
-
-    def compiled(self):  # noqa: ANN201 - a bvpkit.compiled.CompiledSystem
-        """The compiled system; a problem rebuilt from the cache takes it from there."""
-        layout = self.__dict__.get("_layout")
-        if layout is not None and not self.__dict__.get("_symbolic", True):
-            from .compiled import load_compiled
-
-            found = load_compiled(layout)
-            if found is not None:
-                return found
-        from .codegen import compile_system
-
-        return compile_system(self.system)
-
-    # -- a problem rebuilt from the cache (see prepared.py) --------------------------------
-    _PLAIN = ("arguments", "title", "independent", "constants", "unknown_parameters", "settings", "eigenvalue",
-              "mode", "equation_text", "condition_text", "unknowns", "orders", "outputs")
-
-    def plain(self) -> dict[str, Any]:
-        """The facts a solve needs, as plain data (JSON-ready when the arguments are text)."""
-        data = {name: getattr(self, name) for name in self._PLAIN}
-        data["orders"] = {name: int(order) for name, order in self.orders.items()}
-        data["infinite"] = list(self.infinite)
-        data["ends"] = list(self.ends())
-        data["layout"] = self.system.state_layout().as_dict()
-        from .guess import guess_recipes
-
-        data["recipes"] = [r.plain() for r in guess_recipes(self, self.compiled()).values()]
-        return data
-
-    @classmethod
-    def from_plain(cls, data: Mapping[str, Any], starts: Mapping[str, Any] | None = None) -> Problem:
-        """A problem from :meth:`plain` data, without SymPy: its symbolic parts (equations,
-        domain, reduced system) are built from ``arguments`` when first asked for."""
-        from .layout import StateLayout
-
-        new = object.__new__(cls)
-        d = new.__dict__
-        d.update({name: data[name] for name in cls._PLAIN})
-        d["orders"] = {str(k): int(v) for k, v in data["orders"].items()}
-        d["_infinite"] = tuple(bool(v) for v in data["infinite"])
-        d["_ends"] = tuple(float(v) for v in data["ends"])
-        d["_layout"] = StateLayout.from_dict(data["layout"])
-        d["_starts"] = dict(starts or {})
-        if "recipes" in data:
-            from .guess import GuessRecipe
-
-            d["_recipes"] = {r["name"]: GuessRecipe.from_plain(r) for r in data["recipes"]}
-        d["_symbolic"] = False
-        return new
-
-    def __getattr__(self, name: str):  # noqa: ANN204
-        # Only called for attributes not set: those of a problem rebuilt by from_plain,
-        # which builds its symbolic parts now (importing SymPy) from its arguments.
-        d = self.__dict__
-        if name.startswith("__") or d.get("_symbolic", True):
-            raise AttributeError(name)
-        full = Problem(**d["arguments"])
-        if full.constants != d["constants"]:
-            full = full.with_constants(**{k: v for k, v in d["constants"].items() if k in full.constants})
-        for key, value in full.__dict__.items():
-            d.setdefault(key, value)
-        d["_symbolic"] = True
-        return getattr(self, name)
+    @property
+    def point_labels(self) -> list[str]:
+        """The ends and interfaces as written (for messages)."""
+        return [_describe(p) for p in self.points]
 
     def with_constants(self, **values: float) -> Problem:
-        """A copy of this problem with some constants changed (no re-validation of text)."""
-        new = object.__new__(Problem)
-        new.__dict__.update(self.__dict__)
+        """A copy of this problem with some constants changed (checked like values in the file:
+        the domain's ends and interfaces must stay in order)."""
         missing = [k for k in values if k not in self.constants]
         if missing:
             raise ProblemError(
                 f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
             )
-        new.constants = {**self.constants, **_numbers(values, "constant", names_known=True)}
-        new.__dict__.pop("_ends", None)  # a domain end may be one of the constants
+        new = object.__new__(Problem)
+        new.__dict__.update(self.__dict__)
+        new.__dict__["constants"] = {**self.constants, **_numbers(values, "constant", names_known=True)}
+        new._check_order(list(self.points), [_describe(p) for p in self.points])
         return new
-
-    def _freed(self, name: str):  # noqa: ANN202 - a FirstOrderSystem
-        """The reduced system with the constant ``name`` turned into an unknown parameter.
-
-        It has one condition fewer than unknowns: continuation adds the arclength equation.
-        """
-        from .reduce import reduce
-
-        copy = object.__new__(Problem)
-        copy.__dict__.update(self.__dict__)
-        copy.constants = {k: v for k, v in self.constants.items() if k != name}
-        copy.unknown_parameters = {**self.unknown_parameters, name: self.constants[name]}
-        return reduce(copy)
 
     def __repr__(self) -> str:
         eqs = "; ".join(self.equation_text)
         bcs = "; ".join(self.condition_text)
         a, b = (_describe(e) for e in self.domain)
         return f"Problem({eqs} | {bcs} | {self.independent} in ({a}, {b}))"
+
+
+def point_value(point: Any, values: Mapping[str, float]) -> float:
+    """The number a point expression stands for, given the values of its names."""
+    value = point.xreplace({sp.Symbol(k): v for k, v in values.items()})
+    if value == sp.oo:
+        return math.inf
+    if value == -sp.oo:
+        return -math.inf
+    try:
+        number = float(value)
+    except (TypeError, ValueError, OverflowError):
+        raise ProblemError(f"the point {point} is not a real number of floating-point size") from None
+    if math.isnan(number):
+        raise ProblemError(f"the point {point} is not a real number")
+    return number
+
+
+#: Smallest length of a region relative to the domain's size: below it the mapping of the
+#: region onto the unit interval multiplies the equations by almost nothing.
+_SMALLEST_REGION = 1e-12
+
+
+def check_positions(values: Sequence[float], labels: Sequence[str], independent: str = "x") -> None:
+    """The one check of domain ends and interfaces, whatever their origin (the problem's text,
+    ``with_constants``, ``--set``, a prepared problem's compiled ends): strictly increasing,
+    finite inside, and no region of zero length."""
+    for value, label in zip(values[1:-1], labels[1:-1]):
+        if not math.isfinite(value):
+            raise ProblemError(f"the interface {independent} = {label} is not a finite number (got {value!r})")
+    for value, label in ((values[0], labels[0]), (values[-1], labels[-1])):
+        if math.isnan(value):
+            raise ProblemError(f"the domain end {label} is not a number")
+    if values[0] == math.inf or values[-1] == -math.inf:
+        raise ProblemError(f"the domain ({labels[0]}, {labels[-1]}) must have a < b (got {values[0]:g} and {values[-1]:g})")
+    finite = [v for v in values if math.isfinite(v)]
+    scale = max([1.0, *(abs(v) for v in finite)])
+    for (u, lu), (v, lv) in zip(zip(values, labels), zip(values[1:], labels[1:])):
+        if not u < v or (math.isfinite(u) and math.isfinite(v) and v - u <= _SMALLEST_REGION * scale):
+            if len(values) == 2:
+                raise ProblemError(f"domain ({lu}, {lv}) must have a < b (got {u:g} and {v:g})")
+            raise ProblemError(
+                f"the points {independent} = {lu} and {independent} = {lv} must be in increasing order with room "
+                f"between them (got {u:g} and {v:g}); ends and interfaces: {', '.join(labels)}"
+            )
 
 
 def _without_functions(e: sp.Expr) -> sp.Expr:
@@ -643,12 +806,16 @@ def _numbers(values: Mapping[str, Any], role: str, names_known: bool = False) ->
         if isinstance(value, bool) or not isinstance(value, int | float):
             try:
                 value = float(value)  # numpy scalars, sympy numbers
-            except (TypeError, ValueError):
+            except (TypeError, ValueError, OverflowError):
                 raise ProblemError(f"{role} '{name}': expected a number, got {value!r}") from None
+        try:
+            value = float(value)
+        except OverflowError:
+            raise ProblemError(f"{role} '{name}': {value} is beyond the floating-point range") from None
         if not math.isfinite(value):
             raise ProblemError(f"{role} '{name}': expected a finite number, got {value!r}")
-        result[name] = float(value)
+        result[name] = value
     return result
 
 
-__all__ = ["Problem", "BvpkitError"]
+__all__ = ["Problem", "PointValue", "Region", "check_positions", "point_value"]

@@ -1,9 +1,35 @@
-"""Higher-order equations -> one first-order system ``y' = F(x, y, p)``.
+"""Every problem, reduced to one standard form.
 
-The state layout is readable: for ``f'''`` and ``g''`` it is ``y0 = f, y1 = f', y2 = f'',
-y3 = g, y4 = g'``. Every user name is replaced by an internal symbol (``_x``, ``_y0``,
-``_p0``, ``_k0``; user names cannot start with ``_``), so nothing the user typed reaches the
-generated code.
+The standard form is the one kind of problem every method solves (Ascher and Russell,
+"Reformulation of boundary value problems into standard form", SIAM Review 23 (1981)
+238-254)::
+
+    dY/dt = F(t, Y, p, k) + S Y / t,   0 <= t <= 1,   G(Y(0), Y(1), p, k) = 0
+
+with ``Y`` the states, ``p`` the unknown parameters (as many conditions more than states),
+``k`` the constants (known values, changed without new code) and ``S`` the matrix of a term
+singular at ``t = 0`` (zero for most problems). Each problem class is one small transform
+on the way there, applied to a first-order system in the user's variable:
+
+* :func:`_first_order` -- highest derivatives isolated; the state layout ``f, f', f'', g``;
+* :func:`_integrals` -- each ``integral(...)`` of a condition becomes an added state
+  ``z' = integrand``, ``z(a) = 0``, read as ``z(b)``;
+* :func:`_eigenvalue` -- the eigenvalue an unknown parameter, the normalisation
+  ``integral(sum of squares) = 1`` an added state with two conditions;
+* :func:`_phase` -- a periodic orbit of autonomous equations pinned by ``u'(a) = 0``;
+* :func:`_singular` -- a term ``S y / (x - a)`` singular at the left end split off;
+* :func:`_map` -- each region ``[X_r, X_r+1]`` mapped onto ``[0, 1]`` by ``x = c_r + h_r t``:
+  a fixed end, an unknown one (free boundary: ``h_r`` holds the parameter), or an infinite
+  one (truncated at the length ``_length``, a constant the driver chooses);
+* :func:`_stack` -- the regions' states stacked into one ``Y``; every state continuous at an
+  interface unless a condition takes its one-sided values; conditions at any point become
+  conditions on ``Y(0)`` and ``Y(1)``.
+
+Nothing outside this module knows which classes a problem belongs to: the methods, the
+selector and continuation see the standard form only, and one map (``x = c_r + h_r t`` and
+the state rows of each region, kept in :class:`StandardForm`) takes a solution back to the
+user's variable and states. User names never reach generated code: states are ``_y0``,
+``_y1``, ..., parameters ``_p0``, constants ``_k0``, the variable ``_x``.
 """
 
 from __future__ import annotations
@@ -16,9 +42,12 @@ from sympy.core.function import AppliedUndef
 
 from .errors import ProblemError
 from .expr import DomainIntegral
-from .layout import States
+from .layout import LENGTH, StateLayout, States
 
-X = sp.Symbol("_x")
+#: The method variable t (named _x in generated code, as every method calls it x).
+X = sp.Symbol("_x", real=True)
+#: The user's (physical) variable while a region's system is being formed.
+_PHYSICAL = sp.Symbol("_xphys", real=True)
 
 # sympy.solve on a highest derivative that appears nonlinearly can be slow for hostile input;
 # real problems isolate in well under a second.
@@ -26,90 +55,86 @@ _MAX_OPS_FOR_NONLINEAR_SOLVE = 400
 
 
 def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
-    return tuple(sp.Symbol(f"_{prefix}{i}") for i in range(n))
+    return tuple(sp.Symbol(f"_{prefix}{i}", real=True) for i in range(n))
 
 
 @dataclass(frozen=True)
-class FirstOrderSystem(States):
-    """A first-order system ``y' = rhs(x, y, p, k)`` with conditions ``bc(ya, yb, p, k) = 0``.
+class StandardForm(States):
+    """A problem in the standard form (see the module docstring), as SymPy expressions.
 
     Attributes
     ----------
+    independent : str
+        The user's name of the independent variable.
+    functions : tuple of (str, int)
+        The unknown functions and their orders.
     states : tuple of (str, int)
-        For state ``i``, the unknown function and the derivative order it holds.
-    rhs : tuple of sympy.Expr, length n
-        Right-hand side in the symbols ``X``, ``y``, ``p``, ``k``.
-    conditions : tuple of sympy.Expr, length n + len(parameters)
-        Boundary conditions in ``ya``, ``yb``, ``p``, ``k``.
-    parameters, constants : tuple of str
-        Names of the unknown parameters (solved for) and known constants (given values).
-    domain : (sympy.Expr, sympy.Expr)
-        Physical ends in the symbols ``k`` and ``p``; ``oo`` for an infinite end.
-    physical_rhs : tuple of sympy.Expr
-        The full right-hand side in the physical independent variable (``rhs`` differs from
-        it when the domain is rescaled or a singular term is split off).
-    rescaled : bool
-        A domain end is an unknown parameter: ``rhs`` is in ``t = (x - a) / (b - a)`` on
-        ``[0, 1]`` and carries the factor ``b - a``.
-    singular : tuple of tuple of sympy.Expr, or None
-        The matrix ``S`` of a term ``S y / (x - a)`` singular at the left end; ``rhs`` then
-        holds the regular rest.
-    eigenvalue : int or None
-        Index in ``parameters`` of the eigenvalue, and ``mode`` the mode asked for.
+        One region's states: ``(function, derivative order)`` for the user's states, then
+        ``(description, 0)`` for the added ones (integrals, the normalisation).
     users : int
-        States ``0 .. users - 1`` hold the unknown functions; later ones are added states
-        (integrals over the domain).
+        User states per region (the first ``users`` of ``states``).
+    regions : int
+        Regions; ``Y`` stacks ``regions`` copies of ``states``.
+    rhs : tuple of sympy.Expr, length regions * len(states)
+        ``F(t, Y, p, k)`` in the symbols ``X``, ``y``, ``p``, ``k``.
+    conditions : tuple of sympy.Expr
+        ``G`` in ``ya``, ``yb``, ``p``, ``k``; one per state of ``Y`` plus one per parameter.
+    condition_kinds : tuple of str
+        ``given`` (the user's), ``continuity`` (of a user state at an interface),
+        ``added`` (of an added state), ``phase``.
+    parameters, constants : tuple of str
+        Names of ``p`` and ``k``; constants of a region's own are ``name@r`` and the
+        truncation length of an infinite end is ``_length``.
+    maps : tuple of (sympy.Expr, sympy.Expr)
+        Per region, ``(c_r, h_r)`` with ``x = c_r + h_r t``, in ``p`` and ``k``.
+    points : tuple of sympy.Expr
+        The ends and interfaces in ``p`` and ``k`` (``oo`` for an infinite end).
+    singular : tuple of tuple of sympy.Expr, or None
+        ``S`` (size of ``Y``), nonzero in the first region's rows only.
+    infinite : (bool, bool)
+    eigenvalue : int or None
+        Index in ``parameters`` of the eigenvalue; ``mode`` the mode asked for.
+    phase : bool
+        A phase condition was added (a periodic orbit).
+    point_conditions : (tuple of sympy.Expr, tuple of (str, int, int, int))
+        The user's conditions in point-value symbols, and what each symbol is:
+        ``(symbol name, state, point, side)``; read by the default guess.
     """
 
     independent: str
+    functions: tuple[tuple[str, int], ...]
     states: tuple[tuple[str, int], ...]
-    rhs: tuple[sp.Expr, ...]
-    conditions: tuple[sp.Expr, ...]
+    users: int
+    regions: int
+    rhs: tuple
+    conditions: tuple
+    condition_kinds: tuple[str, ...]
     parameters: tuple[str, ...]
     constants: tuple[str, ...]
-    domain: tuple[sp.Expr, sp.Expr]
-    condition_text: tuple[str, ...] = ()
-    equation_text: tuple[str, ...] = ()
-    physical_rhs: tuple[sp.Expr, ...] = ()
-    rescaled: bool = False
-    singular: tuple[tuple[sp.Expr, ...], ...] | None = None
+    maps: tuple
+    points: tuple
+    singular: tuple | None = None
+    infinite: tuple[bool, bool] = (False, False)
     eigenvalue: int | None = None
     mode: int | None = None
-    users: int = 0
-    y: tuple[sp.Symbol, ...] = field(init=False)
-    ya: tuple[sp.Symbol, ...] = field(init=False)
-    yb: tuple[sp.Symbol, ...] = field(init=False)
-    p: tuple[sp.Symbol, ...] = field(init=False)
-    k: tuple[sp.Symbol, ...] = field(init=False)
+    phase: bool = False
+    point_conditions: tuple = ()
+    y: tuple = field(init=False, repr=False)
+    ya: tuple = field(init=False, repr=False)
+    yb: tuple = field(init=False, repr=False)
+    p: tuple = field(init=False, repr=False)
+    k: tuple = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
-        n = len(self.states)
+        n = len(self.rhs)
         object.__setattr__(self, "y", _symbols("y", n))
         object.__setattr__(self, "ya", _symbols("ya", n))
         object.__setattr__(self, "yb", _symbols("yb", n))
         object.__setattr__(self, "p", _symbols("p", len(self.parameters)))
         object.__setattr__(self, "k", _symbols("k", len(self.constants)))
 
-    def layout(self) -> str:
-        """The state layout as one line, for messages: ``y0 = f, y1 = f', y2 = f''``."""
-        return ", ".join(f"y{i} = {s}" for i, s in enumerate(self.state_names))
-
-    def state_layout(self):  # noqa: ANN201 - a bvpkit.layout.StateLayout
-        """The plain facts of this system (what the numerical side needs; no SymPy)."""
-        from .layout import StateLayout
-
-        return StateLayout(
-            key=self.key(), independent=self.independent, states=self.states, parameters=self.parameters,
-            constants=self.constants, rescaled=self.rescaled, singular=self.singular is not None,
-            eigenvalue=self.eigenvalue, mode=self.mode, users=self.users,
-        )
-
-    def highest(self, name: str) -> sp.Expr:
-        """Expression of the highest derivative of ``name`` in the physical variable."""
-        return self.physical_rhs[self.index(name, self.order(name) - 1)]
-
     def key(self) -> str:
-        """A content hash: equal systems have equal keys (used for compiled-code caches)."""
+        """A content hash: equal forms have equal keys (the compiled-code cache key)."""
         cached = self.__dict__.get("_key")
         if cached is None:
             text = repr(tuple(getattr(self, f.name) for f in fields(self) if f.init))
@@ -117,110 +142,329 @@ class FirstOrderSystem(States):
             object.__setattr__(self, "_key", cached)
         return cached
 
+    def layout(self) -> StateLayout:
+        """The plain facts of this form (what the numerical side needs; no SymPy)."""
+        return StateLayout(
+            key=self.key(), independent=self.independent, functions=self.functions, states=self.states,
+            users=self.users, regions=self.regions, parameters=self.parameters, constants=self.constants,
+            condition_kinds=self.condition_kinds, infinite=self.infinite, singular=self.singular is not None,
+            eigenvalue=self.eigenvalue, mode=self.mode, phase=self.phase,
+        )
 
-def reduce(problem) -> FirstOrderSystem:  # noqa: ANN001 - Problem imports us lazily
-    """Reduce a validated :class:`~bvpkit.Problem` to a :class:`FirstOrderSystem`.
+
+_MEMO: dict[str, StandardForm] = {}
+
+
+def standard_form(problem) -> StandardForm:  # noqa: ANN001 - a bvpkit.Problem (imports us lazily)
+    """The standard form of a validated :class:`~bvpkit.Problem` (kept per problem structure).
 
     Raises
     ------
     ProblemError
         When the highest derivatives cannot be isolated (a differential-algebraic system,
-        or a highest derivative that appears nonlinearly with several roots).
+        or a highest derivative that appears nonlinearly), a singular term is of a kind
+        bvpkit does not treat, or an eigenvalue problem is not linear.
     """
-    states = tuple((name, k) for name in problem.unknowns for k in range(problem.orders[name]))
-    n = len(states)
-    y = _symbols("y", n)
-    ya, yb = _symbols("ya", n), _symbols("yb", n)
-    p = _symbols("p", len(problem.unknown_parameters))
-    k = _symbols("k", len(problem.constants))
-    names = {sp.Symbol(c): k[i] for i, c in enumerate(problem.constants)}
-    names.update({sp.Symbol(q): p[i] for i, q in enumerate(problem.unknown_parameters)})
-    names[problem.x] = X
+    key = problem.key()
+    found = _MEMO.get(key)
+    if found is None:
+        found = _build(problem)
+        if len(_MEMO) > 500:
+            _MEMO.clear()
+        _MEMO[key] = found
+    return found
 
-    # Highest derivatives become placeholder symbols, lower ones become states.
-    tops = {name: sp.Symbol(f"_top_{name}") for name in problem.unknowns}
-    replace: dict[sp.Basic, sp.Basic] = dict(names)
-    for i, (name, order) in enumerate(states):
-        f = sp.Function(name)(problem.x)
-        replace[f if order == 0 else sp.Derivative(f, (problem.x, order))] = y[i]
-    for name in problem.unknowns:
-        f = sp.Function(name)(problem.x)
-        replace[sp.Derivative(f, (problem.x, problem.orders[name]))] = tops[name]
-    equations = [eq.xreplace(replace) for eq in problem.equations]
-    for eq, text in zip(equations, problem.equation_text):
-        leftover = eq.atoms(AppliedUndef, sp.Derivative)
-        if leftover:  # pragma: no cover - Problem validation prevents this
-            raise ProblemError(f"equation ({text}): could not read {sorted(map(str, leftover))[0]}")
-    solved = _isolate(equations, [tops[n_] for n_ in problem.unknowns], problem)
 
-    rhs: list[sp.Expr] = []
-    for i, (name, order) in enumerate(states):
-        if order + 1 < problem.orders[name]:
-            rhs.append(y[i + 1])
-        else:
-            rhs.append(solved[problem.unknowns.index(name)])
+@dataclass
+class _Names:
+    """The internal symbols of a problem's names."""
 
-    # Integrals over the domain in conditions become added states z' = integrand, z(a) = 0.
-    integrals: list[sp.Basic] = []
-    for c in problem.conditions:
-        for g in sorted(c.atoms(DomainIntegral), key=sp.default_sort_key):
-            if g not in integrals:
-                integrals.append(g)
-    extra_states = [(f"integral({_as_written(g.args[0], problem)})", 0) for g in integrals]
-    extra_rhs = [g.args[0].xreplace(replace) for g in integrals]
-    eigen_index = None
-    if problem.eigenvalue is not None:
-        eigen_index = list(problem.unknown_parameters).index(problem.eigenvalue)
-        _check_linear(rhs, conditions_of(problem, states, ya, yb, names), y[:n], p[eigen_index], problem)
-        values = [y[i] for i, (_, order) in enumerate(states) if order == 0]
-        extra_states.append(("integral of the squares (normalisation)", 0))
-        extra_rhs.append(sum(v**2 for v in values))
-    total = n + len(extra_states)
-    y = _symbols("y", total)
-    ya, yb = _symbols("ya", total), _symbols("yb", total)
-    all_states = states + tuple(extra_states)
+    constants: list[str]
+    parameters: list[str]
+    k: dict  # user Symbol -> k symbol (the problem's values)
+    p: dict
+    own: list[dict]  # per region: user Symbol -> k symbol of the region's own value
 
-    conditions = conditions_of(problem, states, ya, yb, names, {g: yb[n + j] for j, g in enumerate(integrals)})
-    for j in range(len(extra_states)):
-        conditions.append(ya[n + j])
-    if problem.eigenvalue is not None:
-        conditions.append(yb[total - 1] - 1)
-    physical = list(rhs) + extra_rhs
-    if problem.phase:
-        # u'(a) = 0 for the first unknown pins the phase of an autonomous periodic orbit
-        conditions.append(physical[0].xreplace(dict(zip(y, ya))))
+    def region(self, r: int) -> dict:
+        return {**self.k, **self.own[r], **self.p}
 
-    domain = tuple(end.xreplace(names) for end in problem.domain)
-    rescaled = any(s in end.free_symbols for end in domain for s in p)
-    method_rhs = list(physical)
-    singular = None
-    if rescaled:
-        if any(e in (sp.oo, -sp.oo) for e in domain):
-            raise ProblemError("a domain with an unknown end must be finite at the other end")
-        a, b = domain
-        method_rhs = [(b - a) * r.xreplace({X: a + (b - a) * X}) for r in physical]
-        _refuse_singular(method_rhs, sp.Integer(0), sp.Integer(1), problem, "an unknown end")
-    elif all(e not in (sp.oo, -sp.oo) for e in domain):
-        singular, method_rhs = _split_singular(physical, y, domain, problem)
-    return FirstOrderSystem(
-        independent=problem.independent,
-        states=all_states,
-        rhs=tuple(method_rhs),
-        conditions=tuple(conditions),
-        parameters=tuple(problem.unknown_parameters),
-        constants=tuple(problem.constants),
-        domain=domain,  # type: ignore[arg-type]
-        condition_text=tuple(problem.condition_text),
-        equation_text=tuple(problem.equation_text),
-        physical_rhs=tuple(physical),
-        rescaled=rescaled,
-        singular=singular,
-        eigenvalue=eigen_index,
-        mode=problem.mode,
-        users=n,
+
+def _names(problem) -> _Names:  # noqa: ANN001
+    constants = list(problem.constants)
+    own_names: list[dict] = []
+    for r, region in enumerate(problem.regions):
+        own = {}
+        for name in region.constants:
+            constants.append(f"{name}@{r + 1}")
+            own[name] = len(constants) - 1
+        own_names.append(own)
+    if any(problem.infinite):
+        constants.append(LENGTH)
+    parameters = list(problem.unknown_parameters) + ([problem.eigenvalue] if problem.eigenvalue else [])
+    k = _symbols("k", len(constants))
+    p = _symbols("p", len(parameters))
+    return _Names(
+        constants, parameters,
+        {sp.Symbol(c): k[i] for i, c in enumerate(problem.constants)},
+        {sp.Symbol(q): p[i] for i, q in enumerate(parameters)},
+        [{sp.Symbol(name): k[i] for name, i in own.items()} for own in own_names],
     )
 
 
+def _build(problem) -> StandardForm:  # noqa: ANN001
+    names = _names(problem)
+    functions = tuple((f, problem.orders[f]) for f in problem.unknowns)
+    user_states = tuple((f, j) for f, order in functions for j in range(order))
+    added = len({g for c in problem.conditions for g in c.atoms(DomainIntegral)}) + (problem.eigenvalue is not None)
+    local = _symbols("s", len(user_states) + added)  # one region's states while its system is formed
+    # 1. each region's first-order system in the user's variable
+    systems = [_first_order(problem, region, user_states, local, names.region(r))
+               for r, region in enumerate(problem.regions)]
+    states = list(user_states)
+    # 2-3. added states: integrals of the conditions, the eigenvalue's normalisation
+    integrals = _integrals(problem, systems, states, user_states, local, names)
+    normalisation = _eigenvalue(problem, systems, states, local, names)
+    # 4. conditions in point-value symbols
+    values: dict[tuple[int, int, int], sp.Symbol] = {}
+
+    def value(state: int, point: int, side: int) -> sp.Symbol:
+        last = len(problem.points) - 1
+        side = side or (1 if point == 0 else -1)  # written f(L): continuous there, read from the left
+        if (point == 0 and side < 0) or (point == last and side > 0):  # pragma: no cover - refused by Problem
+            raise ProblemError("a one-sided value outside the domain")
+        return values.setdefault((state, point, side), sp.Symbol(f"_v{state}_{point}_{side}", real=True))
+
+    given = _given_conditions(problem, user_states, integrals, value, names)
+    point_conditions = tuple(given)
+    conditions: list[tuple[sp.Expr, str]] = [(c, "given") for c in given]
+    last = len(problem.points) - 1
+    for z in range(len(user_states), len(states)):
+        conditions.append((value(z, 0, 1), "added"))
+    if normalisation is not None:
+        conditions.append((value(normalisation, last, -1) - 1, "added"))
+    if problem.phase:
+        conditions.append((_phase(problem, systems[0], local, value, names), "phase"))
+    for j in range(1, last):
+        for i, (name, order) in enumerate(states):
+            if i < len(user_states) and (name, order) in problem.jumps[j]:
+                continue
+            kind = "continuity" if i < len(user_states) else "added"
+            conditions.append((value(i, j, -1) - value(i, j, 1), kind))
+    # 5. singular terms, 6. the map onto [0, 1], 7. the stack
+    points = tuple(p.xreplace(names.region(0)) for p in problem.points)
+    singular = _singular(problem, systems, points, local, len(states), set(names.p.values()))
+    maps = _map(points, names)
+    rhs = []
+    for r, system in enumerate(systems):
+        c, h = maps[r]
+        for i, f in enumerate(system):
+            regular = f if singular is None or r else singular[1][i]
+            rhs.append(h * regular.xreplace({_PHYSICAL: c + h * X}))
+    n_region = len(states)
+    total = n_region * len(systems)
+    y = _symbols("y", total)
+    for r in range(len(systems)):
+        swap = {local[i]: y[r * n_region + i] for i in range(n_region)}
+        for i in range(n_region):
+            rhs[r * n_region + i] = rhs[r * n_region + i].xreplace(swap)
+    ya, yb = _symbols("ya", total), _symbols("yb", total)
+    ends = {}
+    for (state, point, side), symbol in values.items():
+        ends[symbol] = yb[(point - 1) * n_region + state] if side < 0 else ya[point * n_region + state]
+    stacked = [c.xreplace(ends) for c, _ in conditions]
+    matrix = None
+    if singular is not None:
+        matrix = tuple(
+            tuple(singular[0][i][j] if i < n_region and j < n_region else sp.Integer(0) for j in range(total))
+            for i in range(total)
+        )
+    names_of_values = tuple((symbol.name, state, point, side) for (state, point, side), symbol in values.items())
+    return StandardForm(
+        independent=problem.independent,
+        functions=functions,
+        states=tuple(states),
+        users=len(user_states),
+        regions=len(systems),
+        rhs=tuple(rhs),
+        conditions=tuple(stacked),
+        condition_kinds=tuple(kind for _, kind in conditions),
+        parameters=tuple(names.parameters),
+        constants=tuple(names.constants),
+        maps=tuple(maps),
+        points=points,
+        singular=matrix,
+        infinite=tuple(problem.infinite),
+        eigenvalue=len(names.parameters) - 1 if problem.eigenvalue else None,
+        mode=problem.mode,
+        phase=bool(problem.phase),
+        point_conditions=(point_conditions, names_of_values),
+    )
+
+
+# -- the transforms -------------------------------------------------------------------------
+def _first_order(problem, region, user_states, local, names) -> list:  # noqa: ANN001
+    """One region's equations as ``s' = f(x, s, p, k)`` over the user states."""
+    x = problem.x
+    tops = {name: sp.Symbol(f"_top_{name}", real=True) for name in problem.unknowns}
+    replace: dict = dict(names)
+    replace[x] = _PHYSICAL
+    for i, (name, order) in enumerate(user_states):
+        f = sp.Function(name)(x)
+        replace[f if order == 0 else sp.Derivative(f, (x, order))] = local[i]
+    for name in problem.unknowns:
+        f = sp.Function(name)(x)
+        replace[sp.Derivative(f, (x, problem.orders[name]))] = tops[name]
+    equations = [eq.xreplace(replace) for eq in region.equations]
+    for eq, text in zip(equations, region.equation_text):
+        leftover = eq.atoms(AppliedUndef, sp.Derivative)
+        if leftover:  # pragma: no cover - Problem validation prevents this
+            raise ProblemError(f"equation ({text}): could not read {sorted(map(str, leftover))[0]}")
+    solved = _isolate(equations, [tops[n] for n in problem.unknowns], problem)
+    rhs = []
+    for i, (name, order) in enumerate(user_states):
+        rhs.append(local[i + 1] if order + 1 < problem.orders[name] else solved[problem.unknowns.index(name)])
+    return rhs
+
+
+def _local_replace(problem, user_states, local) -> dict:  # noqa: ANN001
+    x = problem.x
+    replace = {x: _PHYSICAL}
+    for i, (name, order) in enumerate(user_states):
+        f = sp.Function(name)(x)
+        replace[f if order == 0 else sp.Derivative(f, (x, order))] = local[i]
+    return replace
+
+
+def _integrals(problem, systems, states, user_states, local, names) -> dict:  # noqa: ANN001
+    """Integrals over the domain in the conditions: added states ``z' = integrand``, ``z(a) = 0``."""
+    found: dict = {}
+    for c in problem.conditions:
+        for g in sorted(c.atoms(DomainIntegral), key=sp.default_sort_key):
+            if g not in found:
+                found[g] = len(states)
+                states.append((f"integral({_as_written(g.args[0], problem)})", 0))
+    replace = _local_replace(problem, user_states, local)
+    for r, system in enumerate(systems):
+        for g in found:
+            system.append(g.args[0].xreplace({**replace, **names.region(r)}))
+    return found
+
+
+def _users(problem) -> int:  # noqa: ANN001
+    return sum(problem.orders.values())
+
+
+def _eigenvalue(problem, systems, states, local, names) -> int | None:  # noqa: ANN001
+    """An eigenvalue problem: linear checks, and the normalisation as an added state."""
+    if problem.eigenvalue is None:
+        return None
+    lam = names.p[sp.Symbol(problem.eigenvalue)]
+    users = _users(problem)
+    for system in systems:
+        _check_linear(system[:users], local[:users], lam, problem)
+    values = [local[i] for i, (_, order) in enumerate(states[:users]) if order == 0]
+    states.append(("integral of the squares (normalisation)", 0))
+    for system in systems:
+        system.append(sum(v**2 for v in values))
+    return len(states) - 1
+
+
+def _given_conditions(problem, user_states, integrals, value, names) -> list:  # noqa: ANN001
+    """The user's conditions with point values (and integrals) as point-value symbols."""
+    last = len(problem.points) - 1
+    result = []
+    for c in problem.conditions:
+        swap: dict = {g: value(i, last, -1) for g, i in integrals.items()}
+        for pv in problem.point_values(c):
+            j = problem.which_point(pv.point)
+            swap[pv.node] = value(user_states.index((pv.name, pv.order)), j, pv.side)
+        swap.update({s: names.k.get(s, names.p.get(s)) for s in c.free_symbols if s in names.k or s in names.p})
+        condition = c.xreplace(swap)
+        _check_eigen_condition(problem, condition, names)
+        result.append(condition)
+    return result
+
+
+def _phase(problem, system, local, value, names) -> sp.Expr:  # noqa: ANN001
+    """``u'(a) = 0`` for the first unknown: the derivative of the first state at the left end."""
+    a = problem.points[0].xreplace(names.region(0))
+    swap = {local[i]: value(i, 0, 1) for i in range(len(system))}
+    swap[_PHYSICAL] = a
+    return system[0].xreplace(swap)
+
+
+def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa: ANN001, ANN202
+    """Split ``S s / (x - a)`` off the first region's equations, singular at the left end ``a``.
+
+    Returns ``(S, regular right-hand sides of the first region)`` or None. A term singular at
+    any other end or interface, or not of this form, is refused by name.
+    """
+    name = problem.independent
+    last = len(points) - 1
+    for r, system in enumerate(systems):
+        for j, end in ((r, points[r]), (r + 1, points[r + 1])):
+            if j == 0 or end in (sp.oo, -sp.oo):
+                continue
+            if any(_blows_up(f.xreplace({_PHYSICAL: end})) for f in system):
+                where = "the right end" if j == last else "an interface"
+                raise ProblemError(
+                    f"the equations are singular at {where} {name} = {end}: bvpkit treats singular terms at the "
+                    f"left end only{'; reverse the direction of ' + name if j == last else ''}"
+                )
+    a = points[0]
+    first = systems[0]
+    if a in (sp.oo, -sp.oo):
+        return None
+    rows = [i for i, f in enumerate(first) if _blows_up(f.xreplace({_PHYSICAL: a}))]
+    if not rows:
+        return None
+    if a.free_symbols & parameters:
+        raise ProblemError(
+            f"the equations are singular at the left end {name} = {a}, which is an unknown parameter; this "
+            "combination is not supported (a singular end must be fixed)"
+        )
+    S = [[sp.Integer(0)] * n for _ in range(n)]
+    regular = list(first)
+    s = local[:n]
+    for i in rows:
+        g = sp.cancel(sp.together((_PHYSICAL - a) * first[i]))
+        for j in range(n):
+            entry = sp.simplify(sp.diff(g, s[j]).xreplace({_PHYSICAL: a}))
+            if entry.has(*s) or _blows_up(entry):
+                raise ProblemError(
+                    f"the singular coefficient {sp.sstr(entry)} at {name} = {a} is not of the form S y/({name} - a)"
+                )
+            S[i][j] = entry
+        rest = sp.cancel(sp.together(first[i] - sum(S[i][j] * s[j] for j in range(n)) / (_PHYSICAL - a)))
+        if _blows_up(rest.xreplace({_PHYSICAL: a})):
+            raise ProblemError(
+                f"the term {sp.sstr(first[i])} is singular at {name} = {a} in a way bvpkit cannot treat (only "
+                f"terms S y/({name} - a) are, e.g. (2/{name})*y')"
+            )
+        regular[i] = rest
+    return S, regular
+
+
+def _map(points, names) -> list:  # noqa: ANN001
+    """Per region ``(c_r, h_r)``: ``x = c_r + h_r t`` maps ``t`` in ``[0, 1]`` onto the region."""
+    length = sp.Symbol(f"_k{names.constants.index(LENGTH)}", real=True) if LENGTH in names.constants else None
+    maps = []
+    last = len(points) - 1
+    for r in range(last):
+        left, right = points[r], points[r + 1]
+        left_inf, right_inf = left in (sp.oo, -sp.oo), right in (sp.oo, -sp.oo)
+        if left_inf and right_inf:
+            maps.append((-length, 2 * length))
+        elif right_inf:
+            maps.append((left, length))
+        elif left_inf:
+            maps.append((right - length, length))
+        else:
+            maps.append((left, right - left))
+    return maps
+
+
+# -- helpers ---------------------------------------------------------------------------------
 def _as_written(e: sp.Expr, problem) -> str:  # noqa: ANN001
     """``e`` printed as a person writes it: ``y'`` rather than ``Derivative(y(x), x)``."""
     swap = {}
@@ -231,95 +475,40 @@ def _as_written(e: sp.Expr, problem) -> str:  # noqa: ANN001
     return sp.sstr(e.xreplace(swap))
 
 
-def conditions_of(problem, states, ya, yb, names, integrals=None) -> list[sp.Expr]:  # noqa: ANN001
-    """The problem's conditions with point values (and integrals) replaced by end states."""
-    conditions = []
-    for c in problem.conditions:
-        swap: dict[sp.Basic, sp.Basic] = dict(integrals or {})
-        for node, name, order, point in problem.point_values(c):
-            end = problem.which_end(point)
-            swap[node] = (ya if end == 0 else yb)[states.index((name, order))]
-        swap.update({s: names[s] for s in c.free_symbols if s in names})
-        conditions.append(c.xreplace(swap))
-    return conditions
-
-
-def _check_linear(rhs, conditions, y, lam, problem) -> None:  # noqa: ANN001
+def _check_linear(rhs, s, lam, problem) -> None:  # noqa: ANN001
     """An eigenvalue problem must be linear and homogeneous, and linear in the eigenvalue."""
     name = problem.eigenvalue
-    jac = sp.Matrix(rhs).jacobian(list(y))
-    if any(jac.has(s) for s in y) or any(sp.simplify(r.xreplace({s: 0 for s in y})) != 0 for r in rhs):
+    jac = sp.Matrix(rhs).jacobian(list(s))
+    if any(jac.has(v) for v in s) or any(sp.simplify(r.xreplace({v: 0 for v in s})) != 0 for r in rhs):
         raise ProblemError(
             f"eigenvalue '{name}': the equations must be linear and homogeneous in the unknown "
             "functions (no terms without them, no products of them)"
         )
     if any(sp.simplify(sp.diff(entry, lam, 2)) != 0 for entry in jac):
         raise ProblemError(
-            f"eigenvalue '{name}': the equations are not linear in the eigenvalue once solved for "
-            "the highest derivatives; write them so that it multiplies the functions, "
-            f"e.g. y'' + {name}*y = 0"
+            f"eigenvalue '{name}': the equations are not linear in the eigenvalue once solved for the highest "
+            f"derivatives; write them so that it multiplies the functions, e.g. y'' + {name}*y = 0"
         )
-    ends = [s for c in conditions for s in c.free_symbols if s.name.startswith(("_ya", "_yb"))]
-    for c in conditions:
-        if sp.diff(c, lam, 2) != 0:
-            raise ProblemError(f"eigenvalue '{name}': the boundary conditions are not linear in it")
-        zero = c.xreplace({s: 0 for s in ends})
-        if sp.simplify(zero) != 0 or any(sp.diff(c, s, 2) != 0 for s in c.free_symbols if s in ends):
-            raise ProblemError(
-                f"eigenvalue '{name}': the conditions must be linear and homogeneous (= 0); "
-                "bvpkit adds the normalisation itself"
-            )
 
 
-def _refuse_singular(rhs, a, b, problem, what: str) -> None:  # noqa: ANN001
-    for end in (a, b):
-        for r in rhs:
-            if _blows_up(r.xreplace({X: end})):
-                raise ProblemError(
-                    f"the equations are singular at an end of a domain with {what} "
-                    f"(a term like 1/{problem.independent}); this combination is not supported"
-                )
+def _check_eigen_condition(problem, condition: sp.Expr, names) -> None:  # noqa: ANN001
+    if problem.eigenvalue is None:
+        return
+    name = problem.eigenvalue
+    lam = names.p[sp.Symbol(name)]
+    ends = [s for s in condition.free_symbols if s.name.startswith("_v")]
+    if sp.diff(condition, lam, 2) != 0:
+        raise ProblemError(f"eigenvalue '{name}': the boundary conditions are not linear in it")
+    zero = condition.xreplace({s: 0 for s in ends})
+    if sp.simplify(zero) != 0 or any(sp.diff(condition, s, 2) != 0 for s in ends):
+        raise ProblemError(
+            f"eigenvalue '{name}': the conditions must be linear and homogeneous (= 0); bvpkit adds the "
+            "normalisation itself"
+        )
 
 
 def _blows_up(e: sp.Expr) -> bool:
     return bool(e.has(sp.zoo, sp.nan, sp.oo, -sp.oo))
-
-
-def _split_singular(physical, y, domain, problem):  # noqa: ANN001, ANN202
-    """Split ``S y / (x - a) + f(x, y)`` off a right-hand side singular at the left end ``a``.
-
-    SciPy's ``solve_bvp`` treats such a term exactly (its argument ``S``). Terms singular
-    at the right end, or singular terms that are not of this form, are refused by name.
-    """
-    a, b = domain
-    name = problem.independent
-    for r in physical:
-        if _blows_up(r.xreplace({X: b})):
-            raise ProblemError(
-                f"the equations are singular at the right end {name} = {b}: bvpkit treats "
-                f"singular terms at the left end only; reverse the direction of {name}"
-            )
-    rows = [i for i, r in enumerate(physical) if _blows_up(r.xreplace({X: a}))]
-    if not rows:
-        return None, list(physical)
-    n = len(physical)
-    S = [[sp.Integer(0)] * n for _ in range(n)]
-    regular = list(physical)
-    for i in rows:
-        g = sp.cancel(sp.together((X - a) * physical[i]))
-        for j in range(n):
-            entry = sp.simplify(sp.diff(g, y[j]).xreplace({X: a}))
-            if entry.has(*y) or _blows_up(entry):
-                raise ProblemError(f"the singular coefficient {sp.sstr(entry)} at {name} = {a} is not of the form S y/({name} - a)")
-            S[i][j] = entry
-        rest = sp.cancel(sp.together(physical[i] - sum(S[i][j] * y[j] for j in range(n)) / (X - a)))
-        if _blows_up(rest.xreplace({X: a})):
-            raise ProblemError(
-                f"the term {sp.sstr(physical[i])} is singular at {name} = {a} in a way bvpkit cannot "
-                f"treat (only terms S y/({name} - a) are, e.g. (2/{name})*y')"
-            )
-        regular[i] = rest
-    return tuple(tuple(row) for row in S), regular
 
 
 def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[sp.Expr]:  # noqa: ANN001

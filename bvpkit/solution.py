@@ -1,4 +1,11 @@
-"""``Solution``: the answer, how far to trust it, and ways to ask it questions."""
+"""``Solution``: the answer, in the user's variable and states, how far to trust it, and ways
+to ask it questions.
+
+A solution is computed in the standard form (``t`` on ``[0, 1]``, the regions' states
+stacked in ``Y``); :class:`Interpolant` is the one map back: region ``r`` covers
+``x = c_r + h_r t`` and holds rows ``r * size ... (r + 1) * size - 1`` of ``Y``, and a
+derivative in ``x`` is one in ``t`` divided by ``h_r``.
+"""
 
 from __future__ import annotations
 
@@ -8,23 +15,83 @@ from typing import Any
 
 import numpy as np
 
-from ._lazy import LazyModule
-from ._output import write_columns
-from .compiled import CompiledSystem
+from ._output import json_ready, write_columns
 from .diagnostics import Diagnostics, hermite
 from .errors import BvpkitError
+from .guess import positions
 from .status import Status
-
-sp = LazyModule("sympy")
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
 _GAUSS_POINTS = 5
 
-# Parsed and compiled quantities, shared by every Solution of the same system: evaluating
-# "f''(0)" along a continuation must not re-parse or re-compile it at each point.
-_QUANTITIES: dict[tuple, Any] = {}
-_MAX_CACHED = 2_000
+
+class Interpolant:
+    """A solution as a function of the user's variable (the C1 cubic of every method).
+
+    Parameters
+    ----------
+    compiled : CompiledSystem
+    t : ndarray, shape (m,)
+        The standard mesh.
+    y : ndarray, shape (n, m)
+        The stacked states.
+    p, k : ndarray
+        Parameters and constants (they fix the region maps).
+
+    Calling it with points ``x`` gives the states of a region at ``x``, shape
+    ``(states per region, len(x))``; at an interface ``side = -1`` (default) reads the
+    region on the left, ``+1`` the one on the right.
+    """
+
+    def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001
+        self.compiled = compiled
+        self.layout = compiled.layout
+        self.t, self.y, self.p, self.k = (np.asarray(a, float) for a in (t, y, p, k))
+        with np.errstate(all="ignore"):
+            self.maps = np.asarray(compiled.maps(self.p, self.k), float)
+        self.points = positions(self.maps)
+        self._spline = hermite(compiled, self.t, self.y, self.p, self.k)
+
+    @property
+    def ends(self) -> tuple[float, float]:
+        """The solved interval in the user's variable (a truncated infinite end where placed)."""
+        return float(self.points[0]), float(self.points[-1])
+
+    def region(self, x: np.ndarray, side: int = -1) -> np.ndarray:
+        """The region each point lies in (at an interface: by ``side``)."""
+        x = np.asarray(x, float)
+        inner = self.points[1:-1]
+        r = np.searchsorted(inner, x, side="left" if side < 0 else "right")
+        return np.clip(r, 0, self.layout.regions - 1)
+
+    def standard(self, x: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """The standard variable of points ``x`` in regions ``r``."""
+        return (np.asarray(x, float) - self.maps[r, 0]) / self.maps[r, 1]
+
+    def _pick(self, stacked: np.ndarray, r: np.ndarray) -> np.ndarray:
+        size = self.layout.region_size
+        rows = r[None, :] * size + np.arange(size)[:, None]
+        return stacked[rows, np.arange(r.size)[None, :]]
+
+    def __call__(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
+        x = np.atleast_1d(np.asarray(x, float))
+        r = self.region(x, side) if regions is None else np.asarray(regions)
+        return self._pick(self._spline(self.standard(x, r)), r)
+
+    def slopes(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
+        """The states' derivatives in the user's variable, from the equations."""
+        x = np.atleast_1d(np.asarray(x, float))
+        r = self.region(x, side) if regions is None else np.asarray(regions)
+        t = self.standard(x, r)
+        with np.errstate(all="ignore"):
+            f = self.compiled.rhs(t, self._spline(t), self.p, self.k)
+        return self._pick(f, r) / self.maps[r, 1][None, :]
+
+    def inside(self, x: np.ndarray) -> bool:
+        a, b = self.ends
+        slack = 1e-12 * max(1.0, abs(a), abs(b))
+        return bool(np.isfinite(x).all() and x.min() >= a - slack and x.max() <= b + slack)
 
 
 class Solution:
@@ -41,105 +108,126 @@ class Solution:
     method : str
         The method that produced this answer.
     x : ndarray, shape (m,)
-        The final mesh (on the truncated interval for an infinite domain).
+        The final mesh in the user's variable, region after region (an interface appears
+        twice: as the end of one region and the start of the next); on the truncated
+        interval for an infinite domain.
     y : ndarray, shape (n, m)
-        The states on the mesh (SciPy's layout); ``state_names`` says what each row holds.
+        The states at ``x`` (SciPy's layout); ``state_names`` says what each row holds.
     parameters : dict of str to float
         Values of the unknown parameters.
     parameter_errors : dict of str to float
         Their estimated absolute errors (NaN when not estimated).
     outputs : dict of str to float
-        The problem's named outputs, evaluated.
+        The problem's named outputs, evaluated (empty when the solve failed).
     output_errors : dict of str to float
         Estimated absolute errors of the outputs (from the refined solve and, for infinite
         domains, the previous truncation).
     diagnostics : Diagnostics
         Residuals, error estimates, iterations, what was tried.
+    prepared : Prepared
+        The prepared problem this solves (``prepared.with_constants`` for variations).
     """
 
     def __init__(
         self,
-        problem,  # noqa: ANN001 - bvpkit.Problem
-        compiled: CompiledSystem,
+        prepared,  # noqa: ANN001 - bvpkit.prepared.Prepared
         k: np.ndarray,
         status: Status,
         message: str,
         method: str,
-        x: np.ndarray,
+        t: np.ndarray,
         y: np.ndarray,
         p: np.ndarray,
         diagnostics: Diagnostics,
         parameter_errors: np.ndarray | None = None,
-        reference: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
-        previous: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+        reference: Interpolant | None = None,
+        previous: Interpolant | None = None,
     ):
-        self.problem = problem
+        self.prepared = prepared
         self.status = status
         self.success = status is Status.SOLVED
         self.message = message
         self.method = method
-        self.x = np.asarray(x, float)
-        self.y = np.asarray(y, float)
-        self._p = np.asarray(p, float)
-        self._compiled = compiled
-        self._k = np.asarray(k, float)
         self.diagnostics = diagnostics
-        names = compiled.layout.parameters
-        self.parameters = {q: float(v) for q, v in zip(names, self._p)}
+        compiled = prepared.compiled
+        self.interpolant = Interpolant(compiled, t, y, p, k)
+        layout = compiled.layout
+        size, regions = layout.region_size, layout.regions
+        maps = self.interpolant.maps
+        self.x = (maps[:, 0:1] + maps[:, 1:2] * self.interpolant.t[None, :]).ravel()
+        self.y = np.concatenate([self.interpolant.y[r * size:(r + 1) * size] for r in range(regions)], axis=1)
+        names = layout.parameters
+        self.parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
         self.parameter_errors = {q: float(v) for q, v in zip(names, errs)}
-        self._reference = reference
-        self._previous = previous
-        self._spline = hermite(compiled, self.x, self.y, self._p, self._k, physical=True)
+        self._reference, self._previous = reference, previous
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
-        if self.x.size and np.isfinite(self.y).all():
-            for name, text in problem.outputs.items():
+        if self.success:
+            for name, text in prepared.outputs.items():
                 self.outputs[name], self.output_errors[name] = self._output(text)
 
     # -- public questions ---------------------------------------------------------------
     @property
     def state_names(self) -> tuple[str, ...]:
         """What each row of ``y`` holds: ``("f", "f'", "f''")``."""
-        return self._compiled.layout.state_names
+        return self.interpolant.layout.state_names
 
-    def evaluate(self, expression: str, at: Any = None) -> float | np.ndarray:
+    @property
+    def independent(self) -> str:
+        return self.prepared.independent
+
+    def problem(self):  # noqa: ANN201 - a bvpkit.Problem
+        """The symbolic problem solved (rebuilt with SymPy if this solution came from a cache)."""
+        return self.prepared.problem()
+
+    def evaluate(self, expression: str, at: Any = None, *, allow_failed: bool = False) -> float | np.ndarray:
         """Evaluate an expression of the solution.
 
         Parameters
         ----------
         expression : str
-            Point values (``"f''(0)"``, ``"y(1/2)"``, ``"f'(inf)"``), states and derivatives
-            at the running point (``"f'"``), the independent variable, constants and
-            parameters, combined with the expression language.
+            Point values (``"f''(0)"``, ``"y(1/2)"``, ``"f'(inf)"``, ``"w(L-)"``), states and
+            derivatives at the running point (``"f'"``), ``integral(...)`` over the domain,
+            the independent variable, constants and parameters, in the expression language.
         at : array_like, optional
             Points at which to evaluate an expression that depends on the running point.
+        allow_failed : bool
+            Evaluate even though the solve failed (its numbers are not to be trusted);
+            without it, a failed solution raises.
 
         Returns
         -------
         float or ndarray, shape (len(at),)
         """
-        return self._evaluate_on(self.x, self.y, self._p, expression, at)
+        if not (self.success or allow_failed):
+            raise BvpkitError(
+                f"this solve failed ({self.status.word}): its numbers are not an answer; fix the cause "
+                f"({self.message[:120]}) or pass allow_failed=True to look at them anyway"
+            )
+        return _evaluate(self.interpolant, self.prepared, self.prepared.quantity(expression), expression, at)
 
-    def integrate(self, expression: str) -> float:
+    def integrate(self, expression: str, *, allow_failed: bool = False) -> float:
         """Integral of an expression of the running point over the whole domain.
 
         For an infinite domain the integral is taken up to the truncation length, after
         checking that the integrand has decayed there; otherwise an error says so.
         """
-        value, tail = self._integral(self.x, self.y, self._p, expression)
-        length = self.x[-1] - self.x[0]
-        if any(self.problem.infinite) and abs(tail) * length > 1e-6 * max(1.0, abs(value)):
+        if not (self.success or allow_failed):
+            return self.evaluate(expression)  # raises the failed-solve error
+        quantity = self.prepared.quantity(expression)
+        value, tail = _integral(self.interpolant, self.prepared, quantity)
+        a, b = self.interpolant.ends
+        if any(self.prepared.infinite) and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
             raise BvpkitError(
                 f"the integrand of '{expression}' is {tail:.3g} at the truncated end "
-                f"{self.problem.independent} = {self.x[-1]:.6g}: the integral over the "
-                "infinite domain does not converge"
+                f"{self.independent} = {b:.6g}: the integral over the infinite domain does not converge"
             )
         return value
 
     def table(self) -> dict[str, np.ndarray]:
         """Columns of the mesh solution: the independent variable, then every state."""
-        columns = {self.problem.independent: self.x}
+        columns = {self.independent: self.x}
         for name, row in zip(self.state_names, self.y):
             columns[name] = row
         return columns
@@ -149,16 +237,19 @@ class Solution:
         write_columns(path, self.table())
 
     def as_dict(self) -> dict[str, Any]:
-        """Plain JSON-ready data: outcome, outputs with errors, parameters, diagnostics."""
-        return _json_ready(
+        """Plain JSON-ready data: outcome, outputs with errors (null when the solve failed),
+        parameters, diagnostics."""
+        outputs = self.outputs if self.success else {name: None for name in self.prepared.outputs}
+        errors = self.output_errors if self.success else {name: None for name in self.prepared.outputs}
+        return json_ready(
             {
                 "success": self.success,
                 "status": self.status.word,
                 "message": self.message,
                 "method": self.method,
-                "outputs": self.outputs,
-                "output_errors": self.output_errors,
-                "parameters": self.parameters,
+                "outputs": outputs,
+                "output_errors": errors,
+                "parameters": self.parameters if self.success else {name: None for name in self.parameters},
                 "parameter_errors": self.parameter_errors,
                 "state_names": list(self.state_names),
                 "diagnostics": self.diagnostics.as_dict(),
@@ -168,12 +259,15 @@ class Solution:
     def summary(self) -> str:
         """A short human summary: outcome, method and why, outputs with errors, diagnostics."""
         d = self.diagnostics
-        lines = [f"{'solved' if self.success else 'FAILED'} ({self.status.word}): {self.message}"]
-        lines.append(f"method: {self.method}; {d.selection}")
-        for name, value in self.parameters.items():
-            lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.parameter_errors[name])})")
-        for name, value in self.outputs.items():
-            lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.output_errors[name])})")
+        head = "solved" if self.success else f"FAILED ({self.status.word})"
+        lines = [f"{head}: {self.message}", f"method: {d.selection}"]
+        if self.success:
+            for name, value in self.parameters.items():
+                lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.parameter_errors[name])})")
+            for name, value in self.outputs.items():
+                lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.output_errors[name])})")
+        elif self.prepared.outputs or self.parameters:
+            lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
             f"{d.iterations} Newton iteration{_s(d.iterations)}",
             f"{d.mesh_nodes} nodes",
@@ -183,12 +277,12 @@ class Solution:
         ]
         if d.truncation_length is not None:
             facts.append(f"infinity placed at {d.truncation_length:.4g}")
+        if d.condition is not None:
+            facts.append(f"stability constant {d.condition:.2g}")
         facts.append(f"{d.seconds:.3g} s")
         lines.append("  " + ", ".join(facts))
         if len(d.attempts) > 1:
-            tried = "; ".join(
-                f"{a.method} on [{a.domain[0]:.4g}, {a.domain[1]:.4g}]: {a.status}" for a in d.attempts
-            )
+            tried = "; ".join(f"{a.method} on [{a.domain[0]:.4g}, {a.domain[1]:.4g}]: {a.status}" for a in d.attempts)
             lines.append(f"  tried: {tried}")
         return "\n".join(lines)
 
@@ -196,100 +290,113 @@ class Solution:
         return f"<Solution {self.status.word} by {self.method}: {self.message}>"
 
     # -- internals ----------------------------------------------------------------------
-    def _states(self, points: np.ndarray) -> np.ndarray:
-        return self._spline(np.asarray(points, float))
-
-    def _slopes_at_ends(self) -> tuple[np.ndarray, np.ndarray]:
-        c = self._compiled
-        with np.errstate(all="ignore"):
-            f = c.slopes(self.x[[0, -1]], self.y[:, [0, -1]], self._p, self._k, physical=True)
-        return f[:, 0], f[:, 1]
-
     def _output(self, text: str) -> tuple[float, float]:
-        value = float(self.evaluate(text))
+        quantity = self.prepared.quantity(text)
+        value = float(_evaluate(self.interpolant, self.prepared, quantity, text, None))
         error = 0.0 if self._reference is not None else math.nan
         for other in (self._reference, self._previous):
             if other is None:
                 continue
             try:
-                error += abs(value - float(self._evaluate_on(*other, text, None)))
+                error += abs(value - float(_evaluate(other, self.prepared, quantity, text, None)))
             except BvpkitError:
                 error = math.nan  # e.g. a point outside the shorter truncated domain
         return value, error
 
-    def _internal(self, expression: str) -> tuple[Any, list, bool]:
-        """The expression compiled over ``(x, y, p, k, t)`` with ``t`` its point values, the
-        point values still to fill in, and whether it depends on the running point."""
-        prepared = self.problem.__dict__.get("_quantities")
-        if prepared and expression in prepared:
-            return prepared[expression]
-        return compile_quantity(self.problem, self._compiled, expression)
 
-    def _evaluate_on(self, x, y, p, expression: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
-        f, placeholders, running = self._internal(expression)
-        system, k = self._compiled.layout, self._k
-        spline = self._spline if x is self.x else hermite(self._compiled, x, y, p, k, physical=True)
-        values = np.empty(len(placeholders))
-        for i, (point, name, order) in enumerate(placeholders):
-            where = self._point(point, x, p)
-            state = spline(np.array([where]))
-            if order < self.problem.orders[name]:
-                v = state[system.index(name, order), 0]
-            else:
-                with np.errstate(all="ignore"):
-                    v = self._compiled.slopes(np.array([where]), state, p, k, physical=True)[
-                        system.index(name, order - 1), 0
-                    ]
-            values[i] = v
-        if at is None:
-            if running:
-                raise BvpkitError(
-                    f"'{expression}' depends on the running point {self.problem.independent}; "
-                    "pass at=[...] or evaluate at a point, e.g. f(0)"
-                )
-            points = np.array([x[0]])
-        else:
-            points = np.atleast_1d(np.asarray(at, dtype=float))
-            if points.ndim != 1:
-                raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
-            self._check_inside(points, x)
-        with np.errstate(all="ignore"):
-            result = f(points, spline(points) if running else np.zeros((system.n, points.size)), p, k, values)[0]
-        result = np.broadcast_to(result, points.shape).astype(float)
-        if at is None:
-            return float(result[0])
-        return result if np.ndim(at) else float(result[0])
+def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
+    """A compiled quantity on a solution (see bvpkit.quantity)."""
+    from .guess import _function
 
-    def _point(self, point: Any, x: np.ndarray, p: np.ndarray) -> float:
-        """Where a point value is taken: a number, or a compiled function of ``(x, p, k)``."""
-        if not isinstance(point, float):
-            with np.errstate(all="ignore"):
-                point = float(point(np.zeros(1), p, self._k)[0, 0])
-        if math.isinf(point):
-            return float(x[-1] if point > 0 else x[0])
-        self._check_inside(np.array([point]), x)
-        return point
-
-    def _check_inside(self, points: np.ndarray, x: np.ndarray) -> None:
-        slack = 1e-12 * max(1.0, abs(x[0]), abs(x[-1]))
-        if not np.isfinite(points).all() or points.min() < x[0] - slack or points.max() > x[-1] + slack:
-            bad = points[~((points >= x[0] - slack) & (points <= x[-1] + slack))]
-            shown = bad[0] if bad.size else float("nan")
-            note = " (the infinite domain was truncated there)" if any(self.problem.infinite) else ""
+    values = [_point_value(view, prepared, point) for point in quantity.points]
+    values += [_integral(view, prepared, q)[0] for q in quantity.integrals]
+    if at is None:
+        if quantity.running:
             raise BvpkitError(
-                f"{self.problem.independent} = {shown:g} is outside the solved interval "
-                f"[{x[0]:.6g}, {x[-1]:.6g}]{note}"
+                f"'{text}' depends on the running point {prepared.independent}; pass at=[...] or evaluate "
+                "at a point, e.g. f(0)"
             )
+        points = np.array([view.ends[0]])
+    else:
+        points = np.atleast_1d(np.asarray(at, dtype=float))
+        if points.ndim != 1:
+            raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
+        _check_inside(view, prepared, points)
+    r = view.region(points)
+    result = _running(view, quantity, points, r, np.array(values, dtype=float), _function)
+    if at is None:
+        return float(result[0])
+    return result if np.ndim(at) else float(result[0])
 
-    def _integral(self, x, y, p, expression: str) -> tuple[float, float]:  # noqa: ANN001
-        nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
-        h = np.diff(x)
-        mid = 0.5 * (x[1:] + x[:-1])
-        points = (mid[:, None] + 0.5 * h[:, None] * nodes[None, :]).ravel()
-        values = np.asarray(self._evaluate_on(x, y, p, expression, points))
-        total = float(np.sum(values.reshape(h.size, -1) * (0.5 * h[:, None] * weights[None, :])))
-        tail = float(self._evaluate_on(x, y, p, expression, [x[-1]])[0])
-        return total, tail
+
+def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, values: np.ndarray,  # noqa: ANN001
+             function_of) -> np.ndarray:  # noqa: ANN001
+    layout = view.layout
+    f = function_of(quantity.source)
+    if quantity.running:
+        states = view(points, regions=r)
+        slopes = view.slopes(points, regions=r)
+        highest = [slopes[layout.index(name, order - 1)] for name, order in layout.functions]
+        inputs = np.vstack([states[: layout.users], *highest]) if highest else states[: layout.users]
+    else:
+        inputs = np.zeros((layout.users + len(layout.functions), points.size))
+    with np.errstate(all="ignore"):
+        result = f(points, inputs, view.p, view.k, values)[0]
+    return np.broadcast_to(result, points.shape).astype(float)
+
+
+def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
+    """The value of one point-value placeholder ``(point, state, order, side)``."""
+    from .guess import _function
+
+    where, state, order, side = point
+    if isinstance(where, str):
+        with np.errstate(all="ignore"):
+            where = float(_function(where)(np.zeros(1), view.p, view.k)[0, 0])
+    a, b = view.ends
+    if math.isinf(where):
+        where = b if where > 0 else a
+    _check_inside(view, prepared, np.array([where]))
+    side = side or (1 if where <= a else -1)
+    highest = view.layout.states[state][1] != order
+    row = (view.slopes if highest else view)(np.array([where]), side=side)
+    return float(row[state, 0])
+
+
+def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # noqa: ANN001
+    """The integral of a quantity over every region, and the integrand at the far end."""
+    from .guess import _function
+
+    nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
+    values = np.array([_point_value(view, prepared, point) for point in quantity.points]
+                      + [_integral(view, prepared, q)[0] for q in quantity.integrals], dtype=float)
+    total = 0.0
+    t = view.t
+    h = np.diff(t)
+    mid = 0.5 * (t[1:] + t[:-1])
+    s = (mid[:, None] + 0.5 * h[:, None] * nodes[None, :]).ravel()
+    w = (0.5 * h[:, None] * weights[None, :]).ravel()
+    for region in range(view.layout.regions):
+        c, scale = view.maps[region]
+        x = c + scale * s
+        r = np.full(x.size, region)
+        total += float(np.sum(_running(view, quantity, x, r, values, _function) * w) * scale)
+    b = view.ends[1]
+    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[0])
+    return total, tail
+
+
+def _check_inside(view: Interpolant, prepared, points: np.ndarray) -> None:  # noqa: ANN001
+    if view.inside(points):
+        return
+    a, b = view.ends
+    slack = 1e-12 * max(1.0, abs(a), abs(b))
+    bad = points[~((points >= a - slack) & (points <= b + slack))]
+    shown = bad[0] if bad.size else float("nan")
+    note = " (the infinite domain was truncated there)" if any(prepared.infinite) else ""
+    raise BvpkitError(
+        f"{prepared.independent} = {shown:g} is outside the solved interval [{a:.6g}, {b:.6g}]{note}"
+    )
 
 
 def _s(count: int) -> str:
@@ -300,66 +407,3 @@ def _fmt_err(value: float | None) -> str:
     if value is None or not math.isfinite(value):
         return "not estimated"
     return f"{value:.2g}"
-
-
-def _json_ready(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _json_ready(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_json_ready(v) for v in value]
-    if isinstance(value, float | np.floating):
-        return float(value) if math.isfinite(value) else None
-    if isinstance(value, np.integer):
-        return int(value)
-    return value
-
-
-def remember_quantity(problem, text: str, function: Any, points: list, running: bool) -> None:  # noqa: ANN001
-    """Install a compiled expression kept by ``prepared.py`` (no parsing, no SymPy)."""
-    problem.__dict__.setdefault("_quantities", {})[text] = (function, points, running)
-
-
-def compile_quantity(problem, compiled: CompiledSystem, expression: str) -> tuple[Any, list, bool]:  # noqa: ANN001
-    """An expression of the solution compiled over ``(x, y, p, k, t)`` with ``t`` its point
-    values; the point values (numbers, or compiled functions of ``(x, p, k)``); whether it
-    depends on the running point. Cached per system and text."""
-    key = (compiled.layout.key, problem.independent, expression)
-    if key in _QUANTITIES:
-        return _QUANTITIES[key]
-    from .codegen import compile_expressions
-    from .reduce import X
-
-    system = compiled.system if compiled.system is not None else problem.system
-    e = problem.parse_quantity(expression, where=f"expression '{expression}'")
-    points = problem.point_values(e)
-    replace: dict[sp.Basic, sp.Basic] = {problem.x: X}
-    replace.update({sp.Symbol(c): system.k[i] for i, c in enumerate(system.constants)})
-    replace.update({sp.Symbol(q): system.p[i] for i, q in enumerate(system.parameters)})
-    placeholders, symbols = [], []
-    for i, (node, name, order, point) in enumerate(points):
-        symbol = sp.Symbol(f"_t_point{i}")
-        replace[node] = symbol
-        point = point.xreplace(replace)
-        if point.is_Number or point in (sp.oo, -sp.oo):
-            placeholders.append((float(point), name, order))
-        else:  # a point that depends on constants or parameters: compiled as a function of them
-            where = compile_expressions([point], [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
-            placeholders.append((where, name, order))
-        symbols.append(symbol)
-    for name in problem.unknowns:
-        f = sp.Function(name)(problem.x)
-        for j in range(problem.orders[name]):
-            node = f if j == 0 else sp.Derivative(f, (problem.x, j))
-            replace[node] = system.y[system.index(name, j)]
-        replace[sp.Derivative(f, (problem.x, problem.orders[name]))] = system.highest(name)
-    e = e.xreplace(replace)
-    running = bool(e.free_symbols & ({X} | set(system.y)))
-    function = compile_expressions(
-        [e], [("x", [X]), ("y", system.y), ("p", system.p), ("k", system.k), ("t", symbols)], mesh="y"
-    )
-    result = (function, placeholders, running)
-    if len(_QUANTITIES) > _MAX_CACHED:
-        _QUANTITIES.clear()
-    _QUANTITIES[key] = result
-    return result
-

@@ -36,48 +36,63 @@ STIFF = 500.0  # max |Re eig J| * length: explicit integrators need ~this many s
 STEEP_GROWTH = 1e8  # single shooting loses ~log10(growth) digits and overflows soon after
 
 
+def _ordered(trial: Trial) -> list[type]:
+    """The registered methods that can take this problem, in the order of their ranks."""
+    return sorted((m for m in methods.REGISTRY.values() if m.takes_singular_term or not trial.compiled.layout.singular),
+                  key=lambda m: m.rank)
+
+
+def _first(candidates: list[type], strength: str) -> type:
+    for m in candidates:
+        if strength in m.strengths:
+            return m
+    return candidates[0]
+
+
 def plan(trial: Trial, method: str = "auto") -> Plan:
     """Order the methods for ``trial``; a named method is tried alone.
 
-    With ``"auto"`` the order comes from a survey of the linearised problem along the guess
-    (:func:`bvpkit.diagnostics.survey`): stiff problems (layers) go to collocation, whose
-    mesh follows them; problems whose IVP sensitivities grow steeply go to multiple
-    shooting; everything else goes to collocation, which measured fastest on the small
-    smooth problems of the benchmarks (``benchmarks/RESULTS.md``). The other methods follow
-    as fallbacks, single shooting last.
+    With ``"auto"`` the order comes from what the methods declare (``strengths``,
+    ``takes_singular_term``, ``rank``) and a survey of the linearised problem along the guess
+    (:func:`bvpkit.diagnostics.survey`): stiff problems (layers) go to a method strong on
+    layers, whose mesh follows them; problems whose IVP sensitivities grow steeply go to one
+    that splits growth; everything else to the default, which measured fastest on the small
+    smooth problems of the benchmarks (``benchmarks/``). The other methods follow as
+    fallbacks, in the order of their ranks.
     """
     if method != "auto":
         methods.get(method)  # validates the name
         return Plan([(method, "asked for by name")])
-    if trial.singular is not None:
-        return Plan([("collocation", "the equations hold a term S y/(x - a) singular at the left end, "
-                      "which collocation treats exactly (shooting would need a series start)")])
-    facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
-    if not math.isfinite(facts.stiffness):
-        first, reason = "collocation", "the Jacobian is not finite along the guess; collocation is the most forgiving start"
-    elif facts.stiffness >= STIFF:
-        first, reason = "collocation", (
-            f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the solution "
-            "has layers that collocation's adaptive mesh follows"
-        )
-    elif facts.growth > STEEP_GROWTH:
-        first, reason = "multiple_shooting", (
-            f"sensitivity grows by {facts.growth:.0e} across the domain; multiple shooting splits that growth "
-            "into segments"
-        )
+    candidates = _ordered(trial)
+    if trial.compiled.layout.singular:
+        first = _first(candidates, "default")
+        reason = ("the equations hold a term S y/(x - a) singular at the left end, which "
+                  f"{first.name.replace('_', ' ')} treats exactly (the methods without it are left out)")
     else:
-        first, reason = "collocation", (
-            f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length {facts.stiffness:.2g}); "
-            "collocation is the fastest robust choice at this size"
-        )
-    steps = [(first, reason)]
-    for name in ("collocation", "multiple_shooting", "single_shooting", *methods.REGISTRY):
-        if name in methods.REGISTRY and name not in [s[0] for s in steps]:
-            steps.append((name, f"fallback after {steps[-1][0].replace('_', ' ')}"))
+        facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
+        if not math.isfinite(facts.stiffness):
+            first = _first(candidates, "default")
+            reason = "the Jacobian is not finite along the guess; the most forgiving start"
+        elif facts.stiffness >= STIFF:
+            first = _first(candidates, "layers")
+            reason = (f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the solution "
+                      "has layers that an adaptive mesh follows")
+        elif facts.growth > STEEP_GROWTH:
+            first = _first(candidates, "growth")
+            reason = (f"sensitivity grows by {facts.growth:.0e} across the domain; splitting the domain into "
+                      "segments splits that growth")
+        else:
+            first = _first(candidates, "default")
+            reason = (f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length "
+                      f"{facts.stiffness:.2g}); the fastest robust choice at this size")
+    steps = [(first.name, reason)]
+    for m in candidates:
+        if m.name != first.name:
+            steps.append((m.name, f"fallback after {steps[-1][0].replace('_', ' ')}"))
     return Plan(steps)
 
 
-def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str]:
+def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 1.0)) -> tuple[Outcome, list[Attempt], str]:
     """Try the methods of the plan in order until one succeeds.
 
     Returns the successful outcome (or the last failure, when all fail), the attempts made
@@ -87,10 +102,9 @@ def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str
     attempts: list[Attempt] = []
     outcome: Outcome | None = None
     converged: list[tuple[str, Outcome]] = []  # converged but inaccurate: witnesses against a later claim
-    domain = (float(trial.x[0]), float(trial.x[-1]))
     for name, reason in chosen.steps:
         start = time.perf_counter()
-        result = methods.get(name).solve(dataclasses.replace(trial))
+        result = methods.get(name).solve(dataclasses.replace(trial))  # each method its own copy of the trial
         attempts.append(
             Attempt(
                 method=name,
@@ -104,10 +118,10 @@ def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str
                 error_estimate=result.error_estimate,
             )
         )
+        result.method = name
         if result.ok:
             conflict = _disagreement(result, converged, trial)
             if conflict is None:
-                result.method = name  # type: ignore[attr-defined]
                 return result, attempts, chosen.selection
             result.status = Status.ERROR_TOO_LARGE
             result.message = f"{result.message}, but {conflict}"
@@ -116,7 +130,6 @@ def run(trial: Trial, method: str = "auto") -> tuple[Outcome, list[Attempt], str
             converged.append((name, result))
         if outcome is None or _better(result, outcome):
             outcome = result
-            outcome.method = name  # type: ignore[attr-defined]
     assert outcome is not None
     return outcome, attempts, chosen.selection
 

@@ -4,13 +4,19 @@ Contract of a method (subclass :class:`Method`):
 
 1. ``name`` is the registry name (also the ``--method`` word); ``summary`` is one line for
    docs and ``--help``.
-2. ``_solve(trial)`` solves the problem on the finite interval ``[trial.x[0], trial.x[-1]]``
-   starting from ``trial.y`` / ``trial.p`` and returns an :class:`Outcome`. It never raises
-   for a solve that fails; it sets ``status`` and ``message``. It never prints.
+2. ``_solve(trial)`` solves the standard form (``y' = F(t, y, p, k)``, ``G(y(0), y(1), p, k)
+   = 0`` on ``[0, 1]``) starting from ``trial.y`` / ``trial.p`` and returns an
+   :class:`Outcome`. It never raises for a solve that fails; it sets ``status`` and
+   ``message`` (places in the user's variable through ``trial.place``). It never prints.
+   It keeps what its own ``_refine`` needs in ``Outcome.workspace``, never in new attributes.
 3. ``_refine(trial, outcome)`` returns a more accurate solution of the same problem (finer
    mesh, tighter integrator tolerance) started from ``outcome``; the base class compares the
    two to estimate the error of ``outcome``, and tightens the tolerance when the estimate
    misses it. A method need not know how the estimate is used.
+
+4. Class attributes declare what the method takes and is good at (``takes_singular_term``,
+   ``strengths``, ``rank``); the selector filters and orders on them, and no module outside
+   ``methods/`` tests a method's name.
 
 The base class does the shared work around these hooks: floating-point guards, the check
 that a result is finite, the error estimate and its tightening loop.
@@ -20,6 +26,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from collections.abc import Callable
 from typing import ClassVar
 
 import numpy as np
@@ -37,13 +44,14 @@ _SMALLEST_TOL = 1e-13  # below this, double precision round-off dominates any me
 
 @dataclass
 class Trial:
-    """Input of one method call.
+    """Input of one method call: the standard form on ``[0, 1]`` and where to start.
 
     Attributes
     ----------
     compiled : CompiledSystem
+        The standard form's callables (a singular term and its limit are inside ``rhs``).
     x : ndarray, shape (m,)
-        Initial mesh on a finite interval (its ends are the ends of the problem).
+        Initial mesh of the standard variable, from 0 to 1.
     y : ndarray, shape (n, m)
         Guess of the states on the mesh.
     p : ndarray, shape (n_p,)
@@ -56,8 +64,9 @@ class Trial:
         Mesh limit.
     verify : bool
         Estimate the error (costs a second, refined solve).
-    singular : ndarray or None, shape (n, n)
-        The matrix ``S`` of a term ``S y / (x - a)`` singular at the left end.
+    place : callable ``(float) -> str``
+        How a point of the standard variable reads in the user's variable, for messages
+        (``"x = 0.53"``).
     """
 
     compiled: CompiledSystem
@@ -68,12 +77,32 @@ class Trial:
     tol: float
     max_nodes: int = 20_000
     verify: bool = True
-    singular: np.ndarray | None = None
+    place: Callable[[float], str] = lambda t: f"t = {t:.6g}"  # noqa: E731
 
 
 @dataclass
 class Outcome:
-    """Result of one method call (the raw material of a ``Solution``)."""
+    """Result of one method call (the raw material of a ``Solution``), in the standard form.
+
+    Attributes
+    ----------
+    status : Status
+    message : str
+    x, y, p : ndarray
+        Mesh, states and parameters (the guess when the method failed early).
+    iterations : int
+    error_estimate : float or None
+        Estimated max relative error of the states and parameters.
+    parameter_errors : ndarray or None
+    condition : float or None
+        The stability constant, when the method computed it on the way.
+    reference : Outcome or None
+        The more accurate solve the estimate came from.
+    method : str
+        Registry name of the method that produced it (set by the selector).
+    workspace : object
+        The method's own state, read by its own ``_refine`` only (a typed record per method).
+    """
 
     status: Status
     message: str
@@ -84,12 +113,18 @@ class Outcome:
     error_estimate: float | None = None
     parameter_errors: np.ndarray | None = None
     condition: float | None = None
-    reference: Outcome | None = None  # the refined solve the estimate came from
-    workspace: object = None  # what a method keeps from its solve for its own _refine
+    reference: Outcome | None = None
+    method: str = ""
+    workspace: object = None
 
     @property
     def ok(self) -> bool:
         return self.status is Status.SOLVED
+
+    @property
+    def converged(self) -> bool:
+        """Newton converged (the estimate may still miss the tolerance)."""
+        return self.status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and bool(np.isfinite(self.y).all())
 
 
 class Method:
@@ -97,6 +132,14 @@ class Method:
 
     name: ClassVar[str] = ""
     summary: ClassVar[str] = ""
+    #: Place in the selector's order of fallbacks (lower first).
+    rank: ClassVar[int] = 100
+    #: What the method is good at, read by the selector: "layers" (an adaptive mesh follows
+    #: thin layers and fronts), "growth" (splits steep growth of the sensitivities),
+    #: "default" (the first choice for a smooth problem).
+    strengths: ClassVar[frozenset[str]] = frozenset()
+    #: Whether the method takes a term ``S y / t`` singular at ``t = 0`` (the standard form's).
+    takes_singular_term: ClassVar[bool] = False
 
     def solve(self, trial: Trial) -> Outcome:
         """Solve, check the result is finite, and (if asked) estimate and control the error.
@@ -114,12 +157,12 @@ class Method:
 
     def _solve_and_verify(self, trial: Trial) -> Outcome:
         with np.errstate(all="ignore"):
-            outcome = self._checked(self._solve(trial))
+            outcome = self._checked(self._solve(trial), trial)
             if not (outcome.ok and trial.verify):
                 return outcome
             tol = trial.tol
             for _ in range(_TIGHTEN_ROUNDS + 1):
-                reference = self._checked(self._refine(dataclasses.replace(trial, tol=tol), outcome))
+                reference = self._checked(self._refine(dataclasses.replace(trial, tol=tol), outcome), trial)
                 if not reference.ok:
                     # no estimate, no claim of success
                     outcome.error_estimate = np.inf
@@ -139,7 +182,7 @@ class Method:
                     break
                 tol = max(_SMALLEST_TOL, tol * min(0.1, _TIGHTEN_SAFETY * trial.tol / estimate))
                 retry = self._checked(
-                    self._solve(dataclasses.replace(trial, tol=tol, x=outcome.x, y=outcome.y, p=outcome.p))
+                    self._solve(dataclasses.replace(trial, tol=tol, x=outcome.x, y=outcome.y, p=outcome.p)), trial
                 )
                 if not retry.ok:
                     break
@@ -153,10 +196,10 @@ class Method:
                 )
             return outcome
 
-    def _checked(self, outcome: Outcome) -> Outcome:
+    def _checked(self, outcome: Outcome, trial: Trial) -> Outcome:
         if outcome.ok and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
             bad = np.argwhere(~np.isfinite(outcome.y))
-            where = f" at x = {outcome.x[bad[0][1]]:.6g}" if len(bad) else " in the parameters"
+            where = f" at {trial.place(outcome.x[bad[0][1]])}" if len(bad) else " in the parameters"
             outcome.status = Status.NON_FINITE
             outcome.message = f"the solution holds NaN or inf{where}"
         return outcome

@@ -7,16 +7,18 @@ bvpkit's own equations (``discrete.py``): the exact Jacobians ``df/dy``, ``df/dp
 codegen, the blocks formed with batched matrix products, and a banded LU when the
 boundary conditions are separated. The Newton iteration, its Armijo line search, the reuse
 of the Jacobian after full steps and the stopping rule follow ``solve_bvp``, so a
-tolerance means the same here as there. Problems with a term singular at the left end go
-through ``solve_bvp`` itself (with the exact Jacobians), which treats that term.
+tolerance means the same here as there. A term ``S y / t`` singular at ``t = 0`` is treated
+as ``solve_bvp`` treats it: it is part of the compiled right-hand side, with its limit
+``(I - S)^+ F`` at ``t = 0``, and the start is projected onto ``S y(0) = 0``.
 
 Error estimate: deferred correction (:func:`_defect_correction`), one solve with the last
-Newton matrix; with a singular term, a re-solve on the halved mesh.
+Newton matrix.
 """
 
 from __future__ import annotations
 
 import dataclasses
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -34,12 +36,22 @@ _H = np.array([2 * _T**3 - 3 * _T**2 + 1, _T**3 - 2 * _T**2 + _T, -2 * _T**3 + 3
 _DH = np.array([6 * _T**2 - 6 * _T, 3 * _T**2 - 4 * _T + 1, -6 * _T**2 + 6 * _T, 3 * _T**2 - 2 * _T])
 
 
-def _trouble(x: np.ndarray, rms: np.ndarray | None) -> str:
+def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN001
     """Where the residual is worst, as words (a thin layer or steep front shows up there)."""
     if rms is None or rms.size != x.size - 1 or not np.any(np.isfinite(rms)):
         return ""
     i = int(np.nanargmax(rms))
-    return f" the residual is largest near x = {0.5 * (x[i] + x[i + 1]):.4g} (a thin layer or steep front?);"
+    return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
+
+
+@dataclass
+class _State:
+    """What a converged collocation solve keeps for its error estimate: the equations on the
+    final mesh, their residual pieces and the factored Newton matrix."""
+
+    equations: CollocationEquations
+    parts: tuple
+    lu: object
 
 
 def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):  # noqa: ANN202
@@ -180,30 +192,34 @@ def check_by_defect(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np
 class Collocation(Method):
     name = "collocation"
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
+    rank = 0
+    strengths = frozenset({"layers", "default"})
+    takes_singular_term = True
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
-        x, y = np.asarray(trial.x, float), np.asarray(trial.y, float)
+        x, y = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
         p = np.asarray(trial.p, float)
         if x.size < 2 or not np.all(np.diff(x) > 0):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x, y, p)
         if not (np.isfinite(y).all() and np.isfinite(p).all()):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
+        S = c.singular(p, k)
+        if S is not None:  # a singular term needs S y(0) = 0 (solve_bvp's projection)
+            y[:, 0] = (np.eye(S.shape[0]) - np.linalg.pinv(S) @ S) @ y[:, 0]
         f0 = c.rhs(x, y, p, k)
         if not np.isfinite(f0).all():
             i, j = np.argwhere(~np.isfinite(f0))[0]
-            names = c.layout.state_names
+            names = c.layout.row_names
             values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
             return Outcome(
                 Status.NON_FINITE,
-                f"the equations give NaN or inf for the derivative of {names[i]} at x = {x[j]:.6g} with the "
+                f"the equations give NaN or inf for the derivative of {names[i]} at {trial.place(x[j])} with the "
                 f"guess ({values}): {Status.NON_FINITE.hint}",
                 x,
                 y,
                 p,
             )
-        if trial.singular is not None:
-            return self._scipy(trial, x, y, p)
         return self._lobatto(trial, x, y, p)
 
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
@@ -243,7 +259,7 @@ class Collocation(Method):
                 break
         outcome = self._outcome(trial, code, x, y, p, iterations, rms)
         if code == 0:
-            outcome.workspace = (eq, parts, lu)  # for the error estimate
+            outcome.workspace = _State(eq, parts, lu)  # for the error estimate
         return outcome
 
     def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms) -> Outcome:  # noqa: ANN001
@@ -252,7 +268,7 @@ class Collocation(Method):
             message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} on {x.size} nodes"
         elif status is Status.MESH_LIMIT:
             message = (
-                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms)} raise "
+                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms, trial.place)} raise "
                 "max_nodes, loosen tol or give a better guess"
             )
         elif status is Status.SINGULAR:
@@ -261,71 +277,23 @@ class Collocation(Method):
             message = "Newton's method did not meet the boundary-condition tolerance; " + status.hint
         return Outcome(status, message, x, y, p, iterations=int(iterations))
 
-    def _scipy(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
-        """SciPy's ``solve_bvp`` with the exact Jacobians (it treats a singular term ``S y / (x - a)``)."""
-        from scipy.integrate import solve_bvp
-
-        c, k = trial.compiled, trial.k
-        n_p = c.n_parameters
-        empty = np.zeros(0)
-        if n_p:
-
-            def fun(x, y, p):
-                return c.rhs(x, y, p, k)
-
-            def fun_jac(x, y, p):
-                return c.jac(x, y, p, k), c.pjac(x, y, p, k)
-
-            def bc(ya, yb, p):
-                return c.bc(ya, yb, p, k)
-
-            def bc_jac(ya, yb, p):
-                return c.bc_jac(ya, yb, p, k)
-
-        else:
-
-            def fun(x, y):
-                return c.rhs(x, y, empty, k)
-
-            def fun_jac(x, y):
-                return c.jac(x, y, empty, k)
-
-            def bc(ya, yb):
-                return c.bc(ya, yb, empty, k)
-
-            def bc_jac(ya, yb):
-                return c.bc_jac(ya, yb, empty, k)[:2]
-
-        res = solve_bvp(fun, bc, x, y, p=p if n_p else None, S=trial.singular, fun_jac=fun_jac, bc_jac=bc_jac,
-                        tol=max(trial.tol, 1e-13), max_nodes=trial.max_nodes, verbose=0)
-        p = np.asarray(res.p, float) if n_p else empty
-        return self._outcome(trial, res.status, res.x, res.y, p, res.niter, res.rms_residuals)
-
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
-        """A more accurate solution for the error estimate.
-
-        Normally the deferred correction of the solution (:func:`_defect_correction`: one
-        solve with the last Newton matrix); the stability constant comes from the same LU,
-        rows in derivative units. Without that workspace (a singular term, or an outcome
-        from elsewhere), the solution on the halved mesh (:meth:`_halved`).
-        """
-        workspace = getattr(outcome, "workspace", None)
-        if workspace is None or trial.singular is not None or workspace[0].m != outcome.x.size:
+        """A more accurate solution for the error estimate: the deferred correction of the
+        solution (:func:`_defect_correction`: one solve with the last Newton matrix); the
+        stability constant comes from the same LU, rows in derivative units. An outcome
+        without that workspace (from elsewhere) is re-solved on the halved mesh."""
+        state = outcome.workspace
+        if not isinstance(state, _State) or state.equations.m != outcome.x.size:
             return self._halved(trial, outcome)
-        eq, parts, lu = workspace
-        x, y, p = _defect_correction(eq, outcome.y, outcome.p, parts, lu)
+        x, y, p = _defect_correction(state.equations, outcome.y, outcome.p, state.parts, state.lu)
         result = Outcome(Status.SOLVED, "deferred correction", x, y, p, iterations=0)
-        result.condition = stability_constant(lu, lu.size, eq.row_scale())
+        result.condition = stability_constant(state.lu, state.lu.size, state.equations.row_scale())
         return result
 
     def _halved(self, trial: Trial, outcome: Outcome) -> Outcome:
-        """The solution on the halved mesh by SciPy's ``solve_bvp``, started from ``outcome``
-        (for a singular term, which ``solve_bvp`` treats, and for an outcome that does not
-        come with the workspace of this solver)."""
+        """The solution on the halved mesh, started from ``outcome``."""
         x = outcome.x
         fine = np.unique(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
-        spacing = np.diff(fine) > 1e-13 * max(1.0, float(np.abs(fine).max()))
-        fine = fine[np.concatenate([[True], spacing])]
         y = hermite(trial.compiled, x, outcome.y, outcome.p, trial.k)(fine)
         refined = dataclasses.replace(trial, x=fine, y=y, p=outcome.p, max_nodes=max(trial.max_nodes, 2 * fine.size))
-        return self._scipy(refined, fine, y, np.asarray(outcome.p, float))
+        return self._lobatto(refined, fine, y, np.asarray(outcome.p, float))

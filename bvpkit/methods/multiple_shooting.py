@@ -13,4 +13,6 @@ from .shooting import Shooting
 class MultipleShooting(Shooting):
     name = "multiple_shooting"
     summary = "segments placed by sensitivity growth, one vectorised IVP call, sparse block Newton"
+    rank = 1
+    strengths = frozenset({"growth"})
     fixed_segments = None

@@ -58,6 +58,15 @@ class _BlowUp(Exception):
 
 
 @dataclasses.dataclass
+class _State:
+    """What a converged shooting solve keeps for its refined re-solve: its segments' nodes and
+    whether it integrated with the implicit method."""
+
+    nodes: np.ndarray
+    stiff: bool
+
+
+@dataclasses.dataclass
 class _Flow:
     """Result of integrating every segment from given node states."""
 
@@ -70,6 +79,8 @@ class _Flow:
 
 class Shooting(Method):
     """Shared engine; subclasses fix how segments are chosen."""
+
+    takes_singular_term = False  # the sensitivities of a start off S y(0) = 0 blow up at t = 0
 
     fixed_segments: int | None = None  # 1 for single shooting
 
@@ -111,7 +122,7 @@ class Shooting(Method):
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x, y, p = np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float)
-        if trial.singular is not None:
+        if c.layout.singular:
             return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end (a term like "
                            "(2/x) y'); shooting would need a series start there: use collocation", x, y, p)
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
@@ -130,12 +141,12 @@ class Shooting(Method):
         """The same solve with a 100 times tighter integrator, started from ``outcome``."""
         refined = dataclasses.replace(trial, tol=max(trial.tol * 1e-2, _IVP_FLOOR / _IVP_SHARE),
                                       x=outcome.x, y=outcome.y, p=outcome.p)
-        nodes = getattr(outcome, "nodes", None)
-        if nodes is None:
+        state = outcome.workspace
+        if not isinstance(state, _State):
             return self._solve(refined)
-        s = outcome.y[:, np.searchsorted(outcome.x, nodes[:-1])]
+        s = outcome.y[:, np.searchsorted(outcome.x, state.nodes[:-1])]
         rtol = max(_IVP_FLOOR, refined.tol * _IVP_SHARE)
-        return self._newton(refined, nodes, s, outcome.p, rtol, getattr(outcome, "stiff", False))
+        return self._newton(refined, state.nodes, s, outcome.p, rtol, state.stiff)
 
     # -- segments -----------------------------------------------------------------------
     def _nodes(self, x: np.ndarray, facts) -> np.ndarray:  # noqa: ANN001
@@ -429,13 +440,12 @@ class Shooting(Method):
         outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} with {segments} "
                           f"segment{'s' if segments > 1 else ''} ({'Radau' if stiff else 'DOP853'})",
                           x, y, p, iterations=iterations)
-        outcome.nodes = nodes  # type: ignore[attr-defined]
-        outcome.stiff = stiff  # type: ignore[attr-defined]
+        outcome.workspace = _State(nodes, stiff)
         return outcome
 
     def _blowup_message(self, trial: Trial, err: _BlowUp, when: str) -> str:
-        names = trial.compiled.layout.state_names
+        names = trial.compiled.layout.row_names
         which = f" in {names[err.state]}" if 0 <= err.state < len(names) else ""
         hint = ("; try method = \"multiple_shooting\" or \"collocation\""
                 if self.fixed_segments == 1 else "; try method = \"collocation\" or a better guess")
-        return f"integration failed {when}: {err.what}{which} near x = {err.x:.6g}{hint}"
+        return f"integration failed {when}: {err.what}{which} near {trial.place(err.x)}{hint}"

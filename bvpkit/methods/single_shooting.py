@@ -14,4 +14,6 @@ from .shooting import Shooting
 class SingleShooting(Shooting):
     name = "single_shooting"
     summary = "Newton on the initial states, exact variational sensitivities, DOP853 or Radau"
+    rank = 2
+    strengths = frozenset()
     fixed_segments = 1
