@@ -23,6 +23,7 @@ from .sweep import SweepResult, sweep  # eager: the function shares its name wit
 _LAZY = {
     "Attempt": "diagnostics", "Diagnostics": "diagnostics", "Branch": "continuation", "Fold": "continuation",
     "trace": "continuation", "solve": "driver", "Problem": "problem", "Solution": "solution",
+    "Interpolant": "solution", "Prepared": "prepared", "prepare": "prepared",
 }
 
 
@@ -55,6 +56,8 @@ __all__ = [
     "Branch",
     "Fold",
     "BvpkitError",
+    "Interpolant",
+    "Prepared",
     "Diagnostics",
     "ExpressionError",
     "MissingExtraError",
@@ -67,6 +70,7 @@ __all__ = [
     "SweepResult",
     "__version__",
     "load",
+    "prepare",
     "solve",
     "sweep",
     "trace",

@@ -13,6 +13,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from ._output import json_ready
 from .status import Status
 
 _EPILOG = "exit codes: " + ", ".join(f"{s.exit_code} {s.word}" for s in Status)
@@ -160,19 +161,20 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     from .driver import solve
     from .errors import OptionError
-    from .prepared import cached_problem, remember, spec_key
+    from .prepared import cached, prepare, remember, spec_key
 
     overrides = _constants(args.set)
     key = spec_key(args.spec, overrides)
-    problem = cached_problem(key)  # prepared by an earlier run: no parsing, no SymPy
-    fresh = problem is None
+    prepared = cached(key)  # prepared by an earlier run: no parsing, no SymPy
+    fresh = prepared is None
     if fresh:
         from . import load
 
         problem = load(args.spec)
         if overrides:
             problem = problem.with_constants(**overrides)
-    save = problem.settings.get("save", {})
+        prepared = prepare(problem)
+    save = prepared.settings.get("save", {})
     csv_path = _writable(args.csv)
     json_path = None
     if csv_path is None and save.get("solution_csv"):
@@ -182,14 +184,14 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     if args.max_nodes is not None and args.max_nodes < 10:
         raise OptionError("--max-nodes must be at least 10")
     solution = solve(
-        problem,
+        prepared,
         method=args.method,
         tol=args.tol,
         max_nodes=args.max_nodes,
         verify=False if args.no_verify else None,
     )
     if fresh:
-        remember(key, problem)
+        remember(key, prepared)
     if csv_path is not None:
         solution.to_csv(csv_path)
     report = solution.as_dict()
@@ -197,7 +199,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         json_path.write_text(json.dumps(report, indent=2) + "\n")
     if args.json:
         return solution.status.exit_code, report
-    title = f"{problem.title}\n" if problem.title else ""
+    title = f"{prepared.title}\n" if prepared.title else ""
     print(title + solution.summary())
     if csv_path is not None:
         print(f"mesh solution written to {csv_path}")
@@ -243,7 +245,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     if args.plot:
         branch.plot(args.plot)
     code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
-    if branch.message.startswith("interrupted"):
+    if branch.interrupted:
         code = Status.INTERRUPTED.exit_code
     if args.json:
         return code, branch.as_dict()
@@ -301,28 +303,77 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
 
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load
+    from .reduce import standard_form
 
     problem = load(args.spec)
-    system = problem.system
-    report = {
-        "success": True,
-        "status": "valid",
-        "message": "the spec describes a well-posed problem",
-        "unknowns": {name: problem.orders[name] for name in problem.unknowns},
-        "states": list(system.state_names),
-        "conditions": len(system.conditions),
-        "parameters": list(system.parameters),
-        "outputs": list(problem.outputs),
-    }
+    form = standard_form(problem)
+    report = check_report(problem, form)
+    for section in ("trace", "sweep"):
+        settings = problem.settings.get(section) or {}
+        names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
+        for name in names:
+            if name is not None and name not in problem.constants:
+                from .errors import OptionError, closest
+
+                raise OptionError(f"[{section}] names '{name}', which is not a constant of the problem"
+                                  f"{closest(name, problem.constants)}")
     if args.json:
         return 0, report
-    print(f"{args.spec}: valid")
-    print(f"  state layout: {system.layout()}")
-    print(f"  {len(system.conditions)} boundary conditions for total order "
-          f"{sum(problem.orders.values())} + {len(system.parameters)} unknown parameter(s)")
+    print(f"{args.spec}: the spec reads as a complete problem (not solved; `bvpkit solve` tells whether it has a "
+          "solution)")
+    print(f"  first-order form ({report['independent']} mapped onto t in [0, 1] in each region):")
+    for line in report["first_order"]:
+        print(f"    {line}")
+    print(f"  conditions: {report['count']}")
     if problem.outputs:
         print(f"  outputs: {', '.join(problem.outputs)}")
     return 0, None
+
+
+def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001
+    """What ``bvpkit check`` shows: the states, the first-order form and the count of conditions by part."""
+    import sympy as sp
+
+    names = {}
+    layout = form.layout()
+    for i, row in enumerate(layout.row_names):
+        names[form.y[i]] = sp.Symbol(row.replace(" in region ", "@"))
+    for i, q in enumerate(form.parameters):
+        names[form.p[i]] = sp.Symbol(q)
+    for i, c in enumerate(form.constants):
+        names[form.k[i]] = sp.Symbol(c if c != "_length" else "L_inf")
+    lines = []
+    for i, (row, rhs) in enumerate(zip(layout.row_names, form.rhs)):
+        text = sp.sstr(rhs.xreplace(names).xreplace({sp.Symbol("_x", real=True): sp.Symbol("t")}))
+        if form.singular is not None and any(entry != 0 for entry in form.singular[i]):
+            term = sp.sstr(sum(e * names[form.y[j]] for j, e in enumerate(form.singular[i]) if e != 0))
+            text += f" + ({term})/t"
+        lines.append(f"d({row})/dt = {text}")
+    kinds = {kind: form.condition_kinds.count(kind) for kind in ("given", "continuity", "added", "phase")}
+    parts = [f"{kinds['given']} given"]
+    if kinds["continuity"]:
+        parts.append(f"{kinds['continuity']} of continuity at interfaces, added by bvpkit")
+    if kinds["added"]:
+        parts.append(f"{kinds['added']} for added states (integrals, normalisation)")
+    if kinds["phase"]:
+        parts.append("1 phase condition")
+    count = (f"{len(form.conditions)} = {' + '.join(parts)}, for {len(form.rhs)} states"
+             f" + {len(form.parameters)} unknown parameter(s)")
+    return {
+        "success": True,
+        "status": "valid",
+        "message": "the spec reads as a complete problem (it was not solved)",
+        "independent": problem.independent,
+        "unknowns": {name: problem.orders[name] for name in problem.unknowns},
+        "states": list(layout.row_names),
+        "regions": layout.regions,
+        "first_order": lines,
+        "conditions": len(form.conditions),
+        "condition_parts": kinds,
+        "count": count,
+        "parameters": list(form.parameters),
+        "outputs": list(problem.outputs),
+    }
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -353,24 +404,11 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _fail(Status.INTERNAL, f"{type(err).__name__}: {err}", wants_json)
     if report is not None:
         try:
-            print(json.dumps(_json_ready(report), indent=2, allow_nan=False))
+            print(json.dumps(json_ready(report), indent=2, allow_nan=False))
         except BrokenPipeError:
             devnull = os.open(os.devnull, os.O_WRONLY)
             os.dup2(devnull, sys.stdout.fileno())
     return code
-
-
-def _json_ready(value: Any) -> Any:
-    """NaN and inf become null so the output is strict JSON."""
-    import math
-
-    if isinstance(value, dict):
-        return {str(k): _json_ready(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_json_ready(v) for v in value]
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 def _fail(status: Status, message: str, wants_json: bool) -> int:

@@ -108,6 +108,13 @@ class CompiledSystem:
         """``dY/dt`` (the right-hand side, singular term and its limit included)."""
         return self.rhs(x, y, p, k)
 
+    def row_scale(self, p: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """Per row of ``Y``, the length ``h_r`` of its region in the user's variable, shape (n, 1):
+        ``dY/dt`` is ``h_r`` times the derivative in the user's variable."""
+        with np.errstate(all="ignore"):
+            h = np.abs(np.asarray(self.maps(p, k), float)[:, 1])
+        return np.repeat(np.where(np.isfinite(h) & (h > 0), h, 1.0), self.layout.region_size)[:, None]
+
     def singular(self, p: np.ndarray, k: np.ndarray) -> np.ndarray | None:
         """The matrix ``S`` of the term ``S Y / t``, or None."""
         return self._matrices(p, k)[0] if self.layout.singular else None
@@ -217,6 +224,9 @@ class Freed:
 
     def maps(self, p, k):  # noqa: ANN001, ANN201
         return self.base.maps(*self._split(p, k))
+
+    def row_scale(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.row_scale(*self._split(p, k))
 
     def singular(self, p, k):  # noqa: ANN001, ANN201
         return self.base.singular(*self._split(p, k))

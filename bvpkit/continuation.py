@@ -30,14 +30,14 @@ from typing import Any
 
 import numpy as np
 
-from . import guess as _guess
-from .codegen import compile_system
+from ._output import json_ready, progress_bar, pyplot, write_columns
+from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations, node_weights
-from .diagnostics import Attempt, Diagnostics, hermite, residuals
-from .driver import DEFAULT_TOL, solve
-from ._output import progress_bar, pyplot, write_columns
+from .driver import DEFAULT_TOL, settle, solve
 from .errors import OptionError, closest
-from .problem import Problem
+from .guess import Start
+from .methods.base import Outcome
+from .prepared import Prepared, prepare
 from .solution import Solution
 from .status import Status
 
@@ -96,6 +96,7 @@ class Branch:
         self._values: list[float] = []
         self.folds: list[Fold] = []
         self.success = False
+        self.interrupted = False
         self.message = ""
         self.seconds = 0.0
 
@@ -105,7 +106,8 @@ class Branch:
 
     @property
     def outputs(self) -> dict[str, np.ndarray]:
-        return {o: np.array([s.evaluate(self._expressions[o]) for s in self.solutions]) for o in self._outputs}
+        return {o: np.array([s.evaluate(self._expressions[o], allow_failed=True) for s in self.solutions])
+                for o in self._outputs}
 
     def _add(self, value: float, solution: Solution, how: str) -> None:
         self._values.append(float(value))
@@ -121,9 +123,10 @@ class Branch:
 
     def as_dict(self) -> dict[str, Any]:
         outputs = self.outputs
-        return {
+        status = "solved" if self.success else "interrupted" if self.interrupted else "not_converged"
+        return json_ready({
             "success": self.success,
-            "status": "solved" if self.success else "not_converged",
+            "status": status,
             "message": self.message,
             "parameter_name": self.name,
             "parameter": self.parameter.tolist(),
@@ -134,7 +137,7 @@ class Branch:
                 for f in self.folds
             ],
             "seconds": self.seconds,
-        }
+        })
 
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
@@ -170,20 +173,21 @@ class Branch:
         plt.close(fig)
 
 
-def _resolve_outputs(problem: Problem, outputs: Sequence[str] | None) -> dict[str, str]:
+def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[str, str]:
     """Label -> expression: a name of the problem's outputs keeps its name as the label."""
     labels = {}
-    for text in outputs if outputs is not None else list(problem.outputs):
+    named = prepared.outputs
+    for text in outputs if outputs is not None else list(named):
         if not isinstance(text, str):
             raise OptionError(f"outputs must be expressions as text, got {text!r}")
-        labels[text] = problem.outputs.get(text, text)
+        labels[text] = named.get(text, text)
     for label, text in labels.items():
-        problem.parse_quantity(text, where=f"output '{label}'")
+        prepared.quantity(text)  # parsed and checked now, not at the first point
     return labels
 
 
 def trace(
-    problem: Problem,
+    problem: Any,
     name: str,
     *,
     start: float,
@@ -201,7 +205,8 @@ def trace(
 
     Parameters
     ----------
-    problem : Problem
+    problem : Problem or Prepared
+        Any problem ``solve`` takes (singular ends, free ends, infinite domains, regions...).
     name : str
         A constant of the problem.
     start, stop : float
@@ -230,11 +235,14 @@ def trace(
     Branch
         Ctrl-C keeps what was traced: the branch is returned with ``success`` False.
     """
-    if not isinstance(problem, Problem):
+    from .problem import Problem
+
+    if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"trace() takes a bvpkit.Problem, got {type(problem).__name__}")
-    if name not in problem.constants:
+    prepared = prepare(problem)
+    if name not in prepared.constants:
         raise OptionError(
-            f"'{name}' is not a constant of the problem{closest(name, problem.constants)}; "
+            f"'{name}' is not a constant of the problem{closest(name, prepared.constants)}; "
             "a traced parameter must be one of its constants"
         )
     for label, value in (("start", start), ("stop", stop)):
@@ -244,63 +252,74 @@ def trace(
         raise OptionError("start and stop must differ")
     if isinstance(max_points, bool) or not isinstance(max_points, int) or max_points < 2:
         raise OptionError(f"max_points must be a whole number of at least 2, got {max_points!r}")
-    tol = float(tol if tol is not None else problem.settings.get("tol", DEFAULT_TOL))
-    names = _resolve_outputs(problem, outputs)
-    tracer = _Tracer(problem, name, float(start), float(stop), names, tol, method, step, max_points, progress)
+    tol = float(tol if tol is not None else prepared.settings.get("tol", DEFAULT_TOL))
+    names = _resolve_outputs(prepared, outputs)
+    tracer = _Tracer(prepared, name, float(start), float(stop), names, tol, method, step, max_points, progress)
     tracer.fixed, tracer.verify = fixed_step, verify
     return tracer.run()
 
 
 class _Tracer:
-    def __init__(self, problem, name, start, stop, outputs, tol, method, step, max_points, progress):  # noqa: ANN001
-        self.problem, self.name, self.start, self.stop = problem, name, start, stop
+    def __init__(self, prepared, name, start, stop, outputs, tol, method, step, max_points, progress):  # noqa: ANN001
+        self.prepared, self.name, self.start, self.stop = prepared, name, start, stop
         self.tol, self.method, self.max_points = tol, method, max_points
         self.span = abs(stop - start)
         self.step = abs(step) if step else self.span / 50
-        self.min_step = self.span * 1e-7
         self.lo, self.hi = min(start, stop), max(start, stop)
         self.direction = 1.0 if stop > start else -1.0
         self.edge = stop  # the end of the range the natural steps head for
         self.branch = Branch(name, outputs)
-        self.compiled = compile_system(problem.system)
-        self.free = compile_system(problem._freed(name))
-        self.index = list(problem.system.constants).index(name)
-        self.k_free = np.array([problem.constants[c] for c in self.free.system.constants], float)
-        self.lam_at = list(self.free.system.parameters).index(name)
+        self.compiled = prepared.compiled
+        self.free = self.compiled.freeing(name)  # the constant solved for: the last parameter
+        self.index = self.compiled.layout.constants.index(name)
         self.bar = progress_bar(progress, max_points)
         self.fixed, self.verify = False, True
 
     # -- helpers ------------------------------------------------------------------------
     def _solve_at(self, value: float, guess: Any) -> Solution:
-        return solve(self.problem.with_constants(**{self.name: value}), tol=self.tol, method=self.method,
+        return solve(self.prepared.with_constants(**{self.name: value}), tol=self.tol, method=self.method,
                      guess=guess, verify=self.verify)
 
-    def _z(self, sol: Solution, value: float, x: np.ndarray | None = None) -> np.ndarray:
-        """The unknowns of the collocation equations: states on ``x`` (default its own mesh), then p."""
-        y = sol.y if x is None else sol._states(np.clip(x, sol.x[0], sol.x[-1]))
-        return np.concatenate([y.T.ravel(), np.insert(sol._p, self.lam_at, value)])
+    @staticmethod
+    def _view(sol: Solution):  # noqa: ANN205
+        return sol.interpolant
+
+    def _z(self, sol: Solution, value: float, t: np.ndarray | None = None) -> np.ndarray:
+        """The unknowns of the collocation equations: states on ``t`` (default its own mesh),
+        then the parameters, the traced constant last."""
+        view = sol.interpolant
+        y = view.y if t is None else hermite(self.compiled, view.t, view.y, view.p, view.k)(np.clip(t, 0.0, 1.0))
+        return np.concatenate([y.T.ravel(), view.p, [value]])
+
+    def _k(self, sol: Solution) -> np.ndarray:
+        return sol.interpolant.k.copy()
 
     def _solution(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray, iterations: int,
                   seconds: float, fold: bool = False) -> Solution:
         y, pz = disc.split(z)
-        value = float(pz[self.lam_at])
-        p = np.delete(pz, self.lam_at)
-        problem = self.problem.with_constants(**{self.name: value})
-        k = np.array([problem.constants[c] for c in problem.system.constants], float)
-        residual, bc = residuals(self.compiled, disc.x, y, p, k)
+        value = float(pz[-1])
+        p = pz[:-1]
+        k = disc.k.copy()
+        k[self.index] = value
         estimate, reference = self._estimate(disc, z, t, k, fold)
         attempt = Attempt("arclength", "the branch turns: pseudo-arclength step on the collocation equations",
-                          "solved", "converged", iterations, disc.m, seconds, (float(disc.x[0]), float(disc.x[-1])),
-                          estimate)
-        d = Diagnostics("arclength", iterations, disc.m, residual, bc, estimate, discretisation_error=estimate,
-                        seconds=seconds, attempts=[attempt], selection="pseudo-arclength continuation near a fold",
-                        tol=self.tol)
-        status, message = Status.SOLVED, f"pseudo-arclength point, {self.name} = {value:.10g}"
+                          "solved", "converged", iterations, disc.m, seconds, self._ends(p, k), estimate)
+        outcome = Outcome(Status.SOLVED, f"pseudo-arclength point, {self.name} = {value:.10g}", disc.x, y, p,
+                          iterations=iterations, error_estimate=estimate if math.isfinite(estimate) else None,
+                          method="arclength")
+        if reference is not None:
+            outcome.reference = Outcome(Status.SOLVED, "deferred correction", *reference)
         if math.isfinite(estimate) and estimate > self.tol:
-            status = Status.ERROR_TOO_LARGE
-            message += (f", but its estimated error {estimate:.2g} is above the tolerance {self.tol:.2g} "
-                        "(near a fold the states are sensitive to the parameter; arclength steps keep their mesh)")
-        return Solution(problem, self.compiled, k, status, message, "arclength", disc.x, y, p, d, reference=reference)
+            outcome.message += (". Near a fold the states are sensitive to the parameter; arclength steps keep "
+                                "their mesh")
+        return settle(self.prepared.with_constants(**{self.name: value}), k, outcome, [attempt],
+                      "pseudo-arclength continuation near a fold", seconds, self.tol)
+
+    def _ends(self, p: np.ndarray, k: np.ndarray) -> tuple[float, float]:
+        from .guess import positions
+
+        ends = positions(np.asarray(self.compiled.maps(p, k), float))
+        return float(ends[0]), float(ends[-1])
 
     def _estimate(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray, k: np.ndarray,  # noqa: ANN202
                   fold: bool = False):
@@ -311,11 +330,10 @@ class _Tracer:
         exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
         Returns the estimate and the corrected point ``(x, y, p)``."""
         from .discrete import SingularMatrix
-        from .methods.base import Outcome, Trial, compare
-        from .methods.collocation import _defect_correction
+        from .methods.base import Trial, compare
 
         y, pz = disc.split(z)
-        p = np.delete(pz, self.lam_at)
+        p = pz[:-1]
         with np.errstate(all="ignore"):
             try:
                 if fold:
@@ -330,12 +348,12 @@ class _Tracer:
                     lu = _BorderedSolve(disc, z, t)
                 except RuntimeError:
                     return math.nan, None
-                trial = Trial(self.free, disc.x, y, pz, self.k_free, self.tol)
-            x2, y2, p2 = _defect_correction(eq, y, p, parts, lu)
+                trial = Trial(self.free, disc.x, y, pz, disc.k, self.tol)
+            x2, y2, p2 = eq.defect_correction(y, p, parts, lu)
             estimate, _ = compare(Outcome(Status.SOLVED, "", disc.x, y, p), Outcome(Status.SOLVED, "", x2, y2, p2), trial)
         if not math.isfinite(estimate):
             return math.nan, None
-        return estimate, (x2, y2, np.delete(p2, self.lam_at) if eq is disc else p2)
+        return estimate, (x2, y2, p2[:-1] if eq is disc else p2)
 
     def _inside(self, value: float) -> bool:
         slack = 1e-12 * max(1.0, abs(self.lo), abs(self.hi))
@@ -359,6 +377,7 @@ class _Tracer:
             self._loop()
         except KeyboardInterrupt:
             b.success = False
+            b.interrupted = True
             b.message = f"interrupted after {len(b.solutions)} points; what was traced is kept"
         finally:
             b.seconds = time.perf_counter() - started
@@ -418,55 +437,53 @@ class _Tracer:
             return last
         prev = b.solutions[-2]
         d_last = b.parameter[-1] - b.parameter[-2]
-        if d_last == 0 or prev.x.size == 0 or last.x[-1] != prev.x[-1] or last.x[0] != prev.x[0]:
-            return last
+        lv, pv = last.interpolant, prev.interpolant
+        if d_last == 0 or not np.array_equal(lv.k[np.arange(lv.k.size) != self.index],
+                                             pv.k[np.arange(pv.k.size) != self.index]):
+            return last  # another truncation length: no secant between the two
         ratio = (target - b.parameter[-1]) / d_last
-        y_prev = prev._states(last.x)
-        y = last.y + ratio * (last.y - y_prev)
-        p = last._p + ratio * (last._p - prev._p)
-        k = np.array([self.problem.constants[c] for c in self.problem.system.constants], float)
+        y_prev = hermite(self.compiled, pv.t, pv.y, pv.p, pv.k)(lv.t)
+        y = lv.y + ratio * (lv.y - y_prev)
+        p = lv.p + ratio * (lv.p - pv.p)
+        k = lv.k.copy()
         k[self.index] = target
-        return _guess.Start(self.compiled, last.x, y, p, k)
+        return Start(self.compiled, lv.t, y, p, k)
 
     def _turning(self, sol: Solution, target: float) -> bool:
         """Is the branch turning here (small |d lam/ds| from the secant)?"""
-        last = self.branch.solutions[-1]
-        if sol.x[0] != last.x[0] or sol.x[-1] != last.x[-1]:
+        last = self.branch.solutions[-1].interpolant
+        view = sol.interpolant
+        if not np.array_equal(np.delete(view.k, self.index), np.delete(last.k, self.index)):
             return False
-        dy = sol._states(last.x) - last.y
-        w = node_weights(last.x)
+        dy = hermite(self.compiled, view.t, view.y, view.p, view.k)(last.t) - last.y
+        w = node_weights(last.t)
         dlam = target - self.branch.parameter[-1]
-        norm = math.sqrt(float(np.sum(w * dy * dy)) + float(np.sum((sol._p - last._p) ** 2)) + dlam**2)
+        norm = math.sqrt(float(np.sum(w * dy * dy)) + float(np.sum((view.p - last.p) ** 2)) + dlam**2)
         return norm > 0 and abs(dlam) / norm < _TURNING
 
     def _arclength(self) -> tuple[bool, str] | None:
         """Step in arclength until the branch is straight again; return an end state or None."""
         b = self.branch
         last = b.solutions[-1]
-        x = last.x
-        if self.free.system.singular is not None or self.free.system.rescaled:
-            return False, self._done(
-                f"the branch turns near {self.name} = {b.parameter[-1]:.6g}, and pseudo-arclength steps "
-                "are not available for singular or free-end problems"
-            )
-        disc = CollocationEquations(self.free, x, self.k_free)
+        t_mesh = last.interpolant.t
+        disc = CollocationEquations(self.free, t_mesh, self._k(last))
         z = self._z(last, b.parameter[-1])
         if len(b.solutions) >= 2:
             prev = b.solutions[-2]
-            zp = self._z(prev, b.parameter[-2], x)
-            t = z - zp
+            zp = self._z(prev, b.parameter[-2], t_mesh)
+            tangent = z - zp
         else:
-            t = np.zeros_like(z)
-            t[disc.n * disc.m + self.lam_at] = self.direction
-        z, _ = disc.correct(z, disc.tangent(z, t), self.tol)  # polish onto the discrete curve
+            tangent = np.zeros_like(z)
+            tangent[-1] = self.direction
+        z, _ = disc.correct(z, disc.tangent(z, tangent), self.tol)  # polish onto the discrete curve
         if z is None:
             return False, self._done(f"pseudo-arclength could not start at {self.name} = {b.parameter[-1]:.6g}")
-        t = disc.tangent(z, t)
+        tangent = disc.tangent(z, tangent)
         ds = 0.05 * math.sqrt(float(np.sum(disc.weights * z * z)) + 1.0)
         min_ds = ds * 1e-6
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
-            z_new, its = disc.correct(z + ds * t, t, self.tol)
+            z_new, its = disc.correct(z + ds * tangent, tangent, self.tol)
             if z_new is None:
                 ds *= _SHRINK
                 if ds < min_ds:
@@ -475,10 +492,10 @@ class _Tracer:
                         "the branch may end or branch off here"
                     )
                 continue
-            t_new = disc.tangent(z_new, t)
-            lam_old, lam_new = z[-disc.n_p + self.lam_at], z_new[-disc.n_p + self.lam_at]
-            if t[-disc.n_p + self.lam_at] * t_new[-disc.n_p + self.lam_at] < 0:
-                self._locate_fold(disc, z, t, ds)
+            t_new = disc.tangent(z_new, tangent)
+            lam_old, lam_new = z[-1], z_new[-1]
+            if tangent[-1] * t_new[-1] < 0:
+                self._locate_fold(disc, z, tangent, ds)
             sol = self._solution(disc, z_new, t_new, its, time.perf_counter() - started)
             if not self._inside(lam_new):
                 # left the range: finish exactly on its end if the branch allows
@@ -495,9 +512,9 @@ class _Tracer:
                     sol = better
                     disc, z_new, t_new = self._remeshed(disc, better, float(lam_new), t_new)
             self._add(lam_new, sol, "arclength")
-            z, t = z_new, t_new
+            z, tangent = z_new, t_new
             ds = ds * _GROW if its <= 3 else ds * (_SHRINK if its >= 8 else 1.0)
-            if abs(t[-disc.n_p + self.lam_at]) > _STRAIGHT and self.branch.folds and abs(lam_new - lam_old) > 0:
+            if abs(tangent[-1]) > _STRAIGHT and self.branch.folds and abs(lam_new - lam_old) > 0:
                 self.direction = 1.0 if lam_new > lam_old else -1.0
                 self.edge = self.hi if self.direction > 0 else self.lo
                 return None
@@ -506,15 +523,16 @@ class _Tracer:
     def _remeshed(self, disc: CollocationEquations, sol: Solution, value: float, t: np.ndarray):  # noqa: ANN202
         """The collocation equations on ``sol``'s mesh, its unknowns, and the tangent ``t``
         carried over (interpolated, then the tangent of the new discrete curve)."""
-        new = CollocationEquations(self.free, sol.x, self.k_free)
+        mesh = sol.interpolant.t
+        new = CollocationEquations(self.free, mesh, self._k(sol))
         z = self._z(sol, value)
         ty, tp = disc.split(t)
-        carried = new.join(np.array([np.interp(sol.x, disc.x, row) for row in ty]), tp)
+        carried = new.join(np.array([np.interp(mesh, disc.x, row) for row in ty]), tp)
         return new, z, new.tangent(z, carried)
 
     def _locate_fold(self, disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
         """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh."""
-        found = _fold_on(disc, z0, t0, ds, self.lam_at, self.tol)
+        found = _fold_on(disc, z0, t0, ds, self.tol)
         if found is None:
             return
         z_fold = found
@@ -522,21 +540,20 @@ class _Tracer:
         x = disc.x
         fine_x = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
         y, pz = disc.split(z0)
-        k = self.k_free
-        y_fine = hermite(self.free, x, y, pz, k)(fine_x)
-        fine = CollocationEquations(self.free, fine_x, k)
+        y_fine = hermite(self.free, x, y, pz, disc.k)(fine_x)
+        fine = CollocationEquations(self.free, fine_x, disc.k)
         yt, pt = disc.split(t0)
         t_fine = fine.join(np.array([np.interp(fine_x, x, row) for row in yt]), pt)
         z_fine0, _ = fine.correct(fine.join(y_fine, pz), fine.tangent(fine.join(y_fine, pz), t_fine), self.tol)
         error = math.nan
         if z_fine0 is not None:
             t_f = fine.tangent(z_fine0, t_fine)
-            other = _fold_on(fine, z_fine0, t_f, ds * 1.5, self.lam_at, self.tol)
+            other = _fold_on(fine, z_fine0, t_f, ds * 1.5, self.tol)
             if other is not None:
-                error = abs(float(other[-fine.n_p + self.lam_at]) - float(z_fold[-disc.n_p + self.lam_at]))
+                error = abs(float(other[-1]) - float(z_fold[-1]))
         sol = self._solution(disc, z_fold, disc.tangent(z_fold, t0), 0, 0.0, fold=True)
-        value = float(z_fold[-disc.n_p + self.lam_at])
-        outputs = {o: float(sol.evaluate(e)) for o, e in self.branch._expressions.items()}
+        value = float(z_fold[-1])
+        outputs = {o: float(sol.evaluate(e, allow_failed=True)) for o, e in self.branch._expressions.items()}
         self.branch.folds.append(Fold(value, outputs, error, len(self.branch.solutions), sol))
 
 
@@ -554,9 +571,9 @@ class _BorderedSolve:
         return self._lu.solve(np.append(b, 0.0))
 
 
-def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, lam_at: int, tol: float) -> np.ndarray | None:
-    """Brent's method on the tangent's parameter component along the arclength from ``z0``."""
-    where = -disc.n_p + lam_at
+def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, tol: float) -> np.ndarray | None:
+    """Brent's method on the tangent's parameter component (the last unknown) along the arclength from ``z0``."""
+    where = -1
     cache: dict[float, np.ndarray] = {}
 
     def component(s: float) -> float:

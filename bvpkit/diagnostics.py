@@ -189,8 +189,9 @@ def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001
     """Max relative residual of the equations between nodes, and of the boundary conditions.
 
     The equation residual is measured at the midpoint of each mesh interval of the C1
-    cubic interpolant: ``|S'(x) - f(x, S(x))| / (1 + |f(x, S(x))|)``; it is the same
-    measure for every method, so methods can be compared.
+    cubic interpolant: ``|S'(x) - f(x, S(x))| / (1 + |f(x, S(x))|)`` in the user's variable
+    (``|S_t - F| / (h_r + |F|)`` in the standard one); it is the same measure for every
+    method, so methods can be compared.
     """
     import numpy as np
 
@@ -202,7 +203,7 @@ def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001
         s = midpoint_values(y, f, h)
         ds = 1.5 * (y[:, 1:] - y[:, :-1]) / h - 0.25 * (f[:, :-1] + f[:, 1:])
         fm = compiled.rhs(mid, s, p, k)
-        r = np.abs(ds - fm) / (1.0 + np.abs(fm))
+        r = np.abs(ds - fm) / (compiled.row_scale(p, k) + np.abs(fm))
         bc = np.abs(compiled.bc(y[:, 0], y[:, -1], p, k))
     equation = float(np.max(r)) if r.size else 0.0
     boundary = float(np.max(bc)) if bc.size else 0.0

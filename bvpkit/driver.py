@@ -39,6 +39,9 @@ _SHARE_TRUNCATION = 0.5  # part of the tolerance allowed to truncation
 _SHARE_DISCRETISATION = 0.125  # each truncated solve's error target: two of them stay below tol/4
 
 _OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation"}
+#: Unit round-off of double precision: the stability constant times it is the smallest error
+#: any method can promise.
+_ROUNDING = float(np.finfo(float).eps)
 
 
 def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, Any]:
@@ -317,12 +320,24 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
     if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all():
         condition = outcome.condition if outcome.condition is not None else condition_estimate(
             compiled, outcome.x, outcome.y, outcome.p, k)
+    if condition is not None and math.isfinite(estimate):
+        # Round-off alone, amplified by the problem's stability constant, bounds what any method
+        # in double precision can promise: the estimate never claims better than that.
+        estimate = max(estimate, condition * _ROUNDING)
     # The last guards: success never comes with non-finite values or an estimate above tol.
     if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
     if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
         status = Status.ERROR_TOO_LARGE
         message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
+    if (status is Status.ERROR_TOO_LARGE and tol is not None and condition is not None
+            and condition * _ROUNDING > tol and "ill-conditioned" not in message):
+        message += (
+            f"; the problem is ill-conditioned (stability constant {condition:.2g}), so round-off alone can "
+            f"change the solution by {condition * _ROUNDING:.2g}: no method in double precision can do better. "
+            "Look for a formulation whose answer depends less on small changes (other conditions, a "
+            "shorter domain, other variables)"
+        )
     if layout.eigenvalue is not None and status is Status.SOLVED:
         found = _guess.interior_zeros(_guess.first_function(layout, outcome.y))
         if found != layout.mode - 1:

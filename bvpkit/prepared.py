@@ -325,10 +325,25 @@ def cached(key: str | None) -> Prepared | None:
         if data["sha256"] != _checksum(body) or body["key"] != key:
             return None
         prepared = Prepared.from_plain(body["prepared"])
-        prepared.compiled  # noqa: B018 - builds (and checks) the generated code now
+        from .compiled import check_source
+
+        # every piece of generated code is checked now, not when first run
+        for source in [prepared.system["source"], *(r.source for r in prepared.recipes.values()),
+                       *_sources(prepared.quantities.values())]:
+            check_source(source)
+        prepared.compiled  # noqa: B018 - builds the system's code now
         return prepared
     except (OSError, ValueError, KeyError, TypeError, RuntimeError, SyntaxError):
         return None  # missing, corrupted or tampered with: prepare afresh
+
+
+def _sources(quantities) -> list[str]:  # noqa: ANN001
+    found = []
+    for q in quantities:
+        found.append(q.source)
+        found += [p[0] for p in q.points if isinstance(p[0], str)]
+        found += _sources(q.integrals)
+    return found
 
 
 def remember(key: str | None, prepared: Prepared) -> None:

@@ -514,7 +514,7 @@ class Problem:
             (v,) = s.variables if len(s.variables) == 1 else (None,)
             if v is None or d.expr.args != (v,) or any(w != v for w in d.variables):
                 raise ProblemError(f"{where}: cannot read the point value {s}")
-            found.append(PointValue(s, d.expr.func.__name__, d.derivative_count, s.point[0]))
+            found.append(PointValue(s, d.expr.func.__name__, int(d.derivative_count), s.point[0]))
         bound = {f for s in e.atoms(sp.Subs) for f in s.expr.atoms(applied_undef())}
         for f in e.atoms(applied_undef()) - bound:
             if f.args != (self.x,):

@@ -88,10 +88,10 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
             at: Any = float(where)
         else:  # a point that depends on constants or parameters: a function of them
             at = compile_expressions([where], [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").source
-        order = pv.order
+        order = int(pv.order)
         highest = order == problem.orders[pv.name]
         state = form.states.index((pv.name, order - 1 if highest else order))
-        points.append((at, state, order, pv.side))
+        points.append((at, int(state), order, int(pv.side)))
         placeholders.append(symbol)
     for f_index, (name, order) in enumerate(form.functions):
         f = sp.Function(name)(problem.x)

@@ -13,6 +13,11 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     guess = { f = "eta - 1 + exp(-eta)" }
     # unknowns = ["f"]; unknown_parameters = { lam = 1.0 }; eigenvalue = "P"; mode = 1
 
+    [[problem.regions]]   # optional: the domain cut into regions, left to right
+    end = "a"             # where this region stops (omit for the last)
+    equations = ["..."]   # replace the problem's equations here (optional)
+    constants = { k = 2.0 }  # constants with a value of their own here (optional)
+
     [solver]          # method, tol, max_nodes, verify, truncation
     tol = 1e-8
 
@@ -59,6 +64,12 @@ class _Model(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True)
 
 
+class RegionSection(_Model):
+    end: StrictStr | Number | None = None
+    equations: list[StrictStr] | None = None
+    constants: dict[str, Number] = {}
+
+
 class ProblemSection(_Model):
     independent: StrictStr = "x"
     domain: Annotated[list[End], Field(min_length=2, max_length=2)]
@@ -70,6 +81,7 @@ class ProblemSection(_Model):
     guess: dict[str, StrictStr | Number] = {}
     eigenvalue: StrictStr | None = None
     mode: StrictInt | None = None
+    regions: list[RegionSection] | None = None
 
 
 class SolverSection(_Model):
@@ -194,6 +206,7 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
             title=spec.title,
             eigenvalue=section.eigenvalue,
             mode=section.mode,
+            regions=[r.model_dump(exclude_none=True) for r in section.regions] if section.regions else None,
         )
     except ExpressionError as err:
         raise SpecError(f"{source}: [problem] {err.one_line()}") from err

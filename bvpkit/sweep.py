@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import concurrent.futures as futures
 import csv
+import dataclasses
 import hashlib
 import itertools
 import json
@@ -36,7 +37,7 @@ from typing import Any
 
 import numpy as np
 
-from ._output import progress_bar, pyplot
+from ._output import json_ready, progress_bar, pyplot
 from .errors import OptionError, closest
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
@@ -48,14 +49,13 @@ CHUNK = 25
 class _Unit:
     """One chunk of one grid line: what a worker needs, as plain data."""
 
-    arguments: dict
     problem_key: str
     fast: str
     fast_values: tuple[float, ...]
     slow: tuple[tuple[str, float], ...]
     outputs: tuple[str, ...]
     options: tuple[tuple[str, Any], ...]
-    prepared: dict | None = None  # prepared.plain_problem(): the worker then needs no SymPy
+    prepared: dict  # Prepared.plain(): the worker rebuilds the problem from it, without SymPy
 
 
 def _key(value: Any) -> str:
@@ -70,25 +70,19 @@ _WORKER_PROBLEMS: dict[str, Any] = {}
 
 
 def _worker_problem(unit: _Unit):  # noqa: ANN202
-    problem = _WORKER_PROBLEMS.get(unit.problem_key)
-    if problem is None:
-        if unit.prepared is not None:
-            from .prepared import problem_from_plain
+    prepared = _WORKER_PROBLEMS.get(unit.problem_key)
+    if prepared is None:
+        from .prepared import Prepared
 
-            problem = problem_from_plain(unit.prepared)
-        else:
-            from .problem import Problem
-
-            problem = Problem(**unit.arguments)
-        _WORKER_PROBLEMS[unit.problem_key] = problem
-    return problem
+        prepared = _WORKER_PROBLEMS[unit.problem_key] = Prepared.from_plain(unit.prepared)
+    return prepared
 
 
 def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     """Solve one chunk in order, each point seeded by the previous one (runs in a worker)."""
     from .driver import solve
 
-    problem = _worker_problem(unit)
+    prepared = _worker_problem(unit)
     options = dict(unit.options)
     rows = []
     previous = None
@@ -96,9 +90,10 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
         point = {**dict(unit.slow), unit.fast: value}
         started = time.perf_counter()
         try:
-            sol = solve(problem.with_constants(**point), guess=previous, **options)
+            here = prepared.with_constants(**point)
+            sol = solve(here, guess=previous, **options)
             if not sol.success and previous is not None:
-                sol = solve(problem.with_constants(**point), **options)  # a cold start as a second chance
+                sol = solve(here, **options)  # a cold start as a second chance
         except Exception as err:  # noqa: BLE001 - a point that raises is stored as failed
             rows.append(_row(point, {}, False, "bad_input", "", math.nan, f"{type(err).__name__}: {err}", 0,
                              time.perf_counter() - started))
@@ -190,11 +185,9 @@ class SweepResult:
                 writer.writerow([r.get(n, "") for n in names])
 
     def as_dict(self) -> dict[str, Any]:
-        clean = [{k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in r.items()}
-                 for r in self.table]
-        return {"success": self.success, "status": "solved" if self.success else "not_converged",
-                "message": self.message, "parameters": {k: v.tolist() for k, v in self.parameters.items()},
-                "outputs": self.outputs, "table": clean}
+        return json_ready({"success": self.success, "status": "solved" if self.success else "not_converged",
+                           "message": self.message, "parameters": self.parameters, "outputs": self.outputs,
+                           "table": self.table})
 
     def plot(self, path: str | Path, output: str | None = None) -> None:
         """Design chart: one curve per value of the slower parameter (needs the ``plot`` extra)."""
@@ -231,13 +224,13 @@ def _geometric(values: np.ndarray) -> bool:
     return bool(np.allclose(ratios, ratios[0], rtol=1e-6) and not np.isclose(ratios[0], 1.0))
 
 
-def _axes(problem, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray]:  # noqa: ANN001
+def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray]:  # noqa: ANN001
     if not isinstance(grid, Mapping) or not grid:
         raise OptionError("the grid must be a mapping of constant name to values, e.g. {'phi': [0.1, 1, 10]}")
     axes = {}
     for name, values in grid.items():
-        if name not in problem.constants:
-            raise OptionError(f"'{name}' is not a constant of the problem{closest(name, problem.constants)}")
+        if name not in prepared.constants:
+            raise OptionError(f"'{name}' is not a constant of the problem{closest(name, prepared.constants)}")
         array = np.asarray(values, dtype=float).ravel()
         if array.size == 0 or not np.all(np.isfinite(array)):
             raise OptionError(f"the values of '{name}' must be finite numbers, at least one")
@@ -293,38 +286,40 @@ def sweep(
     -------
     SweepResult
     """
+    from .prepared import Prepared, prepare
     from .problem import Problem
 
-    if not isinstance(problem, Problem):
+    if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"sweep() takes a bvpkit.Problem, got {type(problem).__name__}")
-    axes = _axes(problem, grid)
+    prepared = prepare(problem)
+    axes = _axes(prepared, grid)
     labels = {}
-    for text in outputs if outputs is not None else list(problem.outputs):
-        labels[text] = problem.outputs.get(text, text)
-        problem.parse_quantity(labels[text], where=f"output '{text}'")
+    named = prepared.outputs
+    for text in outputs if outputs is not None else list(named):
+        labels[text] = named.get(text, text)
     if isinstance(chunk, bool) or not isinstance(chunk, int) or chunk < 1:
         raise OptionError(f"chunk must be a whole number of at least 1, got {chunk!r}")
     options = {k: v for k, v in {"tol": tol, "method": method}.items() if v is not None}
-    arguments = {**problem.arguments, "constants": dict(problem.constants)}
-    problem_key = _key((arguments, sorted(labels.values()), sorted(options.items()), sorted(axes)))
+    # what workers rebuild the problem from: its preparation, with every output compiled
+    # (no SymPy in the workers)
+    quantities = {**prepared.quantities, **{text: prepared.quantity(text) for text in labels.values()}}
+    plain = dataclasses.replace(prepared, quantities=quantities).plain()
+    solver = {k: v for k, v in prepared.settings.items() if k in ("method", "tol", "max_nodes", "verify", "truncation")}
+    problem_key = _key((prepared.facts["key"], sorted(prepared.constants.items()), sorted(prepared.facts["own"].items()),
+                        sorted(solver.items()), sorted(labels.values()), sorted(options.items()), sorted(axes)))
     names = list(axes)
     fast, slow_names = names[0], names[1:]
     started = time.perf_counter()
     db = _Store(store)
     try:
         done = db.done(problem_key, retry_failed)
-        from .prepared import plain_problem
-
-        # what workers rebuild the problem from: its plain facts and compiled expressions
-        # (no SymPy in the workers; the generated code of the system is in the disk cache)
-        prepared = plain_problem(problem, sorted(set(labels.values()) | set(problem.outputs.values())))
         units = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):
             slow = tuple(zip(slow_names, map(float, slow_values)))
             todo = [float(v) for v in axes[fast] if _grid_key({**dict(slow), fast: v}) not in done]
             for i in range(0, len(todo), chunk):
-                units.append(_Unit(arguments, problem_key, fast, tuple(todo[i:i + chunk]), slow,
-                                   tuple(labels.values()), tuple(sorted(options.items())), prepared))
+                units.append(_Unit(problem_key, fast, tuple(todo[i:i + chunk]), slow, tuple(labels.values()),
+                                   tuple(sorted(options.items())), plain))
         solved = _run(units, db, problem_key, executor, workers, progress, done)
         rows = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):

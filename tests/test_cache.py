@@ -11,30 +11,40 @@ from bvpkit import codegen
 
 @pytest.fixture()
 def cache(tmp_path, monkeypatch):
+    from bvpkit import prepared
+
     monkeypatch.setenv(codegen.CACHE_VARIABLE, str(tmp_path))
     codegen._MEMORY.clear()
+    prepared._PREPARED.clear()  # prepared problems hold their code in memory; start from the disk
     yield tmp_path
     codegen._MEMORY.clear()
+    prepared._PREPARED.clear()
 
 
 def _problem(k=3.0):
     return bvpkit.Problem(["y'' = k*y"], ["y(0) = 1", "y(1) = 0"], (0, 1), constants={"k": k})
 
 
+def _form(k=3.0):
+    from bvpkit.reduce import standard_form
+
+    return standard_form(_problem(k))
+
+
 def test_second_compile_reads_the_disk_instead_of_generating(cache, monkeypatch):
-    codegen.compile_system(_problem().system)
+    codegen.compile_system(_form())
     files = list(cache.glob("system-*.json"))
     assert len(files) == 1
     codegen._MEMORY.clear()
     monkeypatch.setattr(codegen, "_system_source", lambda system: pytest.fail("regenerated despite the cache"))
-    compiled = codegen.compile_system(_problem().system)
+    compiled = codegen.compile_system(_form())
     sol = bvpkit.solve(_problem())
     assert sol.success and compiled.n == 2
 
 
 @pytest.mark.parametrize("damage", ["truncate", "garbage", "tamper"])
 def test_a_corrupted_cache_file_is_regenerated(cache, damage):
-    codegen.compile_system(_problem().system)
+    codegen.compile_system(_form())
     path = next(cache.glob("system-*.json"))
     text = path.read_text()
     if damage == "truncate":
@@ -52,7 +62,7 @@ def test_a_corrupted_cache_file_is_regenerated(cache, damage):
 
 
 def test_concurrent_writers_leave_one_valid_file(cache):
-    system = _problem().system
+    system = _form()
     source, pattern = codegen._system_source(system)
     threads = [threading.Thread(target=codegen.write_cache, args=(system.key(), source, pattern, codegen._bc_sides(system))) for _ in range(8)]
     for t in threads:
@@ -123,18 +133,19 @@ def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(
     original = bvpkit.load(spec)
     expected = bvpkit.solve(original)
     key = prepared.spec_key(spec, {})
-    prepared.remember(key, original)
+    prepared.remember(key, bvpkit.prepare(original))
     codegen._MEMORY.clear()
-    light = prepared.cached_problem(key)
-    assert light is not None and light.__dict__["_symbolic"] is False
+    prepared._PROBLEMS.clear()
+    light = prepared.cached(key)
+    assert isinstance(light, bvpkit.Prepared)
     solution = bvpkit.solve(light)
     assert solution.outputs == expected.outputs
-    assert light.__dict__["_symbolic"] is False  # solved and its outputs evaluated from plain data
-    # a question the cache does not cover builds the symbolic parts, and answers alike
+    assert not prepared._PROBLEMS  # solved and its outputs evaluated from plain data
+    # a question the cache does not cover builds the symbolic problem, and answers alike
     assert solution.evaluate("w''(0.3)") == pytest.approx(expected.evaluate("w''(0.3)"), rel=1e-12)
-    assert light.__dict__["_symbolic"] is True
+    assert prepared._PROBLEMS
     # with_constants on the rebuilt problem does not reuse point values of the old constants
-    longer = prepared.cached_problem(key).with_constants(L=1.5)
+    longer = prepared.cached(key).with_constants(L=1.5)
     assert bvpkit.solve(longer).outputs["tip_deflection_m"] == pytest.approx(
         bvpkit.solve(original.with_constants(L=1.5)).outputs["tip_deflection_m"], rel=1e-10)
 
@@ -147,14 +158,14 @@ def test_a_damaged_prepared_problem_is_ignored(cache, damage):
     key = prepared.spec_key(spec, {})
     problem = bvpkit.load(spec)
     bvpkit.solve(problem)
-    prepared.remember(key, problem)
+    prepared.remember(key, bvpkit.prepare(problem))
     path = next(cache.glob("problem-*.json"))
     text = path.read_text()
     if damage == "truncate":
         path.write_text(text[: len(text) // 3])
     else:
         path.write_text(text.replace('"title": "', '"title": "changed '))
-    assert prepared.cached_problem(key) is None
+    assert prepared.cached(key) is None
 
 
 def test_importing_bvpkit_imports_no_sympy():
@@ -200,12 +211,12 @@ def test_a_prepared_file_with_foreign_code_is_refused_even_with_a_fresh_checksum
     key = prepared.spec_key(spec, {})
     problem = bvpkit.load(spec)
     bvpkit.solve(problem)
-    prepared.remember(key, problem)
+    prepared.remember(key, bvpkit.prepare(problem))
     path = next(cache.glob("problem-*.json"))
     data = json.loads(path.read_text())
-    text = next(iter(data["body"]["quantities"]))
-    quantity = data["body"]["quantities"][text]
+    text = next(iter(data["body"]["prepared"]["quantities"]))
+    quantity = data["body"]["prepared"]["quantities"][text]
     quantity["source"] = quantity["source"].replace("return out", "__import__('os').getcwd()\n    return out")
     data["sha256"] = prepared._checksum(data["body"])
     path.write_text(json.dumps(data))
-    assert prepared.cached_problem(key) is None
+    assert prepared.cached(key) is None

@@ -72,7 +72,7 @@ def test_euler_buckling_loads(equation, conditions, factor, source):
 def test_spherical_pellet_effectiveness_with_the_singular_centre(phi):
     p = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c(1) = 1"], (0, 1), independent="r",
                        constants={"phi": phi})
-    assert p.system.singular is not None  # detected, not started at a small epsilon
+    assert bvpkit.prepare(p).layout.singular  # detected, not started at a small epsilon
     sol = bvpkit.solve(p, tol=1e-9)
     assert sol.success, sol.message
     assert "singular at the left end" in sol.diagnostics.selection

@@ -210,8 +210,9 @@ def test_hager_estimate_of_the_stability_constant_equals_the_exact_norm(equation
     from bvpkit.discrete import CollocationEquations
 
     sol = bvpkit.solve(bvpkit.Problem(equations, conditions, domain), method="collocation", tol=1e-6)
-    eq = CollocationEquations(sol._compiled, sol.x, sol._k)
-    lu = eq.factor(sol.y, sol._p)
+    view = sol.interpolant  # the standard form: mesh t, stacked states, parameters, constants
+    eq = CollocationEquations(view.compiled, view.t, view.k)
+    lu = eq.factor(view.y, view.p)
     monkeypatch.setattr(diagnostics, "_EXACT_INVERSE", 10**6)
     exact = diagnostics.stability_constant(lu, lu.size, eq.row_scale())
     monkeypatch.setattr(diagnostics, "_EXACT_INVERSE", 0)

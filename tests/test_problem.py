@@ -14,8 +14,9 @@ def make(equations=("y'' + y = 0",), conditions=("y(0) = 0", "y(1) = 1"), domain
 def test_state_layout_is_readable_for_coupled_systems_of_different_orders():
     p = make(["f''' + f*f'' + g = 0", "g'' = f' * g"],
              ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1", "g(0) = 1", "g(inf) = 0"], (0, "inf"))
-    assert p.system.state_names == ("f", "f'", "f''", "g", "g'")
-    assert p.system.layout() == "y0 = f, y1 = f', y2 = f'', y3 = g, y4 = g'"
+    layout = bvpkit.prepare(p).layout
+    assert layout.state_names == ("f", "f'", "f''", "g", "g'")
+    assert layout.row_names == ("f", "f'", "f''", "g", "g'")
 
 
 def test_sympy_input_is_accepted():
@@ -31,7 +32,11 @@ def test_sympy_input_is_accepted():
     [
         (dict(conditions=["y(0) = 0"]), ProblemError, r"1 boundary condition\(s\) given, 2 needed \(2 for y\)"),
         (dict(conditions=["y(0) = 0", "y(1) = 1", "y'(0) = 0"]), ProblemError, "3 boundary condition"),
-        (dict(conditions=["y(0) = 0", "y(1/2) = 1"]), ProblemError, "not an end of the domain"),
+        (dict(conditions=["y(0) = 0", "y(3/2) = 1"]), ProblemError, "must be in increasing order"),
+        (dict(conditions=["y(0) = 0", "y(1/2-) = 1"]), ProblemError, r"3 needed .*1 at x = 1/2, where y jumps"),
+        (dict(conditions=["y(0-) = 0", "y(1) = 1"]), ProblemError, "no value from the left there"),
+        (dict(conditions=["y(0) = 0", "y(1/2) = 1", "y'(1/2-) = y'(1/2+) + 1", "y(1/2-) = 2"]), ProblemError,
+         "ambiguous"),
         (dict(conditions=["y(0) = 0", "y''(1) = 1"]), ProblemError, "derivatives up to order 1"),
         (dict(conditions=["y(0) = 0", "y = 1"]), ProblemError, "point values such as f"),
         (dict(equations=["y'' + omega*y = 0"]), ProblemError, "unknown name 'omega'"),
@@ -40,7 +45,8 @@ def test_sympy_input_is_accepted():
         (dict(conditions=["z(0) = 0", "y(1) = 1"]), ProblemError, "'z' is not an unknown function"),
         (dict(equations=["y''**2 = 1 + y**2"]), ProblemError, "appear nonlinearly"),
         (dict(equations=["y = 1"]), ProblemError, "no unknown function found"),
-        (dict(equations=["y'' + y = 0", "y' = 1"]), ProblemError, r"2 equation\(s\) for 1 unknown"),
+        (dict(equations=["y'' + y = 0", "y' = 1"]), ProblemError, r"2 equation\(s\) in the equations for 1 unknown"),
+        (dict(equations=["y'' + exq(y) = 0"]), ProblemError, "'exq' is not a known function .*did you mean 'exp'"),
         (dict(equations=["y'' + y = 0", "z' = y"]), ProblemError, r"3 needed \(2 for y \+ 1 for z\)"),
         (dict(domain=(1, 0)), ProblemError, "must have a < b"),
         (dict(domain=(0, "L")), ProblemError, "unknown name 'L'"),
@@ -94,13 +100,11 @@ def test_evaluate_refuses_unknown_names_and_too_high_derivatives():
 
 
 def test_default_guess_meets_linear_conditions():
-    from bvpkit.guess import initial_guess, initial_mesh
-    from bvpkit.codegen import compile_system
-    import numpy as np
+    from bvpkit.guess import from_recipes, initial_mesh
 
     p = make(["y'' = y"], ["y(0) = 2", "y'(1) + y(1) = 3"])
-    x = initial_mesh(0, 1)
-    y, _ = initial_guess(p, compile_system(p.system), x, np.zeros(0))
+    prepared = bvpkit.prepare(p)
+    y = from_recipes(prepared.recipes, prepared.compiled, initial_mesh(), prepared.p0(), prepared.k())
     assert y[0, 0] == pytest.approx(2.0)
     assert y[1, -1] + y[0, -1] == pytest.approx(3.0)  # the Robin condition holds for the guess
 
@@ -108,7 +112,7 @@ def test_default_guess_meets_linear_conditions():
 def test_with_constants_changes_values_without_recompiling():
     p = make(["y'' = k*y"], ["y(0) = 1", "y(1) = 0"], constants={"k": 1.0})
     q = p.with_constants(k=4.0)
-    assert q.system is p.system
+    assert bvpkit.prepare(q).compiled is bvpkit.prepare(p).compiled
     a, b = bvpkit.solve(p), bvpkit.solve(q)
     assert a.evaluate("y(1/2)") != pytest.approx(b.evaluate("y(1/2)"))
     with pytest.raises(ProblemError, match="not a constant"):

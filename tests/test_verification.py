@@ -59,7 +59,7 @@ def test_fourth_order_draws_have_four_conditions_the_exact_solution_meets(case):
     # each condition, as lhs - rhs, vanishes for the exact solution
     u = case.exact
     for c in p.conditions:
-        swap = {node: sp.diff(u, p.x, k).subs(p.x, point) for node, _, k, point in p.point_values(c)}
+        swap = {pv.node: sp.diff(u, p.x, pv.order).subs(p.x, pv.point) for pv in p.point_values(c)}
         assert abs(float(c.xreplace(swap))) < 1e-12
 
 

@@ -11,7 +11,7 @@ tolerance means the same here as there. A term ``S y / t`` singular at ``t = 0``
 as ``solve_bvp`` treats it: it is part of the compiled right-hand side, with its limit
 ``(I - S)^+ F`` at ``t = 0``, and the start is projected onto ``S y(0) = 0``.
 
-Error estimate: deferred correction (:func:`_defect_correction`), one solve with the last
+Error estimate: deferred correction (``CollocationEquations.defect_correction``), one solve with the last
 Newton matrix.
 """
 
@@ -29,11 +29,6 @@ from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
-# Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
-_D = 0.5 * np.sqrt(3 / 7)  # = sqrt(21) / 14
-_T = np.array([0.5 - _D, 0.5 + _D])
-_H = np.array([2 * _T**3 - 3 * _T**2 + 1, _T**3 - 2 * _T**2 + _T, -2 * _T**3 + 3 * _T**2, _T**3 - _T**2])
-_DH = np.array([6 * _T**2 - 6 * _T, 3 * _T**2 - 4 * _T + 1, -6 * _T**2 + 6 * _T, 3 * _T**2 - 2 * _T])
 
 
 def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN001
@@ -89,7 +84,7 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
         if njev == 4 or not np.isfinite(cost_new):
             break
         col, bc, _, _, fm = parts
-        if (np.abs(col) < tol_r * (1 + np.abs(fm))).all() and (np.abs(bc) < tol).all():
+        if (np.abs(col) < tol_r * (eq.scale + np.abs(fm))).all() and (np.abs(bc) < tol).all():
             break
         if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp and BVP_SOLVER do)
             step, cost, recompute = step_new, cost_new, False
@@ -98,67 +93,20 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
     return y, p, iteration, parts, lu
 
 
-def _lobatto_residuals(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts) -> tuple:  # noqa: ANN001
-    """Residual ``S' - f(x, S)`` of the cubic ``S`` at the two interior 5-point Lobatto nodes
-    of each interval, and ``f`` there: each ``(n, m-1)``."""
-    _, _, f, _, _ = parts
-    h = eq.h
-    y0, y1, f0, f1 = y[:, :-1], y[:, 1:], f[:, :-1], f[:, 1:]
-    out = []
-    for j in range(2):
-        xs = eq.x[:-1] + _T[j] * h
-        ys = _H[0, j] * y0 + _H[1, j] * h * f0 + _H[2, j] * y1 + _H[3, j] * h * f1
-        ds = (_DH[0, j] * y0 + _DH[2, j] * y1) / h + _DH[1, j] * f0 + _DH[3, j] * f1
-        fs = eq.c.rhs(xs, ys, p, eq.k)
-        out += [ds - fs, fs]
-    return tuple(out)
-
-
 def _rms_residuals(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts) -> np.ndarray:  # noqa: ANN001
-    """RMS over each interval of the relative residual ``|S' - f(x, S)| / (1 + |f|)`` of the
-    cubic ``S``, by 5-point Lobatto quadrature (zero at the ends; the middle is ``1.5 col / h``)."""
+    """RMS over each interval of the relative residual ``|S' - f(t, S)| / (h_r + |f|)`` of the
+    cubic ``S``, by 5-point Lobatto quadrature (zero at the ends; the middle is ``1.5 col / h``).
+
+    ``h_r`` (``eq.scale``) is the length of the row's region in the user's variable: the
+    measure is then ``|S_x' - f_x| / (1 + |f_x|)`` in the user's variable, the residual of
+    ``solve_bvp`` on the problem as written, whatever the mapping onto ``[0, 1]``."""
     col, _, _, _, fm = parts
-    r1, f1, r2, f2 = _lobatto_residuals(eq, y, p, parts)
-    r_mid = np.sum((1.5 * col / eq.h / (1 + np.abs(fm))) ** 2, axis=0)
-    total = 32 / 45 * r_mid + 49 / 90 * (np.sum((r1 / (1 + np.abs(f1))) ** 2, axis=0)
-                                         + np.sum((r2 / (1 + np.abs(f2))) ** 2, axis=0))
+    r1, f1, r2, f2 = eq.lobatto_residuals(y, p, parts)
+    s = eq.scale
+    r_mid = np.sum((1.5 * col / eq.h / (s + np.abs(fm))) ** 2, axis=0)
+    total = 32 / 45 * r_mid + 49 / 90 * (np.sum((r1 / (s + np.abs(f1))) ** 2, axis=0)
+                                         + np.sum((r2 / (s + np.abs(f2))) ** 2, axis=0))
     return np.sqrt(0.5 * total)
-
-
-def _defect_correction(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts, lu):  # noqa: ANN001, ANN202
-    """The error of the collocation solution, from its defect (deferred correction).
-
-    The error ``e = y_exact - S`` of the cubic ``S`` satisfies the linearised equations
-    ``e' - J e = -(S' - f(x, S))`` with the conditions' residual on the right. Over each
-    interval the defect is the integral of ``S' - f(S)``, taken with 5-point Lobatto
-    quadrature (two degrees above the method's own Simpson rule, under which it vanishes);
-    one solve with the Newton matrix already factored gives ``e`` at the nodes and in the
-    parameters. Returns the corrected solution on the halved mesh ``(x, y, p)``: better
-    than the collocation solution by an order of ``h``.
-    """
-    col, bc, _, ym, _ = parts
-    h = eq.h
-    r1, _, r2, _ = _lobatto_residuals(eq, y, p, parts)
-    # the integral of the residual over each interval
-    defect = h * (16 / 45 * 1.5 * col / h + 49 / 180 * (r1 + r2))
-    # ... and of J times the error it builds up inside the interval, R(x) = integral of r from
-    # x_i: with r ~ c t (t - 1/2)(t - 1) (zero at both ends and the middle), the integral of
-    # R over the interval is h^2 c / 120, and c = -7 (r2 - r1) / (2 d) with d = sqrt(21)/14
-    c = -7.0 * (r2 - r1) / (2.0 * _D)
-    jm = eq.c.jac(eq.mid, ym, p, eq.k)
-    defect = defect + np.einsum("ijm,jm->im", jm, h * h * c / 120.0)
-    e = lu.solve(-np.concatenate([defect.T.ravel(), bc]))
-    ey, ep = eq.split(e)
-    y_nodes, p_new = y + ey, p + ep
-    # on the halved mesh: the corrected cubic at the midpoints, plus the error built up
-    # inside the interval, -R(mid) = -h c / 64
-    f = eq.c.rhs(eq.x, y_nodes, p_new, eq.k)
-    middle = midpoint_values(y_nodes, f, h) - h * c / 64.0
-    fine = np.empty((y.shape[0], 2 * eq.m - 1))
-    fine[:, ::2], fine[:, 1::2] = y_nodes, middle
-    x = np.empty(2 * eq.m - 1)
-    x[::2], x[1::2] = eq.x, eq.mid
-    return x, fine, p_new
 
 
 def check_by_defect(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
@@ -178,7 +126,7 @@ def check_by_defect(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np
             eq = CollocationEquations(compiled, np.asarray(x, float), k)
             parts = eq.parts(y, p)
             lu = eq.factor(y, p, parts[3])
-            fine_x, fine_y, fine_p = _defect_correction(eq, y, p, parts, lu)
+            fine_x, fine_y, fine_p = eq.defect_correction(y, p, parts, lu)
         except (SingularMatrix, ValueError, np.linalg.LinAlgError):
             return np.inf, np.inf
         if not (np.isfinite(fine_y).all() and np.isfinite(fine_p).all()):
@@ -279,13 +227,13 @@ class Collocation(Method):
 
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
         """A more accurate solution for the error estimate: the deferred correction of the
-        solution (:func:`_defect_correction`: one solve with the last Newton matrix); the
+        solution (``CollocationEquations.defect_correction``: one solve with the last Newton matrix); the
         stability constant comes from the same LU, rows in derivative units. An outcome
         without that workspace (from elsewhere) is re-solved on the halved mesh."""
         state = outcome.workspace
         if not isinstance(state, _State) or state.equations.m != outcome.x.size:
             return self._halved(trial, outcome)
-        x, y, p = _defect_correction(state.equations, outcome.y, outcome.p, state.parts, state.lu)
+        x, y, p = state.equations.defect_correction(outcome.y, outcome.p, state.parts, state.lu)
         result = Outcome(Status.SOLVED, "deferred correction", x, y, p, iterations=0)
         result.condition = stability_constant(state.lu, state.lu.size, state.equations.row_scale())
         return result

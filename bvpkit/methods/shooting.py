@@ -431,7 +431,7 @@ class Shooting(Method):
             miss = np.max(np.abs(spline(mid) - exact) / (1.0 + np.abs(exact)), axis=0)
             with np.errstate(all="ignore"):
                 f = c.slopes(mid, exact, p, k)
-                slope_miss = np.max(np.abs(spline.derivative()(mid) - f) / (1.0 + np.abs(f)), axis=0)
+                slope_miss = np.max(np.abs(spline.derivative()(mid) - f) / (c.row_scale(p, k) + np.abs(f)), axis=0)
             bad = (miss > trial.tol * 0.1) | (slope_miss > trial.tol**0.75)
             if not bad.any() or x.size > trial.max_nodes:
                 break

@@ -35,9 +35,9 @@ def _values(problem, solution, points: np.ndarray) -> dict[sp.Basic, np.ndarray]
     derivative is the derivative of the interpolant of the state below it, so the
     equation is checked with values the solver did not impose.
     """
-    states = solution._states(points)
-    spline = solution._spline.derivative()(points)
-    system = solution._compiled.layout
+    states = solution.interpolant(points)
+    spline = solution.interpolant.derivative(points)
+    system = solution.interpolant.layout
     values: dict[sp.Basic, np.ndarray] = {}
     for name in problem.unknowns:
         f = sp.Function(name)(problem.x)
@@ -119,9 +119,10 @@ def _condition_value(problem, solution, c: sp.Expr) -> float | None:  # noqa: AN
     if c.has(DomainIntegral):
         return None  # checked through the added state by the solver; skip here
     swap = {}
-    for node, name, order, point in problem.point_values(c):
-        text = name + "'" * order + "(" + ("inf" if point in (sp.oo, -sp.oo) else sp.sstr(point)) + ")"
-        swap[node] = sp.Float(solution.evaluate(text))
+    for pv in problem.point_values(c):
+        side = "-" if pv.side < 0 else "+" if pv.side > 0 else ""
+        where = "inf" if pv.point == sp.oo else "-inf" if pv.point == -sp.oo else sp.sstr(pv.point)
+        swap[pv.node] = sp.Float(solution.evaluate(pv.name + "'" * pv.order + "(" + where + side + ")"))
     e = c.xreplace(swap).xreplace({sp.Symbol(k): v for k, v in {**problem.constants, **solution.parameters}.items()})
     try:
         return float(e)
@@ -139,8 +140,8 @@ def assert_matches_exact(solution, case: Manufactured, *, factor: float = 10.0, 
         raise VerificationError(f"the solve did not succeed: {solution.message}")
     problem = case.problem
     points = _sample(solution)
-    states = solution._states(points)
-    system = solution._compiled.layout
+    states = solution.interpolant(points)
+    system = solution.interpolant.layout
     name = problem.unknowns[0]
     estimate = float(solution.diagnostics.error_estimate)
     allowed = factor * (estimate if np.isfinite(estimate) else 0.0) + floor
