@@ -84,27 +84,28 @@ def start_key(x: np.ndarray, k: np.ndarray, p: np.ndarray) -> str:
 class GuessRecipe:
     """How to guess one unknown function on any mesh, as plain data (no SymPy).
 
-    ``kind`` is ``"expression"`` (``source`` computes the function and its derivatives from
+    ``kind`` is ``"expression"`` (``program`` computes the function and its derivatives from
     ``(x, p, k)``) or ``"polynomial"`` (the lowest-degree polynomial meeting the linear
     conditions on the function alone: ``conditions`` lists each one's ``(end, derivative)``
-    terms, and ``source`` computes their coefficients and constants from ``(p, k)``).
+    terms, and ``program`` computes their coefficients and constants from ``(p, k)``).
+    Programs are plain data (``bvpkit.program``).
     """
 
     name: str
     order: int
     kind: str
-    source: str = ""
+    program: dict | None = None
     conditions: list = field(default_factory=list)
 
     def __call__(self, x: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:
         """The function and its derivatives up to ``order - 1`` on ``x``: ``(order, len(x))``."""
         if self.kind == "expression":
             with np.errstate(all="ignore"):
-                return np.broadcast_to(_function(self.source)(x, p, k), (self.order, x.size)).astype(float)
+                return np.broadcast_to(_function(self.program)(x, p, k), (self.order, x.size)).astype(float)
         if not self.conditions:
             return np.zeros((self.order, x.size))
         with np.errstate(all="ignore"):
-            values = iter(_function(self.source)(np.zeros(1), p, k)[:, 0])
+            values = iter(_function(self.program)(np.zeros(1), p, k)[:, 0])
         a, b = float(x[0]), float(x[-1])
         rows, rhs = [], []
         for terms in self.conditions:
@@ -119,24 +120,27 @@ class GuessRecipe:
         return _fit(rows, rhs, self.order, x)
 
     def plain(self) -> dict[str, Any]:
-        return {"name": self.name, "order": self.order, "kind": self.kind, "source": self.source,
+        return {"name": self.name, "order": self.order, "kind": self.kind, "program": self.program,
                 "conditions": [[list(t) for t in terms] for terms in self.conditions]}
 
     @classmethod
     def from_plain(cls, data: Mapping[str, Any]) -> GuessRecipe:
-        return cls(str(data["name"]), int(data["order"]), str(data["kind"]), str(data["source"]),
+        return cls(str(data["name"]), int(data["order"]), str(data["kind"]), data["program"],
                    [[(int(end), int(j)) for end, j in terms] for terms in data["conditions"]])
 
 
 _FUNCTIONS: dict[str, Any] = {}
 
 
-def _function(source: str) -> Any:
-    function = _FUNCTIONS.get(source)
+def _function(program: dict) -> Any:
+    import json
+
+    key = json.dumps(program, sort_keys=True)
+    function = _FUNCTIONS.get(key)
     if function is None:
         from .compiled import build_quantity
 
-        function = _FUNCTIONS[source] = build_quantity(source)
+        function = _FUNCTIONS[key] = build_quantity(program)
     return function
 
 
@@ -157,7 +161,7 @@ def guess_recipes(problem, compiled: CompiledSystem) -> dict[str, GuessRecipe]: 
 
 
 def _expression_recipe(problem, system, name: str, e: sp.Expr) -> GuessRecipe:  # noqa: ANN001
-    from .codegen import compile_expressions
+    from .codegen import compile_expressions, derivative
     from .reduce import X
 
     names = {problem.x: X}
@@ -167,9 +171,9 @@ def _expression_recipe(problem, system, name: str, e: sp.Expr) -> GuessRecipe:  
     order = system.order(name)
     derivatives = [e]
     for _ in range(order - 1):
-        derivatives.append(sp.diff(derivatives[-1], X))
+        derivatives.append(derivative(derivatives[-1], X))
     f = compile_expressions(derivatives, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
-    return GuessRecipe(name, order, "expression", f.source)
+    return GuessRecipe(name, order, "expression", f.program)
 
 
 def _polynomial_recipe(system, name: str) -> GuessRecipe:  # noqa: ANN001
@@ -185,7 +189,7 @@ def _polynomial_recipe(system, name: str) -> GuessRecipe:  # noqa: ANN001
     if not conditions:
         return GuessRecipe(name, order, "polynomial")
     f = compile_expressions(exprs, [("x", [X]), ("p", system.p), ("k", system.k)], mesh="x")
-    return GuessRecipe(name, order, "polynomial", f.source, conditions)
+    return GuessRecipe(name, order, "polynomial", f.program, conditions)
 
 
 def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray) -> np.ndarray:

@@ -12,9 +12,10 @@ the symbolic parts on demand. The solve itself is done afresh every time. Sweeps
 same preparation to their workers.
 
 A cache file is written atomically (temporary file, then ``os.replace``; the oldest files
-beyond ``compiled.CACHE_KEEP`` are dropped) and carries a SHA-256 checksum; one that is
-unreadable, tampered with or from other code is ignored and rewritten. Generated code is
-re-checked by ``compiled.check_source`` before it runs.
+beyond ``compiled.CACHE_KEEP`` are dropped) and carries a SHA-256 checksum; it is read with
+the checks of ``compiled.read_private``, and one that is unreadable, damaged, refused or from
+other code is ignored and rewritten. Generated functions travel as programs (plain data,
+``bvpkit.program``), never as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations
@@ -27,8 +28,10 @@ from typing import Any
 
 import numpy as np
 
-from .compiled import _MEMORY, _cache_dir, assemble, build_quantity, code_stamp, write_atomically
+from .compiled import _MEMORY, _cache_dir, assemble, build_quantity, code_stamp, note, read_json, write_json
+from .errors import BvpkitError
 from .problem import Problem
+from .program import validate
 
 _KIND = "problem"
 
@@ -51,10 +54,6 @@ def _file(key: str) -> Path | None:
     return None if folder is None else folder / f"{_KIND}-{key}-{code_stamp()}.json"
 
 
-def _checksum(body: Mapping[str, Any]) -> str:
-    return hashlib.sha256(json.dumps(body, sort_keys=True).encode()).hexdigest()
-
-
 def plain_problem(problem: Problem, expressions: list[str]) -> dict[str, Any]:
     """JSON-ready preparation of ``problem``: its plain facts (with guess recipes), the
     guesses it has computed, and ``expressions`` compiled (SymPy's work, done here once)."""
@@ -64,12 +63,12 @@ def plain_problem(problem: Problem, expressions: list[str]) -> dict[str, Any]:
     quantities = {}
     for text in expressions:
         function, points, running = compile_quantity(problem, compiled, text)
-        plain = [[point if isinstance(point, float) else {"source": point.source}, str(name), int(order)]
+        plain = [[point if isinstance(point, float) else {"program": point.program}, str(name), int(order)]
                  for point, name, order in points]
-        quantities[text] = {"source": function.source, "points": plain, "running": running}
+        quantities[text] = {"program": function.program, "points": plain, "running": running}
     starts = {k: {"y": y.ravel().tolist(), "shape": list(y.shape), "p": p.tolist()}
               for k, (y, p) in problem.__dict__.get("_starts", {}).items()}
-    system = {"source": compiled.source, "pattern": compiled.jac_pattern.tolist(), "sides": compiled.bc_sides.tolist()}
+    system = {"programs": list(compiled.programs), "pattern": compiled.jac_pattern.tolist(), "sides": compiled.bc_sides.tolist()}
     return {"problem": problem.plain(), "system": system, "starts": starts, "quantities": quantities}
 
 
@@ -80,14 +79,17 @@ def problem_from_plain(body: dict[str, Any]) -> Problem:
     starts = {k: (np.array(v["y"], dtype=float).reshape(v["shape"]), np.array(v["p"], dtype=float))
               for k, v in body["starts"].items()}
     problem = Problem.from_plain(body["problem"], starts)
+    for recipe in problem.__dict__.get("_recipes", {}).values():  # refused now, not in the middle of a solve
+        if recipe.program is not None or recipe.kind == "expression":
+            validate(recipe.program)
     layout = problem.__dict__["_layout"]
     if layout.key not in _MEMORY:  # the generated code travels along (no disk cache needed)
         system = body["system"]
-        assemble(layout, system["source"], np.array(system["pattern"], dtype=bool), np.array(system["sides"], dtype=int))
+        assemble(layout, system["programs"], np.array(system["pattern"], dtype=bool), np.array(system["sides"], dtype=int))
     for text, q in body["quantities"].items():
-        points = [(float(point) if not isinstance(point, dict) else build_quantity(point["source"]), str(name),
+        points = [(float(point) if not isinstance(point, dict) else build_quantity(point["program"]), str(name),
                    int(order)) for point, name, order in q["points"]]
-        remember_quantity(problem, text, build_quantity(q["source"]), points, bool(q["running"]))
+        remember_quantity(problem, text, build_quantity(q["program"]), points, bool(q["running"]))
     return problem
 
 
@@ -96,14 +98,17 @@ def cached_problem(key: str | None) -> Problem | None:
     path = None if key is None else _file(key)
     if path is None:
         return None
+    body = read_json(path)
+    if body is None:
+        return None  # missing, skipped or damaged: prepare afresh
     try:
-        data = json.loads(path.read_text())
-        body = data["body"]
-        if data["sha256"] != _checksum(body) or body["key"] != key:
-            return None
+        if body["key"] != key:
+            raise KeyError("key")
         return problem_from_plain(body)
-    except (OSError, ValueError, KeyError, TypeError, RuntimeError, SyntaxError):
-        return None  # missing, corrupted or tampered with: prepare afresh
+    except (ValueError, KeyError, TypeError, IndexError, RecursionError) as err:  # ProgramError is a ValueError
+        why = err.one_line() if isinstance(err, BvpkitError) else "it does not hold a preparation"
+        note(f"cache entry {path.name} skipped: {why}")
+        return None
 
 
 def remember(key: str | None, problem: Problem) -> None:
@@ -112,8 +117,6 @@ def remember(key: str | None, problem: Problem) -> None:
     if path is None:
         return
     try:
-        body = {"key": key, **plain_problem(problem, list(problem.outputs.values()))}
-        text = json.dumps({"body": body, "sha256": _checksum(body)})
+        write_json(path, {"key": key, **plain_problem(problem, list(problem.outputs.values()))})
     except (TypeError, ValueError, AttributeError):
         return  # not JSON-ready (SymPy objects in the arguments): costs speed only
-    write_atomically(path, text)

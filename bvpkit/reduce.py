@@ -18,7 +18,9 @@ from .errors import ProblemError
 from .expr import DomainIntegral
 from .layout import States
 
-X = sp.Symbol("_x")
+# Internal symbols are real: generated code evaluates on real numbers, and SymPy then
+# differentiates abs(y) to sign(y) (an unknown-sign symbol gives re/im terms it cannot print).
+X = sp.Symbol("_x", real=True)
 
 # sympy.solve on a highest derivative that appears nonlinearly can be slow for hostile input;
 # real problems isolate in well under a second.
@@ -26,7 +28,7 @@ _MAX_OPS_FOR_NONLINEAR_SOLVE = 400
 
 
 def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
-    return tuple(sp.Symbol(f"_{prefix}{i}") for i in range(n))
+    return tuple(sp.Symbol(f"_{prefix}{i}", real=True) for i in range(n))
 
 
 @dataclass(frozen=True)
