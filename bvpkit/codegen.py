@@ -27,6 +27,7 @@ from .compiled import (
     assemble,
     build_quantity,
     read_cache,
+    skipped,
     write_cache,
 )
 from .errors import ProgramError
@@ -73,9 +74,15 @@ _FUNCTIONS: dict[type, str] = {
 
 
 def _number(e: sp.Expr) -> int | float:
+    """A constant (``2``, ``pi``, ``sqrt(2)*erf(1)``) as one int or correctly rounded float:
+    programs hold no arithmetic on numbers alone."""
     if e.is_Integer and abs(int(e)) <= _program.MAX_INTEGER:
         return int(e)
-    value = float(e)
+    try:
+        value = float(e)
+    except TypeError:  # SymPy cannot make a real float of it
+        raise ProgramError(f"generated code cannot hold the complex value {sp.sstr(e)[:60]} (or it has no "
+                           "value); check for roots or logarithms of negative constants") from None
     if not np.isfinite(value):
         raise ProgramError(f"generated code cannot hold the number {sp.sstr(e)[:40]} (it is not a finite float)")
     return value
@@ -90,10 +97,8 @@ def _tree(e: sp.Basic) -> Any:
     if e in (sp.oo, -sp.oo, sp.zoo, sp.nan):
         raise ProgramError(f"generated code cannot hold the value {e} (infinite or undefined); "
                            "check the equations for a division by zero or an infinite constant")
-    if e.is_Number or isinstance(e, sp.NumberSymbol):
+    if e.is_number:
         return _number(e)
-    if e is sp.I or (e.is_number and e.is_extended_real is False):
-        raise ProgramError(f"generated code cannot hold the complex value {sp.sstr(e)[:60]}")
     if isinstance(e, sp.Add):
         return ["add", *(_tree(a) for a in e.args)]
     if isinstance(e, sp.Mul):
@@ -112,10 +117,6 @@ def _tree(e: sp.Basic) -> Any:
         for t in trees[1:]:
             out = [op, out, t]
         return out
-    if isinstance(e, sp.DiracDelta):
-        # the derivative of a step (second derivatives of abs, min, max): zero away from the
-        # step, which is all a function on a mesh can hold
-        return 0
     if isinstance(e, sp.Heaviside):  # SymPy keeps its value at 0 (1/2 by default) as a second argument
         return ["heaviside", _tree(e.args[0]), _tree(e.args[1] if len(e.args) > 1 else sp.S.Half)]
     op = _FUNCTIONS.get(e.func)
@@ -130,11 +131,13 @@ def _mul(e: sp.Mul) -> Any:
     coefficient, factors = e.as_coeff_mul()
     numerator, denominator = [], []
     for f in factors:
-        if f.is_Pow and f.exp.is_Rational and f.exp.is_negative:
+        if f.is_number:  # constants fold into one number (2*pi -> 6.283185307179586)
+            coefficient *= f
+        elif f.is_Pow and f.exp.is_Rational and f.exp.is_negative:
             denominator.append(f.base if f.exp == -1 else sp.Pow(f.base, -f.exp, evaluate=False))
         else:
             numerator.append(f)
-    negative = bool(coefficient.is_negative)
+    negative = bool(coefficient.is_extended_negative)
     coefficient = -coefficient if negative else coefficient
     top = ([] if coefficient == 1 else [_number(coefficient)]) + [_tree(f) for f in numerator]
     bottom = [_tree(f) for f in denominator]
@@ -162,7 +165,10 @@ def _function_program(
         An expression holds something generated code cannot express (named in the message).
     """
     keys = list(entries)
-    exprs = [entries[key] for key in keys]
+    # DiracDelta, the derivative of a step (second derivatives of abs, min, max), is zero away
+    # from the step, which is all a function on a mesh can hold
+    exprs = [e.replace(sp.DiracDelta, lambda *_: sp.S.Zero) if e.has(sp.DiracDelta) else e
+             for e in (entries[key] for key in keys)]
     temps, reduced = sp.cse(exprs, symbols=sp.numbered_symbols("_t"), order="none")
     # programs name temporaries _t0, _t1, ... in the order they are defined
     names = {t: sp.Symbol(f"_t{i}") for i, (t, _) in enumerate(temps)}
@@ -260,9 +266,7 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
         try:
             return assemble(layout, *stored, system)
         except ProgramError as err:  # a cache entry that is not ours: skipped and rewritten
-            from .compiled import note
-
-            note(f"cache entry for system {key} skipped: {err.one_line()}")
+            skipped(key, err)
     programs, pattern = _system_programs(system)
     sides = _bc_sides(system)
     write_cache(key, programs, pattern, sides)

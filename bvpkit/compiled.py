@@ -120,10 +120,11 @@ class CompiledSystem:
 
 _MEMORY: dict[str, CompiledSystem] = {}
 CACHE_VARIABLE = "BVPKIT_CACHE_DIR"  # where generated code is kept; "off" disables the disk cache
-CACHE_FILE_LIMIT = 32 * 2**20  # bytes; larger cache files are skipped unread. The largest entry
-#   of the bundled specs and benchmarks (a 40-state chain) is about 0.3 MB: 100 times that is
-#   room for systems far bigger than SymPy generates in reasonable time, and still reads in
-#   well under a second
+CACHE_FILE_LIMIT = 8 * 2**20  # bytes; larger cache files are skipped unread. The largest entry of
+#   the bundled specs and benchmarks (the 40-state chain of benchmarks/scale.py) is 21 kB: 400
+#   times that leaves room for systems well beyond what SymPy generates in reasonable time,
+#   while a hostile file can cost at most a fraction of a second of parsing. A skipped file
+#   costs a regeneration, never a wrong result.
 
 
 def _cache_dir():  # noqa: ANN202
@@ -408,8 +409,13 @@ def load_compiled(layout: StateLayout) -> CompiledSystem | None:
     try:
         return assemble(layout, *stored)
     except ProgramError as err:
-        note(f"cache entry for system {layout.key} skipped: {err.one_line()}")
+        skipped(layout.key, err)
         return None
+
+
+def skipped(key: str, err: ProgramError) -> None:
+    """Note a system's cache entry refused by the program checks (it is then regenerated)."""
+    note(f"cache entry {_cache_file(key).name} skipped: {err.one_line()}")
 
 
 def build_quantity(program: dict) -> Callable:

@@ -74,9 +74,9 @@ SYMBOL = re.compile(rf"(?:{_ARGUMENT_SYMBOL.pattern})|(?:{_TEMPORARY.pattern})")
 
 # Limits. They bound the work a hostile program can cause; real programs are far below them.
 MAX_DEPTH = 150  # tree levels. Python's tokenizer refuses more than 200 nested parentheses, and the
-#   printer opens at most one per level; the expression language's 60 levels of text nesting
-#   give trees well below this (tests/test_program.py builds the deepest one it allows)
-MAX_NODES = 500_000  # tree nodes in one program: 100 times the largest of the bundled specs and benchmarks
+#   printer opens at most one per level. Real trees stay far below: SymPy's differentiation
+#   itself runs out of recursion on expressions nested some 40 calls deep (about 120 levels)
+MAX_NODES = 500_000  # tree nodes in one program: the largest of the bundled specs and benchmarks has 200
 MAX_SYMBOLS = 10_000  # symbols one argument unpacks (states, parameters, constants, point values)
 MAX_OUTPUT_SIZE = 1_000_000  # entries of the output before the mesh axis: a dense Jacobian of 1000 states
 MAX_INTEGER = 2**53  # larger integers are written as floats by codegen (exact up to here)
@@ -151,7 +151,7 @@ class _Printer:
     def number(self, value: Any) -> _Part:
         if type(value) is int:
             if abs(value) > MAX_INTEGER:
-                raise self.fail(f"the integer {value:.3g} is beyond 2**53 (write it as a float)")
+                raise self.fail("an integer beyond 2**53 (write it as a float)")
         elif not math.isfinite(value):
             raise self.fail(f"the number {value!r} is not finite")
         text = repr(value)
@@ -190,7 +190,7 @@ class _Printer:
                 if op == "add" and type(item) is list and len(item) == 2 and item[0] == "neg":
                     self.nodes += 1
                     parts.append((" - ", self.tree(item[1], known, depth + 2)))
-                elif op == "add" and type(item) in (int, float) and str(item).startswith("-"):
+                elif op == "add" and type(item) in (int, float) and self.number(item).text.startswith("-"):
                     self.nodes += 1
                     parts.append((" - ", self.number(-item)))
                 else:
