@@ -84,7 +84,8 @@ def _number(e: sp.Expr) -> int | float:
         raise ProgramError(f"generated code cannot hold the complex value {sp.sstr(e)[:60]} (or it has no "
                            "value); check for roots or logarithms of negative constants") from None
     if not np.isfinite(value):
-        raise ProgramError(f"generated code cannot hold the number {sp.sstr(e)[:40]} (it is not a finite float)")
+        raise ProgramError(f"generated code cannot hold the number {sp.sstr(e)[:40]} "
+                           "(it is not a finite float)")
     return value
 
 

@@ -313,7 +313,8 @@ def write_cache(key: str, programs: Sequence[dict], pattern: np.ndarray, sides: 
     path = _cache_file(key)
     if path is None:
         return
-    write_json(path, {"key": key, "programs": list(programs), "pattern": pattern.tolist(), "sides": sides.tolist()})
+    write_json(path, {"key": key, "programs": list(programs), "pattern": pattern.tolist(),
+                      "sides": sides.tolist()})
 
 
 CACHE_KEEP = 500  # files of each kind (system-, problem-) kept; the oldest go first
@@ -371,8 +372,8 @@ def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray,
         raise ProgramError("the Jacobian pattern or the condition sides do not fit the state layout")
     shapes = _expected_shapes(layout, sides.size)
     if (not isinstance(programs, Sequence) or len(programs) != len(_FUNCTIONS)
-            or any(not isinstance(q, dict) or q.get("name") not in shapes or q.get("shape") != shapes[q["name"]]
-                   for q in programs)):
+            or any(not isinstance(q, dict) or q.get("name") not in shapes
+                   or q.get("shape") != shapes[q["name"]] for q in programs)):
         raise ProgramError("the programs are not the ten functions of a system with this state layout")
     f = build(programs)
 

@@ -14,7 +14,7 @@ Program (one generated function)::
      "args": [["x", ["_x"]], ["y", ["_y0", "_y1"]],   # arguments and the symbols each unpacks
               ["p", []], ["k", ["_k0"]]],             #   (positional: _y0 = y[0], _y1 = y[1]; _x = x)
      "shape": [2],                                    # output shape before the mesh axis
-     "mesh": "y",                                     # argument whose trailing shape the output takes, or None
+     "mesh": "y",                                     # argument giving the trailing (mesh) shape, or None
      "temps": [["_t0", tree], ...],                   # shared subexpressions, named _t0, _t1, ... in order
      "entries": [[[1], tree], ...]}                   # output index -> tree (other entries are 0)
 
@@ -267,8 +267,8 @@ class _Printer:
             if type(entry) is not list or len(entry) != 2 or type(entry[0]) is not list:
                 raise self.fail("each entry must be [[index, ...], tree]")
             index = entry[0]
-            if (len(index) != len(shape) or any(type(i) is not int or not 0 <= i < d for i, d in zip(index, shape))
-                    or tuple(index) in seen):
+            if (len(index) != len(shape) or tuple(index) in seen
+                    or any(type(i) is not int or not 0 <= i < d for i, d in zip(index, shape))):
                 raise self.fail(f"entry index {_shown(index)} is outside the shape {shape}, or repeated")
             seen.add(tuple(index))
             body.append(self.statement(f"out[{', '.join(map(str, index))}]", entry[1], known))
@@ -276,7 +276,8 @@ class _Printer:
         for arg_name, symbols in args:
             for i, symbol in enumerate(symbols):
                 if symbol in self.used:
-                    lines.append(f"    {symbol} = {arg_name}" if arg_name == "x" else f"    {symbol} = {arg_name}[{i}]")
+                    whole = arg_name == "x"
+                    lines.append(f"    {symbol} = {arg_name}" if whole else f"    {symbol} = {arg_name}[{i}]")
         if mesh is None:
             lines.append(f"    out = zeros({tuple(shape)!r})")
         else:
@@ -372,7 +373,8 @@ class _SourceCheck:
     @staticmethod
     def index(node: ast.AST) -> bool:
         items = node.elts if type(node) is ast.Tuple else [node]
-        return bool(items) and all(type(i) is ast.Constant and type(i.value) is int and i.value >= 0 for i in items)
+        return bool(items) and all(type(i) is ast.Constant and type(i.value) is int and i.value >= 0
+                                   for i in items)
 
     def expression(self, root: ast.AST) -> None:
         stack = [root]  # iterative: the depth of a hostile tree must not matter here
@@ -401,7 +403,8 @@ class _SourceCheck:
                 if type(f) is not ast.Name or f.id not in CALLABLES or type(f.ctx) is not ast.Load:
                     raise self.fail(node, "a call of something other than an allowed function")
                 if node.keywords or len(node.args) != CALLABLES[f.id]:
-                    raise self.fail(node, f"{f.id} takes {CALLABLES[f.id]} positional argument(s), no keywords")
+                    raise self.fail(node, f"{f.id} takes {CALLABLES[f.id]} positional argument(s), "
+                                          "no keywords")
                 stack += node.args
             elif kind is ast.Subscript:
                 value = node.value

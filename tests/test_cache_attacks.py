@@ -110,15 +110,17 @@ def test_a_planted_entry_in_the_old_source_format_never_runs(tmp_path, monkeypat
     system.write_text(json.dumps({"key": key, "source": payload, "pattern": [[False, True], [True, False]],
                                   "sides": [0, 1], "sha256": hashlib.sha256(payload.encode()).hexdigest()}))
     body["key"] = prepared.spec_key(SPEC, {})
-    body["system"] = {"source": payload, "pattern": body["system"]["pattern"], "sides": body["system"]["sides"]}
+    body["system"] = {**body["system"], "source": payload}
+    del body["system"]["programs"]
     for q in body["quantities"].values():
         q["source"] = payload
         del q["program"]
     for r in body["problem"]["recipes"]:
         r["source"] = payload
         del r["program"]
-    problem.write_text(json.dumps({"body": body,
-                                   "sha256": hashlib.sha256(json.dumps(body, sort_keys=True).encode()).hexdigest()}))
+    # the checksum as the old reader computed it
+    old_checksum = hashlib.sha256(json.dumps(body, sort_keys=True).encode()).hexdigest()
+    problem.write_text(json.dumps({"body": body, "sha256": old_checksum}))
     done = _solve(folder)
     assert not marker.exists()
     _tip(done)  # prepared afresh, and right
@@ -215,7 +217,9 @@ def test_an_oversized_entry_is_skipped_unparsed(warm, monkeypatch):
         handle.write(" " * (compiled.CACHE_FILE_LIMIT + 1))  # still valid JSON, but too large
     done = _solve(folder)
     _tip(done)
-    assert f"cache entry {problem.name} skipped: it is larger than {compiled.CACHE_FILE_LIMIT} bytes" in done.stderr
+    limit = compiled.CACHE_FILE_LIMIT
+    assert _notes(done) == [f"bvpkit: note: cache entry {problem.name} skipped: it is larger than {limit} "
+                            "bytes"]
 
 
 def test_a_folder_writable_by_others_is_neither_read_nor_written_and_said_once(warm):
@@ -224,8 +228,8 @@ def test_a_folder_writable_by_others_is_neither_read_nor_written_and_said_once(w
     before = {p.name: p.stat().st_mtime_ns for p in folder.iterdir()}
     done = _solve(folder)
     _tip(done)
-    assert _notes(done) == [f"bvpkit: note: cache folder {folder} not used: it is writable by group or others "
-                            "(mode 777; chmod go-w to use it)"]
+    assert _notes(done) == [f"bvpkit: note: cache folder {folder} not used: it is writable by group or "
+                            "others (mode 777; chmod go-w to use it)"]
     assert {p.name: p.stat().st_mtime_ns for p in folder.iterdir()} == before
 
 
@@ -264,7 +268,8 @@ def test_a_sweep_workers_preparation_with_a_hostile_program_is_refused(tmp_path,
 # -- the source check -------------------------------------------------------------------------
 
 def _function(body):
-    return "def rhs(x, y, p, k):\n" + "".join(f"    {line}\n" for line in body.splitlines()) + "    return out\n"
+    lines = "".join(f"    {line}\n" for line in body.splitlines())
+    return "def rhs(x, y, p, k):\n" + lines + "    return out\n"
 
 
 ESCAPES = {
@@ -363,8 +368,9 @@ def test_the_source_check_refuses_a_malformed_frame(source):
 
 def test_the_source_check_accepts_what_the_printer_writes():
     tree = ["add", ["exp", "_y0"], ["heaviside", "_x", 0.5], ["neg", ["pow", "_k0", -2]]]
-    source = program.render({"name": "rhs", "args": [["x", ["_x"]], ["y", ["_y0"]], ["p", []], ["k", ["_k0"]]],
-                             "shape": [1], "mesh": "y", "temps": [], "entries": [[[0], tree]]})
+    args = [["x", ["_x"]], ["y", ["_y0"]], ["p", []], ["k", ["_k0"]]]
+    source = program.render({"name": "rhs", "args": args, "shape": [1], "mesh": "y", "temps": [],
+                             "entries": [[[0], tree]]})
     program.check_source(source)  # does not raise
     with pytest.raises(ProgramError, match="the name 'numpy'"):
         program.check_source(source.replace("exp(_y0)", "exp(numpy)"))
@@ -412,7 +418,8 @@ HOSTILE = {
     "'mesh' must be None or the name of an argument": _rhs(mesh="__class__"),
     "temporary 0 must be": _rhs(temps=[["__t0", 1]]),
     "entry index \\[5\\] is outside the shape": _rhs(entries=[[[5], "_y0"]]),
-    "entry index \\[0\\] is outside the shape \\[2\\], or repeated": _rhs(entries=[[[0], "_y0"], [[0], "_y1"]]),
+    "entry index \\[0\\] is outside the shape \\[2\\], or repeated":
+        _rhs(entries=[[[0], "_y0"], [[0], "_y1"]]),
     "unknown field 'source'": {**_rhs(), "source": "import os"},
     "a str .* where a program": "def rhs(): pass",
 }

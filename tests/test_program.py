@@ -79,7 +79,8 @@ def test_every_function_solves_its_manufactured_problem(name):
     solution = bvpkit.solve(_manufactured(name), tol=1e-8)
     assert solution.success, solution.message
     for x in (0.0, 0.25, 0.5, 0.75, 1.0):
-        assert solution.evaluate(f"y({x})") == pytest.approx(c + x**2 / 4, rel=1e-7, abs=1e-8)  # analytic: u(x)
+        # analytic: u(x)
+        assert solution.evaluate(f"y({x})") == pytest.approx(c + x**2 / 4, rel=1e-7, abs=1e-8)
     # the output through the reference library at the analytic solution
     assert solution.outputs["value"] == pytest.approx(reference(c + 0.0625), rel=1e-7, abs=1e-8)
 
@@ -102,10 +103,10 @@ def test_every_function_has_the_exact_jacobian(name):
     for j in range(2):
         e = np.zeros(2)
         e[j] = h
-        np.testing.assert_allclose(dya[:, j], (compiled.bc(ya + e, yb, p, k) - compiled.bc(ya - e, yb, p, k)) / (2 * h),
-                                   rtol=1e-6, atol=1e-8)
-        np.testing.assert_allclose(dyb[:, j], (compiled.bc(ya, yb + e, p, k) - compiled.bc(ya, yb - e, p, k)) / (2 * h),
-                                   rtol=1e-6, atol=1e-8)
+        left = (compiled.bc(ya + e, yb, p, k) - compiled.bc(ya - e, yb, p, k)) / (2 * h)
+        right = (compiled.bc(ya, yb + e, p, k) - compiled.bc(ya, yb - e, p, k)) / (2 * h)
+        np.testing.assert_allclose(dya[:, j], left, rtol=1e-6, atol=1e-8)
+        np.testing.assert_allclose(dyb[:, j], right, rtol=1e-6, atol=1e-8)
 
 
 def test_abs_of_an_argument_sympy_cannot_prove_real_differentiates_to_sign():
@@ -116,7 +117,8 @@ def test_abs_of_an_argument_sympy_cannot_prove_real_differentiates_to_sign():
     y = np.array([[0.5, 2.0], [0.0, 0.0]])
     assert compiled.jac(np.array([0.1, 0.2]), y, np.zeros(0), np.zeros(0))[1, 0] == pytest.approx([-2.0, 0.5])
     solution = bvpkit.solve(problem, tol=1e-8)
-    assert solution.success and solution.evaluate("y(0.5)") == pytest.approx(1.5, rel=1e-7)  # analytic: y = 1 + x
+    assert solution.success
+    assert solution.evaluate("y(0.5)") == pytest.approx(1.5, rel=1e-7)  # analytic: y = 1 + x
 
 
 def test_a_third_order_guess_through_a_kink_has_its_piecewise_derivatives():
@@ -143,7 +145,8 @@ _BINARY = [op for op, (_, arity) in program.FUNCTIONS.items() if arity == 2]
 
 def _extend(inner):
     return st.one_of(
-        st.tuples(st.sampled_from(["add", "mul"]), st.lists(inner, min_size=2, max_size=4)).map(lambda t: [t[0], *t[1]]),
+        st.tuples(st.sampled_from(["add", "mul"]), st.lists(inner, min_size=2, max_size=4))
+        .map(lambda t: [t[0], *t[1]]),
         st.tuples(st.sampled_from(["div", "pow", *_BINARY]), inner, inner).map(list),
         st.tuples(st.sampled_from(["neg", *_UNARY]), inner).map(list),
     )
@@ -186,7 +189,7 @@ def test_printed_programs_compute_exactly_what_their_trees_mean(tree):
         try:
             expected = np.zeros(3)
             expected[...] = _evaluate(tree, values)
-        except (ArithmeticError, TypeError, Warning) as err:  # Python numbers alone: 1 / 0, (-1) ** 0.5 is complex
+        except (ArithmeticError, TypeError, Warning) as err:  # numbers alone: 1 / 0; (-1) ** 0.5 is complex
             with pytest.raises(type(err)):
                 program.build([_quantity([tree])])["quantity"](x, y)
             return
@@ -195,15 +198,15 @@ def test_printed_programs_compute_exactly_what_their_trees_mean(tree):
 
 
 def test_numbers_print_exactly_and_signs_bind_as_written():
-    tree = ["add", ["neg", ["pow", "_x", 2]], ["pow", -2.0, "_y0"], 0.1, -1e-300, 2**53, ["neg", ["neg", "_y1"]],
-            ["div", "_x", ["mul", "_y0", "_y1"]], ["pow", "_x", ["neg", 1]], ["pow", ["pow", "_x", "_y0"], "_y1"],
-            ["pow", "_x", ["pow", "_y0", "_y1"]]]
+    tree = ["add", ["neg", ["pow", "_x", 2]], ["pow", -2.0, "_y0"], 0.1, -1e-300, 2**53,
+            ["neg", ["neg", "_y1"]], ["div", "_x", ["mul", "_y0", "_y1"]], ["pow", "_x", ["neg", 1]],
+            ["pow", ["pow", "_x", "_y0"], "_y1"], ["pow", "_x", ["pow", "_y0", "_y1"]]]
     source = program.render(_quantity([tree]))
     assert "out[0] = -_x ** 2 + (-2.0) ** _y0 + 0.1 - 1e-300 + 9007199254740992 - -_y1 + _x / (_y0 * _y1) " \
            "+ _x ** -1 + (_x ** _y0) ** _y1 + _x ** _y0 ** _y1" in source
     x, y = np.array([1.5]), np.array([[2.0], [3.0]])
-    expected = (-1.5**2 + (-2.0) ** 2.0 + 0.1 - 1e-300 + 2.0**53 + 3.0 + 1.5 / 6.0 + 1.5**-1 + (1.5**2.0) ** 3.0
-                + 1.5 ** (2.0**3.0))
+    expected = (-1.5**2 + (-2.0) ** 2.0 + 0.1 - 1e-300 + 2.0**53 + 3.0 + 1.5 / 6.0 + 1.5**-1
+                + (1.5**2.0) ** 3.0 + 1.5 ** (2.0**3.0))
     assert program.build([_quantity([tree])])["quantity"](x, y)[0, 0] == expected  # IEEE, same order
 
 
@@ -236,8 +239,8 @@ def test_a_real_system_program_passes_the_source_check_and_needs_no_attribute():
 
     from bvpkit import codegen
 
-    problem = bvpkit.Problem(["y'' = -k*exp(y)*erf(y) + atan2(y, x + 1)"], ["y(0) = 0", "y(1) = abs(y'(1))"], (0, 1),
-                             constants={"k": 0.5})
+    problem = bvpkit.Problem(["y'' = -k*exp(y)*erf(y) + atan2(y, x + 1)"], ["y(0) = 0", "y(1) = abs(y'(1))"],
+                             (0, 1), constants={"k": 0.5})
     programs, _ = codegen._system_programs(problem.system)
     source = "".join(program.render(q) for q in programs)
     tree = program.check_source(source)
