@@ -376,8 +376,23 @@ def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001
     }
 
 
+def _show_cache_notes() -> None:
+    """Print the library's notes on skipped cache folders and entries (the ``bvpkit.cache``
+    logger) as one line each on standard error (the stream of the moment, looked up per note)."""
+    import logging
+
+    class CacheNotes(logging.Handler):
+        def emit(self, record: logging.LogRecord) -> None:
+            print(f"bvpkit: note: {record.getMessage()}", file=sys.stderr)
+
+    logger = logging.getLogger("bvpkit.cache")
+    if not any(type(h).__name__ == "CacheNotes" for h in logger.handlers):
+        logger.addHandler(CacheNotes())
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit code."""
+    _show_cache_notes()
     parser = _parser()
     _Parser._argv = list(argv) if argv is not None else sys.argv[1:]  # type: ignore[attr-defined]
     args = parser.parse_args(argv)

@@ -1,49 +1,43 @@
-"""Compiled systems: the numerical callables of a first-order system, and their disk cache.
+"""Compiled systems: the numerical callables of a standard form, and their disk cache.
 
-Nothing here imports SymPy: a system whose generated code is in the cache (keyed by its
-content and the bvpkit code, see code_stamp) is rebuilt from that code alone. ``codegen.py`` writes the
-code in the first place.
+Nothing here imports SymPy: a system whose programs are in the cache (keyed by its content
+and the bvpkit code, see code_stamp) is rebuilt from them alone. ``codegen.py`` makes the
+programs in the first place.
 
-The generated source holds only internal names (``_x``, ``_y0``, ``_p0``, ``_k0``, ``_t0``)
-and the names of NumPy/SciPy functions: no text a user typed ever reaches ``compile``.
-:func:`check_source` enforces that before anything is compiled, whatever the code's origin.
+A program is the plain data of one generated function (:mod:`bvpkit.program`); callables are
+built from programs by :func:`bvpkit.program.build`, which prints Python source from them
+afresh and checks it before compiling. No stored text is ever executed.
+
+Cache files are read only from a folder owned by the user and not writable by group or
+others, only when they are regular files owned by the user (opened without following
+symbolic links) and at most ``CACHE_FILE_LIMIT`` bytes long. Anything else is skipped, with
+one note on the ``bvpkit.cache`` logger (the command line prints it to standard error).
 """
 
 from __future__ import annotations
 
 import dataclasses
 import functools
-import re
+import logging
 from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
-import scipy  # submodules (scipy.special for erf) load on first use by generated code
 
+from .errors import ProgramError
 from .layout import StateLayout
+from .program import build
 
-_NAMESPACE = {"numpy": np, "scipy": scipy, "functools": functools}
-_ALLOWED_WORDS = re.compile(
-    r"^(_[xyptk]\w*|_ya\d+|_yb\d+|numpy(\.\w+)*|scipy(\.\w+)*|functools\.reduce|def|return|"
-    r"out|x|y|p|k|t|ya|yb|shape|abs|rhs|jac|pjac|kjac|bc|bc_jac_[abpk]|quantity|singular_matrix|"
-    r"region_maps)$"
-)
+_LOG = logging.getLogger("bvpkit.cache")
+_LOG.addHandler(logging.NullHandler())  # a library does not print; the command line adds a handler
+_NOTED: set[str] = set()
 
 
-def check_source(source: str) -> None:
-    """Refuse generated code holding any name outside the internal vocabulary."""
-    for word in re.findall(r"[A-Za-z_][\w.]*", source):
-        if not _ALLOWED_WORDS.match(word) and not re.fullmatch(r"\d*[eE]\d*", word):
-            raise RuntimeError(f"generated code holds an unexpected name {word!r}")
-
-
-def _build(source: str, names: Sequence[str]) -> dict[str, Callable]:
-    check_source(source)
-    namespace = dict(_NAMESPACE)
-    # The source is generated from a validated SymPy tree in internal symbols only
-    # (check_source above); no user text reaches it.
-    exec(compile(source, "<bvpkit-generated>", "exec"), namespace)  # noqa: S102
-    return {name: namespace[name] for name in names}
+def note(message: str) -> None:
+    """Say once per process why (part of) the cache was skipped, on the ``bvpkit.cache`` logger."""
+    if message not in _NOTED:
+        _NOTED.add(message)
+        _LOG.warning(message)
 
 
 class CompiledSystem:
@@ -73,13 +67,14 @@ class CompiledSystem:
         Per condition, which states it can involve: 0 those at ``t = 0`` only, 1 those at
         ``t = 1`` only, 2 both or the parameters. Separated conditions let collocation
         solve its Newton steps with a banded LU.
-    source : str
-        The generated Python source (what the disk cache stores).
+    programs : tuple of dict
+        The generated functions as plain data (what the disk cache stores; see
+        :mod:`bvpkit.program`).
     """
 
     def __init__(self, layout: StateLayout, functions: dict[str, Callable], pattern: np.ndarray,
-                 sides: np.ndarray, source: str):
-        self.layout, self.jac_pattern, self.bc_sides, self.source = layout, pattern, sides, source
+                 sides: np.ndarray, programs: tuple):
+        self.layout, self.jac_pattern, self.bc_sides, self.programs = layout, pattern, sides, programs
         self._f = functions
         self.bc = functions["bc"]
         self.bc_kjac = functions["bc_jac_k"]
@@ -189,7 +184,7 @@ class Freed:
         self.base, self.index = base, index
         lay = base.layout
         self.layout = dataclasses.replace(lay, parameters=(*lay.parameters, lay.constants[index]))
-        self.jac_pattern, self.source = base.jac_pattern, base.source
+        self.jac_pattern, self.programs = base.jac_pattern, base.programs
         self.bc_sides = np.full(base.bc_sides.size, 2)
 
     n = CompiledSystem.n
@@ -234,6 +229,11 @@ class Freed:
 
 _MEMORY: dict[str, CompiledSystem] = {}
 CACHE_VARIABLE = "BVPKIT_CACHE_DIR"  # where generated code is kept; "off" disables the disk cache
+CACHE_FILE_LIMIT = 8 * 2**20  # bytes; larger cache files are skipped unread. The largest entry of
+#   the bundled specs and benchmarks (the 40-state chain of benchmarks/scale.py) is 21 kB: 400
+#   times that leaves room for systems well beyond what SymPy generates in reasonable time,
+#   while a hostile file can cost at most a fraction of a second of parsing. A skipped file
+#   costs a regeneration, never a wrong result.
 
 
 def _cache_dir():  # noqa: ANN202
@@ -247,6 +247,96 @@ def _cache_dir():  # noqa: ANN202
         return Path(chosen)
     base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
     return Path(base) / "bvpkit"
+
+
+def _me() -> int | None:
+    import os
+
+    return os.geteuid() if hasattr(os, "geteuid") else None  # no owners to compare on Windows
+
+
+def private_folder(create: bool = False):  # noqa: ANN201 - a pathlib.Path or None
+    """The cache folder, if it is a folder owned by the user and not writable by group or
+    others (as secure shells treat key folders); else None, with a note saying why.
+
+    With ``create``, a missing folder is made (mode 0700).
+    """
+    import os
+    import stat
+
+    folder = _cache_dir()
+    if folder is None:
+        return None
+    try:
+        info = os.stat(folder)
+    except FileNotFoundError:
+        if not create:
+            return None
+        try:
+            folder.mkdir(mode=0o700, parents=True, exist_ok=True)
+            info = os.stat(folder)
+        except OSError as err:
+            note(f"cache folder {folder} not used: cannot create it ({err.strerror})")
+            return None
+    except OSError as err:
+        note(f"cache folder {folder} not used: {err.strerror}")
+        return None
+    me = _me()
+    if not stat.S_ISDIR(info.st_mode):
+        why = "it is not a folder"
+    elif me is not None and info.st_uid != me:
+        why = f"it belongs to another user (uid {info.st_uid})"
+    elif me is not None and info.st_mode & 0o022:
+        why = f"it is writable by group or others (mode {stat.S_IMODE(info.st_mode):o}; chmod go-w to use it)"
+    else:
+        return folder
+    note(f"cache folder {folder} not used: {why}")
+    return None
+
+
+def read_private(path: Any) -> bytes | None:
+    """The bytes of a cache file, or None: missing, or skipped (with a note) unless it is a
+    regular file owned by the user, not writable by group or others, reached without a
+    symbolic link and at most ``CACHE_FILE_LIMIT`` bytes."""
+    import errno
+    import os
+    import stat
+
+    flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_NONBLOCK", 0)  # a FIFO must not block
+    try:
+        handle = os.open(path, flags)
+    except FileNotFoundError:
+        return None
+    except OSError as err:
+        why = "it is a symbolic link" if err.errno == errno.ELOOP else err.strerror
+        note(f"cache entry {path.name} skipped: {why}")
+        return None
+    try:
+        info = os.fstat(handle)
+        me = _me()
+        if not stat.S_ISREG(info.st_mode):
+            why = "it is not a regular file"
+        elif me is not None and info.st_uid != me:
+            why = f"it belongs to another user (uid {info.st_uid})"
+        elif me is not None and info.st_mode & 0o022:
+            why = "it is writable by group or others"
+        elif info.st_size > CACHE_FILE_LIMIT:
+            why = f"it is larger than {CACHE_FILE_LIMIT} bytes"
+        else:
+            chunks, size = [], 0
+            while size <= CACHE_FILE_LIMIT:  # read to the end, never past the limit (the file may grow)
+                chunk = os.read(handle, min(1 << 20, CACHE_FILE_LIMIT + 1 - size))
+                if not chunk:
+                    return b"".join(chunks)
+                chunks.append(chunk)
+                size += len(chunk)
+            why = f"it is larger than {CACHE_FILE_LIMIT} bytes"
+    except OSError as err:
+        why = err.strerror
+    finally:
+        os.close(handle)
+    note(f"cache entry {path.name} skipped: {why}")
+    return None
 
 
 def _cache_file(key: str):  # noqa: ANN202
@@ -277,57 +367,88 @@ def code_stamp() -> str:
     return _STAMP[0]
 
 
-def read_cache(key: str) -> tuple[str, np.ndarray, np.ndarray] | None:
-    """The cached source, Jacobian pattern and condition sides, or None (missing, unreadable or corrupted)."""
+def checksum(body: Any) -> str:
+    """SHA-256 of a JSON-ready body (a guard against damage, not against a writer)."""
     import hashlib
     import json
 
-    path = _cache_file(key)
-    if path is None:
+    return hashlib.sha256(json.dumps(body, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+
+
+def read_json(path: Any) -> Any:
+    """A cache file's ``body`` (see :func:`write_json`), or None: missing, skipped, damaged."""
+    import json
+
+    if path is None or private_folder() is None:
+        return None
+    data = read_private(path)
+    if data is None:
         return None
     try:
-        data = json.loads(path.read_text())
-        source, pattern, sides, digest = data["source"], data["pattern"], data["sides"], data["sha256"]
-        if hashlib.sha256(source.encode()).hexdigest() != digest or data["key"] != key:
-            return None
-        return source, np.array(pattern, dtype=bool), np.array(sides, dtype=int)
-    except (OSError, ValueError, KeyError, TypeError):
-        return None  # a corrupted or half-written file is regenerated, never trusted
+        stored = json.loads(data)
+        body = stored["body"]
+        if stored["sha256"] != checksum(body):
+            raise ValueError("checksum")
+    except (ValueError, KeyError, TypeError, RecursionError):
+        note(f"cache entry {path.name} skipped: damaged or in an older format")
+        return None
+    return body
 
 
-def write_cache(key: str, source: str, pattern: np.ndarray, sides: np.ndarray) -> None:
-    """Keep generated code on disk (see :func:`write_atomically`)."""
-    import hashlib
+def write_json(path: Any, body: Any) -> None:
+    """Keep a JSON-ready ``body`` with its checksum (see :func:`write_atomically`)."""
     import json
 
+    write_atomically(path, json.dumps({"body": body, "sha256": checksum(body)}, separators=(",", ":")))
+
+
+def read_cache(key: str) -> tuple[list, np.ndarray, np.ndarray] | None:
+    """The cached programs, Jacobian pattern and condition sides, or None (missing, skipped or damaged)."""
+    path = _cache_file(key)
+    body = read_json(path)
+    if body is None:
+        return None
+    try:
+        if body["key"] != key or type(body["programs"]) is not list:
+            raise ValueError("key")
+        return body["programs"], np.array(body["pattern"], dtype=bool), np.array(body["sides"], dtype=int)
+    except (ValueError, KeyError, TypeError):
+        note(f"cache entry {path.name} skipped: it does not hold what its name says")
+        return None
+
+
+def write_cache(key: str, programs: Sequence[dict], pattern: np.ndarray, sides: np.ndarray) -> None:
+    """Keep the programs of a system on disk (see :func:`write_atomically`)."""
     path = _cache_file(key)
     if path is None:
         return
-    data = {"key": key, "source": source, "pattern": pattern.tolist(), "sides": sides.tolist(),
-            "sha256": hashlib.sha256(source.encode()).hexdigest()}
-    write_atomically(path, json.dumps(data))
+    write_json(path, {"key": key, "programs": list(programs), "pattern": pattern.tolist(),
+                      "sides": sides.tolist()})
 
 
 CACHE_KEEP = 500  # files of each kind (system-, problem-) kept; the oldest go first
 
 
 def write_atomically(path: Any, text: str) -> None:
-    """Write a cache file: a temporary file in the same folder, then ``os.replace`` (safe
-    for concurrent writers and readers); then drop the oldest files of the same kind beyond
-    ``CACHE_KEEP``. Never raises: a read-only or full disk costs speed, not correctness."""
+    """Write a cache file: a temporary file (mode 0600) in the same folder, then ``os.replace``
+    (safe for concurrent writers and readers); then drop the oldest files of the same kind
+    beyond ``CACHE_KEEP``. Writes only into a private folder (made with mode 0700 if
+    missing; see :func:`private_folder`). Never raises: a read-only or full disk costs
+    speed, not correctness."""
     import os
     import tempfile
 
     kind = path.name.split("-", 1)[0]
     try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        handle, temporary = tempfile.mkstemp(prefix=f".{kind}-", suffix=".tmp", dir=path.parent)
+        if private_folder(create=True) != path.parent:
+            return
+        handle, temporary = tempfile.mkstemp(prefix=f".{kind}-", suffix=".tmp", dir=path.parent)  # mode 0600
         with os.fdopen(handle, "w") as out:
             out.write(text)
         os.replace(temporary, path)
         files = list(path.parent.glob(f"{kind}-*.json"))
         if len(files) > CACHE_KEEP:
-            files.sort(key=lambda f: f.stat().st_mtime)
+            files.sort(key=lambda f: f.lstat().st_mtime)
             for old in files[: len(files) - CACHE_KEEP]:
                 old.unlink(missing_ok=True)
     except OSError:
@@ -338,9 +459,32 @@ _FUNCTIONS = ["rhs", "jac", "pjac", "kjac", "bc", "bc_jac_a", "bc_jac_b", "bc_ja
               "region_maps"]
 
 
-def assemble(layout: StateLayout, source: str, pattern: np.ndarray, sides: np.ndarray) -> CompiledSystem:
-    """The callables of generated ``source`` (checked by :func:`check_source` first)."""
-    compiled = CompiledSystem(layout, _build(source, _FUNCTIONS), pattern, sides, source)
+def _expected_shapes(layout: StateLayout, m: int) -> dict[str, list[int]]:
+    n, n_p, n_k = layout.n, len(layout.parameters), len(layout.constants)
+    return {"rhs": [n], "jac": [n, n], "pjac": [n, n_p], "kjac": [n, n_k], "singular_matrix": [n, n],
+            "region_maps": [layout.regions, 2], "bc": [m], "bc_jac_a": [m, n], "bc_jac_b": [m, n],
+            "bc_jac_p": [m, n_p], "bc_jac_k": [m, n_k]}
+
+
+def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray, sides: np.ndarray) -> CompiledSystem:
+    """The callables of a standard form's ``programs`` (see :func:`bvpkit.program.build`).
+
+    Raises
+    ------
+    ProgramError
+        The programs are not a system's functions of the shapes ``layout`` implies, or one is
+        outside the grammar; or ``pattern``, ``sides`` do not fit the layout.
+    """
+    pattern, sides = np.asarray(pattern), np.asarray(sides)
+    if (pattern.shape != (layout.n, layout.n) or pattern.dtype != bool or sides.ndim != 1
+            or not np.isin(sides, (0, 1, 2)).all()):
+        raise ProgramError("the Jacobian pattern or the condition sides do not fit the state layout")
+    shapes = _expected_shapes(layout, sides.size)
+    if (not isinstance(programs, Sequence) or len(programs) != len(_FUNCTIONS)
+            or any(not isinstance(q, dict) or q.get("name") not in shapes
+                   or q.get("shape") != shapes[q["name"]] for q in programs)):
+        raise ProgramError("the programs are not the functions of a system with this state layout")
+    compiled = CompiledSystem(layout, build(programs), pattern, sides, tuple(programs))
     _MEMORY[layout.key] = compiled
     return compiled
 
@@ -353,11 +497,23 @@ def load_compiled(layout: StateLayout) -> CompiledSystem | None:
     stored = read_cache(layout.key)
     if stored is None:
         return None
-    return assemble(layout, *stored)
+    try:
+        return assemble(layout, *stored)
+    except ProgramError as err:
+        skipped(layout.key, err)
+        return None
 
 
-def build_quantity(source: str) -> Callable:
-    """The ``quantity`` function of generated ``source`` (checked first)."""
-    function = _build(source, ["quantity"])["quantity"]
-    function.source = source  # what a cache of quantities stores
+def skipped(key: str, err: ProgramError) -> None:
+    """Note a system's cache entry refused by the program checks (it is then regenerated)."""
+    note(f"cache entry {_cache_file(key).name} skipped: {err.one_line()}")
+
+
+def build_quantity(program: dict) -> Callable:
+    """The ``quantity`` function of ``program`` (see :func:`bvpkit.program.build`),
+    carrying the program as ``.program`` (what a cache of quantities stores)."""
+    if not isinstance(program, dict) or program.get("name") != "quantity":
+        raise ProgramError("a compiled quantity must be a program named 'quantity'")
+    function = build([program])["quantity"]
+    function.program = program
     return function

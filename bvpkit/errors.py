@@ -66,6 +66,12 @@ class OptionError(BvpkitError):
     """A solver option has a wrong value (unknown method name, negative tolerance, ...)."""
 
 
+class ProgramError(BvpkitError):
+    """Plain data of a generated function (a program, see :mod:`bvpkit.program`) is outside
+    its grammar, or an expression cannot be written in it. A cache entry that raises it is
+    skipped and regenerated."""
+
+
 class MissingExtraError(BvpkitError, ImportError):
     """An optional package is needed for this feature and is not installed."""
 

@@ -45,16 +45,17 @@ def physical(t: np.ndarray, maps: np.ndarray) -> np.ndarray:
 class GuessRecipe:
     """How to guess one unknown function on any mesh, as plain data (no SymPy).
 
-    ``kind`` is ``"expression"`` (``source`` computes the function and its derivatives from
+    ``kind`` is ``"expression"`` (``program`` computes the function and its derivatives from
     ``(x, p, k)``) or ``"polynomial"`` (the lowest-degree polynomial meeting the linear
     conditions on the function alone: ``conditions`` lists each one's ``(point, derivative)``
-    terms, and ``source`` computes their coefficients and constants from ``(p, k)``).
+    terms, and ``program`` computes their coefficients and constants from ``(p, k)``).
+    Programs are plain data (:mod:`bvpkit.program`).
     """
 
     name: str
     order: int
     kind: str
-    source: str = ""
+    program: dict | None = None
     conditions: list = field(default_factory=list)
 
     def __call__(self, x: np.ndarray, points: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:
@@ -63,11 +64,11 @@ class GuessRecipe:
         ``points`` are the ends and interfaces in the user's variable."""
         if self.kind == "expression":
             with np.errstate(all="ignore"):
-                return np.broadcast_to(_function(self.source)(x, p, k), (self.order, x.size)).astype(float)
+                return np.broadcast_to(_function(self.program)(x, p, k), (self.order, x.size)).astype(float)
         if not self.conditions:
             return np.zeros((self.order, x.size))
         with np.errstate(all="ignore"):
-            values = iter(_function(self.source)(np.zeros(1), p, k)[:, 0])
+            values = iter(_function(self.program)(np.zeros(1), p, k)[:, 0])
         rows, rhs = [], []
         for terms in self.conditions:
             row: dict = {}
@@ -81,24 +82,30 @@ class GuessRecipe:
         return _fit(rows, rhs, self.order, x, float(points[0]), float(points[-1]))
 
     def plain(self) -> dict[str, Any]:
-        return {"name": self.name, "order": self.order, "kind": self.kind, "source": self.source,
+        return {"name": self.name, "order": self.order, "kind": self.kind, "program": self.program,
                 "conditions": [[list(t) for t in terms] for terms in self.conditions]}
 
     @classmethod
     def from_plain(cls, data: Mapping[str, Any]) -> GuessRecipe:
-        return cls(str(data["name"]), int(data["order"]), str(data["kind"]), str(data["source"]),
+        return cls(str(data["name"]), int(data["order"]), str(data["kind"]), data["program"],
                    [[(int(point), int(j)) for point, j in terms] for terms in data["conditions"]])
 
 
 _FUNCTIONS: dict[str, Any] = {}
 
 
-def _function(source: str) -> Any:
-    function = _FUNCTIONS.get(source)
+def _function(program: dict) -> Any:
+    """The callable of a quantity's program (built once per program text)."""
+    import json
+
+    key = json.dumps(program, sort_keys=True)
+    function = _FUNCTIONS.get(key)
     if function is None:
         from .compiled import build_quantity
 
-        function = _FUNCTIONS[source] = build_quantity(source)
+        if len(_FUNCTIONS) > 4_000:
+            _FUNCTIONS.clear()
+        function = _FUNCTIONS[key] = build_quantity(program)
     return function
 
 
@@ -118,7 +125,7 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     """A guess expression of the user's variable (and constants, parameters) as a recipe."""
     import sympy as sp
 
-    from .codegen import compile_expressions
+    from .codegen import compile_expressions, derivative
     from .reduce import X
 
     names = {problem.x: X}
@@ -128,9 +135,9 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     order = dict(form.functions)[name]
     derivatives = [e]
     for _ in range(order - 1):
-        derivatives.append(sp.diff(derivatives[-1], X))
+        derivatives.append(derivative(derivatives[-1], X))
     f = compile_expressions(derivatives, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
-    return GuessRecipe(name, order, "expression", f.source)
+    return GuessRecipe(name, order, "expression", f.program)
 
 
 def _polynomial_recipe(form, name: str, order: int) -> GuessRecipe:  # noqa: ANN001
@@ -158,7 +165,7 @@ def _polynomial_recipe(form, name: str, order: int) -> GuessRecipe:  # noqa: ANN
     if not terms_found:
         return GuessRecipe(name, order, "polynomial")
     f = compile_expressions(exprs, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
-    return GuessRecipe(name, order, "polynomial", f.source, terms_found)
+    return GuessRecipe(name, order, "polynomial", f.program, terms_found)
 
 
 def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray, a: float, b: float) -> np.ndarray:

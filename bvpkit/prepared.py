@@ -14,8 +14,10 @@ solve passes (:func:`bvpkit.problem.check_positions`).
 A second ``bvpkit solve`` of the same spec file takes the preparation from the disk cache
 (:func:`cached`, :func:`remember`), keyed by the spec file's bytes, the ``--set`` values and
 the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and carries a
-SHA-256 checksum; one that is unreadable, tampered with or from other code is ignored and
-rewritten. Generated code is re-checked by ``compiled.check_source`` before it runs.
+SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
+a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
+from other code is ignored and rewritten. Generated functions travel as programs (plain
+data, :mod:`bvpkit.program`), never as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations
@@ -31,8 +33,9 @@ from typing import Any
 
 import numpy as np
 
-from .compiled import _MEMORY, CompiledSystem, _cache_dir, assemble, code_stamp, write_atomically
-from .errors import OptionError, ProblemError, closest
+from .compiled import (_MEMORY, CompiledSystem, _cache_dir, assemble, build_quantity, code_stamp, note, read_json,
+                       write_json)
+from .errors import BvpkitError, OptionError, ProblemError, closest
 from .guess import GuessRecipe
 from .layout import LENGTH, StateLayout
 from .quantity import Quantity
@@ -54,8 +57,8 @@ class Prepared:
         (region values of constants), ``key``.
     layout : StateLayout
     system : dict
-        The compiled system as plain data: generated ``source``, Jacobian ``pattern``, and
-        condition ``sides``.
+        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.program`),
+        Jacobian ``pattern``, and condition ``sides``.
     recipes : dict of str to GuessRecipe
     quantities : dict of str to Quantity
         The outputs (and other expressions prepared with them), compiled.
@@ -80,7 +83,7 @@ class Prepared:
         found = _MEMORY.get(self.layout.key)
         if found is None:
             s = self.system
-            found = assemble(self.layout, s["source"], np.array(s["pattern"], dtype=bool), np.array(s["sides"], dtype=int))
+            found = assemble(self.layout, s["programs"], np.array(s["pattern"], dtype=bool), np.array(s["sides"], dtype=int))
         return found
 
     @property
@@ -282,7 +285,8 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
         "outputs": dict(problem.outputs), "settings": dict(problem.settings), "arguments": _plain_arguments(problem),
         "points": problem.point_labels, "own": _own(problem),
     }
-    system = {"source": compiled.source, "pattern": compiled.jac_pattern.tolist(), "sides": compiled.bc_sides.tolist()}
+    system = {"programs": list(compiled.programs), "pattern": compiled.jac_pattern.tolist(),
+              "sides": compiled.bc_sides.tolist()}
     quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
     return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,
                     dict(problem.constants), _parameters(problem))
@@ -310,39 +314,36 @@ def _file(key: str) -> Path | None:
     return None if folder is None else folder / f"{_KIND}-{key}-{code_stamp()}.json"
 
 
-def _checksum(body: Mapping[str, Any]) -> str:
-    return hashlib.sha256(json.dumps(body, sort_keys=True).encode()).hexdigest()
-
-
 def cached(key: str | None) -> Prepared | None:
-    """The preparation kept under ``key`` (no SymPy), or None."""
+    """The preparation kept under ``key`` (no SymPy), or None (missing, skipped, damaged)."""
     path = None if key is None else _file(key)
     if path is None:
         return None
+    body = read_json(path)
+    if body is None:
+        return None
     try:
-        data = json.loads(path.read_text())
-        body = data["body"]
-        if data["sha256"] != _checksum(body) or body["key"] != key:
-            return None
+        if body["key"] != key:
+            raise KeyError("key")
         prepared = Prepared.from_plain(body["prepared"])
-        from .compiled import check_source
-
-        # every piece of generated code is checked now, not when first run
-        for source in [prepared.system["source"], *(r.source for r in prepared.recipes.values()),
-                       *_sources(prepared.quantities.values())]:
-            check_source(source)
-        prepared.compiled  # noqa: B018 - builds the system's code now
+        # every program is validated and built now, not in the middle of a solve
+        for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
+                        *_programs(prepared.quantities.values())]:
+            build_quantity(program)
+        prepared.compiled  # noqa: B018 - builds the system's programs now
         return prepared
-    except (OSError, ValueError, KeyError, TypeError, RuntimeError, SyntaxError):
-        return None  # missing, corrupted or tampered with: prepare afresh
+    except (ValueError, KeyError, TypeError, IndexError, AttributeError, RecursionError) as err:
+        why = err.one_line() if isinstance(err, BvpkitError) else "it does not hold a preparation"
+        note(f"cache entry {path.name} skipped: {why}")
+        return None
 
 
-def _sources(quantities) -> list[str]:  # noqa: ANN001
+def _programs(quantities) -> list[dict]:  # noqa: ANN001
     found = []
     for q in quantities:
-        found.append(q.source)
-        found += [p[0] for p in q.points if isinstance(p[0], str)]
-        found += _sources(q.integrals)
+        found.append(q.program)
+        found += [p[0] for p in q.points if isinstance(p[0], dict)]
+        found += _programs(q.integrals)
     return found
 
 
@@ -352,8 +353,6 @@ def remember(key: str | None, prepared: Prepared) -> None:
     if path is None:
         return
     try:
-        body = {"key": key, "prepared": prepared.plain()}
-        text = json.dumps({"body": body, "sha256": _checksum(body)})
+        write_json(path, {"key": key, "prepared": prepared.plain()})
     except (TypeError, ValueError):
         return  # not JSON-ready (SymPy objects in the arguments): costs speed only
-    write_atomically(path, text)

@@ -1,7 +1,7 @@
 """Expressions of a solution (``f''(0)``, ``1 - f'``, ``w(L-)``, ``integral(c**2)``), compiled once.
 
 :func:`compile_quantity` (SymPy's side) turns the text into a :class:`Quantity`: plain data
-(generated source and a list of what to fill in) that a solution evaluates without SymPy:
+(a generated program and a list of what to fill in) that a solution evaluates without SymPy:
 
 * point values become placeholders, each ``(point, state, order, side)``: the point a
   number or a compiled function of the parameters and constants, the highest derivative of
@@ -28,12 +28,12 @@ class Quantity:
 
     Attributes
     ----------
-    source : str
-        Generated source of ``quantity(x, y, p, k, t)``; ``y`` holds the user states of a
-        region, then the highest derivative of each function.
-    points : list of (float or str, int, int, int)
+    program : dict
+        The generated function ``quantity(x, y, p, k, t)`` as plain data (:mod:`bvpkit.program`);
+        ``y`` holds the user states of a region, then the highest derivative of each function.
+    points : list of (float or dict, int, int, int)
         ``(point, state, order, side)`` per point value: the point a number (``inf`` for an
-        infinite end) or the source of a function of ``(x, p, k)``; ``state`` the row of the
+        infinite end) or the program of a function of ``(x, p, k)``; ``state`` the row of the
         function's value in a region; ``side`` -1, 0 or +1.
     integrals : list of Quantity
         Integrands of ``integral(...)`` placeholders (after the point values in ``t``).
@@ -41,20 +41,19 @@ class Quantity:
         Whether it depends on the running point.
     """
 
-    source: str
+    program: dict
     points: list = field(default_factory=list)
     integrals: list = field(default_factory=list)
     running: bool = False
 
     def plain(self) -> dict[str, Any]:
-        return {"source": self.source, "points": [list(p) for p in self.points],
+        return {"program": self.program, "points": [list(p) for p in self.points],
                 "integrals": [q.plain() for q in self.integrals], "running": self.running}
 
     @classmethod
     def from_plain(cls, data: dict[str, Any]) -> Quantity:
-        points = [(float(p) if not isinstance(p, str) else p, int(s), int(o), int(side))
-                  for p, s, o, side in data["points"]]
-        return cls(str(data["source"]), points, [cls.from_plain(q) for q in data["integrals"]], bool(data["running"]))
+        points = [(p if isinstance(p, dict) else float(p), int(s), int(o), int(side)) for p, s, o, side in data["points"]]
+        return cls(dict(data["program"]), points, [cls.from_plain(q) for q in data["integrals"]], bool(data["running"]))
 
 
 def input_symbols(form) -> tuple:  # noqa: ANN001 - a StandardForm
@@ -87,7 +86,7 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
         if where.is_Number or where in (sp.oo, -sp.oo):
             at: Any = float(where)
         else:  # a point that depends on constants or parameters: a function of them
-            at = compile_expressions([where], [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").source
+            at = compile_expressions([where], [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").program
         order = int(pv.order)
         highest = order == problem.orders[pv.name]
         state = form.states.index((pv.name, order - 1 if highest else order))
@@ -102,7 +101,7 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
     running = bool(e.free_symbols & ({X} | set(y)))
     t = placeholders + [s for _, s, _ in integrals]
     function = compile_expressions([e], [("x", [X]), ("y", y), ("p", form.p), ("k", form.k), ("t", t)], mesh="y")
-    return Quantity(function.source, points, [q for _, _, q in integrals], running)
+    return Quantity(function.program, points, [q for _, _, q in integrals], running)
 
 
 def highest_order(state: int, order: int, states) -> bool:  # noqa: ANN001

@@ -339,7 +339,7 @@ def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> floa
 def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, values: np.ndarray,  # noqa: ANN001
              function_of) -> np.ndarray:  # noqa: ANN001
     layout = view.layout
-    f = function_of(quantity.source)
+    f = function_of(quantity.program)
     if quantity.running:
         states = view(points, regions=r)
         slopes = view.slopes(points, regions=r)
@@ -357,7 +357,7 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
     from .guess import _function
 
     where, state, order, side = point
-    if isinstance(where, str):
+    if isinstance(where, dict):  # a point that depends on the constants: its program
         with np.errstate(all="ignore"):
             where = float(_function(where)(np.zeros(1), view.p, view.k)[0, 0])
     a, b = view.ends

@@ -6,7 +6,7 @@ of the fast one) and each chunk is solved in order, every solve started from its
 neighbour's solution (continuation), so a chunk, not a point, is the unit of work.
 
 Units are small and picklable (the problem's own arguments, its prepared plain facts and
-generated sources, numbers; never compiled functions); a worker rebuilds a problem once,
+programs (plain data), numbers; never code or compiled functions); a worker rebuilds a problem once,
 without SymPy (``prepared.py``), and keeps it. Execution is on any
 ``concurrent.futures.Executor`` (default: a local process pool sized to the cores) or a
 Dask ``distributed.Client`` (through its ``get_executor()``); there is no scheduler here.
