@@ -11,6 +11,7 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
+from . import limits as _limits
 from ._lazy import LazyModule, applied_undef
 from .errors import BvpkitError, ExpressionError, ProblemError, closest
 
@@ -273,8 +274,7 @@ class Problem:
             if isinstance(end, bool):
                 raise ProblemError(f"domain end {end!r} is not a number")
             if isinstance(end, int | float):
-                if math.isnan(end):
-                    raise ProblemError("domain end is NaN")
+                _limits.check_end(end, "domain end")  # NaN, or beyond the float range
                 value = sp.oo if end == math.inf else -sp.oo if end == -math.inf else sp.Float(end)
                 if isinstance(end, int):
                     value = sp.Integer(end)
@@ -313,13 +313,7 @@ class Problem:
             return math.inf
         if value == -sp.oo:
             return -math.inf
-        try:
-            number = float(value)
-        except (TypeError, ValueError):
-            raise ProblemError(f"domain end {end} is not a real number") from None
-        if math.isnan(number):
-            raise ProblemError(f"domain end {end} is not a real number")
-        return number
+        return _limits.check_end(value, f"domain end {_limits.describe(end)}")  # a real number in range
 
     # -- conditions -----------------------------------------------------------------------
     def point_values(self, e: sp.Expr) -> list[tuple[sp.Basic, str, int, sp.Expr]]:
@@ -442,7 +436,7 @@ class Problem:
             if isinstance(value, bool):
                 raise ProblemError(f"guess for '{name}': expected an expression or number")
             if isinstance(value, int | float):
-                e = sp.Float(value)
+                e = sp.Float(_limits.check_value(value, f"guess for '{name}'"))
             elif isinstance(value, str):
                 try:
                     e = _expr.parse(value, self.x)
@@ -640,14 +634,7 @@ def _numbers(values: Mapping[str, Any], role: str, names_known: bool = False) ->
     for name, value in values.items():
         if not names_known:
             _expr.check_name(name, role)
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            try:
-                value = float(value)  # numpy scalars, sympy numbers
-            except (TypeError, ValueError):
-                raise ProblemError(f"{role} '{name}': expected a number, got {value!r}") from None
-        if not math.isfinite(value):
-            raise ProblemError(f"{role} '{name}': expected a finite number, got {value!r}")
-        result[name] = float(value)
+        result[name] = _limits.check_value(value, f"{role} '{name}'")  # finite, within 1e-300..1e300
     return result
 
 
