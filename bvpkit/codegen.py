@@ -17,6 +17,7 @@ import numpy as np
 import sympy as sp
 from sympy.printing.numpy import SciPyPrinter
 
+from .budget import budget
 from .compiled import (
     CACHE_VARIABLE,
     CompiledSystem,
@@ -166,7 +167,9 @@ def compile_system(system: FirstOrderSystem) -> CompiledSystem:
     if stored is not None:
         source, pattern, sides = stored
     else:
-        source, pattern = _system_source(system)
+        with budget("generating code for the equations (derivatives and shared subexpressions)",
+                    advice="simplify the equations, or split them with added unknown functions"):
+            source, pattern = _system_source(system)
         sides = _bc_sides(system)
         write_cache(key, source, pattern, sides)
     return assemble(system.state_layout(), source, pattern, sides, system)

@@ -421,7 +421,7 @@ class Problem:
             ends = {self.which_end(p1), self.which_end(p2)}
             if (f1, k1) != (f2, k2) or ends != {0, 1}:
                 return False
-            if sp.expand(c - (n1 - n2)) != 0 and sp.expand(c + (n1 - n2)) != 0:
+            if c - (n1 - n2) != 0 and c + (n1 - n2) != 0:  # no expand: it multiplies out powers of sums
                 return False
         return True
 

@@ -14,15 +14,13 @@ from dataclasses import dataclass, field, fields
 import sympy as sp
 from sympy.core.function import AppliedUndef
 
+from .budget import budget, check_sizes
 from .errors import ProblemError
 from .expr import DomainIntegral
 from .layout import States
 
 X = sp.Symbol("_x")
 
-# sympy.solve on a highest derivative that appears nonlinearly can be slow for hostile input;
-# real problems isolate in well under a second.
-_MAX_OPS_FOR_NONLINEAR_SOLVE = 400
 
 
 def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
@@ -151,7 +149,10 @@ def reduce(problem) -> FirstOrderSystem:  # noqa: ANN001 - Problem imports us la
         leftover = eq.atoms(AppliedUndef, sp.Derivative)
         if leftover:  # pragma: no cover - Problem validation prevents this
             raise ProblemError(f"equation ({text}): could not read {sorted(map(str, leftover))[0]}")
-    solved = _isolate(equations, [tops[n_] for n_ in problem.unknowns], problem)
+    with budget("isolating the highest derivatives", advice="write each equation solved for its highest derivative"):
+        solved = _isolate(equations, [tops[n_] for n_ in problem.unknowns], problem)
+    check_sizes({f"the expression of {n_}{chr(39) * problem.orders[n_]}": e for n_, e in zip(problem.unknowns, solved)},
+                step="isolating the highest derivatives")
 
     rhs: list[sp.Expr] = []
     for i, (name, order) in enumerate(states):
@@ -171,7 +172,8 @@ def reduce(problem) -> FirstOrderSystem:  # noqa: ANN001 - Problem imports us la
     eigen_index = None
     if problem.eigenvalue is not None:
         eigen_index = list(problem.unknown_parameters).index(problem.eigenvalue)
-        _check_linear(rhs, conditions_of(problem, states, ya, yb, names), y[:n], p[eigen_index], problem)
+        with budget("checking that the eigenvalue problem is linear"):
+            _check_linear(rhs, conditions_of(problem, states, ya, yb, names), y[:n], p[eigen_index], problem)
         values = [y[i] for i, (_, order) in enumerate(states) if order == 0]
         extra_states.append(("integral of the squares (normalisation)", 0))
         extra_rhs.append(sum(v**2 for v in values))
@@ -201,7 +203,10 @@ def reduce(problem) -> FirstOrderSystem:  # noqa: ANN001 - Problem imports us la
         method_rhs = [(b - a) * r.xreplace({X: a + (b - a) * X}) for r in physical]
         _refuse_singular(method_rhs, sp.Integer(0), sp.Integer(1), problem, "an unknown end")
     elif all(e not in (sp.oo, -sp.oo) for e in domain):
-        singular, method_rhs = _split_singular(physical, y, domain, problem)
+        with budget("splitting off the singular term", advice="write the singular coefficient in a simpler form"):
+            singular, method_rhs = _split_singular(physical, y, domain, problem)
+        check_sizes({f"the right-hand side of state y{i}": e for i, e in enumerate(method_rhs)},
+                    step="splitting off the singular term")
     return FirstOrderSystem(
         independent=problem.independent,
         states=all_states,
@@ -328,6 +333,8 @@ def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[s
     if not any(jac.has(t) for t in tops):
         # Linear in the highest derivatives: one exact linear solve.
         rest = sp.Matrix([eq.xreplace({t: 0 for t in tops}) for eq in equations])
+        if jac.is_diagonal() and all(jac[i, i] != 0 for i in range(len(tops))):
+            return [-rest[i] / jac[i, i] for i in range(len(tops))]  # each equation holds its own: no O(n^3) LU
         if len(tops) == 1:
             if jac[0, 0] == 0:
                 raise ProblemError(f"the equation does not contain {names[0]}")
@@ -339,20 +346,10 @@ def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[s
                 "rewrite the system"
             )
         return list(jac.LUsolve(-rest))
-    size = sum(sp.count_ops(eq) for eq in equations)
-    if size > _MAX_OPS_FOR_NONLINEAR_SOLVE:
-        raise ProblemError(
-            f"the highest derivatives {', '.join(names)} appear nonlinearly in a large "
-            "expression; isolate them by hand (write the equation as f'' = ...)"
-        )
-    try:
-        roots = sp.solve(equations, tops, dict=True)
-    except (NotImplementedError, ValueError, TypeError):
-        roots = []
-    if len(roots) != 1 or set(roots[0]) != set(tops):
-        how = "no closed-form root" if not roots else f"{len(roots)} roots"
-        raise ProblemError(
-            f"the highest derivatives {', '.join(names)} appear nonlinearly and sympy finds "
-            f"{how} for them; isolate them by hand (write the equation as {names[0]} = ...)"
-        )
-    return [roots[0][t] for t in tops]
+    # A symbolic solve for highest derivatives that appear nonlinearly can run for minutes and
+    # mostly finds several roots or none: refused at once, with what to write instead.
+    nonlinear = [name for name, t in zip(names, tops) if any(entry.has(t) for entry in jac)]
+    raise ProblemError(
+        f"highest derivatives that appear nonlinearly ({', '.join(nonlinear)}) are not isolated by bvpkit: "
+        f"write each equation solved for its highest derivative ({nonlinear[0]} = ...)"
+    )
