@@ -212,9 +212,13 @@ def test_numerical_faults_name_cause_place_and_remedy(equations, conditions, kwa
         assert word in sol.message, (word, sol.message)
 
 
+# values below 1e-300 in magnitude are refused as input (bvpkit.limits): drawn as zero here
+_ENDS = st.floats(-3, 3).map(lambda v: v if abs(v) >= 1e-300 else 0.0)
+
+
 @given(st.sampled_from(["y'' = exp(y)", "y'' = y**3", "y'' = 1/(y - 0.5)", "y'' = sqrt(y)", "y'' = log(1 + y)",
                         "y'' = 100*y", "y'' = tan(y)"]),
-       st.floats(-3, 3), st.floats(-3, 3), st.sampled_from(["auto", "collocation", "multiple_shooting"]))
+       _ENDS, _ENDS, st.sampled_from(["auto", "collocation", "multiple_shooting"]))
 def test_a_solution_never_claims_success_with_non_finite_values_or_a_missed_tolerance(eq, a, b, method):
     sol = bvpkit.solve(bvpkit.Problem([eq], [f"y(0) = {a!r}", f"y(1) = {b!r}"], (0, 1)), tol=1e-6, method=method)
     if sol.success:
@@ -254,7 +258,7 @@ def test_ctrl_c_exits_cleanly_with_its_code(monkeypatch, capsys):
 
     monkeypatch.setattr(cli, "_solve", interrupted)
     assert main(["solve", str(SPECS[0])]) == bvpkit.Status.INTERRUPTED.exit_code
-    assert capsys.readouterr().err == "bvpkit: interrupted: interrupted\n"
+    assert capsys.readouterr().err == "bvpkit: interrupted: interrupted (Ctrl-C); nothing was finished to keep\n"
 
 
 def test_no_traceback_reaches_the_user_in_a_fresh_process(tmp_path):
