@@ -7,10 +7,14 @@
 
 from __future__ import annotations
 
-import sys
-import types
+from . import _interrupt
 
-from .errors import (
+_interrupt.install_if_command()  # first: Ctrl-C while the `bvpkit` command starts (see _interrupt.py)
+
+import sys  # noqa: E402
+import types  # noqa: E402
+
+from .errors import (  # noqa: E402
     BvpkitError,
     ExpressionError,
     MissingExtraError,
@@ -18,7 +22,7 @@ from .errors import (
     ProblemError,
     SpecError,
 )
-from .status import Status
+from .status import Status  # noqa: E402
 
 # Everything else loads on first use (PEP 562), so that `import bvpkit` stays light (no
 # NumPy, no SymPy): the command line handles Ctrl-C before anything heavy is imported, and

@@ -19,6 +19,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from ._interrupt import MESSAGE as INTERRUPTED
+from ._interrupt import early_interrupt, wants_json
 from .status import Status
 
 _EPILOG = "exit codes: " + ", ".join(f"{s.exit_code} {s.word}" for s in Status)
@@ -455,7 +457,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _wants_json(arguments: Sequence[str]) -> bool:
     # before argparse has run: --json, or an abbreviation of it that argparse would accept
-    return any(len(a) >= 3 and "--json".startswith(a) for a in arguments)
+    return wants_json(list(arguments))
 
 
 def _main(arguments: list[str]) -> int:
@@ -487,7 +489,7 @@ def _interrupted(wants_json: bool) -> int:
     """Ctrl-C outside a step that keeps its own partial result: one line, or one JSON object."""
     if _CONSOLE:
         _ignore_interrupts()  # a second Ctrl-C while this is written must not cut it short
-    return _fail(Status.INTERRUPTED, "interrupted (Ctrl-C); nothing was finished to keep", wants_json)
+    return _fail(Status.INTERRUPTED, INTERRUPTED, wants_json)
 
 
 #: Set by :func:`run`: this process is the ``bvpkit`` command (not a caller of :func:`main`),
@@ -587,6 +589,8 @@ def run() -> None:
     global _CONSOLE
     _CONSOLE = True
     try:
+        if signal.getsignal(signal.SIGINT) is early_interrupt:  # from here on main() handles Ctrl-C
+            signal.signal(signal.SIGINT, signal.default_int_handler)
         code = main()
     except KeyboardInterrupt:  # between main's own handlers (while it returns)
         code = _interrupted(_wants_json(sys.argv[1:]))

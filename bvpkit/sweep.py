@@ -252,7 +252,7 @@ class SweepResult:
     """
 
     def __init__(self, parameters: dict[str, np.ndarray], outputs: list[str], rows: list[dict], solved: int,
-                 reused: int, seconds: float, missing: int = 0, interrupted: bool = False):
+                 reused: int, seconds: float, missing: int = 0, interrupted: bool = False, stored: bool = False):
         self.parameters = parameters
         self.outputs = outputs
         self.table = rows
@@ -266,7 +266,8 @@ class SweepResult:
         if interrupted:
             self.message = (f"interrupted (Ctrl-C) with {missing} of {len(rows) + missing} points missing; "
                             f"the table holds the {len(rows)} finished ({solved} solved now, {reused} from the "
-                            f"store, {self.failed} failed), and a store keeps them for a rerun")
+                            f"store, {self.failed} failed)"
+                            + ("; the store keeps them: run again with it to finish" if stored else ""))
 
     def column(self, name: str) -> np.ndarray:
         """One column of the table as an array (a parameter, an output or a diagnostic)."""
@@ -414,8 +415,18 @@ class _WorkerProcess(SpawnProcess):
     """A spawned worker that starts without the caller's ``__main__`` (see :class:`_MainHidden`)."""
 
     def start(self) -> None:
-        with _MainHidden():
-            super().start()
+        # SIGINT blocked while the worker is made: the worker inherits the mask and never
+        # sees Ctrl-C (the parent handles it), even while it is still importing; in the
+        # parent a Ctrl-C that comes meanwhile waits until the line after.
+        masked = hasattr(signal, "pthread_sigmask")
+        if masked:
+            previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+        try:
+            with _MainHidden():
+                super().start()
+        finally:
+            if masked:
+                signal.pthread_sigmask(signal.SIG_SETMASK, previous)
 
 
 class _WorkerContext(SpawnContext):
@@ -436,7 +447,9 @@ def _stop_workers(executor: futures.Executor) -> None:
             process.terminate()
         except (OSError, AttributeError, ValueError):
             pass
-    executor.shutdown(wait=False, cancel_futures=True)
+    # with its workers gone the pool's own thread ends at once: waiting for it is quick, and
+    # not waiting leaves it racing the interpreter's exit (CPython then prints an OSError)
+    executor.shutdown(wait=True, cancel_futures=True)
 
 
 def _starting_worker() -> bool:
@@ -547,7 +560,7 @@ def sweep(
         db.close()
     total = len(rows)
     return SweepResult(axes, list(labels), rows, solved, total - solved, time.perf_counter() - started,
-                       missing=missing, interrupted=interrupted)
+                       missing=missing, interrupted=interrupted, stored=store is not None)
 
 
 def _run(units, db, problem_key, executor, workers, progress, done, count) -> None:  # noqa: ANN001
