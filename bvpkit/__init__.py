@@ -7,7 +7,14 @@
 
 from __future__ import annotations
 
-from .errors import (
+from . import _interrupt
+
+_interrupt.install_if_command()  # first: Ctrl-C while the `bvpkit` command starts (see _interrupt.py)
+
+import sys  # noqa: E402
+import types  # noqa: E402
+
+from .errors import (  # noqa: E402
     BvpkitError,
     ExpressionError,
     MissingExtraError,
@@ -15,15 +22,16 @@ from .errors import (
     ProblemError,
     SpecError,
 )
-from .status import Status
-from .sweep import SweepResult, sweep  # eager: the function shares its name with its module
+from .status import Status  # noqa: E402
 
-# The rest loads on first use (PEP 562), so that `import bvpkit` and a cached
-# `bvpkit solve` stay light: SymPy, for one, is imported only when a problem is built.
+# Everything else loads on first use (PEP 562), so that `import bvpkit` stays light (no
+# NumPy, no SymPy): the command line handles Ctrl-C before anything heavy is imported, and
+# a cached `bvpkit solve` never imports SymPy.
 _LAZY = {
     "Attempt": "diagnostics", "Diagnostics": "diagnostics", "Branch": "continuation", "Fold": "continuation",
     "trace": "continuation", "solve": "driver", "Problem": "problem", "Solution": "solution",
     "Interpolant": "solution", "Prepared": "prepared", "prepare": "prepared",
+    "sweep": "sweep", "SweepResult": "sweep",
 }
 
 
@@ -35,6 +43,24 @@ def __getattr__(name: str):  # noqa: ANN202
         globals()[name] = value
         return value
     raise AttributeError(f"module 'bvpkit' has no attribute {name!r}")
+
+
+class _Package(types.ModuleType):
+    """The package's module type: ``bvpkit.sweep`` stays the function.
+
+    Importing the submodule ``bvpkit.sweep`` makes Python set the package's attribute
+    ``sweep`` to that module, which would hide the function of the same name; that one
+    assignment is declined (the module stays reachable as ``sys.modules["bvpkit.sweep"]``
+    and through ``from bvpkit.sweep import ...``).
+    """
+
+    def __setattr__(self, name: str, value: object) -> None:
+        if name in _LAZY and name == _LAZY[name] and isinstance(value, types.ModuleType):
+            return
+        super().__setattr__(name, value)
+
+
+sys.modules[__name__].__class__ = _Package
 
 
 def __dir__() -> list[str]:

@@ -5,16 +5,27 @@ from __future__ import annotations
 import csv
 from collections.abc import Mapping
 from pathlib import Path
-from typing import Any
+from typing import Any, TextIO
 
 
-def write_columns(path: str | Path, columns: Mapping[str, Any]) -> None:
-    """Write equal-length columns as CSV: a header row, then numbers in full precision (text as is)."""
-    with open(path, "w", newline="") as handle:
-        writer = csv.writer(handle)
-        writer.writerow(columns)
-        for row in zip(*columns.values()):
-            writer.writerow([v if isinstance(v, str) else repr(float(v)) for v in row])
+def write_columns(path: str | Path | TextIO, columns: Mapping[str, Any]) -> None:
+    """Write equal-length columns as CSV: a header row, then numbers in full precision (text as is).
+
+    ``path`` may also be a text file already open for writing (the command line opens the
+    files a spec names itself, without following links; see ``cli.SpecOutput``).
+    """
+    if hasattr(path, "write"):
+        _write_rows(path, columns)  # type: ignore[arg-type]
+        return
+    with open(path, "w", newline="") as handle:  # type: ignore[arg-type]
+        _write_rows(handle, columns)
+
+
+def _write_rows(handle: TextIO, columns: Mapping[str, Any]) -> None:
+    writer = csv.writer(handle)
+    writer.writerow(columns)
+    for row in zip(*columns.values()):
+        writer.writerow([v if isinstance(v, str) else repr(float(v)) for v in row])
 
 
 def pyplot():  # noqa: ANN201
@@ -27,7 +38,7 @@ def pyplot():  # noqa: ANN201
         matplotlib.use("Agg")
         import matplotlib.pyplot as plt
     except ImportError:
-        raise MissingExtraError('plotting needs matplotlib: pip install "bvpkit[plot]"') from None
+        raise MissingExtraError('plotting needs matplotlib: pip install ".[plot]"') from None
     return plt
 
 

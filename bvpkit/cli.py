@@ -1,6 +1,11 @@
 """The ``bvpkit`` command: thin argument parsing over the library.
 
 Exit codes come from :class:`bvpkit.status.Status` (``docs/failures.md`` lists them).
+
+Ctrl-C at any moment (even while modules are still being imported) ends in exit code 130
+and one line, or one JSON object under ``--json``: the package imports nothing heavy, and
+:func:`run` catches the interrupt before anything else is imported. A reader that goes
+away (``bvpkit solve spec | head``) silences the output but not the exit code.
 """
 
 from __future__ import annotations
@@ -8,11 +13,14 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import signal
 import sys
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from ._interrupt import MESSAGE as INTERRUPTED
+from ._interrupt import early_interrupt, wants_json
 from ._output import json_ready
 from .status import Status
 
@@ -80,7 +88,8 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
     trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
-    trace.add_argument("--plot", metavar="FILE.png", help="draw the branch (needs the plot extra)")
+    trace.add_argument("--plot", metavar="FILE.png", help="draw the branch (needs the plot extra; the suffix "
+                       "names the format: png, pdf, svg, ...)")
     trace.add_argument("--quiet", action="store_true", help="no progress bar")
 
     sweep = commands.add_parser(
@@ -95,11 +104,16 @@ def _parser() -> argparse.ArgumentParser:
     sweep.add_argument("--scheduler", metavar="ADDRESS", help="a Dask scheduler, e.g. tcp://127.0.0.1:8786 (dask extra)")
     sweep.add_argument("--retry-failed", action="store_true", help="solve again the points stored as failed")
     sweep.add_argument("--output", action="append", metavar="EXPR", help="an expression or output name; repeatable")
+    sweep.add_argument(
+        "--grid", action="append", metavar="NAME=FROM:TO:COUNT[:geometric] | NAME=V1,V2,...",
+        help="an axis of the grid (repeatable; the first is the fast axis); replaces the spec's [sweep] grid",
+    )
     sweep.add_argument("--tol", type=float, help="tolerance of each point")
     sweep.add_argument("--method", choices=_methods(), help="solution method")
     sweep.add_argument("--csv", metavar="FILE", help="write the table as CSV")
     sweep.add_argument("--json", action="store_true", help="print the table as JSON")
-    sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra)")
+    sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra; the suffix names "
+                       "the format)")
     sweep.add_argument("--quiet", action="store_true", help="no progress bar")
 
     check = commands.add_parser(
@@ -125,12 +139,20 @@ def _constants(pairs: list[str]) -> dict[str, float]:
     return values
 
 
+def _no_nul(name: str, what: str) -> None:
+    from .errors import OptionError
+
+    if "\x00" in name:
+        raise OptionError(f"{what} {name!r} holds a NUL character")
+
+
 def _writable(name: str | None) -> Path | None:
     """A path given on the command line: the user's choice, but its folder must exist."""
     from .errors import OptionError
 
     if name is None:
         return None
+    _no_nul(name, "output file")
     path = Path(name)
     if path.is_dir():
         raise OptionError(f"cannot write {name}: it is a folder")
@@ -142,20 +164,103 @@ def _writable(name: str | None) -> Path | None:
     return path
 
 
+def _picture(name: str | None) -> Path | None:
+    """A ``--plot`` file: checked before any computation (matplotlib there, a format it writes)."""
+    from .errors import MissingExtraError, OptionError
+
+    path = _writable(name)
+    if path is None:
+        return None
+    try:
+        import matplotlib  # noqa: F401 - only whether it is there
+        from matplotlib.backend_bases import FigureCanvasBase
+    except ImportError:
+        raise MissingExtraError(f'--plot needs matplotlib: {PLOT_INSTALL}') from None
+    formats = sorted(FigureCanvasBase.get_supported_filetypes())
+    suffix = path.suffix[1:].lower()
+    if suffix not in formats:
+        said = f"'.{suffix}' is not a picture format" if suffix else "it has no suffix to name the format"
+        raise OptionError(f"cannot draw {name}: {said}; use one of {', '.join(formats)}")
+    return path
+
+
+#: The words that install the plotting extra, as the README gives them.
+PLOT_INSTALL = 'pip install ".[plot]"'
+
+
+class SpecOutput:
+    """A file named in a spec's ``[save]``, confined to the working directory.
+
+    Checked before the solve, written after it. In between, a folder on the way could be
+    swapped for a symbolic link pointing elsewhere, so the writing does not go by the name
+    again: it starts from the working directory opened (``os.open``) at check time and
+    opens each folder relative to the previous one, refusing symbolic links
+    (``O_NOFOLLOW``), and creates the file exclusively (``O_EXCL``) unless ``--overwrite``.
+    Where the platform has no ``dir_fd`` (Windows), the real path is checked again at open.
+    """
+
+    def __init__(self, name: str, overwrite: bool, key: str):
+        from .errors import OptionError
+
+        self.name, self.overwrite, self.key = name, overwrite, key
+        _no_nul(name, f"output file named in the spec's [save] {key}")
+        if not name.strip() or os.path.isabs(name) or Path(name).is_absolute():
+            raise OptionError(f"output file '{name}' named in the spec must be a relative path")
+        parts = Path(os.path.normpath(name)).parts
+        if not parts or parts[0] == ".." or parts == (".",):
+            raise OptionError(f"output file '{name}' named in the spec points outside the working directory")
+        self.parts = parts
+        self.cwd = Path.cwd().resolve()
+        target = (self.cwd / name).resolve()
+        if self.cwd != target and self.cwd not in target.parents:
+            raise OptionError(f"output file '{name}' named in the spec points outside the working directory")
+        if os.path.lexists(self.cwd.joinpath(*parts)) and not overwrite:
+            raise OptionError(f"output file '{name}' named in the spec exists; pass --overwrite to replace it")
+        self.root = os.open(".", os.O_RDONLY | getattr(os, "O_DIRECTORY", 0)) if _DIR_FD else None
+        self.path = self.cwd.joinpath(*parts)
+
+    def open(self):  # noqa: ANN201 - a text file object
+        """The file, opened for writing without following any link on its way."""
+        from .errors import OptionError
+
+        nofollow = getattr(os, "O_NOFOLLOW", 0)
+        flags = os.O_WRONLY | os.O_CREAT | nofollow | (os.O_TRUNC if self.overwrite else os.O_EXCL)
+        try:
+            if self.root is None:  # no dir_fd: check the real path again, right before opening
+                if self.path.parent.resolve() != self.cwd.joinpath(*self.parts[:-1]):
+                    raise OptionError(f"output file '{self.name}' named in the spec: a folder on its way changed")
+                fd = os.open(self.path, flags, 0o666)
+            else:
+                folder = os.dup(self.root)
+                try:
+                    for part in self.parts[:-1]:
+                        inner = os.open(part, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0) | nofollow, dir_fd=folder)
+                        os.close(folder)
+                        folder = inner
+                    fd = os.open(self.parts[-1], flags, 0o666, dir_fd=folder)
+                finally:
+                    os.close(folder)
+        except FileExistsError:
+            raise OptionError(f"output file '{self.name}' named in the spec exists; pass --overwrite to replace it") from None
+        except OSError as err:
+            raise OptionError(f"cannot write '{self.name}' named in the spec: {err.strerror} (a folder or the file "
+                              "on its way may be a symbolic link, which is refused)") from None
+        return os.fdopen(fd, "w", newline="")
+
+    def close(self) -> None:
+        if self.root is not None:
+            os.close(self.root)
+            self.root = None
+
+
+_DIR_FD = os.open in os.supports_dir_fd and hasattr(os, "O_NOFOLLOW")
+
+
 def safe_output_path(name: str, overwrite: bool) -> Path:
     """Where a file named inside a spec may be written: under the working directory only."""
-    from .errors import OptionError
-
-    cwd = Path.cwd().resolve()
-    path = Path(name)
-    if path.is_absolute() or not name.strip():
-        raise OptionError(f"output file '{name}' named in the spec must be a relative path")
-    target = (cwd / path).resolve()
-    if cwd != target and cwd not in target.parents:
-        raise OptionError(f"output file '{name}' named in the spec points outside the working directory")
-    if target.exists() and not overwrite:
-        raise OptionError(f"output file '{name}' named in the spec exists; pass --overwrite to replace it")
-    return target
+    output = SpecOutput(name, overwrite, "file")
+    output.close()
+    return output.path
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
@@ -165,46 +270,47 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
 
     overrides = _constants(args.set)
     key = spec_key(args.spec, overrides)
-    prepared = cached(key)  # prepared by an earlier run: no parsing, no SymPy
-    fresh = prepared is None
+    problem = cached(key)  # prepared by an earlier run: no parsing, no SymPy
+    fresh = problem is None
     if fresh:
         from . import load
 
-        problem = load(args.spec)
-        if overrides:
-            problem = problem.with_constants(**overrides)
-        prepared = prepare(problem)
-    save = prepared.settings.get("save", {})
+        loaded = load(args.spec)
+        problem = prepare(loaded.with_constants(**overrides) if overrides else loaded)
+    save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
-    json_path = None
+    csv_out = json_out = None
     if csv_path is None and save.get("solution_csv"):
-        csv_path = safe_output_path(save["solution_csv"], args.overwrite)
+        csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
     if save.get("report_json"):
-        json_path = safe_output_path(save["report_json"], args.overwrite)
+        json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
     if args.max_nodes is not None and args.max_nodes < 10:
         raise OptionError("--max-nodes must be at least 10")
     solution = solve(
-        prepared,
+        problem,
         method=args.method,
         tol=args.tol,
         max_nodes=args.max_nodes,
         verify=False if args.no_verify else None,
     )
     if fresh:
-        remember(key, prepared)
+        remember(key, problem)
     if csv_path is not None:
         solution.to_csv(csv_path)
     report = solution.as_dict()
-    if json_path is not None:
-        json_path.write_text(json.dumps(report, indent=2) + "\n")
+    for output, write in ((csv_out, solution.to_csv),
+                          (json_out, lambda handle: handle.write(json.dumps(report, indent=2) + "\n"))):
+        if output is not None:
+            with output.open() as handle:
+                write(handle)
+            output.close()
     if args.json:
         return solution.status.exit_code, report
-    title = f"{prepared.title}\n" if prepared.title else ""
-    print(title + solution.summary())
-    if csv_path is not None:
-        print(f"mesh solution written to {csv_path}")
-    if json_path is not None:
-        print(f"report written to {json_path}")
+    title = f"{problem.title}\n" if problem.title else ""
+    _say(title + solution.summary())
+    for path, what in ((csv_path or (csv_out and csv_out.path), "mesh solution"), (json_out and json_out.path, "report")):
+        if path:
+            _say(f"{what} written to {path}")
     return solution.status.exit_code, None
 
 
@@ -212,7 +318,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load, trace
     from .errors import OptionError
 
-    _writable(args.csv), _writable(args.plot)
+    _writable(args.csv), _picture(args.plot)
     problem = load(args.spec)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
@@ -221,6 +327,9 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         value = getattr(args, key)
         if value is not None:
             settings[key] = value
+    for key in ("start", "stop"):
+        if key in settings:
+            settings[key] = _number(settings[key], f"trace {key}")
     if args.output:
         settings["outputs"] = args.output
     missing = [key for key in ("parameter", "start", "stop") if key not in settings]
@@ -245,16 +354,18 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     if args.plot:
         branch.plot(args.plot)
     code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
+    report = branch.as_dict()
     if branch.interrupted:
         code = Status.INTERRUPTED.exit_code
+        report["status"] = Status.INTERRUPTED.word
     if args.json:
-        return code, branch.as_dict()
+        return code, report
     title = f"{problem.title}\n" if problem.title else ""
-    print(title + branch.summary())
+    _say(title + branch.summary())
     if args.csv:
-        print(f"branch written to {args.csv}")
+        _say(f"branch written to {args.csv}")
     if args.plot:
-        print(f"plot written to {args.plot}")
+        _say(f"plot written to {args.plot}")
     return code, None
 
 
@@ -262,18 +373,23 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     from . import load, sweep
     from .errors import MissingExtraError, OptionError
 
-    _writable(args.csv), _writable(args.plot)
+    _writable(args.csv), _picture(args.plot)
+    if args.store is not None:
+        _no_nul(args.store, "store")
+    grid = _grid(args.grid) if args.grid else None
     problem = load(args.spec)
-    settings = problem.settings.get("sweep")
-    if not settings:
-        raise OptionError(f"{args.spec} has no [sweep] section with a grid")
+    settings = dict(problem.settings.get("sweep") or {})
+    if grid is not None:
+        settings["grid"] = grid
+    if not settings.get("grid"):
+        raise OptionError(f"{args.spec} has no [sweep] section with a grid; give one with --grid NAME=FROM:TO:COUNT")
     client = None
     executor: Any = "serial" if args.serial else None
     if args.scheduler:
         try:
             from distributed import Client
         except ImportError:
-            raise MissingExtraError('--scheduler needs the dask extra: pip install "bvpkit[dask]"') from None
+            raise MissingExtraError('--scheduler needs the dask extra: pip install ".[dask]"') from None
         client = executor = Client(args.scheduler, timeout=30)
     try:
         result = sweep(problem, settings["grid"], outputs=args.output or settings.get("outputs"), store=args.store,
@@ -282,22 +398,24 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     finally:
         if client is not None:
             client.close()
-    if args.csv:
+    if args.csv and result.table:
         result.to_csv(args.csv)
-    if args.plot:
+    if args.plot and result.table:
         result.plot(args.plot)
     code = 0 if result.success else Status.NOT_CONVERGED.exit_code
+    if result.interrupted:
+        code = Status.INTERRUPTED.exit_code
     if args.json:
         return code, result.as_dict()
     names = [*result.parameters, *result.outputs, "status"]
-    print((f"{problem.title}\n" if problem.title else "") + result.message)
-    print("  ".join(f"{n:>14s}" for n in names))
+    lines = [(f"{problem.title}\n" if problem.title else "") + result.message, "  ".join(f"{n:>14s}" for n in names)]
     for row in result.table:
         cells = [f"{row[n]:14.8g}" if isinstance(row[n], float) else f"{str(row[n]):>14s}" for n in names]
-        print("  ".join(cells))
+        lines.append("  ".join(cells))
     for path, what in ((args.csv, "table"), (args.plot, "chart")):
         if path:
-            print(f"{what} written to {path}")
+            lines.append(f"{what} written to {path}")
+    _say("\n".join(lines))
     return code, None
 
 
@@ -319,14 +437,14 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
                                   f"{closest(name, problem.constants)}")
     if args.json:
         return 0, report
-    print(f"{args.spec}: the spec reads as a complete problem (not solved; `bvpkit solve` tells whether it has a "
-          "solution)")
-    print(f"  first-order form ({report['independent']} mapped onto t in [0, 1] in each region):")
-    for line in report["first_order"]:
-        print(f"    {line}")
-    print(f"  conditions: {report['count']}")
+    lines = [f"{args.spec}: the spec reads as a complete problem (not solved; `bvpkit solve` tells whether it "
+             "has a solution)",
+             f"  first-order form ({report['independent']} mapped onto t in [0, 1] in each region):",
+             *(f"    {line}" for line in report["first_order"]),
+             f"  conditions: {report['count']}"]
     if problem.outputs:
-        print(f"  outputs: {', '.join(problem.outputs)}")
+        lines.append(f"  outputs: {', '.join(problem.outputs)}")
+    _say("\n".join(lines))
     return 0, None
 
 
@@ -383,7 +501,7 @@ def _show_cache_notes() -> None:
 
     class CacheNotes(logging.Handler):
         def emit(self, record: logging.LogRecord) -> None:
-            print(f"bvpkit: note: {record.getMessage()}", file=sys.stderr)
+            _say(f"bvpkit: note: {record.getMessage()}", sys.stderr)
 
     logger = logging.getLogger("bvpkit.cache")
     if not any(type(h).__name__ == "CacheNotes" for h in logger.handlers):
@@ -391,11 +509,25 @@ def _show_cache_notes() -> None:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; return the exit code."""
+    """Run the command line; return the exit code (130 after Ctrl-C, at any moment)."""
+    arguments = list(argv) if argv is not None else sys.argv[1:]
+    wants_json = _wants_json(arguments)
+    try:
+        return _main(arguments)
+    except KeyboardInterrupt:
+        return _interrupted(wants_json)
+
+
+def _wants_json(arguments: Sequence[str]) -> bool:
+    # before argparse has run: --json, or an abbreviation of it that argparse would accept
+    return wants_json(list(arguments))
+
+
+def _main(arguments: list[str]) -> int:
+    _Parser._argv = arguments  # type: ignore[attr-defined]
     _show_cache_notes()
     parser = _parser()
-    _Parser._argv = list(argv) if argv is not None else sys.argv[1:]  # type: ignore[attr-defined]
-    args = parser.parse_args(argv)
+    args = parser.parse_args(arguments)
     wants_json = getattr(args, "json", False)
     try:
         from .errors import BvpkitError
@@ -403,12 +535,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep}[args.command]
         code, report = handler(args)
     except KeyboardInterrupt:
-        return _fail(Status.INTERRUPTED, "interrupted", wants_json)
-    except BrokenPipeError:
-        # the reader went away (e.g. `| head`): stop quietly, as command-line tools do
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
-        return 0
+        return _interrupted(wants_json)
     except BvpkitError as err:
         return _fail(Status.BAD_INPUT, err.one_line(), wants_json)
     except OSError as err:  # writing an output file failed after all (disk full, permissions)
@@ -418,25 +545,108 @@ def main(argv: Sequence[str] | None = None) -> int:
             raise
         return _fail(Status.INTERNAL, f"{type(err).__name__}: {err}", wants_json)
     if report is not None:
-        try:
-            print(json.dumps(json_ready(report), indent=2, allow_nan=False))
-        except BrokenPipeError:
-            devnull = os.open(os.devnull, os.O_WRONLY)
-            os.dup2(devnull, sys.stdout.fileno())
+        _say(json.dumps(json_ready(report), indent=2, allow_nan=False))
     return code
+
+
+def _interrupted(wants_json: bool) -> int:
+    """Ctrl-C outside a step that keeps its own partial result: one line, or one JSON object."""
+    if _CONSOLE:
+        _ignore_interrupts()  # a second Ctrl-C while this is written must not cut it short
+    return _fail(Status.INTERRUPTED, INTERRUPTED, wants_json)
+
+
+#: Set by :func:`run`: this process is the ``bvpkit`` command (not a caller of :func:`main`),
+#: so its handling of signals may change for good once the outcome is being written.
+_CONSOLE = False
+
+
+def _ignore_interrupts() -> None:
+    try:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+    except ValueError:  # not the main thread (main() called from a thread): nothing to do
+        pass
+
+
+def _say(text: str, stream: Any = None) -> None:
+    """Print a line; a reader that went away (``| head``, ``| true``) silences the rest, nothing more.
+
+    The exit code is the outcome's, whatever happened to the output.
+    """
+    stream = stream or sys.stdout
+    try:
+        print(text, file=stream, flush=True)
+    except BrokenPipeError:
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, stream.fileno())  # Python's final flush at exit must not fail again
+            os.close(devnull)
+        except (OSError, ValueError):
+            pass
 
 
 def _fail(status: Status, message: str, wants_json: bool) -> int:
     if wants_json:
-        print(json.dumps({"success": False, "status": status.word, "message": message}))
+        _say(json.dumps({"success": False, "status": status.word, "message": message}))
     else:
-        print(f"bvpkit: {status.word}: {message}", file=sys.stderr)
+        _say(f"bvpkit: {status.word}: {message}", sys.stderr)
     return status.exit_code
 
 
+def _number(value: Any, what: str) -> float:
+    from . import limits
+    from .errors import OptionError
+
+    try:
+        return limits.check_value(value, what)
+    except ValueError as err:
+        raise OptionError(str(err)) from None
+
+
+def _grid(items: list[str]) -> dict[str, list[float]]:
+    """``--grid`` axes: ``NAME=FROM:TO:COUNT[:geometric|linear]`` or ``NAME=V1,V2,...``, in order."""
+    from .errors import OptionError
+    from .sweep import axis_values
+
+    grid: dict[str, list[float]] = {}
+    for item in items:
+        name, sep, text = item.partition("=")
+        name = name.strip()
+        if not sep or not name or not text.strip():
+            raise OptionError(f"--grid expects NAME=FROM:TO:COUNT[:geometric] or NAME=V1,V2,..., got {item!r}")
+        if name in grid:
+            raise OptionError(f"--grid gives '{name}' twice")
+        try:
+            if ":" in text:
+                parts = [p.strip() for p in text.split(":")]
+                if len(parts) not in (3, 4):
+                    raise ValueError
+                spacing = parts[3] if len(parts) == 4 else "linear"
+                grid[name] = axis_values(name, float(parts[0]), float(parts[1]), int(parts[2]), spacing)
+            else:
+                grid[name] = [float(v) for v in text.split(",")]
+        except ValueError as err:
+            if isinstance(err, OptionError):
+                raise OptionError(f"--grid {item}: {err}") from None
+            raise OptionError(f"--grid expects NAME=FROM:TO:COUNT[:geometric] or NAME=V1,V2,... with numbers, "
+                              f"got {item!r}") from None
+        for value in grid[name]:
+            _number(value, f"--grid {name} value")
+    return grid
+
+
 def run() -> None:
-    """Console-script entry point."""
-    sys.exit(main())
+    """Console-script entry point: Ctrl-C at any moment gives exit code 130 and one line (or JSON)."""
+    global _CONSOLE
+    _CONSOLE = True
+    try:
+        if signal.getsignal(signal.SIGINT) is early_interrupt:  # from here on main() handles Ctrl-C
+            signal.signal(signal.SIGINT, signal.default_int_handler)
+        code = main()
+    except KeyboardInterrupt:  # between main's own handlers (while it returns)
+        code = _interrupted(_wants_json(sys.argv[1:]))
+    _ignore_interrupts()  # the interpreter's shutdown (atexit, flushing) is not to be cut short
+    sys.exit(code)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -20,6 +20,7 @@ import numpy as np
 import sympy as sp
 
 from . import program as _program
+from .budget import budget
 from .compiled import (
     CACHE_VARIABLE,
     CompiledSystem,
@@ -268,7 +269,9 @@ def compile_system(form: StandardForm) -> CompiledSystem:
             return assemble(layout, *stored)
         except ProgramError as err:  # a cache entry that is not ours: skipped and rewritten
             skipped(key, err)
-    programs, pattern = _system_programs(form)
+    with budget("generating code for the equations (derivatives and shared subexpressions)",
+                advice="simplify the equations, or split them with added unknown functions"):
+        programs, pattern = _system_programs(form)
     sides = _bc_sides(form)
     write_cache(key, programs, pattern, sides)
     return assemble(layout, programs, pattern, sides)

@@ -38,6 +38,7 @@ from dataclasses import dataclass
 import sympy as sp
 
 from .errors import ExpressionError, closest
+from .limits import LARGEST, SMALLEST, in_range, integer_in_range
 
 # Limits that keep hostile or mistaken input cheap to refuse. A real ODE is a few hundred
 # characters and a handful of levels deep; these are two orders of magnitude above that.
@@ -45,7 +46,7 @@ MAX_LENGTH = 10_000  # characters in one expression
 MAX_DEPTH = 60  # nesting of parentheses / unary operators (Python's recursion limit is 1000)
 MAX_EXPONENT = 1_000  # |n| in a numeric exponent: beyond it, no float result is meaningful
 MAX_DERIVATIVE = 12  # primes on one name
-MAX_DECIMAL_EXPONENT = 308  # numbers whose magnitude exceeds a float are refused
+MAX_DECIMAL_EXPONENT = 300  # numbers beyond 1e300 are refused (bvpkit.limits says why)
 
 #: Whitelisted functions: name -> (SymPy callable, number of arguments).
 FUNCTIONS: dict[str, tuple[object, int]] = {
@@ -179,9 +180,11 @@ def _number(token: _Token, text: str) -> sp.Expr:
         value = float(literal)
     except (ValueError, OverflowError):  # pragma: no cover - the regex only admits numbers
         raise ExpressionError("unreadable number", text, token.column) from None
-    if not math.isfinite(value):
+    if not math.isfinite(value) or not in_range(value):
+        size = "large" if not math.isfinite(value) or abs(value) > LARGEST else "small"
         raise ExpressionError(
-            f"number {literal} is too large for floating point", text, token.column
+            f"number {literal} is too {size} for floating point (the accepted range is zero, or "
+            f"magnitudes from {SMALLEST:g} to {LARGEST:g})", text, token.column
         )
     if re.fullmatch(r"\d+", literal):
         if len(literal) > 18:
@@ -201,6 +204,7 @@ class _Parser:
         self.tokens = _tokenize(text)
         self.pos = 0
         self.depth = 0
+        self.values: dict[sp.Basic, complex] = {}  # numeric subexpression -> its value (see _checked)
 
     # -- token helpers ------------------------------------------------------------------
     @property
@@ -259,9 +263,12 @@ class _Parser:
         self._enter()
         value = self.term()
         while (self._is("+") or self._is("-")) and not self._side_marker():
-            op = self._advance().text
+            op_token = self._advance()
             right = self.term()
-            value = value + right if op == "+" else value - right
+            if op_token.text == "+":
+                value = self._checked(value + right, op_token, (value, right), "+")
+            else:
+                value = self._checked(value - right, op_token, (value, right), "-")
         self.depth -= 1
         return value
 
@@ -271,11 +278,11 @@ class _Parser:
             op_token = self._advance()
             right = self.unary()
             if op_token.text == "*":
-                value = value * right
+                value = self._checked(value * right, op_token, (value, right), "*")
             else:
                 if right == 0:
                     raise self._error("division by zero", op_token)
-                value = value / right
+                value = self._checked(value / right, op_token, (value, right), "/")
         return value
 
     def unary(self) -> sp.Expr:
@@ -309,8 +316,113 @@ class _Parser:
                 if magnitude == 0 and value.real < 0:
                     raise self._error("zero raised to a negative power", token)
                 if magnitude > 0 and abs(value.real * math.log10(magnitude)) > MAX_DECIMAL_EXPONENT:
-                    raise self._error("power is too large for floating point", token)
-        return sp.Pow(base, exponent)
+                    size = "large" if value.real * math.log10(magnitude) > 0 else "small"
+                    raise self._error(f"power is too {size} for floating point (the accepted range is zero, "
+                                      f"or magnitudes from {SMALLEST:g} to {LARGEST:g})", token)
+        return self._checked(sp.Pow(base, exponent), token)
+
+    # -- numbers stay inside the float range as they are built ----------------------------
+    def _checked(self, value: sp.Expr, token: _Token, operands: tuple[sp.Expr, sp.Expr] | None = None,
+                 operation: str = "") -> sp.Expr:
+        """``value``, unless a number in it has left the accepted range.
+
+        SymPy folds numbers as an expression is built: ``2**900*x*2**900`` holds the
+        coefficient ``2**1800``, and a number times a sum is distributed over the sum. So
+        after each operation the numbers at the top of the result are checked (the
+        coefficient of each term), and a wholly numeric result (``exp(exp(10))``) is valued
+        from the values of its ``operands`` (kept in ``self.values``), so no number is
+        evaluated twice and SymPy never builds a 4300-digit integer out of small ones.
+        """
+        if value in (sp.oo, -sp.oo):
+            return value
+        if value is sp.nan or value is sp.zoo:
+            raise self._error("this gives an infinite or undefined value (such as log(0), inf - inf)", token)
+        if value.is_Number:
+            self._check_number(value, token)
+            return value
+        if value.is_Add or value.is_Mul:
+            # Long sums are only ever added to: their new coefficients come from the right
+            # operand (merged like terms at most add two in-range numbers).
+            terms = value.args if len(value.args) <= _FULL_CHECK or operands is None else (
+                value.args[0], *sp.Add.make_args(operands[1]))
+            for arg in terms:
+                coefficient = arg.args[0] if arg.is_Mul else arg
+                if coefficient.is_Number:
+                    self._check_number(coefficient, token)
+        if value.is_number and not value.has(DomainIntegral, sp.oo, -sp.oo):
+            approximate = None
+            if operands is not None and all(o.is_number for o in operands):
+                a, b = (self._value(o) for o in operands)
+                if a is not None and b is not None:
+                    approximate = _combine(operation, a, b)
+                    self.values[value] = approximate
+            if approximate is None:
+                approximate = self._value(value)
+            if approximate is not None and not (math.isfinite(abs(approximate)) and in_range(abs(approximate))):
+                raise self._error(self._outside(value), token)
+        return value
+
+    def _check_number(self, number: sp.Expr, token: _Token) -> None:
+        if number in (sp.oo, -sp.oo):
+            return
+        if number is sp.nan or number is sp.zoo:
+            raise self._error("this gives an infinite or undefined value (such as log(0), inf - inf)", token)
+        if number.is_Rational:
+            ok = integer_in_range(number.p, number.q)
+        else:  # a Float: SymPy's own exponent never overflows, so 1e-200*1e-200 is 1e-400, not 0
+            value = float(number)
+            ok = math.isfinite(value) and in_range(value) and (value != 0 or number == 0)
+        if not ok:
+            raise self._error(self._outside(number), token)
+
+    @staticmethod
+    def _outside(number: sp.Expr) -> str:
+        if number.is_Rational and max(abs(number.p).bit_length(), number.q.bit_length()) > 64:
+            shown = f"a number near 10**{round((abs(number.p).bit_length() - number.q.bit_length()) * math.log10(2))}"
+        else:
+            shown = _short(number)
+        return (f"{shown} is outside the accepted range of numbers (zero, or magnitudes from "
+                f"{SMALLEST:g} to {LARGEST:g})")
+
+    def _value(self, e: sp.Expr) -> complex | None:
+        """The value of a numeric expression from the values of its parts (memoised)."""
+        known = self.values.get(e)
+        if known is not None:
+            return known
+        try:
+            if e.is_Number or e in (sp.pi, sp.E):
+                if e.is_Rational and not integer_in_range(e.p, e.q):
+                    return complex(math.inf)
+                value = complex(float(e))
+            elif e.is_Add or e.is_Mul:
+                parts = [self._value(a) for a in e.args]
+                if any(v is None for v in parts):
+                    return None
+                value = parts[0]  # type: ignore[assignment]
+                for part in parts[1:]:
+                    value = _combine("+" if e.is_Add else "*", value, part)  # type: ignore[arg-type]
+            elif e.is_Pow:
+                base, exponent = self._value(e.base), self._value(e.exp)
+                if base is None or exponent is None:
+                    return None
+                value = _combine("**", base, exponent)
+            else:  # a function of numbers: SymPy evaluates it once, on the values of its arguments
+                parts = [self._value(a) for a in e.args]
+                if any(v is None for v in parts):
+                    return None
+                args = [sp.Float(v.real) + sp.I * sp.Float(v.imag) if v.imag else sp.Float(v.real) for v in parts]
+                exact = e.func(*args).evalf(17)
+                value = complex(exact)
+                if value == 0 and exact != 0:  # underflow: exp(-1000) is 5e-435, not zero
+                    value = complex(math.inf)
+        except (OverflowError, ZeroDivisionError):
+            value = complex(math.inf)
+        except (TypeError, ValueError):
+            return None  # not a plain number (a symbol inside, an unevaluated function)
+        if value != value:  # NaN: an undefined value, e.g. inf - inf
+            value = complex(math.inf)
+        self.values[e] = value
+        return value
 
     def postfix(self) -> sp.Expr:
         token = self.tok
@@ -362,7 +474,7 @@ class _Parser:
                     f"'{name}' takes {nargs} argument{'s' if nargs > 1 else ''}, got {len(args)}",
                     token,
                 )
-            return func(*args)
+            return self._checked(func(*args), token)
         if name == INTEGRAL:
             if primes or not called:
                 raise self._error("write integral(expression) for an integral over the domain", token)
@@ -419,6 +531,30 @@ class _Parser:
             args.append(self.expression())
         self._expect(")", "')' or ','")
         return args
+
+
+#: Sums longer than this have only their new terms checked (see _Parser._checked): checking
+#: every term of every partial sum would make reading a long sum quadratic in its length.
+_FULL_CHECK = 100
+
+
+def _combine(operation: str, a: complex, b: complex) -> complex:
+    """``a operation b`` in complex floats; an underflow (a product, quotient or power of
+    non-zero numbers that came out as zero) counts as out of range, as an overflow does."""
+    if operation in "+-":
+        return a + b if operation == "+" else a - b
+    result = a * b if operation == "*" else a / b if operation == "/" else a**b
+    if result == 0 and a != 0 and b != 0:
+        return complex(math.inf)
+    return result
+
+
+def _short(e: sp.Expr) -> str:
+    try:
+        text = sp.sstr(e)
+    except ValueError:  # an integer beyond Python's limit on digits converted to text
+        return "a number with too many digits"
+    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def parse(text: str, independent: str | sp.Symbol = "x") -> sp.Expr:

@@ -17,6 +17,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from . import limits as _limits
 from ._lazy import LazyModule, applied_undef
 from .errors import ExpressionError, ProblemError, closest
 
@@ -342,10 +343,9 @@ class Problem:
         if isinstance(end, bool):
             raise ProblemError(f"{what} {end!r} is not a number")
         if isinstance(end, int | float):
-            if math.isnan(end):
-                raise ProblemError(f"{what} is NaN")
-            if math.isinf(end):
-                return sp.oo if end > 0 else -sp.oo
+            end_value = _limits.check_end(end, what)  # NaN, or beyond the float range
+            if math.isinf(end_value):
+                return sp.oo if end_value > 0 else -sp.oo
             return sp.Integer(end) if isinstance(end, int) else sp.Float(end)
         if isinstance(end, str):
             try:
@@ -373,14 +373,17 @@ class Problem:
         self._check_order([a, b], [_describe(domain[0]), _describe(domain[1])])
         return a, b
 
-    def value(self, point: sp.Expr, constants: Mapping[str, float] | None = None) -> float:
+    def value(self, point: sp.Expr, what: str = "") -> float:
         """The value of a point (constants and parameter guesses substituted)."""
-        values = {**self.constants, **(constants or {}), **self.unknown_parameters}
-        return point_value(point, values)
+        values = {**self.constants, **self.unknown_parameters}
+        return point_value(point, values, what)
 
     def _check_order(self, points: list, labels: list[str]) -> None:
         """Domain ends and interfaces strictly increasing, finite inside (one place for every value)."""
-        check_positions([self.value(p) for p in points], labels, self.independent)
+        last = len(points) - 1
+        values = [self.value(p, f"{'domain end' if i in (0, last) else 'interface'} {labels[i]}")
+                  for i, p in enumerate(points)]
+        check_positions(values, labels, self.independent)
 
     def _region_input(self, regions: Any) -> list[tuple[str, Any, Any, dict]]:
         """``(label, end or None, equations or None, constants)`` per region as given."""
@@ -444,7 +447,7 @@ class Problem:
         for point, _ in cuts:
             if point in (sp.oo, -sp.oo):
                 raise ProblemError(f"an interface at {point} is not inside the domain")
-        ordered = sorted(cuts, key=lambda c: self.value(c[0]))
+        ordered = sorted(cuts, key=lambda c: self.value(c[0], f"interface {_describe(c[0])}"))
         self._check_order([a, *(p for p, _ in ordered), b],
                           [_describe(a), *(labels[id(p)] for p, _ in ordered), _describe(b)])
         regions = []
@@ -628,10 +631,9 @@ class Problem:
             ends = {self.which_point(first.point), self.which_point(second.point)}
             if (first.name, first.order) != (second.name, second.order) or ends != {0, 1}:
                 return False
-            # c = +-(value at one end - value at the other), compared without expanding powers
+            # c = +-(value at one end - value at the other); no expand: it multiplies out powers of sums
             difference = first.node - second.node
-            if not (c - difference == 0 or c + difference == 0 or sp.expand(c - difference) == 0
-                    or sp.expand(c + difference) == 0):
+            if c - difference != 0 and c + difference != 0:
                 return False
         return True
 
@@ -644,7 +646,7 @@ class Problem:
             if isinstance(value, bool):
                 raise ProblemError(f"guess for '{name}': expected an expression or number")
             if isinstance(value, int | float):
-                e = sp.Float(value)
+                e = sp.Float(_limits.check_value(value, f"guess for '{name}'"))
             elif isinstance(value, str):
                 try:
                     e = _expr.parse(value, self.x)
@@ -739,20 +741,18 @@ class Problem:
         return f"Problem({eqs} | {bcs} | {self.independent} in ({a}, {b}))"
 
 
-def point_value(point: Any, values: Mapping[str, float]) -> float:
-    """The number a point expression stands for, given the values of its names."""
-    value = point.xreplace({sp.Symbol(k): v for k, v in values.items()})
+def point_value(point: Any, values: Mapping[str, float], what: str = "") -> float:
+    """The number a point expression stands for, given the values of its names (checked:
+    a real number of floating-point size, or an infinite end); ``what`` names it in errors."""
+    value = sp.sympify(point.xreplace({sp.Symbol(k): v for k, v in values.items()}))
     if value == sp.oo:
         return math.inf
     if value == -sp.oo:
         return -math.inf
-    try:
-        number = float(value)
-    except (TypeError, ValueError, OverflowError):
-        raise ProblemError(f"the point {point} is not a real number of floating-point size") from None
-    if math.isnan(number):
-        raise ProblemError(f"the point {point} is not a real number")
-    return number
+    what = what or f"the point {_limits.describe(point)}"
+    if value.free_symbols:
+        raise ProblemError(f"{what} is not a number")
+    return _limits.check_end(value, what)
 
 
 #: Smallest length of a region relative to the domain's size: below it the mapping of the
@@ -803,18 +803,7 @@ def _numbers(values: Mapping[str, Any], role: str, names_known: bool = False) ->
     for name, value in values.items():
         if not names_known:
             _expr.check_name(name, role)
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            try:
-                value = float(value)  # numpy scalars, sympy numbers
-            except (TypeError, ValueError, OverflowError):
-                raise ProblemError(f"{role} '{name}': expected a number, got {value!r}") from None
-        try:
-            value = float(value)
-        except OverflowError:
-            raise ProblemError(f"{role} '{name}': {value} is beyond the floating-point range") from None
-        if not math.isfinite(value):
-            raise ProblemError(f"{role} '{name}': expected a finite number, got {value!r}")
-        result[name] = value
+        result[name] = _limits.check_value(value, f"{role} '{name}'")  # finite, within 1e-300..1e300
     return result
 
 

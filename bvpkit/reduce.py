@@ -40,6 +40,7 @@ from dataclasses import dataclass, field, fields
 import sympy as sp
 from sympy.core.function import AppliedUndef
 
+from .budget import budget, check_sizes
 from .errors import ProblemError
 from .expr import DomainIntegral
 from .layout import LENGTH, StateLayout, States
@@ -49,9 +50,6 @@ X = sp.Symbol("_x", real=True)
 #: The user's (physical) variable while a region's system is being formed.
 _PHYSICAL = sp.Symbol("_xphys", real=True)
 
-# sympy.solve on a highest derivative that appears nonlinearly can be slow for hostile input;
-# real problems isolate in well under a second.
-_MAX_OPS_FOR_NONLINEAR_SOLVE = 400
 
 
 def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
@@ -252,7 +250,11 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
             conditions.append((value(i, j, -1) - value(i, j, 1), kind))
     # 5. singular terms, 6. the map onto [0, 1], 7. the stack
     points = tuple(p.xreplace(names.region(0)) for p in problem.points)
-    singular = _singular(problem, systems, points, local, len(states), set(names.p.values()))
+    with budget("splitting off the singular term", advice="write the singular coefficient in a simpler form"):
+        singular = _singular(problem, systems, points, local, len(states), set(names.p.values()))
+    if singular is not None:
+        check_sizes({f"the right-hand side of state {i}": e for i, e in enumerate(singular[1])},
+                    step="splitting off the singular term")
     maps = _map(points, names)
     rhs = []
     for r, system in enumerate(systems):
@@ -319,7 +321,10 @@ def _first_order(problem, region, user_states, local, names) -> list:  # noqa: A
         leftover = eq.atoms(AppliedUndef, sp.Derivative)
         if leftover:  # pragma: no cover - Problem validation prevents this
             raise ProblemError(f"equation ({text}): could not read {sorted(map(str, leftover))[0]}")
-    solved = _isolate(equations, [tops[n] for n in problem.unknowns], problem)
+    with budget("isolating the highest derivatives", advice="write each equation solved for its highest derivative"):
+        solved = _isolate(equations, [tops[n] for n in problem.unknowns], problem)
+    check_sizes({f"the expression of {n}{chr(39) * problem.orders[n]}": e for n, e in zip(problem.unknowns, solved)},
+                step="isolating the highest derivatives")
     rhs = []
     for i, (name, order) in enumerate(user_states):
         rhs.append(local[i + 1] if order + 1 < problem.orders[name] else solved[problem.unknowns.index(name)])
@@ -361,7 +366,8 @@ def _eigenvalue(problem, systems, states, local, names) -> int | None:  # noqa: 
     lam = names.p[sp.Symbol(problem.eigenvalue)]
     users = _users(problem)
     for system in systems:
-        _check_linear(system[:users], local[:users], lam, problem)
+        with budget("checking that the eigenvalue problem is linear"):
+            _check_linear(system[:users], local[:users], lam, problem)
     values = [local[i] for i, (_, order) in enumerate(states[:users]) if order == 0]
     states.append(("integral of the squares (normalisation)", 0))
     for system in systems:
@@ -517,6 +523,8 @@ def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[s
     if not any(jac.has(t) for t in tops):
         # Linear in the highest derivatives: one exact linear solve.
         rest = sp.Matrix([eq.xreplace({t: 0 for t in tops}) for eq in equations])
+        if jac.is_diagonal() and all(jac[i, i] != 0 for i in range(len(tops))):
+            return [-rest[i] / jac[i, i] for i in range(len(tops))]  # each equation holds its own: no O(n^3) LU
         if len(tops) == 1:
             if jac[0, 0] == 0:
                 raise ProblemError(f"the equation does not contain {names[0]}")
@@ -528,20 +536,10 @@ def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[s
                 "rewrite the system"
             )
         return list(jac.LUsolve(-rest))
-    size = sum(sp.count_ops(eq) for eq in equations)
-    if size > _MAX_OPS_FOR_NONLINEAR_SOLVE:
-        raise ProblemError(
-            f"the highest derivatives {', '.join(names)} appear nonlinearly in a large "
-            "expression; isolate them by hand (write the equation as f'' = ...)"
-        )
-    try:
-        roots = sp.solve(equations, tops, dict=True)
-    except (NotImplementedError, ValueError, TypeError):
-        roots = []
-    if len(roots) != 1 or set(roots[0]) != set(tops):
-        how = "no closed-form root" if not roots else f"{len(roots)} roots"
-        raise ProblemError(
-            f"the highest derivatives {', '.join(names)} appear nonlinearly and sympy finds "
-            f"{how} for them; isolate them by hand (write the equation as {names[0]} = ...)"
-        )
-    return [roots[0][t] for t in tops]
+    # A symbolic solve for highest derivatives that appear nonlinearly can run for minutes and
+    # mostly finds several roots or none: refused at once, with what to write instead.
+    nonlinear = [name for name, t in zip(names, tops) if any(entry.has(t) for entry in jac)]
+    raise ProblemError(
+        f"highest derivatives that appear nonlinearly ({', '.join(nonlinear)}) are not isolated by bvpkit: "
+        f"write each equation solved for its highest derivative ({nonlinear[0]} = ...)"
+    )

@@ -216,19 +216,15 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
 
 def _values(name: str, axis: Any, source: str) -> list[float]:
     """A grid axis: a list as given, or ``{from, to, count, spacing = linear | geometric}``."""
-    import numpy as np
+    from . import limits
+    from .sweep import axis_values
 
-    if isinstance(axis, list):
-        return [float(v) for v in axis]
-    if not 1 <= axis.count <= 100_000:
-        raise SpecError(f"{source}: sweep.grid.{name}.count must be from 1 to 100000, got {axis.count}")
-    if axis.spacing == "linear":
-        return np.linspace(axis.start, axis.stop, axis.count).tolist()
-    if axis.spacing == "geometric":
-        if axis.start <= 0 or axis.stop <= 0:
-            raise SpecError(f"{source}: sweep.grid.{name}: geometric spacing needs positive ends")
-        return np.geomspace(axis.start, axis.stop, axis.count).tolist()
-    raise SpecError(f"{source}: sweep.grid.{name}.spacing must be 'linear' or 'geometric', got '{axis.spacing}'")
+    try:
+        if isinstance(axis, list):
+            return [limits.check_value(v, f"value of '{name}'") for v in axis]
+        return axis_values(name, axis.start, axis.stop, axis.count, axis.spacing)
+    except BvpkitError as err:
+        raise SpecError(f"{source}: sweep.grid.{name}: {err}") from None
 
 
 def loads(text: str, source: str = "<spec>") -> Problem:

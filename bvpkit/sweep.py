@@ -15,7 +15,17 @@ The store is SQLite (standard library ``sqlite3``, WAL journal). The main proces
 transaction per finished unit, so a unit is either wholly in the store or not at all: a
 sweep killed at any moment and run again with the same store solves exactly what is
 missing and ends with the table a clean run gives. Failed points are stored with their
-message and re-solved only with ``retry_failed=True``.
+message and re-solved only with ``retry_failed=True``. A file that is not a bvpkit store
+(another program's SQLite database, a truncated file, random bytes) is refused by name
+before anything is solved: bvpkit's stores carry their own SQLite ``application_id``.
+
+Local workers never outlive the sweep: each one watches its parent (``PR_SET_PDEATHSIG`` on
+Linux, and everywhere a thread that checks ``os.getppid()``) and stops when it is gone; on
+a Dask cluster a unit stops between two points once its task has been cancelled (its client
+went away). Workers are started without importing the caller's ``__main__`` again (a unit
+needs nothing from it), so a plain script needs no ``if __name__ == "__main__":`` guard.
+
+Ctrl-C returns what was finished (``SweepResult.interrupted``); the store keeps it too.
 """
 
 from __future__ import annotations
@@ -28,21 +38,32 @@ import itertools
 import json
 import math
 import os
+import signal
 import sqlite3
+import sys
+import threading
 import time
+import types
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from multiprocessing.context import SpawnContext, SpawnProcess
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from ._output import json_ready, progress_bar, pyplot
+from .limits import LARGEST, SMALLEST, in_range
 from .errors import OptionError, closest
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
 #: short enough to spread a grid over the workers.
 CHUNK = 25
+#: SQLite ``application_id`` of a bvpkit store (the bytes "bvpk"): tells our stores from
+#: other programs' databases.
+STORE_ID = int.from_bytes(b"bvpk", "big")
+#: Seconds between two checks of a worker's parent (where the kernel does not signal it).
+PARENT_CHECK = 0.5
 
 
 @dataclass(frozen=True)
@@ -78,6 +99,28 @@ def _worker_problem(unit: _Unit):  # noqa: ANN202
     return prepared
 
 
+def _abandoned_check():  # noqa: ANN202 - a callable returning bool
+    """A check that this unit's result is no longer wanted: its Dask task was cancelled
+    (the client went away), or its parent process is gone."""
+    parent = _PARENT.get("pid")
+    if parent is not None:
+        return lambda: os.getppid() != parent
+    distributed = sys.modules.get("distributed")
+    if distributed is None:
+        return lambda: False
+    try:
+        worker = distributed.get_worker()
+        key = worker.get_current_task()
+    except (ValueError, AttributeError):  # not inside a Dask task
+        return lambda: False
+
+    def cancelled() -> bool:
+        task = worker.state.tasks.get(key)
+        return task is None or task.state in ("cancelled", "released", "forgotten")
+
+    return cancelled
+
+
 def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     """Solve one chunk in order, each point seeded by the previous one (runs in a worker)."""
     from .driver import solve
@@ -86,7 +129,10 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     options = dict(unit.options)
     rows = []
     previous = None
+    abandoned = _abandoned_check()
     for value in unit.fast_values:
+        if abandoned():
+            break  # nobody waits for this unit any more: stop between two points
         point = {**dict(unit.slow), unit.fast: value}
         started = time.perf_counter()
         try:
@@ -121,28 +167,68 @@ class _Store:
 
     def __init__(self, path: str | Path | None):
         self.path = ":memory:" if path is None else str(path)
-        self.db = sqlite3.connect(self.path, timeout=60)
+        self.db = None
         if path is not None:
-            self.db.execute("PRAGMA journal_mode=WAL")
-        self.db.execute(
-            "CREATE TABLE IF NOT EXISTS points (problem TEXT NOT NULL, point TEXT NOT NULL, row TEXT NOT NULL, "
-            "success INTEGER NOT NULL, PRIMARY KEY (problem, point))"
-        )
-        self.db.commit()
+            self._check_file(Path(path))
+        try:
+            self.db = sqlite3.connect(self.path, timeout=60)
+            if path is not None:
+                self._check_database()
+                self.db.execute("PRAGMA journal_mode=WAL")
+            self.db.execute(
+                "CREATE TABLE IF NOT EXISTS points (problem TEXT NOT NULL, point TEXT NOT NULL, row TEXT NOT NULL, "
+                "success INTEGER NOT NULL, PRIMARY KEY (problem, point))"
+            )
+            self.db.execute(f"PRAGMA application_id = {STORE_ID}")
+            self.db.commit()
+        except sqlite3.DatabaseError as err:
+            self.close()
+            raise self._refused(str(err)) from None
+
+    def _refused(self, why: str) -> OptionError:
+        return OptionError(f"the store {self.path} is not a bvpkit sweep store ({why}); give another file")
+
+    def _check_file(self, path: Path) -> None:
+        if path.is_dir():
+            raise OptionError(f"the store {path} is a folder; give a file")
+        if not path.exists() or path.stat().st_size == 0:
+            return  # a new store
+        with open(path, "rb") as handle:
+            header = handle.read(16)
+        if header != b"SQLite format 3\x00":
+            raise self._refused("not an SQLite file")
+
+    def _check_database(self) -> None:
+        (found,) = self.db.execute("PRAGMA application_id").fetchone()
+        tables = {name for (name,) in self.db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        if found == STORE_ID or not tables:
+            return
+        columns = {row[1] for row in self.db.execute("PRAGMA table_info(points)")}
+        if found == 0 and tables == {"points"} and columns == {"problem", "point", "row", "success"}:
+            return  # written before stores carried their id
+        raise self._refused("a database of another program" if found != STORE_ID else "its tables differ")
 
     def done(self, problem: str, retry_failed: bool) -> dict[str, dict]:
         query = "SELECT point, row FROM points WHERE problem = ?" + (" AND success = 1" if retry_failed else "")
-        return {point: json.loads(row) for point, row in self.db.execute(query, (problem,))}
+        try:
+            return {point: json.loads(row) for point, row in self.db.execute(query, (problem,))}
+        except (sqlite3.DatabaseError, ValueError) as err:
+            raise self._refused(f"unreadable: {err}") from None
 
     def write(self, problem: str, rows: list[dict]) -> None:
-        with self.db:  # one transaction per unit
-            self.db.executemany(
-                "INSERT OR REPLACE INTO points (problem, point, row, success) VALUES (?, ?, ?, ?)",
-                [(problem, _grid_key(r["point"]), json.dumps(r, allow_nan=True), int(r["success"])) for r in rows],
-            )
+        try:
+            with self.db:  # one transaction per unit
+                self.db.executemany(
+                    "INSERT OR REPLACE INTO points (problem, point, row, success) VALUES (?, ?, ?, ?)",
+                    [(problem, _grid_key(r["point"]), json.dumps(r, allow_nan=True), int(r["success"])) for r in rows],
+                )
+        except sqlite3.DatabaseError as err:
+            raise OptionError(f"cannot write to the store {self.path}: {err}") from None
 
     def close(self) -> None:
-        self.db.close()
+        if self.db is not None:
+            self.db.close()
+            self.db = None
 
 
 class SweepResult:
@@ -161,16 +247,22 @@ class SweepResult:
     """
 
     def __init__(self, parameters: dict[str, np.ndarray], outputs: list[str], rows: list[dict], solved: int,
-                 reused: int, seconds: float):
+                 reused: int, seconds: float, missing: int = 0, interrupted: bool = False, stored: bool = False):
         self.parameters = parameters
         self.outputs = outputs
         self.table = rows
         self.solved, self.reused = solved, reused
         self.failed = sum(not r["success"] for r in rows)
         self.seconds = seconds
-        self.success = self.failed == 0
+        self.interrupted = interrupted
+        self.success = self.failed == 0 and not interrupted
         self.message = (f"{len(rows)} points: {solved} solved now, {reused} from the store, "
                         f"{self.failed} failed, in {seconds:.3g} s")
+        if interrupted:
+            self.message = (f"interrupted (Ctrl-C) with {missing} of {len(rows) + missing} points missing; "
+                            f"the table holds the {len(rows)} finished ({solved} solved now, {reused} from the "
+                            f"store, {self.failed} failed)"
+                            + ("; the store keeps them: run again with it to finish" if stored else ""))
 
     def column(self, name: str) -> np.ndarray:
         """One column of the table as an array (a parameter, an output or a diagnostic)."""
@@ -185,9 +277,9 @@ class SweepResult:
                 writer.writerow([r.get(n, "") for n in names])
 
     def as_dict(self) -> dict[str, Any]:
-        return json_ready({"success": self.success, "status": "solved" if self.success else "not_converged",
-                           "message": self.message, "parameters": self.parameters, "outputs": self.outputs,
-                           "table": self.table})
+        status = "interrupted" if self.interrupted else "solved" if self.success else "not_converged"
+        return json_ready({"success": self.success, "status": status, "message": self.message,
+                           "parameters": self.parameters, "outputs": self.outputs, "table": self.table})
 
     def plot(self, path: str | Path, output: str | None = None) -> None:
         """Design chart: one curve per value of the slower parameter (needs the ``plot`` extra)."""
@@ -231,9 +323,14 @@ def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray
     for name, values in grid.items():
         if name not in prepared.constants:
             raise OptionError(f"'{name}' is not a constant of the problem{closest(name, prepared.constants)}")
-        array = np.asarray(values, dtype=float).ravel()
+        try:
+            array = np.asarray(values, dtype=float).ravel()
+        except (TypeError, ValueError, OverflowError):
+            raise OptionError(f"the values of '{name}' must be numbers") from None
         if array.size == 0 or not np.all(np.isfinite(array)):
             raise OptionError(f"the values of '{name}' must be finite numbers, at least one")
+        if not all(in_range(float(v)) for v in array):
+            raise OptionError(f"the values of '{name}' must be zero or of magnitude {SMALLEST:g} to {LARGEST:g}")
         axes[name] = array
     size = int(np.prod([a.size for a in axes.values()]))
     if size > 1_000_000:
@@ -241,12 +338,118 @@ def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray
     return axes
 
 
-def _default_executor(workers: int | None) -> futures.Executor:
-    import multiprocessing
+def axis_values(name: str, start: float, stop: float, count: int, spacing: str = "linear") -> list[float]:
+    """``count`` values from ``start`` to ``stop``, evenly (``linear``) or in ratio (``geometric``)."""
+    if isinstance(count, bool) or not isinstance(count, int) or not 1 <= count <= 100_000:
+        raise OptionError(f"the count of '{name}' must be a whole number from 1 to 100000, got {count!r}")
+    for end in (start, stop):
+        if not (math.isfinite(end) and in_range(end)):
+            raise OptionError(f"the ends of '{name}' must be zero or of magnitude {SMALLEST:g} to {LARGEST:g}")
+    if spacing == "linear":
+        return np.linspace(start, stop, count).tolist()
+    if spacing == "geometric":
+        if start <= 0 or stop <= 0:
+            raise OptionError(f"'{name}': geometric spacing needs positive ends")
+        return np.geomspace(start, stop, count).tolist()
+    raise OptionError(f"the spacing of '{name}' must be 'linear' or 'geometric', got '{spacing}'")
 
+
+# -- local worker processes ---------------------------------------------------------------
+_PARENT: dict[str, int] = {}
+
+
+def _worker_start(parent: int) -> None:
+    """Initializer of each local worker: stop with the parent, leave Ctrl-C to the parent."""
+    _PARENT["pid"] = parent
+    # Ctrl-C reaches the whole process group; the parent handles it and ends the workers,
+    # which would otherwise each print a traceback.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG: the kernel kills us with our parent
+        except (OSError, AttributeError):
+            pass  # the watching thread below covers it
+    if os.getppid() != parent:  # the parent died before the line above took effect
+        os._exit(1)
+
+    def watch() -> None:
+        while True:
+            time.sleep(PARENT_CHECK)
+            if os.getppid() != parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="bvpkit-parent-watch", daemon=True).start()
+
+
+class _MainHidden:
+    """While a worker starts: the caller's ``__main__`` is hidden from ``multiprocessing``.
+
+    A spawned worker imports the parent's main module again (so that functions defined in
+    a script can be unpickled); a script that calls :func:`sweep` at its top level would
+    then sweep again in every worker. Units are plain data and bvpkit functions, so the
+    workers need nothing from ``__main__``; with it hidden while the process starts,
+    ``multiprocessing`` records no main module to import.
+    """
+
+    def __enter__(self) -> None:
+        self.main = sys.modules.get("__main__")
+        sys.modules["__main__"] = types.ModuleType("__main__")
+
+    def __exit__(self, *exc: object) -> None:
+        if self.main is not None:
+            sys.modules["__main__"] = self.main
+
+
+class _WorkerProcess(SpawnProcess):
+    """A spawned worker that starts without the caller's ``__main__`` (see :class:`_MainHidden`)."""
+
+    def start(self) -> None:
+        # SIGINT blocked while the worker is made: the worker inherits the mask and never
+        # sees Ctrl-C (the parent handles it), even while it is still importing; in the
+        # parent a Ctrl-C that comes meanwhile waits until the line after.
+        masked = hasattr(signal, "pthread_sigmask")
+        if masked:
+            previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+        try:
+            with _MainHidden():
+                super().start()
+        finally:
+            if masked:
+                signal.pthread_sigmask(signal.SIG_SETMASK, previous)
+
+
+class _WorkerContext(SpawnContext):
+    Process = _WorkerProcess  # type: ignore[assignment]
+
+
+def _default_executor(workers: int | None) -> futures.Executor:
     count = workers or os.cpu_count() or 1
     # "spawn" is safe with threads in the parent (the progress bar, SQLite) on every platform
-    return futures.ProcessPoolExecutor(max_workers=count, mp_context=multiprocessing.get_context("spawn"))
+    return futures.ProcessPoolExecutor(max_workers=count, mp_context=_WorkerContext(), initializer=_worker_start,
+                                       initargs=(os.getpid(),))
+
+
+def _stop_workers(executor: futures.Executor) -> None:
+    """End a local pool's workers now (Ctrl-C): a unit in progress is not waited for."""
+    for process in list(getattr(executor, "_processes", {}).values()):
+        try:
+            process.terminate()
+        except (OSError, AttributeError, ValueError):
+            pass
+    # with its workers gone the pool's own thread ends at once: waiting for it is quick, and
+    # not waiting leaves it racing the interpreter's exit (CPython then prints an OSError)
+    executor.shutdown(wait=True, cancel_futures=True)
+
+
+def _starting_worker() -> bool:
+    """Whether this process is a worker still importing the parent's main module."""
+    multiprocessing = sys.modules.get("multiprocessing")
+    if multiprocessing is None:
+        return False
+    return bool(getattr(multiprocessing.current_process(), "_inheriting", False))
 
 
 def sweep(
@@ -289,6 +492,12 @@ def sweep(
     from .prepared import Prepared, prepare
     from .problem import Problem
 
+    if _starting_worker():
+        # an executor of the caller's that imports __main__ again in its workers
+        sys.stderr.write('bvpkit: a worker process re-ran the script that calls bvpkit.sweep; put the '
+                         'script\'s work under  if __name__ == "__main__":\n')
+        sys.stderr.flush()
+        os._exit(1)
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"sweep() takes a bvpkit.Problem, got {type(problem).__name__}")
     prepared = prepare(problem)
@@ -320,12 +529,22 @@ def sweep(
             for i in range(0, len(todo), chunk):
                 units.append(_Unit(problem_key, fast, tuple(todo[i:i + chunk]), slow, tuple(labels.values()),
                                    tuple(sorted(options.items())), plain))
-        solved = _run(units, db, problem_key, executor, workers, progress, done)
+        progress_count = [0]
+        interrupted = False
+        try:
+            _run(units, db, problem_key, executor, workers, progress, done, progress_count)
+        except KeyboardInterrupt:
+            interrupted = True
+        solved = progress_count[0]
         rows = []
+        missing = 0
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):
             for v in axes[fast]:
                 point = {**dict(zip(slow_names, map(float, slow_values))), fast: float(v)}
-                stored = done[_grid_key(point)]
+                stored = done.get(_grid_key(point))
+                if stored is None:  # only after Ctrl-C
+                    missing += 1
+                    continue
                 row = {n: point[n] for n in names}
                 row.update({label: stored["outputs"].get(text, math.nan) for label, text in labels.items()})
                 row.update({k: stored[k] for k in ("success", "status", "method", "error_estimate", "message",
@@ -334,17 +553,17 @@ def sweep(
     finally:
         db.close()
     total = len(rows)
-    return SweepResult(axes, list(labels), rows, solved, total - solved, time.perf_counter() - started)
+    return SweepResult(axes, list(labels), rows, solved, total - solved, time.perf_counter() - started,
+                       missing=missing, interrupted=interrupted, stored=store is not None)
 
 
-def _run(units, db, problem_key, executor, workers, progress, done) -> int:  # noqa: ANN001
-    """Run the units, writing each to the store as it finishes; return the points solved."""
+def _run(units, db, problem_key, executor, workers, progress, done, count) -> None:  # noqa: ANN001
+    """Run the units, writing each to the store as it finishes; ``count[0]`` counts the points solved."""
     bar = progress_bar(progress, sum(len(u.fast_values) for u in units))
-    solved = 0
     owned = None
     try:
         if not units:
-            return 0
+            return
         if executor == "serial":
             results = (_solve_unit(u) for u in units)
         else:
@@ -355,17 +574,31 @@ def _run(units, db, problem_key, executor, workers, progress, done) -> int:  # n
             elif not isinstance(executor, futures.Executor):
                 raise OptionError("executor must be a concurrent.futures.Executor, a distributed.Client or 'serial'")
             pending = [executor.submit(_solve_unit, u) for u in units]
-            results = (f.result() for f in futures.as_completed(pending))
+            results = (_result(f) for f in futures.as_completed(pending))
         for rows in results:
             db.write(problem_key, rows)
             for r in rows:
                 done[_grid_key(r["point"])] = r
-            solved += len(rows)
+            count[0] += len(rows)
             if bar is not None:
                 bar.update(len(rows))
+    except BaseException:
+        if owned is not None:
+            _stop_workers(owned)
+            owned = None
+        raise
     finally:
         if owned is not None:
             owned.shutdown(cancel_futures=True)
         if bar is not None:
             bar.close()
-    return solved
+
+
+def _result(future: futures.Future) -> list[dict[str, Any]]:
+    from concurrent.futures.process import BrokenProcessPool
+
+    try:
+        return future.result()
+    except BrokenProcessPool:
+        raise OptionError("the sweep's worker processes stopped unexpectedly (killed, or out of memory); "
+                          "run with executor='serial' (--serial) to see the point that fails") from None
