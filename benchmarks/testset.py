@@ -21,8 +21,8 @@ listed, not run. The check itself is tested on deliberately wrong solutions befo
 Each solve runs in a child process and is stopped after ``timeout`` seconds (10 by
 default); the child is then ended and a fresh one started, so no process is left behind.
 
-The full run takes about half an hour to an hour on 2 shared cores (50 instances x 2
-tolerances x 5 solvers, many shooting runs end at the time limit), so it is not part of
+The full run takes about 7 minutes on 2 shared cores (50 instances x 2 tolerances x 5
+solvers; some 20 shooting runs end at the time limit), so it is not part of
 ``python -m benchmarks`` (all suites); it runs only by name. It prints its tables, and writes
 them to a file only when one is named (``--out FILE`` or ``run(out=...)``).
 """
@@ -375,6 +375,22 @@ def _e(value: float | None) -> str:
     return f"{value:.1e}"
 
 
+def _seconds(value: float) -> str:
+    return f"{1e3 * value:.2g} ms" if value < 1 else f"{value:.3g} s"
+
+
+def _brief(r: Run | None) -> str:
+    """One overview cell."""
+    if r is None:
+        return "-"
+    if not r.success:
+        return r.outcome
+    est = f" (est {_e(r.estimate)})" if r.estimate is not None else ""
+    head = "**FALSE**" if r.false_success else "ok"
+    via = f" [{r.method.split()[0]}]" if r.solver == "auto" and r.method else ""
+    return f"{head} {_e(r.true_error)}{est}, {_seconds(r.seconds)}{via}"
+
+
 def _cell(text: str) -> str:
     return text.replace("|", "\\|").replace("\n", " ")
 
@@ -423,7 +439,18 @@ def report(chosen, checks, runs, solvers, tols, timeout, max_nodes, seconds) -> 
     refused = [i.name for i in chosen if not checks[i.name].ok]
     lines += ["", f"Refused (exact solution failed its check): {', '.join(refused) or 'none'}.", ""]
 
-    lines += ["## Results", "",
+    lines += ["## Overview", "",
+              ("One row per instance and tolerance: `ok` true error (est: the solver's estimate), time; "
+               "**FALSE** marks a false success; otherwise the status word. The full table follows."), "",
+              "| instance | tol | " + " | ".join(solvers) + " |",
+              "| --- | --- | " + " | ".join("---" for _ in solvers) + " |"]
+    by_key = {(r.instance, r.tol, r.solver): r for r in runs}
+    for inst in chosen:
+        for tol in tols:
+            if (inst.name, tol, solvers[0]) in by_key:
+                cells = [_brief(by_key.get((inst.name, tol, s))) for s in solvers]
+                lines.append(f"| {inst.name} | {tol:g} | " + " | ".join(cells) + " |")
+    lines += ["", "## Results", "",
               ("| instance | tol | solver | result | true error | estimate | condition | time (s) | "
                "false success |"),
               "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
@@ -462,7 +489,6 @@ def report(chosen, checks, runs, solvers, tols, timeout, max_nodes, seconds) -> 
         lines.append("None.")
 
     lines += ["", "### Solved by neither auto nor solve_bvp", ""]
-    by_key = {(r.instance, r.tol, r.solver): r for r in runs}
     unsolved = []
     for inst in chosen:
         for tol in tols:
