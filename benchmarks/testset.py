@@ -312,7 +312,8 @@ def run(
     Parameters
     ----------
     instances : sequence of Instance or names, optional
-        Default: all of :data:`INSTANCES` (``quick``: a handful, at one tolerance).
+        Members of :data:`INSTANCES` (the child process finds them by name). Default: all of
+        them (``quick``: a handful, at one tolerance).
     tols : sequence of float
     timeout : float
         Wall-time limit of each solve, in seconds.
@@ -325,6 +326,9 @@ def run(
         instances = instances or list(QUICK)
         tols = (QUICK_TOLERANCE,) if tols == TOLERANCES else tols
     chosen = [BY_NAME[i] if isinstance(i, str) else i for i in (instances or INSTANCES)]
+    foreign = [i.name for i in chosen if BY_NAME.get(i.name) is not i]
+    if foreign:  # the child process finds instances by name in INSTANCES
+        raise ValueError(f"run() takes instances of INSTANCES or their names; not {', '.join(foreign)}")
     _control_check()
     checks = {i.name: check_exact(i) for i in chosen}
     usable = [i for i in chosen if checks[i.name].ok]
@@ -376,7 +380,8 @@ def _e(value: float | None) -> str:
 
 
 def _seconds(value: float) -> str:
-    return f"{1e3 * value:.2g} ms" if value < 1 else f"{value:.3g} s"
+    ms = 1e3 * value
+    return f"{ms:.2g} ms" if ms < 10 else f"{ms:.0f} ms" if ms < 1000 else f"{value:.3g} s"
 
 
 def _brief(r: Run | None) -> str:
