@@ -1,4 +1,8 @@
-"""Run every benchmark, print the tables and prepend them to benchmarks/RESULTS.md."""
+"""Run every benchmark, print the tables and prepend them to benchmarks/RESULTS.md.
+
+``python -m benchmarks testset ...`` runs the test set instead (see benchmarks/testset.py): it is
+long, is not part of the default run, and writes a file only when given ``--out FILE``.
+"""
 
 from __future__ import annotations
 
@@ -11,6 +15,11 @@ SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *sc
 
 
 def main(argv: list[str]) -> None:
+    if argv[:1] == ["testset"]:
+        from . import testset
+
+        testset.main(argv[1:])
+        return
     wanted = set(argv)
     sections = []
     for bench in SUITES:
@@ -21,4 +30,5 @@ def main(argv: list[str]) -> None:
     print(record(sections))
 
 
-main(sys.argv[1:])
+if __name__ == "__main__":  # the test set's child processes import this module again
+    main(sys.argv[1:])
