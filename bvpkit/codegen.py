@@ -211,6 +211,10 @@ def _derivatives(exprs, symbols) -> dict:  # noqa: ANN001
             if s in used:
                 d = sp.diff(e, s)
                 if d != 0:
+                    if any(not q.exp.is_Number for q in d.atoms(sp.Pow)):
+                        # SymPy writes d(u**n)/du as n*u**n/u, which is 0/0 where u = 0 (the
+                        # surface of a polytrope); powsimp gives n*u**(n - 1)
+                        d = sp.powsimp(d)
                     found[(i, j)] = d.replace(_RealAbs, sp.Abs) if d.has(_RealAbs) else d
     return found
 

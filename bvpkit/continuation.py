@@ -412,7 +412,14 @@ class _Tracer:
                 step *= _SHRINK
                 continue
             # ---- the branch turns (or natural steps fail): pseudo-arclength ---------------
-            outcome = self._arclength()
+            with np.errstate(all="ignore"):
+                try:
+                    outcome = self._arclength()
+                except (RuntimeError, ValueError, np.linalg.LinAlgError) as err:  # a singular bordered matrix
+                    outcome = False, self._done(
+                        f"the arclength steps stopped near {self.name} = {b.parameter[-1]:.6g} ({err}); the branch "
+                        "may end or branch off here"
+                    )
             if outcome is not None:
                 b.success, b.message = outcome
                 return

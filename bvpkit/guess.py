@@ -186,11 +186,15 @@ def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray, a: float
     matrix = np.array([sum(g * basis(end, j) for (end, j), g in row.items()) for row in rows])
     coefficients = np.linalg.lstsq(matrix, np.array(rhs), rcond=None)[0]
     s = (x - a) / scale
-    return np.array([
+    values = np.array([
         sum(coefficients[i] * (math.perm(i, j) * s ** (i - j) / scale**j if i >= j else 0.0 * s)
             for i in range(degree + 1))
         for j in range(order)
     ])
+    # round-off below the values' own size is set to zero: u(s) = 0 must not come out as
+    # -4e-16, outside the domain of u**1.5 or sqrt(u)
+    size = np.max(np.abs(values), axis=1, keepdims=True) if values.size else 0.0
+    return np.where(np.abs(values) <= 64 * np.finfo(float).eps * size, 0.0, values)
 
 
 # -- guesses on a mesh (no SymPy) --------------------------------------------------------------

@@ -443,6 +443,10 @@ class Problem:
                     continue
                 if all(not self._same(pv.point, q) for q, _ in cuts):
                     cuts.append((pv.point, None))
+        given_ends = [(p, i) for p, i in cuts if i is not None]
+        if given_ends:  # the regions are listed left to right: their ends must be in that order
+            self._check_order([a, *(p for p, _ in given_ends), b],
+                              [_describe(a), *(_describe(p) for p, _ in given_ends), _describe(b)])
         labels = {id(p): _describe(p) for p, _ in cuts}
         for point, _ in cuts:
             if point in (sp.oo, -sp.oo):
@@ -455,7 +459,8 @@ class Problem:
         for piece in range(len(ordered) + 1):
             label = f"region {piece + 1}" if ordered else "the domain"
             if given:
-                _, _, equations_raw, own = given[region_given]
+                _, _, _, own = given[region_given]
+                equations_raw = raw[region_given]
                 text = self.arguments["regions"][region_given].get("equations")
                 if equations_raw is not None:
                     texts = [text] if isinstance(text, str) else [_describe(t) for t in text]

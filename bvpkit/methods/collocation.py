@@ -28,6 +28,7 @@ from ..status import Status
 from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
+_OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 
 
@@ -69,19 +70,27 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
             step = lu.solve(res)
             cost = float(step @ step)
         y_step, p_step = step[: n * m].reshape(m, n).T, step[n * m:]
-        alpha = 1.0
-        for trial in range(trials + 1):
+        alpha, trial, halvings = 1.0, 0, 0
+        while True:
             y_new, p_new = y - alpha * y_step, p - alpha * p_step
-            parts = eq.parts(y_new, p_new)
-            res = np.concatenate([parts[0].T.ravel(), parts[1]])
-            step_new = lu.solve(res)
+            parts_new = eq.parts(y_new, p_new)
+            res_new = np.concatenate([parts_new[0].T.ravel(), parts_new[1]])
+            step_new = lu.solve(res_new) if np.isfinite(res_new).all() else res_new
             cost_new = float(step_new @ step_new)
-            if cost_new < (1 - 2 * alpha * sigma) * cost:
-                break
-            if trial < trials:
+            if not np.isfinite(cost_new) and halvings < _OUT_OF_DOMAIN_HALVINGS:
+                # the step left the equations' domain (a power of a negative state, a log):
+                # shorter steps, without counting them as the line search's own trials
                 alpha *= tau
-        y, p = y_new, p_new
-        if njev == 4 or not np.isfinite(cost_new):
+                halvings += 1
+                continue
+            if cost_new < (1 - 2 * alpha * sigma) * cost or trial >= trials:
+                break
+            alpha *= tau
+            trial += 1
+        if not np.isfinite(cost_new):
+            break  # no step stays in the equations' domain: stop at the last good iterate
+        y, p, parts, res = y_new, p_new, parts_new, res_new
+        if njev == 4:
             break
         col, bc, _, _, fm = parts
         if (np.abs(col) < tol_r * (eq.scale + np.abs(fm))).all() and (np.abs(bc) < tol).all():
