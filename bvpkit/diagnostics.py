@@ -272,8 +272,9 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
     large.
     """
     import numpy as np
-    import scipy.sparse as sparse
     from scipy.sparse.linalg import splu
+
+    from .discrete import block_matrix
 
     n, m = y.shape
     n_p = len(p)
@@ -284,41 +285,13 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
         jac = compiled.jac(x, y, p, k)  # (n, n, m)
         pjac = compiled.pjac(x, y, p, k) if n_p else None
         a, b, dp = compiled.bc_jac(y[:, 0], y[:, -1], p, k)
-    h = np.diff(x)
+    h = np.diff(x)[:, None, None]
+    J = np.moveaxis(jac, -1, 0)
     eye = np.eye(n)
-    left = -eye[:, :, None] / h - 0.5 * jac[:, :, :-1]  # d/dy_i of (y_i+1 - y_i)/h - (f_i + f_i+1)/2
-    right = eye[:, :, None] / h - 0.5 * jac[:, :, 1:]
-    # Interval blocks, all at once: block i occupies rows i*n.. and columns i*n.. (left)
-    # and (i+1)*n.. (right); entries ordered (interval, row, column).
-    r = np.arange(n)
-    i = np.arange(m - 1)[:, None, None]
-    block_rows = (i * n + r[None, :, None]).repeat(n, axis=2)
-    block_cols = (i * n + r[None, None, :]).repeat(n, axis=1)
-    rows = [block_rows.ravel(), block_rows.ravel()]
-    cols = [block_cols.ravel(), (block_cols + n).ravel()]
-    vals = [np.moveaxis(left, -1, 0).ravel(), np.moveaxis(right, -1, 0).ravel()]
-    if n_p:
-        q = np.arange(n_p)
-        prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
-        pcol = np.broadcast_to(n * m + q[None, None, :], prow.shape)
-        rows.append(prow.ravel())
-        cols.append(pcol.ravel())
-        vals.append(np.moveaxis(-0.5 * (pjac[:, :, :-1] + pjac[:, :, 1:]), -1, 0).ravel())
-    base = (m - 1) * n
-    nb = a.shape[0]
-    for block, offset in ((a, 0), (b, (m - 1) * n)):
-        rr, cc = np.meshgrid(base + np.arange(nb), offset + r, indexing="ij")
-        rows.append(rr.ravel())
-        cols.append(cc.ravel())
-        vals.append(block.ravel())
-    if n_p:
-        rr, cc = np.meshgrid(base + np.arange(nb), n * m + np.arange(n_p), indexing="ij")
-        rows.append(rr.ravel())
-        cols.append(cc.ravel())
-        vals.append(dp.ravel())
-    matrix = sparse.csc_matrix(
-        (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(size, size)
-    )
+    # d/dy_i and d/dy_i+1 of (y_i+1 - y_i)/h - (f_i + f_i+1)/2
+    left, right = -eye / h - 0.5 * J[:-1], eye / h - 0.5 * J[1:]
+    params = -0.5 * np.moveaxis(pjac[:, :, :-1] + pjac[:, :, 1:], -1, 0) if n_p else None
+    matrix = block_matrix(left, right, params, a, b, dp if n_p else None)
     if not np.isfinite(matrix.data).all():
         return math.inf
     try:

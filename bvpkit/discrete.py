@@ -16,6 +16,7 @@ than a general sparse LU of the same matrix. Otherwise a sparse LU (SuperLU) is 
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -40,6 +41,54 @@ def node_weights(x: np.ndarray) -> np.ndarray:
     w[:-1] += 0.5 * h
     w[1:] += 0.5 * h
     return w / ((x[-1] - x[0]) or 1.0)
+
+
+@functools.lru_cache(maxsize=64)
+def _block_pattern(k: int, n: int, n_p: int, n_bc: int) -> tuple[np.ndarray, np.ndarray]:
+    """Rows and columns of the entries of :func:`block_matrix`, in the order of its values."""
+    i = np.arange(k - 1)[:, None, None]
+    r = np.arange(n)
+    rows = (i * n + r[None, :, None]).repeat(n, axis=2).ravel()
+    cols = (i * n + r[None, None, :]).repeat(n, axis=1).ravel()
+    R, C = [rows, rows], [cols, cols + n]
+    if n_p:
+        prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
+        R.append(prow.ravel())
+        C.append(np.broadcast_to(n * k + np.arange(n_p)[None, None, :], prow.shape).ravel())
+    base = (k - 1) * n
+    for offset, width in ((0, n), ((k - 1) * n, n), (n * k, n_p)):
+        if width:
+            rr, cc = np.meshgrid(base + np.arange(n_bc), offset + np.arange(width), indexing="ij")
+            R.append(rr.ravel())
+            C.append(cc.ravel())
+    return np.concatenate(R), np.concatenate(C)
+
+
+def block_matrix(left: np.ndarray, right: np.ndarray, parameters: np.ndarray | None, a: np.ndarray,
+                 b: np.ndarray, dp: np.ndarray | None, scale: np.ndarray | None = None) -> sparse.csc_matrix:
+    """The one assembler of the bordered block-bidiagonal Newton matrices of the methods.
+
+    Unknowns are ``k`` blocks of ``n`` (states at mesh nodes, or at the starts of shooting
+    segments), then ``n_p`` parameters. Row block ``j`` (of ``k - 1``) links blocks ``j`` and
+    ``j + 1``: ``left[j]``, ``right[j]`` (each ``(k-1, n, n)``) and ``parameters[j]``
+    (``(k-1, n, n_p)``); then the boundary rows: ``a`` on the first block, ``b`` on the last,
+    ``dp`` on the parameters. ``scale`` multiplies the rows. Collocation (its sparse path),
+    multiple shooting and the stability constant's trapezoidal matrix all assemble here.
+    """
+    k, n = left.shape[0] + 1, left.shape[1]
+    n_p = 0 if parameters is None else parameters.shape[2]
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    values = [left.ravel(), right.ravel()]
+    if n_p:
+        values.append(parameters.ravel())
+    values += [a.ravel(), b.ravel()]
+    if n_p:
+        values.append(np.asarray(dp, float).ravel())
+    rows, cols = _block_pattern(k, n, n_p, a.shape[0])
+    v = np.concatenate(values)
+    if scale is not None:
+        v = v * scale[rows]
+    return sparse.csc_matrix((v, (rows, cols)), shape=((k - 1) * n + a.shape[0], n * k + n_p))
 
 
 class SingularMatrix(RuntimeError):
@@ -85,7 +134,6 @@ class CollocationEquations:
         self.h = np.diff(x)
         self.mid = x[:-1] + 0.5 * self.h
         self._weights = None
-        self._pattern = None
         sides = compiled.bc_sides
         # per row, the length of its region in the user's variable (residuals are measured there);
         # set by parts() for the parameters it is called with (a free end moves it)
@@ -152,45 +200,13 @@ class CollocationEquations:
             block = -hh / 6 * (P[:-1] + P[1:] + 4 * (Pm + Jm @ dym))
         return left, right, block, c.bc_jac(y[:, 0], y[:, -1], p, k)
 
-    def _sparse_pattern(self):  # noqa: ANN202
-        if self._pattern is None:
-            n, m, n_p = self.n, self.m, self.n_p
-            i = np.arange(m - 1)[:, None, None]
-            r = np.arange(n)
-            rows = (i * n + r[None, :, None]).repeat(n, axis=2).ravel()
-            cols = (i * n + r[None, None, :]).repeat(n, axis=1).ravel()
-            R, C = [rows, rows], [cols, cols + n]
-            if n_p:
-                prow = (i * n + r[None, :, None]).repeat(n_p, axis=2)
-                R.append(prow.ravel())
-                C.append(np.broadcast_to(n * m + np.arange(n_p)[None, None, :], prow.shape).ravel())
-            base, nb = (m - 1) * n, self.n_bc
-            for offset, width in ((0, n), ((m - 1) * n, n), (n * m, n_p)):
-                if width:
-                    rr, cc = np.meshgrid(base + np.arange(nb), offset + np.arange(width), indexing="ij")
-                    R.append(rr.ravel())
-                    C.append(cc.ravel())
-            self._pattern = (np.concatenate(R), np.concatenate(C))
-        return self._pattern
-
     def jacobian(self, z: np.ndarray, scale: np.ndarray | None = None) -> sparse.csc_matrix:
         y, p = self.split(z)
         return self._sparse(self._blocks(y, p), scale)
 
     def _sparse(self, blocks, scale: np.ndarray | None) -> sparse.csc_matrix:  # noqa: ANN001
         left, right, pblock, (a, b, dp) = blocks
-        values = [left.ravel(), right.ravel()]
-        if pblock is not None:
-            values.append(pblock.ravel())
-        values += [np.asarray(a).ravel(), np.asarray(b).ravel()]
-        if self.n_p:
-            values.append(np.asarray(dp).ravel())
-        rows, cols = self._sparse_pattern()
-        v = np.concatenate(values)
-        if scale is not None:
-            v = v * scale[rows]
-        shape = ((self.m - 1) * self.n + self.n_bc, self.n * self.m + self.n_p)
-        return sparse.csc_matrix((v, (rows, cols)), shape=shape)
+        return block_matrix(left, right, pblock, a, b, dp if self.n_p else None, scale)
 
     def _band_layout(self):  # noqa: ANN202
         """Row order and band widths for separated conditions (rows: left conditions, interval

@@ -29,6 +29,7 @@ import scipy.sparse as sparse
 from scipy.sparse.linalg import splu
 
 from ..diagnostics import hermite, survey
+from ..discrete import block_matrix
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -234,31 +235,17 @@ class Shooting(Method):
         return np.concatenate([continuity, boundary])
 
     def _matrix(self, trial: Trial, s: np.ndarray, p: np.ndarray, flow: _Flow) -> sparse.csc_matrix:
+        """The bordered block-bidiagonal shooting matrix: row block ``j`` is the continuity of
+        segment ``j`` (``Phi_j`` on its start, ``-I`` on the next start, ``Psi_j`` on the
+        parameters), then the conditions through the last segment's sensitivities."""
         c = trial.compiled
         n, n_p, segments = c.n, c.n_parameters, s.shape[1]
         a, b, dp = c.bc_jac(s[:, 0], flow.ends[:, -1], p, trial.k)
-        size = n * segments + n_p
-        blocks_r, blocks_c, blocks_v = [], [], []
-
-        def put(r0: int, c0: int, block: np.ndarray) -> None:
-            rr, cc = np.meshgrid(r0 + np.arange(block.shape[0]), c0 + np.arange(block.shape[1]), indexing="ij")
-            blocks_r.append(rr.ravel())
-            blocks_c.append(cc.ravel())
-            blocks_v.append(block.ravel())
-
-        for j in range(segments - 1):
-            put(j * n, j * n, flow.phi[:, :, j])
-            put(j * n, (j + 1) * n, -np.eye(n))
-            if n_p:
-                put(j * n, n * segments, flow.psi[:, :, j])
-        base = (segments - 1) * n
-        put(base, 0, a)
-        put(base, (segments - 1) * n, b @ flow.phi[:, :, -1])
-        if n_p:
-            put(base, n * segments, b @ flow.psi[:, :, -1] + dp)
-        return sparse.csc_matrix(
-            (np.concatenate(blocks_v), (np.concatenate(blocks_r), np.concatenate(blocks_c))), shape=(size, size)
-        )
+        left = np.ascontiguousarray(np.moveaxis(flow.phi[:, :, :-1], -1, 0))
+        right = np.broadcast_to(-np.eye(n), (segments - 1, n, n))
+        params = np.ascontiguousarray(np.moveaxis(flow.psi[:, :, :-1], -1, 0)) if n_p else None
+        last_p = b @ flow.psi[:, :, -1] + np.reshape(dp, (b.shape[0], -1)) if n_p else None
+        return block_matrix(left, right, params, a, b @ flow.phi[:, :, -1], last_p)
 
     def _newton(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
                 stiff: bool) -> Outcome:
