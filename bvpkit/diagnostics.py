@@ -165,12 +165,6 @@ class Hermite:
         return first
 
 
-def midpoint_values(y, f, h):  # noqa: ANN001, ANN201
-    """The C1 cubic with values ``y`` and slopes ``f`` at the nodes, at the interval
-    midpoints: ``(y_i + y_i+1)/2 + h (f_i - f_i+1)/8`` (also collocation's ``y_mid``)."""
-    return 0.5 * (y[:, 1:] + y[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])
-
-
 def hermite(compiled, x, y, p, k) -> Hermite:  # noqa: ANN001
     """The C1 cubic interpolant through the states with slopes from the equations.
 
@@ -200,7 +194,7 @@ def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001
         h = np.diff(x)
         mid = x[:-1] + 0.5 * h
         # the cubic Hermite interpolant and its derivative at the midpoints of the intervals
-        s = midpoint_values(y, f, h)
+        s = 0.5 * (y[:, 1:] + y[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])  # discrete.midpoint_values
         ds = 1.5 * (y[:, 1:] - y[:, :-1]) / h - 0.25 * (f[:, :-1] + f[:, 1:])
         fm = compiled.rhs(mid, s, p, k)
         r = np.abs(ds - fm) / (compiled.row_scale(p, k) + np.abs(fm))

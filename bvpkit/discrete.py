@@ -23,7 +23,6 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.sparse.linalg import splu
 
-from .diagnostics import midpoint_values
 
 _MAX_NEWTON = 12
 # Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
@@ -41,6 +40,12 @@ def node_weights(x: np.ndarray) -> np.ndarray:
     w[:-1] += 0.5 * h
     w[1:] += 0.5 * h
     return w / ((x[-1] - x[0]) or 1.0)
+
+
+def midpoint_values(y, f, h):  # noqa: ANN001, ANN201
+    """The C1 cubic with values ``y`` and slopes ``f`` at the nodes, at the interval
+    midpoints: ``(y_i + y_i+1)/2 + h (f_i - f_i+1)/8`` (also collocation's ``y_mid``)."""
+    return 0.5 * (y[:, 1:] + y[:, :-1]) + h / 8 * (f[:, :-1] - f[:, 1:])
 
 
 @functools.lru_cache(maxsize=64)
