@@ -25,7 +25,16 @@ def _write_rows(handle: TextIO, columns: Mapping[str, Any]) -> None:
     writer = csv.writer(handle)
     writer.writerow(columns)
     for row in zip(*columns.values()):
-        writer.writerow([v if isinstance(v, str) else repr(float(v)) for v in row])
+        writer.writerow([_cell(v) for v in row])
+
+
+def _cell(value: Any) -> str:
+    """Text as it is, numbers in full precision, booleans as words, nothing as an empty cell."""
+    if value is None:
+        return ""
+    if isinstance(value, str | bool):
+        return str(value)
+    return repr(float(value))
 
 
 def pyplot():  # noqa: ANN201

@@ -31,7 +31,6 @@ Ctrl-C returns what was finished (``SweepResult.interrupted``); the store keeps 
 from __future__ import annotations
 
 import concurrent.futures as futures
-import csv
 import dataclasses
 import hashlib
 import itertools
@@ -52,7 +51,7 @@ from typing import Any
 
 import numpy as np
 
-from ._output import json_ready, progress_bar, pyplot
+from ._output import json_ready, progress_bar, pyplot, write_columns
 from .limits import LARGEST, SMALLEST, in_range
 from .errors import OptionError, closest
 
@@ -269,12 +268,9 @@ class SweepResult:
         return np.array([r.get(name, math.nan) for r in self.table])
 
     def to_csv(self, path: str | Path) -> None:
+        """The table as CSV, through the one writer of results (``_output.write_columns``)."""
         names = [*self.parameters, *self.outputs, "success", "status", "method", "error_estimate", "message"]
-        with open(path, "w", newline="") as handle:
-            writer = csv.writer(handle)
-            writer.writerow(names)
-            for r in self.table:
-                writer.writerow([r.get(n, "") for n in names])
+        write_columns(path, {n: [r.get(n) for r in self.table] for n in names})
 
     def as_dict(self) -> dict[str, Any]:
         status = "interrupted" if self.interrupted else "solved" if self.success else "not_converged"
