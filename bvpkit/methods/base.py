@@ -68,6 +68,10 @@ class Trial:
     place : callable ``(float) -> str``
         How a point of the standard variable reads in the user's variable, for messages
         (``"x = 0.53"``).
+    deadline : float or None
+        A ``time.perf_counter()`` value: past it the method stops between two of its steps
+        and reports :attr:`~bvpkit.status.Status.NOT_CONVERGED` with why (the selector's
+        budget for this attempt). None: no limit.
     """
 
     compiled: CompiledSystem
@@ -79,6 +83,11 @@ class Trial:
     max_nodes: int = 20_000
     verify: bool = True
     place: Callable[[float], str] = lambda t: f"t = {t:.6g}"  # noqa: E731
+    deadline: float | None = None
+
+    def out_of_time(self) -> bool:
+        """Whether the attempt's time budget is spent."""
+        return self.deadline is not None and time.perf_counter() > self.deadline
 
 
 @dataclass

@@ -184,6 +184,10 @@ class Collocation(Method):
         iterations, rms, code, rounds = 0, None, 3, 0
         while True:  # ends: nodes are added each round until the residual is met or max_nodes is hit
             rounds += 1
+            if trial.out_of_time():
+                return Outcome(Status.NOT_CONVERGED, f"stopped after {iterations} Newton iterations on {x.size} nodes: "
+                               "the time budget of this attempt is spent; " + Status.NOT_CONVERGED.hint,
+                               x, y, p, iterations=iterations)
             eq = CollocationEquations(trial.compiled, x, trial.k)
             try:
                 y, p, used, parts, lu = _newton(eq, y, p, tol)

@@ -269,6 +269,9 @@ class Shooting(Method):
                 splits += 1
         iterations = 0
         while iterations < _MAX_NEWTON:
+            if trial.out_of_time():
+                return failure(Status.NOT_CONVERGED, f"stopped after {iterations} Newton iterations: the time budget of "
+                               "this attempt is spent; " + Status.NOT_CONVERGED.hint, iterations)
             # Split segments whose sensitivities grow too much (multiple shooting only).
             if self.fixed_segments is None and nodes.size - 1 < _MAX_SEGMENTS and splits < 8:
                 wide = np.flatnonzero(flow.max_growth > _SPLIT_GROWTH)
