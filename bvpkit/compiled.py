@@ -168,22 +168,23 @@ class CompiledSystem:
                 P = D @ P
         return P
 
-    def freeing(self, name: str) -> Freed:
-        """A view of this system with the constant ``name`` solved for, as the last parameter."""
-        return Freed(self, self.layout.constants.index(name))
+    def freeing(self, *names: str) -> Freed:
+        """A view of this system with the constants ``names`` solved for, as the last parameters."""
+        return Freed(self, [self.layout.constants.index(name) for name in names])
 
 
 class Freed:
-    """A compiled system with one constant turned into an unknown parameter (the last one).
+    """A compiled system with constants turned into unknown parameters (the last ones).
 
-    Continuation traces a branch through a constant by solving for it; the Jacobians in
-    the constants are compiled with the system, so no new code is needed.
+    Continuation traces a branch through a constant by solving for it (and a fold curve
+    through two); the Jacobians in the constants are compiled with the system, so no new
+    code is needed.
     """
 
-    def __init__(self, base: CompiledSystem, index: int):
-        self.base, self.index = base, index
+    def __init__(self, base: CompiledSystem, indices: Sequence[int]):
+        self.base, self.indices = base, list(indices)
         lay = base.layout
-        self.layout = dataclasses.replace(lay, parameters=(*lay.parameters, lay.constants[index]))
+        self.layout = dataclasses.replace(lay, parameters=(*lay.parameters, *(lay.constants[i] for i in self.indices)))
         self.jac_pattern, self.programs = base.jac_pattern, base.programs
         self.bc_sides = np.full(base.bc_sides.size, 2)
 
@@ -191,9 +192,10 @@ class Freed:
     n_parameters = CompiledSystem.n_parameters
 
     def _split(self, p, k):  # noqa: ANN001, ANN202
+        free = len(self.indices)
         k = np.array(k, dtype=float)
-        k[self.index] = p[-1]
-        return p[:-1], k
+        k[self.indices] = p[len(p) - free:]
+        return p[: len(p) - free], k
 
     def rhs(self, x, y, p, k):  # noqa: ANN001, ANN201
         return self.base.rhs(x, y, *self._split(p, k))
@@ -205,10 +207,10 @@ class Freed:
 
     def pjac(self, x, y, p, k):  # noqa: ANN001, ANN201
         q, kk = self._split(p, k)
-        column = self.base.kjac(x, y, q, kk)[:, self.index: self.index + 1]
+        columns = self.base.kjac(x, y, q, kk)[:, self.indices]
         # d(u**n)/dn = u**n log(u) is 0 * -inf where u = 0; its limit there is 0
-        column = np.where(np.isnan(column), 0.0, column)
-        return np.concatenate([self.base.pjac(x, y, q, kk), column], axis=1)
+        columns = np.where(np.isnan(columns), 0.0, columns)
+        return np.concatenate([self.base.pjac(x, y, q, kk), columns], axis=1)
 
     def bc(self, ya, yb, p, k):  # noqa: ANN001, ANN201
         return self.base.bc(ya, yb, *self._split(p, k))
@@ -216,8 +218,8 @@ class Freed:
     def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
         q, kk = self._split(p, k)
         a, b, dp = self.base.bc_jac(ya, yb, q, kk)
-        column = self.base.bc_kjac(ya, yb, q, kk)[:, self.index: self.index + 1]
-        return a, b, np.concatenate([np.reshape(dp, (a.shape[0], -1)), column], axis=1)
+        columns = self.base.bc_kjac(ya, yb, q, kk)[:, self.indices]
+        return a, b, np.concatenate([np.reshape(dp, (a.shape[0], -1)), columns], axis=1)
 
     def maps(self, p, k):  # noqa: ANN001, ANN201
         return self.base.maps(*self._split(p, k))

@@ -1,22 +1,40 @@
-"""Continuation: trace a solution family through a parameter, around folds.
+"""Continuation: trace a solution family through a parameter, around folds and through branch points.
 
-Two steppers, switched automatically:
+Two steppers, switched automatically, on the prepared problem (every class ``solve`` takes):
 
-* **natural** steps in the parameter, each a full :func:`bvpkit.solve` (the selector, error
-  estimate and diagnostics at every point), started from a secant prediction; the step grows
-  after easy solves and shrinks (to a floor) after failures;
-* **pseudo-arclength** steps (Keller 1977) on the discretised problem when the branch turns:
-  the collocation equations of ``solve_bvp`` (3-stage Lobatto IIIA) on the mesh of the last
-  solution, with the parameter as one more unknown, bordered by the arclength equation.
-  Their Jacobian is exact (from codegen's ``df/dy``, ``df/dp``) and sparse; the tangent is
-  the solution of the bordered system ``[G_z; t_prev] t = [0; 1]``. Each arclength point
-  carries collocation's deferred-correction error estimate; one whose estimate misses the
-  tolerance is solved again at its parameter value with mesh refinement, and the arclength
-  steps go on on the refined mesh.
+* **natural** steps in the parameter, each a solve at that value (the selector, error
+  estimate and diagnostics at every point; the method that worked at the last point is
+  tried first), started from a secant prediction;
+* **pseudo-arclength** steps (Keller 1977) on the collocation equations of the mesh of the
+  last point, the parameter one more unknown (``CompiledSystem.freeing``), bordered by the
+  arclength equation (``arclength.py``). Each arclength point carries collocation's
+  deferred-correction error estimate; one whose estimate misses the tolerance is solved
+  again at its parameter value with mesh refinement, and the steps go on on that mesh.
 
-A fold is a sign change of the tangent's parameter component; it is located by Brent's
-method on that component along the arclength, on the mesh and on the halved mesh (their
-difference is the reported error).
+**Step control by the branch's geometry.** A step is accepted only when the angle between
+the new secant (or tangent) and the previous one is at most ``max_angle`` (default
+:data:`MAX_ANGLE`, 8 degrees) and the corrector moved the predicted point by at most
+:data:`MAX_DRIFT` of the step; otherwise the step is halved. A polygon through the points of
+a trace thus turns by at most 8 degrees at each point: a plot of it looks smooth. Steps
+grow by half after easy, straight steps. Below a floor (:data:`FLOOR` of the range for
+natural steps, a millionth of the first arclength step) the trace stops and says where.
+
+**Folds** are sign changes of the tangent's parameter component, located by Brent's method
+on that component along the arclength, on the mesh and on the halved mesh (their
+difference is the reported error). **Branch points** are sign changes of the determinant of
+the bordered Jacobian ``[G_z; t]`` (regular at folds, singular at branch points), located
+by Brent's method on a bordered test function (``arclength.branch_test``) and refined on
+halved meshes until two successive meshes agree to the tolerance; the trace then switches
+onto the other branch (along the null vector) unless ``switch=False``.
+
+**Infinite domains.** The truncation length is chosen once, by the first point's solve,
+and held; after each point a cheap far-field check (the change of the states over the
+last tenth of the truncated domain) runs, and only when it exceeds the tolerance is the
+point solved again on a domain half as long again and compared; infinity moves out only
+when that comparison asks for it.
+
+**Requested points** (``at``) are solved at exactly those values, on every part of the
+branch that passes them (both sides of a fold).
 """
 
 from __future__ import annotations
@@ -30,12 +48,14 @@ from typing import Any
 
 import numpy as np
 
+from . import arclength as arc
 from ._output import json_ready, progress_bar, pyplot, write_columns
 from .diagnostics import Attempt, hermite
-from .discrete import CollocationEquations, node_weights
-from .driver import DEFAULT_TOL, settle, solve
+from .discrete import CollocationEquations, SingularMatrix, node_weights
+from .driver import DEFAULT_TOL, settle, solve, solve_at
 from .errors import OptionError, closest
 from .guess import Start
+from .layout import LENGTH
 from .methods.base import Outcome
 from .prepared import Prepared, prepare
 from .solution import Solution
@@ -43,7 +63,14 @@ from .status import Status
 
 _GROW, _SHRINK = 1.5, 0.5
 _TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
-_STRAIGHT = 0.6  # |d lam / ds| above this (after a fold): back to natural steps
+_STRAIGHT = 0.6  # |d lam / ds| above this (after a fold or a branch switch): back to natural steps
+#: Largest angle between successive secants or tangents of an accepted step (radians).
+MAX_ANGLE = math.radians(8.0)
+#: Largest distance of the corrected point from the predicted one, relative to the step.
+MAX_DRIFT = 0.2
+#: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
+FLOOR = 1e-7
+_TAIL = 0.9  # the far-field check compares the states at t = 1 and t = 0.9 of the infinite region
 
 
 @dataclass
@@ -70,6 +97,15 @@ class Fold:
     solution: Solution = field(repr=False)
 
 
+@dataclass
+class BranchPoint(Fold):
+    """A located simple branch point (bifurcation), with the fields of :class:`Fold`;
+    ``error`` is the difference between its location on the two finest meshes used, and
+    ``switched`` says whether the trace went on along the other branch from here."""
+
+    switched: bool = False
+
+
 class Branch:
     """A traced solution family; see :func:`trace`.
 
@@ -81,10 +117,16 @@ class Branch:
     outputs : dict of str to ndarray, shape (N,)
     solutions : list of Solution
     folds : list of Fold
+    branch_points : list of BranchPoint
+    requested : dict of float to list of Solution
+        The solutions at the values asked for with ``at`` (one per part of the branch that
+        passes the value).
     success : bool
     message : str
     steps : list of str
-        ``"natural"`` or ``"arclength"`` for each point.
+        ``"natural"``, ``"arclength"`` or ``"requested"`` for each point.
+    truncation : list of float or None
+        Where infinity stood at each point (None for a finite domain).
     """
 
     def __init__(self, name: str, outputs: dict[str, str]):
@@ -94,7 +136,11 @@ class Branch:
         self.solutions: list[Solution] = []
         self.steps: list[str] = []
         self._values: list[float] = []
+        self._rows: list[dict[str, float]] = []
         self.folds: list[Fold] = []
+        self.branch_points: list[BranchPoint] = []
+        self.requested: dict[float, list[Solution]] = {}
+        self.stability: list[bool | None] = []
         self.success = False
         self.interrupted = False
         self.message = ""
@@ -106,13 +152,36 @@ class Branch:
 
     @property
     def outputs(self) -> dict[str, np.ndarray]:
-        return {o: np.array([s.evaluate(self._expressions[o], allow_failed=True) for s in self.solutions])
-                for o in self._outputs}
+        return {o: np.array([row[o] for row in self._rows]) for o in self._outputs}
+
+    @property
+    def truncation(self) -> list[float | None]:
+        return [s.diagnostics.truncation_length for s in self.solutions]
 
     def _add(self, value: float, solution: Solution, how: str) -> None:
         self._values.append(float(value))
         self.solutions.append(solution)
         self.steps.append(how)
+        self.stability.append(None)
+        row = {}
+        for o in self._outputs:
+            try:
+                row[o] = float(solution.evaluate(self._expressions[o], allow_failed=True))
+            except (ValueError, ArithmeticError):
+                row[o] = math.nan
+        self._rows.append(row)
+
+    def _pop(self) -> None:
+        """Drop the last point (past a branch point, on the branch the trace leaves)."""
+        gone = self.solutions.pop()
+        self._values.pop()
+        self.steps.pop()
+        self.stability.pop()
+        self._rows.pop()
+        for value in list(self.requested):
+            self.requested[value] = [s for s in self.requested[value] if s is not gone]
+            if not self.requested[value]:
+                del self.requested[value]
 
     def table(self) -> dict[str, np.ndarray]:
         """Columns: the parameter, each output, and how each point was reached."""
@@ -124,6 +193,10 @@ class Branch:
     def as_dict(self) -> dict[str, Any]:
         outputs = self.outputs
         status = "solved" if self.success else "interrupted" if self.interrupted else "not_converged"
+
+        def points(found: list) -> list[dict[str, Any]]:
+            return [{"parameter": f.parameter, "error": f.error, "outputs": f.outputs, "index": f.index} for f in found]
+
         return json_ready({
             "success": self.success,
             "status": status,
@@ -132,10 +205,9 @@ class Branch:
             "parameter": self.parameter.tolist(),
             "outputs": {k: v.tolist() for k, v in outputs.items()},
             "steps": list(self.steps),
-            "folds": [
-                {"parameter": f.parameter, "error": f.error, "outputs": f.outputs, "index": f.index}
-                for f in self.folds
-            ],
+            "truncation": self.truncation,
+            "folds": points(self.folds),
+            "branch_points": points(self.branch_points),
             "seconds": self.seconds,
         })
 
@@ -147,9 +219,12 @@ class Branch:
         for i, value in enumerate(self._values):
             row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{self.steps[i]:>14s}"]
             lines.append("  ".join(row))
-        for f in self.folds:
-            shown = ", ".join(f"{k} = {v:.10g}" for k, v in f.outputs.items())
-            lines.append(f"fold at {self.name} = {f.parameter:.12g} (+/- {f.error:.2g}){'; ' + shown if shown else ''}")
+        for kind, found in (("fold", self.folds), ("branch point", self.branch_points)):
+            for f in found:
+                shown = ", ".join(f"{k} = {v:.10g}" for k, v in f.outputs.items())
+                switched = "; the trace followed the other branch from here" if getattr(f, "switched", False) else ""
+                lines.append(f"{kind} at {self.name} = {f.parameter:.12g} (+/- {f.error:.2g})"
+                             f"{'; ' + shown if shown else ''}{switched}")
         return "\n".join(lines)
 
     def plot(self, path: str | Path, output: str | None = None) -> None:
@@ -186,6 +261,12 @@ def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[
     return labels
 
 
+def _number(value: Any, label: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise OptionError(f"{label} must be a finite number, got {value!r}")
+    return float(value)
+
+
 def trace(
     problem: Any,
     name: str,
@@ -200,6 +281,10 @@ def trace(
     progress: bool = False,
     fixed_step: bool = False,
     verify: bool = True,
+    at: Sequence[float] | None = None,
+    return_to: float | None = None,
+    switch: bool = True,
+    max_angle: float | None = None,
 ) -> Branch:
     """Trace the solutions of ``problem`` as the constant ``name`` goes from ``start`` to ``stop``.
 
@@ -218,7 +303,8 @@ def trace(
     tol : float, optional
         Tolerance of each point (default: the problem's, else 1e-6).
     method : str, optional
-        Method of the natural steps (default auto: the selector decides at each point).
+        Method of the natural steps (default auto: the selector decides, the method that
+        worked at the last point first).
     step : float, optional
         First step in the parameter (default (stop - start) / 50).
     max_points : int
@@ -229,6 +315,17 @@ def trace(
         Keep the natural step at ``step`` instead of adapting it (it still shrinks on failure).
     verify : bool
         Estimate the error at each natural point (default True; off is about twice as fast).
+    at : sequence of float, optional
+        Values of the parameter at which to solve exactly, on every part of the branch that
+        passes them (``branch.requested``).
+    return_to : float, optional
+        After the branch has turned (a fold) or switched (a branch point), end when the
+        parameter comes back to this value.
+    switch : bool
+        At a simple branch point, go on along the other branch (default True).
+    max_angle : float, optional
+        Largest angle (radians) between successive secants of accepted steps (default
+        :data:`MAX_ANGLE`, 8 degrees).
 
     Returns
     -------
@@ -245,18 +342,37 @@ def trace(
             f"'{name}' is not a constant of the problem{closest(name, prepared.constants)}; "
             "a traced parameter must be one of its constants"
         )
-    for label, value in (("start", start), ("stop", stop)):
-        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-            raise OptionError(f"{label} must be a finite number, got {value!r}")
+    start, stop = _number(start, "start"), _number(stop, "stop")
     if start == stop:
         raise OptionError("start and stop must differ")
     if isinstance(max_points, bool) or not isinstance(max_points, int) or max_points < 2:
         raise OptionError(f"max_points must be a whole number of at least 2, got {max_points!r}")
+    requested = sorted({_number(v, "a value of at") for v in (at or [])})
+    if return_to is not None:
+        return_to = _number(return_to, "return_to")
+    angle = MAX_ANGLE if max_angle is None else _number(max_angle, "max_angle")
+    if not 0 < angle < math.pi / 2:
+        raise OptionError(f"max_angle must be between 0 and pi/2 radians, got {angle!r}")
     tol = float(tol if tol is not None else prepared.settings.get("tol", DEFAULT_TOL))
     names = _resolve_outputs(prepared, outputs)
-    tracer = _Tracer(prepared, name, float(start), float(stop), names, tol, method, step, max_points, progress)
-    tracer.fixed, tracer.verify = fixed_step, verify
+    tracer = _Tracer(prepared, name, start, stop, names, tol, method, step, max_points, progress)
+    tracer.fixed, tracer.verify, tracer.requested, tracer.return_to = fixed_step, verify, requested, return_to
+    tracer.switch, tracer.max_angle = switch, angle
     return tracer.run()
+
+
+class _Point:
+    """The tracer's state at an accepted point: the solution, the collocation unknowns on its
+    mesh (the traced constant last), the tangent there and the sign of the bordered
+    determinant (for branch points)."""
+
+    def __init__(self, value: float, solution: Solution):
+        self.value, self.solution = value, solution
+        view = solution.interpolant
+        self.t, self.k = view.t, view.k.copy()
+        self.z = np.concatenate([view.y.T.ravel(), view.p, [value]])
+        self.tangent: np.ndarray | None = None
+        self.sign = 0.0
 
 
 class _Tracer:
@@ -272,109 +388,136 @@ class _Tracer:
         self.compiled = prepared.compiled
         self.free = self.compiled.freeing(name)  # the constant solved for: the last parameter
         self.index = self.compiled.layout.constants.index(name)
+        self.infinite = any(prepared.infinite)
+        self.length_at = prepared.layout.constants.index(LENGTH) if self.infinite else None
         self.bar = progress_bar(progress, max_points)
-        self.fixed, self.verify = False, True
+        self.fixed, self.verify, self.switch = False, True, True
+        self.requested: list[float] = []
+        self.return_to: float | None = None
+        self.max_angle = MAX_ANGLE
+        self.points: list[_Point] = []
+        self.turned = False  # a fold passed or a branch switched: return_to applies from now on
+        self.k: np.ndarray | None = None  # the constants of the trace (the truncation length held)
+        self.last_method = method or "auto"
+        self.probe = np.random.default_rng(20261202)  # fixed: the border of the branch test
 
-    # -- helpers ------------------------------------------------------------------------
-    def _solve_at(self, value: float, guess: Any) -> Solution:
-        return solve(self.prepared.with_constants(**{self.name: value}), tol=self.tol, method=self.method,
-                     guess=guess, verify=self.verify)
-
-    @staticmethod
-    def _view(sol: Solution):  # noqa: ANN205
-        return sol.interpolant
-
-    def _z(self, sol: Solution, value: float, t: np.ndarray | None = None) -> np.ndarray:
-        """The unknowns of the collocation equations: states on ``t`` (default its own mesh),
-        then the parameters, the traced constant last."""
-        view = sol.interpolant
-        y = view.y if t is None else hermite(self.compiled, view.t, view.y, view.p, view.k)(np.clip(t, 0.0, 1.0))
-        return np.concatenate([y.T.ravel(), view.p, [value]])
-
-    def _k(self, sol: Solution) -> np.ndarray:
-        return sol.interpolant.k.copy()
-
-    def _solution(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray, iterations: int,
-                  seconds: float, fold: bool = False) -> Solution:
-        y, pz = disc.split(z)
-        value = float(pz[-1])
-        p = pz[:-1]
-        k = disc.k.copy()
+    # -- solving at a value --------------------------------------------------------------------
+    def _at(self, value: float, guess: Any) -> Solution:
+        k = self.k.copy()
         k[self.index] = value
-        estimate, reference = self._estimate(disc, z, t, k, fold)
-        attempt = Attempt("arclength", "the branch turns: pseudo-arclength step on the collocation equations",
-                          "solved", "converged", iterations, disc.m, seconds, self._ends(p, k), estimate)
-        outcome = Outcome(Status.SOLVED, f"pseudo-arclength point, {self.name} = {value:.10g}", disc.x, y, p,
-                          iterations=iterations, error_estimate=estimate if math.isfinite(estimate) else None,
-                          method="arclength")
-        if reference is not None:
-            outcome.reference = Outcome(Status.SOLVED, "deferred correction", *reference)
-        if math.isfinite(estimate) and estimate > self.tol:
-            outcome.message += (". Near a fold the states are sensitive to the parameter; arclength steps keep "
-                                "their mesh")
-        return settle(self.prepared.with_constants(**{self.name: value}), k, outcome, [attempt],
-                      "pseudo-arclength continuation near a fold", seconds, self.tol)
+        here = self.prepared.with_constants(**{self.name: value})
+        sol = solve_at(here, k, guess, tol=self.tol, method=self.last_method, verify=self.verify)
+        if not sol.success and self.last_method != (self.method or "auto"):
+            sol = solve_at(here, k, guess, tol=self.tol, method=self.method or "auto", verify=self.verify)
+        if sol.success:
+            self.last_method = self.method or sol.method if sol.method != "arclength" else self.last_method
+        return sol
 
-    def _ends(self, p: np.ndarray, k: np.ndarray) -> tuple[float, float]:
-        from .guess import positions
-
-        ends = positions(np.asarray(self.compiled.maps(p, k), float))
-        return float(ends[0]), float(ends[-1])
-
-    def _estimate(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray, k: np.ndarray,  # noqa: ANN202
-                  fold: bool = False):
-        """Error of an arclength point by deferred correction, as collocation's own estimate:
-        the error of its states against the exact solution at its parameter value (the defect
-        solved with the Newton matrix at that value; it grows, truthfully, as the point nears
-        a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
-        exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
-        Returns the estimate and the corrected point ``(x, y, p)``."""
-        from .discrete import SingularMatrix
-        from .methods.base import Trial, compare
-
-        y, pz = disc.split(z)
-        p = pz[:-1]
-        with np.errstate(all="ignore"):
-            try:
-                if fold:
-                    raise SingularMatrix("at a fold")
-                eq = CollocationEquations(self.compiled, disc.x, k)
-                parts = eq.parts(y, p)
-                lu = eq.factor(y, p, parts[3])
-                trial = Trial(self.compiled, disc.x, y, p, k, self.tol)
-            except SingularMatrix:
-                eq, p, parts = disc, pz, disc.parts(y, pz)
-                try:
-                    lu = _BorderedSolve(disc, z, t)
-                except RuntimeError:
-                    return math.nan, None
-                trial = Trial(self.free, disc.x, y, pz, disc.k, self.tol)
-            x2, y2, p2 = eq.defect_correction(y, p, parts, lu)
-            estimate, _ = compare(Outcome(Status.SOLVED, "", disc.x, y, p), Outcome(Status.SOLVED, "", x2, y2, p2), trial)
-        if not math.isfinite(estimate):
-            return math.nan, None
-        return estimate, (x2, y2, p2[:-1] if eq is disc else p2)
+    def _equations(self, point: _Point) -> CollocationEquations:
+        return CollocationEquations(self.free, point.t, point.k)
 
     def _inside(self, value: float) -> bool:
         slack = 1e-12 * max(1.0, abs(self.lo), abs(self.hi))
         return self.lo - slack <= value <= self.hi + slack
 
-    def _add(self, value: float, sol: Solution, how: str) -> None:
+    # -- accepting points -------------------------------------------------------------------
+    def _accept(self, value: float, sol: Solution, how: str, point: _Point | None = None) -> _Point:
+        sol = self._far_field(value, sol)
+        point = point if point is not None and point.solution is sol else _Point(value, sol)
+        if self.points and how != "requested":
+            self._orient(point)
         self.branch._add(value, sol, how)
+        if how != "requested":
+            self.points.append(point)
         if self.bar is not None:
             self.bar.update(1)
+        return point
+
+    def _orient(self, point: _Point) -> None:
+        """The tangent and bordered-determinant sign at a new point; a sign change from the last
+        point is a branch point between them."""
+        last = self.points[-1]
+        if point.tangent is None:
+            eq = self._equations(point)
+            previous = self._carry(last.tangent if last.tangent is not None else self._secant(last, point), last, point)
+            try:
+                with np.errstate(all="ignore"):
+                    point.tangent, point.sign = arc.tangent(eq, point.z, previous)
+            except (RuntimeError, ValueError):
+                point.tangent, point.sign = previous / max(arc.norm(eq, previous), 1e-300), 0.0
+        if last.sign and point.sign and last.sign != point.sign and not self._pending_switch:
+            self._pending_branch = (last, point)
+
+    def _carry(self, vector: np.ndarray, source: _Point, target: _Point) -> np.ndarray:
+        """A vector of unknowns on ``source``'s mesh carried onto ``target``'s mesh."""
+        if source.t.size == target.t.size and np.array_equal(source.t, target.t):
+            return vector
+        n = self.compiled.n
+        ys = vector[: n * source.t.size].reshape(source.t.size, n).T
+        moved = np.array([np.interp(target.t, source.t, row) for row in ys])
+        return np.concatenate([moved.T.ravel(), vector[n * source.t.size:]])
+
+    def _secant(self, a: _Point, b: _Point) -> np.ndarray:
+        """``b - a`` in the unknowns of ``b``'s mesh."""
+        return b.z - self._carry(a.z, a, b)
+
+    def _angle(self, eq: CollocationEquations, u: np.ndarray, v: np.ndarray) -> float:
+        nu, nv = arc.norm(eq, u), arc.norm(eq, v)
+        if nu == 0 or nv == 0:
+            return 0.0
+        return math.acos(max(-1.0, min(1.0, arc.inner(eq, u, v) / (nu * nv))))
+
+    # -- infinite domains: the far-field check -------------------------------------------------
+    def _far_field(self, value: float, sol: Solution) -> Solution:
+        """Hold the truncation unless the far field says otherwise (see the module docstring)."""
+        if not self.infinite or not sol.success:
+            return sol
+        view = sol.interpolant
+        layout = view.layout
+        size = layout.region_size
+        rows = slice((layout.regions - 1) * size, layout.regions * size)
+        ends = hermite(self.compiled, view.t, view.y, view.p, view.k)(np.array([_TAIL, 1.0]))[rows]
+        if all(layout.infinite) or layout.infinite[0]:
+            begin = hermite(self.compiled, view.t, view.y, view.p, view.k)(np.array([1 - _TAIL, 0.0]))[: size]
+            ends = np.concatenate([ends, begin], axis=0)
+        tail = float(np.max(np.abs(ends[:, 1] - ends[:, 0]) / (1.0 + np.abs(ends[:, 1]))))
+        if tail <= self.tol:
+            return sol
+        k = view.k.copy()
+        k[self.length_at] *= 1.5
+        here = self.prepared.with_constants(**{self.name: value})
+        longer = solve_at(here, k, sol, tol=self.tol, method=self.last_method, verify=self.verify)
+        if not longer.success:
+            return sol
+        moved = Start(self.compiled, longer.interpolant.t, longer.interpolant.y, longer.interpolant.p, k)
+        from .guess import carried
+
+        theirs = carried(moved, self.compiled, view.t, view.p, view.k)
+        change = float(np.max(np.abs(view.y - theirs) / (1.0 + np.abs(theirs))))
+        if change <= 0.5 * self.tol:
+            return sol
+        self.k[self.length_at] = k[self.length_at]  # infinity moves out, for this and later points
+        return longer
 
     # -- the trace ----------------------------------------------------------------------
     def run(self) -> Branch:
         started = time.perf_counter()
         b = self.branch
+        self._pending_branch: tuple[_Point, _Point] | None = None
+        self._pending_switch = False
         try:
-            first = self._solve_at(self.start, None)
-            if not first.success:
-                b.message = f"the first point ({self.name} = {self.start:g}) did not solve: {first.message}"
-                return b
-            self._add(self.start, first, "natural")
-            self._loop()
+            with np.errstate(all="ignore"):
+                here = self.prepared.with_constants(**{self.name: self.start})
+                first = solve(here, tol=self.tol, method=self.method, verify=self.verify)
+                if not first.success:
+                    b.message = f"the first point ({self.name} = {self.start:g}) did not solve: {first.message}"
+                    return b
+                self.k = first.interpolant.k.copy()
+                self.last_method = self.method or first.method
+                point = self._accept(self.start, first, "natural")
+                point.tangent = self._initial_tangent(point)
+                self._requested_here(self.start)
+                self._loop()
         except KeyboardInterrupt:
             b.success = False
             b.interrupted = True
@@ -385,218 +528,461 @@ class _Tracer:
                 self.bar.close()
         return b
 
+    def _initial_tangent(self, point: _Point) -> np.ndarray:
+        eq = self._equations(point)
+        guess = np.zeros_like(point.z)
+        guess[-1] = self.direction
+        try:
+            t, point.sign = arc.tangent(eq, point.z, guess)
+        except (RuntimeError, ValueError):
+            return guess
+        return t
+
+    def _requested_here(self, value: float) -> None:
+        for r in self.requested:
+            if abs(r - value) <= 1e-12 * max(1.0, abs(r)):
+                self.branch.requested.setdefault(r, []).append(self.branch.solutions[-1])
+
     def _loop(self) -> None:
         b = self.branch
-        value = self.start
         step = self.step
         while len(b.solutions) < self.max_points:
-            # ---- natural step -------------------------------------------------------------
-            target = value + self.direction * step
-            crossing = (target - self.edge) * self.direction >= 0
-            if crossing:
-                target = self.edge
-            guess = self._predict(target)
-            sol = self._solve_at(target, guess)
-            turning = self._turning(sol, target) if sol.success else False
-            if sol.success and not turning:
-                self._add(target, sol, "natural")
-                value = target
-                if crossing:
-                    b.success, b.message = True, self._done(self._ending(self.edge))
-                    return
-                iterations = sol.diagnostics.iterations
-                if not self.fixed:
-                    step = min(step * (_GROW if iterations <= 4 else 1.0), self.span / 4)
-                continue
-            if not turning and step > self.span * 1e-3:
-                step *= _SHRINK
-                continue
-            # ---- the branch turns (or natural steps fail): pseudo-arclength ---------------
-            with np.errstate(all="ignore"):
-                try:
-                    outcome = self._arclength()
-                except (RuntimeError, ValueError, np.linalg.LinAlgError) as err:  # a singular bordered matrix
-                    outcome = False, self._done(
-                        f"the arclength steps stopped near {self.name} = {b.parameter[-1]:.6g} ({err}); the branch "
-                        "may end or branch off here"
-                    )
-            if outcome is not None:
-                b.success, b.message = outcome
+            end = self._natural(step)
+            if end is not None:
+                b.success, b.message = end
                 return
-            value = b.parameter[-1]
-            step = max(abs(b.parameter[-1] - b.parameter[-2]), self.span / 100)
+            end = self._arclength_leg()
+            if end is not None:
+                b.success, b.message = end
+                return
+            step = max(abs(b.parameter[-1] - b.parameter[-2]), self.span / 100) if len(b.parameter) > 1 else self.step
         b.success = False
         b.message = self._done(f"stopped after max_points = {self.max_points} points")
 
     def _ending(self, edge: float) -> str:
         if edge == self.stop:
             return f"reached {self.name} = {self.stop:g}"
+        if self.return_to is not None and edge == self.return_to:
+            return f"came back to {self.name} = {edge:g}"
         return f"the branch turned back and reached the other end of the range, {self.name} = {edge:g},"
 
     def _done(self, what: str) -> str:
-        folds = f"; {len(self.branch.folds)} fold(s) located" if self.branch.folds else ""
-        return f"{what} in {len(self.branch.solutions)} points{folds}"
+        found = [f"{len(self.branch.folds)} fold(s)"] if self.branch.folds else []
+        if self.branch.branch_points:
+            found.append(f"{len(self.branch.branch_points)} branch point(s)")
+        return f"{what} in {len(self.branch.solutions)} points" + (f"; {' and '.join(found)} located" if found else "")
+
+    def _edges(self, value: float, target: float) -> tuple[float, bool, bool]:
+        """The target clipped to the first end or requested value between ``value`` and it:
+        ``(target, ends_here, requested)``."""
+        stops = [(self.edge, True)]
+        if self.turned and self.return_to is not None:
+            stops.append((self.return_to, True))
+        stops += [(r, False) for r in self.requested]
+        best = (target, False, False)
+        for where, ends in stops:
+            if (where - value) * self.direction > 1e-12 * max(1.0, abs(where)) and \
+                    (target - where) * self.direction >= 0:
+                if (where - best[0]) * self.direction < 0 or (where == best[0] and ends):
+                    best = (where, ends, not ends)
+        return best
+
+    # -- natural steps ----------------------------------------------------------------------
+    def _natural(self, step: float) -> tuple[bool, str] | None:
+        """Natural steps until the branch turns (None: go on in arclength) or the trace ends."""
+        b = self.branch
+        while len(b.solutions) < self.max_points:
+            last = self.points[-1]
+            value = last.value
+            target, ends, requested = self._edges(value, value + self.direction * step)
+            guess = self._predict(target)
+            sol = self._at(target, guess)
+            point = _Point(target, sol) if sol.success else None
+            turning = False
+            if point is not None and len(self.points) >= 1:
+                turning, too_sharp = self._geometry(last, point)
+                if too_sharp and not requested and not ends and step > self.span * FLOOR and not self.fixed:
+                    step *= _SHRINK
+                    continue
+            if point is not None and not turning:
+                self._accept(target, sol, "natural", point)
+                if requested:
+                    self.branch.requested.setdefault(target, []).append(self.branch.solutions[-1])
+                    self.branch.steps[-1] = "requested"
+                if self._pending_branch is not None:
+                    end = self._branch_point()
+                    if end is not None:
+                        return end
+                    return None  # switched: go on in arclength along the new branch
+                if ends:
+                    return True, self._done(self._ending(target))
+                if not self.fixed and not requested:
+                    easy = sol.diagnostics.iterations <= 4
+                    step = min(step * (_GROW if easy else 1.0), self.span / 4)
+                continue
+            if not turning and step > self.span * 1e-3:
+                step *= _SHRINK
+                continue
+            return None  # the branch turns (or natural steps fail): pseudo-arclength
+        return False, self._done(f"stopped after max_points = {self.max_points} points")
+
+    def _geometry(self, last: _Point, new: _Point) -> tuple[bool, bool]:
+        """Whether the branch is turning at ``new`` (small parameter component of the secant)
+        and whether the step turned by more than the angle allowed."""
+        if not np.array_equal(np.delete(last.k, self.index), np.delete(new.k, self.index)):
+            return False, False  # another truncation length: no secant between the two
+        eq = self._equations(new)
+        secant = self._secant(last, new)
+        size = arc.norm(eq, secant)
+        turning = size > 0 and abs(secant[-1]) / size < _TURNING
+        too_sharp = False
+        if len(self.points) >= 2:
+            before = self._carry(self._secant(self.points[-2], last), last, new)
+            too_sharp = self._angle(eq, before, secant) > self.max_angle
+        return turning, too_sharp
 
     def _predict(self, target: float) -> Any:
-        b = self.branch
-        last = b.solutions[-1]
-        if len(b.solutions) < 2:
-            return last
-        prev = b.solutions[-2]
-        d_last = b.parameter[-1] - b.parameter[-2]
-        lv, pv = last.interpolant, prev.interpolant
-        if d_last == 0 or not np.array_equal(lv.k[np.arange(lv.k.size) != self.index],
-                                             pv.k[np.arange(pv.k.size) != self.index]):
-            return last  # another truncation length: no secant between the two
-        ratio = (target - b.parameter[-1]) / d_last
-        y_prev = hermite(self.compiled, pv.t, pv.y, pv.p, pv.k)(lv.t)
-        y = lv.y + ratio * (lv.y - y_prev)
-        p = lv.p + ratio * (lv.p - pv.p)
-        k = lv.k.copy()
+        if len(self.points) < 2:
+            return self.points[-1].solution
+        last, prev = self.points[-1], self.points[-2]
+        d_last = last.value - prev.value
+        if d_last == 0 or not np.array_equal(np.delete(last.k, self.index), np.delete(prev.k, self.index)):
+            return last.solution
+        ratio = (target - last.value) / d_last
+        z = last.z + ratio * self._secant(prev, last)
+        n, m = self.compiled.n, last.t.size
+        k = last.k.copy()
         k[self.index] = target
-        return Start(self.compiled, lv.t, y, p, k)
+        return Start(self.compiled, last.t, z[: n * m].reshape(m, n).T, z[n * m: -1], k)
 
-    def _turning(self, sol: Solution, target: float) -> bool:
-        """Is the branch turning here (small |d lam/ds| from the secant)?"""
-        last = self.branch.solutions[-1].interpolant
-        view = sol.interpolant
-        if not np.array_equal(np.delete(view.k, self.index), np.delete(last.k, self.index)):
-            return False
-        dy = hermite(self.compiled, view.t, view.y, view.p, view.k)(last.t) - last.y
-        w = node_weights(last.t)
-        dlam = target - self.branch.parameter[-1]
-        norm = math.sqrt(float(np.sum(w * dy * dy)) + float(np.sum((view.p - last.p) ** 2)) + dlam**2)
-        return norm > 0 and abs(dlam) / norm < _TURNING
-
-    def _arclength(self) -> tuple[bool, str] | None:
-        """Step in arclength until the branch is straight again; return an end state or None."""
+    # -- pseudo-arclength steps -------------------------------------------------------------
+    def _arclength_leg(self) -> tuple[bool, str] | None:
+        """Arclength steps until the branch is straight again (None) or the trace ends."""
         b = self.branch
-        last = b.solutions[-1]
-        t_mesh = last.interpolant.t
-        disc = CollocationEquations(self.free, t_mesh, self._k(last))
-        z = self._z(last, b.parameter[-1])
-        if len(b.solutions) >= 2:
-            prev = b.solutions[-2]
-            zp = self._z(prev, b.parameter[-2], t_mesh)
-            tangent = z - zp
-        else:
-            tangent = np.zeros_like(z)
-            tangent[-1] = self.direction
-        z, _ = disc.correct(z, disc.tangent(z, tangent), self.tol)  # polish onto the discrete curve
+        point = self.points[-1]
+        eq = self._equations(point)
+        tangent = point.tangent if point.tangent is not None else self._initial_tangent(point)
+        if len(self.points) >= 2 and not self._pending_switch:
+            secant = self._secant(self.points[-2], point)
+            if arc.inner(eq, tangent, secant) < 0:
+                tangent = -tangent
+        z, _ = arc.correct(eq, point.z, tangent, self.tol)  # polish onto the discrete curve
         if z is None:
-            return False, self._done(f"pseudo-arclength could not start at {self.name} = {b.parameter[-1]:.6g}")
-        tangent = disc.tangent(z, tangent)
-        ds = 0.05 * math.sqrt(float(np.sum(disc.weights * z * z)) + 1.0)
+            return False, self._done(f"pseudo-arclength could not start at {self.name} = {point.value:.6g}")
+        tangent, _ = arc.tangent(eq, z, tangent)
+        ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
-            z_new, its = disc.correct(z + ds * tangent, tangent, self.tol)
+            predicted = z + ds * tangent
+            z_new, its = arc.correct(eq, predicted, tangent, self.tol)
+            reason = None
             if z_new is None:
+                reason = "the corrector did not converge"
+            else:
+                t_new, sign = arc.tangent(eq, z_new, tangent)
+                drift = arc.norm(eq, z_new - predicted) / max(ds, 1e-300)
+                if self._angle(eq, tangent, t_new) > self.max_angle or drift > MAX_DRIFT:
+                    reason = "the step turned too sharply"
+            if reason is not None:
                 ds *= _SHRINK
                 if ds < min_ds:
                     return False, self._done(
-                        f"the arclength step fell below its floor near {self.name} = {b.parameter[-1]:.6g}; "
+                        f"the arclength step fell below its floor near {self.name} = {float(z[-1]):.6g} ({reason}); "
                         "the branch may end or branch off here"
                     )
                 continue
-            t_new = disc.tangent(z_new, tangent)
-            lam_old, lam_new = z[-1], z_new[-1]
+            lam_old, lam_new = float(z[-1]), float(z_new[-1])
             if tangent[-1] * t_new[-1] < 0:
-                self._locate_fold(disc, z, tangent, ds)
-            sol = self._solution(disc, z_new, t_new, its, time.perf_counter() - started)
+                self._locate_fold(eq, z, tangent, ds)
+                self.turned = True
+            for r in self._crossed(lam_old, lam_new):
+                self._requested_between(eq, z, z_new, r)
+            if self.turned and self.return_to is not None and self._between(self.return_to, lam_old, lam_new):
+                end = self._finish_at(eq, z, z_new, self.return_to)
+                if end is not None:
+                    return end
+            sol = self._solution(eq, z_new, t_new, its, time.perf_counter() - started)
             if not self._inside(lam_new):
-                # left the range: finish exactly on its end if the branch allows
                 edge = self.hi if lam_new > self.hi else self.lo
-                end = self._solve_at(edge, sol)
-                if end.success:
-                    self._add(edge, end, "natural")
-                return True, self._done(self._ending(edge))
+                end = self._finish_at(eq, z, z_new, edge)
+                return end if end is not None else (True, self._done(self._ending(edge)))
+            smooth = self._angle(eq, tangent, t_new) < self.max_angle / 2
+            new = _Point(lam_new, sol)
+            new.z, new.t, new.k, new.tangent, new.sign = z_new, eq.x, eq.k.copy(), t_new, sign
             if sol.status is Status.ERROR_TOO_LARGE:
                 # the mesh no longer fits the branch: a full solve at this value (mesh refinement,
                 # its own estimate) from this point, and the arclength steps go on on its mesh
-                better = self._solve_at(float(lam_new), sol)
+                better = self._at(lam_new, sol)
                 if better.success:
-                    sol = better
-                    disc, z_new, t_new = self._remeshed(disc, better, float(lam_new), t_new)
-            self._add(lam_new, sol, "arclength")
-            z, tangent = z_new, t_new
-            ds = ds * _GROW if its <= 3 else ds * (_SHRINK if its >= 8 else 1.0)
-            if abs(tangent[-1]) > _STRAIGHT and self.branch.folds and abs(lam_new - lam_old) > 0:
+                    sol, new = better, _Point(lam_new, better)  # its tangent: from the last point's
+            accepted = self._accept(lam_new, sol, "arclength", new)
+            if self._pending_branch is not None:
+                end = self._branch_point()
+                if end is not None:
+                    return end
+                point = self.points[-1]
+                eq = self._equations(point)
+                z, tangent = point.z, point.tangent
+                ds = self._first_ds(eq, z)
+                continue
+            if accepted.t is not eq.x:
+                eq = self._equations(accepted)  # a refined mesh, or a longer truncation
+            z, tangent = accepted.z, accepted.tangent
+            ds = ds * _GROW if its <= 3 and smooth else ds * (_SHRINK if its >= 8 else 1.0)
+            if abs(float(tangent[-1])) > _STRAIGHT and self.turned and abs(lam_new - lam_old) > 0:
                 self.direction = 1.0 if lam_new > lam_old else -1.0
                 self.edge = self.hi if self.direction > 0 else self.lo
                 return None
         return False, self._done(f"stopped after max_points = {self.max_points} points")
 
-    def _remeshed(self, disc: CollocationEquations, sol: Solution, value: float, t: np.ndarray):  # noqa: ANN202
-        """The collocation equations on ``sol``'s mesh, its unknowns, and the tangent ``t``
-        carried over (interpolated, then the tangent of the new discrete curve)."""
-        mesh = sol.interpolant.t
-        new = CollocationEquations(self.free, mesh, self._k(sol))
-        z = self._z(sol, value)
-        ty, tp = disc.split(t)
-        carried = new.join(np.array([np.interp(mesh, disc.x, row) for row in ty]), tp)
-        return new, z, new.tangent(z, carried)
+    def _first_ds(self, eq: CollocationEquations, z: np.ndarray) -> float:
+        return 0.05 * math.sqrt(float(np.sum(eq.weights * z * z)) + 1.0)
 
-    def _locate_fold(self, disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
+    @staticmethod
+    def _between(value: float, a: float, b: float) -> bool:
+        return min(a, b) < value <= max(a, b) or min(a, b) <= value < max(a, b)
+
+    def _crossed(self, a: float, b: float) -> list[float]:
+        return [r for r in self.requested if self._between(r, a, b) and r != a]
+
+    def _interpolated(self, eq: CollocationEquations, z0: np.ndarray, z1: np.ndarray, value: float) -> Start:
+        """A start at ``value`` on the chord between two points of the discrete branch."""
+        w = (value - z0[-1]) / (z1[-1] - z0[-1]) if z1[-1] != z0[-1] else 0.5
+        z = z0 + w * (z1 - z0)
+        n, m = self.compiled.n, eq.m
+        k = eq.k.copy()
+        k[self.index] = value
+        return Start(self.compiled, eq.x, z[: n * m].reshape(m, n).T, z[n * m: -1], k)
+
+    def _requested_between(self, eq: CollocationEquations, z0: np.ndarray, z1: np.ndarray, value: float) -> None:
+        sol = self._at(value, self._interpolated(eq, z0, z1, value))
+        if sol.success:
+            self.branch._add(value, sol, "requested")
+            self.branch.requested.setdefault(value, []).append(sol)
+
+    def _finish_at(self, eq: CollocationEquations, z0: np.ndarray, z1: np.ndarray, value: float) -> tuple[bool, str] | None:
+        sol = self._at(value, self._interpolated(eq, z0, z1, value))
+        if not sol.success:
+            return None
+        self._accept(value, sol, "natural")
+        return True, self._done(self._ending(value))
+
+    def _solution(self, eq: CollocationEquations, z: np.ndarray, t: np.ndarray, iterations: int,
+                  seconds: float, fold: bool = False) -> Solution:
+        y, pz = eq.split(z)
+        value = float(pz[-1])
+        p = pz[:-1]
+        k = eq.k.copy()
+        k[self.index] = value
+        estimate, reference = self._estimate(eq, z, t, k, fold)
+        attempt = Attempt("arclength", "the branch turns: pseudo-arclength step on the collocation equations",
+                          "solved", "converged", iterations, eq.m, seconds, self._ends(p, k), estimate)
+        outcome = Outcome(Status.SOLVED, f"pseudo-arclength point, {self.name} = {value:.10g}", eq.x, y, p,
+                          iterations=iterations, error_estimate=estimate if math.isfinite(estimate) else None,
+                          method="arclength")
+        if reference is not None:
+            outcome.reference = Outcome(Status.SOLVED, "deferred correction", *reference)
+        if math.isfinite(estimate) and estimate > self.tol:
+            outcome.message += (". Near a fold the states are sensitive to the parameter; arclength steps keep "
+                                "their mesh")
+        length = float(k[self.length_at]) if self.infinite else None
+        return settle(self.prepared.with_constants(**{self.name: value}), k, outcome, [attempt],
+                      "pseudo-arclength continuation near a fold", seconds, self.tol, length)
+
+    def _ends(self, p: np.ndarray, k: np.ndarray) -> tuple[float, float]:
+        from .guess import positions
+
+        ends = positions(np.asarray(self.compiled.maps(p, k), float))
+        return float(ends[0]), float(ends[-1])
+
+    def _estimate(self, eq: CollocationEquations, z: np.ndarray, t: np.ndarray, k: np.ndarray,  # noqa: ANN202
+                  fold: bool = False):
+        """Error of an arclength point by deferred correction, as collocation's own estimate:
+        the error of its states against the exact solution at its parameter value (the defect
+        solved with the Newton matrix at that value; it grows, truthfully, as the point nears
+        a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
+        exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
+        Returns the estimate and the corrected point ``(x, y, p)``."""
+        from .methods.base import Trial, compare
+
+        y, pz = eq.split(z)
+        p = pz[:-1]
+        with np.errstate(all="ignore"):
+            try:
+                if fold:
+                    raise SingularMatrix("at a fold")
+                own = CollocationEquations(self.compiled, eq.x, k)
+                parts = own.parts(y, p)
+                lu = own.factor(y, p, parts[3])
+                trial = Trial(self.compiled, eq.x, y, p, k, self.tol)
+            except SingularMatrix:
+                own, p, parts = eq, pz, eq.parts(y, pz)
+                try:
+                    lu = arc.Bordered(eq, z, t)
+                except RuntimeError:
+                    return math.nan, None
+                trial = Trial(self.free, eq.x, y, pz, eq.k, self.tol)
+            x2, y2, p2 = own.defect_correction(y, p, parts, lu)
+            estimate, _ = compare(Outcome(Status.SOLVED, "", eq.x, y, p), Outcome(Status.SOLVED, "", x2, y2, p2), trial)
+        if not math.isfinite(estimate):
+            return math.nan, None
+        return estimate, (x2, y2, p2[:-1] if own is eq else p2)
+
+    # -- folds ------------------------------------------------------------------------------
+    def _locate_fold(self, eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
         """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh."""
-        found = _fold_on(disc, z0, t0, ds, self.tol)
+        found = _fold_on(eq, z0, t0, ds, self.tol)
         if found is None:
             return
         z_fold = found
-        # the same on the halved mesh, for the error estimate
-        x = disc.x
-        fine_x = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
-        y, pz = disc.split(z0)
-        y_fine = hermite(self.free, x, y, pz, disc.k)(fine_x)
-        fine = CollocationEquations(self.free, fine_x, disc.k)
-        yt, pt = disc.split(t0)
-        t_fine = fine.join(np.array([np.interp(fine_x, x, row) for row in yt]), pt)
-        z_fine0, _ = fine.correct(fine.join(y_fine, pz), fine.tangent(fine.join(y_fine, pz), t_fine), self.tol)
+        fine, z_fine0, t_fine = self._halved(eq, z0, t0)
         error = math.nan
         if z_fine0 is not None:
-            t_f = fine.tangent(z_fine0, t_fine)
-            other = _fold_on(fine, z_fine0, t_f, ds * 1.5, self.tol)
+            other = _fold_on(fine, z_fine0, t_fine, ds * 1.5, self.tol)
             if other is not None:
                 error = abs(float(other[-1]) - float(z_fold[-1]))
-        sol = self._solution(disc, z_fold, disc.tangent(z_fold, t0), 0, 0.0, fold=True)
+        t_fold, _ = arc.tangent(eq, z_fold, t0)
+        sol = self._solution(eq, z_fold, t_fold, 0, 0.0, fold=True)
         value = float(z_fold[-1])
         outputs = {o: float(sol.evaluate(e, allow_failed=True)) for o, e in self.branch._expressions.items()}
         self.branch.folds.append(Fold(value, outputs, error, len(self.branch.solutions), sol))
 
+    def _halved(self, eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray):  # noqa: ANN202
+        """The equations on the halved mesh, ``z0`` corrected onto them, and the carried tangent."""
+        x = eq.x
+        fine_x = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
+        y, pz = eq.split(z0)
+        y_fine = hermite(self.free, x, y, pz, eq.k)(fine_x)
+        fine = CollocationEquations(self.free, fine_x, eq.k)
+        yt, pt = eq.split(t0)
+        t_fine = fine.join(np.array([np.interp(fine_x, x, row) for row in yt]), pt)
+        start = fine.join(y_fine, pz)
+        try:
+            z, _ = arc.correct(fine, start, arc.tangent(fine, start, t_fine)[0], self.tol)
+            if z is None:
+                return fine, None, t_fine
+            return fine, z, arc.tangent(fine, z, t_fine)[0]
+        except (RuntimeError, ValueError):
+            return fine, None, t_fine
 
-class _BorderedSolve:
-    """Solves with the arclength-bordered matrix ``[G_z; t]``, the border's right side zero
-    (a correction normal to the branch); regular at a fold, where ``G_y`` alone is not."""
+    # -- branch points ---------------------------------------------------------------------
+    def _branch_point(self) -> tuple[bool, str] | None:
+        """Locate the branch point seen between the last two points, record it, and switch
+        onto the other branch (None: the trace goes on) or end the trace."""
+        a, b = self._pending_branch
+        self._pending_branch = None
+        eq = self._equations(a)
+        found = self._locate_branch(eq, a.z, a.tangent, self._carry(b.z, b, a))
+        if found is None:
+            return None  # not located: the sign change was noise; go on
+        eq, z_star, t_star, v, value, error = found
+        with np.errstate(all="ignore"):
+            sol = self._solution(eq, z_star, t_star, 0, 0.0, fold=True)
+        outputs = {o: float(sol.evaluate(e, allow_failed=True)) for o, e in self.branch._expressions.items()}
+        point = BranchPoint(value, outputs, error, len(self.branch.solutions), sol, switched=self.switch)
+        self.branch.branch_points.append(point)
+        if not self.switch:
+            return None
+        if self.points[-1] is b and len(self.points) > 1:  # past the branch point on the branch left behind
+            self.points.pop()
+            self.branch._pop()
+            point.index = len(self.branch.solutions)
+        self.branch._add(value, sol, "branch point")
+        return self._switch(eq, z_star, v)
 
-    def __init__(self, disc: CollocationEquations, z: np.ndarray, t: np.ndarray):
-        import scipy.sparse as sparse
-        from scipy.sparse.linalg import splu
+    def _locate_branch(self, eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, z1: np.ndarray):  # noqa: ANN202
+        """The branch point between ``z0`` and the point near ``z1``, by Brent's method on the
+        bordered test function along the arclength; refined on halved meshes until two
+        successive locations agree to the tolerance (the error reported is their difference)."""
+        span = arc.inner(eq, t0, z1 - z0)
+        if not span > 0:
+            return None
+        previous = None
+        for _ in range(6):
+            b = self.probe.standard_normal(z0.size)
+            c = self.probe.standard_normal(z0.size)
+            cache: dict[float, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
 
-        self._lu = splu(sparse.vstack([disc.jacobian(z), sparse.csr_matrix(t * disc.weights)]).tocsc())
+            def g(s: float, eq=eq, z0=z0, t0=t0, b=b, c=c, cache=cache) -> float:  # noqa: ANN001
+                z, _ = arc.correct(eq, z0 + s * t0, t0, self.tol * 1e-2)
+                if z is None:
+                    raise ArithmeticError("no point of the branch here")
+                t, _ = arc.tangent(eq, z, t0)
+                value, v = arc.branch_test(eq, z, t, b, c)
+                cache[s] = (z, t, v)
+                return value
 
-    def solve(self, b: np.ndarray) -> np.ndarray:
-        return self._lu.solve(np.append(b, 0.0))
+            try:
+                with np.errstate(all="ignore"):
+                    g0, g1 = g(0.0), g(span)
+                    if g0 * g1 > 0:
+                        return None
+                    s = arc.locate(g, 0.0, span, g0, g1, xtol=1e-14 * span)
+                    if s not in cache:
+                        g(s)
+            except (ArithmeticError, ValueError, RuntimeError):
+                return None
+            z_star, t_star, v = cache[s]
+            value = float(z_star[-1])
+            if previous is not None and abs(value - previous) <= self.tol * max(1.0, abs(value)):
+                return eq, z_star, t_star, v / arc.norm(eq, v), value, abs(value - previous)
+            previous = value
+            fine, z_fine, t_fine = self._halved(eq, z_star, t_star)
+            if z_fine is None:
+                return eq, z_star, t_star, v / arc.norm(eq, v), value, math.nan
+            # the bracket on the halved mesh: a short stretch either side of the point found
+            back = max(span * 0.05, 1e-6 * (1.0 + abs(value)))
+            z0 = z_fine - back * t_fine
+            z0, _ = arc.correct(fine, z0, t_fine, self.tol)
+            if z0 is None:
+                return eq, z_star, t_star, v / arc.norm(eq, v), value, math.nan
+            eq, t0, span = fine, t_fine, 2 * back
+        return eq, z_star, t_star, v / arc.norm(eq, v), value, math.nan
+
+    def _switch(self, eq: CollocationEquations, z_star: np.ndarray, v: np.ndarray) -> tuple[bool, str] | None:
+        """Leave the branch point along ``v`` (the null vector of ``[G_z; t]``: the other
+        branch's direction), the sign making the first unknown function's largest value positive."""
+        n, m = self.compiled.n, eq.m
+        first = v[: n * m].reshape(m, n)[:, 0]
+        if first[np.argmax(np.abs(first))] < 0:
+            v = -v
+        ds = self._first_ds(eq, z_star) * 0.2
+        for _ in range(12):
+            z_new, _ = arc.correct(eq, z_star + ds * v, v, self.tol)
+            if z_new is not None and arc.norm(eq, z_new - z_star) > 0.5 * ds:
+                break
+            ds *= 0.5
+        else:
+            return False, self._done(f"the other branch at {self.name} = {float(z_star[-1]):.10g} could not be followed")
+        t_new, sign = arc.tangent(eq, z_new, v)
+        sol = self._solution(eq, z_new, t_new, 0, 0.0)
+        new = _Point(float(z_new[-1]), sol)
+        new.z, new.t, new.k, new.tangent, new.sign = z_new, eq.x, eq.k.copy(), t_new, sign
+        self.turned = True
+        self._pending_switch = True
+        self._accept(float(z_new[-1]), sol, "arclength", new)
+        self._pending_switch = False
+        self._pending_branch = None
+        return None
 
 
-def _fold_on(disc: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, tol: float) -> np.ndarray | None:
+def _fold_on(eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, tol: float) -> np.ndarray | None:
     """Brent's method on the tangent's parameter component (the last unknown) along the arclength from ``z0``."""
-    where = -1
     cache: dict[float, np.ndarray] = {}
 
     def component(s: float) -> float:
-        z, _ = disc.correct(z0 + s * t0, t0, tol * 1e-2)
+        z, _ = arc.correct(eq, z0 + s * t0, t0, tol * 1e-2)
         if z is None:
             raise ArithmeticError
         cache[s] = z
-        return float(disc.tangent(z, t0)[where])
-
-    from scipy.optimize import brentq  # imported here: scipy.optimize costs 0.3 s at start-up
+        return float(arc.tangent(eq, z, t0)[0][-1])
 
     try:
         lo, hi = component(0.0), component(ds)
         if lo * hi > 0:
             return None
-        s = brentq(component, 0.0, ds, xtol=1e-12 * max(ds, 1e-300), rtol=4 * np.finfo(float).eps, maxiter=60)
+        s = arc.locate(component, 0.0, ds, lo, hi, xtol=1e-12 * max(ds, 1e-300))
     except (ArithmeticError, ValueError, RuntimeError):
         return None
-    return cache.get(s, disc.correct(z0 + s * t0, t0, tol * 1e-2)[0])
+    return cache.get(s, arc.correct(eq, z0 + s * t0, t0, tol * 1e-2)[0])

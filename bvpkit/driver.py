@@ -311,10 +311,9 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
     if status is Status.SOLVED and length is not None:
         a, b = _guess.positions(np.asarray(compiled.maps(outcome.p, k), float))[[0, -1]]
         ends = [f"{v:.4g}" for v, inf in zip((a, b), layout.infinite) if inf]
-        message += (
-            f"; infinity placed at {layout.independent} = {' and '.join(ends)} (the solution changed by "
-            f"{change:.2g} from the last shorter domain)"
-        )
+        how = (f"the solution changed by {change:.2g} from the last shorter domain"
+               if change is not None and math.isfinite(change) else "held there along a trace")
+        message += f"; infinity placed at {layout.independent} = {' and '.join(ends)} ({how})"
     verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
     condition = None
     if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all():
@@ -381,3 +380,19 @@ def _selection_words(selection: str, attempts: list, outcome: Outcome) -> str:
         return selection
     failed = ", ".join(f"{a.method.replace('_', ' ')} ({a.status})" for a in attempts if a.method != final)
     return f"{selection}; that failed ({failed}), and {final.replace('_', ' ')} took over"
+
+
+def solve_at(prepared: Prepared, k: np.ndarray, guess: Any, *, tol: float, method: str = "auto",
+             verify: bool = True, change: float | None = None) -> Solution:
+    """One solve at the constants ``k`` exactly as given: a truncated infinite end stays
+    where ``k`` puts it (no truncation loop). Continuation calls it at each point of a
+    trace, checking the truncation its own way; ``change`` is the truncation error it
+    measured last (reported with the solution)."""
+    started = time.perf_counter()
+    chosen = options(prepared.settings, {"method": method, "tol": tol, "verify": verify})
+    k = np.asarray(k, float)
+    t, y, p = _start(prepared, k, guess, chosen)
+    outcome, attempts, selection = _run(prepared, t, y, p, k, chosen["tol"], chosen)
+    length = _length_of(prepared, k) if any(prepared.infinite) else None
+    return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, chosen["tol"], length,
+                  change if length is not None else None)
