@@ -82,10 +82,14 @@ def inner(eq: CollocationEquations, u: np.ndarray, v: np.ndarray) -> float:
     return float(np.sum(eq.weights * u * v))
 
 
-def tangent(eq: CollocationEquations, z: np.ndarray, previous: np.ndarray) -> tuple[np.ndarray, float]:
+def tangent(eq: CollocationEquations, z: np.ndarray, previous: np.ndarray, extra=None) -> tuple[np.ndarray, float]:  # noqa: ANN001
     """Unit tangent (weighted norm) at ``z`` oriented like ``previous``, and the sign of
-    ``det [G_z; previous]`` (times the orientation), which changes at a simple branch point."""
-    matrix = sparse.vstack([eq.jacobian(z), _row(previous * eq.weights)]).tocsc()
+    ``det [G_z; previous]`` (times the orientation), which changes at a simple branch point.
+    ``extra`` adds equations as in :func:`correct` (their Jacobian rows)."""
+    rows = [eq.jacobian(z)]
+    if extra is not None:
+        rows.append(extra(z)[1])
+    matrix = sparse.vstack([*rows, _row(previous * eq.weights)]).tocsc()
     lu = _lu(matrix)
     rhs = np.zeros(matrix.shape[0])
     rhs[-1] = 1.0

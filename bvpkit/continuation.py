@@ -395,6 +395,7 @@ class _Tracer:
         self.requested: list[float] = []
         self.return_to: float | None = None
         self.max_angle = MAX_ANGLE
+        self.first_fold_only = False  # fold curves start from the first fold of a trace
         self.points: list[_Point] = []
         self.turned = False  # a fold passed or a branch switched: return_to applies from now on
         self.k: np.ndarray | None = None  # the constants of the trace (the truncation length held)
@@ -696,6 +697,8 @@ class _Tracer:
             if tangent[-1] * t_new[-1] < 0:
                 self._locate_fold(eq, z, tangent, ds)
                 self.turned = True
+                if self.first_fold_only and self.branch.folds:
+                    return True, self._done(f"stopped at the first fold, {self.name} = {self.branch.folds[0].parameter:.10g}")
             for r in self._crossed(lam_old, lam_new):
                 self._requested_between(eq, z, z_new, r)
             if self.turned and self.return_to is not None and self._between(self.return_to, lam_old, lam_new):
