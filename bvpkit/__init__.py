@@ -31,6 +31,7 @@ _LAZY = {
     "Attempt": "diagnostics", "Diagnostics": "diagnostics", "Branch": "continuation", "Fold": "continuation",
     "trace": "continuation", "solve": "driver", "Problem": "problem", "Solution": "solution",
     "Interpolant": "solution", "Prepared": "prepared", "prepare": "prepared",
+    "BranchPoint": "continuation", "FoldCurve": "foldcurve", "fold_curve": "foldcurve",
     "sweep": "sweep", "SweepResult": "sweep",
 }
 
@@ -80,7 +81,9 @@ def load(path):  # noqa: ANN001, ANN201
 __all__ = [
     "Attempt",
     "Branch",
+    "BranchPoint",
     "Fold",
+    "FoldCurve",
     "BvpkitError",
     "Interpolant",
     "Prepared",
@@ -95,6 +98,7 @@ __all__ = [
     "Status",
     "SweepResult",
     "__version__",
+    "fold_curve",
     "load",
     "prepare",
     "solve",

@@ -91,6 +91,30 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--plot", metavar="FILE.png", help="draw the branch (needs the plot extra; the suffix "
                        "names the format: png, pdf, svg, ...)")
     trace.add_argument("--quiet", action="store_true", help="no progress bar")
+    trace.add_argument("--at", action="append", type=float, metavar="VALUE",
+                       help="solve exactly at this value of the parameter, on every part of the branch; repeatable")
+    trace.add_argument("--return-to", type=float, metavar="VALUE",
+                       help="after a fold or branch point, end when the parameter comes back to this value")
+    trace.add_argument("--no-switch", action="store_true", help="stay on the branch at a branch point")
+
+    folds = commands.add_parser(
+        "fold-curve", help="follow a fold as a second constant changes (ignition and extinction maps)",
+        description="Find a fold of the spec's problem in one constant and follow it as another constant changes; "
+        "settings from the spec's [fold_curve] section or these options.", epilog=_EPILOG,
+    )
+    folds.add_argument("spec", help="path of the TOML spec file")
+    folds.add_argument("--parameter", help="the constant the fold is in")
+    folds.add_argument("--along", help="the constant the fold is followed along")
+    folds.add_argument("--start", type=float, help="first value of the second constant")
+    folds.add_argument("--stop", type=float, help="last value of the second constant")
+    folds.add_argument("--output", action="append", metavar="EXPR", help="an expression or output name; repeatable")
+    folds.add_argument("--at", action="append", type=float, metavar="VALUE",
+                       help="locate the fold exactly at this value of the second constant; repeatable")
+    folds.add_argument("--tol", type=float, help="tolerance of each point")
+    folds.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
+    folds.add_argument("--csv", metavar="FILE", help="write the curve as CSV")
+    folds.add_argument("--json", action="store_true", help="print the curve as JSON instead of a table")
+    folds.add_argument("--plot", metavar="FILE.png", help="draw the curve (needs the plot extra)")
 
     sweep = commands.add_parser(
         "sweep", help="solve over a grid of constants (design charts), resumable",
@@ -348,6 +372,9 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         step=settings.get("step"),
         max_points=settings.get("max_points", 200),
         progress=not args.quiet and not args.json,
+        at=args.at if args.at else settings.get("at"),
+        return_to=args.return_to if args.return_to is not None else settings.get("return_to"),
+        switch=not args.no_switch and settings.get("branch_switching", True),
     )
     if args.csv:
         branch.to_csv(args.csv)
@@ -366,6 +393,48 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         _say(f"branch written to {args.csv}")
     if args.plot:
         _say(f"plot written to {args.plot}")
+    return code, None
+
+
+def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
+    from . import fold_curve, load
+    from .errors import OptionError
+
+    _writable(args.csv), _picture(args.plot)
+    problem = load(args.spec)
+    if args.set:
+        problem = problem.with_constants(**_constants(args.set))
+    settings = dict(problem.settings.get("fold_curve", {}))
+    for key in ("parameter", "along", "start", "stop"):
+        value = getattr(args, key)
+        if value is not None:
+            settings[key] = value
+    if args.output:
+        settings["outputs"] = args.output
+    missing = [key for key in ("parameter", "along", "start", "stop") if key not in settings]
+    if missing:
+        raise OptionError(
+            f"fold-curve needs {', '.join(missing)}: give --{missing[0]} or a [fold_curve] section in the spec"
+        )
+    curve = fold_curve(
+        problem, settings["parameter"], along=settings["along"], start=_number(settings["start"], "start"),
+        stop=_number(settings["stop"], "stop"), outputs=settings.get("outputs"), tol=args.tol,
+        at=args.at if args.at else settings.get("at"),
+        search=tuple(settings["search"]) if settings.get("search") else None,
+        max_points=settings.get("max_points", 200),
+    )
+    if args.csv:
+        curve.to_csv(args.csv)
+    if args.plot:
+        curve.plot(args.plot)
+    code = 0 if curve.success else Status.NOT_CONVERGED.exit_code
+    if args.json:
+        return code, curve.as_dict()
+    title = f"{problem.title}\n" if problem.title else ""
+    _say(title + curve.summary())
+    for path, what in ((args.csv, "curve"), (args.plot, "chart")):
+        if path:
+            _say(f"{what} written to {path}")
     return code, None
 
 
@@ -532,7 +601,8 @@ def _main(arguments: list[str]) -> int:
     try:
         from .errors import BvpkitError
 
-        handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep}[args.command]
+        handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
+                   "fold-curve": _fold_curve}[args.command]
         code, report = handler(args)
     except KeyboardInterrupt:
         return _interrupted(wants_json)

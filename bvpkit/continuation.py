@@ -11,12 +11,16 @@ Two steppers, switched automatically, on the prepared problem (every class ``sol
   deferred-correction error estimate; one whose estimate misses the tolerance is solved
   again at its parameter value with mesh refinement, and the steps go on on that mesh.
 
-**Step control by the branch's geometry.** A step is accepted only when the angle between
-the new secant (or tangent) and the previous one is at most ``max_angle`` (default
-:data:`MAX_ANGLE`, 8 degrees) and the corrector moved the predicted point by at most
-:data:`MAX_DRIFT` of the step; otherwise the step is halved. A polygon through the points of
-a trace thus turns by at most 8 degrees at each point: a plot of it looks smooth. Steps
-grow by half after easy, straight steps. Below a floor (:data:`FLOOR` of the range for
+**Step control by the branch's geometry.** A step is accepted only when the branch as it is
+drawn turns by at most ``max_angle`` (default :data:`MAX_ANGLE`, 8 degrees) at the last point
+-- in the plane of each traced output against the parameter, both scaled to their spread so
+far (at least 5% of the range asked for, and of an output's size), as a plot scales them -- when the angle between the new secant (or tangent) and the previous one in the
+solution's own weighted norm is within the same bound, and when the corrector moved the
+predicted point by at most :data:`MAX_DRIFT` of the step; otherwise the step is halved. A
+plot of the outputs against the parameter turns by at most about 8 degrees at each point
+(but at branch points); where the finished branch, scaled to its final ranges, still turns
+more, points are added halfway along the chord (``"between"``). Steps grow by half after
+easy, straight steps. Below a floor (:data:`FLOOR` of the range for
 natural steps, a millionth of the first arclength step) the trace stops and says where.
 
 **Folds** are sign changes of the tangent's parameter component, located by Brent's method
@@ -71,6 +75,8 @@ MAX_DRIFT = 0.2
 #: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
 FLOOR = 1e-7
 _TAIL = 0.9  # the far-field check compares the states at t = 1 and t = 0.9 of the infinite region
+_OUTPUT_FLOOR = 0.05  # an output's scale in the drawn plane: its spread so far, at least 5% of its size
+_SETTLED = 4  # points on a branch before its drawn angle is checked while tracing
 
 
 @dataclass
@@ -124,7 +130,8 @@ class Branch:
     success : bool
     message : str
     steps : list of str
-        ``"natural"``, ``"arclength"`` or ``"requested"`` for each point.
+        ``"natural"``, ``"arclength"``, ``"requested"``, ``"branch point"`` or ``"between"``
+        (added after the trace where the drawn branch turned sharply) for each point.
     truncation : list of float or None
         Where infinity stood at each point (None for a finite domain).
     """
@@ -170,6 +177,15 @@ class Branch:
             except (ValueError, ArithmeticError):
                 row[o] = math.nan
         self._rows.append(row)
+
+    def _insert(self, index: int, value: float, solution: Solution, how: str) -> None:
+        """Put a point at ``index`` (a point added between two others to smooth the drawing)."""
+        self._add(value, solution, how)
+        for items in (self._values, self.solutions, self.steps, self.stability, self._rows):
+            items.insert(index, items.pop())
+        for found in (*self.folds, *self.branch_points):
+            if found.index >= index:
+                found.index += 1
 
     def _pop(self) -> None:
         """Drop the last point (past a branch point, on the branch the trace leaves)."""
@@ -373,6 +389,7 @@ class _Point:
         self.z = np.concatenate([view.y.T.ravel(), view.p, [value]])
         self.tangent: np.ndarray | None = None
         self.sign = 0.0
+        self.out: np.ndarray | None = None  # the traced outputs there (for the plotted plane's angle)
 
 
 class _Tracer:
@@ -396,6 +413,7 @@ class _Tracer:
         self.return_to: float | None = None
         self.max_angle = MAX_ANGLE
         self.first_fold_only = False  # fold curves start from the first fold of a trace
+        self.since = 0  # index in points where the current branch starts (after a branch switch)
         self.points: list[_Point] = []
         self.turned = False  # a fold passed or a branch switched: return_to applies from now on
         self.k: np.ndarray | None = None  # the constants of the trace (the truncation length held)
@@ -428,6 +446,7 @@ class _Tracer:
         if self.points and how != "requested":
             self._orient(point)
         self.branch._add(value, sol, how)
+        point.out = np.array([self.branch._rows[-1][o] for o in self.branch._outputs])
         if how != "requested":
             self.points.append(point)
         if self.bar is not None:
@@ -467,6 +486,41 @@ class _Tracer:
         if nu == 0 or nv == 0:
             return 0.0
         return math.acos(max(-1.0, min(1.0, arc.inner(eq, u, v) / (nu * nv))))
+
+    def _outs(self, sol: Solution) -> np.ndarray:
+        values = []
+        for text in self.branch._expressions.values():
+            try:
+                values.append(float(sol.evaluate(text, allow_failed=True)))
+            except (ValueError, ArithmeticError):
+                values.append(math.nan)
+        return np.array(values)
+
+    def _plane_turn(self, value: float, sol: Solution) -> float:
+        """The angle by which the drawn branch turns at the last point if ``(value, sol)`` comes
+        next: in the plane of each output against the parameter, both scaled to their ranges."""
+        if len(self.points) - self.since < _SETTLED or not self.branch._expressions:
+            # near the start of a branch the spread so far is no scale (a parabola's vertex looks
+            # sharp at any step); the finished branch is smoothed at its final scale instead
+            return 0.0
+        p0, p1 = self.points[-2], self.points[-1]
+        for q in (p0, p1):
+            if q.out is None:
+                q.out = self._outs(q.solution)
+        out = self._outs(sol)
+        seen = np.array([q.out for q in self.points[self.since:] if q.out is not None] + [out])
+        spread = np.ptp(seen, axis=0) if seen.shape[0] > 1 else np.zeros(out.size)
+        scale = np.maximum(np.maximum(spread, _OUTPUT_FLOOR * np.max(np.abs(seen), axis=0)), 1e-300)
+        values = [q.value for q in self.points[self.since:]] + [value]
+        across = max(max(values) - min(values), _OUTPUT_FLOOR * self.span)
+        first = np.concatenate([[(p1.value - p0.value) / across], (p1.out - p0.out) / scale])
+        second = np.concatenate([[(value - p1.value) / across], (out - p1.out) / scale])
+        if not (np.isfinite(first).all() and np.isfinite(second).all()):
+            return 0.0
+        a, b = np.linalg.norm(first), np.linalg.norm(second)
+        if a == 0 or b == 0:
+            return 0.0
+        return math.acos(max(-1.0, min(1.0, float(first @ second) / (a * b))))
 
     # -- infinite domains: the far-field check -------------------------------------------------
     def _far_field(self, value: float, sol: Solution) -> Solution:
@@ -519,6 +573,11 @@ class _Tracer:
                 point.tangent = self._initial_tangent(point)
                 self._requested_here(self.start)
                 self._loop()
+                traced = len(b.solutions)
+                self._smooth()
+                if len(b.solutions) != traced:
+                    b.message = b.message.replace(f"in {traced} points", f"in {len(b.solutions)} points "
+                                                  f"({len(b.solutions) - traced} added where the drawn branch bends)")
         except KeyboardInterrupt:
             b.success = False
             b.interrupted = True
@@ -528,6 +587,61 @@ class _Tracer:
             if self.bar is not None:
                 self.bar.close()
         return b
+
+    def _smooth(self, passes: int = 4) -> None:
+        """Points added where the finished branch, drawn with each output against the parameter
+        (each scaled to its range, as a plot scales it), turns by more than ``max_angle``: the
+        branch point of the chord's middle, on the collocation equations of its left end."""
+        b = self.branch
+        if not b._outputs:
+            return
+        for _ in range(passes):
+            x = b.parameter
+            if x.size < 3:
+                return
+            rows = np.array([[row[o] for o in b._outputs] for row in b._rows])
+            data = np.column_stack([x, rows])
+            spread = np.ptp(data, axis=0)
+            spread = np.where(spread > 0, spread, 1.0)
+            d = np.diff(data / spread, axis=0)
+            lengths = np.linalg.norm(d, axis=1)
+            cosine = np.sum(d[:-1] * d[1:], axis=1) / np.maximum(lengths[:-1] * lengths[1:], 1e-300)
+            sharp = np.flatnonzero(np.arccos(np.clip(cosine, -1, 1)) > self.max_angle) + 1
+            segments = sorted({j for i in sharp if b.steps[i] != "branch point" for j in (i - 1, i)})
+            if not segments:
+                return
+            added = 0
+            for j in reversed(segments):
+                if len(b.solutions) >= 2 * self.max_points:
+                    break
+                middle = self._middle(b.solutions[j], b.solutions[j + 1], b._values[j], b._values[j + 1])
+                if middle is not None:
+                    value, sol = middle
+                    b._insert(j + 1, value, sol, "between")
+                    added += 1
+            if not added:
+                return
+
+    def _middle(self, left: Solution, right: Solution, a: float, b: float) -> tuple[float, Solution] | None:
+        """The point of the branch halfway between two of its points (None where it cannot be had)."""
+        first, second = _Point(a, left), _Point(b, right)
+        if not np.array_equal(np.delete(first.k, self.index), np.delete(second.k, self.index)):
+            return None
+        eq = self._equations(first)
+        other = self._carry(second.z, second, first)
+        chord = other - first.z
+        if not np.any(chord):
+            return None
+        with np.errstate(all="ignore"):
+            try:
+                z, its = arc.correct(eq, first.z + 0.5 * chord, chord, self.tol)
+                if z is None:
+                    return None
+                t, _ = arc.tangent(eq, z, chord)
+            except (RuntimeError, ValueError):
+                return None
+            sol = self._solution(eq, z, t, its, 0.0)
+        return (float(z[-1]), sol) if sol.success else None
 
     def _initial_tangent(self, point: _Point) -> np.ndarray:
         eq = self._equations(point)
@@ -602,6 +716,7 @@ class _Tracer:
             turning = False
             if point is not None and len(self.points) >= 1:
                 turning, too_sharp = self._geometry(last, point)
+                too_sharp = too_sharp or self._plane_turn(target, sol) > self.max_angle
                 if too_sharp and not requested and not ends and step > self.span * FLOOR and not self.fixed:
                     step *= _SHRINK
                     continue
@@ -637,7 +752,7 @@ class _Tracer:
         size = arc.norm(eq, secant)
         turning = size > 0 and abs(secant[-1]) / size < _TURNING
         too_sharp = False
-        if len(self.points) >= 2:
+        if len(self.points) - self.since >= 2:
             before = self._carry(self._secant(self.points[-2], last), last, new)
             too_sharp = self._angle(eq, before, secant) > self.max_angle
         return turning, too_sharp
@@ -671,7 +786,7 @@ class _Tracer:
         if z is None:
             return False, self._done(f"pseudo-arclength could not start at {self.name} = {point.value:.6g}")
         tangent, _ = arc.tangent(eq, z, tangent)
-        ds = self._first_ds(eq, z)
+        ds = first_ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
@@ -683,8 +798,11 @@ class _Tracer:
             else:
                 t_new, sign = arc.tangent(eq, z_new, tangent)
                 drift = arc.norm(eq, z_new - predicted) / max(ds, 1e-300)
+                sol = self._solution(eq, z_new, t_new, its, time.perf_counter() - started)
                 if self._angle(eq, tangent, t_new) > self.max_angle or drift > MAX_DRIFT:
                     reason = "the step turned too sharply"
+                elif ds > 0.01 * first_ds and self._plane_turn(float(z_new[-1]), sol) > self.max_angle:
+                    reason = "the drawn branch turned too sharply"
             if reason is not None:
                 ds *= _SHRINK
                 if ds < min_ds:
@@ -705,7 +823,6 @@ class _Tracer:
                 end = self._finish_at(eq, z, z_new, self.return_to)
                 if end is not None:
                     return end
-            sol = self._solution(eq, z_new, t_new, its, time.perf_counter() - started)
             if not self._inside(lam_new):
                 edge = self.hi if lam_new > self.hi else self.lo
                 end = self._finish_at(eq, z, z_new, edge)
@@ -945,10 +1062,13 @@ class _Tracer:
 
     def _switch(self, eq: CollocationEquations, z_star: np.ndarray, v: np.ndarray) -> tuple[bool, str] | None:
         """Leave the branch point along ``v`` (the null vector of ``[G_z; t]``: the other
-        branch's direction), the sign making the first unknown function's largest value positive."""
+        branch's direction), the sign making the first unknown function positive at the start
+        of the domain (or, where it vanishes there, at its largest value)."""
         n, m = self.compiled.n, eq.m
         first = v[: n * m].reshape(m, n)[:, 0]
-        if first[np.argmax(np.abs(first))] < 0:
+        scale = float(np.max(np.abs(first)))
+        lead = first[0] if abs(first[0]) > 1e-6 * scale else first[np.argmax(np.abs(first))]
+        if lead < 0:  # the first unknown positive where the domain starts (or where largest)
             v = -v
         ds = self._first_ds(eq, z_star) * 0.2
         for _ in range(12):
@@ -964,6 +1084,7 @@ class _Tracer:
         new.z, new.t, new.k, new.tangent, new.sign = z_new, eq.x, eq.k.copy(), t_new, sign
         self.turned = True
         self._pending_switch = True
+        self.since = len(self.points)  # the new branch's geometry starts here
         self._accept(float(z_new[-1]), sol, "arclength", new)
         self._pending_switch = False
         self._pending_branch = None

@@ -38,6 +38,9 @@ from .solution import Solution
 from .status import Status
 
 _GROW, _SHRINK = 1.5, 0.5
+#: Over a positive range of more than two decades (drawn on a log scale) a step changes the
+#: second constant by at most this fraction of its value, so the curve is smooth on that scale.
+_RATIO = 0.35
 
 
 class FoldCurve:
@@ -127,9 +130,11 @@ class FoldCurve:
 
     def plot(self, path: str | Path) -> None:
         """The fold curve in the plane of the two constants, with its cusps (``plot`` extra)."""
-        from . import plots
-
-        if hasattr(plots, "fold_curve_figure"):  # the report-ready figure, where it exists
+        try:
+            from . import plots
+        except ImportError:
+            plots = None
+        if plots is not None and hasattr(plots, "fold_curve_figure"):  # the report-ready figure
             plots.fold_curve_figure(self, path)
             return
         plt = pyplot()
@@ -234,6 +239,7 @@ def fold_curve(
                          "upward); give search=(lo, hi), a range of it that holds the fold")
         return curve
     follower = _Follower(prepared, name, along, fold, tol, requested, angle, max_points, curve)
+    follower.geometric = min(start, stop) > 0 and max(start, stop) / min(start, stop) > 100
     follower.run(start, stop)
     curve.seconds = time.perf_counter() - started
     return curve
@@ -304,9 +310,13 @@ class _Follower:
             curve.message = f"the fold found at {self.along} = {self.z0[-1]:g} could not be followed"
             return
         mu0 = float(z[-1])
+        self.bounds = (min(start, stop), max(start, stop))
         forward = self._leg(eq, z, stop, extra, 1.0) if stop != mu0 else []
         backward = self._leg(eq, z, start, extra, -1.0) if start != mu0 else []
-        points = sorted([*backward, self._point(eq, z, 0.0), *forward], key=lambda item: item[0])
+        first = self._point(eq, z, 0.0)
+        if any(abs(r - mu0) <= 1e-12 * max(1.0, abs(r)) for r in self.requested):
+            first = (*first[:4], mu0)
+        points = sorted([*backward, first, *forward], key=lambda item: item[0])
         for _, along, value, sol, requested in points:
             curve._add(along, value, sol)
             if requested is not None:
@@ -317,12 +327,14 @@ class _Follower:
         def hit(value: float) -> bool:
             return any(abs(e - value) <= 1e-12 * max(1.0, abs(value)) for e in ends)
 
-        curve.success = bool(hit(start) and hit(stop) and not self.failed)
-        curve.message = self.failed or (f"followed the fold in {self.name} from {self.along} = {start:.6g} to "
-                                        f"{stop:.6g} in {len(points)} points"
-                                        + (f"; {len(curve.cusps)} cusp(s)" if curve.cusps else ""))
+        curve.success = bool((hit(start) and hit(stop) or curve.cusps) and not self.failed)
+        cusps = "; ".join(f"it turned back at a cusp near {self.along} = {c['along']:.6g}" for c in curve.cusps)
+        curve.message = self.failed or (f"followed the fold in {self.name} from {self.along} = {min(ends):.6g} to "
+                                        f"{max(ends):.6g} in {len(points)} points" + (f"; {cusps}" if cusps else ""))
 
     failed = ""
+    geometric = False
+    bounds = (-math.inf, math.inf)
 
     def _unit_along(self, eq: CollocationEquations) -> np.ndarray:
         d = np.zeros(eq.n * eq.m + eq.n_p)
@@ -351,6 +363,8 @@ class _Follower:
                 turn = self._angle(eq, tangent, t_new)
                 if turn > self.max_angle or drift > MAX_DRIFT:
                     reason = "the step turned too sharply"
+                elif self.geometric and abs(z_new[-1] - z[-1]) > _RATIO * abs(z[-1]):
+                    reason = "the step is long for a range drawn on a log scale"
             if reason is not None:
                 ds *= _SHRINK
                 if ds < floor:
@@ -359,16 +373,19 @@ class _Follower:
                     return points
                 continue
             mu_old, mu_new = float(z[-1]), float(z_new[-1])
-            for r in [r for r in self.requested if min(mu_old, mu_new) < r <= max(mu_old, mu_new)]:
+            for r in [r for r in self.requested if min(mu_old, mu_new) <= r <= max(mu_old, mu_new)
+                      and r != mu_old and abs(r - self.z0[-1]) > 1e-12 * max(1.0, abs(r))]:
                 at = self._at_value(eq, z, z_new, r, extra)
                 if at is not None:
                     points.append((leg * (s + ds * (r - mu_old) / (mu_new - mu_old or 1.0)), r, float(at[-2]),
                                    self._solution(eq, at), r))
             s += ds
-            if (mu_new - end) * sign >= 0:
-                last = self._at_value(eq, z, z_new, end, extra)
+            lo, hi = self.bounds
+            if not lo <= mu_new <= hi:  # past an end of the range (the far one, or after a cusp the near one)
+                edge = hi if mu_new > hi else lo
+                last = self._at_value(eq, z, z_new, edge, extra)
                 if last is not None:
-                    points.append((leg * s, end, float(last[-2]), self._solution(eq, last), None))
+                    points.append((leg * s, edge, float(last[-2]), self._solution(eq, last), None))
                 return points
             sol = self._solution(eq, z_new)
             if sol.diagnostics.error_estimate > self.tol:

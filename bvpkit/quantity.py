@@ -72,14 +72,17 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
     names = {sp.Symbol(c): form.k[i] for i, c in enumerate(form.constants) if c in problem.constants}
     names.update({sp.Symbol(q): form.p[i] for i, q in enumerate(form.parameters)})
     replace: dict = {problem.x: X, **names}
+    found = sorted(e.atoms(DomainIntegral), key=sp.default_sort_key)
+    outside = e.xreplace({g: sp.Dummy() for g in found})
+    values = problem.point_values(outside)
+    # the placeholders t: the point values first, then the integrals (named as programs want)
     integrals = []
-    for g in sorted(e.atoms(DomainIntegral), key=sp.default_sort_key):
-        symbol = sp.Symbol(f"_t_integral{len(integrals)}", real=True)
+    for j, g in enumerate(found):
+        symbol = sp.Symbol(f"_t_point{len(values) + j}", real=True)
         integrals.append((g, symbol, compile_quantity(problem, form, "", parsed=g.args[0])))
         replace[g] = symbol
     points, placeholders = [], []
-    outside = e.xreplace({g: s for g, s, _ in integrals})
-    for i, pv in enumerate(problem.point_values(outside)):
+    for i, pv in enumerate(values):
         symbol = sp.Symbol(f"_t_point{i}", real=True)
         replace[pv.node] = symbol
         where = pv.point.xreplace(names)

@@ -24,7 +24,9 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     [outputs]         # name = expression of the solution
     wall_shear = "f''(0)"
 
-    [trace]           # for `bvpkit trace`: parameter, start, stop, outputs, max_points, step
+    [trace]           # for `bvpkit trace`: parameter, start, stop, outputs, max_points, step,
+                      # at (values solved exactly), return_to, branch_switching
+
     parameter = "Re_x"
     start = 1e4
     stop = 1e5
@@ -99,6 +101,20 @@ class TraceSection(_Model):
     outputs: list[StrictStr] | None = None
     max_points: StrictInt | None = None
     step: Number | None = None
+    at: list[Number] | None = None
+    return_to: Number | None = None
+    branch_switching: StrictBool | None = None
+
+
+class FoldCurveSection(_Model):
+    parameter: StrictStr
+    along: StrictStr
+    start: Number
+    stop: Number
+    outputs: list[StrictStr] | None = None
+    at: list[Number] | None = None
+    search: Annotated[list[Number], Field(min_length=2, max_length=2)] | None = None
+    max_points: StrictInt | None = None
 
 
 class RangeModel(_Model):
@@ -126,6 +142,7 @@ class Spec(_Model):
     outputs: dict[str, StrictStr] = {}
     save: SaveSection = SaveSection()
     trace: TraceSection | None = None
+    fold_curve: FoldCurveSection | None = None
     sweep: SweepSection | None = None
 
 
@@ -188,6 +205,8 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     settings["save"] = spec.save.model_dump()
     if spec.trace is not None:
         settings["trace"] = {k: v for k, v in spec.trace.model_dump().items() if v is not None}
+    if spec.fold_curve is not None:
+        settings["fold_curve"] = {k: v for k, v in spec.fold_curve.model_dump().items() if v is not None}
     if spec.sweep is not None:
         settings["sweep"] = {"grid": {name: _values(name, axis, source) for name, axis in spec.sweep.grid.items()},
                              "outputs": spec.sweep.outputs}

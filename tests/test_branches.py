@@ -1,0 +1,148 @@
+"""Continuation a design engineer can trust: requested points, infinite domains held, branch
+points, fold curves, smooth drawings. Each check value has its source beside it."""
+
+import math
+
+import numpy as np
+import pytest
+from scipy.special import ellipk
+
+import bvpkit
+from bvpkit.cli import main
+
+
+def wedge():
+    return bvpkit.Problem(["f''' + f*f'' + beta*(1 - f'**2) = 0"], ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"],
+                          (0, "inf"), independent="eta", constants={"beta": 1.0})
+
+
+@pytest.fixture(scope="module")
+def wedge_branch():
+    return bvpkit.trace(wedge(), "beta", start=1.0, stop=-0.3, outputs=["f''(0)"], tol=1e-9, at=[0.0, -0.12],
+                        return_to=-0.05)
+
+
+def test_wedge_flows_through_the_separation_fold(wedge_branch):
+    b = wedge_branch
+    assert b.success, b.message
+    # Blasius in this scaling: 0.469599988361 (Boyd 1999's 0.332057336215 times sqrt 2, analytic scaling)
+    assert b.requested[0.0][0].evaluate("f''(0)") == pytest.approx(0.469599988361, abs=1e-7)
+    # the separation fold (Belden et al. 2019; Hartree 1937 gives -0.1988), f''(0) = 0 there
+    assert len(b.folds) == 1
+    assert b.folds[0].parameter == pytest.approx(-0.1988377350, abs=1e-7)
+    assert b.folds[0].outputs["f''(0)"] == pytest.approx(0.0, abs=1e-7)
+    # both parts of the branch pass beta = -0.12; the lower one: -0.1429351944 (Belden et al. 2019)
+    values = sorted(s.evaluate("f''(0)") for s in b.requested[-0.12])
+    assert len(values) == 2
+    assert values[0] == pytest.approx(-0.1429351944, abs=1e-7)
+    assert b.parameter[-1] == -0.05
+
+
+def test_an_infinite_domain_keeps_its_truncation_along_a_trace(wedge_branch):
+    lengths = [t for t in wedge_branch.truncation if t is not None]
+    assert lengths and len(set(lengths)) <= 2  # chosen once, moved out at most once
+    for s in wedge_branch.solutions:
+        assert s.diagnostics.truncation_length == pytest.approx(lengths[-1]) or s.diagnostics.truncation_length in lengths
+
+
+@pytest.fixture(scope="module")
+def strut_branch():
+    p = bvpkit.Problem(["theta'' + lam*sin(theta) = 0"], ["theta'(0) = 0", "theta'(1) = 0"], (0, 1),
+                       constants={"lam": 5.0})
+    return bvpkit.trace(p, "lam", start=5.0, stop=15.0, outputs=["theta(0)"], tol=1e-9,
+                        at=[_elastica(math.pi / 6), _elastica(math.pi / 2)])
+
+
+def _elastica(end_slope: float) -> float:
+    """The load of the pinned elastica whose end slope is ``end_slope`` (analytic, through
+    elliptic integrals: sqrt(lam) = 2 K(k), k = sin(alpha/2); scipy.special.ellipk takes m = k^2)."""
+    return (2 * ellipk(math.sin(end_slope / 2) ** 2)) ** 2
+
+
+def test_the_strut_branch_point_is_the_euler_load_and_the_trace_follows_the_bent_strut(strut_branch):
+    b = strut_branch
+    assert b.success, b.message
+    assert len(b.branch_points) == 1 and b.branch_points[0].switched
+    # analytic: the Euler load of the pinned strut, lam = pi^2
+    assert b.branch_points[0].parameter == pytest.approx(math.pi**2, rel=1e-8)
+    assert b.branch_points[0].error < 1e-6
+    # the elastica: lam = 10.216231435665 at 30 degrees, 13.750371636041 at 90 degrees (analytic, above)
+    assert _elastica(math.pi / 6) == pytest.approx(10.216231435665, rel=1e-12)
+    assert _elastica(math.pi / 2) == pytest.approx(13.750371636041, rel=1e-12)
+    at30 = b.requested[_elastica(math.pi / 6)]
+    at90 = b.requested[_elastica(math.pi / 2)]
+    assert len(at30) == 1 and len(at90) == 1  # on the bent branch only: the straight one was left
+    assert at30[0].evaluate("theta(0)") == pytest.approx(math.pi / 6, rel=1e-8)
+    assert at90[0].evaluate("theta(0)") == pytest.approx(math.pi / 2, rel=1e-8)
+    assert b.outputs["theta(0)"][-1] > 1.7  # bent at lam = 15
+
+
+def test_branch_points_can_be_left_alone():
+    p = bvpkit.Problem(["theta'' + lam*sin(theta) = 0"], ["theta'(0) = 0", "theta'(1) = 0"], (0, 1),
+                       constants={"lam": 8.0})
+    b = bvpkit.trace(p, "lam", start=8.0, stop=12.0, outputs=["theta(0)"], tol=1e-8, switch=False)
+    assert b.success and len(b.branch_points) == 1 and not b.branch_points[0].switched
+    assert np.all(np.abs(b.outputs["theta(0)"]) < 1e-9)  # it stayed on the straight branch
+
+
+def test_a_drawn_branch_turns_by_at_most_the_angle_bound():
+    p = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 1.0})
+    b = bvpkit.trace(p, "lam", start=0.1, stop=5.0, outputs=["y'(0)"])
+    data = np.column_stack([b.parameter, b.outputs["y'(0)"]])
+    d = np.diff(data / np.ptp(data, axis=0), axis=0)
+    cosine = np.sum(d[:-1] * d[1:], axis=1) / (np.linalg.norm(d[:-1], axis=1) * np.linalg.norm(d[1:], axis=1))
+    # the bound stated in the docs (bvpkit.continuation.MAX_ANGLE, common practice, no source)
+    assert np.degrees(np.arccos(np.clip(cosine, -1, 1))).max() <= math.degrees(bvpkit.continuation.MAX_ANGLE) + 1e-6
+    assert len(b.folds) == 1
+
+
+def frank_kamenetskii_slab():
+    return bvpkit.Problem(["y'' + d*exp(y) = 0"], ["y'(0) = 0", "y'(1) + Bi*y(1) = 0"], (0, 1),
+                          constants={"d": 0.1, "Bi": 1.0})
+
+
+def test_the_ignition_limit_of_a_slab_against_the_biot_number():
+    curve = bvpkit.fold_curve(frank_kamenetskii_slab(), "d", along="Bi", start=0.01, stop=1e5, tol=1e-9,
+                              at=[0.1, 1.0, 10.0])
+    assert curve.success, curve.message
+    assert curve.along[0] == pytest.approx(0.01) and curve.along[-1] == pytest.approx(1e5)
+    # Semenov's limit, d_c -> Bi/e as Bi -> 0 (analytic)
+    assert curve.parameter[0] == pytest.approx(0.01 / math.e, abs=1e-4)
+    # the slab with a fixed surface temperature, d_c -> 3.51383071912516 / 4 as Bi -> oo (analytic from
+    # the Bratu fold; the half-thickness 1 is the Bratu interval of length 2)
+    assert curve.parameter[-1] == pytest.approx(3.51383071912516 / 4, abs=1e-4)
+    assert 3.51383071912516 / 4 == pytest.approx(0.878457679781, rel=1e-11)
+    for bi in (0.1, 1.0, 10.0):
+        one = bvpkit.trace(frank_kamenetskii_slab().with_constants(Bi=bi, d=0.02 * bi), "d", start=0.02 * bi,
+                           stop=2.0, tol=1e-10, outputs=[])
+        assert one.folds, one.message
+        [fold] = curve.requested[bi]
+        # the fold curve passes through the one-parameter folds (common practice, no source)
+        assert float(fold.prepared.constants["d"]) == pytest.approx(one.folds[0].parameter, abs=1e-8)
+
+
+def test_a_fold_curve_reports_a_cusp():
+    # y'' + d exp(y/(1 + y/g)) = 0 (an Arrhenius law with an activation number g): the S-shaped
+    # branch's two folds meet in a cusp at g near 4.07 (Frank-Kamenetskii's slab: the folds vanish
+    # for g below about 4; Boddington, Gray and Harvey 1971, from memory)
+    p = bvpkit.Problem(["y'' + d*exp(y/(1 + y/g)) = 0"], ["y'(0) = 0", "y(1) = 0"], (0, 1),
+                       constants={"d": 0.5, "g": 8.0})
+    curve = bvpkit.fold_curve(p, "d", along="g", start=8.0, stop=3.0, tol=1e-7)
+    assert curve.cusps, curve.message
+    assert 3.5 < curve.cusps[0]["along"] < 4.6
+
+
+def test_cli_traces_the_bundled_strut_and_draws_the_ignition_map(tmp_path, capsys):
+    from pathlib import Path
+
+    pytest.importorskip("matplotlib")
+    specs = Path(__file__).resolve().parent.parent / "specs"
+    assert main(["trace", str(specs / "strut_postbuckling.toml"), "--quiet", "--plot", str(tmp_path / "s.png")]) == 0
+    out = capsys.readouterr().out
+    assert "branch point at lam = 9.8696044" in out and "followed the other branch" in out
+    assert (tmp_path / "s.png").exists()
+    assert main(["fold-curve", str(specs / "ignition_map.toml"), "--plot", str(tmp_path / "map.png"),
+                 "--csv", str(tmp_path / "map.csv")]) == 0
+    out = capsys.readouterr().out
+    assert "followed the fold in d" in out and (tmp_path / "map.png").exists()
+    assert len((tmp_path / "map.csv").read_text().splitlines()) > 10
