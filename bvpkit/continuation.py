@@ -23,11 +23,11 @@ more, points are added halfway along the chord (``"between"``). Steps grow by ha
 easy, straight steps. Below a floor (:data:`FLOOR` of the range for
 natural steps, a millionth of the first arclength step) the trace stops and says where.
 
-**Folds** are sign changes of the tangent's parameter component, located by Brent's method
+**Folds** are sign changes of the tangent's parameter component, located by secant steps
 on that component along the arclength, on the mesh and on the halved mesh (their
 difference is the reported error). **Branch points** are sign changes of the determinant of
 the bordered Jacobian ``[G_z; t]`` (regular at folds, singular at branch points), located
-by Brent's method on a bordered test function (``arclength.branch_test``) and refined on
+by bracketed secant steps on a bordered test function (``arclength.branch_test``) and refined on
 halved meshes until two successive meshes agree to the tolerance; the trace then switches
 onto the other branch (along the null vector) unless ``switch=False``.
 
@@ -813,7 +813,7 @@ class _Tracer:
                 continue
             lam_old, lam_new = float(z[-1]), float(z_new[-1])
             if tangent[-1] * t_new[-1] < 0:
-                self._locate_fold(eq, z, tangent, ds)
+                self._locate_fold(eq, z, tangent, ds, (float(tangent[-1]), float(t_new[-1])))
                 self.turned = True
                 if self.first_fold_only and self.branch.folds:
                     return True, self._done(f"stopped at the first fold, {self.name} = {self.branch.folds[0].parameter:.10g}")
@@ -950,18 +950,20 @@ class _Tracer:
         return estimate, (x2, y2, p2[:-1] if own is eq else p2)
 
     # -- folds ------------------------------------------------------------------------------
-    def _locate_fold(self, eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float) -> None:
-        """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh."""
-        found = _fold_on(eq, z0, t0, ds, self.tol)
+    def _locate_fold(self, eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float,
+                     ends: tuple[float, float]) -> None:
+        """Find the fold between ``z0`` and ``z0 + ds t0`` on this mesh and on the halved mesh
+        (``ends``: the tangents' parameter components at both points)."""
+        found = _fold_on(eq, z0, t0, ds, self.tol, ends=ends)
         if found is None:
             return
-        z_fold = found
+        z_fold, s_fold = found
         fine, z_fine0, t_fine = self._halved(eq, z0, t0)
         error = math.nan
         if z_fine0 is not None:
-            other = _fold_on(fine, z_fine0, t_fine, ds * 1.5, self.tol)
+            other = _fold_on(fine, z_fine0, t_fine, ds * 1.5, self.tol, guess=s_fold)
             if other is not None:
-                error = abs(float(other[-1]) - float(z_fold[-1]))
+                error = abs(float(other[0][-1]) - float(z_fold[-1]))
         t_fold, _ = arc.tangent(eq, z_fold, t0)
         sol = self._solution(eq, z_fold, t_fold, 0, 0.0, fold=True)
         value = float(z_fold[-1])
@@ -1091,8 +1093,16 @@ class _Tracer:
         return None
 
 
-def _fold_on(eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, tol: float) -> np.ndarray | None:
-    """Brent's method on the tangent's parameter component (the last unknown) along the arclength from ``z0``."""
+def _fold_on(eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float, tol: float,
+             ends: tuple[float, float] | None = None, guess: float | None = None) -> tuple[np.ndarray, float] | None:
+    """The fold between ``z0`` and ``z0 + ds t0`` and its arclength: the root of the tangent's
+    parameter component (the last unknown) along the arclength. ``ends``: that component at
+    both ends when the caller has it (both points are already corrected and their tangents
+    known); ``guess``: where to look first.
+
+    The fold's parameter is quadratic in the arclength there, so an error ``e`` in the arclength
+    costs ``e**2`` in the parameter; the outputs at the fold are linear in it, hence the tight
+    ``xtol``, which the secant steps reach in a couple more evaluations."""
     cache: dict[float, np.ndarray] = {}
 
     def component(s: float) -> float:
@@ -1103,10 +1113,13 @@ def _fold_on(eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, ds: float
         return float(arc.tangent(eq, z, t0)[0][-1])
 
     try:
-        lo, hi = component(0.0), component(ds)
+        lo, hi = ends if ends is not None else (component(0.0), component(ds))
         if lo * hi > 0:
             return None
-        s = arc.locate(component, 0.0, ds, lo, hi, xtol=1e-12 * max(ds, 1e-300))
+        if guess is None:
+            guess = ds * lo / (lo - hi)
+        s = arc.locate(component, 0.0, ds, lo, hi, xtol=1e-10 * max(ds, 1e-300), guess=guess)
     except (ArithmeticError, ValueError, RuntimeError):
         return None
-    return cache.get(s, arc.correct(eq, z0 + s * t0, t0, tol * 1e-2)[0])
+    z = cache[s] if s in cache else arc.correct(eq, z0 + s * t0, t0, tol * 1e-2)[0]
+    return None if z is None else (z, s)
