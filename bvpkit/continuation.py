@@ -1014,7 +1014,7 @@ class _Tracer:
         return self._switch(eq, z_star, v)
 
     def _locate_branch(self, eq: CollocationEquations, z0: np.ndarray, t0: np.ndarray, z1: np.ndarray):  # noqa: ANN202
-        """The branch point between ``z0`` and the point near ``z1``, by Brent's method on the
+        """The branch point between ``z0`` and the point near ``z1``, by bracketed secant steps on the
         bordered test function along the arclength; refined on halved meshes until two
         successive locations agree to the tolerance (the error reported is their difference)."""
         span = arc.inner(eq, t0, z1 - z0)
