@@ -165,11 +165,15 @@ class Branch:
     def truncation(self) -> list[float | None]:
         return [s.diagnostics.truncation_length for s in self.solutions]
 
-    def _add(self, value: float, solution: Solution, how: str) -> None:
+    def _add(self, value: float, solution: Solution, how: str, outputs: np.ndarray | None = None) -> None:
+        """Append a point; ``outputs``: its outputs when already evaluated (in ``_outputs`` order)."""
         self._values.append(float(value))
         self.solutions.append(solution)
         self.steps.append(how)
         self.stability.append(None)
+        if outputs is not None:
+            self._rows.append(dict(zip(self._outputs, (float(v) for v in outputs))))
+            return
         row = {}
         for o in self._outputs:
             try:
@@ -418,6 +422,7 @@ class _Tracer:
         self.turned = False  # a fold passed or a branch switched: return_to applies from now on
         self.k: np.ndarray | None = None  # the constants of the trace (the truncation length held)
         self.last_method = method or "auto"
+        self._seen: tuple[Solution, np.ndarray] | None = None  # the last candidate's outputs
         self.probe = np.random.default_rng(20261202)  # fixed: the border of the branch test
 
     # -- solving at a value --------------------------------------------------------------------
@@ -445,7 +450,8 @@ class _Tracer:
         point = point if point is not None and point.solution is sol else _Point(value, sol)
         if self.points and how != "requested":
             self._orient(point)
-        self.branch._add(value, sol, how)
+        seen = self._seen[1] if self._seen is not None and self._seen[0] is sol else None
+        self.branch._add(value, sol, how, seen)
         point.out = np.array([self.branch._rows[-1][o] for o in self.branch._outputs])
         if how != "requested":
             self.points.append(point)
@@ -508,6 +514,7 @@ class _Tracer:
             if q.out is None:
                 q.out = self._outs(q.solution)
         out = self._outs(sol)
+        self._seen = (sol, out)  # kept for the branch's row if this point is accepted
         seen = np.array([q.out for q in self.points[self.since:] if q.out is not None] + [out])
         spread = np.ptp(seen, axis=0) if seen.shape[0] > 1 else np.zeros(out.size)
         scale = np.maximum(np.maximum(spread, _OUTPUT_FLOOR * np.max(np.abs(seen), axis=0)), 1e-300)
