@@ -27,6 +27,29 @@ _expr = LazyModule("bvpkit.expr")
 Text = Any  # a string, or a SymPy expression
 
 
+_SOLUTION_AS_GUESS = (
+    "a previous Solution is a start for the solver, not part of the problem: pass it to "
+    "bvpkit.solve(problem, guess=solution) (or give an expression per function here, e.g. guess={'y': 'x*(1 - x)'})"
+)
+
+
+def _is_solution(value: Any) -> bool:
+    from .solution import Solution
+
+    return isinstance(value, Solution)
+
+
+def _check_guess_kind(guess: Any) -> None:
+    """``guess`` is a mapping of function name to expression (a Solution belongs to solve())."""
+    if guess is None or isinstance(guess, Mapping):
+        return
+    if _is_solution(guess):
+        raise ProblemError(f"guess: {_SOLUTION_AS_GUESS}")
+    raise ProblemError(
+        f"guess must be a mapping of function name to expression, e.g. {{'y': 'x*(1 - x)'}}, got {type(guess).__name__}"
+    )
+
+
 def _describe(item: Text) -> str:
     return item if isinstance(item, str) else sp.sstr(item)
 
@@ -149,6 +172,7 @@ class Problem:
         mode: int | None = None,
         regions: Sequence[Mapping[str, Any]] | None = None,
     ):
+        _check_guess_kind(guess)
         # The arguments as given: plain data from which a worker process (or a cluster
         # node, or a cached preparation) rebuilds this problem.
         self.arguments = dict(
@@ -659,6 +683,8 @@ class Problem:
                     raise ExpressionError(f"guess for '{name}': {err.reason}", err.text, err.column) from None
             elif isinstance(value, sp.Expr):
                 e = value
+            elif _is_solution(value):
+                raise ProblemError(f"guess for '{name}': {_SOLUTION_AS_GUESS}")
             else:
                 raise ProblemError(f"guess for '{name}': expected an expression, got {type(value).__name__}")
             for s in e.free_symbols:

@@ -72,7 +72,7 @@ def test_ctrl_c_in_text_mode_is_one_line(tmp_path):
     child.send_signal(signal.SIGINT)
     out, err = child.communicate(timeout=120)
     if child.returncode != 0:
-        assert child.returncode == 130 and err == "bvpkit: interrupted: interrupted (Ctrl-C); nothing was finished to keep\n"
+        assert child.returncode == 130 and err == "bvpkit: interrupted: stopped by Ctrl-C before anything was finished to keep\n"
 
 
 def test_an_interrupted_trace_reports_status_interrupted_with_what_it_kept(tmp_path):

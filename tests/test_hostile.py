@@ -310,7 +310,7 @@ def test_ctrl_c_exits_cleanly_with_its_code(monkeypatch, capsys):
 
     monkeypatch.setattr(cli, "_solve", interrupted)
     assert main(["solve", str(SPECS[0])]) == bvpkit.Status.INTERRUPTED.exit_code
-    assert capsys.readouterr().err == "bvpkit: interrupted: interrupted (Ctrl-C); nothing was finished to keep\n"
+    assert capsys.readouterr().err == "bvpkit: interrupted: stopped by Ctrl-C before anything was finished to keep\n"
 
 
 def test_no_traceback_reaches_the_user_in_a_fresh_process(tmp_path):

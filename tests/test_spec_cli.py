@@ -67,7 +67,8 @@ def test_spec_settings_are_carried_and_options_override(tmp_path):
     [
         ("[problem\n", "not valid TOML"),
         ("title = 'x'\n", "missing key 'problem'"),
-        (GOOD.replace("domain", "domian"), "unknown key 'problem.domian' .*known keys here: independent, domain"),
+        (GOOD.replace("domain", "domian"), "unknown key 'problem.domian' .*did you mean 'domain'.*known keys in problem: "
+         "independent, domain"),
         (GOOD + "[solver]\ntol = 'small'\n", "solver.tol"),
         (GOOD + "[solver]\nverify = 1\n", "solver.verify"),
         (GOOD.replace("[0, 1]", "[0, 1, 2]"), "problem.domain"),
