@@ -472,7 +472,7 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
             if name is not None and name not in problem.constants:
                 from .errors import OptionError, closest
 
-                raise OptionError(f"[{section}] names '{name}', which is not a constant of the problem"
+                raise OptionError(f"{args.spec}: [{section}] names '{name}', which is not a constant of the problem"
                                   f"{closest(name, problem.constants)}")
     if args.json:
         return 0, report
