@@ -190,3 +190,11 @@ def test_a_spec_without_units_is_as_before(tmp_path):
 def test_bad_units_are_refused_by_name(units, message):
     with pytest.raises(SpecError, match=message):
         loads(SHELF.split("[units]")[0] + "[units]\n" + units + "\n")
+
+
+def test_assert_converges_says_when_its_reference_solve_failed():
+    from bvpkit.testing import VerificationError, assert_converges
+
+    contradictory = bvpkit.Problem(["y'' = y"], ["y(0) = 0", "y(0) = 1"], (0, 1))
+    with pytest.raises(VerificationError, match=r"the reference solve at tol = 1e-08 failed: .*singular"):
+        assert_converges(contradictory, quantity="y(1)")
