@@ -335,9 +335,13 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     if args.output:
         settings["outputs"] = args.output
     missing = [key for key in ("parameter", "start", "stop") if key not in settings]
+    if missing and not problem.constants:
+        raise OptionError(f"{args.spec}: the problem has no constants, and a trace follows one as it changes "
+                          "(give the number to vary a name under [problem] constants)")
     if missing:
         raise OptionError(
-            f"trace needs {', '.join(missing)}: give --{missing[0]} or a [trace] section in the spec"
+            f"{args.spec}: trace needs {', '.join(missing)}: give --{missing[0]} or a [trace] section in the spec "
+            f"(constants: {', '.join(problem.constants)})"
         )
     branch = trace(
         problem,
@@ -385,7 +389,11 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     if grid is not None:
         settings["grid"] = grid
     if not settings.get("grid"):
-        raise OptionError(f"{args.spec} has no [sweep] section with a grid; give one with --grid NAME=FROM:TO:COUNT")
+        if not problem.constants:
+            raise OptionError(f"{args.spec}: the problem has no constants, and a sweep varies them over a grid "
+                              "(give the numbers to vary names under [problem] constants)")
+        raise OptionError(f"{args.spec} has no [sweep] section with a grid; give one with --grid NAME=FROM:TO:COUNT "
+                          f"(constants: {', '.join(problem.constants)})")
     client = None
     executor: Any = "serial" if args.serial else None
     if args.scheduler:

@@ -249,3 +249,15 @@ def test_drawn_wrong_values_never_leak_internals(tmp_path_factory, changes):
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
         code = cli.main(["check", str(spec)])
     _clean(code, out.getvalue() + err.getvalue(), repr(changes))
+
+
+@pytest.mark.parametrize("command", ["trace", "sweep"])
+def test_a_trace_or_sweep_of_a_spec_without_settings_says_what_it_can_vary(command, tmp_path, capsys, monkeypatch):
+    text = _spec({"trace": None})
+    code, said = _run(tmp_path, capsys, monkeypatch, text, command, "--quiet")
+    assert code == 2 and "(constants: m2, L)" in said, said
+    plain = text.replace("constants = { m2 = 4.0, L = 1.0 }", "").replace("m2*y", "4*y").replace('"L"', "1") \
+        .replace("y'(L)", "y'(1)").replace("y(L)", "y(1)")
+    code, said = _run(tmp_path, capsys, monkeypatch, plain, command, "--quiet")
+    assert code == 2 and "the problem has no constants" in said, said
+    _clean(code, said, command)
