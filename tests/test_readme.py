@@ -171,3 +171,11 @@ def test_every_command_of_the_shell_blocks_runs(tmp_path, monkeypatch, capsys):
         out = capsys.readouterr()
         assert code == 0, f"bvpkit {' '.join(words)}: {out.err}"
     assert (tmp_path / "eta.csv").exists() and (tmp_path / "fin.csv").exists()
+
+
+def test_the_engineering_caution_stays_where_design_figures_appear():
+    assert re.search(r"## Engineering caution\n\n.*engineering estimates.*licensed engineering practice", README,
+                     re.DOTALL)
+    after_chart = README.split("docs/design_chart.png)", 1)[1][:400]
+    assert "engineering estimates" in after_chart and "(#engineering-caution)" in after_chart
+    assert "licensed practice" in (ROOT / "docs" / "verification.md").read_text()
