@@ -147,12 +147,14 @@ def _explain(error: ValidationError, source: str) -> SpecError:
     found: dict[str, list[dict[str, Any]]] = {}
     for item in error.errors():
         path, annotation = _walk(item["loc"])
-        entry = dict(item, annotation=annotation)
+        # a location longer than its key path holds pydantic's label of a union member
+        entry = dict(item, annotation=annotation, member=len(item["loc"]) > len(path))
         found.setdefault(_where(path), []).append(entry)
     # A union reports each member's complaint; when one member got further (the list a grid
     # axis is, the table it is not), the shallow complaints about the others are noise.
     paths = list(found)
-    deeper = [p for p in paths if not any(q.startswith((p + ".", p + " (")) for q in paths)]
+    deeper = [p for p in paths if not (all(e["member"] for e in found[p])
+                                       and any(q.startswith((p + ".", p + " (")) for q in paths))]
     # an unknown key first: it is usually the cause of a "missing" one (a misspelt key), which
     # is then said with it and not again
     deeper.sort(key=lambda p: not any(e["type"] == "extra_forbidden" for e in found[p]))
