@@ -274,7 +274,7 @@ class Solution:
                 "outputs": outputs,
                 "output_errors": errors,
                 "parameters": self.parameters if self.success else {name: None for name in self.parameters},
-                "parameter_errors": self.parameter_errors,
+                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self.parameters},
                 "state_names": list(self.state_names),
                 "diagnostics": self.diagnostics.as_dict(),
             }

@@ -107,7 +107,7 @@ def test_a_failed_cli_solve_prints_no_number_labelled_as_an_output(tmp_path, cap
     report = json.loads(capsys.readouterr().out)
     assert report["success"] is False
     assert report["outputs"] == {"period": None, "amplitude": None}
-    assert report["parameters"] == {"T": None}
+    assert report["parameters"] == {"T": None} and report["parameter_errors"] == {"T": None}
     assert report["output_errors"] == {"period": None, "amplitude": None}
 
 
