@@ -19,7 +19,8 @@ from pathlib import Path
 from . import collocation, continuation, scale, shooting, startup, sweeps
 from .harness import machine
 
-SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
+SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS,
+          *sweeps.SECTIONS, *startup.SECTIONS]
 HEADING = "# Benchmark results (newest first)"
 
 
@@ -45,7 +46,8 @@ def main(argv: list[str]) -> None:
     names = [bench.__name__ for bench in SUITES]
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__.splitlines()[0])
     parser.add_argument("sections", nargs="*", metavar="SECTION", help=f"some of: {', '.join(names)}")
-    parser.add_argument("--out", metavar="FILE", help="also add the run at the top of FILE (e.g. benchmarks/RESULTS.md)")
+    parser.add_argument("--out", metavar="FILE",
+                        help="also add the run at the top of FILE (e.g. benchmarks/RESULTS.md)")
     args = parser.parse_args(argv)
     unknown = sorted(set(args.sections) - set(names))
     if unknown:

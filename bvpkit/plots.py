@@ -72,7 +72,8 @@ def _finish(fig, axes, title: str, path: str | Path) -> None:  # noqa: ANN001
     fig.savefig(path)
 
 
-def _title_and_units(source: Any, title: str | None, units: Mapping[str, str] | None) -> tuple[str, dict, str | None]:
+def _title_and_units(source: Any, title: str | None,
+                     units: Mapping[str, str] | None) -> tuple[str, dict, str | None]:
     prepared = getattr(source, "prepared", None)
     if title is None:
         title = getattr(prepared, "title", "") or ""
@@ -151,7 +152,8 @@ def branch_figure(branch: Any, path: str | Path, outputs: Sequence[str] | None =
         raise OptionError("the branch records no outputs to draw; trace it with outputs=[...]")
     unknown = [n for n in names if n not in recorded]
     if unknown:
-        raise OptionError(f"'{unknown[0]}' is not an output of this branch (it records: {', '.join(recorded)})")
+        raise OptionError(f"'{unknown[0]}' is not an output of this branch "
+                          f"(it records: {', '.join(recorded)})")
     parameter = np.asarray(branch.parameter, float)
     if parameter.size == 0:
         raise OptionError("the branch holds no points to draw")
@@ -169,11 +171,12 @@ def branch_figure(branch: Any, path: str | Path, outputs: Sequence[str] | None =
     for panel, (ax, name, column) in enumerate(zip(axes, names, columns)):
         legend_here = panel == 0
         _draw_curve(ax, fine, curve_p, curve_v[panel], s_points, stability, legend_here)
-        ax.plot(parameter[good], column[good], label="computed points" if legend_here else None, **_POINT_STYLE)
+        ax.plot(parameter[good], column[good], label="computed points" if legend_here else None,
+                **_POINT_STYLE)
         for fold in folds:
             y = fold.outputs.get(name, math.nan)
-            ax.plot([fold.parameter], [y], label=f"fold at {branch.name} = {fold.parameter:.6g}" if legend_here
-                    else None, **_FOLD_STYLE)
+            words = f"fold at {branch.name} = {fold.parameter:.6g}"
+            ax.plot([fold.parameter], [y], label=words if legend_here else None, **_FOLD_STYLE)
         for point in branch_points:
             y = getattr(point, "outputs", {}).get(name, math.nan)
             ax.plot([point.parameter], [y], label=f"branch point at {branch.name} = {point.parameter:.6g}"
@@ -248,7 +251,8 @@ def sweep_figure(result: Any, path: str | Path, outputs: Sequence[str] | None = 
         raise OptionError("the sweep has no outputs to draw; give outputs=[...]")
     unknown = [n for n in names if n not in result.outputs]
     if unknown:
-        raise OptionError(f"'{unknown[0]}' is not an output of this sweep (it has: {', '.join(result.outputs)})")
+        raise OptionError(f"'{unknown[0]}' is not an output of this sweep "
+                          f"(it has: {', '.join(result.outputs)})")
     if not result.table:
         raise OptionError("the sweep holds no finished points to draw")
     title, units, independent = _title_and_units(result, title, units)
@@ -272,7 +276,7 @@ def sweep_figure(result: Any, path: str | Path, outputs: Sequence[str] | None = 
             rows = sorted(groups[key], key=lambda r: r[fast])
             xs = np.array([r[fast] for r in rows], float)
             ys = np.array([_number(r.get(name)) if r["success"] else math.nan for r in rows])
-            words = ", ".join(f"{n} = {v:g}{_unit(n, units)}" for n, v in zip(slower, key)) if slower else None
+            words = ", ".join(f"{n} = {v:g}{_unit(n, units)}" for n, v in zip(slower, key)) or None
             style = "-" if xs.size > 12 else "-o"
             ax.plot(xs, ys, style, color=colour, lw=1.7, ms=3.5, label=words if panel == 0 else None)
             drawn.append(ys[np.isfinite(ys)])

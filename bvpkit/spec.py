@@ -279,10 +279,16 @@ def _label_matches(member: Any, label: str) -> bool:
     return isinstance(member, type) and label == member.__name__
 
 
+def _model_in(annotation: Any) -> Any:
+    """The model class an annotation names (alone or in a union), or None."""
+    return next((m for m in _members(_bare(annotation)) if isinstance(m, type) and issubclass(m, BaseModel)),
+                None)
+
+
 def _field(loc: tuple[Any, ...]) -> Any:
     """The model field a location ends on (its length rules), or None."""
     parent = _walk(loc[:-1])[1] if loc[:-1] else Spec
-    model = next((m for m in _members(_bare(parent)) if isinstance(m, type) and issubclass(m, BaseModel)), None)
+    model = _model_in(parent)
     if model is None:
         return None
     return next((f for n, f in model.model_fields.items() if loc[-1] in (n, f.alias)), None)
@@ -362,7 +368,7 @@ def _hint(annotation: Any, value: Any) -> str:
 
 def _known_keys(parent: tuple[Any, ...]) -> list[str]:
     annotation = _walk(parent)[1] if parent else Spec
-    model = next((m for m in _members(_bare(annotation)) if isinstance(m, type) and issubclass(m, BaseModel)), None)
+    model = _model_in(annotation)
     if model is None:
         return []
     return [f.alias or n for n, f in model.model_fields.items()]
@@ -392,8 +398,8 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     if spec.trace is not None:
         settings["trace"] = {k: v for k, v in spec.trace.model_dump().items() if v is not None}
     if spec.sweep is not None:
-        settings["sweep"] = {"grid": {name: _values(name, axis, source) for name, axis in spec.sweep.grid.items()},
-                             "outputs": spec.sweep.outputs}
+        grid = {name: _values(name, axis, source) for name, axis in spec.sweep.grid.items()}
+        settings["sweep"] = {"grid": grid, "outputs": spec.sweep.outputs}
     try:
         problem = Problem(
             equations=section.equations,

@@ -46,7 +46,8 @@ def check_units(units: Any, known: Iterable[str], where: str = "units") -> dict[
     for name, unit in units.items():
         if name not in known:
             raise OptionError(
-                f"{where} gives a unit for '{name}', which is not a name of the problem{closest(str(name), known)} "
+                f"{where} gives a unit for '{name}', which is not a name of the problem"
+                f"{closest(str(name), known)} "
                 f"(units are for: {', '.join(known)})"
             )
         if not isinstance(unit, str):
@@ -54,7 +55,8 @@ def check_units(units: Any, known: Iterable[str], where: str = "units") -> dict[
         text = unit.strip()
         if not text or len(text) > MAX_UNIT_LENGTH or not text.isprintable():
             raise OptionError(
-                f"{where}: the unit of '{name}' must be 1 to {MAX_UNIT_LENGTH} printable characters, got {unit!r}"
+                f"{where}: the unit of '{name}' must be 1 to {MAX_UNIT_LENGTH} printable characters, "
+                f"got {unit!r}"
             )
         result[str(name)] = text
     return result
@@ -66,8 +68,8 @@ def names_with_units(problem: Any) -> list[str]:
     if facts is not None:
         arguments = facts.get("arguments", {})
         extra = [arguments["eigenvalue"]] if arguments.get("eigenvalue") else []
-        return [facts["independent"], *arguments.get("constants", {}), *arguments.get("unknown_parameters", {}),
-                *extra, *facts["unknowns"], *facts["outputs"]]
+        return [facts["independent"], *arguments.get("constants", {}),
+                *arguments.get("unknown_parameters", {}), *extra, *facts["unknowns"], *facts["outputs"]]
     return [problem.independent, *problem.constants, *problem.unknown_parameters,
             *([problem.eigenvalue] if problem.eigenvalue else []), *problem.unknowns, *problem.outputs]
 

@@ -50,7 +50,8 @@ def test_a_branch_figure_has_a_panel_per_output_units_a_title_and_its_fold_in_th
     # t^2 / (2 cosh^2(t/4)) = 3.5138307191... (the closed-form solution of the Bratu problem)
     from scipy.optimize import minimize_scalar
 
-    lam_c = -minimize_scalar(lambda t: -t**2 / (2 * np.cosh(t / 4) ** 2), bounds=(1, 10), method="bounded").fun
+    found = minimize_scalar(lambda t: -t**2 / (2 * np.cosh(t / 4) ** 2), bounds=(1, 10), method="bounded")
+    lam_c = -found.fun
     (fold,) = [t for t in _legend(axes[0]) if t.startswith("fold")]
     assert fold == f"fold at lam = {lam_c:.6g}" == "fold at lam = 3.51383"
     # the fold is drawn where it was located, on every panel
@@ -78,7 +79,8 @@ def test_stability_is_drawn_apart_and_branch_points_are_listed(branch, tmp_path)
         name=branch.name, parameter=branch.parameter, outputs=branch.outputs, solutions=branch.solutions,
         folds=branch.folds,
         stability=[i < branch.folds[0].index for i in range(branch.parameter.size)],
-        branch_points=[types.SimpleNamespace(parameter=2.0, outputs={"y'(0)": 1.3, "y(1/2)": 0.4}, error=0.0)],
+        branch_points=[types.SimpleNamespace(parameter=2.0, outputs={"y'(0)": 1.3, "y(1/2)": 0.4},
+                                             error=0.0)],
     )
     fig = plots.branch_figure(marked, tmp_path / "marked.png")
     legend = _legend(fig.axes[0])
@@ -88,7 +90,8 @@ def test_stability_is_drawn_apart_and_branch_points_are_listed(branch, tmp_path)
 
 
 def test_no_legend_where_there_is_nothing_to_tell(tmp_path):
-    straight = bvpkit.trace(PELLET.with_constants(Bi=10.0), "phi", start=0.5, stop=3.0, outputs=["effectiveness"])
+    straight = bvpkit.trace(PELLET.with_constants(Bi=10.0), "phi", start=0.5, stop=3.0,
+                            outputs=["effectiveness"])
     assert not straight.folds
     fig = straight.plot(tmp_path / "plain.png")
     assert fig.axes[0].get_legend() is None
@@ -101,20 +104,23 @@ def test_a_design_chart_has_a_curve_per_slower_value_log_axes_and_a_panel_per_ou
     top, bottom = fig.axes
     assert top.get_xscale() == "log"  # the modulus grid is geometric
     assert top.get_yscale() == "log"  # the effectiveness spans more than LOG_SPAN
-    assert bottom.get_xlabel() == "phi [1]" and [top.get_ylabel(), bottom.get_ylabel()] == ["effectiveness", "surface"]
+    assert bottom.get_xlabel() == "phi [1]"
+    assert [top.get_ylabel(), bottom.get_ylabel()] == ["effectiveness", "surface"]
     assert _legend(top) == ["Bi = 1", "Bi = 10", "Bi = 100"]
     assert len([line for line in bottom.get_lines() if len(line.get_xdata()) == 12]) == 3
     assert fig._suptitle.get_text() == "Our pellets"
 
 
 def test_a_linear_grid_keeps_linear_axes_and_one_curve_has_no_legend(tmp_path):
-    result = bvpkit.sweep(PELLET, {"phi": [0.5, 1.0, 1.5, 2.0, 2.5]}, outputs=["effectiveness"], executor="serial")
+    result = bvpkit.sweep(PELLET, {"phi": [0.5, 1.0, 1.5, 2.0, 2.5]}, outputs=["effectiveness"],
+                          executor="serial")
     fig = result.plot(tmp_path / "one.png")
     assert fig.axes[0].get_xscale() == "linear" and fig.axes[0].get_legend() is None
 
 
 def test_asking_for_an_output_the_result_lacks_names_what_it_has(branch, chart, tmp_path):
-    with pytest.raises(OptionError, match=r"'y\(1\)' is not an output of this branch \(it records: y'\(0\), y\(1/2\)\)"):
+    with pytest.raises(OptionError, match=r"'y\(1\)' is not an output of this branch "
+                                          r"\(it records: y'\(0\), y\(1/2\)\)"):
         branch.plot(tmp_path / "x.png", "y(1)")
     with pytest.raises(OptionError, match="'eta' is not an output of this sweep"):
         chart.plot(tmp_path / "x.png", "eta")

@@ -64,7 +64,8 @@ def _run_block(code: str, namespace: dict) -> int:
     checked = 0
     for statement in tree.body:
         if isinstance(statement, ast.Expr):
-            value = eval(compile(ast.Expression(statement.value), "<README>", "eval"), namespace)  # noqa: S307
+            expression = compile(ast.Expression(statement.value), "<README>", "eval")
+            value = eval(expression, namespace)  # noqa: S307 - the README's own text, run on purpose
             shown = _shown_value(comments.get(statement.end_lineno, ""))
             if shown is None:
                 continue
@@ -73,7 +74,8 @@ def _run_block(code: str, namespace: dict) -> int:
                 assert abs(value - expected) < 1.5 * 10.0 ** -digits * max(1.0, abs(expected)), (
                     f"README shows {expected}... for {ast.unparse(statement)}, bvpkit gives {value!r}")
             else:
-                assert value == expected, f"README shows {expected!r} for {ast.unparse(statement)}, got {value!r}"
+                assert value == expected, (
+                    f"README shows {expected!r} for {ast.unparse(statement)}, got {value!r}")
             checked += 1
         else:
             exec(compile(ast.Module([statement], []), "<README>", "exec"), namespace)  # noqa: S102
@@ -114,7 +116,8 @@ def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
     (block,) = _blocks("python", "bvpkit.trace(")
     monkeypatch.chdir(tmp_path)
     namespace: dict = {}
-    # analytic: the fold of y'' + lam e^y = 0 on [0, 1] is at max over t of t^2/(2 cosh^2(t/4)) = 3.51383071913
+    # analytic: the fold of y'' + lam e^y = 0 on [0, 1] lies at the maximum over t of
+    # t^2 / (2 cosh^2(t/4)) = 3.51383071913
     assert _run_block(block, namespace) == 1
     assert (tmp_path / "branch.png").stat().st_size > 10_000
 
@@ -125,7 +128,8 @@ def test_the_sweep_block_runs_as_a_plain_script(tmp_path):
     assert "__main__" not in block
     script = tmp_path / "chart_script.py"
     script.write_text(block + "\nprint(result.message)\n")
-    done = subprocess.run([sys.executable, str(script)], cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    done = subprocess.run([sys.executable, str(script)], cwd=tmp_path, capture_output=True, text=True,
+                          timeout=300)
     assert done.returncode == 0, done.stderr
     assert done.stderr == ""
     # once: the workers did not run the script again
@@ -141,7 +145,8 @@ def test_the_spec_block_loads_and_solves():
     assert solution.success
     # Blasius wall shear f''(0) = 0.332057336 (Howarth 1938, as tabulated by Schlichting)
     assert solution.outputs["wall_shear"] == pytest.approx(0.332057336, rel=1e-7)
-    assert solution.outputs["friction_coefficient"] == pytest.approx(2 * 0.332057336 / math.sqrt(8.0e4), rel=1e-7)
+    friction = 2 * 0.332057336 / math.sqrt(8.0e4)
+    assert solution.outputs["friction_coefficient"] == pytest.approx(friction, rel=1e-7)
 
 
 def test_the_units_block_labels_the_pin_fin_as_shown():
@@ -174,8 +179,8 @@ def test_every_command_of_the_shell_blocks_runs(tmp_path, monkeypatch, capsys):
 
 
 def test_the_engineering_caution_stays_where_design_figures_appear():
-    assert re.search(r"## Engineering caution\n\n.*engineering estimates.*licensed engineering practice", README,
-                     re.DOTALL)
+    caution = r"## Engineering caution\n\n.*engineering estimates.*licensed engineering practice"
+    assert re.search(caution, README, re.DOTALL)
     after_chart = README.split("docs/design_chart.png)", 1)[1][:400]
     assert "engineering estimates" in after_chart and "(#engineering-caution)" in after_chart
     assert "licensed practice" in (ROOT / "docs" / "verification.md").read_text()

@@ -27,7 +27,8 @@ def register_profiles(default: str = "ci") -> str:
     settings.register_profile("ci", derandomize=True, max_examples=EXAMPLES["ci"], deadline=None,
                               suppress_health_check=quiet)
     settings.register_profile("dev", max_examples=EXAMPLES["dev"], deadline=None, suppress_health_check=quiet)
-    settings.register_profile("long", max_examples=EXAMPLES["long"], deadline=None, suppress_health_check=quiet)
+    settings.register_profile("long", max_examples=EXAMPLES["long"], deadline=None,
+                              suppress_health_check=quiet)
     name = os.environ.get(PROFILE_VARIABLE, default)
     settings.load_profile(name)
     return name
