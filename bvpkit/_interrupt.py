@@ -15,7 +15,7 @@ import signal
 import sys
 
 #: What an interrupted command says when it had not finished anything.
-MESSAGE = "interrupted (Ctrl-C); nothing was finished to keep"
+MESSAGE = "stopped by Ctrl-C before anything was finished to keep"
 #: Exit code after Ctrl-C (the shell's convention, 128 + SIGINT); as bvpkit.status says.
 EXIT_CODE = 130
 

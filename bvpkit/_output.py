@@ -1,4 +1,4 @@
-"""Shared helpers for the tables and pictures that Solution, Branch and SweepResult write."""
+"""Shared helpers for the tables that Solution, Branch and SweepResult write (figures: plots.py)."""
 
 from __future__ import annotations
 
@@ -35,20 +35,6 @@ def _cell(value: Any) -> str:
     if isinstance(value, str | bool):
         return str(value)
     return repr(float(value))
-
-
-def pyplot():  # noqa: ANN201
-    """matplotlib's pyplot on a file-only backend, or a clear error naming the extra to install."""
-    from .errors import MissingExtraError
-
-    try:
-        import matplotlib
-
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
-    except ImportError:
-        raise MissingExtraError('plotting needs matplotlib: pip install ".[plot]"') from None
-    return plt
 
 
 def progress_bar(enabled: bool, total: int):  # noqa: ANN201

@@ -319,10 +319,11 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     )
     if fresh:
         remember(key, problem)
+    # the user asked for the file: a failed solve's is written too, every header saying it failed
     if csv_path is not None:
-        solution.to_csv(csv_path)
+        solution.to_csv(csv_path, allow_failed=True)
     report = solution.as_dict()
-    for output, write in ((csv_out, solution.to_csv),
+    for output, write in ((csv_out, lambda handle: solution.to_csv(handle, allow_failed=True)),
                           (json_out, lambda handle: handle.write(json.dumps(report, indent=2) + "\n"))):
         if output is not None:
             with output.open() as handle:
@@ -332,7 +333,8 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         return solution.status.exit_code, report
     title = f"{problem.title}\n" if problem.title else ""
     _say(title + solution.summary())
-    for path, what in ((csv_path or (csv_out and csv_out.path), "mesh solution"), (json_out and json_out.path, "report")):
+    mesh = "mesh solution" if solution.success else "mesh solution of the failed solve (headers marked failed)"
+    for path, what in ((csv_path or (csv_out and csv_out.path), mesh), (json_out and json_out.path, "report")):
         if path:
             _say(f"{what} written to {path}")
     return solution.status.exit_code, None
@@ -357,9 +359,13 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     if args.output:
         settings["outputs"] = args.output
     missing = [key for key in ("parameter", "start", "stop") if key not in settings]
+    if missing and not problem.constants:
+        raise OptionError(f"{args.spec}: the problem has no constants, and a trace follows one as it changes "
+                          "(give the number to vary a name under [problem] constants)")
     if missing:
         raise OptionError(
-            f"trace needs {', '.join(missing)}: give --{missing[0]} or a [trace] section in the spec"
+            f"{args.spec}: trace needs {', '.join(missing)}: give --{missing[0]} or a [trace] section in the spec "
+            f"(constants: {', '.join(problem.constants)})"
         )
     branch = trace(
         problem,
@@ -376,10 +382,11 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         return_to=args.return_to if args.return_to is not None else settings.get("return_to"),
         switch=not args.no_switch and settings.get("branch_switching", True),
     )
+    units = _units(problem)
     if args.csv:
-        branch.to_csv(args.csv)
+        _csv_with_units(branch.to_csv, args.csv, units, problem.independent)
     if args.plot:
-        branch.plot(args.plot)
+        branch.plot(args.plot, title=problem.title, units=units)
     code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
     report = branch.as_dict()
     if branch.interrupted:
@@ -388,7 +395,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     if args.json:
         return code, report
     title = f"{problem.title}\n" if problem.title else ""
-    _say(title + branch.summary())
+    _say(title + branch.summary() + _units_line(units, [settings["parameter"], *(settings.get("outputs") or problem.outputs)]))
     if args.csv:
         _say(f"branch written to {args.csv}")
     if args.plot:
@@ -451,7 +458,11 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     if grid is not None:
         settings["grid"] = grid
     if not settings.get("grid"):
-        raise OptionError(f"{args.spec} has no [sweep] section with a grid; give one with --grid NAME=FROM:TO:COUNT")
+        if not problem.constants:
+            raise OptionError(f"{args.spec}: the problem has no constants, and a sweep varies them over a grid "
+                              "(give the numbers to vary names under [problem] constants)")
+        raise OptionError(f"{args.spec} has no [sweep] section with a grid; give one with --grid NAME=FROM:TO:COUNT "
+                          f"(constants: {', '.join(problem.constants)})")
     client = None
     executor: Any = "serial" if args.serial else None
     if args.scheduler:
@@ -467,17 +478,19 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     finally:
         if client is not None:
             client.close()
+    units = _units(problem)
     if args.csv and result.table:
-        result.to_csv(args.csv)
+        _csv_with_units(result.to_csv, args.csv, units, problem.independent)
     if args.plot and result.table:
-        result.plot(args.plot)
+        result.plot(args.plot, title=problem.title, units=units)
     code = 0 if result.success else Status.NOT_CONVERGED.exit_code
     if result.interrupted:
         code = Status.INTERRUPTED.exit_code
     if args.json:
         return code, result.as_dict()
     names = [*result.parameters, *result.outputs, "status"]
-    lines = [(f"{problem.title}\n" if problem.title else "") + result.message, "  ".join(f"{n:>14s}" for n in names)]
+    header = [label(n, units, problem.independent) for n in names]
+    lines = [(f"{problem.title}\n" if problem.title else "") + result.message, "  ".join(f"{n:>14s}" for n in header)]
     for row in result.table:
         cells = [f"{row[n]:14.8g}" if isinstance(row[n], float) else f"{str(row[n]):>14s}" for n in names]
         lines.append("  ".join(cells))
@@ -486,6 +499,40 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
             lines.append(f"{what} written to {path}")
     _say("\n".join(lines))
     return code, None
+
+
+def _units(problem: Any) -> dict[str, str]:
+    from .units import units_of
+
+    return units_of(problem)
+
+
+def label(name: str, units: dict[str, str], independent: str) -> str:
+    from .units import label as with_unit
+
+    return with_unit(name, units, independent)
+
+
+def _units_line(units: dict[str, str], names: Sequence[str]) -> str:
+    shown = [f"{n} in {units[n]}" for n in dict.fromkeys(names) if n in units]
+    return "\nunits: " + ", ".join(shown) if shown else ""
+
+
+def _csv_with_units(write: Any, path: str, units: dict[str, str], independent: str) -> None:
+    """A table written by the library's one CSV writer, its header labelled with the units."""
+    import csv
+    import io
+
+    if not units:
+        write(path)
+        return
+    buffer = io.StringIO(newline="")
+    write(buffer)
+    buffer.seek(0)
+    rows = list(csv.reader(buffer))
+    rows[0] = [label(name, units, independent) for name in rows[0]]
+    with open(path, "w", newline="") as handle:
+        csv.writer(handle).writerows(rows)
 
 
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
@@ -502,7 +549,7 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
             if name is not None and name not in problem.constants:
                 from .errors import OptionError, closest
 
-                raise OptionError(f"[{section}] names '{name}', which is not a constant of the problem"
+                raise OptionError(f"{args.spec}: [{section}] names '{name}', which is not a constant of the problem"
                                   f"{closest(name, problem.constants)}")
     if args.json:
         return 0, report
@@ -658,6 +705,8 @@ def _say(text: str, stream: Any = None) -> None:
 def _fail(status: Status, message: str, wants_json: bool) -> int:
     if wants_json:
         _say(json.dumps({"success": False, "status": status.word, "message": message}))
+    elif message.lower().startswith((status.word, status.word.replace("_", " "))):
+        _say(f"bvpkit: {message}", sys.stderr)  # the message says the status itself: once is enough
     else:
         _say(f"bvpkit: {status.word}: {message}", sys.stderr)
     return status.exit_code

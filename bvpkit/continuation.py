@@ -53,7 +53,7 @@ from typing import Any
 import numpy as np
 
 from . import arclength as arc
-from ._output import json_ready, progress_bar, pyplot, write_columns
+from ._output import json_ready, progress_bar, write_columns
 from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations, SingularMatrix, node_weights
 from .driver import DEFAULT_TOL, settle, solve, solve_at
@@ -247,25 +247,12 @@ class Branch:
                              f"{'; ' + shown if shown else ''}{switched}")
         return "\n".join(lines)
 
-    def plot(self, path: str | Path, output: str | None = None) -> None:
-        """Draw one output against the parameter, folds marked (needs the ``plot`` extra)."""
-        plt = pyplot()
-        output = output or (self._outputs[0] if self._outputs else None)
-        if output is None:
-            raise OptionError("plot needs an output to draw; give outputs=[...]")
-        fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=120)
-        ax.plot(self.parameter, self.outputs[output], "-", color="tab:blue", lw=1.6, label="branch")
-        ax.plot(self.parameter, self.outputs[output], ".", color="tab:blue", ms=3)
-        for f in self.folds:
-            ax.plot([f.parameter], [f.outputs[output]], "o", color="tab:red", ms=7,
-                    label=f"fold, {self.name} = {f.parameter:.8g}")
-        ax.set_xlabel(self.name)
-        ax.set_ylabel(output)
-        ax.grid(True, alpha=0.3)
-        ax.legend(loc="best")
-        fig.tight_layout()
-        fig.savefig(path)
-        plt.close(fig)
+    def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
+        """Draw every output (or ``output``) against the parameter, folds marked (``plot`` extra;
+        options of :func:`bvpkit.plots.branch_figure`)."""
+        from .plots import branch_figure
+
+        return branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[str, str]:

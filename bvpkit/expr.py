@@ -512,14 +512,17 @@ class _Parser:
             if side:
                 raise self._error(f"a one-sided value needs a point, e.g. {name}(1-)", token)
             return value
+        # a name applied to an expression is most often a mistyped function (exq(y)): say so first
+        mistyped = "" if primes else closest(name, FUNCTIONS)
+        prefix = f"'{name}' is not a known function{mistyped}; as an unknown function, " if mistyped else ""
         if self.x in point.free_symbols:
             raise self._error(
-                f"'{name}' may be evaluated at a fixed point only, not at an expression of "
+                f"{prefix}'{name}' may be evaluated at a fixed point only, not at an expression of "
                 f"'{self.x.name}'",
                 token,
             )
         if point.has(sp.Function) or point.has(sp.Derivative) or point.has(sp.Subs):
-            raise self._error("the point of an evaluation must be a number or constant", token)
+            raise self._error(f"{prefix}the point of an evaluation must be a number or constant", token)
         at = sp.Subs(value, self.x, point) if primes else sp.Function(name)(point)
         return SideValue(at, side) if side else at
 

@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 
 from . import arclength as arc
-from ._output import json_ready, pyplot, write_columns
+from ._output import json_ready, write_columns
 from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer
 from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations
@@ -128,30 +128,12 @@ class FoldCurve:
                          "folds meet and vanish there")
         return "\n".join(lines)
 
-    def plot(self, path: str | Path) -> None:
-        """The fold curve in the plane of the two constants, with its cusps (``plot`` extra)."""
-        try:
-            from . import plots
-        except ImportError:
-            plots = None
-        if plots is not None and hasattr(plots, "fold_curve_figure"):  # the report-ready figure
-            plots.fold_curve_figure(self, path)
-            return
-        plt = pyplot()
-        fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=120)
-        ax.plot(self.along, self.parameter, "-", color="tab:red", lw=1.8, label=f"fold in {self.name}")
-        for c in self.cusps:
-            ax.plot([c["along"]], [c["parameter"]], "kD", ms=6, label=f"cusp, {self.along_name} = {c['along']:.4g}")
-        positive = self.along > 0
-        if positive.all() and self.along.max() / self.along.min() > 100:
-            ax.set_xscale("log")
-        ax.set_xlabel(self.along_name)
-        ax.set_ylabel(f"{self.name} at the fold")
-        ax.grid(True, alpha=0.3, which="both")
-        ax.legend(loc="best")
-        fig.tight_layout()
-        fig.savefig(path)
-        plt.close(fig)
+    def plot(self, path: str | Path, **options: Any) -> Any:
+        """Draw the fold curve and the outputs along it, cusps marked (``plot`` extra; options of
+        :func:`bvpkit.plots.fold_curve_figure`); returns the figure."""
+        from .plots import fold_curve_figure
+
+        return fold_curve_figure(self, path, **options)
 
 
 def fold_curve(

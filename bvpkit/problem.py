@@ -27,6 +27,29 @@ _expr = LazyModule("bvpkit.expr")
 Text = Any  # a string, or a SymPy expression
 
 
+_SOLUTION_AS_GUESS = (
+    "a previous Solution is a start for the solver, not part of the problem: pass it to "
+    "bvpkit.solve(problem, guess=solution) (or give an expression per function here, e.g. guess={'y': 'x*(1 - x)'})"
+)
+
+
+def _is_solution(value: Any) -> bool:
+    from .solution import Solution
+
+    return isinstance(value, Solution)
+
+
+def _check_guess_kind(guess: Any) -> None:
+    """``guess`` is a mapping of function name to expression (a Solution belongs to solve())."""
+    if guess is None or isinstance(guess, Mapping):
+        return
+    if _is_solution(guess):
+        raise ProblemError(f"guess: {_SOLUTION_AS_GUESS}")
+    raise ProblemError(
+        f"guess must be a mapping of function name to expression, e.g. {{'y': 'x*(1 - x)'}}, got {type(guess).__name__}"
+    )
+
+
 def _describe(item: Text) -> str:
     return item if isinstance(item, str) else sp.sstr(item)
 
@@ -149,6 +172,7 @@ class Problem:
         mode: int | None = None,
         regions: Sequence[Mapping[str, Any]] | None = None,
     ):
+        _check_guess_kind(guess)
         # The arguments as given: plain data from which a worker process (or a cluster
         # node, or a cached preparation) rebuilds this problem.
         self.arguments = dict(
@@ -312,9 +336,20 @@ class Problem:
     def _orders(self, equations: list, where: str) -> dict[str, int]:
         orders = {n: 0 for n in self.unknowns}
         if len(equations) != len(self.unknowns):
+            # more unknowns than equations: a name that is never differentiated and reads like a
+            # known function is most likely one mistyped (tahn(x))
+            if len(equations) < len(self.unknowns):
+                for name in self.unknowns:
+                    hint = closest(name, _expr.FUNCTIONS)
+                    if hint and not any(d.expr.func.__name__ == name for e in equations for d in e.atoms(sp.Derivative)):
+                        raise ProblemError(
+                            f"'{name}' is not a known function{hint}; as written it is read as another unknown "
+                            f"function, which leaves {len(equations)} equation(s) for {len(self.unknowns)} "
+                            f"unknown functions ({', '.join(self.unknowns)})"
+                        )
             raise ProblemError(
                 f"{len(equations)} equation(s) in {where} for {len(self.unknowns)} unknown "
-                f"function(s) {self.unknowns}: give one differential equation per unknown"
+                f"function(s) ({', '.join(self.unknowns)}): give one differential equation per unknown"
             )
         for eq in equations:
             if eq.has(_expr.DomainIntegral):
@@ -659,6 +694,8 @@ class Problem:
                     raise ExpressionError(f"guess for '{name}': {err.reason}", err.text, err.column) from None
             elif isinstance(value, sp.Expr):
                 e = value
+            elif _is_solution(value):
+                raise ProblemError(f"guess for '{name}': {_SOLUTION_AS_GUESS}")
             else:
                 raise ProblemError(f"guess for '{name}': expected an expression, got {type(value).__name__}")
             for s in e.free_symbols:
@@ -779,6 +816,21 @@ def check_positions(values: Sequence[float], labels: Sequence[str], independent:
         raise ProblemError(f"the domain ({labels[0]}, {labels[-1]}) must have a < b (got {values[0]:g} and {values[-1]:g})")
     finite = [v for v in values if math.isfinite(v)]
     scale = max([1.0, *(abs(v) for v in finite)])
+    labels = [_plain_number(label, value) for label, value in zip(labels, values)]
+    a, b = values[0], values[-1]
+    if len(values) > 2 and a < b:
+        for value, label in zip(values[1:-1], labels[1:-1]):
+            if not a < value < b:
+                shown = label if label == f"{value:g}" else f"{label} (= {value:g})"
+                domain = f"[{labels[0]}, {labels[-1]}]"
+                if domain != f"[{a:g}, {b:g}]":
+                    domain += f" = [{a:g}, {b:g}]"
+                end = labels[0] if value == a else labels[-1]
+                why = (f"on an end of the domain {domain}: write a condition there at the end itself ({end})"
+                       if value in (a, b) else f"outside the domain {domain}")
+                raise ProblemError(
+                    f"the point {independent} = {shown}, where a condition takes a value (or a region ends), lies {why}"
+                )
     for (u, lu), (v, lv) in zip(zip(values, labels), zip(values[1:], labels[1:])):
         if not u < v or (math.isfinite(u) and math.isfinite(v) and v - u <= _SMALLEST_REGION * scale):
             if len(values) == 2:
@@ -787,6 +839,14 @@ def check_positions(values: Sequence[float], labels: Sequence[str], independent:
                 f"the points {independent} = {lu} and {independent} = {lv} must be in increasing order with room "
                 f"between them (got {u:g} and {v:g}); ends and interfaces: {', '.join(labels)}"
             )
+
+
+def _plain_number(label: str, value: float) -> str:
+    """A point's label as written, but a number as a person writes it (1.5, not 1.50000000000000)."""
+    try:
+        return f"{value:g}" if float(label) == value else label
+    except ValueError:
+        return label
 
 
 def _without_functions(e: sp.Expr) -> sp.Expr:

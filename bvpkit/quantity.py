@@ -75,12 +75,9 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
     found = sorted(e.atoms(DomainIntegral), key=sp.default_sort_key)
     outside = e.xreplace({g: sp.Dummy() for g in found})
     values = problem.point_values(outside)
-    # the placeholders t: the point values first, then the integrals (named as programs want)
     integrals = []
-    for j, g in enumerate(found):
-        symbol = sp.Symbol(f"_t_point{len(values) + j}", real=True)
-        integrals.append((g, symbol, compile_quantity(problem, form, "", parsed=g.args[0])))
-        replace[g] = symbol
+    for g in found:
+        integrals.append((g, sp.Dummy(), compile_quantity(problem, form, "", parsed=g.args[0])))
     points, placeholders = [], []
     for i, pv in enumerate(values):
         symbol = sp.Symbol(f"_t_point{i}", real=True)
@@ -100,9 +97,12 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
         for j in range(order):
             replace[f if j == 0 else sp.Derivative(f, (problem.x, j))] = y[form.states.index((name, j))]
         replace[sp.Derivative(f, (problem.x, order))] = y[form.users + f_index]
+    # the integrals' values follow the point values in ``t``, named as the program grammar allows
+    filled = [sp.Symbol(f"_t_point{len(points) + j}", real=True) for j in range(len(integrals))]
+    replace.update({g: s for (g, _, _), s in zip(integrals, filled)})
     e = e.xreplace(replace)
     running = bool(e.free_symbols & ({X} | set(y)))
-    t = placeholders + [s for _, s, _ in integrals]
+    t = placeholders + filled
     function = compile_expressions([e], [("x", [X]), ("y", y), ("p", form.p), ("k", form.k), ("t", t)], mesh="y")
     return Quantity(function.program, points, [q for _, _, q in integrals], running)
 

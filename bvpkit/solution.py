@@ -20,6 +20,7 @@ from .diagnostics import Diagnostics, hermite
 from .errors import BvpkitError
 from .guess import positions
 from .status import Status
+from .units import label, units_of
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -207,11 +208,7 @@ class Solution:
         -------
         float or ndarray, shape (len(at),)
         """
-        if not (self.success or allow_failed):
-            raise BvpkitError(
-                f"this solve failed ({self.status.word}): its numbers are not an answer; fix the cause "
-                f"({self.message[:120]}) or pass allow_failed=True to look at them anyway"
-            )
+        self._check_success("evaluate", allow_failed)
         return _evaluate(self.interpolant, self.prepared, self.prepared.quantity(expression), expression, at)
 
     def integrate(self, expression: str, *, allow_failed: bool = False) -> float:
@@ -220,8 +217,7 @@ class Solution:
         For an infinite domain the integral is taken up to the truncation length, after
         checking that the integrand has decayed there; otherwise an error says so.
         """
-        if not (self.success or allow_failed):
-            return self.evaluate(expression)  # raises the failed-solve error
+        self._check_success("integrate", allow_failed)
         quantity = self.prepared.quantity(expression)
         value, tail = _integral(self.interpolant, self.prepared, quantity)
         a, b = self.interpolant.ends
@@ -232,16 +228,37 @@ class Solution:
             )
         return value
 
-    def table(self) -> dict[str, np.ndarray]:
-        """Columns of the mesh solution: the independent variable, then every state."""
+    def table(self, *, allow_failed: bool = False) -> dict[str, np.ndarray]:
+        """Columns of the mesh solution: the independent variable, then every state.
+
+        A failed solve raises (as :meth:`evaluate` does) unless ``allow_failed=True``.
+        """
+        self._check_success("table", allow_failed)
         columns = {self.independent: self.x}
         for name, row in zip(self.state_names, self.y):
             columns[name] = row
         return columns
 
-    def to_csv(self, path: str | Path) -> None:
-        """Write :meth:`table` as CSV (one row per mesh node)."""
-        write_columns(path, self.table())
+    def to_csv(self, path: str | Path, *, allow_failed: bool = False) -> None:
+        """Write :meth:`table` as CSV (one row per mesh node).
+
+        Column headers carry the units the problem gives (``x [m]``). A failed solve raises
+        unless ``allow_failed=True``; then every header says that the numbers are those of a
+        failed solve (``y (failed: mesh_limit)``), so no reader of the file can take them for
+        an answer.
+        """
+        self._check_success("to_csv", allow_failed)
+        units = self.units
+        columns = {label(name, units, self.independent): values
+                   for name, values in self.table(allow_failed=True).items()}
+        if not self.success:
+            columns = {f"{name} (failed: {self.status.word})": values for name, values in columns.items()}
+        write_columns(path, columns)
+
+    @property
+    def units(self) -> dict[str, str]:
+        """The units the problem gives for its names (labels only; ``{}`` when none)."""
+        return units_of(self.prepared)
 
     def as_dict(self) -> dict[str, Any]:
         """Plain JSON-ready data: outcome, outputs with errors (null when the solve failed),
@@ -257,7 +274,7 @@ class Solution:
                 "outputs": outputs,
                 "output_errors": errors,
                 "parameters": self.parameters if self.success else {name: None for name in self.parameters},
-                "parameter_errors": self.parameter_errors,
+                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self.parameters},
                 "state_names": list(self.state_names),
                 "diagnostics": self.diagnostics.as_dict(),
             }
@@ -269,10 +286,13 @@ class Solution:
         head = "solved" if self.success else f"FAILED ({self.status.word})"
         lines = [f"{head}: {self.message}", f"method: {d.selection}"]
         if self.success:
-            for name, value in self.parameters.items():
-                lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.parameter_errors[name])})")
-            for name, value in self.outputs.items():
-                lines.append(f"  {name} = {value:.12g}  (+/- {_fmt_err(self.output_errors[name])})")
+            units = self.units
+            shown = [(name, value, self.parameter_errors[name]) for name, value in self.parameters.items()]
+            shown += [(name, value, self.output_errors[name]) for name, value in self.outputs.items()]
+            for name, value, error in shown:
+                unit = f" {units[name]}" if name in units else ""
+                note = "" if math.isfinite(value) else "  (not a finite number: check the expression)"
+                lines.append(f"  {name} = {value:.12g}{unit}  (+/- {_fmt_err(error)}){note}")
         elif self.prepared.outputs or self.parameters:
             lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
@@ -297,6 +317,18 @@ class Solution:
         return f"<Solution {self.status.word} by {self.method}: {self.message}>"
 
     # -- internals ----------------------------------------------------------------------
+    def _check_success(self, asked: str, allow_failed: bool) -> None:
+        """The numbers of a failed solve are not an answer: refuse them unless asked for."""
+        if self.success or allow_failed:
+            return
+        cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
+        action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
+                  "to_csv": "write them (every column header then says the solve failed)"}[asked]
+        raise BvpkitError(
+            f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "
+            f"Fix the cause, or pass allow_failed=True to {action} anyway"
+        )
+
     def _output(self, text: str) -> tuple[float, float]:
         quantity = self.prepared.quantity(text)
         value = float(_evaluate(self.interpolant, self.prepared, quantity, text, None))

@@ -51,7 +51,7 @@ from typing import Any
 
 import numpy as np
 
-from ._output import json_ready, progress_bar, pyplot, write_columns
+from ._output import json_ready, progress_bar, write_columns
 from .limits import LARGEST, SMALLEST, in_range
 from .errors import OptionError, closest
 
@@ -277,31 +277,12 @@ class SweepResult:
         return json_ready({"success": self.success, "status": status, "message": self.message,
                            "parameters": self.parameters, "outputs": self.outputs, "table": self.table})
 
-    def plot(self, path: str | Path, output: str | None = None) -> None:
-        """Design chart: one curve per value of the slower parameter (needs the ``plot`` extra)."""
-        plt = pyplot()
-        output = output or self.outputs[0]
-        names = list(self.parameters)
-        fast = names[0]
-        slow = names[1] if len(names) > 1 else None
-        fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=120)
-        groups = sorted({r[slow] for r in self.table}) if slow else [None]
-        colours = plt.get_cmap("viridis")(np.linspace(0.1, 0.9, len(groups)))
-        for colour, g in zip(colours, groups):
-            rows = [r for r in self.table if slow is None or r[slow] == g]
-            xs = np.array([r[fast] for r in rows])
-            ys = np.array([r.get(output, math.nan) if r["success"] else math.nan for r in rows])
-            ax.plot(xs, ys, "-", color=colour, lw=1.6, label=f"{slow} = {g:g}" if slow else None)
-        if _geometric(self.parameters[fast]):
-            ax.set_xscale("log")
-        ax.set_xlabel(fast)
-        ax.set_ylabel(output)
-        ax.grid(True, alpha=0.3, which="both")
-        if slow:
-            ax.legend(title=None, loc="best")
-        fig.tight_layout()
-        fig.savefig(path)
-        plt.close(fig)
+    def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
+        """Design chart: one curve per value of the slower parameters, every output (or ``output``)
+        on its own panel (``plot`` extra; options of :func:`bvpkit.plots.sweep_figure`)."""
+        from .plots import sweep_figure
+
+        return sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def _geometric(values: np.ndarray) -> bool:

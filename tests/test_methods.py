@@ -271,8 +271,10 @@ def _twin_layer_exact(x: np.ndarray, eps: float) -> np.ndarray:
     return x / 2 + 1.5 * np.exp((x**2 - 1) / (2 * eps)) * g(x) / g(1.0)
 
 
-@pytest.mark.parametrize("eps", [1e-2, 1e-3])
-@pytest.mark.parametrize("method", ["auto", *sorted(REGISTRY)])
+@pytest.mark.parametrize(("method", "eps"), [
+    pytest.param(method, eps, marks=pytest.mark.slow) if (method, eps) == ("multiple_shooting", 1e-3) else (method, eps)
+    for method in ["auto", *sorted(REGISTRY)] for eps in [1e-2, 1e-3]
+])  # multiple shooting at 1e-3 takes 7 s: with the slow tests (the default run has it at 1e-2)
 def test_no_false_success_on_the_ill_conditioned_twin_layer_problem(method, eps):
     # A turning-point problem of the singular-perturbation test literature: its outer
     # solution x/2 is fixed by exponentially small terms, so its stability constant is about

@@ -101,7 +101,7 @@ def test_a_multipoint_problem_from_a_spec_and_the_command_line(tmp_path, capsys)
 
 
 @pytest.mark.parametrize(("kwargs", "error", "words"), [
-    (dict(conditions=["y(0) = 0", "y(3/2) = 1"]), ProblemError, "must be in increasing order"),
+    (dict(conditions=["y(0) = 0", "y(3/2) = 1"]), ProblemError, "lies outside the domain"),
     (dict(conditions=["y(0) = 0", "y(1/2-) = 1"]), ProblemError, r"1 at x = 1/2, where y jumps"),
     (dict(conditions=["y(0) = 0", "y(1) = 0", "y(1+) = 1"]), ProblemError, "no value from the right there"),
     (dict(regions=[{"end": 0.7}, {"end": 0.3}, {}]), ProblemError, "must be in increasing order"),
@@ -109,7 +109,7 @@ def test_a_multipoint_problem_from_a_spec_and_the_command_line(tmp_path, capsys)
     (dict(regions=[{"end": 0.7}, {"equations": ["y' = 1"]}]), ProblemError, "same unknown functions of the same orders"),
     (dict(regions=[{"end": 0.7}, {"constants": {"zz": 1.0}}]), ProblemError, "'zz' is not a constant"),
     (dict(regions=[{"end": 0.7}, {"size": 2}]), ProblemError, "unknown key 'size'"),
-    (dict(regions=[{"end": 1.5}, {}]), ProblemError, "must be in increasing order"),
+    (dict(regions=[{"end": 1.5}, {}]), ProblemError, "x = 1.5, where a condition takes a value .*lies outside"),
     (dict(regions=[{"end": 0.6}, {"end": 0.4}, {}]), ProblemError, "must be in increasing order"),
     (dict(conditions=["y(0) = 0", "y(1/2) = 1", "y'(1/2-) = 2", "y(1/2+) = 0"]), ProblemError, "ambiguous"),
     (dict(equations=["y'' + y/(x - 1/2) = 0"], regions=[{"end": 0.5}, {}]), ProblemError, "singular at an interface"),

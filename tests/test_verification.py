@@ -5,7 +5,7 @@ must satisfy the original equations when they are re-evaluated independently."""
 import numpy as np
 import pytest
 import sympy as sp
-from hypothesis import given
+from hypothesis import given, settings
 
 import bvpkit
 from bvpkit.methods import REGISTRY
@@ -17,6 +17,7 @@ from bvpkit.testing import (
     assert_solves,
     linear_problems,
     manufactured_problems,
+    scaled_examples,
     semi_infinite_problems,
 )
 
@@ -36,16 +37,19 @@ def _check_every_method(case, tol=1e-6):
     return solved
 
 
+@settings(max_examples=scaled_examples(0.3))  # every example solves with every method
 @given(linear_problems())
 def test_linear_problems_orders_one_to_four(case):
     assert _check_every_method(case) >= 1, case.description
 
 
+@settings(max_examples=scaled_examples(0.3))  # every example solves with every method
 @given(manufactured_problems())
 def test_nonlinear_manufactured_problems(case):
     assert _check_every_method(case) >= 1, case.description
 
 
+@settings(max_examples=scaled_examples(0.3))  # every example solves with every method
 @given(semi_infinite_problems())
 def test_semi_infinite_problems_with_decaying_solutions(case):
     assert _check_every_method(case) >= 1, case.description

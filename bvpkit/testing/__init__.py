@@ -25,7 +25,7 @@ from .assertions import (
     assert_solves,
 )
 from .cases import Manufactured
-from .profiles import register_profiles
+from .profiles import register_profiles, scaled_examples
 from .strategies import linear_problems, manufactured_problems, semi_infinite_problems, smooth_functions
 
 __all__ = [
@@ -38,6 +38,7 @@ __all__ = [
     "linear_problems",
     "manufactured_problems",
     "register_profiles",
+    "scaled_examples",
     "semi_infinite_problems",
     "smooth_functions",
 ]

@@ -174,7 +174,10 @@ def assert_converges(problem, *, quantity: str, exact: float | None = None, meth
     import bvpkit
 
     if exact is None:
-        exact = bvpkit.solve(problem, tol=min(tols) / 100, method=method).evaluate(quantity)
+        reference = bvpkit.solve(problem, tol=min(tols) / 100, method=method)
+        if not reference.success:  # its numbers are no reference: say so instead of comparing with them
+            raise VerificationError(f"the reference solve at tol = {min(tols) / 100:g} failed: {reference.message}")
+        exact = reference.evaluate(quantity)
     errors = []
     for tol in tols:
         sol = bvpkit.solve(problem, tol=tol, method=method)
