@@ -238,11 +238,11 @@ def locate(function, lo: float, hi: float, f_lo: float, f_hi: float, xtol: float
            guess: float | None = None) -> float:
     """A root of ``function`` between ``lo`` and ``hi`` (values of opposite signs given).
 
-    Secant steps from the two latest values, kept inside the bracket and replaced by bisection
-    when they stop shrinking it (Dekker's method); ``guess``, when inside the bracket, is the
-    first point tried. Every evaluation here is a corrector run and a factorisation, so the
-    count matters: from a good guess two or three evaluations usually suffice, where a bracketing
-    method started from the ends takes six to eight.
+    Secant steps from the two latest values while each at least halves ``|f|``, kept inside
+    the bracket; a bisection of the bracket otherwise. ``guess``, when inside the bracket, is
+    the first point tried. Every evaluation here is a corrector run and a factorisation, so
+    the count matters: from a good guess three to five evaluations reach ``xtol``, where a
+    bracketing method started from the ends takes eight to twelve.
     """
     if f_lo == 0:
         return lo
@@ -251,17 +251,15 @@ def locate(function, lo: float, hi: float, f_lo: float, f_hi: float, xtol: float
     a, fa, b, fb = lo, f_lo, hi, f_hi  # the bracket: fa and fb of opposite signs
     x_old, f_old = (a, fa) if abs(fa) > abs(fb) else (b, fb)
     x, fx = (b, fb) if x_old == a else (a, fa)
-    width = abs(b - a)
     trial = guess if guess is not None and min(a, b) < guess < max(a, b) else None
     for _ in range(100):
-        if trial is None:
+        if trial is None or not min(a, b) < trial < max(a, b):
             trial = x - fx * (x - x_old) / (fx - f_old) if fx != f_old else 0.5 * (a + b)
             if not min(a, b) < trial < max(a, b):
                 trial = 0.5 * (a + b)
         step = abs(trial - x)
         x_old, f_old = x, fx
         x, fx = trial, function(trial)
-        trial = None
         if fx == 0:
             return x
         if (fx > 0) == (fa > 0):
@@ -270,7 +268,6 @@ def locate(function, lo: float, hi: float, f_lo: float, f_hi: float, xtol: float
             b, fb = x, fx
         if step <= xtol or abs(b - a) <= 2 * xtol:
             return x
-        if abs(b - a) > 0.5 * width:  # the secant is crawling from one side: bisect next
-            trial = 0.5 * (a + b)
-        width = abs(b - a)
+        # the next secant from the two latest values, or a bisection when |f| did not halve
+        trial = None if abs(fx) <= 0.5 * abs(f_old) else 0.5 * (a + b)
     return x
