@@ -42,6 +42,10 @@ _OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation"}
 #: Unit round-off of double precision: the stability constant times it is the smallest error
 #: any method can promise.
 _ROUNDING = float(np.finfo(float).eps)
+#: A stability constant this many times ``1 + stiffness`` (``|eigenvalue| x length`` of the
+#: Jacobian) is more than the problem's fast modes explain: thin layers of the test set
+#: (benchmarks/testset.py) stay below 50 times, y'' + pi^2 y = 0 at its eigenvalue is 1e7 times.
+_NEAR_SINGULAR = 1e3
 
 
 def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, Any]:
@@ -347,6 +351,10 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
                 f"asked for mode {layout.mode} ({layout.mode - 1} interior zeros of {name}), but the solution "
                 f"found has {found} interior zeros (mode {found + 1}); " + Status.OTHER_MODE.hint
             )
+    if status is Status.SOLVED and tol is not None and condition is not None:
+        warning = _nearly_singular(compiled, outcome, k, condition, tol)
+        if warning:
+            status, message = Status.NEARLY_SINGULAR, f"{message}; but {warning}"
     diagnostics = Diagnostics(
         method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,
@@ -369,6 +377,55 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         reference = Interpolant(compiled, ref.x, ref.y, ref.p, k)
     return Solution(prepared, k, status, message, diagnostics.method, outcome.x, outcome.y, outcome.p,
                     diagnostics, outcome.parameter_errors, reference, previous)
+
+
+def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float, tol: float) -> str:  # noqa: ANN001
+    """Why a converged solution that meets the tolerance is still a warning ('' when it is not).
+
+    The stability constant ``K`` bounds how far a change of the equations moves the solution.
+    Two conditions together: ``K tol > 1`` (a change of the equations within the tolerance
+    asked could move the solution by more than its own size, so the tolerance no longer pins
+    it down), and ``K`` far above what the problem's own fast modes explain (``_NEAR_SINGULAR``
+    times ``1 + |eigenvalue| x length`` of the Jacobian, the stiffness: a thin layer of width
+    ``eps`` has ``K ~ 1/eps`` and is well posed). Both hold near a singular linearised problem:
+    a homogeneous problem at an eigenvalue, a resonance, a fold or branch point.
+    """
+    if not (math.isfinite(condition) and condition * tol > 1.0):
+        return ""
+    from .diagnostics import survey
+
+    stiffness = survey(compiled, outcome.x, outcome.y, outcome.p, k).stiffness
+    if math.isfinite(stiffness) and condition <= _NEAR_SINGULAR * (1.0 + stiffness):
+        return ""
+    return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance of "
+            f"{tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+
+
+def _likely_cause(compiled, outcome: Outcome, k: np.ndarray) -> str:  # noqa: ANN001
+    """The likely cause of a nearly singular problem, and what to do, in words."""
+    x, y, p = outcome.x, outcome.y, outcome.p
+    with np.errstate(all="ignore"):
+        zero = np.zeros_like(y)
+        homogeneous = (np.allclose(compiled.rhs(x, zero, p, k), 0.0, atol=1e-300)
+                       and np.allclose(compiled.bc(zero[:, 0], zero[:, -1], p, k), 0.0, atol=1e-300))
+        scale = 1.0 + float(np.max(np.abs(y)))
+        shifted = y + scale * np.cos(np.arange(y.shape[0]))[:, None]  # another state, far from y
+        jac, other = compiled.jac(x, y, p, k), compiled.jac(x, shifted, p, k)
+        linear = bool(np.all(np.isfinite(jac)) and np.allclose(jac, other, rtol=1e-10, atol=1e-12))
+    size = float(np.max(np.abs(y[compiled.layout.user_rows]))) if y.size else 0.0
+    if homogeneous and linear:
+        which = "the zero solution was found" if size < 1e-8 else "a solution was found"
+        return (f"the problem is homogeneous (zero conditions and no forcing) and {which}, but a non-zero "
+                "solution, and any multiple of it, very likely solves it too (an eigenvalue of the problem is at or "
+                "next to these constants); add a normalisation (a condition such as y'(0) = 1), or state it as an "
+                "eigenvalue problem")
+    if linear:
+        return ("the problem is linear and close to a resonance (its homogeneous version has a non-zero solution "
+                "for nearby values of the constants), so the answer is very sensitive to the constants; check them, "
+                "and trace one (bvpkit trace) to see the sensitivity")
+    return ("a fold or branch point of the family of solutions is likely nearby (another solution may be close); "
+            "trace a constant through this value (bvpkit trace) to see the family, and give a guess to pick a "
+            "branch")
 
 
 def _selection_words(selection: str, attempts: list, outcome: Outcome) -> str:

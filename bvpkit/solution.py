@@ -152,7 +152,7 @@ class Solution:
     ):
         self.prepared = prepared
         self.status = status
-        self.success = status is Status.SOLVED
+        self.success = status.success
         self.message = message
         self.method = method
         self.diagnostics = diagnostics

@@ -13,6 +13,15 @@ as ``solve_bvp`` treats it: it is part of the compiled right-hand side, with its
 
 Error estimate: deferred correction (``CollocationEquations.defect_correction``), one solve with the last
 Newton matrix.
+
+Round-off: the residual of an interval cannot fall below the rounding of the states it is
+computed from (a difference of two values of size ``|y|`` divided by the step ``h`` carries
+an error of about ``eps |y| / h``, which grows as the mesh is refined). :func:`_roundoff_floor`
+estimates that floor from the size of the states and of the terms of the equations; an
+interval whose residual is already at its floor is not refined, and when only such intervals
+miss the tolerance the refinement stops: the error estimate decides, and a miss is reported as
+:attr:`~bvpkit.status.Status.PRECISION_LIMIT` with the accuracy reached, never as a mesh
+limit (refining would only have made it worse).
 """
 
 from __future__ import annotations
@@ -30,6 +39,14 @@ from .base import Method, Outcome, Trial
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
+_ROUNDING = float(np.finfo(float).eps)
+# The residual's derivative of the cubic takes differences of the node values with Hermite
+# weights up to 1.5 / h (the middle residual, 1.5 col / h, and |dH_0| + |dH_2| ~ 2.6 / h at the
+# Lobatto nodes, of values that partly cancel): the noise of one value of size |y| enters the
+# relative residual as about 1.5 eps |y| / h. Checked against the measured residuals of a pin
+# fin at tol 1e-10 and a Graetz eigenproblem at tol 1e-12, where the residual stopped falling
+# and rose again as the mesh was refined once it met this floor.
+_ROUNDOFF_WEIGHT = 1.5
 
 
 def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN001
@@ -43,11 +60,30 @@ def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN0
 @dataclass
 class _State:
     """What a converged collocation solve keeps for its error estimate: the equations on the
-    final mesh, their residual pieces and the factored Newton matrix."""
+    final mesh, their residual pieces and the factored Newton matrix; ``floor`` is the largest
+    residual left unrefined because it was at the round-off level (0 when none was)."""
 
     equations: CollocationEquations
     parts: tuple
     lu: object
+    floor: float = 0.0
+
+
+def _roundoff_floor(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts, which: np.ndarray) -> np.ndarray:  # noqa: ANN001
+    """The smallest relative residual double precision allows on intervals ``which``: about
+    ``eps (1.5 (|y_i| + |y_i+1|) / h + |f| + |J| |y|) / (h_r + |f|)`` per row (the rounding of
+    the node values differenced over the step, and of the terms of the equations, whose sizes
+    ``|J| |y|`` may be far above their sum ``f``), combined over the rows like the residual."""
+    _, _, f, _, fm = parts
+    i = which
+    y0, y1 = np.abs(y[:, i]), np.abs(y[:, i + 1])
+    with np.errstate(all="ignore"):
+        jac = np.abs(eq.c.jac(eq.x[i], y[:, i], p, eq.k))  # (n, n, len(i))
+        terms = np.einsum("ijm,jm->im", jac, y0)
+        noise = _ROUNDOFF_WEIGHT * (y0 + y1) / eq.h[i] + np.abs(f[:, i]) + np.abs(fm[:, i]) + terms
+        relative = _ROUNDING * noise / (eq.scale + np.abs(fm[:, i]))
+    floor = np.sqrt(np.sum(relative**2, axis=0))
+    return np.where(np.isfinite(floor), floor, 0.0)
 
 
 def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):  # noqa: ANN202
@@ -153,6 +189,26 @@ class Collocation(Method):
     strengths = frozenset({"layers", "default"})
     takes_singular_term = True
 
+    def _solve_and_verify(self, trial: Trial) -> Outcome:
+        """The base class's solve and error estimate; a miss of the tolerance where the residual
+        stopped at the round-off level is :attr:`~bvpkit.status.Status.PRECISION_LIMIT`, with the
+        accuracy reached (the error estimate), not a failure to refine."""
+        outcome = super()._solve_and_verify(trial)
+        state = outcome.workspace
+        floor = state.floor if isinstance(state, _State) else 0.0
+        if floor > trial.tol and outcome.status is Status.ERROR_TOO_LARGE and outcome.error_estimate is not None:
+            outcome.status = Status.PRECISION_LIMIT
+            outcome.message = (
+                f"tolerance below what double precision allows here: on {outcome.x.size} nodes the residual stops "
+                f"at the round-off level (about {floor:.1g}) and refining would raise it; the accuracy reached is "
+                f"about {outcome.error_estimate:.2g} (estimated error), against the tolerance {trial.tol:.2g}; "
+                + Status.PRECISION_LIMIT.hint
+            )
+        elif floor > trial.tol and outcome.ok:
+            outcome.message = outcome.message.replace(
+                "where it misses the tolerance", "in places, and the error estimate meets the tolerance")
+        return outcome
+
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x, y = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
@@ -182,6 +238,7 @@ class Collocation(Method):
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
         tol = max(trial.tol, 1e-13)
         iterations, rms, code, rounds = 0, None, 3, 0
+        floor = 0.0  # the largest residual of this round left unrefined at the round-off level
         while True:  # ends: nodes are added each round until the residual is met or max_nodes is hit
             rounds += 1
             if trial.out_of_time():
@@ -202,8 +259,18 @@ class Collocation(Method):
             if not np.isfinite(rms).all():
                 return Outcome(Status.NON_FINITE, "the residual holds NaN or inf; " + Status.NON_FINITE.hint,
                                x, y, p, iterations=iterations)
-            one = np.flatnonzero((rms > tol) & (rms < 100 * tol))
-            two = np.flatnonzero(rms >= 100 * tol)
+            wanted, floor = rms, 0.0
+            over = np.flatnonzero(rms > tol)
+            if over.size:
+                # intervals whose residual is already at the round-off level: refining them
+                # would raise their floor (~ 1/h), not lower the residual
+                noisy = over[rms[over] <= _roundoff_floor(eq, y, p, parts, over)]
+                if noisy.size:
+                    floor = float(np.max(rms[noisy]))
+                    wanted = rms.copy()
+                    wanted[noisy] = 0.0
+            one = np.flatnonzero((wanted > tol) & (wanted < 100 * tol))
+            two = np.flatnonzero(wanted >= 100 * tol)
             if x.size + one.size + 2 * two.size > trial.max_nodes:
                 code = 1
                 break
@@ -220,7 +287,10 @@ class Collocation(Method):
                 break
         outcome = self._outcome(trial, code, x, y, p, iterations, rms)
         if code == 0:
-            outcome.workspace = _State(eq, parts, lu)  # for the error estimate
+            outcome.workspace = _State(eq, parts, lu, floor)  # for the error estimate
+            if floor > tol:
+                outcome.message += (f"; the residual is at the round-off level (about {floor:.1g}) where it "
+                                    "misses the tolerance")
         return outcome
 
     def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms) -> Outcome:  # noqa: ANN001
