@@ -38,7 +38,8 @@ _MAX_LENGTHENINGS = 12  # 1.5**12 ~ 130: from 10 to ~1300 units before giving up
 _SHARE_TRUNCATION = 0.5  # part of the tolerance allowed to truncation
 _SHARE_DISCRETISATION = 0.125  # each truncated solve's error target: two of them stay below tol/4
 
-_OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation"}
+DEFAULT_TIME_LIMIT = 8.0  # seconds for a whole solve (a share to each attempt); see strategy.py
+_OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation", "homotopy", "time_limit"}
 #: Unit round-off of double precision: the stability constant times it is the smallest error
 #: any method can promise.
 _ROUNDING = float(np.finfo(float).eps)
@@ -67,8 +68,29 @@ def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, 
     truncation = chosen.get("truncation", DEFAULT_TRUNCATION)
     if isinstance(truncation, bool) or not isinstance(truncation, int | float) or not 0 < truncation < 1e8:
         raise OptionError(f"truncation must be a positive length, got {truncation!r}")
+    homotopy = chosen.get("homotopy", "auto")
+    if not isinstance(homotopy, str) or not homotopy:
+        raise OptionError(f"homotopy must be \"auto\", \"off\" or the name of a constant, got {homotopy!r}")
+    time_limit = chosen.get("time_limit", DEFAULT_TIME_LIMIT)
+    if isinstance(time_limit, bool) or not isinstance(time_limit, int | float) or not 0 < time_limit <= 1e6:
+        raise OptionError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
     return {"method": method, "tol": float(tol), "max_nodes": max_nodes, "verify": verify,
-            "truncation": float(truncation)}
+            "truncation": float(truncation), "homotopy": homotopy, "time_limit": float(time_limit)}
+
+
+def _check_homotopy(prepared: Prepared, homotopy: str) -> None:
+    """A constant named for continuation must be one of the problem's constants."""
+    if homotopy in ("auto", "off"):
+        return
+    if homotopy not in prepared.constants:
+        from .errors import closest
+
+        raise OptionError(
+            f"homotopy names '{homotopy}', which is not a constant of the problem"
+            f"{closest(homotopy, prepared.constants)}; give \"auto\", \"off\" or one of its constants"
+        )
+    if prepared.constants[homotopy] == 0 and prepared.layout.eigenvalue is None:
+        raise OptionError(f"homotopy in '{homotopy}': its value is 0, where a continuation from 0 would start")
 
 
 def solve(
@@ -80,6 +102,8 @@ def solve(
     max_nodes: int | None = None,
     verify: bool | None = None,
     truncation: float | None = None,
+    homotopy: str | None = None,
+    time_limit: float | None = None,
 ) -> Solution:
     """Solve a boundary-value problem.
 
@@ -105,6 +129,16 @@ def solve(
     truncation : float, optional
         First placement of an infinite end, measured from the finite end (default 10). The
         domain is lengthened from there until the solution stops changing.
+    homotopy : str, optional
+        Continuation from an easier problem when the methods fail from the guess:
+        ``"auto"`` (default: the nonlinear terms scaled up from zero, a small constant
+        multiplying the highest derivative brought down from 0.1, the domain grown from a
+        short one; whichever the problem allows), ``"off"``, or the name of a constant to
+        continue in, tried first (from 0.1 down for a small constant of the highest
+        derivative, else from 0 to its value).
+    time_limit : float, optional
+        Seconds for the whole solve (default 8): each attempt gets a share and stops between
+        two of its steps when it is spent, so a slow method yields to the next.
 
     Returns
     -------
@@ -118,8 +152,10 @@ def solve(
         raise OptionError(f"solve() takes a bvpkit.Problem, got {type(problem).__name__}")
     prepared = prepare(problem)
     chosen = options(prepared.settings, {"method": method, "tol": tol, "max_nodes": max_nodes, "verify": verify,
-                                         "truncation": truncation})
+                                         "truncation": truncation, "homotopy": homotopy, "time_limit": time_limit})
+    _check_homotopy(prepared, chosen["homotopy"])
     start = time.perf_counter()
+    chosen["deadline"] = start + chosen["time_limit"]
     _check_guess(prepared, guess)
     if any(prepared.infinite):
         return _solve_infinite(prepared, guess, chosen, start)
@@ -151,7 +187,7 @@ def place(compiled, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
     name = compiled.layout.independent
 
     def where(t: float) -> str:
-        xs = maps[:, 0] + maps[:, 1] * float(t)
+        xs = _guess.physical(np.array([float(t)]), maps, compiled.layout.stretch)[:, 0]
         if xs.size == 1:
             return f"{name} = {xs[0]:.6g}"
         return f"{name} = " + " / ".join(f"{x:.6g}" for x in xs) + " (the same place in each region)"
@@ -164,7 +200,8 @@ def _run(prepared: Prepared, t, y, p, k, tol: float, chosen: dict) -> tuple[Outc
     with np.errstate(all="ignore"):
         ends = _guess.positions(np.asarray(compiled.maps(p, k), float))
     trial = Trial(compiled, t, y, p, k, tol, chosen["max_nodes"], chosen["verify"], place=place(compiled, p, k))
-    return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])))
+    context = strategy.Context(prepared, chosen["homotopy"], chosen.get("deadline"))
+    return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])), context)
 
 
 def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -204,7 +241,18 @@ def _as_start(guess: Any) -> _guess.Start:
 
 
 def _length_of(prepared: Prepared, k: np.ndarray) -> float:
-    return float(k[prepared.layout.constants.index(LENGTH)])
+    """The truncation length in the user's variable (``_length`` is in the stretched variable
+    ``xi`` of a region mapped by ``x = a + xi**d``: the length is ``_length**d``)."""
+    return float(k[prepared.layout.constants.index(LENGTH)]) ** _power(prepared)
+
+
+def _k_at(prepared: Prepared, length: float) -> np.ndarray:
+    """The constants with the infinite end placed ``length`` from the finite one."""
+    return prepared.k(length ** (1.0 / _power(prepared)))
+
+
+def _power(prepared: Prepared) -> int:
+    return prepared.layout.power(prepared.layout.regions - 1)
 
 
 def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float) -> Solution:
@@ -219,21 +267,28 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
     attempts: list = []
     previous: Outcome | None = None
     previous_k = None
+    growth = _GROWTH ** _power(prepared)  # by _GROWTH in the variable t of a stretched map
     change = math.inf
     selection = ""
     outcome: Outcome | None = None
     for _ in range(_MAX_LENGTHENINGS):
-        k = prepared.k(length)
+        k = _k_at(prepared, length)
         if previous is None:
             t, y, p = _start(prepared, k, guess, chosen)
         else:
-            t = _extended_mesh(previous.x, _length_of(prepared, previous_k) / length, prepared.layout)
+            ratio = (_length_of(prepared, previous_k) / length) ** (1.0 / _power(prepared))  # in t
+            t = _extended_mesh(previous.x, ratio, prepared.layout)
             p = previous.p.copy()
-            y = _guess.carried(_guess.Start(prepared.compiled, previous.x, previous.y, previous.p, previous_k),
-                               prepared.compiled, t, p, k)
+            last = _guess.Start(prepared.compiled, previous.x, previous.y, previous.p, previous_k)
+            y = _guess.carried(last, prepared.compiled, t, p, k)
+            with np.errstate(all="ignore"):
+                if not np.isfinite(prepared.compiled.rhs(t, y, p, k)).all():
+                    # continued along its slope the solution left the equations' domain (a
+                    # decaying y under y**1.5): held at its far-end values instead
+                    y = _guess.carried(last, prepared.compiled, t, p, k, hold=True)
         outcome, tried, chosen_reason = _run(prepared, t, y, p, k, inner_tol, chosen)
         attempts += tried
-        selection = selection or chosen_reason
+        selection = chosen_reason
         if not outcome.ok:
             if previous is None:
                 return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length)
@@ -244,17 +299,17 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
                 return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length,
                               change, Interpolant(prepared.compiled, previous.x, previous.y, previous.p, previous_k))
         previous, previous_k = outcome, k
-        length *= _GROWTH
+        length *= growth
     assert outcome is not None and previous is not None
     elapsed = time.perf_counter() - started
     if outcome.ok:
         outcome.status = Status.TRUNCATION
         outcome.message = (
-            f"the solution still changed by {change:.2g} when infinity was moved out to {length / _GROWTH:.4g}; "
+            f"the solution still changed by {change:.2g} when infinity was moved out to {length / growth:.4g}; "
             + Status.TRUNCATION.hint
         )
-        return settle(prepared, prepared.k(length / _GROWTH), outcome, attempts, selection, elapsed, tol,
-                      length / _GROWTH, change)
+        return settle(prepared, _k_at(prepared, length / growth), outcome, attempts, selection, elapsed, tol,
+                      length / growth, change)
     # A longer domain failed: hand back the last converged one, marked as not settled.
     previous.status = Status.TRUNCATION
     shorter = _length_of(prepared, previous_k)
@@ -368,7 +423,7 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         condition=condition,
         seconds=seconds,
         attempts=attempts,
-        selection=_selection_words(selection, attempts, outcome),
+        selection=selection,
         tol=tol,
     )
     reference = None
@@ -426,15 +481,3 @@ def _likely_cause(compiled, outcome: Outcome, k: np.ndarray) -> str:  # noqa: AN
     return ("a fold or branch point of the family of solutions is likely nearby (another solution may be close); "
             "trace a constant through this value (bvpkit trace) to see the family, and give a guess to pick a "
             "branch")
-
-
-def _selection_words(selection: str, attempts: list, outcome: Outcome) -> str:
-    """What was chosen, what failed and what took over, in one line."""
-    if not attempts:
-        return selection
-    first = attempts[0].method
-    final = outcome.method or attempts[-1].method
-    if final == first:
-        return selection
-    failed = ", ".join(f"{a.method.replace('_', ' ')} ({a.status})" for a in attempts if a.method != final)
-    return f"{selection}; that failed ({failed}), and {final.replace('_', ' ')} took over"

@@ -37,6 +37,7 @@ from ..status import Status
 from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
+_SETTLED = 1e-10  # a full Newton step below this relative size: the iteration has converged
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 _ROUNDING = float(np.finfo(float).eps)
@@ -89,16 +90,18 @@ def _roundoff_floor(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, part
 def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):  # noqa: ANN202
     """Damped Newton on the collocation equations of one mesh (the iteration of ``solve_bvp``).
 
-    Returns ``(y, p, iterations, parts, lu)`` with ``parts`` the residual pieces at the
-    result and ``lu`` the last Newton matrix factored; raises :class:`SingularMatrix` when a
-    Newton matrix is singular.
+    Returns ``(y, p, iterations, parts, lu, settled)`` with ``parts`` the residual pieces at
+    the result, ``lu`` the last Newton matrix factored and ``settled`` whether the iteration
+    found a solution of these equations (its residual met its target, or its last full step
+    was below ``_SETTLED`` of the states: converged to round-off); raises
+    :class:`SingularMatrix` when a Newton matrix is singular.
     """
     n, m = eq.n, eq.m
     tol_r = 2 / 3 * eq.h * 5e-2 * tol  # interval residuals 1.5 orders below the residual tolerance
     sigma, tau, trials = 0.2, 0.5, 4
     parts = eq.parts(y, p)
     res = np.concatenate([parts[0].T.ravel(), parts[1]])
-    recompute, njev, iteration = True, 0, 0
+    recompute, njev, iteration, settled = True, 0, 0, False
     for iteration in range(1, 9):
         if recompute:
             lu = eq.factor(y, p, parts[3])
@@ -126,16 +129,19 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
         if not np.isfinite(cost_new):
             break  # no step stays in the equations' domain: stop at the last good iterate
         y, p, parts, res = y_new, p_new, parts_new, res_new
-        if njev == 4:
-            break
         col, bc, _, _, fm = parts
         if (np.abs(col) < tol_r * (eq.scale + np.abs(fm))).all() and (np.abs(bc) < tol).all():
+            settled = True
+            break
+        if alpha == 1.0 and np.max(np.abs(y_step) / (1.0 + np.abs(y)), initial=0.0) < _SETTLED:
+            settled = True  # a full step at round-off level: converged as far as double precision goes
+        if njev == 4:
             break
         if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp and BVP_SOLVER do)
             step, cost, recompute = step_new, cost_new, False
         else:
             recompute = True
-    return y, p, iteration, parts, lu
+    return y, p, iteration, parts, lu, settled
 
 
 def _rms_residuals(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts) -> np.ndarray:  # noqa: ANN001
@@ -225,10 +231,17 @@ class Collocation(Method):
             i, j = np.argwhere(~np.isfinite(f0))[0]
             names = c.layout.row_names
             values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
+            if np.isinf(f0[i, j]):
+                # an overflow (exp of a large value) says the guess is far from the solution, not
+                # that it left the domain of log or sqrt
+                why = ("they overflow: the guess is far from the solution; give a better guess, or continue from an "
+                       "easier problem (homotopy)")
+            else:
+                why = Status.NON_FINITE.hint
             return Outcome(
                 Status.NON_FINITE,
-                f"the equations give NaN or inf for the derivative of {names[i]} at {trial.place(x[j])} with the "
-                f"guess ({values}): {Status.NON_FINITE.hint}",
+                f"the equations give {'inf' if np.isinf(f0[i, j]) else 'NaN'} for the derivative of {names[i]} at "
+                f"{trial.place(x[j])} with the guess ({values}): {why}",
                 x,
                 y,
                 p,
@@ -239,6 +252,8 @@ class Collocation(Method):
         tol = max(trial.tol, 1e-13)
         iterations, rms, code, rounds = 0, None, 3, 0
         floor = 0.0  # the largest residual of this round left unrefined at the round-off level
+        unsettled: list[int] = []  # meshes on which Newton did not converge
+        ever_settled, settled = False, True
         while True:  # ends: nodes are added each round until the residual is met or max_nodes is hit
             rounds += 1
             if trial.out_of_time():
@@ -247,11 +262,22 @@ class Collocation(Method):
                                x, y, p, iterations=iterations)
             eq = CollocationEquations(trial.compiled, x, trial.k)
             try:
-                y, p, used, parts, lu = _newton(eq, y, p, tol)
+                y, p, used, parts, lu, settled = _newton(eq, y, p, tol)
             except SingularMatrix:
                 code = 2
                 break
             iterations += used
+            if settled:
+                ever_settled = True
+            else:
+                unsettled.append(x.size)
+                if not ever_settled and trial.patience is not None and len(unsettled) >= trial.patience:
+                    meshes = " and ".join(str(m) for m in unsettled)
+                    return Outcome(
+                        Status.NOT_CONVERGED,
+                        f"Newton's method did not converge on the meshes of {meshes} nodes: the guess is far from a "
+                        "solution, and adding nodes does not bring it closer; " + Status.NOT_CONVERGED.hint,
+                        x, y, p, iterations=iterations)
             if not (np.isfinite(y).all() and np.isfinite(p).all()):
                 return Outcome(Status.NON_FINITE, "Newton's method ran into NaN or inf; " + Status.NON_FINITE.hint,
                                x, y, p, iterations=iterations)
@@ -285,7 +311,7 @@ class Collocation(Method):
                 break
             if rounds >= _ROUNDS:  # the residual is met but the conditions are not: Newton again, within limits
                 break
-        outcome = self._outcome(trial, code, x, y, p, iterations, rms)
+        outcome = self._outcome(trial, code, x, y, p, iterations, rms, settled)
         if code == 0:
             outcome.workspace = _State(eq, parts, lu, floor)  # for the error estimate
             if floor > tol:
@@ -293,10 +319,18 @@ class Collocation(Method):
                                     "misses the tolerance")
         return outcome
 
-    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms) -> Outcome:  # noqa: ANN001
+    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms, settled: bool = True) -> Outcome:  # noqa: ANN001
         status = _STATUS.get(code, Status.NOT_CONVERGED)
         if status is Status.SOLVED:
             message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} on {x.size} nodes"
+        elif status is Status.MESH_LIMIT and not settled:
+            # the residual that drove the refinement is that of an iterate, not of a solution:
+            # no layer can be read from it
+            message = (
+                f"mesh limit reached ({trial.max_nodes} nodes) with Newton's method not converged on the last mesh: "
+                "the guess may be far from a solution, or there may be no solution near it; give a better guess, "
+                "or trace the solution from an easier value of a constant"
+            )
         elif status is Status.MESH_LIMIT:
             message = (
                 f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms, trial.place)} raise "
