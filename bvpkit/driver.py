@@ -224,6 +224,8 @@ def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple
             raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
         recipes[name] = prepared.recipe(name, expression)
     y = _guess.from_recipes(recipes, compiled, t, p, k)
+    if layout.eigenvalue is None and not _defined(compiled, t, y, p, k):
+        y = _inside(prepared, t, y, p, k, chosen, own={n for n, r in recipes.items() if r.kind == "expression"})
     if layout.eigenvalue is not None:
         vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
         if not guess:
@@ -231,6 +233,46 @@ def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple
         p[layout.eigenvalue] = lam
         _guess.fill_integrals(compiled, t, y, p, k)
     return t, y, p
+
+
+def _defined(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> bool:  # noqa: ANN001
+    """Whether the equations and their Jacobian are finite along a guess."""
+    with np.errstate(all="ignore"):
+        return bool(np.isfinite(compiled.rhs(t, y, p, k)).all() and np.isfinite(compiled.jac(t, y, p, k)).all())
+
+
+def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: dict,
+            own: set) -> np.ndarray:
+    """A default guess moved into the domain of the equations (``sqrt``, ``log``, fractional
+    powers of the states), when the conditions allow it: first lifted to the positive side
+    by a bump that leaves every value and slope at the ends as it was (so conditions on them
+    still hold), then the solution of the linearised problem of continuation
+    (:func:`bvpkit.reduce.path_form` at ``s = 0``); the guess as it was when neither is
+    defined everywhere. Functions with a guess of their own are left alone."""
+    compiled = prepared.compiled
+    layout = compiled.layout
+    with np.errstate(all="ignore"):
+        maps = np.asarray(compiled.maps(p, k), float)
+    recipes = prepared.recipes
+    # per function left to the default: is its value fixed by a condition somewhere?
+    free = {name: any(j == 0 for terms in recipes[name].conditions for _, j in terms)
+            for name, _ in layout.functions if name not in own and name in recipes}
+    if not free:
+        return y
+    for size in (0.1, 1.0):
+        lifted = _guess.lifted(y, layout, t, maps, free, size)
+        if _defined(compiled, t, lifted, p, k):
+            return lifted
+    try:
+        from . import homotopy
+
+        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen["tol"], 1e-3),
+                                                     chosen["max_nodes"], False))
+    except Exception:  # noqa: BLE001 - no linearised problem here: the guess as it was
+        return y
+    if linear is not None and _defined(compiled, t, linear, p, k):
+        return linear
+    return y
 
 
 def _as_start(guess: Any) -> _guess.Start:

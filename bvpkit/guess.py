@@ -261,6 +261,35 @@ def from_recipes(recipes: Mapping[str, GuessRecipe], compiled, t: np.ndarray, p:
     return y
 
 
+def lifted(y: np.ndarray, layout, t: np.ndarray, maps: np.ndarray, names: dict, size: float) -> np.ndarray:  # noqa: ANN001
+    """``y`` with the functions ``names`` raised by ``size (1 + max |f|)``: a function whose
+    value is not fixed by any condition (``names[f]`` False) by that constant, the others by
+    that times the bump ``16 s**2 (1 - s)**2`` (``s`` from 0 to 1 over the domain; its
+    derivatives in the derivative states), which leaves the values and slopes at the ends,
+    and so the conditions on them, as they were. A guess at zero moves to the positive side
+    of ``sqrt`` or ``log``."""
+    x = physical(t, maps, layout.stretch)
+    a, b = float(positions(maps)[0]), float(positions(maps)[-1])
+    span = (b - a) or 1.0
+    s = (x - a) / span
+    # the bump and its derivatives in x: 16 (s^2 - 2 s^3 + s^4) / span^j
+    bump = [16 * (s**2 - 2 * s**3 + s**4), 16 * (2 * s - 6 * s**2 + 4 * s**3) / span,
+            16 * (2 - 12 * s + 12 * s**2) / span**2, 16 * (-12 + 24 * s) / span**3, np.full_like(s, 384 / span**4)]
+    out = y.copy()
+    size_of = len(layout.states)
+    for name, fixed in names.items():
+        order = layout.order(name)
+        value_rows = [r * size_of + layout.index(name, 0) for r in range(layout.regions)]
+        height = size * (1.0 + float(np.max(np.abs(y[value_rows]))))
+        if not fixed:
+            out[value_rows] += height
+            continue
+        for j in range(min(order, len(bump))):
+            for r in range(layout.regions):
+                out[r * size_of + layout.index(name, j)] += height * bump[j][r]
+    return out
+
+
 def fill_integrals(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> None:  # noqa: ANN001
     """Set the added states to the running integrals of their integrands (in place), carried
     on from region to region."""

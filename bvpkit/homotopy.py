@@ -208,6 +208,25 @@ def _anchors(system, trial: Trial, k: np.ndarray) -> np.ndarray | None:  # noqa:
     return None
 
 
+def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
+    """The solution of the problem with its nonlinear terms linearised about a constant state
+    (the path form at ``s = 0``) on ``trial``'s mesh, or None: a start inside the domain of
+    the equations when the default guess is not."""
+    from .methods.collocation import Collocation
+
+    system = _system(prepared)
+    anchor = _anchors(system, trial, trial.k)
+    if anchor is None:
+        return None
+    k = np.concatenate([trial.k, [0.0, 1.0], anchor])
+    result = Collocation().solve(dataclasses.replace(trial, compiled=system, k=k, verify=False))
+    if not result.ok:
+        return None
+    from .diagnostics import hermite
+
+    return hermite(system, result.x, result.y, result.p, k)(trial.x)
+
+
 # -- following a path ----------------------------------------------------------------------
 def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, int]:  # noqa: ANN001
     """Follow ``path`` to the user's problem and solve it from there.

@@ -240,7 +240,7 @@ class Collocation(Method):
                 why = Status.NON_FINITE.hint
             return Outcome(
                 Status.NON_FINITE,
-                f"the equations give {'inf' if np.isinf(f0[i, j]) else 'NaN'} for the derivative of {names[i]} at "
+                f"the equations give NaN or inf ({'an overflow' if np.isinf(f0[i, j]) else 'NaN'}) for the derivative of {names[i]} at "
                 f"{trial.place(x[j])} with the guess ({values}): {why}",
                 x,
                 y,
