@@ -47,6 +47,9 @@ _ROUNDING = float(np.finfo(float).eps)
 #: Jacobian) is more than the problem's fast modes explain: thin layers of the test set
 #: (benchmarks/testset.py) stay below 50 times, y'' + pi^2 y = 0 at its eigenvalue is 1e7 times.
 _NEAR_SINGULAR = 1e3
+#: Round-off times the stability constant up to this is an accuracy worth reporting as reached
+#: (precision_limit); above, the problem is too ill-conditioned for any answer (error_too_large).
+_MEANINGFUL = 1e-3
 
 
 def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, Any]:
@@ -418,7 +421,8 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         )
     verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
     condition = None
-    if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all():
+    if (verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE, Status.PRECISION_LIMIT)
+            and np.isfinite(outcome.y).all()):
         condition = outcome.condition if outcome.condition is not None else condition_estimate(
             compiled, outcome.x, outcome.y, outcome.p, k)
     if condition is not None and math.isfinite(estimate):
@@ -428,6 +432,21 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
     # The last guards: success never comes with non-finite values or an estimate above tol.
     if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
+    attainable = condition * _ROUNDING if condition is not None and math.isfinite(condition) else math.inf
+    if (status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9)
+            and attainable <= _MEANINGFUL and estimate <= attainable * (1 + 1e-9)):
+        # the method met the tolerance; round-off times the stability constant alone does not
+        status = Status.PRECISION_LIMIT
+        message = (
+            f"tolerance below what double precision allows here: the method converged and its own estimate meets "
+            f"the tolerance, but round-off alone, amplified by the stability constant {condition:.2g}, can change the "
+            f"solution by about {attainable:.2g}, the accuracy reached, against the tolerance {tol:.2g}; "
+            + Status.PRECISION_LIMIT.hint
+        )
+    if (status is Status.PRECISION_LIMIT and discretisation is not None and math.isfinite(attainable)
+            and attainable > discretisation):
+        message += (f"; round-off amplified by the stability constant {condition:.2g} bounds the accuracy at about "
+                    f"{attainable:.2g}, the error estimate given")
     if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
         status = Status.ERROR_TOO_LARGE
         message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"

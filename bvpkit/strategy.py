@@ -216,8 +216,8 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
         if outcome is None or _better(result, outcome):
             outcome = result
         if auto and _hopeless(result, trial):
-            ended = ("the problem is ill-conditioned beyond what double precision can resolve, so no other method "
-                     "was tried")
+            ended = ("double precision bounds the accuracy here (round-off times the stability constant), so no "
+                     "other method was tried")
             break
         if context.deadline is not None and time.perf_counter() > context.deadline:
             ended = "the time budget of the solve was spent"
@@ -255,6 +255,8 @@ def _continue(outcome: Outcome | None, trial: Trial) -> bool:
 def _hopeless(result: Outcome, trial: Trial) -> bool:
     """A converged solution whose error is bounded below by round-off times the stability
     constant, above the tolerance: no method in double precision can do better."""
+    if result.status is Status.PRECISION_LIMIT:
+        return True
     condition = result.condition
     return (result.status is Status.ERROR_TOO_LARGE and condition is not None and math.isfinite(condition)
             and condition * _ROUNDING > trial.tol)
