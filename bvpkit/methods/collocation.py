@@ -38,7 +38,7 @@ from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _SETTLED = 1e-10
-_EVEN = 10.0  # a largest residual within this factor of the median one marks no place (no layer)  # a full Newton step below this relative size: the iteration has converged
+_EVEN = 10.0  # a residual (or a mesh step) within this factor of the median marks no place (no layer)  # a full Newton step below this relative size: the iteration has converged
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 _ROUNDING = float(np.finfo(float).eps)
@@ -56,10 +56,14 @@ def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN0
     if rms is None or rms.size != x.size - 1 or not np.any(np.isfinite(rms)):
         return ""
     i = int(np.nanargmax(rms))
-    if rms[i] <= _EVEN * np.nanmedian(rms):
-        return (" the residual is about the same size everywhere (no layer): this tolerance needs more nodes than the "
-                "limit with a method of order 4;")
-    return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
+    if rms[i] > _EVEN * np.nanmedian(rms):
+        return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
+    h = np.diff(x)
+    j = int(np.argmin(h))
+    if h[j] < np.median(h) / _EVEN:  # the refinement evened the residual out by crowding nodes there
+        return f" the mesh is finest near {place(0.5 * (x[j] + x[j + 1]))} (a thin layer or steep front?);"
+    return (" the residual is about the same size everywhere on an even mesh (no layer): this tolerance needs more "
+            "nodes than the limit with a method of order 4;")
 
 
 @dataclass
