@@ -53,7 +53,8 @@ _MIN_FRACTION = 1.0 / 128
 _SHORT = 1.0
 #: The probe for a value without a solution traces each constant from this fraction of its value.
 _PROBE_FROM = 0.1
-_PROBE_POINTS = 40
+_PROBE_POINTS = 30
+_TRACE_SOLVES = 10  # a solve inside a trace gets this part of the time left
 #: A step of a path gives up after Newton fails on this many meshes (a shorter step follows).
 _PATIENCE = 2
 _PROBES = 3  # constants probed at most
@@ -279,8 +280,13 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, int]:  # noqa: 
         if step < _MIN_FRACTION:
             turned = _around(prepared, path, trial, system, at, value)
             if turned is None:
-                return _stopped(trial, f"the path stopped at {_shown(path, value)}: no solution was found a little "
-                                       "further, and none around a turn"), count
+                # the last step's own failure says most (a layer the mesh limit cannot resolve)
+                stopped = _stopped(trial, f"the path stopped at {_shown(path, value)}: shorter and shorter steps "
+                                          f"beyond it failed, and no way round a turn was found; the last step: "
+                                          f"{result.message}")
+                if result.status is Status.MESH_LIMIT:
+                    stopped.status = Status.MESH_LIMIT
+                return stopped, count
             last, value = turned, path.stop
             break
     final = method.solve(dataclasses.replace(trial, x=last.x, y=last.y, p=last.p, patience=None))
@@ -355,8 +361,8 @@ def _around(prepared, path: Path, trial: Trial, system, at, value: float) -> Out
 def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001, ANN202
     """``prepared`` (or its path form) as a prepared problem ``trace`` can take: continuation
     inside it switched off, each solve bounded by what is left of the budget."""
-    left = max(0.5, (trial.deadline - time.perf_counter()) if trial.deadline is not None else 5.0)
-    settings = {"homotopy": "off", "time_limit": left, "method": "collocation"}
+    left = max(0.1, (trial.deadline - time.perf_counter()) if trial.deadline is not None else 5.0)
+    settings = {"homotopy": "off", "time_limit": max(0.1, left / _TRACE_SOLVES), "method": "collocation"}
     facts_ = {**prepared.facts, "settings": settings, "outputs": {}}
     if not path.own:
         return dataclasses.replace(prepared, facts=facts_)

@@ -98,6 +98,9 @@ _WEIGHTS = {"first": 4.0, CONTINUATION: 3.0, "fallback": 2.0}
 #: continuation: one coarse first mesh often fails and the next succeeds (viscous shocks,
 #: Bratu near its fold, in the test set); two in a row did not recover there.
 _PATIENCE = 2
+#: Past its share, a method still finishes the step it is in (it checks between steps); the
+#: system stops it after this much more (seconds, or this part of the share if longer).
+_GRACE, _GRACE_SHARE = 0.5, 0.25
 # Failures that continuation from an easier problem can cure: Newton found no solution.
 _NEWTON_FAILED = (Status.NOT_CONVERGED, Status.MESH_LIMIT, Status.SINGULAR, Status.NON_FINITE)
 
@@ -185,6 +188,10 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
         start = time.perf_counter()
         share = _deadline(steps[i:], context.deadline, start)
         attempt_trial = dataclasses.replace(trial, deadline=share)
+        if share is not None:
+            # methods stop between their steps past the share; the system itself stops a step
+            # that runs far past it (one initial-value integration once took 9 s)
+            attempt_trial.compiled = _Timed(trial.compiled, share + max(_GRACE, _GRACE_SHARE * (share - start)))
         if auto and not step.continuation and i == 0 and _has_continuation(steps[i + 1:]):
             attempt_trial.patience = _PATIENCE if _nonlinear(trial) else None
         if step.continuation:
@@ -229,6 +236,41 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
         if diagnosis:
             outcome.message = f"{diagnosis} (what was seen: {outcome.message})"
     return outcome, attempts, _selection(chosen, attempts, ended)
+
+
+class TimeUp(RuntimeError):
+    """An attempt ran past its share of the time budget (raised inside the system's callables;
+    a method turns it into a failed outcome that says so)."""
+
+    def __init__(self) -> None:
+        super().__init__("the time budget of this attempt is spent")
+
+
+class _Timed:
+    """The compiled system of an attempt, checking the attempt's hard deadline at each call of
+    the right-hand side and its Jacobian (everything else is the system's own)."""
+
+    def __init__(self, base, deadline: float):  # noqa: ANN001
+        self._base, self._deadline = base, deadline
+
+    def __getattr__(self, name: str):  # noqa: ANN204
+        return getattr(self._base, name)
+
+    def _check(self) -> None:
+        if time.perf_counter() > self._deadline:
+            raise TimeUp
+
+    def rhs(self, x, y, p, k):  # noqa: ANN001, ANN201
+        self._check()
+        return self._base.rhs(x, y, p, k)
+
+    def slopes(self, x, y, p, k):  # noqa: ANN001, ANN201
+        self._check()
+        return self._base.rhs(x, y, p, k)
+
+    def jac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        self._check()
+        return self._base.jac(x, y, p, k)
 
 
 def _deadline(steps: list[Step], deadline: float | None, now: float) -> float | None:
@@ -291,7 +333,7 @@ def _follow(context: Context, trial: Trial, step: Step, paths: list) -> tuple[Ou
     from . import homotopy
 
     tried = []
-    result = None
+    failed = None
     for path in paths:
         if trial.out_of_time():
             break
@@ -300,11 +342,17 @@ def _follow(context: Context, trial: Trial, step: Step, paths: list) -> tuple[Ou
         if result.ok:
             result.message = f"continued from an easier problem ({path.words}, {count} solves): {result.message}"
             return result, f"{step.reason}: {path.words}"
-        tried.append(f"{path.words}: {result.message}")
-    assert result is not None or not tried
+        words = f"{path.words}: {result.message}"
+        if failed is None or _better(result, failed):  # the furthest failure's words first
+            failed = result
+            tried.insert(0, words)
+        else:
+            tried.append(words)
     message = "continuation failed: " + "; ".join(tried) if tried else "continuation ran out of time"
-    failed = result if result is not None else _no_path(trial, message)
+    failed = failed if failed is not None else _no_path(trial, message)
     failed.status = Status.NOT_CONVERGED if failed.ok else failed.status
+    if failed.status is Status.MESH_LIMIT:  # a layer stopped it: the mesh limit's own words lead
+        message = f"mesh limit reached on the way: {message}"
     failed.message = message
     failed.method = "collocation"
     return failed, f"{step.reason}: " + ", then ".join(p.words for p in paths)
