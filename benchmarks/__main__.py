@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import sys
 
-from . import collocation, continuation, scale, shooting, startup, sweeps
+from . import collocation, continuation, robust, scale, shooting, startup, sweeps
 from .harness import record
 
-SUITES = [*collocation.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
+SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
 
 
 def main(argv: list[str]) -> None:
