@@ -43,10 +43,11 @@ _OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation", "homotopy", "t
 #: Unit round-off of double precision: the stability constant times it is the smallest error
 #: any method can promise.
 _ROUNDING = float(np.finfo(float).eps)
-#: A stability constant this many times ``1 + stiffness`` (``|eigenvalue| x length`` of the
-#: Jacobian) is more than the problem's fast modes explain: thin layers of the test set
+#: A stability constant (over the solution's size) this many times ``1 + |eigenvalue| x length``
+#: of the Jacobian is more than the problem's fast modes explain: the layers of the test set
 #: (benchmarks/testset.py) stay below 50 times, y'' + pi^2 y = 0 at its eigenvalue is 1e7 times.
 _NEAR_SINGULAR = 1e3
+_SAMPLES = 21  # points where the Jacobian's eigenvalues are read for that comparison
 #: Round-off times the stability constant up to this is an accuracy worth reporting as reached
 #: (precision_limit); above, the problem is too ill-conditioned for any answer (error_too_large).
 _MEANINGFUL = 1e-3
@@ -498,23 +499,36 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
 def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float, tol: float) -> str:  # noqa: ANN001
     """Why a converged solution that meets the tolerance is still a warning ('' when it is not).
 
-    The stability constant ``K`` bounds how far a change of the equations moves the solution.
-    Two conditions together: ``K tol > 1`` (a change of the equations within the tolerance
-    asked could move the solution by more than its own size, so the tolerance no longer pins
-    it down), and ``K`` far above what the problem's own fast modes explain (``_NEAR_SINGULAR``
-    times ``1 + |eigenvalue| x length`` of the Jacobian, the stiffness: a thin layer of width
-    ``eps`` has ``K ~ 1/eps`` and is well posed). Both hold near a singular linearised problem:
-    a homogeneous problem at an eigenvalue, a resonance, a fold or branch point.
+    The stability constant ``K`` bounds how far a change of the equations moves the solution;
+    against the solution's size ``Y = 1 + max |y|`` (the tolerance is relative) it reads
+    ``K / Y``. Two conditions together: ``K tol / Y > 1`` (a change of the equations within
+    the tolerance asked could move the solution by more than its own size, so the tolerance
+    no longer pins it down), and ``K / Y`` far above what the problem's own fast modes explain
+    (``_NEAR_SINGULAR`` times ``1 + |eigenvalue| x length`` of the Jacobian along the solution:
+    a thin layer of width ``eps`` has ``K ~ 1/eps`` and is well posed). Both hold near a
+    singular linearised problem: a homogeneous problem at an eigenvalue, a resonance, a fold
+    or a branch point.
     """
-    if not (math.isfinite(condition) and condition * tol > 1.0):
+    size = 1.0 + float(np.max(np.abs(outcome.y[compiled.layout.user_rows]), initial=0.0))
+    relative = condition / size
+    if not (math.isfinite(relative) and relative * tol > 1.0):
         return ""
-    from .diagnostics import survey
-
-    stiffness = survey(compiled, outcome.x, outcome.y, outcome.p, k).stiffness
-    if math.isfinite(stiffness) and condition <= _NEAR_SINGULAR * (1.0 + stiffness):
+    if relative <= _NEAR_SINGULAR * (1.0 + _fastest(compiled, outcome, k)):
         return ""
     return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance of "
             f"{tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+
+
+def _fastest(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001
+    """``max |eigenvalue| x length`` of the Jacobian along the solution (oscillating modes
+    count: their eigenvalues are imaginary), sampled at a few points."""
+    x = outcome.x
+    at = np.unique(np.linspace(0, x.size - 1, min(x.size, _SAMPLES)).astype(int))
+    with np.errstate(all="ignore"):
+        jac = np.moveaxis(np.asarray(compiled.jac(x[at], outcome.y[:, at], outcome.p, k)), -1, 0)
+        if not np.isfinite(jac).all():
+            return math.inf
+        return float(np.max(np.abs(np.linalg.eigvals(jac)))) * float(x[-1] - x[0])
 
 
 def _likely_cause(compiled, outcome: Outcome, k: np.ndarray) -> str:  # noqa: ANN001
