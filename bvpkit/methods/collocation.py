@@ -38,7 +38,8 @@ from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _SETTLED = 1e-10
-_EVEN = 10.0  # a residual (or a mesh step) within this factor of the median marks no place (no layer)  # a full Newton step below this relative size: the iteration has converged
+_EVEN = 10.0  # a residual (or a mesh step) within this factor of the median marks no place (no layer)
+_NEAR_TOL = 100.0  # ... when the residual is within this factor of the tolerance (a converging mesh)  # a full Newton step below this relative size: the iteration has converged
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 _ROUNDING = float(np.finfo(float).eps)
@@ -51,19 +52,18 @@ _ROUNDING = float(np.finfo(float).eps)
 _ROUNDOFF_WEIGHT = 1.5
 
 
-def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN001
-    """Where the residual is worst, as words (a thin layer or steep front shows up there)."""
+def _trouble(x: np.ndarray, rms: np.ndarray | None, place, tol: float) -> str:  # noqa: ANN001
+    """Where the residual is worst, as words (a thin layer or steep front shows up there); a
+    residual close to the tolerance and even over an even mesh is no layer, but a tolerance
+    that needs more nodes everywhere."""
     if rms is None or rms.size != x.size - 1 or not np.any(np.isfinite(rms)):
         return ""
     i = int(np.nanargmax(rms))
-    if rms[i] > _EVEN * np.nanmedian(rms):
-        return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
     h = np.diff(x)
-    j = int(np.argmin(h))
-    if h[j] < np.median(h) / _EVEN:  # the refinement evened the residual out by crowding nodes there
-        return f" the mesh is finest near {place(0.5 * (x[j] + x[j + 1]))} (a thin layer or steep front?);"
-    return (" the residual is about the same size everywhere on an even mesh (no layer): this tolerance needs more "
-            "nodes than the limit with a method of order 4;")
+    if rms[i] <= _NEAR_TOL * tol and rms[i] <= _EVEN * np.nanmedian(rms) and h.min() >= np.median(h) / _EVEN:
+        return (" the residual is close to the tolerance and about the same size everywhere on an even mesh (no "
+                "layer): this tolerance needs more nodes than the limit with a method of order 4;")
+    return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
 
 
 @dataclass
@@ -341,7 +341,7 @@ class Collocation(Method):
             )
         elif status is Status.MESH_LIMIT:
             message = (
-                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms, trial.place)} raise "
+                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms, trial.place, trial.tol)} raise "
                 "max_nodes, loosen tol or give a better guess"
             )
         elif status is Status.SINGULAR:
