@@ -260,3 +260,24 @@ def test_auto_claims_no_false_success_on_test_set_instances(name, tol):
         true = float(np.max(np.abs(sol.evaluate(inst.unknown, at=x) - exact) / (1 + np.abs(exact))))
         assert true <= 10 * tol, (sol.message, true)
         assert true <= 10 * sol.diagnostics.error_estimate + 1e-13, (sol.message, true)
+
+
+# -- the paths of continuation, one by one -------------------------------------------------------
+@pytest.mark.parametrize("which", ["_homotopy", "_reach"])
+def test_each_path_reaches_blasius_on_a_finite_domain(which):
+    from bvpkit import driver, homotopy
+    from bvpkit.methods.base import Trial
+
+    problem = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(12) = 1"], (0, 12))
+    prepared = bvpkit.prepare(problem)
+    chosen = driver.options({}, {"tol": 1e-8})
+    k = prepared.k()
+    t, y, p = driver._start(prepared, k, None, chosen)
+    trial = Trial(prepared.compiled, t, y, p, k, 1e-8, 20_000, True)
+    paths = {path.name: path for path in homotopy.paths(prepared, None, trial)}
+    assert set(paths) == {"_homotopy", "_reach"}  # nonlinear, and a far-field condition f'(12) = 1
+    assert paths["_reach"].start == pytest.approx(1 / 12)  # from a domain of unit length
+    outcome, count = homotopy.follow(prepared, paths[which], trial)
+    assert outcome.ok and count >= 3, outcome.message
+    sol = driver.settle(prepared, k, outcome, [], "", 0.0, 1e-8)
+    assert sol.evaluate("f''(0)") == pytest.approx(0.3320573362, abs=2e-9)  # Boyd 1999, as above
