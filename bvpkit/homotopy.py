@@ -229,11 +229,12 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
 
 
 # -- following a path ----------------------------------------------------------------------
-def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, int]:  # noqa: ANN001
+def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: ANN001
     """Follow ``path`` to the user's problem and solve it from there.
 
     Returns the outcome of the final solve (collocation at ``trial.tol``, with its estimate;
-    a failure says where the path stopped) and the number of problems solved on the way.
+    a failure says where the path stopped) and how it got there, in words (the problems
+    solved on the way, a turn taken by pseudo-arclength).
     """
     from .methods.collocation import Collocation
 
@@ -242,7 +243,7 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, int]:  # noqa: 
         system = _system(prepared)
         anchor = _anchors(system, trial, trial.k)
         if anchor is None:
-            return _stopped(trial, "the linearised problem is not defined at any constant state tried"), 0
+            return _stopped(trial, "the linearised problem is not defined at any constant state tried"), "no solve"
         index = len(trial.k) + (0 if path.name == "_homotopy" else 1)
         base = np.concatenate([trial.k, [1.0, 1.0], anchor])
     else:
@@ -262,12 +263,12 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, int]:  # noqa: 
     guess = _fresh(prepared, system, trial, at(path.start))
     first = solve(path.start, *guess)
     if not first.ok:
-        return _stopped(trial, f"the easiest problem of the path ({path.words}) did not solve: {first.message}"), 1
-    value, last, previous, count = path.start, first, None, 1
+        return _stopped(trial, f"the easiest problem of the path ({path.words}) did not solve: {first.message}"), "1 solve"
+    value, last, previous, count, around = path.start, first, None, 1, ""
     step = _FIRST_FRACTION
     while value != path.stop:
         if trial.out_of_time():
-            return _stopped(trial, f"the time budget ran out at {_shown(path, value)}"), count
+            return _stopped(trial, f"the time budget ran out at {_shown(path, value)}"), f"{count} solves"
         target = _advance(path, value, step)
         x, y, p = _predict(system, last, previous, value, target, path, at)
         result = solve(target, x, y, p)
@@ -286,11 +287,11 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, int]:  # noqa: 
                                           f"{result.message}")
                 if result.status is Status.MESH_LIMIT:
                     stopped.status = Status.MESH_LIMIT
-                return stopped, count
-            last, value = turned, path.stop
+                return stopped, f"{count} solves"
+            last, value, around = turned, path.stop, f", then around a turn at {_shown(path, value)} by pseudo-arclength"
             break
     final = method.solve(dataclasses.replace(trial, x=last.x, y=last.y, p=last.p, patience=None))
-    return final, count + 1
+    return final, f"{count + 1} solves{around}"
 
 
 def _fresh(prepared, system, trial: Trial, k: np.ndarray):  # noqa: ANN001, ANN202

@@ -337,10 +337,10 @@ def _follow(context: Context, trial: Trial, step: Step, paths: list) -> tuple[Ou
     for path in paths:
         if trial.out_of_time():
             break
-        result, count = homotopy.follow(context.prepared, path, trial)
+        result, how = homotopy.follow(context.prepared, path, trial)
         result.method = result.method or "collocation"
         if result.ok:
-            result.message = f"continued from an easier problem ({path.words}, {count} solves): {result.message}"
+            result.message = f"continued from an easier problem ({path.words}, {how}): {result.message}"
             return result, f"{step.reason}: {path.words}"
         words = f"{path.words}: {result.message}"
         if failed is None or _better(result, failed):  # the furthest failure's words first

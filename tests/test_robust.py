@@ -277,7 +277,29 @@ def test_each_path_reaches_blasius_on_a_finite_domain(which):
     paths = {path.name: path for path in homotopy.paths(prepared, None, trial)}
     assert set(paths) == {"_homotopy", "_reach"}  # nonlinear, and a far-field condition f'(12) = 1
     assert paths["_reach"].start == pytest.approx(1 / 12)  # from a domain of unit length
-    outcome, count = homotopy.follow(prepared, paths[which], trial)
-    assert outcome.ok and count >= 3, outcome.message
+    outcome, how = homotopy.follow(prepared, paths[which], trial)
+    assert outcome.ok and int(how.split()[0]) >= 3, outcome.message
     sol = driver.settle(prepared, k, outcome, [], "", 0.0, 1e-8)
     assert sol.evaluate("f''(0)") == pytest.approx(0.3320573362, abs=2e-9)  # Boyd 1999, as above
+
+
+def test_a_named_path_that_turns_twice_is_followed_around_its_folds():
+    # y'' + lam exp(y/(1 + y/6)) = 0, y(0) = y(1) = 0: an S-shaped family in lam (ignition near
+    # lam = 4.37, extinction near 1.98, seen by bvpkit.trace); at lam = 6 only the hot branch is
+    # left, so natural steps in lam from 0 stop at the first fold and the trace goes round both
+    p = bvpkit.Problem(["y'' + lam*exp(y/(1 + y/g)) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1),
+                       constants={"lam": 6.0, "g": 6.0})
+    named = bvpkit.solve(p, homotopy="lam", tol=1e-6)
+    assert named.success, named.message
+    assert "around a turn" in named.message
+    hot = named.evaluate("y(1/2)")
+    assert hot > 100  # the hot branch
+    # the same solution by the default path (the nonlinear terms scaled), and the equation met
+    # by the solution's own interpolant (common practice, no source)
+    other = bvpkit.solve(p, tol=1e-6)
+    assert other.success and other.evaluate("y(1/2)") == pytest.approx(hot, rel=1e-5)
+    x = np.linspace(0.05, 0.95, 19)
+    h = 1e-4
+    second = (named.evaluate("y'", at=x + h) - named.evaluate("y'", at=x - h)) / (2 * h)
+    y = named.evaluate("y", at=x)
+    assert np.max(np.abs(second + 6.0 * np.exp(y / (1 + y / 6.0)))) < 1e-3 * np.max(np.abs(second))
