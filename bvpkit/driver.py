@@ -141,8 +141,9 @@ def solve(
         continue in, tried first (from 0.1 down for a small constant of the highest
         derivative, else from 0 to its value).
     time_limit : float, optional
-        Seconds for the whole solve (default 8): each attempt gets a share and stops between
-        two of its steps when it is spent, so a slow method yields to the next.
+        Seconds for the whole solve (default 8 with ``method="auto"``; a method named alone has
+        no limit unless one is given): each attempt gets a share and stops between two of its
+        steps when it is spent, so a slow method yields to the next.
 
     Returns
     -------
@@ -159,7 +160,9 @@ def solve(
                                          "truncation": truncation, "homotopy": homotopy, "time_limit": time_limit})
     _check_homotopy(prepared, chosen["homotopy"])
     start = time.perf_counter()
-    chosen["deadline"] = start + chosen["time_limit"]
+    if chosen["method"] == "auto" or time_limit is not None or "time_limit" in prepared.settings:
+        # the selector's budget; a method named alone runs to its end unless a limit is given
+        chosen["deadline"] = start + chosen["time_limit"]
     _check_guess(prepared, guess)
     if any(prepared.infinite):
         return _solve_infinite(prepared, guess, chosen, start)
