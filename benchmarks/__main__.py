@@ -11,7 +11,8 @@ import sys
 from . import collocation, continuation, robust, scale, shooting, startup, sweeps
 from .harness import record
 
-SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS, *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
+SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS,
+          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
 
 
 def main(argv: list[str]) -> None:

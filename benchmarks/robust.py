@@ -10,7 +10,8 @@ import bvpkit
 from .harness import Contender, race, table
 
 BLASIUS = 0.33205733621519630  # Boyd 1999, SIAM Review, Table 1
-THOMAS_FERMI = -1.588071022611375  # Amore, Boyd and Fernandez 2012 (16 digits; Kobayashi et al. 1955: -1.588071)
+# Amore, Boyd and Fernandez 2012 (16 digits; Kobayashi et al. 1955 give -1.588071)
+THOMAS_FERMI = -1.588071022611375
 
 
 def blasius_default_guess(tol: float = 1e-8, length: float = 12.0) -> str:
@@ -50,10 +51,12 @@ def blasius_default_guess(tol: float = 1e-8, length: float = 12.0) -> str:
         Contender("solve_bvp given f = x - 1 + exp(-x), exact Jacobian", hand(True)),
         Contender("bvpkit auto from its default guess, with error estimate", auto),
         Contender("bvpkit collocation alone from its default guess (fails)",
-                  lambda: bvpkit.solve(p, tol=tol, method="collocation").evaluate("f''(0)", allow_failed=True)),
+                  lambda: bvpkit.solve(p, tol=tol, method="collocation").evaluate("f''(0)",
+                                                                                   allow_failed=True)),
     ]
     race(contenders)
-    return table(f"Blasius on [0, {length:g}] from no guess, tol = {tol:g}", contenders, contenders[0].name, BLASIUS,
+    return table(f"Blasius on [0, {length:g}] from no guess, tol = {tol:g}", contenders, contenders[0].name,
+                 BLASIUS,
                  "Error against Boyd (1999); truncation at 12 costs about 1e-10. The last row shows the "
                  "default guess's failure alone (mesh limit, a reversed-flow iterate).")
 

@@ -94,7 +94,8 @@ def _check_homotopy(prepared: Prepared, homotopy: str) -> None:
             f"{closest(homotopy, prepared.constants)}; give \"auto\", \"off\" or one of its constants"
         )
     if prepared.constants[homotopy] == 0 and prepared.layout.eigenvalue is None:
-        raise OptionError(f"homotopy in '{homotopy}': its value is 0, where a continuation from 0 would start")
+        raise OptionError(f"homotopy in '{homotopy}': its value is 0, where a continuation from 0 would "
+                          "start")
 
 
 def solve(
@@ -157,7 +158,8 @@ def solve(
         raise OptionError(f"solve() takes a bvpkit.Problem, got {type(problem).__name__}")
     prepared = prepare(problem)
     chosen = options(prepared.settings, {"method": method, "tol": tol, "max_nodes": max_nodes, "verify": verify,
-                                         "truncation": truncation, "homotopy": homotopy, "time_limit": time_limit})
+                                         "truncation": truncation, "homotopy": homotopy,
+                                         "time_limit": time_limit})
     _check_homotopy(prepared, chosen["homotopy"])
     start = time.perf_counter()
     if chosen["method"] == "auto" or time_limit is not None or "time_limit" in prepared.settings:
@@ -232,7 +234,8 @@ def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple
         recipes[name] = prepared.recipe(name, expression)
     y = _guess.from_recipes(recipes, compiled, t, p, k)
     if layout.eigenvalue is None and not _defined(compiled, t, y, p, k):
-        y = _inside(prepared, t, y, p, k, chosen, own={n for n, r in recipes.items() if r.kind == "expression"})
+        own = {n for n, r in recipes.items() if r.kind == "expression"}
+        y = _inside(prepared, t, y, p, k, chosen, own=own)
     if layout.eigenvalue is not None:
         vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
         if not guess:
@@ -245,7 +248,8 @@ def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple
 def _defined(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> bool:  # noqa: ANN001
     """Whether the equations and their Jacobian are finite along a guess."""
     with np.errstate(all="ignore"):
-        return bool(np.isfinite(compiled.rhs(t, y, p, k)).all() and np.isfinite(compiled.jac(t, y, p, k)).all())
+        return bool(np.isfinite(compiled.rhs(t, y, p, k)).all()
+                    and np.isfinite(compiled.jac(t, y, p, k)).all())
 
 
 def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: dict,
@@ -354,7 +358,8 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
     if outcome.ok:
         outcome.status = Status.TRUNCATION
         outcome.message = (
-            f"the solution still changed by {change:.2g} when infinity was moved out to {length / growth:.4g}; "
+            f"the solution still changed by {change:.2g} when infinity was moved out to "
+            f"{length / growth:.4g}; "
             + Status.TRUNCATION.hint
         )
         return settle(prepared, _k_at(prepared, length / growth), outcome, attempts, selection, elapsed, tol,
@@ -437,20 +442,21 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
     if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
     attainable = condition * _ROUNDING if condition is not None and math.isfinite(condition) else math.inf
-    if (status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9)
-            and attainable <= _MEANINGFUL and estimate <= attainable * (1 + 1e-9)):
+    missed = (status is Status.SOLVED and tol is not None and math.isfinite(estimate)
+              and estimate > tol * (1 + 1e-9))
+    if missed and attainable <= _MEANINGFUL and estimate <= attainable * (1 + 1e-9):
         # the method met the tolerance; round-off times the stability constant alone does not
         status = Status.PRECISION_LIMIT
         message = (
-            f"tolerance below what double precision allows here: the method converged and its own estimate meets "
-            f"the tolerance, but round-off alone, amplified by the stability constant {condition:.2g}, can change the "
-            f"solution by about {attainable:.2g}, the accuracy reached, against the tolerance {tol:.2g}; "
-            + Status.PRECISION_LIMIT.hint
+            "tolerance below what double precision allows here: the method converged and its own estimate "
+            "meets the tolerance, but round-off alone, amplified by the stability constant "
+            f"{condition:.2g}, can change the solution by about {attainable:.2g}, the accuracy reached, "
+            f"against the tolerance {tol:.2g}; " + Status.PRECISION_LIMIT.hint
         )
     if (status is Status.PRECISION_LIMIT and discretisation is not None and math.isfinite(attainable)
             and attainable > discretisation):
-        message += (f"; round-off amplified by the stability constant {condition:.2g} bounds the accuracy at about "
-                    f"{attainable:.2g}, the error estimate given")
+        message += (f"; round-off amplified by the stability constant {condition:.2g} bounds the accuracy at "
+                    f"about {attainable:.2g}, the error estimate given")
     if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
         status = Status.ERROR_TOO_LARGE
         message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
@@ -499,7 +505,8 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
                     diagnostics, outcome.parameter_errors, reference, previous)
 
 
-def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float, tol: float) -> str:  # noqa: ANN001
+def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float,  # noqa: ANN001
+                     tol: float) -> str:
     """Why a converged solution that meets the tolerance is still a warning ('' when it is not).
 
     The stability constant ``K`` bounds how far a change of the equations moves the solution;
@@ -518,8 +525,8 @@ def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float
         return ""
     if relative <= _NEAR_SINGULAR * (1.0 + _fastest(compiled, outcome, k)):
         return ""
-    return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance of "
-            f"{tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+    return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance "
+            f"of {tol:.2g}): {_likely_cause(compiled, outcome, k)}")
 
 
 def _fastest(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001
@@ -549,13 +556,13 @@ def _likely_cause(compiled, outcome: Outcome, k: np.ndarray) -> str:  # noqa: AN
     if homogeneous and linear:
         which = "the zero solution was found" if size < 1e-8 else "a solution was found"
         return (f"the problem is homogeneous (zero conditions and no forcing) and {which}, but a non-zero "
-                "solution, and any multiple of it, very likely solves it too (an eigenvalue of the problem is at or "
-                "next to these constants); add a normalisation (a condition such as y'(0) = 1), or state it as an "
-                "eigenvalue problem")
+                "solution, and any multiple of it, very likely solves it too (an eigenvalue of the problem "
+                "is at or next to these constants); add a normalisation (a condition such as y'(0) = 1), or "
+                "state it as an eigenvalue problem")
     if linear:
-        return ("the problem is linear and close to a resonance (its homogeneous version has a non-zero solution "
-                "for nearby values of the constants), so the answer is very sensitive to the constants; check them, "
-                "and trace one (bvpkit trace) to see the sensitivity")
-    return ("a fold or branch point of the family of solutions is likely nearby (another solution may be close); "
-            "trace a constant through this value (bvpkit trace) to see the family, and give a guess to pick a "
-            "branch")
+        return ("the problem is linear and close to a resonance (its homogeneous version has a non-zero "
+                "solution for nearby values of the constants), so the answer is very sensitive to the "
+                "constants; check them, and trace one (bvpkit trace) to see the sensitivity")
+    return ("a fold or branch point of the family of solutions is likely nearby (another solution may be "
+            "close); trace a constant through this value (bvpkit trace) to see the family, and give a guess "
+            "to pick a branch")

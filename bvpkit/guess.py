@@ -261,7 +261,8 @@ def from_recipes(recipes: Mapping[str, GuessRecipe], compiled, t: np.ndarray, p:
     return y
 
 
-def lifted(y: np.ndarray, layout, t: np.ndarray, maps: np.ndarray, names: dict, size: float) -> np.ndarray:  # noqa: ANN001
+def lifted(y: np.ndarray, layout, t: np.ndarray, maps: np.ndarray, names: dict,  # noqa: ANN001
+           size: float) -> np.ndarray:
     """``y`` with the functions ``names`` raised by ``size (1 + max |f|)``: a function whose
     value is not fixed by any condition (``names[f]`` False) by that constant, the others by
     that times the bump ``16 s**2 (1 - s)**2`` (``s`` from 0 to 1 over the domain; its
@@ -274,7 +275,8 @@ def lifted(y: np.ndarray, layout, t: np.ndarray, maps: np.ndarray, names: dict, 
     s = (x - a) / span
     # the bump and its derivatives in x: 16 (s^2 - 2 s^3 + s^4) / span^j
     bump = [16 * (s**2 - 2 * s**3 + s**4), 16 * (2 * s - 6 * s**2 + 4 * s**3) / span,
-            16 * (2 - 12 * s + 12 * s**2) / span**2, 16 * (-12 + 24 * s) / span**3, np.full_like(s, 384 / span**4)]
+            16 * (2 - 12 * s + 12 * s**2) / span**2, 16 * (-12 + 24 * s) / span**3,
+            np.full_like(s, 384 / span**4)]
     out = y.copy()
     size_of = len(layout.states)
     for name, fixed in names.items():
@@ -418,7 +420,8 @@ class Start:
         return self.compiled.layout
 
 
-def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray, hold: bool = False) -> np.ndarray:  # noqa: ANN001
+def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
+            hold: bool = False) -> np.ndarray:
     """The states of a previous solution (or :class:`Start`) on the standard mesh ``t`` of a
     problem with the same layout but other constants (other region maps).
 

@@ -155,7 +155,8 @@ def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN
         return [Path(named, 0.0, value, False, f"{named} continued from 0 to {value:g}")]
     result = [_small_path(name, value) for name, value in found.small.items()]
     if found.nonlinear and trial.compiled.layout.eigenvalue is None:
-        result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled by s from 0 to 1", own=True))
+        result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled by s from 0 to 1",
+                           own=True))
     if found.far_field and found.reach:
         length = _length(trial)
         if length > 2 * _SHORT:
@@ -202,7 +203,8 @@ def _anchors(system, trial: Trial, k: np.ndarray) -> np.ndarray | None:  # noqa:
         kk = np.concatenate([k, [0.0, 1.0], anchor])
         with np.errstate(all="ignore"):
             y = np.repeat(anchor[:, None], x.size, axis=1)
-            ok = (np.isfinite(system.rhs(x, y, trial.p, kk)).all() and np.isfinite(system.jac(x, y, trial.p, kk)).all()
+            ok = (np.isfinite(system.rhs(x, y, trial.p, kk)).all()
+                  and np.isfinite(system.jac(x, y, trial.p, kk)).all()
                   and np.isfinite(system.bc(anchor, anchor, trial.p, kk)).all())
         if ok:
             return anchor
@@ -243,7 +245,8 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: 
         system = _system(prepared)
         anchor = _anchors(system, trial, trial.k)
         if anchor is None:
-            return _stopped(trial, "the linearised problem is not defined at any constant state tried"), "no solve"
+            why = "the linearised problem is not defined at any constant state tried"
+            return _stopped(trial, why), "no solve"
         index = len(trial.k) + (0 if path.name == "_homotopy" else 1)
         base = np.concatenate([trial.k, [1.0, 1.0], anchor])
     else:
@@ -257,13 +260,14 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: 
         return k
 
     def solve(value: float, x, y, p, tol: float = _PATH_TOL) -> Outcome:  # noqa: ANN001
-        return method.solve(dataclasses.replace(trial, compiled=system, x=x, y=y, p=p, k=at(value), tol=max(tol, trial.tol),
-                                                verify=False, patience=_PATIENCE))
+        return method.solve(dataclasses.replace(trial, compiled=system, x=x, y=y, p=p, k=at(value),
+                                                tol=max(tol, trial.tol), verify=False, patience=_PATIENCE))
 
     guess = _fresh(prepared, system, trial, at(path.start))
     first = solve(path.start, *guess)
     if not first.ok:
-        return _stopped(trial, f"the easiest problem of the path ({path.words}) did not solve: {first.message}"), "1 solve"
+        why = f"the easiest problem of the path ({path.words}) did not solve: {first.message}"
+        return _stopped(trial, why), "1 solve"
     value, last, previous, count, around = path.start, first, None, 1, ""
     step = _FIRST_FRACTION
     while value != path.stop:
@@ -282,13 +286,14 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: 
             turned = _around(prepared, path, trial, system, at, value)
             if turned is None:
                 # the last step's own failure says most (a layer the mesh limit cannot resolve)
-                stopped = _stopped(trial, f"the path stopped at {_shown(path, value)}: shorter and shorter steps "
-                                          f"beyond it failed, and no way round a turn was found; the last step: "
-                                          f"{result.message}")
+                stopped = _stopped(trial, f"the path stopped at {_shown(path, value)}: shorter and shorter "
+                                          "steps beyond it failed, and no way round a turn was found; the "
+                                          f"last step: {result.message}")
                 if result.status is Status.MESH_LIMIT:
                     stopped.status = Status.MESH_LIMIT
                 return stopped, f"{count} solves"
-            last, value, around = turned, path.stop, f", then around a turn at {_shown(path, value)} by pseudo-arclength"
+            around = f", then around a turn at {_shown(path, value)} by pseudo-arclength"
+            last, value = turned, path.stop
             break
     final = method.solve(dataclasses.replace(trial, x=last.x, y=last.y, p=last.p, patience=None))
     return final, f"{count + 1} solves{around}"
@@ -317,7 +322,8 @@ def _advance(path: Path, value: float, step: float) -> float:
     return path.stop if (target - path.stop) * math.copysign(1.0, path.stop - path.start) >= 0 else target
 
 
-def _predict(system, last: Outcome, previous, value: float, target: float, path: Path, at):  # noqa: ANN001, ANN202
+def _predict(system, last: Outcome, previous, value: float, target: float, path: Path,  # noqa: ANN001, ANN202
+             at):
     """A secant prediction of the solution at ``target`` from the last two, on the last mesh."""
     if previous is None or path.geometric and path.name == "_reach":
         return last.x, last.y, last.p
@@ -349,11 +355,13 @@ def _around(prepared, path: Path, trial: Trial, system, at, value: float) -> Out
 
     traced = _traceable(prepared, path, system, trial, at)
     try:
-        branch = trace(traced, path.name, start=path.start, stop=path.stop, method="collocation", tol=_PATH_TOL,
-                       verify=False, max_points=_PROBE_POINTS)
+        branch = trace(traced, path.name, start=path.start, stop=path.stop, method="collocation",
+                       tol=_PATH_TOL, verify=False, max_points=_PROBE_POINTS)
     except Exception:  # noqa: BLE001 - a trace that cannot run here leaves the path stopped
         return None
-    if not (branch.success and branch.solutions and abs(branch.parameter[-1] - path.stop) <= 1e-9 * max(1.0, abs(path.stop))):
+    slack = 1e-9 * max(1.0, abs(path.stop))
+    reached = bool(branch.solutions) and abs(branch.parameter[-1] - path.stop) <= slack
+    if not (branch.success and reached):
         return None
     view = branch.solutions[-1].interpolant
     return Outcome(Status.SOLVED, "", view.t, view.y, view.p)
@@ -373,8 +381,8 @@ def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001,
                                          if name.startswith("_") and name != "_length"}}
     plain = {"programs": list(system.programs), "pattern": system.jac_pattern.tolist(),
              "sides": system.bc_sides.tolist()}
-    return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain, constants=constants,
-                               quantities={})
+    return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain,
+                               constants=constants, quantities={})
 
 
 def _shown(path: Path, value: float) -> str:
@@ -418,16 +426,16 @@ def no_solution(prepared, trial: Trial) -> str:  # noqa: ANN001
         traced = _traceable(prepared, Path(name, 0.0, value, False, ""), trial.compiled, trial, None)
         start = _PROBE_FROM * value
         try:
-            branch = trace(traced, name, start=start, stop=value, method="collocation", tol=max(trial.tol, 1e-6),
-                           verify=False, max_points=_PROBE_POINTS)
+            branch = trace(traced, name, start=start, stop=value, method="collocation",
+                           tol=max(trial.tol, 1e-6), verify=False, max_points=_PROBE_POINTS)
         except Exception:  # noqa: BLE001 - a probe that cannot run says nothing
             continue
         reached = any(abs(v - value) <= 1e-9 * max(1.0, abs(value)) for v in branch.parameter)
         if branch.folds and not reached:
             fold = branch.folds[0]
             beyond = "above" if value > fold.parameter else "below"
-            return (f"the problem may have no solution for {name} = {value:g}: traced from {name} = {start:g}, the "
-                    f"solutions turn back at a fold at {name} = {fold.parameter:.10g}, and none was found {beyond} "
-                    f"it. See the family with bvpkit trace (parameter {name}, from {start:g} to {value:g}); a "
-                    "solution may exist on another branch, from another guess")
+            return (f"the problem may have no solution for {name} = {value:g}: traced from {name} = "
+                    f"{start:g}, the solutions turn back at a fold at {name} = {fold.parameter:.10g}, and "
+                    f"none was found {beyond} it. See the family with bvpkit trace (parameter {name}, from "
+                    f"{start:g} to {value:g}); a solution may exist on another branch, from another guess")
     return ""

@@ -459,12 +459,12 @@ def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
     if power > _MAX_STRETCH:
         raise ProblemError(
             f"the equations hold powers of {problem.independent} - {a} with exponents that need a stretch "
-            f"{problem.independent} - {a} = xi**{power} (at most {_MAX_STRETCH} is done): write them with simpler "
-            "exponents"
+            f"{problem.independent} - {a} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
+            "simpler exponents"
         )
     xi = sp.Dummy("xi", positive=True)
-    systems[0][:] = [(power * xi ** (power - 1) * f.xreplace({_PHYSICAL: a + xi**power})).xreplace({xi: _PHYSICAL})
-                     for f in systems[0]]
+    stretched = [power * xi ** (power - 1) * f.xreplace({_PHYSICAL: a + xi**power}) for f in systems[0]]
+    systems[0][:] = [f.xreplace({xi: _PHYSICAL}) for f in stretched]
     b = points[-1]
     return power, (sp.Integer(0), b if b in (sp.oo, -sp.oo) else (b - a) ** sp.Rational(1, power))
 

@@ -388,7 +388,8 @@ def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # 
         c, scale = view.maps[region]
         x = c + scale * s ** view.powers[region]
         r = np.full(x.size, region)
-        total += float(np.sum(_running(view, quantity, x, r, values, _function) * w * rate(s, scale, view.powers[region])))
+        dx = w * rate(s, scale, view.powers[region])
+        total += float(np.sum(_running(view, quantity, x, r, values, _function) * dx))
     b = view.ends[1]
     tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[0])
     return total, tail

@@ -127,10 +127,10 @@ def _why(trial: Trial, name: str) -> str:
     if not math.isfinite(facts.stiffness):
         return "the Jacobian is not finite along the guess; the most forgiving start"
     if facts.stiffness >= STIFF:
-        return (f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the solution "
-                "has layers that an adaptive mesh follows")
-    words = (f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length {facts.stiffness:.2g}); "
-             "the fastest robust choice at this size")
+        return (f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the "
+                "solution has layers that an adaptive mesh follows")
+    words = (f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length "
+             f"{facts.stiffness:.2g}); the fastest robust choice at this size")
     if facts.growth > 1e8:
         words = (f"sensitivity grows by {facts.growth:.0e} across the domain, which its global Newton matrix "
                  "takes without integrating (on the test set it was faster than multiple shooting there)")
@@ -155,7 +155,8 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
     named = context.homotopy not in ("auto", "off")
     steps = []
     if named and context.prepared is not None:
-        steps.append(Step(CONTINUATION, f"continuation in {context.homotopy} asked for by name", _WEIGHTS["first"]))
+        steps.append(Step(CONTINUATION, f"continuation in {context.homotopy} asked for by name",
+                          _WEIGHTS["first"]))
     steps.append(Step(first.name, _why(trial, first.name.replace("_", " ")), _WEIGHTS["first"]))
     if context.homotopy == "auto" and context.prepared is not None:
         steps.append(Step(CONTINUATION, f"{first.name.replace('_', ' ')} found no solution from the guess: "
@@ -191,7 +192,8 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
         if share is not None:
             # methods stop between their steps past the share; the system itself stops a step
             # that runs far past it (one initial-value integration once took 9 s)
-            attempt_trial.compiled = _Timed(trial.compiled, share + max(_GRACE, _GRACE_SHARE * (share - start)))
+            hard = share + max(_GRACE, _GRACE_SHARE * (share - start))
+            attempt_trial.compiled = _Timed(trial.compiled, hard)
         if auto and not step.continuation and i == 0 and _has_continuation(steps[i + 1:]):
             attempt_trial.patience = _PATIENCE if _nonlinear(trial) else None
         if step.continuation:
@@ -206,8 +208,8 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
             result = methods.get(step.name).solve(attempt_trial)
             result.method = step.name
         attempts.append(Attempt(method=result.method or step.name, reason=reason, status=result.status.word,
-                                message=result.message, iterations=result.iterations, nodes=int(result.x.size),
-                                seconds=time.perf_counter() - start, domain=domain,
+                                message=result.message, iterations=result.iterations,
+                                nodes=int(result.x.size), seconds=time.perf_counter() - start, domain=domain,
                                 error_estimate=result.error_estimate))
         if result.ok:
             conflict = _disagreement(result, converged, trial)
@@ -223,15 +225,15 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
         if outcome is None or _better(result, outcome):
             outcome = result
         if auto and _hopeless(result, trial):
-            ended = ("double precision bounds the accuracy here (round-off times the stability constant), so no "
-                     "other method was tried")
+            ended = ("double precision bounds the accuracy here (round-off times the stability constant), so "
+                     "no other method was tried")
             break
         if context.deadline is not None and time.perf_counter() > context.deadline:
             ended = "the time budget of the solve was spent"
             break
     assert outcome is not None
-    if (auto and context.prepared is not None and stalled and not converged and outcome.status in _NEWTON_FAILED
-            and _nonlinear(trial) and context.homotopy != "off"):
+    stuck = bool(stalled) and not converged and outcome.status in _NEWTON_FAILED
+    if auto and context.prepared is not None and stuck and context.homotopy != "off" and _nonlinear(trial):
         diagnosis = _no_solution(context, trial)
         if diagnosis:
             outcome.message = f"{diagnosis} (what was seen: {outcome.message})"

@@ -35,11 +35,13 @@ def test_blasius_on_a_finite_domain_from_the_default_guess():
 def test_continuation_can_be_named_from_python_a_spec_and_the_command_line(tmp_path, capsys):
     eps = 1e-4
 
-    def exact(x):  # 1 + eps log cosh((x - 0.745)/eps), written without overflow (Cash test set, problem 20; from memory)
+    # 1 + eps log cosh((x - 0.745)/eps), written without overflow (Cash test set, problem 20; from memory)
+    def exact(x):
         z = np.abs((x - 0.745) / eps)
         return 1 + eps * (z + np.log1p(np.exp(-2 * z)) - math.log(2))
 
-    conditions = ["y(0) = 1.745 + eps*log((1 + exp(-1.49/eps))/2)", "y(1) = 1.255 + eps*log((1 + exp(-0.51/eps))/2)"]
+    conditions = ["y(0) = 1.745 + eps*log((1 + exp(-1.49/eps))/2)",
+                  "y(1) = 1.255 + eps*log((1 + exp(-0.51/eps))/2)"]
     p = bvpkit.Problem(["eps*y'' + y'**2 = 1"], conditions, (0, 1), constants={"eps": eps})
     sol = bvpkit.solve(p, tol=1e-6, homotopy="eps")
     assert sol.success, sol.message
@@ -184,7 +186,8 @@ def test_a_tolerance_below_what_double_precision_allows_is_reported_with_the_acc
     assert 1e-12 < reached < 1e-9
     x = np.linspace(0, 1, 11)
     exact = np.sin(k * x) / math.sin(k)
-    assert np.max(np.abs(sol.evaluate("y", at=x, allow_failed=True) - exact) / (1 + np.abs(exact))) <= 10 * reached
+    true = np.max(np.abs(sol.evaluate("y", at=x, allow_failed=True) - exact) / (1 + np.abs(exact)))
+    assert true <= 10 * reached
     assert [a.method for a in sol.diagnostics.attempts] == ["collocation"]  # no method can do better
 
 
@@ -223,7 +226,8 @@ def test_well_posed_layers_are_not_flagged():
 
 # -- the selector's budget and order -----------------------------------------------------------------
 def test_a_slow_attempt_yields_when_its_share_of_the_budget_is_spent():
-    p = bvpkit.Problem(["eps*y'' - x*y' + y = 0"], ["y(-1) = 1", "y(1) = 2"], (-1, 1), constants={"eps": 1e-2})
+    p = bvpkit.Problem(["eps*y'' - x*y' + y = 0"], ["y(-1) = 1", "y(1) = 2"], (-1, 1),
+                       constants={"eps": 1e-2})
     sol = bvpkit.solve(p, tol=1e-7, method="multiple_shooting", time_limit=0.01)
     assert not sol.success
     assert "time budget" in sol.message
@@ -233,7 +237,8 @@ def test_a_slow_attempt_yields_when_its_share_of_the_budget_is_spent():
 
 def test_collocation_goes_first_and_an_ill_conditioned_convergence_ends_the_search():
     # the twin-layer problem at eps = 1e-2: stability constant ~1e17, so no method can give 1e-7
-    p = bvpkit.Problem(["eps*y'' - x*y' + y = 0"], ["y(-1) = 1", "y(1) = 2"], (-1, 1), constants={"eps": 1e-2})
+    p = bvpkit.Problem(["eps*y'' - x*y' + y = 0"], ["y(-1) = 1", "y(1) = 2"], (-1, 1),
+                       constants={"eps": 1e-2})
     sol = bvpkit.solve(p, tol=1e-7)
     assert not sol.success
     assert [a.method for a in sol.diagnostics.attempts] == ["collocation"]
@@ -252,7 +257,8 @@ def test_auto_claims_no_false_success_on_test_set_instances(name, tol):
     from benchmarks.testset_instances import BY_NAME
 
     inst = BY_NAME[name]
-    p = bvpkit.Problem(list(inst.equations), list(inst.conditions), inst.domain, constants=dict(inst.constants))
+    p = bvpkit.Problem(list(inst.equations), list(inst.conditions), inst.domain,
+                       constants=dict(inst.constants))
     sol = bvpkit.solve(p, tol=tol)
     if sol.success:
         x = np.linspace(*inst.domain, 20001)

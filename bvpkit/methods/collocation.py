@@ -37,9 +37,9 @@ from ..status import Status
 from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
-_SETTLED = 1e-10
+_SETTLED = 1e-10  # a full Newton step below this relative size: the iteration has converged
 _EVEN = 10.0  # a residual (or a mesh step) within this factor of the median marks no place (no layer)
-_NEAR_TOL = 100.0  # ... when the residual is within this factor of the tolerance (a converging mesh)  # a full Newton step below this relative size: the iteration has converged
+_NEAR_TOL = 100.0  # ... when the residual is within this factor of the tolerance (a converging mesh)
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 _ROUNDING = float(np.finfo(float).eps)
@@ -61,8 +61,8 @@ def _trouble(x: np.ndarray, rms: np.ndarray | None, place, tol: float) -> str:  
     i = int(np.nanargmax(rms))
     h = np.diff(x)
     if rms[i] <= _NEAR_TOL * tol and rms[i] <= _EVEN * np.nanmedian(rms) and h.min() >= np.median(h) / _EVEN:
-        return (" the residual is close to the tolerance and about the same size everywhere on an even mesh (no "
-                "layer): this tolerance needs more nodes than the limit with a method of order 4;")
+        return (" the residual is close to the tolerance and about the same size everywhere on an even "
+                "mesh (no layer): this tolerance needs more nodes than the limit with a method of order 4;")
     return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
 
 
@@ -78,7 +78,8 @@ class _State:
     floor: float = 0.0
 
 
-def _roundoff_floor(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts, which: np.ndarray) -> np.ndarray:  # noqa: ANN001
+def _roundoff_floor(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts,  # noqa: ANN001
+                    which: np.ndarray) -> np.ndarray:
     """The smallest relative residual double precision allows on intervals ``which``: about
     ``eps (1.5 (|y_i| + |y_i+1|) / h + |f| + |J| |y|) / (h_r + |f|)`` per row (the rounding of
     the node values differenced over the step, and of the terms of the equations, whose sizes
@@ -210,13 +211,14 @@ class Collocation(Method):
         outcome = super()._solve_and_verify(trial)
         state = outcome.workspace
         floor = state.floor if isinstance(state, _State) else 0.0
-        if floor > trial.tol and outcome.status is Status.ERROR_TOO_LARGE and outcome.error_estimate is not None:
+        missed = outcome.status is Status.ERROR_TOO_LARGE and outcome.error_estimate is not None
+        if floor > trial.tol and missed:
             outcome.status = Status.PRECISION_LIMIT
             outcome.message = (
-                f"tolerance below what double precision allows here: on {outcome.x.size} nodes the residual stops "
-                f"at the round-off level (about {floor:.1g}) and refining would raise it; the accuracy reached is "
-                f"about {outcome.error_estimate:.2g} (estimated error), against the tolerance {trial.tol:.2g}; "
-                + Status.PRECISION_LIMIT.hint
+                f"tolerance below what double precision allows here: on {outcome.x.size} nodes the residual "
+                f"stops at the round-off level (about {floor:.1g}) and refining would raise it; the accuracy "
+                f"reached is about {outcome.error_estimate:.2g} (estimated error), against the tolerance "
+                f"{trial.tol:.2g}; " + Status.PRECISION_LIMIT.hint
             )
         elif floor > trial.tol and outcome.ok:
             outcome.message = outcome.message.replace(
@@ -242,13 +244,14 @@ class Collocation(Method):
             if np.isinf(f0[i, j]):
                 # an overflow (exp of a large value) says the guess is far from the solution, not
                 # that it left the domain of log or sqrt
-                why = ("they overflow: the guess is far from the solution; give a better guess, or continue from an "
-                       "easier problem (homotopy)")
+                why = ("they overflow: the guess is far from the solution; give a better guess, or continue "
+                       "from an easier problem (homotopy)")
             else:
                 why = Status.NON_FINITE.hint
             return Outcome(
                 Status.NON_FINITE,
-                f"the equations give NaN or inf ({'an overflow' if np.isinf(f0[i, j]) else 'NaN'}) for the derivative of {names[i]} at "
+                f"the equations give NaN or inf ({'an overflow' if np.isinf(f0[i, j]) else 'NaN'}) for the "
+                f"derivative of {names[i]} at "
                 f"{trial.place(x[j])} with the guess ({values}): {why}",
                 x,
                 y,
@@ -283,8 +286,9 @@ class Collocation(Method):
                     meshes = " and ".join(str(m) for m in unsettled)
                     return Outcome(
                         Status.NOT_CONVERGED,
-                        f"Newton's method did not converge on the meshes of {meshes} nodes: the guess is far from a "
-                        "solution, and adding nodes does not bring it closer; " + Status.NOT_CONVERGED.hint,
+                        f"Newton's method did not converge on the meshes of {meshes} nodes: the guess is far "
+                        "from a solution, and adding nodes does not bring it closer; "
+                        + Status.NOT_CONVERGED.hint,
                         x, y, p, iterations=iterations)
             if not (np.isfinite(y).all() and np.isfinite(p).all()):
                 return Outcome(Status.NON_FINITE, "Newton's method ran into NaN or inf; " + Status.NON_FINITE.hint,
@@ -327,7 +331,8 @@ class Collocation(Method):
                                     "misses the tolerance")
         return outcome
 
-    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms, settled: bool = True) -> Outcome:  # noqa: ANN001
+    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms,  # noqa: ANN001
+                 settled: bool = True) -> Outcome:
         status = _STATUS.get(code, Status.NOT_CONVERGED)
         if status is Status.SOLVED:
             message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} on {x.size} nodes"
@@ -335,13 +340,14 @@ class Collocation(Method):
             # the residual that drove the refinement is that of an iterate, not of a solution:
             # no layer can be read from it
             message = (
-                f"mesh limit reached ({trial.max_nodes} nodes) with Newton's method not converged on the last mesh: "
-                "the guess may be far from a solution, or there may be no solution near it; give a better guess, "
-                "or trace the solution from an easier value of a constant"
+                f"mesh limit reached ({trial.max_nodes} nodes) with Newton's method not converged on the "
+                "last mesh: the guess may be far from a solution, or there may be no solution near it; give "
+                "a better guess, or trace the solution from an easier value of a constant"
             )
         elif status is Status.MESH_LIMIT:
             message = (
-                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms, trial.place, trial.tol)} raise "
+                f"mesh limit reached ({trial.max_nodes} nodes):"
+                f"{_trouble(x, rms, trial.place, trial.tol)} raise "
                 "max_nodes, loosen tol or give a better guess"
             )
         elif status is Status.SINGULAR:
