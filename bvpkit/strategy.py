@@ -93,7 +93,7 @@ _ROUNDING = float(np.finfo(float).eps)
 #: Shares of the time budget: each step gets ``weight / (sum of the weights of the steps
 #: left)`` of the time left. Collocation first and continuation measured fastest on the test
 #: set (benchmarks/testset.py); shooting is the slow fallback.
-_WEIGHTS = {"first": 4.0, CONTINUATION: 3.0, "fallback": 2.0}
+_WEIGHTS = {"first": 4.0, CONTINUATION: 3.0, "fallback": 2.0, "named": 12.0}  # named: most of it, as asked
 #: Meshes on which Newton may fail from the start before collocation hands over to
 #: continuation: one coarse first mesh often fails and the next succeeds (viscous shocks,
 #: Bratu near its fold, in the test set); two in a row did not recover there.
@@ -156,7 +156,7 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
     steps = []
     if named and context.prepared is not None:
         steps.append(Step(CONTINUATION, f"continuation in {context.homotopy} asked for by name",
-                          _WEIGHTS["first"]))
+                          _WEIGHTS["named"]))
     steps.append(Step(first.name, _why(trial, first.name.replace("_", " ")), _WEIGHTS["first"]))
     if context.homotopy == "auto" and context.prepared is not None:
         steps.append(Step(CONTINUATION, f"{first.name.replace('_', ' ')} found no solution from the guess: "
