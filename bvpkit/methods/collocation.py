@@ -40,6 +40,8 @@ _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _SETTLED = 1e-10  # a full Newton step below this relative size: the iteration has converged
 _EVEN = 10.0  # a residual (or a mesh step) within this factor of the median marks no place (no layer)
 _NEAR_TOL = 100.0  # ... when the residual is within this factor of the tolerance (a converging mesh)
+_CRAWL = 0.01  # a round adding fewer nodes than this part of the mesh adds almost nothing
+_CRAWL_ROUNDS = 3  # such rounds in a row end the refinement
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
 _ROUNDING = float(np.finfo(float).eps)
@@ -76,6 +78,13 @@ class _State:
     parts: tuple
     lu: object
     floor: float = 0.0
+
+
+def _floor_words(rms: np.ndarray | None, tol: float) -> str:
+    """The residual reached, in words."""
+    if rms is None or not np.any(np.isfinite(rms)):
+        return "unknown"
+    return f"{float(np.nanmax(rms)):.1g} at most, against the tolerance {tol:.1g}"
 
 
 def _roundoff_floor(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts,  # noqa: ANN001
@@ -264,6 +273,7 @@ class Collocation(Method):
         iterations, rms, code, rounds = 0, None, 3, 0
         floor = 0.0  # the largest residual of this round left unrefined at the round-off level
         unsettled: list[int] = []  # meshes on which Newton did not converge
+        crawl = 0  # rounds in a row that added almost no nodes beside intervals at the round-off floor
         ever_settled, settled = False, True
         while True:  # ends: nodes are added each round until the residual is met or max_nodes is hit
             rounds += 1
@@ -313,6 +323,12 @@ class Collocation(Method):
                 code = 1
                 break
             if one.size or two.size:
+                # rounds that add almost nothing while the rest of the residual sits at the round-off
+                # floor do not converge (seen: thousands of such rounds on an ill-conditioned problem)
+                crawl = crawl + 1 if floor > 0 and one.size + 2 * two.size < _CRAWL * x.size else 0
+                if crawl >= _CRAWL_ROUNDS:
+                    code = 4
+                    break
                 spline = Hermite(x, y, parts[2])
                 x = np.sort(np.concatenate([x, 0.5 * (x[one] + x[one + 1]), (2 * x[two] + x[two + 1]) / 3,
                                             (x[two] + 2 * x[two + 1]) / 3]))
@@ -349,6 +365,14 @@ class Collocation(Method):
                 f"mesh limit reached ({trial.max_nodes} nodes):"
                 f"{_trouble(x, rms, trial.place, trial.tol)} raise "
                 "max_nodes, loosen tol or give a better guess"
+            )
+        elif code == 4:
+            status = Status.PRECISION_LIMIT
+            message = (
+                f"tolerance below what double precision allows here: on {x.size} nodes the residual is at "
+                f"the round-off level (about {_floor_words(rms, trial.tol)}) in places, and {_CRAWL_ROUNDS} "
+                "rounds in a row refined only a few intervals elsewhere without meeting the tolerance; "
+                + Status.PRECISION_LIMIT.hint
             )
         elif status is Status.SINGULAR:
             message = "the collocation Newton matrix is singular; " + status.hint
