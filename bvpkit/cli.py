@@ -62,6 +62,11 @@ def _parser() -> argparse.ArgumentParser:
     solve.add_argument("--tol", type=float, help="tolerance on the relative error (default: the spec's, else 1e-6)")
     solve.add_argument("--max-nodes", type=int, help="mesh limit")
     solve.add_argument("--no-verify", action="store_true", help="skip the error estimate (faster)")
+    solve.add_argument("--homotopy", metavar="NAME",
+                       help="continuation from an easier problem: auto (default), off, or a constant to "
+                       "continue in")
+    solve.add_argument("--time-limit", type=float, metavar="SECONDS",
+                       help="time for the whole solve (default 8)")
     solve.add_argument(
         "--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)"
     )
@@ -316,6 +321,8 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         tol=args.tol,
         max_nodes=args.max_nodes,
         verify=False if args.no_verify else None,
+        homotopy=args.homotopy,
+        time_limit=args.time_limit,
     )
     if fresh:
         remember(key, problem)

@@ -38,10 +38,19 @@ _MAX_LENGTHENINGS = 12  # 1.5**12 ~ 130: from 10 to ~1300 units before giving up
 _SHARE_TRUNCATION = 0.5  # part of the tolerance allowed to truncation
 _SHARE_DISCRETISATION = 0.125  # each truncated solve's error target: two of them stay below tol/4
 
-_OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation"}
+DEFAULT_TIME_LIMIT = 8.0  # seconds for a whole solve (a share to each attempt); see strategy.py
+_OPTIONS = {"method", "tol", "max_nodes", "verify", "truncation", "homotopy", "time_limit"}
 #: Unit round-off of double precision: the stability constant times it is the smallest error
 #: any method can promise.
 _ROUNDING = float(np.finfo(float).eps)
+#: A stability constant (over the solution's size) this many times ``1 + |eigenvalue| x length``
+#: of the Jacobian is more than the problem's fast modes explain: the layers of the test set
+#: (benchmarks/testset.py) stay below 50 times, y'' + pi^2 y = 0 at its eigenvalue is 1e7 times.
+_NEAR_SINGULAR = 1e3
+_SAMPLES = 21  # points where the Jacobian's eigenvalues are read for that comparison
+#: Round-off times the stability constant up to this is an accuracy worth reporting as reached
+#: (precision_limit); above, the problem is too ill-conditioned for any answer (error_too_large).
+_MEANINGFUL = 1e-3
 
 
 def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, Any]:
@@ -63,8 +72,30 @@ def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, 
     truncation = chosen.get("truncation", DEFAULT_TRUNCATION)
     if isinstance(truncation, bool) or not isinstance(truncation, int | float) or not 0 < truncation < 1e8:
         raise OptionError(f"truncation must be a positive length, got {truncation!r}")
+    homotopy = chosen.get("homotopy", "auto")
+    if not isinstance(homotopy, str) or not homotopy:
+        raise OptionError(f"homotopy must be \"auto\", \"off\" or the name of a constant, got {homotopy!r}")
+    time_limit = chosen.get("time_limit", DEFAULT_TIME_LIMIT)
+    if isinstance(time_limit, bool) or not isinstance(time_limit, int | float) or not 0 < time_limit <= 1e6:
+        raise OptionError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
     return {"method": method, "tol": float(tol), "max_nodes": max_nodes, "verify": verify,
-            "truncation": float(truncation)}
+            "truncation": float(truncation), "homotopy": homotopy, "time_limit": float(time_limit)}
+
+
+def _check_homotopy(prepared: Prepared, homotopy: str) -> None:
+    """A constant named for continuation must be one of the problem's constants."""
+    if homotopy in ("auto", "off"):
+        return
+    if homotopy not in prepared.constants:
+        from .errors import closest
+
+        raise OptionError(
+            f"homotopy names '{homotopy}', which is not a constant of the problem"
+            f"{closest(homotopy, prepared.constants)}; give \"auto\", \"off\" or one of its constants"
+        )
+    if prepared.constants[homotopy] == 0 and prepared.layout.eigenvalue is None:
+        raise OptionError(f"homotopy in '{homotopy}': its value is 0, where a continuation from 0 would "
+                          "start")
 
 
 def solve(
@@ -76,6 +107,8 @@ def solve(
     max_nodes: int | None = None,
     verify: bool | None = None,
     truncation: float | None = None,
+    homotopy: str | None = None,
+    time_limit: float | None = None,
 ) -> Solution:
     """Solve a boundary-value problem.
 
@@ -101,6 +134,17 @@ def solve(
     truncation : float, optional
         First placement of an infinite end, measured from the finite end (default 10). The
         domain is lengthened from there until the solution stops changing.
+    homotopy : str, optional
+        Continuation from an easier problem when the methods fail from the guess:
+        ``"auto"`` (default: the nonlinear terms scaled up from zero, a small constant
+        multiplying the highest derivative brought down from 0.1, the domain grown from a
+        short one; whichever the problem allows), ``"off"``, or the name of a constant to
+        continue in, tried first (from 0.1 down for a small constant of the highest
+        derivative, else from 0 to its value).
+    time_limit : float, optional
+        Seconds for the whole solve (default 8 with ``method="auto"``; a method named alone has
+        no limit unless one is given): each attempt gets a share and stops between two of its
+        steps when it is spent, so a slow method yields to the next.
 
     Returns
     -------
@@ -114,8 +158,13 @@ def solve(
         raise OptionError(f"solve() takes a bvpkit.Problem, got {type(problem).__name__}")
     prepared = prepare(problem)
     chosen = options(prepared.settings, {"method": method, "tol": tol, "max_nodes": max_nodes, "verify": verify,
-                                         "truncation": truncation})
+                                         "truncation": truncation, "homotopy": homotopy,
+                                         "time_limit": time_limit})
+    _check_homotopy(prepared, chosen["homotopy"])
     start = time.perf_counter()
+    if chosen["method"] == "auto" or time_limit is not None or "time_limit" in prepared.settings:
+        # the selector's budget; a method named alone runs to its end unless a limit is given
+        chosen["deadline"] = start + chosen["time_limit"]
     _check_guess(prepared, guess)
     if any(prepared.infinite):
         return _solve_infinite(prepared, guess, chosen, start)
@@ -147,7 +196,7 @@ def place(compiled, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
     name = compiled.layout.independent
 
     def where(t: float) -> str:
-        xs = maps[:, 0] + maps[:, 1] * float(t)
+        xs = _guess.physical(np.array([float(t)]), maps, compiled.layout.stretch)[:, 0]
         if xs.size == 1:
             return f"{name} = {xs[0]:.6g}"
         return f"{name} = " + " / ".join(f"{x:.6g}" for x in xs) + " (the same place in each region)"
@@ -160,7 +209,8 @@ def _run(prepared: Prepared, t, y, p, k, tol: float, chosen: dict) -> tuple[Outc
     with np.errstate(all="ignore"):
         ends = _guess.positions(np.asarray(compiled.maps(p, k), float))
     trial = Trial(compiled, t, y, p, k, tol, chosen["max_nodes"], chosen["verify"], place=place(compiled, p, k))
-    return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])))
+    context = strategy.Context(prepared, chosen["homotopy"], chosen.get("deadline"))
+    return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])), context)
 
 
 def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -183,6 +233,9 @@ def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple
             raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
         recipes[name] = prepared.recipe(name, expression)
     y = _guess.from_recipes(recipes, compiled, t, p, k)
+    if layout.eigenvalue is None and not _defined(compiled, t, y, p, k):
+        own = {n for n, r in recipes.items() if r.kind == "expression"}
+        y = _inside(prepared, t, y, p, k, chosen, own=own)
     if layout.eigenvalue is not None:
         vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
         if not guess:
@@ -190,6 +243,47 @@ def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple
         p[layout.eigenvalue] = lam
         _guess.fill_integrals(compiled, t, y, p, k)
     return t, y, p
+
+
+def _defined(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> bool:  # noqa: ANN001
+    """Whether the equations and their Jacobian are finite along a guess."""
+    with np.errstate(all="ignore"):
+        return bool(np.isfinite(compiled.rhs(t, y, p, k)).all()
+                    and np.isfinite(compiled.jac(t, y, p, k)).all())
+
+
+def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: dict,
+            own: set) -> np.ndarray:
+    """A default guess moved into the domain of the equations (``sqrt``, ``log``, fractional
+    powers of the states), when the conditions allow it: first lifted to the positive side
+    by a bump that leaves every value and slope at the ends as it was (so conditions on them
+    still hold), then the solution of the linearised problem of continuation
+    (:func:`bvpkit.reduce.path_form` at ``s = 0``); the guess as it was when neither is
+    defined everywhere. Functions with a guess of their own are left alone."""
+    compiled = prepared.compiled
+    layout = compiled.layout
+    with np.errstate(all="ignore"):
+        maps = np.asarray(compiled.maps(p, k), float)
+    recipes = prepared.recipes
+    # per function left to the default: is its value fixed by a condition somewhere?
+    free = {name: any(j == 0 for terms in recipes[name].conditions for _, j in terms)
+            for name, _ in layout.functions if name not in own and name in recipes}
+    if not free:
+        return y
+    for size in (0.1, 1.0):
+        lifted = _guess.lifted(y, layout, t, maps, free, size)
+        if _defined(compiled, t, lifted, p, k):
+            return lifted
+    try:
+        from . import homotopy
+
+        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen["tol"], 1e-3),
+                                                     chosen["max_nodes"], False))
+    except Exception:  # noqa: BLE001 - no linearised problem here: the guess as it was
+        return y
+    if linear is not None and _defined(compiled, t, linear, p, k):
+        return linear
+    return y
 
 
 def _as_start(guess: Any) -> _guess.Start:
@@ -200,7 +294,18 @@ def _as_start(guess: Any) -> _guess.Start:
 
 
 def _length_of(prepared: Prepared, k: np.ndarray) -> float:
-    return float(k[prepared.layout.constants.index(LENGTH)])
+    """The truncation length in the user's variable (``_length`` is in the stretched variable
+    ``xi`` of a region mapped by ``x = a + xi**d``: the length is ``_length**d``)."""
+    return float(k[prepared.layout.constants.index(LENGTH)]) ** _power(prepared)
+
+
+def _k_at(prepared: Prepared, length: float) -> np.ndarray:
+    """The constants with the infinite end placed ``length`` from the finite one."""
+    return prepared.k(length ** (1.0 / _power(prepared)))
+
+
+def _power(prepared: Prepared) -> int:
+    return prepared.layout.power(prepared.layout.regions - 1)
 
 
 def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float) -> Solution:
@@ -215,21 +320,28 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
     attempts: list = []
     previous: Outcome | None = None
     previous_k = None
+    growth = _GROWTH ** _power(prepared)  # by _GROWTH in the variable t of a stretched map
     change = math.inf
     selection = ""
     outcome: Outcome | None = None
     for _ in range(_MAX_LENGTHENINGS):
-        k = prepared.k(length)
+        k = _k_at(prepared, length)
         if previous is None:
             t, y, p = _start(prepared, k, guess, chosen)
         else:
-            t = _extended_mesh(previous.x, _length_of(prepared, previous_k) / length, prepared.layout)
+            ratio = (_length_of(prepared, previous_k) / length) ** (1.0 / _power(prepared))  # in t
+            t = _extended_mesh(previous.x, ratio, prepared.layout)
             p = previous.p.copy()
-            y = _guess.carried(_guess.Start(prepared.compiled, previous.x, previous.y, previous.p, previous_k),
-                               prepared.compiled, t, p, k)
+            last = _guess.Start(prepared.compiled, previous.x, previous.y, previous.p, previous_k)
+            y = _guess.carried(last, prepared.compiled, t, p, k)
+            with np.errstate(all="ignore"):
+                if not np.isfinite(prepared.compiled.rhs(t, y, p, k)).all():
+                    # continued along its slope the solution left the equations' domain (a
+                    # decaying y under y**1.5): held at its far-end values instead
+                    y = _guess.carried(last, prepared.compiled, t, p, k, hold=True)
         outcome, tried, chosen_reason = _run(prepared, t, y, p, k, inner_tol, chosen)
         attempts += tried
-        selection = selection or chosen_reason
+        selection = chosen_reason
         if not outcome.ok:
             if previous is None:
                 return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length)
@@ -240,17 +352,18 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
                 return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length,
                               change, Interpolant(prepared.compiled, previous.x, previous.y, previous.p, previous_k))
         previous, previous_k = outcome, k
-        length *= _GROWTH
+        length *= growth
     assert outcome is not None and previous is not None
     elapsed = time.perf_counter() - started
     if outcome.ok:
         outcome.status = Status.TRUNCATION
         outcome.message = (
-            f"the solution still changed by {change:.2g} when infinity was moved out to {length / _GROWTH:.4g}; "
+            f"the solution still changed by {change:.2g} when infinity was moved out to "
+            f"{length / growth:.4g}; "
             + Status.TRUNCATION.hint
         )
-        return settle(prepared, prepared.k(length / _GROWTH), outcome, attempts, selection, elapsed, tol,
-                      length / _GROWTH, change)
+        return settle(prepared, _k_at(prepared, length / growth), outcome, attempts, selection, elapsed, tol,
+                      length / growth, change)
     # A longer domain failed: hand back the last converged one, marked as not settled.
     previous.status = Status.TRUNCATION
     shorter = _length_of(prepared, previous_k)
@@ -316,7 +429,8 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         message += f"; infinity placed at {layout.independent} = {' and '.join(ends)} ({how})"
     verified = outcome.error_estimate is not None  # verify=False skips the condition estimate too
     condition = None
-    if verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE) and np.isfinite(outcome.y).all():
+    if (verified and status in (Status.SOLVED, Status.ERROR_TOO_LARGE, Status.PRECISION_LIMIT)
+            and np.isfinite(outcome.y).all()):
         condition = outcome.condition if outcome.condition is not None else condition_estimate(
             compiled, outcome.x, outcome.y, outcome.p, k)
     if condition is not None and math.isfinite(estimate):
@@ -326,6 +440,22 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
     # The last guards: success never comes with non-finite values or an estimate above tol.
     if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
+    attainable = condition * _ROUNDING if condition is not None and math.isfinite(condition) else math.inf
+    missed = (status is Status.SOLVED and tol is not None and math.isfinite(estimate)
+              and estimate > tol * (1 + 1e-9))
+    if missed and attainable <= _MEANINGFUL and estimate <= attainable * (1 + 1e-9):
+        # the method met the tolerance; round-off times the stability constant alone does not
+        status = Status.PRECISION_LIMIT
+        message = (
+            "tolerance below what double precision allows here: the method converged and its own estimate "
+            "meets the tolerance, but round-off alone, amplified by the stability constant "
+            f"{condition:.2g}, can change the solution by about {attainable:.2g}, the accuracy reached, "
+            f"against the tolerance {tol:.2g}; " + Status.PRECISION_LIMIT.hint
+        )
+    if (status is Status.PRECISION_LIMIT and discretisation is not None and math.isfinite(attainable)
+            and attainable > discretisation):
+        message += (f"; round-off amplified by the stability constant {condition:.2g} bounds the accuracy at "
+                    f"about {attainable:.2g}, the error estimate given")
     if status is Status.SOLVED and tol is not None and math.isfinite(estimate) and estimate > tol * (1 + 1e-9):
         status = Status.ERROR_TOO_LARGE
         message = f"converged, but the estimated error {estimate:.2g} is above the tolerance {tol:.2g}"
@@ -346,6 +476,10 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
                 f"asked for mode {layout.mode} ({layout.mode - 1} interior zeros of {name}), but the solution "
                 f"found has {found} interior zeros (mode {found + 1}); " + Status.OTHER_MODE.hint
             )
+    if status is Status.SOLVED and tol is not None and condition is not None:
+        warning = _nearly_singular(compiled, outcome, k, condition, tol)
+        if warning:
+            status, message = Status.NEARLY_SINGULAR, f"{message}; but {warning}"
     diagnostics = Diagnostics(
         method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,
@@ -359,7 +493,7 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         condition=condition,
         seconds=seconds,
         attempts=attempts,
-        selection=_selection_words(selection, attempts, outcome),
+        selection=selection,
         tol=tol,
     )
     reference = None
@@ -370,16 +504,67 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
                     diagnostics, outcome.parameter_errors, reference, previous)
 
 
-def _selection_words(selection: str, attempts: list, outcome: Outcome) -> str:
-    """What was chosen, what failed and what took over, in one line."""
-    if not attempts:
-        return selection
-    first = attempts[0].method
-    final = outcome.method or attempts[-1].method
-    if final == first:
-        return selection
-    failed = ", ".join(f"{a.method.replace('_', ' ')} ({a.status})" for a in attempts if a.method != final)
-    return f"{selection}; that failed ({failed}), and {final.replace('_', ' ')} took over"
+def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float,  # noqa: ANN001
+                     tol: float) -> str:
+    """Why a converged solution that meets the tolerance is still a warning ('' when it is not).
+
+    The stability constant ``K`` bounds how far a change of the equations moves the solution;
+    against the solution's size ``Y = 1 + max |y|`` (the tolerance is relative) it reads
+    ``K / Y``. Two conditions together: ``K tol / Y > 1`` (a change of the equations within
+    the tolerance asked could move the solution by more than its own size, so the tolerance
+    no longer pins it down), and ``K / Y`` far above what the problem's own fast modes explain
+    (``_NEAR_SINGULAR`` times ``1 + |eigenvalue| x length`` of the Jacobian along the solution:
+    a thin layer of width ``eps`` has ``K ~ 1/eps`` and is well posed). Both hold near a
+    singular linearised problem: a homogeneous problem at an eigenvalue, a resonance, a fold
+    or a branch point.
+    """
+    size = 1.0 + float(np.max(np.abs(outcome.y[compiled.layout.user_rows]), initial=0.0))
+    relative = condition / size
+    if not (math.isfinite(relative) and relative * tol > 1.0):
+        return ""
+    if relative <= _NEAR_SINGULAR * (1.0 + _fastest(compiled, outcome, k)):
+        return ""
+    return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance "
+            f"of {tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+
+
+def _fastest(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001
+    """``max |eigenvalue| x length`` of the Jacobian along the solution (oscillating modes
+    count: their eigenvalues are imaginary), sampled at a few points."""
+    x = outcome.x
+    at = np.unique(np.linspace(0, x.size - 1, min(x.size, _SAMPLES)).astype(int))
+    with np.errstate(all="ignore"):
+        jac = np.moveaxis(np.asarray(compiled.jac(x[at], outcome.y[:, at], outcome.p, k)), -1, 0)
+        if not np.isfinite(jac).all():
+            return math.inf
+        return float(np.max(np.abs(np.linalg.eigvals(jac)))) * float(x[-1] - x[0])
+
+
+def _likely_cause(compiled, outcome: Outcome, k: np.ndarray) -> str:  # noqa: ANN001
+    """The likely cause of a nearly singular problem, and what to do, in words."""
+    x, y, p = outcome.x, outcome.y, outcome.p
+    with np.errstate(all="ignore"):
+        zero = np.zeros_like(y)
+        homogeneous = (np.allclose(compiled.rhs(x, zero, p, k), 0.0, atol=1e-300)
+                       and np.allclose(compiled.bc(zero[:, 0], zero[:, -1], p, k), 0.0, atol=1e-300))
+        scale = 1.0 + float(np.max(np.abs(y)))
+        shifted = y + scale * np.cos(np.arange(y.shape[0]))[:, None]  # another state, far from y
+        jac, other = compiled.jac(x, y, p, k), compiled.jac(x, shifted, p, k)
+        linear = bool(np.all(np.isfinite(jac)) and np.allclose(jac, other, rtol=1e-10, atol=1e-12))
+    size = float(np.max(np.abs(y[compiled.layout.user_rows]))) if y.size else 0.0
+    if homogeneous and linear:
+        which = "the zero solution was found" if size < 1e-8 else "a solution was found"
+        return (f"the problem is homogeneous (zero conditions and no forcing) and {which}, but a non-zero "
+                "solution, and any multiple of it, very likely solves it too (an eigenvalue of the problem "
+                "is at or next to these constants); add a normalisation (a condition such as y'(0) = 1), or "
+                "state it as an eigenvalue problem")
+    if linear:
+        return ("the problem is linear and close to a resonance (its homogeneous version has a non-zero "
+                "solution for nearby values of the constants), so the answer is very sensitive to the "
+                "constants; check them, and trace one (bvpkit trace) to see the sensitivity")
+    return ("a fold or branch point of the family of solutions is likely nearby (another solution may be "
+            "close); trace a constant through this value (bvpkit trace) to see the family, and give a guess "
+            "to pick a branch")
 
 
 def solve_at(prepared: Prepared, k: np.ndarray, guess: Any, *, tol: float, method: str = "auto",
@@ -387,9 +572,10 @@ def solve_at(prepared: Prepared, k: np.ndarray, guess: Any, *, tol: float, metho
     """One solve at the constants ``k`` exactly as given: a truncated infinite end stays
     where ``k`` puts it (no truncation loop). Continuation calls it at each point of a
     trace, checking the truncation its own way; ``change`` is the truncation error it
-    measured last (reported with the solution)."""
+    measured last (reported with the solution). No continuation from an easier problem here:
+    a trace that fails at a value shortens its step or turns to pseudo-arclength instead."""
     started = time.perf_counter()
-    chosen = options(prepared.settings, {"method": method, "tol": tol, "verify": verify})
+    chosen = options(prepared.settings, {"method": method, "tol": tol, "verify": verify, "homotopy": "off"})
     k = np.asarray(k, float)
     t, y, p = _start(prepared, k, guess, chosen)
     outcome, attempts, selection = _run(prepared, t, y, p, k, chosen["tol"], chosen)

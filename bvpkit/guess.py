@@ -36,9 +36,43 @@ def positions(maps: np.ndarray) -> np.ndarray:
     return np.concatenate([maps[:, 0], [maps[-1, 0] + maps[-1, 1]]])
 
 
-def physical(t: np.ndarray, maps: np.ndarray) -> np.ndarray:
-    """The user's variable of every region at the standard mesh ``t``: ``(regions, len(t))``."""
-    return maps[:, 0:1] + maps[:, 1:2] * np.asarray(t, float)[None, :]
+def physical(t: np.ndarray, maps: np.ndarray, stretch: tuple = ()) -> np.ndarray:
+    """The user's variable of every region at the standard mesh ``t``: ``(regions, len(t))``.
+
+    Region ``r`` covers ``x = c_r + h_r t**d_r`` (``stretch`` holds the powers ``d_r``; empty:
+    all 1, the affine map of most problems)."""
+    t = np.asarray(t, float)[None, :]
+    powers = np.array([stretch[r] if r < len(stretch) else 1 for r in range(maps.shape[0])], float)[:, None]
+    return maps[:, 0:1] + maps[:, 1:2] * (t if not len(stretch) else np.abs(t) ** powers * np.sign(t))
+
+
+def standard(x: np.ndarray, c: np.ndarray, h: np.ndarray, power: np.ndarray | int = 1) -> np.ndarray:
+    """The standard variable ``t`` of points ``x`` of regions with maps ``x = c + h t**power``."""
+    s = (np.asarray(x, float) - c) / h
+    if np.all(np.asarray(power) == 1):
+        return s
+    return np.sign(s) * np.abs(s) ** (1.0 / np.asarray(power, float))
+
+
+#: Where a stretched map's ``dx/dt`` vanishes (``t = 0``), slopes are read this close to it:
+#: ``x - a = h t**d`` is then below 1e-24 h, and the slope's limit is reached to round-off.
+_NEAR_END = 1e-12
+
+
+def nudged(t: np.ndarray, power: np.ndarray | int = 1) -> np.ndarray:
+    """``t`` with the ends of stretched maps (``t = 0``, ``power > 1``) moved to ``_NEAR_END``,
+    where ``dx/dt`` is not zero, so a slope ``(dY/dt) / (dx/dt)`` reads its limit."""
+    t = np.asarray(t, float)
+    return np.where((np.asarray(power) > 1) & (t < _NEAR_END), _NEAR_END, t)
+
+
+def rate(t: np.ndarray, h: np.ndarray, power: np.ndarray | int = 1) -> np.ndarray:
+    """``dx/dt`` of the maps ``x = c + h t**power`` at ``t`` (``h`` for an affine map)."""
+    t = np.asarray(t, float)
+    power = np.asarray(power, float)
+    if np.all(power == 1):
+        return np.broadcast_to(np.asarray(h, float), np.broadcast(t, h).shape).astype(float)
+    return h * power * np.abs(t) ** (power - 1.0)
 
 
 @dataclass
@@ -205,7 +239,7 @@ def from_recipes(recipes: Mapping[str, GuessRecipe], compiled, t: np.ndarray, p:
     layout = compiled.layout
     maps = np.asarray(compiled.maps(p, k), float)
     points = positions(maps)
-    x = physical(t, maps)
+    x = physical(t, maps, layout.stretch)
     size = layout.region_size
     y = np.zeros((layout.n, t.size))
     for name, _ in layout.functions:
@@ -225,6 +259,37 @@ def from_recipes(recipes: Mapping[str, GuessRecipe], compiled, t: np.ndarray, p:
             f"{x[r, bad[1]]:.6g}; give a guess defined on the whole domain"
         )
     return y
+
+
+def lifted(y: np.ndarray, layout, t: np.ndarray, maps: np.ndarray, names: dict,  # noqa: ANN001
+           size: float) -> np.ndarray:
+    """``y`` with the functions ``names`` raised by ``size (1 + max |f|)``: a function whose
+    value is not fixed by any condition (``names[f]`` False) by that constant, the others by
+    that times the bump ``16 s**2 (1 - s)**2`` (``s`` from 0 to 1 over the domain; its
+    derivatives in the derivative states), which leaves the values and slopes at the ends,
+    and so the conditions on them, as they were. A guess at zero moves to the positive side
+    of ``sqrt`` or ``log``."""
+    x = physical(t, maps, layout.stretch)
+    a, b = float(positions(maps)[0]), float(positions(maps)[-1])
+    span = (b - a) or 1.0
+    s = (x - a) / span
+    # the bump and its derivatives in x: 16 (s^2 - 2 s^3 + s^4) / span^j
+    bump = [16 * (s**2 - 2 * s**3 + s**4), 16 * (2 * s - 6 * s**2 + 4 * s**3) / span,
+            16 * (2 - 12 * s + 12 * s**2) / span**2, 16 * (-12 + 24 * s) / span**3,
+            np.full_like(s, 384 / span**4)]
+    out = y.copy()
+    size_of = len(layout.states)
+    for name, fixed in names.items():
+        order = layout.order(name)
+        value_rows = [r * size_of + layout.index(name, 0) for r in range(layout.regions)]
+        height = size * (1.0 + float(np.max(np.abs(y[value_rows]))))
+        if not fixed:
+            out[value_rows] += height
+            continue
+        for j in range(min(order, len(bump))):
+            for r in range(layout.regions):
+                out[r * size_of + layout.index(name, j)] += height * bump[j][r]
+    return out
 
 
 def fill_integrals(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> None:  # noqa: ANN001
@@ -355,13 +420,16 @@ class Start:
         return self.compiled.layout
 
 
-def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.ndarray:  # noqa: ANN001
+def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
+            hold: bool = False) -> np.ndarray:
     """The states of a previous solution (or :class:`Start`) on the standard mesh ``t`` of a
     problem with the same layout but other constants (other region maps).
 
     Each region's states are read at the same points of the user's variable; beyond the
     previous solution's own interval (a longer truncation of an infinite domain) they are
-    continued along their slope at the end.
+    continued along their slope at the end, or held at their end values (``hold``: for
+    states that decay towards a value the slope would overshoot, out of the domain of a
+    fractional power).
     """
     from .diagnostics import hermite
 
@@ -377,11 +445,13 @@ def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray) -> np.
         slopes = start.compiled.rhs(start.t[[0, -1]], start.y[:, [0, -1]], start.p, start.k)
     for r in range(layout.regions):
         rows = slice(r * size, (r + 1) * size)
-        x = new_maps[r, 0] + new_maps[r, 1] * t
-        s = (x - old_maps[r, 0]) / old_maps[r, 1]
+        d = layout.power(r)
+        x = new_maps[r, 0] + new_maps[r, 1] * t**d
+        s = standard(x, old_maps[r, 0], old_maps[r, 1], d)
         values = spline(np.clip(s, 0.0, 1.0))[rows]
         right, left = s > 1.0, s < 0.0
-        values[:, right] += slopes[rows, 1:2] * (s[right] - 1.0)
-        values[:, left] += slopes[rows, 0:1] * s[left]
+        if not hold:
+            values[:, right] += slopes[rows, 1:2] * (s[right] - 1.0)
+            values[:, left] += slopes[rows, 0:1] * s[left]
         y[rows] = values
     return y

@@ -68,6 +68,8 @@ class StateLayout(States):
     eigenvalue : int or None
         Index in ``parameters`` of the eigenvalue; ``mode`` the mode asked for.
     phase : bool
+    stretch : tuple of int
+        Per region, the power ``d`` of its map ``x = c_r + h_r t**d`` (empty: all affine).
     """
 
     key: str
@@ -84,6 +86,7 @@ class StateLayout(States):
     eigenvalue: int | None = None
     mode: int | None = None
     phase: bool = False
+    stretch: tuple[int, ...] = ()
 
     @property
     def n(self) -> int:
@@ -96,6 +99,10 @@ class StateLayout(States):
         if self.regions == 1:
             return self.state_names
         return tuple(f"{name} in region {r + 1}" for r in range(self.regions) for name in self.state_names)
+
+    def power(self, r: int) -> int:
+        """The power ``d`` of region ``r``'s map ``x = c_r + h_r t**d`` (1: affine)."""
+        return int(self.stretch[r]) if r < len(self.stretch) else 1
 
     def rows(self, i: int) -> list[int]:
         """The rows of ``Y`` that hold state ``i`` of each region, left to right."""
@@ -118,4 +125,5 @@ class StateLayout(States):
         for name in ("parameters", "constants", "condition_kinds"):
             fields[name] = tuple(fields[name])
         fields["infinite"] = tuple(bool(v) for v in fields["infinite"])
+        fields["stretch"] = tuple(int(v) for v in fields.get("stretch", ()))
         return cls(**fields)

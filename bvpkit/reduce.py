@@ -17,6 +17,9 @@ on the way there, applied to a first-order system in the user's variable:
 * :func:`_eigenvalue` -- the eigenvalue an unknown parameter, the normalisation
   ``integral(sum of squares) = 1`` an added state with two conditions;
 * :func:`_phase` -- a periodic orbit of autonomous equations pinned by ``u'(a) = 0``;
+* :func:`_stretch` -- fractional powers of ``x - a`` at a finite left end (``1/sqrt(x)``,
+  ``x**(3/2)``) removed by ``x - a = xi**d``, ``d`` from the exponents seen: the region is
+  mapped by ``x = c + h t**d`` (the map's power is kept in ``StandardForm.stretch``);
 * :func:`_singular` -- a term ``S y / (x - a)`` singular at the left end split off;
 * :func:`_map` -- each region ``[X_r, X_r+1]`` mapped onto ``[0, 1]`` by ``x = c_r + h_r t``:
   a fixed end, an unknown one (free boundary: ``h_r`` holds the parameter), or an infinite
@@ -24,6 +27,10 @@ on the way there, applied to a first-order system in the user's variable:
 * :func:`_stack` -- the regions' states stacked into one ``Y``; every state continuous at an
   interface unless a condition takes its one-sided values; conditions at any point become
   conditions on ``Y(0)`` and ``Y(1)``.
+
+Two transforms of a finished standard form serve the selector's continuation from an easy
+problem (:func:`path_form`): the nonlinear terms scaled by ``_homotopy`` (0: the problem
+linearised about a constant state, 1: the user's), and the domain shortened by ``_reach``.
 
 Nothing outside this module knows which classes a problem belongs to: the methods, the
 selector and continuation see the standard form only, and one map (``x = c_r + h_r t`` and
@@ -34,6 +41,7 @@ user's variable and states. User names never reach generated code: states are ``
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 from dataclasses import dataclass, field, fields
 
@@ -97,6 +105,9 @@ class StandardForm(States):
     point_conditions : (tuple of sympy.Expr, tuple of (str, int, int, int))
         The user's conditions in point-value symbols, and what each symbol is:
         ``(symbol name, state, point, side)``; read by the default guess.
+    stretch : tuple of int
+        Per region, the power ``d`` of its map ``x = c_r + h_r t**d`` (empty: every map
+        affine, ``d = 1``); see :func:`_stretch`.
     """
 
     independent: str
@@ -117,6 +128,7 @@ class StandardForm(States):
     mode: int | None = None
     phase: bool = False
     point_conditions: tuple = ()
+    stretch: tuple = ()
     y: tuple = field(init=False, repr=False)
     ya: tuple = field(init=False, repr=False)
     yb: tuple = field(init=False, repr=False)
@@ -146,7 +158,7 @@ class StandardForm(States):
             key=self.key(), independent=self.independent, functions=self.functions, states=self.states,
             users=self.users, regions=self.regions, parameters=self.parameters, constants=self.constants,
             condition_kinds=self.condition_kinds, infinite=self.infinite, singular=self.singular is not None,
-            eigenvalue=self.eigenvalue, mode=self.mode, phase=self.phase,
+            eigenvalue=self.eigenvalue, mode=self.mode, phase=self.phase, stretch=tuple(self.stretch),
         )
 
 
@@ -250,12 +262,14 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
             conditions.append((value(i, j, -1) - value(i, j, 1), kind))
     # 5. singular terms, 6. the map onto [0, 1], 7. the stack
     points = tuple(p.xreplace(names.region(0)) for p in problem.points)
+    with budget("looking for fractional powers of the independent variable at the left end"):
+        power, stretched = _stretch(problem, systems, points, set(names.p.values()))
     with budget("splitting off the singular term", advice="write the singular coefficient in a simpler form"):
-        singular = _singular(problem, systems, points, local, len(states), set(names.p.values()))
+        singular = _singular(problem, systems, stretched, local, len(states), set(names.p.values()))
     if singular is not None:
         check_sizes({f"the right-hand side of state {i}": e for i, e in enumerate(singular[1])},
                     step="splitting off the singular term")
-    maps = _map(points, names)
+    maps = _map(stretched, names)
     rhs = []
     for r, system in enumerate(systems):
         c, h = maps[r]
@@ -280,6 +294,8 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
             tuple(singular[0][i][j] if i < n_region and j < n_region else sp.Integer(0) for j in range(total))
             for i in range(total)
         )
+    if power > 1:  # the map in the user's variable: x = a + (h_xi t)**d
+        maps = [(points[0], maps[0][1] ** power)]
     names_of_values = tuple((symbol.name, state, point, side) for (state, point, side), symbol in values.items())
     return StandardForm(
         independent=problem.independent,
@@ -300,6 +316,7 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
         mode=problem.mode,
         phase=bool(problem.phase),
         point_conditions=(point_conditions, names_of_values),
+        stretch=(power,) if power > 1 else (),
     )
 
 
@@ -399,6 +416,59 @@ def _phase(problem, system, local, value, names) -> sp.Expr:  # noqa: ANN001
     return system[0].xreplace(swap)
 
 
+#: The largest power ``d`` of a stretch ``x - a = xi**d`` (halves, thirds and sixths of
+#: exponents are common; beyond, the stretched map crowds the mesh at one end too much).
+_MAX_STRETCH = 6
+
+
+def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
+    """Fractional powers of ``x - a`` at the finite left end ``a`` removed by ``x - a = xi**d``.
+
+    ``1/sqrt(x)``, ``sqrt(x)`` and ``x**(3/2)`` at ``a = 0`` make the equations singular (or
+    the solution not smooth) there; with ``x = a + xi**d``, ``d`` the least common
+    denominator of the exponents (times the order of their bases at ``a``), every such power
+    is a whole power of ``xi``, and ``dY/dxi = d xi**(d-1) F(a + xi**d, Y)``: the Jacobian
+    factor absorbs a ``1/sqrt`` (Thomas-Fermi's ``y'' = y**(3/2)/sqrt(x)`` becomes regular).
+    The states stay derivatives in ``x``, so conditions and outputs are unchanged.
+
+    Returns ``(d, points)``: ``d`` (1 when nothing is stretched) and the ends for the
+    singular split and the map, in ``xi`` for a stretched problem (``0`` and
+    ``(b - a)**(1/d)``); ``systems[0]`` is rewritten in ``xi`` in place. Only a single region
+    with a fixed (not unknown) left end is stretched.
+    """
+    a = points[0]
+    if len(systems) != 1 or a in (sp.oo, -sp.oo) or a.free_symbols & parameters:
+        return 1, points
+    z = sp.Dummy("z", positive=True)
+    power = 1
+    for f in systems[0]:
+        shifted = f.xreplace({_PHYSICAL: a + z})
+        for base, exponent in (q.as_base_exp() for q in shifted.atoms(sp.Pow)):
+            if not (exponent.is_Rational and not exponent.is_Integer and base.has(z)):
+                continue
+            try:
+                lead = sp.Poly(base.as_leading_term(z).as_independent(z)[1], z)
+                order = sp.Integer(lead.monoms()[0][0]) if lead.is_monomial else None
+            except (sp.PolynomialError, ValueError, TypeError, NotImplementedError):
+                order = None
+            if order is None or order == 0:
+                continue
+            power = int(sp.ilcm(power, sp.Rational(order * exponent).q))
+    if power == 1:
+        return 1, points
+    if power > _MAX_STRETCH:
+        raise ProblemError(
+            f"the equations hold powers of {problem.independent} - {a} with exponents that need a stretch "
+            f"{problem.independent} - {a} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
+            "simpler exponents"
+        )
+    xi = sp.Dummy("xi", positive=True)
+    stretched = [power * xi ** (power - 1) * f.xreplace({_PHYSICAL: a + xi**power}) for f in systems[0]]
+    systems[0][:] = [f.xreplace({xi: _PHYSICAL}) for f in stretched]
+    b = points[-1]
+    return power, (sp.Integer(0), b if b in (sp.oo, -sp.oo) else (b - a) ** sp.Rational(1, power))
+
+
 def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa: ANN001, ANN202
     """Split ``S s / (x - a)`` off the first region's equations, singular at the left end ``a``.
 
@@ -468,6 +538,65 @@ def _map(points, names) -> list:  # noqa: ANN001
         else:
             maps.append((left, right - left))
     return maps
+
+
+# -- forms for continuation from an easy problem (the selector's fallback) ----------------------
+#: The constant that scales the nonlinear terms: 0 the linearised problem, 1 the user's.
+HOMOTOPY = "_homotopy"
+#: The fraction of the domain solved (a single region shortened towards its left end).
+REACH = "_reach"
+#: Prefix of the constants holding the state about which the nonlinear terms are linearised.
+ANCHOR = "_anchor"
+
+
+def path_form(form: StandardForm) -> StandardForm:
+    """``form`` with the constants ``_homotopy`` (``s``), ``_reach`` (``r``) and one anchor
+    ``c_i`` per state added (user names cannot start with ``_``): the right-hand side becomes
+
+        F_s = L + s (F - L),   L = F(t, c) + dF/dY(t, c) (Y - c)
+
+    (rows linear in ``Y`` are left as they are), and the conditions likewise in ``Y(0)``,
+    ``Y(1)``. At ``s = 1`` this is the user's problem; at ``s = 0`` it is linear in the
+    states, the nonlinear terms replaced by their tangent at the constant state ``c`` (``c =
+    0``: the nonlinear terms dropped, so Blasius' ``f''' + f f''/2 = 0`` becomes
+    ``f''' = 0``; another ``c`` where the terms are not defined at 0, as ``sqrt(y)``), and one
+    Newton step solves it. Linearising about a constant rather than about the guess keeps
+    the path a problem of its own (the same code whatever the guess) and its start
+    independent of a guess that may be poor.
+
+    For a single region, ``t`` is also scaled by ``r``: ``dY/dt = r F_s(r t, Y)``, the map's
+    length multiplied by ``r`` (``r**d`` for a stretched map): the problem on the first
+    ``r``-th of the domain with the right end's conditions there, which grows the domain
+    from a short one where a far-field condition is easy to meet. Parameters are not
+    linearised.
+    """
+    n = len(form.rhs)
+    constants = (*form.constants, HOMOTOPY, REACH, *(f"{ANCHOR}{i}" for i in range(n)))
+    k = _symbols("k", len(constants))
+    s, r = k[len(form.constants)], k[len(form.constants) + 1]
+    anchors = k[len(form.constants) + 2:]
+
+    def scaled(e: sp.Expr, variables: list, at: dict) -> sp.Expr:
+        used = [v for v in variables if v in e.free_symbols]
+        gradient = [sp.diff(e, v) for v in used]
+        if not any(g.has(*variables) for g in gradient):
+            return e  # linear in the states already
+        tangent = e.xreplace(at) + sum(g.xreplace(at) * (v - at[v]) for g, v in zip(gradient, used))
+        return tangent + s * (e - tangent)
+
+    with budget("forming the linearised problem of the continuation"):
+        rhs = [scaled(f, list(form.y), dict(zip(form.y, anchors))) for f in form.rhs]
+        ends = {**dict(zip(form.ya, anchors)), **dict(zip(form.yb, anchors))}
+        conditions = tuple(scaled(g, [*form.ya, *form.yb], ends) for g in form.conditions)
+    maps, points = form.maps, form.points
+    if form.regions == 1:
+        rhs = [r * f.xreplace({X: r * X}) for f in rhs]
+        power = form.stretch[0] if form.stretch else 1
+        c, h = form.maps[0]
+        maps = ((c, h * r**power),)
+        points = (form.points[0], c + h * r**power)
+    return dataclasses.replace(form, rhs=tuple(rhs), conditions=conditions, constants=constants, maps=maps,
+                               points=points)
 
 
 # -- helpers ---------------------------------------------------------------------------------

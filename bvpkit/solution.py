@@ -18,7 +18,7 @@ import numpy as np
 from ._output import json_ready, write_columns
 from .diagnostics import Diagnostics, hermite
 from .errors import BvpkitError
-from .guess import positions
+from .guess import nudged, physical, positions, rate, standard
 from .status import Status
 from .units import label, units_of
 
@@ -52,6 +52,7 @@ class Interpolant:
         with np.errstate(all="ignore"):
             self.maps = np.asarray(compiled.maps(self.p, self.k), float)
         self.points = positions(self.maps)
+        self.powers = np.array([self.layout.power(r) for r in range(self.layout.regions)])  # x = c + h t**d
         self._spline = hermite(compiled, self.t, self.y, self.p, self.k)
 
     @property
@@ -68,7 +69,7 @@ class Interpolant:
 
     def standard(self, x: np.ndarray, r: np.ndarray) -> np.ndarray:
         """The standard variable of points ``x`` in regions ``r``."""
-        return (np.asarray(x, float) - self.maps[r, 0]) / self.maps[r, 1]
+        return standard(x, self.maps[r, 0], self.maps[r, 1], self.powers[r])
 
     def _pick(self, stacked: np.ndarray, r: np.ndarray) -> np.ndarray:
         size = self.layout.region_size
@@ -84,17 +85,18 @@ class Interpolant:
         """The states' derivatives in the user's variable, from the equations."""
         x = np.atleast_1d(np.asarray(x, float))
         r = self.region(x, side) if regions is None else np.asarray(regions)
-        t = self.standard(x, r)
+        t = nudged(self.standard(x, r), self.powers[r])
         with np.errstate(all="ignore"):
             f = self.compiled.rhs(t, self._spline(t), self.p, self.k)
-        return self._pick(f, r) / self.maps[r, 1][None, :]
+        return self._pick(f, r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
 
     def derivative(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
         """The derivative of the interpolating cubic itself (not of the equations) in the user's
         variable: a check that owes nothing to the right-hand side."""
         x = np.atleast_1d(np.asarray(x, float))
         r = self.region(x, side) if regions is None else np.asarray(regions)
-        return self._pick(self._spline.derivative()(self.standard(x, r)), r) / self.maps[r, 1][None, :]
+        t = nudged(self.standard(x, r), self.powers[r])
+        return self._pick(self._spline.derivative()(t), r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
 
     def inside(self, x: np.ndarray) -> bool:
         a, b = self.ends
@@ -153,7 +155,7 @@ class Solution:
     ):
         self.prepared = prepared
         self.status = status
-        self.success = status is Status.SOLVED
+        self.success = status.success
         self.message = message
         self.method = method
         self.diagnostics = diagnostics
@@ -161,8 +163,7 @@ class Solution:
         self.interpolant = Interpolant(compiled, t, y, p, k)
         layout = compiled.layout
         size, regions = layout.region_size, layout.regions
-        maps = self.interpolant.maps
-        self.x = (maps[:, 0:1] + maps[:, 1:2] * self.interpolant.t[None, :]).ravel()
+        self.x = physical(self.interpolant.t, self.interpolant.maps, layout.stretch).ravel()
         self.y = np.concatenate([self.interpolant.y[r * size:(r + 1) * size] for r in range(regions)], axis=1)
         names = layout.parameters
         self.parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
@@ -417,9 +418,10 @@ def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # 
     w = (0.5 * h[:, None] * weights[None, :]).ravel()
     for region in range(view.layout.regions):
         c, scale = view.maps[region]
-        x = c + scale * s
+        x = c + scale * s ** view.powers[region]
         r = np.full(x.size, region)
-        total += float(np.sum(_running(view, quantity, x, r, values, _function) * w) * scale)
+        dx = w * rate(s, scale, view.powers[region])
+        total += float(np.sum(_running(view, quantity, x, r, values, _function) * dx))
     b = view.ends[1]
     tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[0])
     return total, tail

@@ -18,7 +18,7 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     equations = ["..."]   # replace the problem's equations here (optional)
     constants = { k = 2.0 }  # constants with a value of their own here (optional)
 
-    [solver]          # method, tol, max_nodes, verify, truncation
+    [solver]          # method, tol, max_nodes, verify, truncation, homotopy, time_limit
     tol = 1e-8
 
     [outputs]         # name = expression of the solution
@@ -98,6 +98,8 @@ class SolverSection(_Model):
     max_nodes: StrictInt | None = None
     verify: StrictBool | None = None
     truncation: Number | None = None
+    homotopy: StrictStr | None = None
+    time_limit: Number | None = None
 
 
 class TraceSection(_Model):

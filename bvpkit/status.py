@@ -12,10 +12,23 @@ import enum
 class Status(enum.Enum):
     """Outcome of a solve, or a class of command-line failure.
 
-    Each member carries ``(word, exit_code, meaning, what_to_try)``.
+    Each member carries ``(word, exit_code, meaning, what_to_try)``. :attr:`success` is True
+    for ``solved`` and for the one warning status, ``nearly_singular``: an answer that meets
+    the tolerance, given with a warning about the problem itself.
     """
 
     SOLVED = ("solved", 0, "the solve converged and its error estimate meets the tolerance", "")
+    NEARLY_SINGULAR = (
+        "nearly_singular",
+        11,
+        "solved to the tolerance, with a warning: the linearised problem is nearly singular here "
+        "(its stability constant times the tolerance exceeds one), so the answer may not be the "
+        "only one, or small changes of the data may change it a lot",
+        "a homogeneous problem (zero conditions, zero forcing) has every multiple of a solution as "
+        "a solution: add a normalisation, or state it as an eigenvalue problem; near a fold or "
+        "branch point, trace the constant (bvpkit trace) to see the family of solutions; near a "
+        "resonance, check the constants",
+    )
     NOT_CONVERGED = (
         "not_converged",
         3,
@@ -55,6 +68,14 @@ class Status(enum.Enum):
         "the solve converged but its error estimate is above the tolerance",
         "raise max_nodes or loosen tol",
     )
+    PRECISION_LIMIT = (
+        "precision_limit",
+        12,
+        "the tolerance asked is below what double precision allows for this problem on this "
+        "mesh; the accuracy reached is reported",
+        "loosen tol to about the accuracy reported (diagnostics.error_estimate), or rescale the "
+        "problem so that its values and derivatives are of similar size",
+    )
     TRUNCATION = (
         "truncation_not_converged",
         9,
@@ -89,6 +110,11 @@ class Status(enum.Enum):
 
     def __str__(self) -> str:
         return self.word
+
+    @property
+    def success(self) -> bool:
+        """Whether an answer of this status is a success (``solved``, or the warning status)."""
+        return self in (Status.SOLVED, Status.NEARLY_SINGULAR)
 
 
 def failures_table() -> str:

@@ -25,6 +25,7 @@ that a result is finite, the error estimate and its tightening loop.
 from __future__ import annotations
 
 import dataclasses
+import time
 from dataclasses import dataclass
 from collections.abc import Callable
 from typing import ClassVar
@@ -72,6 +73,10 @@ class Trial:
         A ``time.perf_counter()`` value: past it the method stops between two of its steps
         and reports :attr:`~bvpkit.status.Status.NOT_CONVERGED` with why (the selector's
         budget for this attempt). None: no limit.
+    patience : int or None
+        Meshes on which Newton's method may fail to converge, from the start, before the method
+        gives up with :attr:`~bvpkit.status.Status.NOT_CONVERGED` (the selector sets it when
+        continuation from an easier problem can take over; None: no limit, refinement goes on).
     """
 
     compiled: CompiledSystem
@@ -84,6 +89,7 @@ class Trial:
     verify: bool = True
     place: Callable[[float], str] = lambda t: f"t = {t:.6g}"  # noqa: E731
     deadline: float | None = None
+    patience: int | None = None
 
     def out_of_time(self) -> bool:
         """Whether the attempt's time budget is spent."""

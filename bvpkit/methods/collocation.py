@@ -13,6 +13,15 @@ as ``solve_bvp`` treats it: it is part of the compiled right-hand side, with its
 
 Error estimate: deferred correction (``CollocationEquations.defect_correction``), one solve with the last
 Newton matrix.
+
+Round-off: the residual of an interval cannot fall below the rounding of the states it is
+computed from (a difference of two values of size ``|y|`` divided by the step ``h`` carries
+an error of about ``eps |y| / h``, which grows as the mesh is refined). :func:`_roundoff_floor`
+estimates that floor from the size of the states and of the terms of the equations; an
+interval whose residual is already at its floor is not refined, and when only such intervals
+miss the tolerance the refinement stops: the error estimate decides, and a miss is reported as
+:attr:`~bvpkit.status.Status.PRECISION_LIMIT` with the accuracy reached, never as a mesh
+limit (refining would only have made it worse).
 """
 
 from __future__ import annotations
@@ -28,41 +37,89 @@ from ..status import Status
 from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
+_SETTLED = 1e-10  # a full Newton step below this relative size: the iteration has converged
+_EVEN = 10.0  # a residual (or a mesh step) within this factor of the median marks no place (no layer)
+_NEAR_TOL = 100.0  # ... when the residual is within this factor of the tolerance (a converging mesh)
+_CRAWL = 0.01  # a round adding fewer nodes than this part of the mesh adds almost nothing
+_CRAWL_ROUNDS = 3  # such rounds in a row end the refinement
 _OUT_OF_DOMAIN_HALVINGS = 12  # steps down to 2^-12 of Newton's before a step out of the domain ends it
 _STATUS = {0: Status.SOLVED, 1: Status.MESH_LIMIT, 2: Status.SINGULAR, 3: Status.NOT_CONVERGED}
+_ROUNDING = float(np.finfo(float).eps)
+# The residual's derivative of the cubic takes differences of the node values with Hermite
+# weights up to 1.5 / h (the middle residual, 1.5 col / h, and |dH_0| + |dH_2| ~ 2.6 / h at the
+# Lobatto nodes, of values that partly cancel): the noise of one value of size |y| enters the
+# relative residual as about 1.5 eps |y| / h. Checked against the measured residuals of a pin
+# fin at tol 1e-10 and a Graetz eigenproblem at tol 1e-12, where the residual stopped falling
+# and rose again as the mesh was refined once it met this floor.
+_ROUNDOFF_WEIGHT = 1.5
 
 
-def _trouble(x: np.ndarray, rms: np.ndarray | None, place) -> str:  # noqa: ANN001
-    """Where the residual is worst, as words (a thin layer or steep front shows up there)."""
+def _trouble(x: np.ndarray, rms: np.ndarray | None, place, tol: float) -> str:  # noqa: ANN001
+    """Where the residual is worst, as words (a thin layer or steep front shows up there); a
+    residual close to the tolerance and even over an even mesh is no layer, but a tolerance
+    that needs more nodes everywhere."""
     if rms is None or rms.size != x.size - 1 or not np.any(np.isfinite(rms)):
         return ""
     i = int(np.nanargmax(rms))
+    h = np.diff(x)
+    if rms[i] <= _NEAR_TOL * tol and rms[i] <= _EVEN * np.nanmedian(rms) and h.min() >= np.median(h) / _EVEN:
+        return (" the residual is close to the tolerance and about the same size everywhere on an even "
+                "mesh (no layer): this tolerance needs more nodes than the limit with a method of order 4;")
     return f" the residual is largest near {place(0.5 * (x[i] + x[i + 1]))} (a thin layer or steep front?);"
 
 
 @dataclass
 class _State:
     """What a converged collocation solve keeps for its error estimate: the equations on the
-    final mesh, their residual pieces and the factored Newton matrix."""
+    final mesh, their residual pieces and the factored Newton matrix; ``floor`` is the largest
+    residual left unrefined because it was at the round-off level (0 when none was)."""
 
     equations: CollocationEquations
     parts: tuple
     lu: object
+    floor: float = 0.0
+
+
+def _floor_words(rms: np.ndarray | None, tol: float) -> str:
+    """The residual reached, in words."""
+    if rms is None or not np.any(np.isfinite(rms)):
+        return "unknown"
+    return f"{float(np.nanmax(rms)):.1g} at most, against the tolerance {tol:.1g}"
+
+
+def _roundoff_floor(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts,  # noqa: ANN001
+                    which: np.ndarray) -> np.ndarray:
+    """The smallest relative residual double precision allows on intervals ``which``: about
+    ``eps (1.5 (|y_i| + |y_i+1|) / h + |f| + |J| |y|) / (h_r + |f|)`` per row (the rounding of
+    the node values differenced over the step, and of the terms of the equations, whose sizes
+    ``|J| |y|`` may be far above their sum ``f``), combined over the rows like the residual."""
+    _, _, f, _, fm = parts
+    i = which
+    y0, y1 = np.abs(y[:, i]), np.abs(y[:, i + 1])
+    with np.errstate(all="ignore"):
+        jac = np.abs(eq.c.jac(eq.x[i], y[:, i], p, eq.k))  # (n, n, len(i))
+        terms = np.einsum("ijm,jm->im", jac, y0)
+        noise = _ROUNDOFF_WEIGHT * (y0 + y1) / eq.h[i] + np.abs(f[:, i]) + np.abs(fm[:, i]) + terms
+        relative = _ROUNDING * noise / (eq.scale + np.abs(fm[:, i]))
+    floor = np.sqrt(np.sum(relative**2, axis=0))
+    return np.where(np.isfinite(floor), floor, 0.0)
 
 
 def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):  # noqa: ANN202
     """Damped Newton on the collocation equations of one mesh (the iteration of ``solve_bvp``).
 
-    Returns ``(y, p, iterations, parts, lu)`` with ``parts`` the residual pieces at the
-    result and ``lu`` the last Newton matrix factored; raises :class:`SingularMatrix` when a
-    Newton matrix is singular.
+    Returns ``(y, p, iterations, parts, lu, settled)`` with ``parts`` the residual pieces at
+    the result, ``lu`` the last Newton matrix factored and ``settled`` whether the iteration
+    found a solution of these equations (its residual met its target, or its last full step
+    was below ``_SETTLED`` of the states: converged to round-off); raises
+    :class:`SingularMatrix` when a Newton matrix is singular.
     """
     n, m = eq.n, eq.m
     tol_r = 2 / 3 * eq.h * 5e-2 * tol  # interval residuals 1.5 orders below the residual tolerance
     sigma, tau, trials = 0.2, 0.5, 4
     parts = eq.parts(y, p)
     res = np.concatenate([parts[0].T.ravel(), parts[1]])
-    recompute, njev, iteration = True, 0, 0
+    recompute, njev, iteration, settled = True, 0, 0, False
     for iteration in range(1, 9):
         if recompute:
             lu = eq.factor(y, p, parts[3])
@@ -90,16 +147,19 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
         if not np.isfinite(cost_new):
             break  # no step stays in the equations' domain: stop at the last good iterate
         y, p, parts, res = y_new, p_new, parts_new, res_new
-        if njev == 4:
-            break
         col, bc, _, _, fm = parts
         if (np.abs(col) < tol_r * (eq.scale + np.abs(fm))).all() and (np.abs(bc) < tol).all():
+            settled = True
+            break
+        if alpha == 1.0 and np.max(np.abs(y_step) / (1.0 + np.abs(y)), initial=0.0) < _SETTLED:
+            settled = True  # a full step at round-off level: converged as far as double precision goes
+        if njev == 4:
             break
         if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp and BVP_SOLVER do)
             step, cost, recompute = step_new, cost_new, False
         else:
             recompute = True
-    return y, p, iteration, parts, lu
+    return y, p, iteration, parts, lu, settled
 
 
 def _rms_residuals(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, parts) -> np.ndarray:  # noqa: ANN001
@@ -153,6 +213,27 @@ class Collocation(Method):
     strengths = frozenset({"layers", "default"})
     takes_singular_term = True
 
+    def _solve_and_verify(self, trial: Trial) -> Outcome:
+        """The base class's solve and error estimate; a miss of the tolerance where the residual
+        stopped at the round-off level is :attr:`~bvpkit.status.Status.PRECISION_LIMIT`, with the
+        accuracy reached (the error estimate), not a failure to refine."""
+        outcome = super()._solve_and_verify(trial)
+        state = outcome.workspace
+        floor = state.floor if isinstance(state, _State) else 0.0
+        missed = outcome.status is Status.ERROR_TOO_LARGE and outcome.error_estimate is not None
+        if floor > trial.tol and missed:
+            outcome.status = Status.PRECISION_LIMIT
+            outcome.message = (
+                f"tolerance below what double precision allows here: on {outcome.x.size} nodes the residual "
+                f"stops at the round-off level (about {floor:.1g}) and refining would raise it; the accuracy "
+                f"reached is about {outcome.error_estimate:.2g} (estimated error), against the tolerance "
+                f"{trial.tol:.2g}; " + Status.PRECISION_LIMIT.hint
+            )
+        elif floor > trial.tol and outcome.ok:
+            outcome.message = outcome.message.replace(
+                "where it misses the tolerance", "in places, and the error estimate meets the tolerance")
+        return outcome
+
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x, y = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
@@ -169,10 +250,18 @@ class Collocation(Method):
             i, j = np.argwhere(~np.isfinite(f0))[0]
             names = c.layout.row_names
             values = ", ".join(f"{names[r]} = {y[r, j]:.4g}" for r in range(min(len(names), 4)))
+            if np.isinf(f0[i, j]):
+                # an overflow (exp of a large value) says the guess is far from the solution, not
+                # that it left the domain of log or sqrt
+                why = ("they overflow: the guess is far from the solution; give a better guess, or continue "
+                       "from an easier problem (homotopy)")
+            else:
+                why = Status.NON_FINITE.hint
             return Outcome(
                 Status.NON_FINITE,
-                f"the equations give NaN or inf for the derivative of {names[i]} at {trial.place(x[j])} with the "
-                f"guess ({values}): {Status.NON_FINITE.hint}",
+                f"the equations give NaN or inf ({'an overflow' if np.isinf(f0[i, j]) else 'NaN'}) for the "
+                f"derivative of {names[i]} at "
+                f"{trial.place(x[j])} with the guess ({values}): {why}",
                 x,
                 y,
                 p,
@@ -182,6 +271,10 @@ class Collocation(Method):
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
         tol = max(trial.tol, 1e-13)
         iterations, rms, code, rounds = 0, None, 3, 0
+        floor = 0.0  # the largest residual of this round left unrefined at the round-off level
+        unsettled: list[int] = []  # meshes on which Newton did not converge
+        crawl = 0  # rounds in a row that added almost no nodes beside intervals at the round-off floor
+        ever_settled, settled = False, True
         while True:  # ends: nodes are added each round until the residual is met or max_nodes is hit
             rounds += 1
             if trial.out_of_time():
@@ -190,11 +283,23 @@ class Collocation(Method):
                                x, y, p, iterations=iterations)
             eq = CollocationEquations(trial.compiled, x, trial.k)
             try:
-                y, p, used, parts, lu = _newton(eq, y, p, tol)
+                y, p, used, parts, lu, settled = _newton(eq, y, p, tol)
             except SingularMatrix:
                 code = 2
                 break
             iterations += used
+            if settled:
+                ever_settled = True
+            else:
+                unsettled.append(x.size)
+                if not ever_settled and trial.patience is not None and len(unsettled) >= trial.patience:
+                    meshes = " and ".join(str(m) for m in unsettled)
+                    return Outcome(
+                        Status.NOT_CONVERGED,
+                        f"Newton's method did not converge on the meshes of {meshes} nodes: the guess is far "
+                        "from a solution, and adding nodes does not bring it closer; "
+                        + Status.NOT_CONVERGED.hint,
+                        x, y, p, iterations=iterations)
             if not (np.isfinite(y).all() and np.isfinite(p).all()):
                 return Outcome(Status.NON_FINITE, "Newton's method ran into NaN or inf; " + Status.NON_FINITE.hint,
                                x, y, p, iterations=iterations)
@@ -202,12 +307,28 @@ class Collocation(Method):
             if not np.isfinite(rms).all():
                 return Outcome(Status.NON_FINITE, "the residual holds NaN or inf; " + Status.NON_FINITE.hint,
                                x, y, p, iterations=iterations)
-            one = np.flatnonzero((rms > tol) & (rms < 100 * tol))
-            two = np.flatnonzero(rms >= 100 * tol)
+            wanted, floor = rms, 0.0
+            over = np.flatnonzero(rms > tol)
+            if over.size:
+                # intervals whose residual is already at the round-off level: refining them
+                # would raise their floor (~ 1/h), not lower the residual
+                noisy = over[rms[over] <= _roundoff_floor(eq, y, p, parts, over)]
+                if noisy.size:
+                    floor = float(np.max(rms[noisy]))
+                    wanted = rms.copy()
+                    wanted[noisy] = 0.0
+            one = np.flatnonzero((wanted > tol) & (wanted < 100 * tol))
+            two = np.flatnonzero(wanted >= 100 * tol)
             if x.size + one.size + 2 * two.size > trial.max_nodes:
                 code = 1
                 break
             if one.size or two.size:
+                # rounds that add almost nothing while the rest of the residual sits at the round-off
+                # floor do not converge (seen: thousands of such rounds on an ill-conditioned problem)
+                crawl = crawl + 1 if floor > 0 and one.size + 2 * two.size < _CRAWL * x.size else 0
+                if crawl >= _CRAWL_ROUNDS:
+                    code = 4
+                    break
                 spline = Hermite(x, y, parts[2])
                 x = np.sort(np.concatenate([x, 0.5 * (x[one] + x[one + 1]), (2 * x[two] + x[two + 1]) / 3,
                                             (x[two] + 2 * x[two + 1]) / 3]))
@@ -218,19 +339,40 @@ class Collocation(Method):
                 break
             if rounds >= _ROUNDS:  # the residual is met but the conditions are not: Newton again, within limits
                 break
-        outcome = self._outcome(trial, code, x, y, p, iterations, rms)
+        outcome = self._outcome(trial, code, x, y, p, iterations, rms, settled)
         if code == 0:
-            outcome.workspace = _State(eq, parts, lu)  # for the error estimate
+            outcome.workspace = _State(eq, parts, lu, floor)  # for the error estimate
+            if floor > tol:
+                outcome.message += (f"; the residual is at the round-off level (about {floor:.1g}) where it "
+                                    "misses the tolerance")
         return outcome
 
-    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms) -> Outcome:  # noqa: ANN001
+    def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms,  # noqa: ANN001
+                 settled: bool = True) -> Outcome:
         status = _STATUS.get(code, Status.NOT_CONVERGED)
         if status is Status.SOLVED:
             message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} on {x.size} nodes"
+        elif status is Status.MESH_LIMIT and not settled:
+            # the residual that drove the refinement is that of an iterate, not of a solution:
+            # no layer can be read from it
+            message = (
+                f"mesh limit reached ({trial.max_nodes} nodes) with Newton's method not converged on the "
+                "last mesh: the guess may be far from a solution, or there may be no solution near it; give "
+                "a better guess, or trace the solution from an easier value of a constant"
+            )
         elif status is Status.MESH_LIMIT:
             message = (
-                f"mesh limit reached ({trial.max_nodes} nodes):{_trouble(x, rms, trial.place)} raise "
+                f"mesh limit reached ({trial.max_nodes} nodes):"
+                f"{_trouble(x, rms, trial.place, trial.tol)} raise "
                 "max_nodes, loosen tol or give a better guess"
+            )
+        elif code == 4:
+            status = Status.PRECISION_LIMIT
+            message = (
+                f"tolerance below what double precision allows here: on {x.size} nodes the residual is at "
+                f"the round-off level (about {_floor_words(rms, trial.tol)}) in places, and {_CRAWL_ROUNDS} "
+                "rounds in a row refined only a few intervals elsewhere without meeting the tolerance; "
+                + Status.PRECISION_LIMIT.hint
             )
         elif status is Status.SINGULAR:
             message = "the collocation Newton matrix is singular; " + status.hint
