@@ -74,4 +74,91 @@ def bratu(tol: float = 1e-6) -> str:
     return table(f"Bratu, lam = 1, lower branch, tol = {tol:g}", contenders, contenders[0].name, _bratu_reference())
 
 
-SECTIONS = [blasius_finite, bratu]
+
+
+def _small_problems() -> list[tuple[str, bvpkit.Problem, dict]]:
+    """Blasius, Bratu, Troesch, a beam and a layer: the small smooth problems of issue 15."""
+    return [
+        ("Blasius on [0, 10]", bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(10) = 1"],
+                                               (0, 10), guess={"f": "x - 1 + exp(-x)"}), {}),
+        ("Bratu, lam = 1", bvpkit.Problem(["y'' + exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1)), {}),
+        ("Troesch, mu = 5", bvpkit.Problem(["y'' = mu*sinh(mu*y)"], ["y(0) = 0", "y(1) = 1"], (0, 1),
+                                           constants={"mu": 5.0}), {}),
+        ("beam on an elastic bed", bvpkit.Problem(["EI*w'''' + kb*w = q"], ["w(0) = 0", "w''(0) = 0", "w(L) = 0",
+                                                                          "w''(L) = 0"], (0, "L"),
+                                                  constants={"EI": 2.0e3, "kb": 5.0e4, "q": 800.0, "L": 3.0}), {}),
+        ("layer, eps = 1e-3", bvpkit.Problem(["eps*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1),
+                                             constants={"eps": 1e-3}), {}),
+    ]
+
+
+def small_problems(tol: float = 1e-6, repeats: int = 7) -> str:
+    """Target: collocation at most 10x one Newton iteration (residual, exact Jacobian, one LU
+    and solve) on its own final mesh."""
+    import statistics
+    import time
+
+    from bvpkit.discrete import CollocationEquations
+
+    lines = [f"### Collocation against one Newton iteration on its final mesh, tol = {tol:g}", "",
+             "| problem | nodes | collocation, verify off (ms) | with error estimate (ms) | one Newton iteration (ms) "
+             "| ratio, verify off (target <= 10) | ratio with estimate |", "| --- | --- | --- | --- | --- | --- | --- |"]
+    for name, problem, _ in _small_problems():
+        prepared = bvpkit.prepare(problem)
+        sol = bvpkit.solve(prepared, method="collocation", tol=tol, verify=False)
+        view = sol.interpolant
+        eq = CollocationEquations(prepared.compiled, view.t, view.k)
+
+        def newton_iteration(eq=eq, y=view.y, p=view.p):  # noqa: ANN001, ANN202
+            col, bc, _, ym, _ = eq.parts(y, p)
+            return eq.factor(y, p, ym).solve(np.concatenate([col.T.ravel(), bc]))
+
+        runs = {"off": [], "on": [], "newton": []}
+        for _ in range(repeats):
+            for key in runs:
+                start = time.perf_counter()
+                if key == "newton":
+                    for _ in range(10):
+                        newton_iteration()
+                    runs[key].append((time.perf_counter() - start) / 10)
+                    continue
+                bvpkit.solve(prepared, method="collocation", tol=tol, verify=key == "on")
+                runs[key].append(time.perf_counter() - start)
+        off, on, one = (statistics.median(runs[k]) for k in ("off", "on", "newton"))
+        lines.append(f"| {name} | {view.t.size} | {1e3 * off:.2f} | {1e3 * on:.2f} | {1e3 * one:.3f} | "
+                     f"{off / one:.1f} [{min(runs['off']) / one:.1f}, {max(runs['off']) / one:.1f}] | {on / one:.1f} |")
+    return "\n".join(lines) + "\n"
+
+
+def sixth_order(tol: float = 1e-10, repeats: int = 5) -> str:
+    """Target: at tol 1e-10, the sixth-order method on at least 3x fewer nodes and in at most half the
+    time of the fourth-order one, on the small problems above (both with their error estimates)."""
+    import statistics
+    import time
+
+    lines = [f"### Sixth-order against fourth-order collocation, tol = {tol:g}, error estimates on", "",
+             "| problem | 4th: nodes | 6th: mesh nodes (output points) | node ratio (target >= 3) | 4th (ms) | "
+             "6th (ms) | time ratio 4th/6th (target >= 2) | 4th estimate | 6th estimate |",
+             "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
+    for name, problem, _ in _small_problems():
+        prepared = bvpkit.prepare(problem)
+        runs = {"collocation": [], "collocation6": []}
+        sols = {}
+        for _ in range(repeats):
+            for method in runs:
+                start = time.perf_counter()
+                sols[method] = bvpkit.solve(prepared, method=method, tol=tol)
+                runs[method].append(time.perf_counter() - start)
+        four, six = sols["collocation"], sols["collocation6"]
+        if not (four.success and six.success):
+            lines.append(f"| {name} | {four.status.word} | {six.status.word}: {six.message[:60]} | | | | | | |")
+            continue
+        mesh6 = (six.x.size - 1) // 3 + 1
+        t4, t6 = statistics.median(runs["collocation"]), statistics.median(runs["collocation6"])
+        lines.append(f"| {name} | {four.x.size} | {mesh6} ({six.x.size}) | {four.x.size / mesh6:.1f} "
+                     f"({four.x.size / six.x.size:.1f} by output points) | {1e3 * t4:.1f} | {1e3 * t6:.1f} | "
+                     f"{t4 / t6:.2f} | {four.diagnostics.error_estimate:.1e} | {six.diagnostics.error_estimate:.1e} |")
+    return "\n".join(lines) + "\n"
+
+
+SECTIONS = [blasius_finite, bratu, small_problems, sixth_order]

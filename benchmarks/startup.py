@@ -38,8 +38,9 @@ def startup(repeats: int = 5) -> str:
         f"Medians of {repeats} runs each, alternating; cold runs start from an empty cache folder. "
         f"Floor: `python -c \"{_FLOOR}\"`.",
         "",
-        "| spec | cold (s) | warm (s) | floor (s) |",
-        "| --- | --- | --- | --- |",
+        "| spec | cold (s) | warm (s) | floor (s) | cold / floor (target <= 2.5) | warm / floor (target <= 1.3) "
+        "| warm: ranges (s) |",
+        "| --- | --- | --- | --- | --- | --- | --- |",
     ]
     for spec in SPECS:
         cold, warm, floor = [], [], []
@@ -52,9 +53,23 @@ def startup(repeats: int = 5) -> str:
                     cold.append(_time(command, {**os.environ, "BVPKIT_CACHE_DIR": empty}))
                 warm.append(_time(command, warm_env))
                 floor.append(_time([sys.executable, "-c", _FLOOR], dict(os.environ)))
-        lines.append(f"| {spec} | {statistics.median(cold):.2f} | {statistics.median(warm):.2f} | "
-                     f"{statistics.median(floor):.2f} |")
+        c, w, f = (statistics.median(v) for v in (cold, warm, floor))
+        lines.append(f"| {spec} | {c:.2f} | {w:.2f} | {f:.2f} | {c / f:.2f} | {w / f:.2f} | "
+                     f"{min(warm):.2f}-{max(warm):.2f} (floor {min(floor):.2f}-{max(floor):.2f}) |")
+    lines += ["", "Heavy modules a warm `bvpkit solve` imports (none expected): " + (_heavy() or "none"), ""]
     return "\n".join(lines) + "\n"
+
+
+def _heavy() -> str:
+    """Which of SymPy, pydantic and SciPy's integrate/optimize a warm solve imports."""
+    with tempfile.TemporaryDirectory() as kept:
+        env = {**os.environ, "BVPKIT_CACHE_DIR": kept}
+        command = [sys.executable, "-X", "importtime", "-m", "bvpkit", "solve", f"specs/{SPECS[0]}"]
+        subprocess.run(command, env=env, cwd=ROOT, capture_output=True)
+        done = subprocess.run(command, env=env, cwd=ROOT, capture_output=True, text=True)
+    names = {line.rsplit("|", 1)[-1].strip() for line in done.stderr.splitlines() if "|" in line}
+    heavy = sorted(n for n in names if n in ("sympy", "pydantic", "scipy.integrate", "scipy.optimize", "matplotlib"))
+    return ", ".join(heavy)
 
 
 SECTIONS = [startup]

@@ -240,7 +240,9 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     # Jacobians would cost more than the solve it guides.
     every = max(1, -(-(x.size - 1) // (_SURVEY_POINTS - 1)))
     at = np.unique(np.concatenate([np.arange(0, x.size, every), [x.size - 1]]))
-    with np.errstate(all="ignore"):
+    from .discrete import one_blas_thread
+
+    with np.errstate(all="ignore"), one_blas_thread(compiled.n):  # threaded eigvals: 20x slower on 2 busy cores
         jac = compiled.jac(x[at], y[:, at], p, k)  # (n, n, len(at))
         finite = bool(np.isfinite(jac).all())
         eig = np.linalg.eigvals(np.moveaxis(jac, -1, 0)) if finite else np.full((at.size, 1), np.nan)

@@ -7,24 +7,25 @@ is assembled from codegen's exact ``df/dy`` and ``df/dp`` (the block formulas ar
 SciPy's own ``construct_global_jac``, with batched matrix products). Used by bvpkit's
 collocation solver (with its error estimate) and pseudo-arclength continuation.
 
-Linear algebra: when every boundary condition involves one end only and there are no
-unknown parameters, the rows are ordered left conditions, interval rows, right conditions,
-which makes the Newton matrix banded (``n - 1 + k_left`` sub- and ``2n - 1 - k_left``
-super-diagonals); it is factored with LAPACK's banded LU (``dgbtrf``), several times faster
-than a general sparse LU of the same matrix. Otherwise a sparse LU (SuperLU) is used.
+Linear algebra (:func:`factor_blocks`, for collocation and multiple shooting): the Newton
+matrix is embedded in a banded one with every condition separated (parameters and the
+left-end states that right-end conditions read carried along the mesh as constant copies),
+its rows ordered left conditions, interval rows, right conditions, and factored with
+LAPACK's banded LU (``dgbtrf``) in one call; large systems with sparse Jacobians go to a
+sparse LU (SuperLU) of the matrix without its zero entries, the crossover measured in
+``benchmarks/scale.py``.
 """
 
 from __future__ import annotations
 
+import contextlib
 import functools
-import math
 
 import numpy as np
 import scipy.sparse as sparse
 from scipy.sparse.linalg import splu
 
 
-_MAX_NEWTON = 12
 # Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
 _D = 0.5 * np.sqrt(3 / 7)  # = sqrt(21) / 14
 _T = np.array([0.5 - _D, 0.5 + _D])
@@ -100,28 +101,279 @@ class SingularMatrix(RuntimeError):
     """The Newton matrix is exactly singular (or holds NaN or inf)."""
 
 
-class Factored:
-    """An LU of the Newton matrix with ``solve(b, trans="N" | "T")``, banded or sparse.
+# States up to which the banded LU is used whatever the blocks hold; above, a sparse LU when the
+# blocks are sparse and their coupling is local (a small bandwidth once reordered), so that
+# SuperLU's fill stays small. Measured (benchmarks/scale.py, "crossover" and "large"): on the
+# reacting chain the banded LU wins at 50 states (27 against 47 ms) and the sparse one from
+# 100 (175 against 300 ms; 330 against 950 at 200; 0.9 against 6.1 s at 400); on blocks with
+# scattered couplings SuperLU fills them in and the banded LU stays 2-4x ahead up to 150.
+BAND_LIMIT = 64
+SPARSE_DENSITY = 0.25  # share of non-zero entries of the interval blocks above which sparse cannot pay
+SPARSE_BANDWIDTH = 0.25  # bandwidth of the blocks (reordered), as a share of the states, above which neither
 
-    ``rows`` is the row order of the banded form (None for the sparse LU).
+
+class Factored:
+    """An LU of a bordered block-bidiagonal Newton matrix with ``solve(b, trans="N" | "T")``.
+
+    Banded: the matrix ``M`` is embedded in a larger banded one ``M+`` (see
+    :func:`factor_blocks`): ``row_map[r]`` is the band row of row ``r`` of ``M``,
+    ``unknown_map[j]`` the band column of unknown ``j``. ``M z = b`` is ``M+ z+ = b+`` with
+    ``b+`` zero on the added rows; ``M^T u = b`` is ``M+^T v = d`` with ``d`` holding ``b``
+    on the mapped unknowns, ``u = v[row_map]`` (the added rows only copy unknowns, so their
+    columns sum back to those of ``M``). Sparse: SciPy's SuperLU.
     """
 
-    def __init__(self, size: int, lu=None, band=None, rows=None):  # noqa: ANN001
-        self.size, self._lu, self._band, self._rows = size, lu, band, rows
+    def __init__(self, size: int, lu=None, band=None, maps=None, dense=None):  # noqa: ANN001
+        self.size, self._lu, self._band, self._dense = size, lu, band, dense
+        self._maps = maps
+
+    @property
+    def banded(self) -> bool:
+        return self._band is not None
 
     def solve(self, b: np.ndarray, trans: str = "N") -> np.ndarray:
         if self._lu is not None:
             return self._lu.solve(b, trans=trans)
+        if self._dense is not None:
+            from scipy.linalg.lapack import dgetrs
+
+            lu, piv = self._dense
+            return dgetrs(lu, piv, b, trans=0 if trans == "N" else 1)[0]
         from scipy.linalg.lapack import dgbtrs
 
         lu, piv, kl, ku = self._band
+        rows, unknowns, order, plain = self._maps
+        if plain:  # rows only reordered, unknowns as they are
+            if trans == "N":
+                return dgbtrs(lu, kl, ku, b[order], piv)[0]
+            return dgbtrs(lu, kl, ku, b, piv, trans=1)[0][rows]
+        full = np.zeros((lu.shape[1],) + b.shape[1:])
         if trans == "N":
-            x, info = dgbtrs(lu, kl, ku, b[self._rows], piv)
-            return x
-        u, info = dgbtrs(lu, kl, ku, b, piv, trans=1)
-        out = np.empty_like(u)
-        out[self._rows] = u
-        return out
+            full[rows] = b
+            x, info = dgbtrs(lu, kl, ku, full, piv)
+            return x[unknowns]
+        full[unknowns] = b
+        u, info = dgbtrs(lu, kl, ku, full, piv, trans=1)
+        return u[rows]
+
+
+@functools.lru_cache(maxsize=64)
+def _maps(k: int, n: int, n_p: int, n_bc: int, left_rows: tuple, right_rows: tuple, q: int):  # noqa: ANN202
+    """Row and unknown maps of the banded embedding (see :func:`_augmented`); the band order of
+    the rows (``order[band row] = row``, -1 for an added row); whether both maps are trivial."""
+    N = n + q + n_p
+    ka = len(left_rows) + q
+    row_map = np.empty((k - 1) * n + n_bc, int)
+    row_map[: (k - 1) * n] = (ka + np.arange(k - 1)[:, None] * N + np.arange(n)[None, :]).ravel()
+    row_map[(k - 1) * n + np.asarray(left_rows, int)] = np.arange(len(left_rows))
+    row_map[(k - 1) * n + np.asarray(right_rows, int)] = ka + (k - 1) * N + np.arange(len(right_rows))
+    unknown_map = np.concatenate([(np.arange(k)[:, None] * N + np.arange(n)[None, :]).ravel(),
+                                  n + q + np.arange(n_p)])
+    order = np.full(N * k, -1)
+    order[row_map] = np.arange(row_map.size)
+    plain = q == 0 and n_p == 0
+    for array in (row_map, unknown_map, order):
+        array.setflags(write=False)
+    return row_map, unknown_map, order, plain
+
+
+def _augmented(left, right, parameters, a, b, dp):  # noqa: ANN001, ANN202
+    """The blocks of the banded embedding of a bordered block-bidiagonal matrix.
+
+    Every condition becomes separated (Ascher and Russell 1981, the reformulation into
+    standard form, done here on the linear system): the parameters ride along each node as
+    constant unknowns (``p_i+1 - p_i = 0``), and the states at ``t = 0`` that a condition at
+    ``t = 1`` also reads (multipoint continuity, periodic conditions) are carried to the
+    right end as copies ``w`` (``w_0 = y_0[c]``, ``w_i+1 = w_i``). Per node the unknowns are
+    ``(y, w, p)``, ``N = n + q + n_p`` of them; conditions touching ``y(1)`` go last, the
+    others (and the copy starts) first. Returns the interval blocks ``(m-1, N, N)``, the
+    left and right condition blocks, and the maps of :func:`_maps`.
+    """
+    k, n = left.shape[0] + 1, left.shape[1]
+    n_p = 0 if parameters is None else parameters.shape[2]
+    touches_right = np.any(b != 0, axis=1)
+    right_rows = np.flatnonzero(touches_right)
+    left_rows = np.flatnonzero(~touches_right)
+    carried = np.flatnonzero(np.any(a[right_rows] != 0, axis=0)) if right_rows.size else np.zeros(0, int)
+    q = carried.size
+    N = n + q + n_p
+    if q == 0 and n_p == 0:
+        L, R = left, right
+    else:
+        L = np.zeros((k - 1, N, N))
+        R = np.zeros((k - 1, N, N))
+        L[:, :n, :n], R[:, :n, :n] = left, right
+        if n_p:
+            L[:, :n, n + q:] = parameters
+        extra = np.arange(n, N)
+        L[:, extra, extra] = -1.0
+        R[:, extra, extra] = 1.0
+    ka = left_rows.size + q
+    A = np.zeros((ka, N))
+    A[: left_rows.size, :n] = a[left_rows]
+    if n_p:
+        A[: left_rows.size, n + q:] = dp[left_rows]
+    A[left_rows.size + np.arange(q), carried] = -1.0
+    A[left_rows.size + np.arange(q), n + np.arange(q)] = 1.0
+    B = np.zeros((right_rows.size, N))
+    B[:, :n] = b[right_rows]
+    if q:
+        B[:, n:n + q] = a[right_rows][:, carried]
+    if n_p:
+        B[:, n + q:] = dp[right_rows]
+    maps = _maps(k, n, n_p, a.shape[0], tuple(left_rows.tolist()), tuple(right_rows.tolist()), q)
+    return L, R, A, B, maps
+
+
+def _band_storage(L, R, A, B) -> tuple[np.ndarray, int, int]:  # noqa: ANN001
+    """LAPACK banded storage ``ab[kl + ku + r - c, c] = M[r, c]`` of the separated block matrix
+    (rows: ``A`` on the first block, the interval rows, ``B`` on the last block).
+
+    The interval blocks are written through strided views of the storage (entry ``(i, r, c)``
+    of the left block goes to ``ab[kl + ku + ka + r - c, i N + c]``), no index arrays; ``ab``
+    is column-major, as LAPACK takes it.
+    """
+    k, N = L.shape[0] + 1, L.shape[1]
+    ka = A.shape[0]
+    kl = ka + N - 1
+    ku = max(2 * N - 1 - ka, N - 1)
+    ldab = 2 * kl + ku + 1
+    size = N * k
+    flat = np.zeros(size * ldab)  # column-major (LAPACK's order): entry (d, c) at c * ldab + d
+    item = flat.itemsize
+    strides = (N * ldab * item, item, (ldab - 1) * item)
+    top = kl + ku + ka
+    for block, offset in ((L, top), (R, N * ldab + top - N)):
+        np.ndarray(block.shape, float, flat, offset * item, strides)[...] = block
+    first, last = _condition_positions(k, N, ka, B.shape[0])
+    flat[first] = A.ravel()
+    flat[last] = B.ravel()
+    return flat.reshape(size, ldab).T, kl, ku
+
+
+@functools.lru_cache(maxsize=64)
+def _condition_positions(k: int, N: int, ka: int, kb: int) -> tuple[np.ndarray, np.ndarray]:
+    """Flat positions (column-major banded storage) of the condition blocks' entries."""
+    kl = ka + N - 1
+    ku = max(2 * N - 1 - ka, N - 1)
+    ldab = 2 * kl + ku + 1
+    size = N * k
+    out = []
+    for rows, first_col in ((np.arange(ka), 0), (np.arange(size - kb, size), size - N)):
+        r, c = np.meshgrid(rows, first_col + np.arange(N), indexing="ij")
+        out.append((c * ldab + kl + ku + r - c).ravel())
+    return out[0], out[1]
+
+
+#: States from which the Newton solve runs BLAS on one thread. Below, the BLAS calls are too
+#: small for OpenBLAS to thread them anyway; above, threads oversubscribe the cores of a
+#: machine that does anything else (a sweep's other worker, a second job): measured on the
+#: 200-state chain of benchmarks/scale.py, 0.9 s on one thread against 8.8-9.9 s with the
+#: default two threads on a 2-core machine with one other busy process (section "threads").
+THREADS_FROM = 16
+_CONTROLLER: list = []
+
+
+def one_blas_thread(n: int):  # noqa: ANN201 - a context manager
+    """A context in which BLAS runs on one thread, for a system of ``n`` states (none below
+    ``THREADS_FROM``, or when threadpoolctl is missing)."""
+    if n < THREADS_FROM:
+        return contextlib.nullcontext()
+    if not _CONTROLLER:
+        try:
+            from threadpoolctl import ThreadpoolController
+        except ImportError:  # pragma: no cover - a core dependency, but the solve runs without it
+            _CONTROLLER.append(None)
+        else:
+            _CONTROLLER.append(ThreadpoolController())
+    controller = _CONTROLLER[0]
+    return contextlib.nullcontext() if controller is None else controller.limit(limits=1, user_api="blas")
+
+
+@functools.lru_cache(maxsize=32)
+def _sparse_pays(n: int, packed: bytes) -> bool:
+    p = np.unpackbits(np.frombuffer(packed, np.uint8))[: n * n].reshape(n, n).astype(np.int64)
+    blocks = (p + np.eye(n, dtype=np.int64) + p @ p) > 0
+    if blocks.mean() > SPARSE_DENSITY:
+        return False
+    from scipy.sparse.csgraph import reverse_cuthill_mckee
+
+    symmetric = sparse.csr_matrix(blocks | blocks.T)
+    order = reverse_cuthill_mckee(symmetric, symmetric_mode=True)
+    r, c = np.nonzero(blocks[np.ix_(order, order)])
+    return bool(np.abs(r - c).max() <= SPARSE_BANDWIDTH * n)
+
+
+def sparse_pays(pattern: np.ndarray) -> bool:
+    """Whether the sparse LU pays for collocation blocks of this Jacobian pattern ``(n, n)``:
+    more than ``BAND_LIMIT`` states, blocks (``I + J + J J``) sparser than ``SPARSE_DENSITY``
+    and, reordered by reverse Cuthill-McKee, of a bandwidth within ``SPARSE_BANDWIDTH`` of the
+    states (local coupling: chains, grids of the method of lines), so that SuperLU's fill stays small."""
+    pattern = np.asarray(pattern, bool)
+    n = pattern.shape[0]
+    if n <= BAND_LIMIT:
+        return False
+    return _sparse_pays(n, np.packbits(pattern).tobytes())
+
+
+def factor_blocks(left: np.ndarray, right: np.ndarray, parameters: np.ndarray | None, a: np.ndarray,
+                  b: np.ndarray, dp: np.ndarray | None, scale: np.ndarray | None = None,
+                  sparse_blocks: bool | None = None) -> Factored:
+    """LU of the bordered block-bidiagonal matrix of :func:`block_matrix` (same arguments).
+
+    Small blocks (``N <= BAND_LIMIT`` unknowns per node, copies and parameters included) or
+    dense ones: LAPACK's banded LU (``dgbtrf``) of the banded embedding (:func:`_augmented`),
+    whatever the conditions: separated, non-separated (multipoint continuity links ``t = 0``
+    and ``t = 1``) or with unknown parameters. One LAPACK call, no Python work per node.
+    Large sparse blocks (``sparse_blocks``; default: measured from ``left``): SuperLU of the
+    matrix with its zero entries dropped (its fill-reducing column order then sees the
+    coupling of the equations, not full blocks). Raises :class:`SingularMatrix` when the
+    matrix is singular or not finite.
+    """
+    k, n = left.shape[0] + 1, left.shape[1]
+    n_p = 0 if parameters is None else parameters.shape[2]
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    dp = np.zeros((a.shape[0], 0)) if dp is None or n_p == 0 else np.asarray(dp, float).reshape(a.shape[0], n_p)
+    size = n * k + n_p
+    if scale is not None:
+        row = scale[: (k - 1) * n].reshape(k - 1, n, 1)
+        left, right = left * row, right * row
+        if parameters is not None:
+            parameters = parameters * row
+        s = scale[(k - 1) * n:, None]
+        a, b, dp = a * s, b * s, dp * s
+    if k == 1:  # one block (single shooting): the conditions alone, a small dense LU
+        from scipy.linalg.lapack import dgetrf
+
+        matrix = np.hstack([a + b, dp])
+        if not np.isfinite(matrix).all():
+            raise SingularMatrix("the Newton matrix holds NaN or inf")
+        lu, piv, info = dgetrf(matrix)  # LAPACK itself: a singular matrix is our error, not a warning
+        if info != 0:
+            raise SingularMatrix("the Newton matrix is singular")
+        return Factored(size, dense=(lu, piv))
+    if sparse_blocks is None:
+        sparse_blocks = n > BAND_LIMIT and np.count_nonzero(left[0]) + np.count_nonzero(left[-1]) <= \
+            2 * SPARSE_DENSITY * n * n
+    if sparse_blocks:
+        matrix = block_matrix(left, right, parameters, a, b, dp if n_p else None)
+        if not np.isfinite(matrix.data).all():
+            raise SingularMatrix("the Newton matrix holds NaN or inf")
+        matrix.eliminate_zeros()
+        try:
+            return Factored(size, lu=splu(matrix))
+        except RuntimeError as err:
+            raise SingularMatrix(str(err)) from None
+    from scipy.linalg.lapack import dgbtrf
+
+    L, R, A, B, maps = _augmented(left, right, parameters, a, b, dp)
+    ab, kl, ku = _band_storage(L, R, A, B)
+    lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
+    if info > 0:
+        raise SingularMatrix("the Newton matrix is singular")
+    if not np.isfinite(lu[kl + ku]).all():  # NaN or inf anywhere in the matrix reach U's diagonal
+        raise SingularMatrix("the Newton matrix holds NaN or inf")
+    return Factored(size, band=(lu, piv, kl, ku), maps=maps)
 
 
 class CollocationEquations:
@@ -144,8 +396,8 @@ class CollocationEquations:
         # set by parts() for the parameters it is called with (a free end moves it)
         self.scale = np.ones((self.n, 1))
         self.n_bc = sides.size
-        self.banded = bool(self.n_p == 0 and (sides < 2).all())
-        self.sides = sides
+        self._sparse_blocks: bool | None = None
+        self._scaled: bool | None = None
 
     @property
     def weights(self) -> np.ndarray:
@@ -166,7 +418,9 @@ class CollocationEquations:
     def parts(self, y: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Interval residuals ``(n, m-1)``, boundary residuals, and ``f``, ``y_mid``, ``f_mid``."""
         c, k, h = self.c, self.k, self.h
-        self.scale = c.row_scale(p, k)
+        if self.n_p or self._scaled is None:  # the region lengths move only with the parameters
+            self.scale = c.row_scale(p, k)
+            self._scaled = True
         f = c.rhs(self.x, y, p, k)
         ym = midpoint_values(y, f, h)
         fm = c.rhs(self.mid, ym, p, k)
@@ -213,79 +467,72 @@ class CollocationEquations:
         left, right, pblock, (a, b, dp) = blocks
         return block_matrix(left, right, pblock, a, b, dp if self.n_p else None, scale)
 
-    def _band_layout(self):  # noqa: ANN202
-        """Row order and band widths for separated conditions (rows: left conditions, interval
-        rows, right conditions), and the banded-storage offsets of the interval blocks."""
-        if getattr(self, "_layout", None) is None:
-            n, m = self.n, self.m
-            left_rows = np.flatnonzero(self.sides == 0)
-            right_rows = np.flatnonzero(self.sides == 1)
-            ka = left_rows.size
-            base = (m - 1) * n
-            order = np.concatenate([base + left_rows, np.arange(base), base + right_rows])
-            kl = ka + n - 1  # interval rows: row ka + i n + j, columns i n .. (i + 2) n - 1
-            ku = max(2 * n - 1 - ka, n - 1)
-            ldab = 2 * kl + ku + 1
-            # flat positions (column-major banded storage) of the condition blocks' entries
-            size = n * m
-            positions = []
-            for rows, first_col in ((np.arange(ka), 0), (np.arange(size - right_rows.size, size), size - n)):
-                r, c = np.meshgrid(rows, first_col + np.arange(n), indexing="ij")
-                positions.append((c * ldab + kl + ku + r - c).ravel())
-            self._layout = (order, kl, ku, ldab, left_rows, right_rows, positions)
-        return self._layout
-
-    def _banded(self, blocks, scale: np.ndarray | None) -> tuple[np.ndarray, int, int, np.ndarray]:  # noqa: ANN001
-        """LAPACK banded storage ``ab[kl + ku + r - c, c] = M[r, c]`` of the Newton matrix.
-
-        The interval blocks are written through strided views of the storage (entry ``(i, r, c)`` of the
-        left block goes to ``ab[kl + ku + ka + r - c, i n + c]``), no index arrays; ``ab`` is
-        column-major, as LAPACK takes it.
-        """
-        order, kl, ku, ldab, left_rows, right_rows, positions = self._band_layout()
-        left, right, _, (a, b, _) = blocks
-        n, m = self.n, self.m
-        size = n * m
-        ka = left_rows.size
-        if scale is not None:
-            row = scale[: (m - 1) * n].reshape(m - 1, n, 1)
-            left, right = left * row, right * row
-            a, b = a * scale[(m - 1) * n:, None], b * scale[(m - 1) * n:, None]
-        flat = np.zeros(size * ldab)  # column-major (LAPACK's order): entry (d, c) at c * ldab + d
-        item = flat.itemsize
-        strides = (n * ldab * item, item, (ldab - 1) * item)
-        top = kl + ku + ka
-        for block, offset in ((left, top), (right, n * ldab + top - n)):
-            np.ndarray(block.shape, float, flat, offset * item, strides)[...] = block
-        flat[positions[0]] = np.asarray(a)[left_rows].ravel()
-        flat[positions[1]] = np.asarray(b)[right_rows].ravel()
-        return flat.reshape(size, ldab).T, kl, ku, order
-
     def factor(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None,
                scale: np.ndarray | None = None) -> Factored:
-        """LU of the Newton matrix at ``(y, p)`` (rows multiplied by ``scale``, if given).
+        """LU of the Newton matrix at ``(y, p)`` (rows multiplied by ``scale``, if given), by
+        :func:`factor_blocks`; large systems with sparse Jacobians assemble their blocks
+        sparse (:meth:`_sparse_matrix`). Raises :class:`SingularMatrix` when it is singular
+        or not finite."""
+        if self._sparse_blocks is None:
+            self._sparse_blocks = sparse_pays(self.c.jac_pattern)
+        with one_blas_thread(self.n):
+            if self._sparse_blocks:
+                matrix = self._sparse_matrix(y, p, ym, scale)
+                if not np.isfinite(matrix.data).all():
+                    raise SingularMatrix("the collocation matrix holds NaN or inf")
+                try:
+                    return Factored(self.n * self.m + self.n_p, lu=splu(matrix))
+                except RuntimeError as err:
+                    raise SingularMatrix(str(err)) from None
+            left, right, pblock, (a, b, dp) = self._blocks(y, p, ym)
+            return factor_blocks(left, right, pblock, a, b, dp if self.n_p else None, scale, False)
 
-        Raises :class:`SingularMatrix` when it is singular or not finite.
-        """
-        blocks = self._blocks(y, p, ym)
-        size = self.n * self.m + self.n_p
-        if not self.banded:
-            matrix = self._sparse(blocks, scale)
-            if not np.isfinite(matrix.data).all():
-                raise SingularMatrix("the collocation matrix holds NaN or inf")
-            try:
-                return Factored(size, lu=splu(matrix))
-            except RuntimeError as err:
-                raise SingularMatrix(str(err)) from None
-        from scipy.linalg.lapack import dgbtrf
+    def _sparse_matrix(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None,
+                       scale: np.ndarray | None) -> sparse.csc_matrix:
+        """The Newton matrix assembled from the Jacobian's non-zero pattern only: the blocks
+        ``-+I - h/6 (J + 2 Jm +- h/2 Jm J)`` as block-diagonal sparse products, in time
+        proportional to the non-zeros, not to ``n^2`` or ``n^3`` per interval."""
+        c, k, h, n, m = self.c, self.k, self.h, self.n, self.m
+        if ym is None:
+            ym = midpoint_values(y, c.rhs(self.x, y, p, k), h)
+        r, col = np.nonzero(c.jac_pattern)
+        J = c.jac(self.x, y, p, k)[r, col, :]  # (nnz, m)
+        Jm = c.jac(self.mid, ym, p, k)[r, col, :]  # (nnz, m - 1)
+        size = (m - 1) * n
+        base = (np.arange(m - 1) * n)[None, :]
+        rows, cols = (r[:, None] + base).ravel(order="F"), (col[:, None] + base).ravel(order="F")
 
-        ab, kl, ku, order = self._banded(blocks, scale)
-        lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
-        if info > 0:
-            raise SingularMatrix("the collocation matrix is singular")
-        if not np.isfinite(lu[kl + ku]).all():  # NaN or inf anywhere in the matrix reach U's diagonal
-            raise SingularMatrix("the collocation matrix holds NaN or inf")
-        return Factored(size, band=(lu, piv, kl, ku), rows=order)
+        def diag(values: np.ndarray) -> sparse.csr_matrix:
+            return sparse.csr_matrix((values.ravel(order="F"), (rows, cols)), shape=(size, size))
+
+        hrow = np.repeat(h, n)
+        Dm = diag(Jm)
+        Jl, Jr = diag(J[:, :-1]), diag(J[:, 1:])
+        half = sparse.diags(hrow / 2)
+        eye = sparse.identity(size, format="csr")
+        left = -eye - sparse.diags(hrow / 6) @ (Jl + 2 * Dm + half @ (Dm @ Jl))
+        right = eye - sparse.diags(hrow / 6) @ (Jr + 2 * Dm - half @ (Dm @ Jr))
+        zeros = sparse.csr_matrix((size, n))
+        interval = sparse.hstack([left, zeros]) + sparse.hstack([zeros, right])
+        a, b, dp = c.bc_jac(y[:, 0], y[:, -1], p, k)
+        bc = np.zeros((self.n_bc, n * m))
+        bc[:, :n] = a
+        bc[:, -n:] += b
+        blocks = [[interval], [sparse.csr_matrix(bc)]]
+        if self.n_p:
+            P = c.pjac(self.x, y, p, k)
+            Pm = c.pjac(self.mid, ym, p, k)
+            dym = -h / 8 * (P[:, :, 1:] - P[:, :, :-1])  # (n, n_p, m - 1)
+            JmDym = np.einsum("ijm,jkm->ikm", c.jac(self.mid, ym, p, k), dym)
+            pblock = -h / 6 * (P[:, :, :-1] + P[:, :, 1:] + 4 * (Pm + JmDym))
+            blocks = [[interval, sparse.csr_matrix(np.moveaxis(pblock, -1, 0).reshape(size, self.n_p))],
+                      [sparse.csr_matrix(bc), sparse.csr_matrix(np.reshape(dp, (self.n_bc, self.n_p)))]]
+        matrix = sparse.bmat(blocks, format="csr")
+        if scale is not None:
+            matrix = sparse.diags(scale) @ matrix
+        matrix = matrix.tocsc()
+        matrix.eliminate_zeros()
+        return matrix
 
     def lobatto_residuals(self, y: np.ndarray, p: np.ndarray, parts) -> tuple:  # noqa: ANN001
         """Residual ``S' - f(x, S)`` of the cubic ``S`` at the two interior 5-point Lobatto nodes
@@ -339,34 +586,5 @@ class CollocationEquations:
         x = np.empty(2 * self.m - 1)
         x[::2], x[1::2] = self.x, self.mid
         return x, fine, p_new
-
-    def tangent(self, z: np.ndarray, previous: np.ndarray) -> np.ndarray:
-        """Unit tangent (weighted norm) of the solution curve at ``z``, oriented like ``previous``."""
-        matrix = sparse.vstack([self.jacobian(z), sparse.csr_matrix(previous * self.weights)]).tocsc()
-        rhs = np.zeros(matrix.shape[0])
-        rhs[-1] = 1.0
-        t = splu(matrix).solve(rhs)
-        t /= math.sqrt(float(np.sum(self.weights * t * t)))
-        return t if float(np.sum(self.weights * t * previous)) >= 0 else -t
-
-    def correct(self, predicted: np.ndarray, tangent: np.ndarray, tol: float) -> tuple[np.ndarray | None, int]:
-        """Newton on ``G(z) = 0``, ``<t, z - z_pred> = 0``; None when it does not converge."""
-        z = predicted.copy()
-        border = sparse.csr_matrix(tangent * self.weights)
-        for it in range(1, _MAX_NEWTON + 1):
-            g = self.residual(z)
-            r = np.concatenate([g, [float(np.sum(self.weights * tangent * (z - predicted)))]])
-            if not np.isfinite(r).all():
-                return None, it
-            try:
-                step = splu(sparse.vstack([self.jacobian(z), border]).tocsc()).solve(-r)
-            except RuntimeError:
-                return None, it
-            z = z + step
-            if not np.isfinite(z).all():
-                return None, it
-            if np.max(np.abs(step) / (1.0 + np.abs(z))) <= 0.01 * tol:
-                return z, it
-        return None, _MAX_NEWTON
 
 

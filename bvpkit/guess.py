@@ -147,12 +147,33 @@ def _function(program: dict) -> Any:
 def guess_recipes(problem, form) -> dict[str, GuessRecipe]:  # noqa: ANN001 - Problem, StandardForm
     """The recipe of every unknown's default guess: its own guess expression, else the polynomial."""
     recipes = {}
+    index = None
     for name, order in form.functions:
         if name in problem.guess:
             recipes[name] = expression_recipe(problem, form, name, problem.guess[name])
         else:
-            recipes[name] = _polynomial_recipe(form, name, order)
+            index = index or _condition_index(form)  # once per problem, not once per function
+            recipes[name] = _polynomial_recipe(form, name, order, index)
     return recipes
+
+
+def _condition_index(form) -> tuple[dict, dict]:  # noqa: ANN001 - StandardForm
+    """The point-value symbols ``{symbol: (state, point)}`` and, per unknown function, the
+    conditions whose point values are all of that function, with the symbols they use."""
+    import sympy as sp
+
+    if not form.point_conditions:
+        return {}, {}
+    conditions, symbols = form.point_conditions
+    what = {sp.Symbol(s, real=True): (state, point) for s, state, point, _ in symbols}
+    owner = {s: form.states[state][0] for s, (state, _) in what.items()}
+    by_name: dict[str, list] = {}
+    for c in conditions:
+        used = c.free_symbols & what.keys()
+        names = {owner[s] for s in used}
+        if len(names) == 1:
+            by_name.setdefault(names.pop(), []).append((c, used))
+    return what, by_name
 
 
 def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa: ANN001
@@ -174,8 +195,9 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     return GuessRecipe(name, order, "expression", f.program)
 
 
-def _polynomial_recipe(form, name: str, order: int) -> GuessRecipe:  # noqa: ANN001
-    """Lowest-degree polynomial meeting the linear conditions that involve ``name`` alone."""
+def _polynomial_recipe(form, name: str, order: int, index: tuple | None = None) -> GuessRecipe:  # noqa: ANN001
+    """Lowest-degree polynomial meeting the linear conditions that involve ``name`` alone
+    (``index``: :func:`_condition_index` of the form, made once per problem)."""
     import sympy as sp
 
     from .codegen import compile_expressions
@@ -183,14 +205,9 @@ def _polynomial_recipe(form, name: str, order: int) -> GuessRecipe:  # noqa: ANN
 
     if not form.point_conditions:
         return GuessRecipe(name, order, "polynomial")
-    conditions, symbols = form.point_conditions
-    what = {sp.Symbol(s, real=True): (state, point) for s, state, point, _ in symbols}
-    mine = {s for s, (state, _) in what.items() if form.states[state][0] == name}
+    what, by_name = index if index is not None else _condition_index(form)
     terms_found, exprs = [], []
-    for c in conditions:
-        used = c.free_symbols & set(what)
-        if not used or not used <= mine:
-            continue
+    for c, used in by_name.get(name, []):
         gradient = [(s, sp.diff(c, s)) for s in used]
         if any(g.free_symbols & set(what) for _, g in gradient):
             continue  # nonlinear in the point values

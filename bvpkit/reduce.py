@@ -646,8 +646,29 @@ def _blows_up(e: sp.Expr) -> bool:
     return bool(e.has(sp.zoo, sp.nan, sp.oo, -sp.oo))
 
 
+def _one_each(equations: list[sp.Expr], tops: list[sp.Symbol]) -> list[sp.Expr] | None:
+    """Each equation holding one highest derivative linearly, each a different one (the
+    usual case): each solved on its own, in time linear in the number of equations (the
+    whole-system Jacobian below has n^2 entries). None when that is not the case."""
+    wanted = set(tops)
+    solved = {}
+    for eq in equations:
+        held = eq.free_symbols & wanted
+        if len(held) != 1:
+            return None
+        (t,) = held
+        coefficient = sp.diff(eq, t)
+        if t in solved or coefficient == 0 or coefficient.has(t):
+            return None
+        solved[t] = -eq.xreplace({t: 0}) / coefficient
+    return [solved[t] for t in tops] if len(solved) == len(tops) else None
+
+
 def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[sp.Expr]:  # noqa: ANN001
     names = [f"{n}{chr(39) * problem.orders[n]}" for n in problem.unknowns]
+    one_each = _one_each(equations, tops)
+    if one_each is not None:
+        return one_each
     jac = sp.Matrix(equations).jacobian(tops)
     if not any(jac.has(t) for t in tops):
         # Linear in the highest derivatives: one exact linear solve.

@@ -7,9 +7,18 @@ neighbour's solution (continuation), so a chunk, not a point, is the unit of wor
 
 Units are small and picklable (the problem's own arguments, its prepared plain facts and
 programs (plain data), numbers; never code or compiled functions); a worker rebuilds a problem once,
-without SymPy (``prepared.py``), and keeps it. Execution is on any
-``concurrent.futures.Executor`` (default: a local process pool sized to the cores) or a
-Dask ``distributed.Client`` (through its ``get_executor()``); there is no scheduler here.
+without SymPy (``prepared.py``), and keeps it. Inside a unit each point starts from its
+neighbour's solution with its neighbour's method (no new plan, no survey), and the full plan
+runs only when that fails. Execution is on any ``concurrent.futures.Executor`` or a Dask
+``distributed.Client`` (through its ``get_executor()``); there is no scheduler here.
+
+The default (no executor given) starts in this process: a pool of one worker per core is
+started only when the work left, estimated from the points already solved, exceeds
+``POOL_PAYS`` seconds (a worker's start-up, importing NumPy, SciPy and bvpkit, measured 0.4-0.9 s
+on a 2-core machine), and this process keeps solving while the workers start. So a small sweep
+never pays for workers and never loses against one worker; ``workers=N`` starts N at once
+(``workers=1``: this process alone). ``benchmarks/sweeps.py`` measures both, beside what the
+machine gives two processes at all.
 
 The store is SQLite (standard library ``sqlite3``, WAL journal). The main process writes one
 transaction per finished unit, so a unit is either wholly in the store or not at all: a
@@ -125,6 +134,7 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     from .driver import solve
 
     prepared = _worker_problem(unit)
+    named = {text: name for name, text in prepared.outputs.items()}
     options = dict(unit.options)
     rows = []
     previous = None
@@ -136,7 +146,14 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
         started = time.perf_counter()
         try:
             here = prepared.with_constants(**point)
-            sol = solve(here, guess=previous, **options)
+            if previous is not None and "method" not in options:
+                # the neighbour's method, started from its solution: no new plan (and no survey)
+                # while it works; the selector's full plan when it does not
+                sol = solve(here, guess=previous, method=previous.method, **options)
+                if not sol.success:
+                    sol = solve(here, guess=previous, **options)
+            else:
+                sol = solve(here, guess=previous, **options)
             if not sol.success and previous is not None:
                 sol = solve(here, **options)  # a cold start as a second chance
         except Exception as err:  # noqa: BLE001 - a point that raises is stored as failed
@@ -147,7 +164,9 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
         values = {}
         if sol.success:
             for text in unit.outputs:
-                values[text] = float(sol.evaluate(text))
+                # a named output of the problem is already on the solution
+                name = named.get(text)
+                values[text] = sol.outputs[name] if name in sol.outputs else float(sol.evaluate(text))
         d = sol.diagnostics
         rows.append(_row(point, values, sol.success, sol.status.word, sol.method, d.error_estimate, sol.message,
                          d.iterations, time.perf_counter() - started))
@@ -455,8 +474,9 @@ def sweep(
     store : path, optional
         SQLite file; a rerun with the same store solves only what is missing.
     executor : concurrent.futures.Executor or distributed.Client, optional
-        Where to run (default: a process pool with one worker per core, or ``workers``).
-        ``executor="serial"`` runs in this process.
+        Where to run. Default: this process, joined by a pool of one worker per core once
+        the work left pays for starting it (``POOL_PAYS``); ``workers`` given: that many
+        workers at once (1: this process alone). ``executor="serial"`` runs in this process.
     retry_failed : bool
         Solve again the points stored as failed.
     chunk : int
@@ -538,37 +558,103 @@ def _run(units, db, problem_key, executor, workers, progress, done, count) -> No
     """Run the units, writing each to the store as it finishes; ``count[0]`` counts the points solved."""
     bar = progress_bar(progress, sum(len(u.fast_values) for u in units))
     owned = None
+
+    def finished(rows: list[dict[str, Any]]) -> None:
+        db.write(problem_key, rows)
+        for r in rows:
+            done[_grid_key(r["point"])] = r
+        count[0] += len(rows)
+        if bar is not None:
+            bar.update(len(rows))
+
     try:
         if not units:
             return
         if executor == "serial":
-            results = (_solve_unit(u) for u in units)
-        else:
-            if executor is None:
-                owned = executor = _default_executor(workers)
-            elif hasattr(executor, "get_executor"):  # a distributed.Client
-                executor = executor.get_executor()
-            elif not isinstance(executor, futures.Executor):
-                raise OptionError("executor must be a concurrent.futures.Executor, a distributed.Client or 'serial'")
-            pending = [executor.submit(_solve_unit, u) for u in units]
-            results = (_result(f) for f in futures.as_completed(pending))
-        for rows in results:
-            db.write(problem_key, rows)
-            for r in rows:
-                done[_grid_key(r["point"])] = r
-            count[0] += len(rows)
-            if bar is not None:
-                bar.update(len(rows))
-    except BaseException:
+            for u in units:
+                finished(_solve_unit(u))
+            return
+        if executor is None:
+            owned = _run_local(units, workers, finished)
+            return
+        if hasattr(executor, "get_executor"):  # a distributed.Client
+            executor = executor.get_executor()
+        elif not isinstance(executor, futures.Executor):
+            raise OptionError("executor must be a concurrent.futures.Executor, a distributed.Client or 'serial'")
+        pending = [executor.submit(_solve_unit, u) for u in units]
+        for f in futures.as_completed(pending):
+            finished(_result(f))
+    except BaseException as err:
+        owned = getattr(err, "_bvpkit_pool", owned)
         if owned is not None:
             _stop_workers(owned)
             owned = None
         raise
     finally:
         if owned is not None:
-            owned.shutdown(cancel_futures=True)
+            # every unit is in: the workers are idle or still starting; ending them now is
+            # quicker than waiting for a starting one to finish its imports
+            _stop_workers(owned)
         if bar is not None:
             bar.close()
+
+
+#: Seconds of remaining work (estimated from the points solved so far) below which a local
+#: sweep stays in this process: starting a worker (a new Python importing NumPy, SciPy and
+#: bvpkit, then rebuilding the problem) measured 0.4-0.9 s on a 2-core machine, so a
+#: smaller sweep is done before workers would help (benchmarks/sweeps.py, "small sweeps").
+POOL_PAYS = 1.5
+
+
+def _run_local(units: list[_Unit], workers: int | None, finished) -> futures.Executor | None:  # noqa: ANN001
+    """The local executor. ``workers`` given: a pool of that many processes starts at once
+    (one: none, this process solves alone). Default: this process starts on the first unit
+    and a pool of one worker per core is started only when the work left, estimated from
+    the points solved, is worth its start-up (``POOL_PAYS``). Either way this process keeps
+    solving units while the workers start, so their start-up overlaps work; once a worker
+    has taken a unit, this process only collects results. Returns the pool (for the caller
+    to stop), or None."""
+    import collections
+
+    queue = collections.deque(units)
+    total = sum(len(u.fast_values) for u in units)
+    count = workers or os.cpu_count() or 1
+    # a worker count given is honoured at once (one: this process alone); the default waits
+    # for the first unit's time to say whether workers pay
+    pool = _default_executor(count) if workers is not None and count > 1 else None
+    pending: dict[futures.Future, _Unit] = {}
+    solved, spent = 0, 0.0
+    try:
+        while queue or pending:
+            for f in [f for f in pending if f.done()]:
+                del pending[f]
+                finished(_result(f))
+            if pool is not None:
+                while queue and len(pending) < 2 * count:  # one unit running and one waiting per worker
+                    unit = queue.popleft()
+                    pending[pool.submit(_solve_unit, unit)] = unit
+            working = pool is not None and any(f.running() or f.done() for f in pending)
+            if not queue and not working:
+                # the workers are still starting: take back a unit they have not begun
+                for f in list(pending):
+                    if f.cancel():
+                        queue.append(pending.pop(f))
+                        break
+            if queue and not working:
+                unit = queue.popleft()
+                started = time.perf_counter()
+                finished(_solve_unit(unit))
+                solved, spent = solved + len(unit.fast_values), spent + time.perf_counter() - started
+                left = (total - solved) * spent / max(solved, 1)
+                if pool is None and count > 1 and left > POOL_PAYS:
+                    pool = _default_executor(count)
+                continue
+            if pending:
+                futures.wait(pending, return_when=futures.FIRST_COMPLETED, timeout=None if working else 0.05)
+    except BaseException as err:
+        err._bvpkit_pool = pool  # the caller stops the workers
+        raise
+    return pool
 
 
 def _result(future: futures.Future) -> list[dict[str, Any]]:

@@ -10,6 +10,7 @@ from __future__ import annotations
 from ..errors import OptionError, closest
 from .base import Method, Outcome, Trial
 from .collocation import Collocation
+from .collocation6 import SixthOrderCollocation
 from .multiple_shooting import MultipleShooting
 from .single_shooting import SingleShooting
 
@@ -17,6 +18,7 @@ REGISTRY: dict[str, type[Method]] = {
     Collocation.name: Collocation,
     SingleShooting.name: SingleShooting,
     MultipleShooting.name: MultipleShooting,
+    SixthOrderCollocation.name: SixthOrderCollocation,
 }
 
 

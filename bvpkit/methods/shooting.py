@@ -7,8 +7,8 @@ sensitivities ``Phi = dy/ds`` (``Phi' = J Phi``, ``Phi(0) = I``) and ``Psi = dy/
 (``Psi' = J Psi + f_p``, ``Psi(0) = 0``), with ``J`` and ``f_p`` the exact Jacobians from
 codegen. The unknowns are the states at the nodes and the parameters; the equations are
 continuity at interior nodes and the boundary conditions. Newton's method on them uses the
-sparse block structure (a sparse LU of the bordered block-bidiagonal matrix, never a dense
-solve of the whole system), with a backtracking line search.
+block structure (``discrete.factor_blocks``: a banded LU of the bordered block-bidiagonal
+matrix, never a dense solve of the whole system), with a backtracking line search.
 
 Single shooting is the case ``M = 1`` (Keller 1968, *Numerical Methods for Two-Point
 Boundary-Value Problems*); multiple shooting chooses ``M`` from the growth of the
@@ -26,10 +26,9 @@ import math
 
 import numpy as np
 import scipy.sparse as sparse
-from scipy.sparse.linalg import splu
 
 from ..diagnostics import hermite, survey
-from ..discrete import block_matrix
+from ..discrete import SingularMatrix, factor_blocks
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -173,10 +172,12 @@ class Shooting(Method):
         size = n + (n * n + n * n_p if sensitivities else 0)
         start = np.zeros((size, segments))
         start[:n] = s
-        if sensitivities:
-            start[n:n + n * n] = np.repeat(np.eye(n).reshape(n * n, 1), segments, axis=1)
+        if sensitivities:  # per state row i: Phi[i, :] then Psi[i, :] (Phi(0) = I, Psi(0) = 0)
+            start[n:].reshape(n, n + n_p, segments)[np.arange(n), np.arange(n)] = 1.0
 
         calls = [0]
+        width = n + n_p  # the sensitivities Phi and Psi side by side: one product per call
+        with_p = sensitivities and n_p > 0
 
         def rhs(tau, z):
             calls[0] += 1
@@ -186,25 +187,26 @@ class Shooting(Method):
             z = z.reshape(size, segments)
             xs = t0 + tau * h
             ys = z[:n]
-            f = c.rhs(xs, ys, p, k) * h
-            out = np.empty_like(z)
-            out[:n] = f
-            # one reduction per call: a NaN/inf derivative or a state beyond _BLOWUP
-            if not np.abs(f).sum() + np.abs(ys).max() < _BLOWUP:
+            f = c.rhs(xs, ys, p, k)
+            # one cheap test per call (a sum is finite only when every term is): a NaN/inf
+            # derivative or a state beyond _BLOWUP
+            if not (math.isfinite(float(f.sum())) and float(np.abs(ys).max()) < _BLOWUP):
                 if not np.all(np.isfinite(f)):
                     bad = np.argwhere(~np.isfinite(f))[0]
                     raise _BlowUp(float(xs[bad[1]]), int(bad[0]), "the right-hand side became NaN or inf", int(bad[1]))
                 if np.abs(ys).max() >= _BLOWUP:
                     bad = np.unravel_index(np.argmax(np.abs(ys)), ys.shape)
                     raise _BlowUp(float(xs[bad[1]]), int(bad[0]), "the trajectory blew up", int(bad[1]))
-            if sensitivities:
-                jac = c.jac(xs, ys, p, k) * h
-                phi = z[n:n + n * n].reshape(n, n, segments)
-                out[n:n + n * n] = np.einsum("ijm,jkm->ikm", jac, phi).reshape(n * n, segments)
-                if n_p:
-                    psi = z[n + n * n:].reshape(n, n_p, segments)
-                    dpsi = np.einsum("ijm,jkm->ikm", jac, psi) + c.pjac(xs, ys, p, k) * h
-                    out[n + n * n:] = dpsi.reshape(n * n_p, segments)
+            if not sensitivities:
+                return (f * h).ravel()
+            out = np.empty((size, segments))
+            out[:n] = f
+            sens = z[n:].reshape(n, width, segments)  # Phi (n, n) then Psi (n, n_p), per segment
+            d = np.einsum("ijm,jkm->ikm", c.jac(xs, ys, p, k), sens)
+            if with_p:
+                d[:, n:] += c.pjac(xs, ys, p, k)
+            out[n:] = d.reshape(n * width, segments)
+            out *= h
             return out.ravel()
 
         from scipy.integrate import solve_ivp  # imported here: a collocation-only run never needs it
@@ -222,8 +224,9 @@ class Shooting(Method):
             raise _BlowUp(float(where[0] if segments == 1 else where.min()), -1,
                           f"the integrator's step size collapsed ({result.message.rstrip('.')})")
         end = result.y[:, -1].reshape(size, segments)
-        phi = end[n:n + n * n].reshape(n, n, segments) if sensitivities else np.zeros((n, n, segments))
-        psi = end[n + n * n:].reshape(n, n_p, segments) if sensitivities else np.zeros((n, n_p, segments))
+        sens = end[n:].reshape(n, n + n_p, segments) if sensitivities else None
+        phi = sens[:, :n] if sensitivities else np.zeros((n, n, segments))
+        psi = sens[:, n:] if sensitivities else np.zeros((n, n_p, segments))
         growth = np.abs(phi).reshape(n * n, segments).max(axis=0) if sensitivities else np.ones(segments)
         return _Flow(end[:n], phi, psi, result.sol if dense else None, growth)
 
@@ -234,10 +237,11 @@ class Shooting(Method):
         boundary = c.bc(s[:, 0], flow.ends[:, -1], p, trial.k)
         return np.concatenate([continuity, boundary])
 
-    def _matrix(self, trial: Trial, s: np.ndarray, p: np.ndarray, flow: _Flow) -> sparse.csc_matrix:
-        """The bordered block-bidiagonal shooting matrix: row block ``j`` is the continuity of
-        segment ``j`` (``Phi_j`` on its start, ``-I`` on the next start, ``Psi_j`` on the
-        parameters), then the conditions through the last segment's sensitivities."""
+    def _matrix(self, trial: Trial, s: np.ndarray, p: np.ndarray, flow: _Flow):  # noqa: ANN202
+        """The blocks of the bordered block-bidiagonal shooting matrix (as ``factor_blocks``
+        takes them): row block ``j`` is the continuity of segment ``j`` (``Phi_j`` on its
+        start, ``-I`` on the next start, ``Psi_j`` on the parameters), then the conditions
+        through the last segment's sensitivities."""
         c = trial.compiled
         n, n_p, segments = c.n, c.n_parameters, s.shape[1]
         a, b, dp = c.bc_jac(s[:, 0], flow.ends[:, -1], p, trial.k)
@@ -245,7 +249,7 @@ class Shooting(Method):
         right = np.broadcast_to(-np.eye(n), (segments - 1, n, n))
         params = np.ascontiguousarray(np.moveaxis(flow.psi[:, :, :-1], -1, 0)) if n_p else None
         last_p = b @ flow.psi[:, :, -1] + np.reshape(dp, (b.shape[0], -1)) if n_p else None
-        return block_matrix(left, right, params, a, b @ flow.phi[:, :, -1], last_p)
+        return left, right, params, a, b @ flow.phi[:, :, -1], last_p
 
     def _newton(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
                 stiff: bool) -> Outcome:
@@ -268,6 +272,7 @@ class Shooting(Method):
                 nodes, s = self._split_from_guess(trial, nodes, s, wide)
                 splits += 1
         iterations = 0
+        last_size = math.inf
         while iterations < _MAX_NEWTON:
             if trial.out_of_time():
                 return failure(Status.NOT_CONVERGED, f"stopped after {iterations} Newton iterations: the time budget of "
@@ -286,11 +291,11 @@ class Shooting(Method):
             residual = self._residual(trial, s, p, flow)
             norm = float(np.max(np.abs(residual))) if residual.size else 0.0
             matrix = self._matrix(trial, s, p, flow)
-            if not np.all(np.isfinite(matrix.data)) or not np.isfinite(norm):
+            if not all(np.all(np.isfinite(block)) for block in matrix if block is not None) or not np.isfinite(norm):
                 return failure(Status.NON_FINITE, "the shooting residual or its Jacobian is NaN or inf", iterations)
             try:
-                step = splu(matrix).solve(-residual)
-            except RuntimeError:
+                step = factor_blocks(*matrix).solve(-residual)
+            except SingularMatrix:
                 return failure(Status.SINGULAR, "the shooting Newton matrix is singular; " + Status.SINGULAR.hint, iterations)
             if not np.all(np.isfinite(step)):
                 return failure(Status.SINGULAR, "the shooting Newton matrix is numerically singular; " + Status.SINGULAR.hint, iterations)
@@ -329,7 +334,11 @@ class Shooting(Method):
                                f"the line search could not reduce the boundary residual ({norm:.3g}) after "
                                f"{iterations} Newton iterations; " + Status.NOT_CONVERGED.hint, iterations)
             s, p, flow = s_new, p_new, flow_new
-            if lam == 1.0 and size * lam <= trial.tol * 1e-2:
+            # converged: this step tiny, or (Deuflhard's estimate) the next one, contraction times
+            # this one, tiny while contracting fast; _finish checks the residual itself
+            rate, previous_size = size / last_size, last_size
+            last_size = size
+            if lam == 1.0 and (size <= trial.tol * 1e-2 or (math.isfinite(previous_size) and 0 < rate < 0.1 and rate * size <= trial.tol * 1e-2)):
                 return self._finish(trial, nodes, s, p, rtol, stiff, iterations, matrix)
         return failure(Status.NOT_CONVERGED,
                        f"Newton's method did not converge in {_MAX_NEWTON} iterations; " + Status.NOT_CONVERGED.hint,
@@ -366,8 +375,8 @@ class Shooting(Method):
         c, k, n = trial.compiled, trial.k, trial.compiled.n
         # A tiny Newton step is not enough: on an ill-conditioned shooting matrix the step
         # stalls while the conditions are still missed. Check the residual itself.
-        try:
-            flow = self._flow(trial, nodes, s, p, rtol, stiff, sensitivities=False)
+        try:  # one pass: the dense output changes none of the integrator's steps
+            flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
         except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
             return Outcome(Status.INTEGRATION_FAILED, str(err), trial.x, trial.y, p, iterations=iterations)
         residual = self._residual(trial, s, p, flow)
@@ -383,10 +392,6 @@ class Shooting(Method):
                 "\"multiple_shooting\" or \"collocation\"",
                 trial.x, trial.y, trial.p, iterations=iterations,
             )
-        try:
-            flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
-        except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
-            return Outcome(Status.INTEGRATION_FAILED, str(err), trial.x, trial.y, p, iterations=iterations)
         segments = nodes.size - 1
         h = np.diff(nodes)
 

@@ -1,0 +1,227 @@
+"""The fast paths of issue 15 give the same answers as the plain ones, and the sixth-order method
+is as accurate as it claims (no timings here: those live in benchmarks/)."""
+
+from __future__ import annotations
+
+import math
+import sys
+
+import numpy as np
+import pytest
+import sympy as sp
+
+import bvpkit
+from bvpkit.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
+
+from catalogue import BLASIUS_FPP0, EI, L, L_FIN, M_FIN, Q, blasius, bratu, bratu_t, cantilever, fin, simply_supported
+
+
+# -- the banded embedding of every Newton matrix --------------------------------------------------
+def _random_blocks(rng, k: int, n: int, n_p: int, kind: str):  # noqa: ANN001, ANN202
+    left, right = rng.normal(size=(k - 1, n, n)), rng.normal(size=(k - 1, n, n))
+    params = rng.normal(size=(k - 1, n, n_p)) if n_p else None
+    rows = n + n_p
+    a, b, dp = rng.normal(size=(rows, n)), rng.normal(size=(rows, n)), rng.normal(size=(rows, n_p))
+    if kind == "separated":
+        b[: rows // 2] = 0.0
+        a[rows // 2:] = 0.0
+    elif kind == "periodic":  # y(0) - y(1) = 0 for every state, then the rest
+        a[:n], b[:n] = np.eye(n), -np.eye(n)
+    return left, right, params, a, b, (dp if n_p else None)
+
+
+@pytest.mark.parametrize("kind", ["separated", "mixed", "periodic"])
+@pytest.mark.parametrize("n_p", [0, 2])
+def test_the_banded_embedding_solves_the_matrix_and_its_transpose(kind, n_p):
+    rng = np.random.default_rng(7)
+    blocks = _random_blocks(rng, 6, 3, n_p, kind)
+    scale = rng.uniform(0.5, 2.0, size=5 * 3 + 3 + n_p)
+    dense = block_matrix(*blocks, scale).toarray()  # the one assembler, as SuperLU sees it
+    b = rng.normal(size=(dense.shape[0], 2))
+    for sparse_blocks in (False, True):
+        lu = factor_blocks(*blocks, scale, sparse_blocks=sparse_blocks)
+        assert lu.banded is not sparse_blocks
+        # common practice, no source: a solve is checked by its residual
+        assert np.abs(dense @ lu.solve(b) - b).max() < 1e-10
+        assert np.abs(dense.T @ lu.solve(b[:, 0], trans="T") - b[:, 0]).max() < 1e-10
+
+
+def test_a_singular_matrix_is_said_to_be_singular():
+    from bvpkit.discrete import SingularMatrix
+
+    left = np.zeros((3, 2, 2))
+    with pytest.raises(SingularMatrix, match="singular"):
+        factor_blocks(left, left.copy(), None, np.eye(2), np.zeros((2, 2)), None)
+    none = np.zeros((0, 2, 2))  # one block (single shooting): the conditions alone
+    with pytest.raises(SingularMatrix, match="singular"):
+        factor_blocks(none, none, None, np.array([[0.0, 1.0], [0.0, 0.0]]), np.array([[0.0, 0.0], [0.0, 1.0]]), None)
+    lu = factor_blocks(none, none, None, np.array([[1.0, 2.0], [0.0, 0.0]]), np.array([[0.0, 0.0], [3.0, 1.0]]), None)
+    # analytic: [[1, 2], [3, 1]] x = [5, 5] at x = (1, 2)
+    assert lu.solve(np.array([5.0, 5.0])) == pytest.approx([1.0, 2.0])
+    assert lu.solve(np.array([7.0, 4.0]), trans="T") == pytest.approx([1.0, 2.0])  # transposed: [[1, 3], [2, 1]]
+
+
+def test_multipoint_and_parameter_problems_keep_their_answers():
+    # two-span beam and a free end: non-separated conditions and parameters, now banded
+    span = bvpkit.Problem(["EI*w'''' = -q"], ["w(0) = 0", "w''(0) = 0", "w(L) = 0", "EI*(w'''(L+) - w'''(L-)) = R",
+                                              "w(2*L) = 0", "w''(2*L) = 0"], (0, "2*L"),
+                          constants={"EI": 1215.0, "q": 600.0, "L": 0.8}, unknown_parameters={"R": 500.0})
+    sol = bvpkit.solve(span, method="collocation", tol=1e-9)
+    assert sol.success, sol.message
+    # analytic: the middle support of a two-span continuous beam carries 5/4 q L (any handbook)
+    assert sol.parameters["R"] == pytest.approx(1.25 * 600.0 * 0.8, rel=1e-8)
+    free = bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y'(0) = 1", "y(s) = 1/2"], (0, "s"),
+                          unknown_parameters={"s": 1.0})
+    sol = bvpkit.solve(free, method="collocation", tol=1e-9)
+    assert sol.parameters["s"] == pytest.approx(math.pi / 6, rel=1e-9)  # analytic: sin(s) = 1/2
+
+
+def _chain(species: int) -> bvpkit.Problem:
+    """A reacting chain (our own scenario): c1'' = k c1^2, ci'' = k ci^2 - k c(i-1)^2."""
+    names = [f"c{i}" for i in range(1, species + 1)]
+    equations = [f"{names[0]}'' = k*{names[0]}**2"]
+    equations += [f"{names[i]}'' = k*{names[i]}**2 - k*{names[i - 1]}**2" for i in range(1, species)]
+    conditions = []
+    for i, name in enumerate(names):
+        conditions += [f"{name}'(0) = 0", f"{name}(1) = {1.0 if i == 0 else 0.1}"]
+    return bvpkit.Problem(equations, conditions, (0, 1), constants={"k": 2.0}, unknowns=names)
+
+
+def test_the_sparse_assembly_is_the_block_assembly():
+    prepared = bvpkit.prepare(_chain(40))
+    c = prepared.compiled
+    assert sparse_pays(c.jac_pattern)  # 80 states coupled to their neighbours only
+    scattered = np.random.default_rng(2).random((80, 80)) < 0.03
+    assert not sparse_pays(scattered)  # couplings all over: SuperLU would fill the blocks in
+    x = np.linspace(0, 1, 17)
+    y = np.random.default_rng(1).uniform(0.2, 1.0, (c.n, x.size))
+    eq = CollocationEquations(c, x, prepared.k())
+    p = np.zeros(0)
+    scale = eq.row_scale()
+    assert np.abs(eq._sparse_matrix(y, p, None, scale).toarray() - eq.jacobian(eq.join(y, p), scale).toarray()).max() \
+        < 1e-12
+
+
+def test_a_large_sparse_system_solves_alike_by_both_factorisations(monkeypatch):
+    import bvpkit.discrete as discrete
+
+    prepared = bvpkit.prepare(_chain(25))
+    monkeypatch.setattr(discrete, "sparse_pays", lambda pattern: True)
+    sparse_sol = bvpkit.solve(prepared, method="collocation", tol=1e-8)
+    monkeypatch.setattr(discrete, "sparse_pays", lambda pattern: False)
+    banded_sol = bvpkit.solve(prepared, method="collocation", tol=1e-8)
+    assert sparse_sol.success and banded_sol.success
+    # common practice, no source: two factorisations of one matrix give one answer
+    assert sparse_sol.evaluate("c1(0)") == pytest.approx(banded_sol.evaluate("c1(0)"), rel=1e-10)
+
+
+# -- preparation ----------------------------------------------------------------------------------
+def test_quick_derivatives_are_sympys():
+    from bvpkit.codegen import _quick_derivative
+
+    x, y, k = sp.symbols("x y k", real=True)
+    for e in (-k * x**2 + k * y**2, 3 * x * y, k * x ** sp.Rational(3, 2), 2 * x + 5, k / x**2, k * x**2 * y):
+        for s in (x, y, k):
+            quick = _quick_derivative(e, s)
+            assert quick is not None and sp.simplify(quick - sp.diff(e, s)) == 0  # analytic: SymPy's own diff
+    assert _quick_derivative(sp.exp(x), x) is None and _quick_derivative(x * sp.sin(y), y) is None
+
+
+def test_equations_in_any_order_are_isolated_one_by_one():
+    # the second equation written first, and its highest derivative not alone on a side
+    p = bvpkit.Problem(["2*v'' - u = 0", "u'' + u = 0"], ["u(0) = 0", "u'(0) = 1", "v(0) = 0", "v'(0) = 0"], (0, 1))
+    sol = bvpkit.solve(p, tol=1e-9)
+    # analytic: u = sin x, v'' = sin(x)/2, v = (x - sin x)/2
+    assert sol.evaluate("v(1)") == pytest.approx((1 - math.sin(1)) / 2, rel=1e-8)
+
+
+# -- sweeps ---------------------------------------------------------------------------------------
+def test_a_small_sweep_starts_no_workers(monkeypatch):
+    import bvpkit.sweep  # noqa: F401
+
+    module = sys.modules["bvpkit.sweep"]
+    started = []
+    monkeypatch.setattr(module, "_default_executor", lambda count: started.append(count))
+    p = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c'(1) = Bi*(1 - c(1))"], (0, 1),
+                       independent="r", constants={"phi": 1.0, "Bi": 10.0})
+    result = bvpkit.sweep(p, {"phi": [0.5, 1.0, 2.0]}, outputs=["3*c'(1)/phi**2"], tol=1e-8)
+    assert result.success and started == []
+    phi = np.array([0.5, 1.0, 2.0])
+    f = phi / np.tanh(phi) - 1
+    # analytic: effectiveness 3 f / (phi^2 (1 + f/Bi)), f = phi coth(phi) - 1
+    assert result.column("3*c'(1)/phi**2") == pytest.approx(3 * f / (phi**2 * (1 + f / 10.0)), rel=1e-7)
+
+
+# -- the sixth-order method -----------------------------------------------------------------------
+def _exact_cases():
+    """(name, problem, tol, exact states (x) -> array (n, len(x)), guess)."""
+    t_low, t_up = bratu_t(1.0, "lower"), bratu_t(1.0, "upper")
+
+    def bratu_states(t):  # analytic: y = -2 ln(cosh((x - 1/2) t/2) / cosh(t/4))
+        return lambda x: np.vstack([-2 * np.log(np.cosh((x - 0.5) * t / 2) / np.cosh(t / 4)),
+                                    -t * np.tanh((x - 0.5) * t / 2)])
+
+    def cantilever_states(x):  # analytic: w = q x^2 (6 L^2 - 4 L x + x^2) / (24 EI)
+        c = Q / (24 * EI)
+        return np.vstack([c * x**2 * (6 * L**2 - 4 * L * x + x**2), c * (12 * L**2 * x - 12 * L * x**2 + 4 * x**3),
+                          c * (12 * L**2 - 24 * L * x + 12 * x**2), c * (-24 * L + 24 * x)])
+
+    def supported_states(x):  # analytic: w = q x (L^3 - 2 L x^2 + x^3) / (24 EI)
+        c = Q / (24 * EI)
+        return np.vstack([c * (L**3 * x - 2 * L * x**3 + x**4), c * (L**3 - 6 * L * x**2 + 4 * x**3),
+                          c * (-12 * L * x + 12 * x**2), c * (-12 * L + 24 * x)])
+
+    def fin_states(x):  # analytic: T = cosh(m (L - x)) / cosh(m L)
+        return np.vstack([np.cosh(M_FIN * (L_FIN - x)), -M_FIN * np.sinh(M_FIN * (L_FIN - x))]) / np.cosh(M_FIN * L_FIN)
+
+    return [("bratu_lower", bratu(), bratu_states(t_low), None),
+            ("bratu_upper", bratu(), bratu_states(t_up), {"y": "16*x*(1-x)"}),
+            ("cantilever", cantilever(), cantilever_states, None),
+            ("simply_supported", simply_supported(), supported_states, None),
+            ("fin", fin(), fin_states, None)]
+
+
+@pytest.mark.parametrize("case", _exact_cases(), ids=lambda c: c[0])
+@pytest.mark.parametrize("tol", [1e-6, 1e-9])
+def test_the_sixth_order_estimate_is_within_ten_of_the_true_error(case, tol):
+    name, problem, exact, guess = case
+    sol = bvpkit.solve(problem, method="collocation6", tol=tol, guess=guess)
+    assert sol.success, sol.message
+    x = np.unique(np.concatenate([sol.x, 0.5 * (sol.x[1:] + sol.x[:-1]), np.linspace(sol.x[0], sol.x[-1], 301)]))
+    names = sol.state_names
+    values = np.vstack([sol.evaluate(s, at=x) for s in names])
+    truth = exact(x)
+    error = float(np.max(np.abs(values - truth) / (1 + np.abs(truth))))
+    estimate = sol.diagnostics.error_estimate
+    assert estimate <= tol
+    assert estimate >= error / 10, (estimate, error)
+    assert estimate <= 10 * error or error < 1e-13, (estimate, error)
+
+
+def test_the_sixth_order_estimate_covers_blasius():
+    sol = bvpkit.solve(blasius(), method="collocation6", tol=1e-9)
+    assert sol.success, sol.message
+    # Boyd 1999, SIAM Review 41(2), Table 1
+    assert abs(sol.evaluate("f''(0)") - BLASIUS_FPP0) <= 10 * sol.diagnostics.error_estimate
+
+
+def test_the_sixth_order_method_converges_at_order_six():
+    from bvpkit.methods.collocation6 import _newton, _positions
+
+    prepared = bvpkit.prepare(bratu())
+    c, k = prepared.compiled, prepared.k()
+    t = bratu_t(1.0, "upper")  # the upper branch: steep enough to stay above round-off on fine meshes
+    errors, steps = [], []
+    for m in (5, 9, 17, 33):
+        x = np.linspace(0, 1, m)
+        y = np.vstack([16 * x * (1 - x), np.zeros(m)])
+        stages = _positions(x)
+        z = np.stack([16 * stages * (1 - stages), np.zeros_like(stages)])
+        solved = _newton(c, x, y, z, np.zeros(0), k, 1e-13)
+        exact = -2 * np.log(np.cosh((x - 0.5) * t / 2) / np.cosh(t / 4))  # analytic
+        errors.append(np.max(np.abs(solved.y[0] - exact)))
+        steps.append(1.0 / (m - 1))
+    order = np.polyfit(np.log(steps), np.log(errors), 1)[0]
+    # superconvergence of Lobatto IIIA with 4 stages at the nodes: order 2s - 2 = 6
+    # (Hairer and Wanner, Solving ODEs II, section IV.5)
+    assert 5.6 < order < 6.6, (order, errors)
