@@ -30,7 +30,7 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.sparse.linalg import splu
 
-from .discrete import CollocationEquations
+from .discrete import CollocationEquations, SingularMatrix
 
 _MAX_NEWTON = 12
 #: Column ordering of SuperLU for the bordered matrices: the minimum-degree ordering of
@@ -41,7 +41,14 @@ _ORDER = "MMD_AT_PLUS_A"
 
 
 def _lu(matrix):  # noqa: ANN001, ANN202
-    return splu(matrix, permc_spec=_ORDER)
+    """SuperLU of a bordered matrix; :class:`~bvpkit.discrete.SingularMatrix` (a RuntimeError)
+    when it is exactly singular or holds NaN or inf."""
+    if not np.all(np.isfinite(matrix.data)):
+        raise SingularMatrix("the bordered matrix holds NaN or inf")
+    try:
+        return splu(matrix, permc_spec=_ORDER)
+    except RuntimeError as exc:
+        raise SingularMatrix(str(exc)) from None
 
 
 def _row(vector: np.ndarray) -> sparse.csr_matrix:

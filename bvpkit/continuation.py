@@ -576,6 +576,10 @@ class _Tracer:
             b.success = False
             b.interrupted = True
             b.message = f"interrupted after {len(b.solutions)} points; what was traced is kept"
+        except SingularMatrix as exc:  # a last guard: the steps handle it where they can go on
+            b.success = False
+            b.message = (f"stopped after {len(b.solutions)} points: a linear system of the step was singular "
+                         f"({exc}); the branch may end or branch off there; what was traced is kept")
         finally:
             b.seconds = time.perf_counter() - started
             if self.bar is not None:
@@ -777,9 +781,13 @@ class _Tracer:
             if arc.inner(eq, tangent, secant) < 0:
                 tangent = -tangent
         z, _ = arc.correct(eq, point.z, tangent, self.tol)  # polish onto the discrete curve
+        if z is not None:
+            try:
+                tangent, _ = arc.tangent(eq, z, tangent)
+            except SingularMatrix:
+                z = None
         if z is None:
             return False, self._done(f"pseudo-arclength could not start at {self.name} = {point.value:.6g}")
-        tangent, _ = arc.tangent(eq, z, tangent)
         ds = first_ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
         while len(b.solutions) < self.max_points:
@@ -787,10 +795,14 @@ class _Tracer:
             predicted = z + ds * tangent
             z_new, its = arc.correct(eq, predicted, tangent, self.tol)
             reason = None
+            if z_new is not None:
+                try:
+                    t_new, sign = arc.tangent(eq, z_new, tangent)
+                except SingularMatrix:
+                    z_new, reason = None, "the bordered Jacobian was singular there"
             if z_new is None:
-                reason = "the corrector did not converge"
+                reason = reason or "the corrector did not converge"
             else:
-                t_new, sign = arc.tangent(eq, z_new, tangent)
                 drift = arc.norm(eq, z_new - predicted) / max(ds, 1e-300)
                 sol = self._solution(eq, z_new, t_new, its, time.perf_counter() - started)
                 if self._angle(eq, tangent, t_new) > self.max_angle or drift > MAX_DRIFT:
@@ -958,7 +970,10 @@ class _Tracer:
             other = _fold_on(fine, z_fine0, t_fine, ds * 1.5, self.tol, guess=s_fold)
             if other is not None:
                 error = abs(float(other[0][-1]) - float(z_fold[-1]))
-        t_fold, _ = arc.tangent(eq, z_fold, t0)
+        try:
+            t_fold, _ = arc.tangent(eq, z_fold, t0)
+        except SingularMatrix:
+            t_fold = t0
         sol = self._solution(eq, z_fold, t_fold, 0, 0.0, fold=True)
         value = float(z_fold[-1])
         outputs = {o: float(sol.evaluate(e, allow_failed=True)) for o, e in self.branch._expressions.items()}

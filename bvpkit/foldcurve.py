@@ -29,7 +29,7 @@ from . import arclength as arc
 from ._output import json_ready, write_columns
 from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer
 from .diagnostics import Attempt, hermite
-from .discrete import CollocationEquations
+from .discrete import CollocationEquations, SingularMatrix
 from .driver import DEFAULT_TOL, settle
 from .errors import OptionError, closest
 from .methods.base import Outcome, Trial, compare
@@ -222,7 +222,12 @@ def fold_curve(
         return curve
     follower = _Follower(prepared, name, along, fold, tol, requested, angle, max_points, curve)
     follower.geometric = min(start, stop) > 0 and max(start, stop) / min(start, stop) > 100
-    follower.run(start, stop)
+    try:
+        follower.run(start, stop)
+    except SingularMatrix as exc:  # a last guard: the steps handle it where they can go on
+        curve.success = False
+        curve.message = (f"stopped: a linear system of the fold curve was singular ({exc}); "
+                         "the curve may end there (a cusp meets a branch point?)")
     curve.seconds = time.perf_counter() - started
     return curve
 
@@ -337,10 +342,14 @@ class _Follower:
             predicted = z + ds * tangent
             z_new, its = arc.correct(eq, predicted, tangent, self.tol, extra)
             reason = None
+            if z_new is not None:
+                try:
+                    t_new, _ = arc.tangent(eq, z_new, tangent, extra)
+                except SingularMatrix:
+                    z_new, reason = None, "the bordered Jacobian was singular there"
             if z_new is None:
-                reason = "the corrector did not converge"
+                reason = reason or "the corrector did not converge"
             else:
-                t_new, _ = arc.tangent(eq, z_new, tangent, extra)
                 drift = arc.norm(eq, z_new - predicted) / max(ds, 1e-300)
                 turn = self._angle(eq, tangent, t_new)
                 if turn > self.max_angle or drift > MAX_DRIFT:

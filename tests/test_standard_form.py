@@ -217,3 +217,18 @@ def test_trace_a_multipoint_problem():
 def test_a_constant_that_is_not_one_is_refused_by_trace():
     with pytest.raises(OptionError, match="not a constant"):
         bvpkit.trace(two_spans(), "R", start=1, stop=2)
+
+
+def test_a_trace_whose_bordered_matrix_turns_singular_ends_with_a_message():
+    # the polytrope's index as the traced constant: u**n is not smooth where u reaches 0 at the
+    # free end (and NaN beyond it), and an arclength step there once met an exactly singular
+    # bordered matrix, which escaped as SuperLU's RuntimeError
+    p = bvpkit.Problem(["u'' + (2/z)*u' + u**n = 0"], ["u(0) = 1", "u'(0) = 0", "u(s) = 0"], (0, "s"),
+                       independent="z", constants={"n": 1.5}, unknown_parameters={"s": 3.6})
+    branch = bvpkit.trace(p, "n", start=1.5, stop=2.5, tol=1e-7)
+    assert len(branch.parameter) >= 2
+    # the first zero grows with the index (Boyd 2011, from memory: 3.6538 at n = 1.5, 4.3529 at n = 2)
+    zeros = np.array([sol.parameters["s"] for sol in branch.solutions])
+    assert zeros[0] == pytest.approx(3.65375373621912608, rel=1e-6)
+    assert np.all(np.diff(zeros) > 0)
+    assert branch.success or "floor" in branch.message, branch.message
