@@ -35,6 +35,7 @@ import numpy as np
 
 from . import methods
 from .diagnostics import Attempt, survey
+from .errors import OptionError
 from .methods.base import Outcome, Trial
 from .status import Status
 
@@ -147,7 +148,11 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
     continuation first.
     """
     if method != "auto":
-        methods.get(method)  # validates the name
+        chosen = methods.get(method)  # validates the name
+        if trial.compiled.layout.singular and not chosen.takes_singular_term:
+            able = ", ".join(m.name for m in _ordered(trial))
+            raise OptionError(f"method {method!r} cannot take the term S y/(x - a) singular at the left end of "
+                              f"this problem; use {able} or auto")
         return Plan([Step(method, "asked for by name", 1.0)])
     context = context or Context()
     candidates = _ordered(trial)

@@ -83,6 +83,14 @@ def test_spherical_pellet_effectiveness_with_the_singular_centre(phi):
     assert sol.evaluate("c(0)") == pytest.approx(phi / math.sinh(phi), rel=1e-7)
 
 
+@pytest.mark.parametrize("method", ["single_shooting", "multiple_shooting", "collocation6"])
+def test_a_method_that_cannot_take_the_singular_centre_is_refused_before_it_runs(method):
+    p = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c(1) = 1"], (0, 1), independent="r",
+                       constants={"phi": 2.0})
+    with pytest.raises(bvpkit.OptionError, match="singular at the left end.*use collocation"):
+        bvpkit.solve(p, method=method)
+
+
 def test_cylinder_singular_term_and_its_derivative_at_the_centre():
     # c'' + c'/r = c: c = I0(r)/I0(1) (analytic; scipy.special.i0)
     p = bvpkit.Problem(["c'' + c'/r = c"], ["c'(0) = 0", "c(1) = 1"], (0, 1), independent="r")
