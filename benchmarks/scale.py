@@ -30,38 +30,31 @@ def chain_problem(species: int) -> bvpkit.Problem:
     return bvpkit.Problem(equations, conditions, (0, 1), constants={"k": K}, unknowns=names)
 
 
-def _hand(species: int, tol: float, nodes: int = 41):
-    def f(x, y):
-        c, d = y[0::2], y[1::2]
-        out = np.empty_like(y)
-        out[0::2] = d
-        react = K * c**2
-        out[1::2] = react
-        out[3::2] -= react[:-1]
-        return out
+def _chain_rhs(x, y):  # noqa: ANN001, ANN202
+    """The chain's right-hand side as solve_bvp takes it: states (c1, c1', c2, c2', ...)."""
+    c, d = y[0::2], y[1::2]
+    out = np.empty_like(y)
+    out[0::2] = d
+    react = K * c**2
+    out[1::2] = react
+    out[3::2] -= react[:-1]
+    return out
 
+
+def _hand(species: int, tol: float, nodes: int = 41):
     def bc(ya, yb):
         return np.concatenate([ya[1::2], yb[0::2] - np.array([1.0] + [0.1] * (species - 1))])
 
     x = np.linspace(0, 1, nodes)
     y = np.zeros((2 * species, x.size))
     y[0::2] = 0.5
-    return lambda: solve_bvp(f, bc, x, y, tol=tol).sol(0.0)[0]
+    return lambda: solve_bvp(_chain_rhs, bc, x, y, tol=tol).sol(0.0)[0]
 
 
 def _hand_analytic(species: int, tol: float, nodes: int = 41):
     """solve_bvp with analytic Jacobians (dense ``df/dy`` per node, as solve_bvp takes them)."""
     n = 2 * species
     surface = np.array([1.0] + [0.1] * (species - 1))
-
-    def f(x, y):
-        c, d = y[0::2], y[1::2]
-        out = np.empty_like(y)
-        out[0::2] = d
-        react = K * c**2
-        out[1::2] = react
-        out[3::2] -= react[:-1]
-        return out
 
     def jac(x, y):
         m = y.shape[1]
@@ -85,7 +78,7 @@ def _hand_analytic(species: int, tol: float, nodes: int = 41):
     x = np.linspace(0, 1, nodes)
     y = np.zeros((n, x.size))
     y[0::2] = 0.5
-    return lambda: solve_bvp(f, bc, x, y, fun_jac=jac, bc_jac=bc_jac, tol=tol).sol(0.0)[0]
+    return lambda: solve_bvp(_chain_rhs, bc, x, y, fun_jac=jac, bc_jac=bc_jac, tol=tol).sol(0.0)[0]
 
 
 def large(tol: float = 1e-6, species: int = 100, repeats: int = 5) -> str:

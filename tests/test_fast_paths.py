@@ -77,14 +77,10 @@ def test_multipoint_and_parameter_problems_keep_their_answers():
 
 
 def _chain(species: int) -> bvpkit.Problem:
-    """A reacting chain (our own scenario): c1'' = k c1^2, ci'' = k ci^2 - k c(i-1)^2."""
-    names = [f"c{i}" for i in range(1, species + 1)]
-    equations = [f"{names[0]}'' = k*{names[0]}**2"]
-    equations += [f"{names[i]}'' = k*{names[i]}**2 - k*{names[i - 1]}**2" for i in range(1, species)]
-    conditions = []
-    for i, name in enumerate(names):
-        conditions += [f"{name}'(0) = 0", f"{name}(1) = {1.0 if i == 0 else 0.1}"]
-    return bvpkit.Problem(equations, conditions, (0, 1), constants={"k": 2.0}, unknowns=names)
+    """A reacting chain (our own scenario), the one of the scale benchmark."""
+    from benchmarks.scale import chain_problem
+
+    return chain_problem(species)
 
 
 def test_the_sparse_assembly_is_the_block_assembly():
