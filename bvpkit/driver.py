@@ -1,4 +1,6 @@
-"""``solve``: options, the start, infinite domains, and settling the outcome into a ``Solution``.
+"""``solve``: options, infinite domains, and settling the outcome into a ``Solution``.
+
+The first iterate comes from :mod:`bvpkit.start`.
 
 Everything here works on the prepared problem (``prepared.py``): the standard form on
 ``t`` in ``[0, 1]``. An infinite end is truncated at the length ``_length`` (a constant of
@@ -29,6 +31,7 @@ from .layout import LENGTH
 from .methods.base import Outcome, Trial
 from .prepared import DEFAULT_TRUNCATION, Prepared, prepare
 from .solution import Interpolant, Solution
+from .start import as_start, check_guess, initial
 from .status import Status
 
 DEFAULT_TOL = 1e-6
@@ -165,28 +168,13 @@ def solve(
     if chosen["method"] == "auto" or time_limit is not None or "time_limit" in prepared.settings:
         # the selector's budget; a method named alone runs to its end unless a limit is given
         chosen["deadline"] = start + chosen["time_limit"]
-    _check_guess(prepared, guess)
+    check_guess(prepared, guess)
     if any(prepared.infinite):
         return _solve_infinite(prepared, guess, chosen, start)
     k = prepared.k()
-    t, y, p = _start(prepared, k, guess, chosen)
+    t, y, p = initial(prepared, k, guess, chosen)
     outcome, attempts, selection = _run(prepared, t, y, p, k, chosen["tol"], chosen)
     return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - start, chosen["tol"])
-
-
-def _check_guess(prepared: Prepared, guess: Any) -> None:
-    if guess is None or isinstance(guess, Mapping):
-        return
-    if isinstance(guess, Solution | _guess.Start):
-        layout = guess.interpolant.layout if isinstance(guess, Solution) else guess.layout
-        if layout.row_names != prepared.layout.row_names:
-            raise OptionError(
-                f"the guess solution has states {layout.row_names}, this problem {prepared.layout.row_names}"
-            )
-        return
-    raise OptionError(
-        f"guess must be a Solution or a mapping of function name to expression, got {type(guess).__name__}"
-    )
 
 
 def place(compiled, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
@@ -213,86 +201,6 @@ def _run(prepared: Prepared, t, y, p, k, tol: float, chosen: dict) -> tuple[Outc
     return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])), context)
 
 
-def _start(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Mesh, states and parameters to start from."""
-    compiled = prepared.compiled
-    layout = compiled.layout
-    nodes = min(_guess.INITIAL_NODES, chosen["max_nodes"] // 2)
-    if isinstance(guess, Solution | _guess.Start):
-        start = _as_start(guess)
-        p = start.p.copy()
-        t = start.t.copy()
-        return t, _guess.carried(start, compiled, t, p, k), p
-    p = prepared.p0()
-    t = _guess.initial_mesh(nodes)
-    recipes = dict(prepared.recipes)
-    for name, expression in (guess or {}).items():
-        if name not in recipes:
-            from .errors import closest
-
-            raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
-        recipes[name] = prepared.recipe(name, expression)
-    y = _guess.from_recipes(recipes, compiled, t, p, k)
-    if layout.eigenvalue is None and not _defined(compiled, t, y, p, k):
-        own = {n for n, r in recipes.items() if r.kind == "expression"}
-        y = _inside(prepared, t, y, p, k, chosen, own=own)
-    if layout.eigenvalue is not None:
-        vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
-        if not guess:
-            y[layout.user_rows] = vectors[layout.user_rows]
-        p[layout.eigenvalue] = lam
-        _guess.fill_integrals(compiled, t, y, p, k)
-    return t, y, p
-
-
-def _defined(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> bool:  # noqa: ANN001
-    """Whether the equations and their Jacobian are finite along a guess."""
-    with np.errstate(all="ignore"):
-        return bool(np.isfinite(compiled.rhs(t, y, p, k)).all()
-                    and np.isfinite(compiled.jac(t, y, p, k)).all())
-
-
-def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: dict,
-            own: set) -> np.ndarray:
-    """A default guess moved into the domain of the equations (``sqrt``, ``log``, fractional
-    powers of the states), when the conditions allow it: first lifted to the positive side
-    by a bump that leaves every value and slope at the ends as it was (so conditions on them
-    still hold), then the solution of the linearised problem of continuation
-    (:func:`bvpkit.reduce.path_form` at ``s = 0``); the guess as it was when neither is
-    defined everywhere. Functions with a guess of their own are left alone."""
-    compiled = prepared.compiled
-    layout = compiled.layout
-    with np.errstate(all="ignore"):
-        maps = np.asarray(compiled.maps(p, k), float)
-    recipes = prepared.recipes
-    # per function left to the default: is its value fixed by a condition somewhere?
-    free = {name: any(j == 0 for terms in recipes[name].conditions for _, j in terms)
-            for name, _ in layout.functions if name not in own and name in recipes}
-    if not free:
-        return y
-    for size in (0.1, 1.0):
-        lifted = _guess.lifted(y, layout, t, maps, free, size)
-        if _defined(compiled, t, lifted, p, k):
-            return lifted
-    try:
-        from . import homotopy
-
-        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen["tol"], 1e-3),
-                                                     chosen["max_nodes"], False))
-    except Exception:  # noqa: BLE001 - no linearised problem here: the guess as it was
-        return y
-    if linear is not None and _defined(compiled, t, linear, p, k):
-        return linear
-    return y
-
-
-def _as_start(guess: Any) -> _guess.Start:
-    if isinstance(guess, _guess.Start):
-        return guess
-    view = guess.interpolant
-    return _guess.Start(view.compiled, view.t, view.y, view.p, view.k)
-
-
 def _length_of(prepared: Prepared, k: np.ndarray) -> float:
     """The truncation length in the user's variable (``_length`` is in the stretched variable
     ``xi`` of a region mapped by ``x = a + xi**d``: the length is ``_length**d``)."""
@@ -316,7 +224,7 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
     length = chosen["truncation"]
     if isinstance(guess, Solution | _guess.Start):
         # a previous solution already knows a good length: start there (continuation, sweeps)
-        length = max(length, _length_of(prepared, _as_start(guess).k))
+        length = max(length, _length_of(prepared, as_start(guess).k))
     attempts: list = []
     previous: Outcome | None = None
     previous_k = None
@@ -327,7 +235,7 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
     for _ in range(_MAX_LENGTHENINGS):
         k = _k_at(prepared, length)
         if previous is None:
-            t, y, p = _start(prepared, k, guess, chosen)
+            t, y, p = initial(prepared, k, guess, chosen)
         else:
             ratio = (_length_of(prepared, previous_k) / length) ** (1.0 / _power(prepared))  # in t
             t = _extended_mesh(previous.x, ratio, prepared.layout)
@@ -577,7 +485,7 @@ def solve_at(prepared: Prepared, k: np.ndarray, guess: Any, *, tol: float, metho
     started = time.perf_counter()
     chosen = options(prepared.settings, {"method": method, "tol": tol, "verify": verify, "homotopy": "off"})
     k = np.asarray(k, float)
-    t, y, p = _start(prepared, k, guess, chosen)
+    t, y, p = initial(prepared, k, guess, chosen)
     outcome, attempts, selection = _run(prepared, t, y, p, k, chosen["tol"], chosen)
     length = _length_of(prepared, k) if any(prepared.infinite) else None
     return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, chosen["tol"], length,

@@ -272,14 +272,14 @@ def test_auto_claims_no_false_success_on_test_set_instances(name, tol):
 # -- the paths of continuation, one by one -------------------------------------------------------
 @pytest.mark.parametrize("which", ["_homotopy", "_reach"])
 def test_each_path_reaches_blasius_on_a_finite_domain(which):
-    from bvpkit import driver, homotopy
+    from bvpkit import driver, homotopy, start
     from bvpkit.methods.base import Trial
 
     problem = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(12) = 1"], (0, 12))
     prepared = bvpkit.prepare(problem)
     chosen = driver.options({}, {"tol": 1e-8})
     k = prepared.k()
-    t, y, p = driver._start(prepared, k, None, chosen)
+    t, y, p = start.initial(prepared, k, None, chosen)
     trial = Trial(prepared.compiled, t, y, p, k, 1e-8, 20_000, True)
     paths = {path.name: path for path in homotopy.paths(prepared, None, trial)}
     assert set(paths) == {"_homotopy", "_reach"}  # nonlinear, and a far-field condition f'(12) = 1
