@@ -304,3 +304,15 @@ def test_twin_layer_exact_solution_meets_its_equation():
     d2 = (y(x + h) - 2 * y(x) + y(x - h)) / h**2
     assert np.max(np.abs(eps * d2 - x * d1 + y(x))) < 1e-6
     assert _twin_layer_exact(np.array([-1.0, 1.0]), eps) == pytest.approx([1.0, 2.0], rel=1e-12)
+
+
+@pytest.mark.parametrize("method", ["collocation", "multiple_shooting", "auto"])
+def test_a_jacobian_that_is_infinite_on_the_guess_is_named_not_a_crash(method):
+    # y'' = sqrt(y) with y(0) = 0: d sqrt(y)/dy is infinite where the condition puts y = 0.
+    # Multiple shooting once stopped on "cannot convert float infinity to integer" and
+    # collocation blamed the conditions ("Newton matrix is singular").
+    p = bvpkit.Problem(["y'' = sqrt(y)"], ["y(0) = 0", "y(1) = 1"], (0, 1))
+    sol = bvpkit.solve(p, method=method)
+    assert not sol.success
+    assert sol.status is bvpkit.Status.NON_FINITE, sol.message
+    assert "not finite" in sol.message and "infinity to integer" not in sol.message

@@ -206,6 +206,17 @@ def check_by_defect(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np
         return estimate, stability_constant(lu, lu.size, eq.row_scale())
 
 
+def _not_finite(trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> str | None:
+    """Where the Jacobian along ``y`` is first NaN or inf (in the user's words), or None."""
+    with np.errstate(all="ignore"):
+        jac = np.asarray(trial.compiled.jac(x, y, p, trial.k), float)
+    bad = ~np.isfinite(jac.reshape(-1, x.size)).all(axis=0)
+    if not bad.any():
+        return None
+    t = float(x[int(np.argmax(bad))])
+    return trial.place(t)
+
+
 class Collocation(Method):
     name = "collocation"
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
@@ -285,6 +296,12 @@ class Collocation(Method):
             try:
                 y, p, used, parts, lu, settled = _newton(eq, y, p, tol)
             except SingularMatrix:
+                where = _not_finite(trial, x, y, p)
+                if where is not None:
+                    return Outcome(Status.NON_FINITE, f"the Jacobian of the equations is not finite at {where} "
+                                   "(a term like sqrt(y) or log(y) where y = 0?); give a guess inside the domain "
+                                   "of the equations there, or write the problem so that its derivatives stay "
+                                   "finite", x, y, p, iterations=iterations)
                 code = 2
                 break
             iterations += used

@@ -128,6 +128,10 @@ class Shooting(Method):
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
         facts = survey(c, x, y, p, k)
+        if not (math.isfinite(facts.growth) and np.all(np.isfinite(facts.rates))):
+            return Outcome(Status.NON_FINITE, "the Jacobian is not finite along the guess (a term like sqrt(y) "
+                           "where y = 0?), so no integration can start from it; use collocation, or a guess "
+                           "inside the domain of the equations", x, y, p)
         stiff = facts.stiffness > _STIFF
         nodes = self._nodes(x, facts)
         spline = hermite(c, x, y, p, k)
