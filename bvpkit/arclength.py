@@ -60,7 +60,7 @@ def bordered(matrix, *rows) -> sparse.csc_matrix:  # noqa: ANN001
 
     Built on the compressed arrays directly: SciPy's general ``vstack`` costs milliseconds on
     a small system, more than the factorisation itself."""
-    a = sparse.csc_matrix(matrix)
+    a = matrix if matrix.format == "csc" else sparse.csc_matrix(matrix)
     a.sort_indices()
     dense = np.vstack([np.asarray(r.toarray() if sparse.issparse(r) else r, dtype=float).reshape(1, -1) for r in rows])
     m, columns = a.shape

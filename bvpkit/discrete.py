@@ -70,6 +70,24 @@ def _block_pattern(k: int, n: int, n_p: int, n_bc: int) -> tuple[np.ndarray, np.
     return np.concatenate(R), np.concatenate(C)
 
 
+@functools.lru_cache(maxsize=64)
+def _csc_layout(k: int, n: int, n_p: int, n_bc: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The compressed-column form of :func:`_block_pattern`: the order that takes the values
+    into CSC order, the row indices and column pointers, and the rows in value order. From
+    two blocks on, the pattern has no repeated entry, so a matrix is its values put in that order: no COO
+    conversion (sorting and summing) per matrix, which cost more than the block products."""
+    rows, cols = _block_pattern(k, n, n_p, n_bc)
+    order = np.lexsort((rows, cols))
+    counts = np.bincount(cols, minlength=n * k + n_p)
+    indptr = np.concatenate([[0], np.cumsum(counts)])
+    for array in (order, rows):
+        array.setflags(write=False)
+    indices = rows[order]
+    indices.setflags(write=False)
+    indptr.setflags(write=False)
+    return order, indices, indptr, rows
+
+
 def block_matrix(left: np.ndarray, right: np.ndarray, parameters: np.ndarray | None, a: np.ndarray,
                  b: np.ndarray, dp: np.ndarray | None, scale: np.ndarray | None = None) -> sparse.csc_matrix:
     """The one assembler of the bordered block-bidiagonal Newton matrices of the methods.
@@ -90,11 +108,16 @@ def block_matrix(left: np.ndarray, right: np.ndarray, parameters: np.ndarray | N
     values += [a.ravel(), b.ravel()]
     if n_p:
         values.append(np.asarray(dp, float).ravel())
-    rows, cols = _block_pattern(k, n, n_p, a.shape[0])
+    shape = ((k - 1) * n + a.shape[0], n * k + n_p)
+    if k == 1:  # one block: the two boundary blocks fall on the same entries, which add up
+        rows, cols = _block_pattern(k, n, n_p, a.shape[0])
+        v = np.concatenate(values)
+        return sparse.csc_matrix((v if scale is None else v * scale[rows], (rows, cols)), shape=shape)
+    order, indices, indptr, rows = _csc_layout(k, n, n_p, a.shape[0])
     v = np.concatenate(values)
     if scale is not None:
         v = v * scale[rows]
-    return sparse.csc_matrix((v, (rows, cols)), shape=((k - 1) * n + a.shape[0], n * k + n_p))
+    return sparse.csc_matrix((v[order], indices.copy(), indptr.copy()), shape=shape)
 
 
 class SingularMatrix(RuntimeError):

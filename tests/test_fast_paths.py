@@ -98,6 +98,32 @@ def test_the_sparse_assembly_is_the_block_assembly():
         < 1e-12
 
 
+@pytest.mark.parametrize(("k", "n", "n_p", "n_bc"), [(1, 2, 0, 2), (1, 2, 1, 3), (2, 1, 0, 1), (6, 3, 2, 5)])
+def test_the_block_matrix_is_the_sum_of_its_blocks_entry_by_entry(k, n, n_p, n_bc):
+    # the compressed-column layout put in place of a COO conversion: compared with the blocks
+    # added entry by entry into a dense matrix (one block: both boundary blocks on one block)
+    rng = np.random.default_rng(k * 100 + n)
+    left, right = rng.normal(size=(k - 1, n, n)), rng.normal(size=(k - 1, n, n))
+    parameters = rng.normal(size=(k - 1, n, n_p)) if n_p else None
+    a, b = rng.normal(size=(n_bc, n)), rng.normal(size=(n_bc, n))
+    dp = rng.normal(size=(n_bc, n_p)) if n_p else None
+    scale = rng.uniform(0.5, 2.0, (k - 1) * n + n_bc)
+    dense = np.zeros(((k - 1) * n + n_bc, k * n + n_p))
+    for j in range(k - 1):
+        dense[j * n:(j + 1) * n, j * n:(j + 1) * n] += left[j]
+        dense[j * n:(j + 1) * n, (j + 1) * n:(j + 2) * n] += right[j]
+        if n_p:
+            dense[j * n:(j + 1) * n, k * n:] += parameters[j]
+    base = (k - 1) * n
+    dense[base:, :n] += a
+    dense[base:, (k - 1) * n:k * n] += b
+    if n_p:
+        dense[base:, k * n:] += dp
+    matrix = block_matrix(left, right, parameters, a, b, dp, scale)
+    assert np.abs(matrix.toarray() - scale[:, None] * dense).max() < 1e-14
+    assert matrix.has_sorted_indices
+
+
 def test_a_large_sparse_system_solves_alike_by_both_factorisations(monkeypatch):
     import bvpkit.discrete as discrete
 
