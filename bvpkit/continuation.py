@@ -32,8 +32,8 @@ halved meshes until two successive meshes agree to the tolerance; the trace then
 onto the other branch (along the null vector) unless ``switch=False``.
 
 **Infinite domains.** The truncation length is chosen once, by the first point's solve,
-and held; after each point a cheap far-field check (the change of the states over the
-last tenth of the truncated domain) runs, and only when it exceeds the tolerance is the
+and held; after each point a cheap far-field check (the change of each state, or of its
+slope, over the last tenth of the truncated domain) runs, and only when it exceeds the tolerance is the
 point solved again on a domain half as long again and compared; infinity moves out only
 when that comparison asks for it.
 
@@ -74,6 +74,7 @@ MAX_ANGLE = math.radians(8.0)
 MAX_DRIFT = 0.2
 #: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
 FLOOR = 1e-7
+_MAX_MOVES = 12  # lengthenings by 1.5 of one point's truncation (1.5**12 ~ 130 times)
 _TAIL = 0.9  # the far-field check compares the states at t = 1 and t = 0.9 of the infinite region
 _OUTPUT_FLOOR = 0.05  # an output's scale in the drawn plane: its spread so far, at least 5% of its size
 _SETTLED = 4  # points on a branch before its drawn angle is checked while tracing
@@ -525,28 +526,45 @@ class _Tracer:
         layout = view.layout
         size = layout.region_size
         rows = slice((layout.regions - 1) * size, layout.regions * size)
-        ends = hermite(self.compiled, view.t, view.y, view.p, view.k)(np.array([_TAIL, 1.0]))[rows]
+        spline = hermite(self.compiled, view.t, view.y, view.p, view.k)
+
+        def settled(points: np.ndarray, part: slice) -> np.ndarray:
+            # per state: the smaller of the relative changes of its value and of its slope
+            # over the tail (a state that grows linearly there, like the stream function of a
+            # boundary layer, has settled when its slope has)
+            y = spline(points)
+            with np.errstate(all="ignore"):
+                f = np.asarray(self.compiled.rhs(points, y, view.p, view.k), float)
+            y, f = y[part], f[part]
+            value = np.abs(y[:, 1] - y[:, 0]) / (1.0 + np.abs(y[:, 1]))
+            slope = np.abs(f[:, 1] - f[:, 0]) / (1.0 + np.abs(f[:, 1]))
+            return np.fmin(value, np.where(np.isfinite(slope), slope, np.inf))
+
+        change = settled(np.array([_TAIL, 1.0]), rows)
         if all(layout.infinite) or layout.infinite[0]:
-            begin = hermite(self.compiled, view.t, view.y, view.p, view.k)(np.array([1 - _TAIL, 0.0]))[: size]
-            ends = np.concatenate([ends, begin], axis=0)
-        tail = float(np.max(np.abs(ends[:, 1] - ends[:, 0]) / (1.0 + np.abs(ends[:, 1]))))
-        if tail <= self.tol:
+            change = np.concatenate([change, settled(np.array([1 - _TAIL, 0.0]), slice(0, size))])
+        if float(np.max(change)) <= self.tol:
             return sol
-        k = view.k.copy()
-        k[self.length_at] *= 1.5
-        here = self.prepared.with_constants(**{self.name: value})
-        longer = solve_at(here, k, sol, tol=self.tol, method=self.last_method, verify=self.verify)
-        if not longer.success:
-            return sol
-        moved = Start(self.compiled, longer.interpolant.t, longer.interpolant.y, longer.interpolant.p, k)
         from .guess import carried
 
-        theirs = carried(moved, self.compiled, view.t, view.p, view.k)
-        change = float(np.max(np.abs(view.y - theirs) / (1.0 + np.abs(theirs))))
-        if change <= 0.5 * self.tol:
-            return sol
-        self.k[self.length_at] = k[self.length_at]  # infinity moves out, for this and later points
-        return longer
+        here = self.prepared.with_constants(**{self.name: value})
+        current, k = sol, view.k.copy()
+        for _ in range(_MAX_MOVES):
+            view = current.interpolant
+            k = view.k.copy()
+            k[self.length_at] *= 1.5
+            longer = solve_at(here, k, current, tol=self.tol, method=self.last_method, verify=self.verify)
+            if not longer.success:
+                return current
+            moved = Start(self.compiled, longer.interpolant.t, longer.interpolant.y, longer.interpolant.p, k)
+            theirs = carried(moved, self.compiled, view.t, view.p, view.k)
+            change = float(np.max(np.abs(view.y - theirs) / (1.0 + np.abs(theirs))))
+            if change <= 0.5 * self.tol:
+                return current
+            # infinity moves out, for this and later points, until the solution stops changing
+            self.k[self.length_at] = k[self.length_at]
+            current = longer
+        return current
 
     # -- the trace ----------------------------------------------------------------------
     def run(self) -> Branch:
@@ -740,17 +758,22 @@ class _Tracer:
             return None  # the branch turns (or natural steps fail): pseudo-arclength
         return False, self._done(f"stopped after max_points = {self.max_points} points")
 
+    def _same_k(self, a: _Point, b: _Point) -> bool:
+        """Whether two points share every constant but the traced one (the truncation length:
+        a secant between solutions on two truncations compares unlike things)."""
+        return np.array_equal(np.delete(a.k, self.index), np.delete(b.k, self.index))
+
     def _geometry(self, last: _Point, new: _Point) -> tuple[bool, bool]:
         """Whether the branch is turning at ``new`` (small parameter component of the secant)
         and whether the step turned by more than the angle allowed."""
-        if not np.array_equal(np.delete(last.k, self.index), np.delete(new.k, self.index)):
+        if not self._same_k(last, new):
             return False, False  # another truncation length: no secant between the two
         eq = self._equations(new)
         secant = self._secant(last, new)
         size = arc.norm(eq, secant)
         turning = size > 0 and abs(secant[-1]) / size < _TURNING
         too_sharp = False
-        if len(self.points) - self.since >= 2:
+        if len(self.points) - self.since >= 2 and self._same_k(self.points[-2], last):
             before = self._carry(self._secant(self.points[-2], last), last, new)
             too_sharp = self._angle(eq, before, secant) > self.max_angle
         return turning, too_sharp

@@ -45,6 +45,19 @@ def test_an_infinite_domain_keeps_its_truncation_along_a_trace(wedge_branch):
         assert s.diagnostics.truncation_length == pytest.approx(lengths[-1]) or s.diagnostics.truncation_length in lengths
 
 
+def test_infinity_moves_out_along_a_trace_as_far_as_the_decay_needs():
+    # y'' = a^2 y, y(0) = 1, y(inf) = 0: y = exp(-a x), y'(0) = -a (analytic). As a falls from
+    # 2 to 0.1 the decay length grows twentyfold: the truncation held at the start is too short
+    # later. Once the far-field check moved it only 1.5x per point (8e-6 off at a = 0.1 when the
+    # steps were long), and each move made the natural steps collapse to 1e-7 (195 points).
+    p = bvpkit.Problem(["y'' = a**2*y"], ["y(0) = 1", "y(inf) = 0"], (0, "inf"), constants={"a": 2.0})
+    branch = bvpkit.trace(p, "a", start=2.0, stop=0.1, tol=1e-7, outputs=["y'(0)"])
+    assert branch.success, branch.message
+    assert branch.outputs["y'(0)"] == pytest.approx(-branch.parameter, abs=1e-6)
+    assert branch.truncation[-1] > 2 * branch.truncation[0]
+    assert len(branch.parameter) < 40
+
+
 @pytest.fixture(scope="module")
 def strut_branch():
     p = bvpkit.Problem(["theta'' + lam*sin(theta) = 0"], ["theta'(0) = 0", "theta'(1) = 0"], (0, 1),
