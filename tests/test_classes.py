@@ -68,6 +68,21 @@ def test_euler_buckling_loads(equation, conditions, factor, source):
     assert sol.parameters["P"] == pytest.approx(factor * math.pi**2 * EI / LENGTH**2, rel=1e-8), source
 
 
+@pytest.mark.parametrize("mode", [1, 2, 3])
+def test_the_eigenvalue_guess_of_a_column_whose_modes_keep_one_sign(mode):
+    # a column clamped at the base and free at the top: every buckled shape w = 1 - cos(...)
+    # keeps one sign, so the modes are told apart by the order of the loads alone; mode 3's
+    # guess once came out at 1.7e10. Analytic: P_k = (2k - 1)^2 pi^2 EI / (4 L^2) (Euler); the
+    # guess is a trapezoidal-rule eigenvalue on 121 nodes, so 1% is its accuracy here.
+    from bvpkit import guess
+
+    p = bvpkit.prepare(bvpkit.Problem(["EI*w'''' + P*w'' = 0"],
+                                      ["w(0) = 0", "w'(0) = 0", "w''(L) = 0", "EI*w'''(L) + P*w'(L) = 0"],
+                                      (0, "L"), constants={"EI": EI, "L": LENGTH}, eigenvalue="P", mode=mode))
+    _, load = guess.eigen_guess(p.compiled, guess.initial_mesh(41), p.k(), mode)
+    assert load == pytest.approx((2 * mode - 1) ** 2 * math.pi**2 * EI / (4 * LENGTH**2), rel=1e-2)
+
+
 @pytest.mark.parametrize("phi", [0.5, 2.0, 10.0])
 def test_spherical_pellet_effectiveness_with_the_singular_centre(phi):
     p = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c(1) = 1"], (0, 1), independent="r",
