@@ -22,9 +22,9 @@ import sympy as sp
 from . import program as _program
 from .budget import budget
 from .compiled import (
+    _MEMORY,
     CACHE_VARIABLE,
     CompiledSystem,
-    _MEMORY,
     assemble,
     build_quantity,
     read_cache,
@@ -33,7 +33,7 @@ from .compiled import (
 )
 from .errors import ProgramError
 from .program import check_source
-from .reduce import X, StandardForm
+from .reduce import StandardForm, X
 
 # names of compiled.py and program.py that code and tests reach through this module
 __all__ = ["CACHE_VARIABLE", "CompiledSystem", "check_source", "compile_expressions", "compile_system",

@@ -55,7 +55,7 @@ import numpy as np
 from . import arclength as arc
 from ._output import json_ready, progress_bar, write_columns
 from .diagnostics import Attempt, hermite
-from .discrete import CollocationEquations, SingularMatrix, node_weights
+from .discrete import CollocationEquations, SingularMatrix
 from .driver import DEFAULT_TOL, settle, solve, solve_at
 from .errors import OptionError, closest
 from .guess import Start

@@ -25,7 +25,6 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.sparse.linalg import splu
 
-
 # Hermite basis (values and derivatives) at the two interior 5-point Lobatto nodes t = 1/2 -+ sqrt(3/7)/2
 _D = 0.5 * np.sqrt(3 / 7)  # = sqrt(21) / 14
 _T = np.array([0.5 - _D, 0.5 + _D])

@@ -180,7 +180,6 @@ def fold_curve(
     -------
     FoldCurve
     """
-    from .continuation import trace
     from .problem import Problem
 
     if not isinstance(problem, Problem | Prepared):

@@ -33,8 +33,17 @@ from typing import Any
 
 import numpy as np
 
-from .compiled import (_MEMORY, CompiledSystem, _cache_dir, assemble, build_quantity, code_stamp, note, read_json,
-                       write_json)
+from .compiled import (
+    _MEMORY,
+    CompiledSystem,
+    _cache_dir,
+    assemble,
+    build_quantity,
+    code_stamp,
+    note,
+    read_json,
+    write_json,
+)
 from .errors import BvpkitError, OptionError, ProblemError, closest
 from .guess import GuessRecipe
 from .layout import LENGTH, StateLayout

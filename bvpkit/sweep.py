@@ -61,8 +61,8 @@ from typing import Any
 import numpy as np
 
 from ._output import json_ready, progress_bar, write_columns
-from .limits import LARGEST, SMALLEST, in_range
 from .errors import OptionError, closest
+from .limits import LARGEST, SMALLEST, in_range
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
 #: short enough to spread a grid over the workers.

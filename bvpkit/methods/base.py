@@ -26,8 +26,8 @@ from __future__ import annotations
 
 import dataclasses
 import time
-from dataclasses import dataclass
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import ClassVar
 
 import numpy as np

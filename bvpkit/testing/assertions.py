@@ -208,6 +208,7 @@ def assert_methods_agree(problem, *, quantities: Sequence[str], tol: float = 1e-
     error estimate. Returns ``{method: {quantity: value}}`` for the methods that succeeded.
     """
     import bvpkit
+
     from ..methods import REGISTRY
 
     results: dict[str, dict[str, float]] = {}
