@@ -101,6 +101,9 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--return-to", type=float, metavar="VALUE",
                        help="after a fold or branch point, end when the parameter comes back to this value")
     trace.add_argument("--no-switch", action="store_true", help="stay on the branch at a branch point")
+    trace.add_argument("--stability", action="store_true",
+                       help="judge each point as the steady state of u_t = u'' - g of a problem u'' = g "
+                       "(reaction-diffusion, heat conduction, ignition); stable parts drawn solid, unstable dashed")
 
     folds = commands.add_parser(
         "fold-curve", help="follow a fold as a second constant changes (ignition and extinction maps)",
@@ -388,6 +391,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         at=args.at if args.at else settings.get("at"),
         return_to=args.return_to if args.return_to is not None else settings.get("return_to"),
         switch=not args.no_switch and settings.get("branch_switching", True),
+        stability=bool(args.stability or settings.get("stability", False)),
     )
     units = _units(problem)
     if args.csv:

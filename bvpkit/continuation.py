@@ -63,6 +63,7 @@ from .layout import LENGTH
 from .methods.base import Outcome
 from .prepared import Prepared, prepare
 from .solution import Solution
+from .stability import stable
 from .status import Status
 
 _GROW, _SHRINK = 1.5, 0.5
@@ -135,6 +136,9 @@ class Branch:
         (added after the trace where the drawn branch turned sharply) for each point.
     truncation : list of float or None
         Where infinity stood at each point (None for a finite domain).
+    stability : list of bool or None
+        Per point, whether it is a stable steady state (``trace(..., stability=True)``;
+        None where not judged or where the reading does not apply).
     """
 
     def __init__(self, name: str, outputs: dict[str, str]):
@@ -149,6 +153,7 @@ class Branch:
         self.branch_points: list[BranchPoint] = []
         self.requested: dict[float, list[Solution]] = {}
         self.stability: list[bool | None] = []
+        self.judge = False  # whether points are judged stable (trace(..., stability=True))
         self.success = False
         self.interrupted = False
         self.message = ""
@@ -171,7 +176,7 @@ class Branch:
         self._values.append(float(value))
         self.solutions.append(solution)
         self.steps.append(how)
-        self.stability.append(None)
+        self.stability.append(stable(solution) if self.judge else None)
         if outputs is not None:
             self._rows.append(dict(zip(self._outputs, (float(v) for v in outputs))))
             return
@@ -206,7 +211,11 @@ class Branch:
 
     def table(self) -> dict[str, np.ndarray]:
         """Columns: the parameter, each output, and how each point was reached."""
-        return {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
+        columns = {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
+        if self.judge:
+            words = {True: "stable", False: "unstable", None: "-"}
+            columns["stability"] = np.array([words[v] for v in self.stability])
+        return columns
 
     def to_csv(self, path: str | Path) -> None:
         write_columns(path, self.table())
@@ -229,16 +238,20 @@ class Branch:
             "truncation": self.truncation,
             "folds": points(self.folds),
             "branch_points": points(self.branch_points),
+            "stability": list(self.stability) if self.judge else None,
             "seconds": self.seconds,
         })
 
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
         outputs = self.outputs
-        header = [self.name, *self._outputs, "step"]
+        header = [self.name, *self._outputs, "step", *(["stability"] if self.judge else [])]
         lines.append("  ".join(f"{h:>14s}" for h in header))
+        words = {True: "stable", False: "unstable", None: "-"}
         for i, value in enumerate(self._values):
             row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{self.steps[i]:>14s}"]
+            if self.judge:
+                row.append(f"{words[self.stability[i]]:>14s}")
             lines.append("  ".join(row))
         for kind, found in (("fold", self.folds), ("branch point", self.branch_points)):
             for f in found:
@@ -293,6 +306,7 @@ def trace(
     return_to: float | None = None,
     switch: bool = True,
     max_angle: float | None = None,
+    stability: bool = False,
 ) -> Branch:
     """Trace the solutions of ``problem`` as the constant ``name`` goes from ``start`` to ``stop``.
 
@@ -334,6 +348,11 @@ def trace(
     max_angle : float, optional
         Largest angle (radians) between successive secants of accepted steps (default
         :data:`MAX_ANGLE`, 8 degrees).
+    stability : bool
+        Judge each point as the steady state of the diffusion equation ``u_t = u'' - g`` of a
+        problem ``u'' = g(x, u, u')`` (reaction-diffusion, heat conduction with a source,
+        ignition): ``branch.stability`` True, False, or None where that reading does not
+        apply (see :mod:`bvpkit.stability`). Default False: every entry None.
 
     Returns
     -------
@@ -366,6 +385,9 @@ def trace(
     tracer = _Tracer(prepared, name, start, stop, names, tol, method, step, max_points, progress)
     tracer.fixed, tracer.verify, tracer.requested, tracer.return_to = fixed_step, verify, requested, return_to
     tracer.switch, tracer.max_angle = switch, angle
+    if not isinstance(stability, bool):
+        raise OptionError(f"stability must be true or false, got {stability!r}")
+    tracer.branch.judge = stability
     return tracer.run()
 
 

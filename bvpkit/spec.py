@@ -25,7 +25,7 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     wall_shear = "f''(0)"
 
     [trace]           # for `bvpkit trace`: parameter, start, stop, outputs, max_points, step,
-                      # at (values solved exactly), return_to, branch_switching
+                      # at (values solved exactly), return_to, branch_switching, stability
 
     parameter = "Re_x"
     start = 1e4
@@ -120,6 +120,7 @@ class TraceSection(_Model):
     at: list[Number] | None = None
     return_to: Number | None = None
     branch_switching: StrictBool | None = None
+    stability: StrictBool | None = None
 
 
 class FoldCurveSection(_Model):

@@ -159,3 +159,63 @@ def test_cli_traces_the_bundled_strut_and_draws_the_ignition_map(tmp_path, capsy
     out = capsys.readouterr().out
     assert "followed the fold in d" in out and (tmp_path / "map.png").exists()
     assert len((tmp_path / "map.csv").read_text().splitlines()) > 10
+
+
+# -- stability as a steady state of the diffusion equation -----------------------------------
+
+def _root_of_w_tan_w_is_one() -> float:
+    from scipy.optimize import brentq
+
+    return brentq(lambda w: w * math.tan(w) - 1.0, 0.1, 1.5)
+
+
+@pytest.mark.parametrize(("equation", "conditions", "domain", "a", "exact", "source"), [
+    ("y'' + a*y = 1", ["y(0) = 0", "y(1) = 0"], (0, 1), 2.0, lambda a: a - math.pi**2,
+     "analytic: v'' + a v = mu v, v(0) = v(1) = 0: mu_1 = a - pi^2"),
+    ("y'' + a*y = 1", ["y(0) = 0", "y(1) = 0"], (0, 1), 12.0, lambda a: a - math.pi**2,
+     "analytic, as above: positive between pi^2 and 4 pi^2 (unstable)"),
+    ("y'' + a*y = 1", ["y'(0) = 0", "y'(1) + y(1) = 0"], (0, 1), 0.5, lambda a: a - _root_of_w_tan_w_is_one()**2,
+     "analytic: v = cos(w x), w tan w = 1 from the Robin end: mu_1 = a - w^2"),
+    ("y'' + 0.5*y' + a*y = 1", ["y(0) = 0", "y(3) = 0"], (0, 3), 0.5, lambda a: a - 0.5**2 / 4 - (math.pi / 3)**2,
+     "analytic: v = w exp(-x/4) removes the first derivative: mu_1 = a - b^2/4 - (pi/L)^2"),
+])
+def test_the_principal_eigenvalue_of_linear_steady_states(equation, conditions, domain, a, exact, source):
+    from bvpkit.stability import principal_eigenvalue, stable
+
+    sol = bvpkit.solve(bvpkit.Problem([equation], conditions, domain, constants={"a": a}), tol=1e-8)
+    assert principal_eigenvalue(sol) == pytest.approx(exact(a), rel=1e-6, abs=1e-8), source
+    assert stable(sol) is bool(exact(a) < 0)
+
+
+def test_the_bratu_branch_is_stable_below_its_fold_and_unstable_above():
+    # the principal eigenvalue crosses zero at the fold (common practice, no source); the
+    # lower branch of the one-dimensional Bratu problem is stable, the upper one unstable
+    # (from memory: Bebernes and Eberly 1989, Mathematical Problems from Combustion Theory)
+    p = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.1})
+    branch = bvpkit.trace(p, "lam", start=0.1, stop=5.0, outputs=["y'(0)"], tol=1e-6, return_to=1.0, stability=True)
+    assert len(branch.folds) == 1
+    slope = branch.outputs["y'(0)"]
+    fold_slope = branch.folds[0].outputs["y'(0)"]  # 4 at the fold (analytic: y'(0) = 4 there)
+    for s, judged in zip(slope, branch.stability):
+        if abs(s - fold_slope) > 0.05 * fold_slope:
+            assert judged is bool(s < fold_slope)
+    assert branch.stability.count(True) >= 5 and branch.stability.count(False) >= 5
+    assert "stability" in branch.table() and "unstable" in branch.summary()
+
+
+def test_stability_is_judged_only_when_asked_and_where_the_reading_applies():
+    bratu = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.5})
+    assert set(bvpkit.trace(bratu, "lam", start=0.5, stop=1.0).stability) == {None}
+    # a third-order flow and an eigenvalue problem are not steady states of u_t = u'' - g
+    flow = bvpkit.trace(wedge(), "beta", start=1.0, stop=0.8, tol=1e-6, stability=True)
+    assert flow.success and set(flow.stability) == {None}
+    column = bvpkit.load("specs/strut_buckling.toml")
+    assert set(bvpkit.trace(column, "L", start=2.0, stop=2.5, stability=True).stability) == {None}
+    with pytest.raises(bvpkit.OptionError, match="stability"):
+        bvpkit.trace(bratu, "lam", start=0.5, stop=1.0, stability="yes")
+
+
+def test_the_bundled_ignition_spec_traces_with_its_stability(capsys):
+    assert main(["trace", "specs/ignition_map.toml", "--quiet", "--tol", "1e-6"]) == 0
+    out = capsys.readouterr().out
+    assert " stable" in out and "unstable" in out
