@@ -26,7 +26,7 @@ import numpy as np
 from . import guess as _guess
 from . import methods, strategy
 from .diagnostics import Diagnostics, condition_estimate, residuals
-from .errors import OptionError
+from .errors import BvpkitError, OptionError
 from .layout import LENGTH
 from .methods.base import Outcome, Trial
 from .prepared import DEFAULT_TRUNCATION, Prepared, prepare
@@ -377,7 +377,10 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         )
     if layout.eigenvalue is not None and status is Status.SOLVED:
         found = _guess.interior_zeros(_guess.first_function(layout, outcome.y))
-        if found != layout.mode - 1:
+        if found != layout.mode - 1 and _by_order(compiled, outcome, k, layout.mode):
+            message += (f"; every mode of {layout.functions[0][0]} keeps as many interior zeros, so mode "
+                        f"{layout.mode} was told by the order of the eigenvalues")
+        elif found != layout.mode - 1:
             name = layout.functions[0][0]
             status = Status.OTHER_MODE
             message = (
@@ -410,6 +413,19 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         reference = Interpolant(compiled, ref.x, ref.y, ref.p, k)
     return Solution(prepared, k, status, message, diagnostics.method, outcome.x, outcome.y, outcome.p,
                     diagnostics, outcome.parameter_errors, reference, previous)
+
+
+def _by_order(compiled, outcome: Outcome, k: np.ndarray, mode: int) -> bool:  # noqa: ANN001
+    """Whether the modes of this eigenvalue problem are told apart by the order of the
+    eigenvalues alone (all with as many interior zeros), and the eigenvalue found is the
+    ``mode``-th: the guess's eigenvalue within 5%."""
+    report: dict = {}
+    try:
+        _, guessed = _guess.eigen_guess(compiled, _guess.initial_mesh(), k, mode, report)
+    except (BvpkitError, ArithmeticError, ValueError, np.linalg.LinAlgError):
+        return False
+    found = float(outcome.p[compiled.layout.eigenvalue])
+    return bool(report.get("by_order")) and abs(found - guessed) <= 0.05 * max(abs(found), 1e-300)
 
 
 def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float,  # noqa: ANN001

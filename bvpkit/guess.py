@@ -339,8 +339,12 @@ def first_function(layout, y: np.ndarray) -> np.ndarray:  # noqa: ANN001
     return np.concatenate([y[r] for r in layout.rows(i)])
 
 
-def eigen_guess(compiled, t: np.ndarray, k: np.ndarray, mode: int) -> tuple[np.ndarray, float]:  # noqa: ANN001
+def eigen_guess(compiled, t: np.ndarray, k: np.ndarray, mode: int,  # noqa: ANN001
+                report: dict | None = None) -> tuple[np.ndarray, float]:
     """States ``Y`` (user rows filled) and eigenvalue of mode ``mode`` of a linear problem.
+
+    ``report``, when given, gets ``by_order``: True when the modes found all had as many
+    interior zeros, so the mode was told by the order of the eigenvalues.
 
     Solves the trapezoidal-rule discretisation of the standard form on a uniform mesh as a
     generalized matrix eigenproblem ``K v = lam L v`` (the equations are affine in the
@@ -415,6 +419,8 @@ def eigen_guess(compiled, t: np.ndarray, k: np.ndarray, mode: int) -> tuple[np.n
     if not candidates:
         raise ProblemError("the discretised eigenproblem has no real eigenvalue; check the equations and conditions")
     wanted = [c for c in candidates if c[0] == mode - 1]
+    if report is not None:
+        report["by_order"] = not wanted and len({c[0] for c in candidates}) == 1
     pool = sorted(wanted or candidates, key=lambda c: c[1])
     _, _, lam, v = pool[0] if wanted else pool[min(mode - 1, len(pool) - 1)]
     value_rows = [j for j, row in enumerate(users) if layout.states[row % layout.region_size][1] == 0]

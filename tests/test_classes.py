@@ -81,6 +81,10 @@ def test_the_eigenvalue_guess_of_a_column_whose_modes_keep_one_sign(mode):
                                       (0, "L"), constants={"EI": EI, "L": LENGTH}, eigenvalue="P", mode=mode))
     _, load = guess.eigen_guess(p.compiled, guess.initial_mesh(41), p.k(), mode)
     assert load == pytest.approx((2 * mode - 1) ** 2 * math.pi**2 * EI / (4 * LENGTH**2), rel=1e-2)
+    # and the solve calls it the mode asked for (it said other_mode from mode 2 on)
+    sol = bvpkit.solve(p, tol=1e-9)
+    assert sol.status is bvpkit.Status.SOLVED, sol.message
+    assert sol.parameters["P"] == pytest.approx((2 * mode - 1) ** 2 * math.pi**2 * EI / (4 * LENGTH**2), rel=1e-8)
 
 
 @pytest.mark.parametrize("phi", [0.5, 2.0, 10.0])
