@@ -153,7 +153,7 @@ class Branch:
         self.branch_points: list[BranchPoint] = []
         self.requested: dict[float, list[Solution]] = {}
         self.stability: list[bool | None] = []
-        self.judge = False  # whether points are judged stable (trace(..., stability=True))
+        self._judge = False  # whether points are judged stable (trace(..., stability=True))
         self.success = False
         self.interrupted = False
         self.message = ""
@@ -176,7 +176,7 @@ class Branch:
         self._values.append(float(value))
         self.solutions.append(solution)
         self.steps.append(how)
-        self.stability.append(stable(solution) if self.judge else None)
+        self.stability.append(stable(solution) if self._judge else None)
         if outputs is not None:
             self._rows.append(dict(zip(self._outputs, (float(v) for v in outputs))))
             return
@@ -212,7 +212,7 @@ class Branch:
     def table(self) -> dict[str, np.ndarray]:
         """Columns: the parameter, each output, and how each point was reached."""
         columns = {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
-        if self.judge:
+        if self._judge:
             words = {True: "stable", False: "unstable", None: "-"}
             columns["stability"] = np.array([words[v] for v in self.stability])
         return columns
@@ -238,19 +238,19 @@ class Branch:
             "truncation": self.truncation,
             "folds": points(self.folds),
             "branch_points": points(self.branch_points),
-            "stability": list(self.stability) if self.judge else None,
+            "stability": list(self.stability) if self._judge else None,
             "seconds": self.seconds,
         })
 
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
         outputs = self.outputs
-        header = [self.name, *self._outputs, "step", *(["stability"] if self.judge else [])]
+        header = [self.name, *self._outputs, "step", *(["stability"] if self._judge else [])]
         lines.append("  ".join(f"{h:>14s}" for h in header))
         words = {True: "stable", False: "unstable", None: "-"}
         for i, value in enumerate(self._values):
             row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{self.steps[i]:>14s}"]
-            if self.judge:
+            if self._judge:
                 row.append(f"{words[self.stability[i]]:>14s}")
             lines.append("  ".join(row))
         for kind, found in (("fold", self.folds), ("branch point", self.branch_points)):
@@ -387,7 +387,7 @@ def trace(
     tracer.switch, tracer.max_angle = switch, angle
     if not isinstance(stability, bool):
         raise OptionError(f"stability must be true or false, got {stability!r}")
-    tracer.branch.judge = stability
+    tracer.branch._judge = stability
     return tracer.run()
 
 
