@@ -219,3 +219,14 @@ def test_the_bundled_ignition_spec_traces_with_its_stability(capsys):
     assert main(["trace", "specs/ignition_map.toml", "--quiet", "--tol", "1e-6"]) == 0
     out = capsys.readouterr().out
     assert " stable" in out and "unstable" in out
+
+
+def test_the_principal_eigenvalue_of_a_coupled_pair():
+    # u_t = u'' - (u - v), v_t = v'' - (2 v - u), u'(0) = v'(0) = 0, u(1) = 1, v(1) = 0; analytic:
+    # modes cos(pi x / 2) times the eigenvectors of A = [[-1, 1], [1, -2]]: mu_1 = -(pi/2)^2 + max eig A
+    from bvpkit.stability import principal_eigenvalue
+
+    p = bvpkit.Problem(["u'' = u - v", "v'' = 2*v - u"], ["u'(0) = 0", "u(1) = 1", "v'(0) = 0", "v(1) = 0"], (0, 1))
+    sol = bvpkit.solve(p, tol=1e-9)
+    exact = -(math.pi / 2) ** 2 + max(np.linalg.eigvalsh(np.array([[-1.0, 1.0], [1.0, -2.0]])))
+    assert principal_eigenvalue(sol) == pytest.approx(exact, rel=1e-8)
