@@ -186,7 +186,9 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     names = {problem.x: X}
     names.update({sp.Symbol(c): form.k[i] for i, c in enumerate(form.constants) if c in problem.constants})
     names.update({sp.Symbol(q): form.p[i] for i, q in enumerate(form.parameters)})
-    e = sp.sympify(e).xreplace(names)
+    if not isinstance(e, sp.Basic):  # parsed by Problem (expr.parse); text never reaches SymPy here
+        raise TypeError(f"a guess expression must be parsed first, got {type(e).__name__}")
+    e = e.xreplace(names)
     order = dict(form.functions)[name]
     derivatives = [e]
     for _ in range(order - 1):

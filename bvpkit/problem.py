@@ -786,7 +786,9 @@ class Problem:
 def point_value(point: Any, values: Mapping[str, float], what: str = "") -> float:
     """The number a point expression stands for, given the values of its names (checked:
     a real number of floating-point size, or an infinite end); ``what`` names it in errors."""
-    value = sp.sympify(point.xreplace({sp.Symbol(k): v for k, v in values.items()}))
+    if not isinstance(point, sp.Basic):  # parsed by Problem._point; text never reaches SymPy here
+        raise TypeError(f"a point must be a parsed expression, got {type(point).__name__}")
+    value = point.xreplace({sp.Symbol(k): sp.Float(v) for k, v in values.items()})
     if value == sp.oo:
         return math.inf
     if value == -sp.oo:
