@@ -56,9 +56,9 @@ from . import arclength as arc
 from ._output import json_ready, progress_bar, write_columns
 from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations, SingularMatrix
-from .driver import DEFAULT_TOL, settle, solve, solve_at
+from .driver import DEFAULT_TOL, GROWTH, MAX_LENGTHENINGS, settle, solve, solve_at
 from .errors import OptionError, closest
-from .guess import Start
+from .guess import Start, truncation_change
 from .layout import LENGTH
 from .methods.base import Outcome
 from .prepared import Prepared, prepare
@@ -75,7 +75,6 @@ MAX_ANGLE = math.radians(8.0)
 MAX_DRIFT = 0.2
 #: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
 FLOOR = 1e-7
-_MAX_MOVES = 12  # lengthenings by 1.5 of one point's truncation (1.5**12 ~ 130 times)
 _TAIL = 0.9  # the far-field check compares the states at t = 1 and t = 0.9 of the infinite region
 _OUTPUT_FLOOR = 0.05  # an output's scale in the drawn plane: its spread so far, at least 5% of its size
 _SETTLED = 4  # points on a branch before its drawn angle is checked while tracing
@@ -567,21 +566,18 @@ class _Tracer:
             change = np.concatenate([change, settled(np.array([1 - _TAIL, 0.0]), slice(0, size))])
         if float(np.max(change)) <= self.tol:
             return sol
-        from .guess import carried
-
         here = self.prepared.with_constants(**{self.name: value})
-        current, k = sol, view.k.copy()
-        for _ in range(_MAX_MOVES):
+        current = sol
+        for _ in range(MAX_LENGTHENINGS):  # as the truncation loop of solve
             view = current.interpolant
             k = view.k.copy()
-            k[self.length_at] *= 1.5
+            k[self.length_at] *= GROWTH
             longer = solve_at(here, k, current, tol=self.tol, method=self.last_method, verify=self.verify)
             if not longer.success:
                 return current
+            done = Start(self.compiled, view.t, view.y, view.p, view.k)
             moved = Start(self.compiled, longer.interpolant.t, longer.interpolant.y, longer.interpolant.p, k)
-            theirs = carried(moved, self.compiled, view.t, view.p, view.k)
-            change = float(np.max(np.abs(view.y - theirs) / (1.0 + np.abs(theirs))))
-            if change <= 0.5 * self.tol:
+            if truncation_change(done, moved) <= 0.5 * self.tol:
                 return current
             # infinity moves out, for this and later points, until the solution stops changing
             self.k[self.length_at] = k[self.length_at]

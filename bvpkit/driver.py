@@ -4,7 +4,7 @@ The first iterate comes from :mod:`bvpkit.start`.
 
 Everything here works on the prepared problem (``prepared.py``): the standard form on
 ``t`` in ``[0, 1]``. An infinite end is truncated at the length ``_length`` (a constant of
-the standard form): the solve starts at a length ``L0`` and lengthens it by ``_GROWTH``
+the standard form): the solve starts at a length ``L0`` and lengthens it by ``GROWTH``
 (each solve started from the previous one) until the states on the common interval change
 by less than half the tolerance. Each truncated solve is error-controlled to an eighth of
 the tolerance, so the change measures truncation rather than discretisation noise, and the
@@ -36,8 +36,8 @@ from .status import Status
 
 DEFAULT_TOL = 1e-6
 DEFAULT_MAX_NODES = 20_000
-_GROWTH = 1.5  # lengthening factor of a truncated domain
-_MAX_LENGTHENINGS = 12  # 1.5**12 ~ 130: from 10 to ~1300 units before giving up
+GROWTH = 1.5  # lengthening factor of a truncated domain
+MAX_LENGTHENINGS = 12  # 1.5**12 ~ 130: from 10 to ~1300 units before giving up
 _SHARE_TRUNCATION = 0.5  # part of the tolerance allowed to truncation
 _SHARE_DISCRETISATION = 0.125  # each truncated solve's error target: two of them stay below tol/4
 
@@ -228,11 +228,11 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
     attempts: list = []
     previous: Outcome | None = None
     previous_k = None
-    growth = _GROWTH ** _power(prepared)  # by _GROWTH in the variable t of a stretched map
+    growth = GROWTH ** _power(prepared)  # by GROWTH in the variable t of a stretched map
     change = math.inf
     selection = ""
     outcome: Outcome | None = None
-    for _ in range(_MAX_LENGTHENINGS):
+    for _ in range(MAX_LENGTHENINGS):
         k = _k_at(prepared, length)
         if previous is None:
             t, y, p = initial(prepared, k, guess, chosen)
@@ -255,7 +255,10 @@ def _solve_infinite(prepared: Prepared, guess: Any, chosen: dict, started: float
                 return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length)
             break
         if previous is not None:
-            change = _change(prepared, previous, previous_k, outcome, k)
+            compiled = prepared.compiled
+            change = _guess.truncation_change(
+                _guess.Start(compiled, previous.x, previous.y, previous.p, previous_k),
+                _guess.Start(compiled, outcome.x, outcome.y, outcome.p, k))
             if change <= _SHARE_TRUNCATION * tol:
                 return settle(prepared, k, outcome, attempts, selection, time.perf_counter() - started, tol, length,
                               change, Interpolant(prepared.compiled, previous.x, previous.y, previous.p, previous_k))
@@ -303,16 +306,6 @@ def _extended_mesh(t: np.ndarray, ratio: float, layout) -> np.ndarray:  # noqa: 
     mesh = np.concatenate(pieces)
     mesh[0], mesh[-1] = 0.0, 1.0
     return mesh
-
-
-def _change(prepared: Prepared, old: Outcome, old_k: np.ndarray, new: Outcome, new_k: np.ndarray) -> float:
-    """Max relative change of the states on the shorter interval, and of the parameters."""
-    compiled = prepared.compiled
-    theirs = _guess.carried(_guess.Start(compiled, new.x, new.y, new.p, new_k), compiled, old.x, old.p, old_k)
-    change = float(np.max(np.abs(old.y - theirs) / (1.0 + np.abs(theirs))))
-    if old.p.size:
-        change = max(change, float(np.max(np.abs(old.p - new.p) / (1.0 + np.abs(new.p)))))
-    return change
 
 
 def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, selection: str, seconds: float,

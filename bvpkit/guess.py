@@ -487,6 +487,16 @@ class Start:
         return self.compiled.layout
 
 
+def truncation_change(old: Start, new: Start) -> float:
+    """How much a solution changed when infinity moved out (``new`` on the longer domain):
+    the largest relative change of the states on ``old``'s mesh, and of the parameters."""
+    theirs = carried(new, old.compiled, old.t, old.p, old.k)
+    change = float(np.max(np.abs(old.y - theirs) / (1.0 + np.abs(theirs))))
+    if old.p.size:
+        change = max(change, float(np.max(np.abs(old.p - new.p) / (1.0 + np.abs(new.p)))))
+    return change
+
+
 def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
             hold: bool = False) -> np.ndarray:
     """The states of a previous solution (or :class:`Start`) on the standard mesh ``t`` of a

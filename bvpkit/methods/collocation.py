@@ -155,7 +155,7 @@ def _newton(eq: CollocationEquations, y: np.ndarray, p: np.ndarray, tol: float):
             settled = True  # a full step at round-off level: converged as far as double precision goes
         if njev == 4:
             break
-        if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp and BVP_SOLVER do)
+        if alpha == 1.0:  # a full step: keep the Jacobian (as solve_bvp does)
             step, cost, recompute = step_new, cost_new, False
         else:
             recompute = True
