@@ -390,7 +390,8 @@ def factor_blocks(left: np.ndarray, right: np.ndarray, parameters: np.ndarray | 
 
     L, R, A, B, maps = _augmented(left, right, parameters, a, b, dp)
     ab, kl, ku = _band_storage(L, R, A, B)
-    lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
+    with one_blas_thread(n):  # every caller: collocation, multiple shooting, the stability constant
+        lu, piv, info = dgbtrf(ab, kl, ku, overwrite_ab=1)
     if info > 0:
         raise SingularMatrix("the Newton matrix is singular")
     if not np.isfinite(lu[kl + ku]).all():  # NaN or inf anywhere in the matrix reach U's diagonal
@@ -519,7 +520,8 @@ class CollocationEquations:
             ym = midpoint_values(y, c.rhs(self.x, y, p, k), h)
         r, col = np.nonzero(c.jac_pattern)
         J = c.jac(self.x, y, p, k)[r, col, :]  # (nnz, m)
-        Jm = c.jac(self.mid, ym, p, k)[r, col, :]  # (nnz, m - 1)
+        Jmid = c.jac(self.mid, ym, p, k)  # (n, n, m - 1), evaluated once
+        Jm = Jmid[r, col, :]  # (nnz, m - 1)
         size = (m - 1) * n
         base = (np.arange(m - 1) * n)[None, :]
         rows, cols = (r[:, None] + base).ravel(order="F"), (col[:, None] + base).ravel(order="F")
@@ -545,7 +547,7 @@ class CollocationEquations:
             P = c.pjac(self.x, y, p, k)
             Pm = c.pjac(self.mid, ym, p, k)
             dym = -h / 8 * (P[:, :, 1:] - P[:, :, :-1])  # (n, n_p, m - 1)
-            JmDym = np.einsum("ijm,jkm->ikm", c.jac(self.mid, ym, p, k), dym)
+            JmDym = np.einsum("ijm,jkm->ikm", Jmid, dym)
             pblock = -h / 6 * (P[:, :, :-1] + P[:, :, 1:] + 4 * (Pm + JmDym))
             blocks = [[interval, sparse.csr_matrix(np.moveaxis(pblock, -1, 0).reshape(size, self.n_p))],
                       [sparse.csr_matrix(bc), sparse.csr_matrix(np.reshape(dp, (self.n_bc, self.n_p)))]]

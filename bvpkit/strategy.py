@@ -271,9 +271,7 @@ class _Timed:
         self._check()
         return self._base.rhs(x, y, p, k)
 
-    def slopes(self, x, y, p, k):  # noqa: ANN001, ANN201
-        self._check()
-        return self._base.rhs(x, y, p, k)
+    slopes = rhs
 
     def jac(self, x, y, p, k):  # noqa: ANN001, ANN201
         self._check()

@@ -231,7 +231,8 @@ class Collocation(Method):
         outcome = super()._solve_and_verify(trial)
         state = outcome.workspace
         floor = state.floor if isinstance(state, _State) else 0.0
-        missed = outcome.status is Status.ERROR_TOO_LARGE and outcome.error_estimate is not None
+        estimated = outcome.error_estimate is not None and np.isfinite(outcome.error_estimate)
+        missed = outcome.status is Status.ERROR_TOO_LARGE and estimated
         if floor > trial.tol and missed:
             outcome.status = Status.PRECISION_LIMIT
             outcome.message = (
@@ -240,7 +241,7 @@ class Collocation(Method):
                 f"reached is about {outcome.error_estimate:.2g} (estimated error), against the tolerance "
                 f"{trial.tol:.2g}; " + Status.PRECISION_LIMIT.hint
             )
-        elif floor > trial.tol and outcome.ok:
+        elif floor > trial.tol and outcome.ok and estimated:  # only where an estimate was made
             outcome.message = outcome.message.replace(
                 "where it misses the tolerance", "in places, and the error estimate meets the tolerance")
         return outcome
