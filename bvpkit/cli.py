@@ -23,6 +23,7 @@ from ._interrupt import MESSAGE as INTERRUPTED
 from ._interrupt import early_interrupt, wants_json
 from ._output import json_ready
 from .status import Status
+from .units import label, units_of
 
 _EPILOG = "exit codes: " + ", ".join(f"{s.exit_code} {s.word}" for s in Status)
 
@@ -393,9 +394,9 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         switch=not args.no_switch and settings.get("branch_switching", True),
         stability=bool(args.stability or settings.get("stability", False)),
     )
-    units = _units(problem)
+    units = units_of(problem)
     if args.csv:
-        _csv_with_units(branch.to_csv, args.csv, units, problem.independent)
+        branch.to_csv(args.csv, units=units, independent=problem.independent)
     if args.plot:
         branch.plot(args.plot, title=problem.title, units=units)
     code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
@@ -442,7 +443,7 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
         max_points=settings.get("max_points", 200),
     )
     if args.csv:
-        curve.to_csv(args.csv)
+        curve.to_csv(args.csv, units=units_of(problem), independent=problem.independent)
     if args.plot:
         curve.plot(args.plot)
     code = 0 if curve.success else Status.NOT_CONVERGED.exit_code
@@ -489,9 +490,9 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     finally:
         if client is not None:
             client.close()
-    units = _units(problem)
+    units = units_of(problem)
     if args.csv and result.table:
-        _csv_with_units(result.to_csv, args.csv, units, problem.independent)
+        result.to_csv(args.csv, units=units, independent=problem.independent)
     if args.plot and result.table:
         result.plot(args.plot, title=problem.title, units=units)
     code = 0 if result.success else Status.NOT_CONVERGED.exit_code
@@ -512,38 +513,9 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     return code, None
 
 
-def _units(problem: Any) -> dict[str, str]:
-    from .units import units_of
-
-    return units_of(problem)
-
-
-def label(name: str, units: dict[str, str], independent: str) -> str:
-    from .units import label as with_unit
-
-    return with_unit(name, units, independent)
-
-
 def _units_line(units: dict[str, str], names: Sequence[str]) -> str:
     shown = [f"{n} in {units[n]}" for n in dict.fromkeys(names) if n in units]
     return "\nunits: " + ", ".join(shown) if shown else ""
-
-
-def _csv_with_units(write: Any, path: str, units: dict[str, str], independent: str) -> None:
-    """A table written by the library's one CSV writer, its header labelled with the units."""
-    import csv
-    import io
-
-    if not units:
-        write(path)
-        return
-    buffer = io.StringIO(newline="")
-    write(buffer)
-    buffer.seek(0)
-    rows = list(csv.reader(buffer))
-    rows[0] = [label(name, units, independent) for name in rows[0]]
-    with open(path, "w", newline="") as handle:
-        csv.writer(handle).writerows(rows)
 
 
 def _check(args: argparse.Namespace) -> tuple[int, Any]:

@@ -45,7 +45,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -65,6 +65,7 @@ from .prepared import Prepared, prepare
 from .solution import Solution
 from .stability import stable
 from .status import Status
+from .units import labelled
 
 _GROW, _SHRINK = 1.5, 0.5
 _TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
@@ -216,8 +217,9 @@ class Branch:
             columns["stability"] = np.array([words[v] for v in self.stability])
         return columns
 
-    def to_csv(self, path: str | Path) -> None:
-        write_columns(path, self.table())
+    def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
+        """:meth:`table` as CSV; headers labelled with ``units`` when given (``lam [N]``)."""
+        write_columns(path, labelled(self.table(), units, independent))
 
     def as_dict(self) -> dict[str, Any]:
         outputs = self.outputs

@@ -81,8 +81,11 @@ def options(settings: Mapping[str, Any], given: Mapping[str, Any]) -> dict[str, 
     time_limit = chosen.get("time_limit", DEFAULT_TIME_LIMIT)
     if isinstance(time_limit, bool) or not isinstance(time_limit, int | float) or not 0 < time_limit <= 1e6:
         raise OptionError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    # the selector's budget binds auto; a method named alone runs to its end unless a limit is given
+    limited = method == "auto" or "time_limit" in chosen
     return {"method": method, "tol": float(tol), "max_nodes": max_nodes, "verify": verify,
-            "truncation": float(truncation), "homotopy": homotopy, "time_limit": float(time_limit)}
+            "truncation": float(truncation), "homotopy": homotopy, "time_limit": float(time_limit),
+            "limited": limited}
 
 
 def _check_homotopy(prepared: Prepared, homotopy: str) -> None:
@@ -165,7 +168,7 @@ def solve(
                                          "time_limit": time_limit})
     _check_homotopy(prepared, chosen["homotopy"])
     start = time.perf_counter()
-    if chosen["method"] == "auto" or time_limit is not None or "time_limit" in prepared.settings:
+    if chosen["limited"]:
         # the selector's budget; a method named alone runs to its end unless a limit is given
         chosen["deadline"] = start + chosen["time_limit"]
     check_guess(prepared, guess)

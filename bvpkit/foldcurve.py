@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -36,6 +36,7 @@ from .methods.base import Outcome, Trial, compare
 from .prepared import Prepared, prepare
 from .solution import Solution
 from .status import Status
+from .units import labelled
 
 _GROW, _SHRINK = 1.5, 0.5
 #: Over a positive range of more than two decades (drawn on a log scale) a step changes the
@@ -105,8 +106,9 @@ class FoldCurve:
     def table(self) -> dict[str, np.ndarray]:
         return {self.along_name: self.along, self.name: self.parameter, **self.outputs}
 
-    def to_csv(self, path: str | Path) -> None:
-        write_columns(path, self.table())
+    def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
+        """:meth:`table` as CSV; headers labelled with ``units`` when given."""
+        write_columns(path, labelled(self.table(), units, independent))
 
     def as_dict(self) -> dict[str, Any]:
         return json_ready({

@@ -63,6 +63,7 @@ import numpy as np
 from ._output import json_ready, progress_bar, write_columns
 from .errors import OptionError, closest
 from .limits import LARGEST, SMALLEST, in_range
+from .units import labelled
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
 #: short enough to spread a grid over the workers.
@@ -286,10 +287,11 @@ class SweepResult:
         """One column of the table as an array (a parameter, an output or a diagnostic)."""
         return np.array([r.get(name, math.nan) for r in self.table])
 
-    def to_csv(self, path: str | Path) -> None:
-        """The table as CSV, through the one writer of results (``_output.write_columns``)."""
+    def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
+        """The table as CSV, through the one writer of results (``_output.write_columns``);
+        headers labelled with ``units`` when given."""
         names = [*self.parameters, *self.outputs, "success", "status", "method", "error_estimate", "message"]
-        write_columns(path, {n: [r.get(n) for r in self.table] for n in names})
+        write_columns(path, labelled({n: [r.get(n) for r in self.table] for n in names}, units, independent))
 
     def as_dict(self) -> dict[str, Any]:
         status = "interrupted" if self.interrupted else "solved" if self.success else "not_converged"
@@ -302,14 +304,6 @@ class SweepResult:
         from .plots import sweep_figure
 
         return sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
-
-
-def _geometric(values: np.ndarray) -> bool:
-    v = np.asarray(values, float)
-    if v.size < 3 or np.any(v <= 0):
-        return False
-    ratios = v[1:] / v[:-1]
-    return bool(np.allclose(ratios, ratios[0], rtol=1e-6) and not np.isclose(ratios[0], 1.0))
 
 
 def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray]:  # noqa: ANN001

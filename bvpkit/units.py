@@ -110,3 +110,8 @@ def label(name: str, units: Mapping[str, str], independent: str | None = None) -
     """``"name [unit]"``, or the name alone when it has no unit."""
     unit = unit_of(name, units, independent)
     return f"{name} [{unit}]" if unit else name
+
+
+def labelled(columns: Mapping[str, Any], units: Mapping[str, str] | None, independent: str | None = None) -> dict:
+    """A table's columns with their headers labelled with units (as they are without units)."""
+    return {label(name, units, independent) if units else name: values for name, values in columns.items()}
