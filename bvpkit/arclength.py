@@ -77,6 +77,16 @@ def bordered(matrix, *rows) -> sparse.csc_matrix:  # noqa: ANN001
     return sparse.csc_matrix((data, indices, indptr), shape=(m + r, columns))
 
 
+def carry(vector: np.ndarray, n: int, x_from: np.ndarray, x_to: np.ndarray) -> np.ndarray:
+    """A vector of unknowns (``n`` states per node, node-major, then parameters) on the mesh
+    ``x_from`` carried onto the mesh ``x_to`` (linear interpolation of each state)."""
+    if x_from.size == x_to.size and np.array_equal(x_from, x_to):
+        return vector
+    ys = vector[: n * x_from.size].reshape(x_from.size, n).T
+    moved = np.array([np.interp(x_to, x_from, row) for row in ys])
+    return np.concatenate([moved.T.ravel(), vector[n * x_from.size:]])
+
+
 def determinant_sign(lu) -> float:  # noqa: ANN001 - a SuperLU object
     """The sign of the determinant of the matrix SuperLU factored: ``Pr A Pc = L U``, ``L``
     unit lower triangular, so ``sign det A = sign(Pr) sign(Pc) sign(prod diag U)``."""

@@ -487,12 +487,7 @@ class _Tracer:
 
     def _carry(self, vector: np.ndarray, source: _Point, target: _Point) -> np.ndarray:
         """A vector of unknowns on ``source``'s mesh carried onto ``target``'s mesh."""
-        if source.t.size == target.t.size and np.array_equal(source.t, target.t):
-            return vector
-        n = self.compiled.n
-        ys = vector[: n * source.t.size].reshape(source.t.size, n).T
-        moved = np.array([np.interp(target.t, source.t, row) for row in ys])
-        return np.concatenate([moved.T.ravel(), vector[n * source.t.size:]])
+        return arc.carry(vector, self.compiled.n, source.t, target.t)
 
     def _secant(self, a: _Point, b: _Point) -> np.ndarray:
         """``b - a`` in the unknowns of ``b``'s mesh."""
@@ -847,11 +842,12 @@ class _Tracer:
                 reason = reason or "the corrector did not converge"
             else:
                 drift = arc.norm(eq, z_new - predicted) / max(ds, 1e-300)
-                sol = self._solution(eq, z_new, t_new, its, time.perf_counter() - started)
                 if self._angle(eq, tangent, t_new) > self.max_angle or drift > MAX_DRIFT:
-                    reason = "the step turned too sharply"
-                elif ds > 0.01 * first_ds and self._plane_turn(float(z_new[-1]), sol) > self.max_angle:
-                    reason = "the drawn branch turned too sharply"
+                    reason = "the step turned too sharply"  # decided before the point's estimate is paid for
+                else:
+                    sol = self._solution(eq, z_new, t_new, its, time.perf_counter() - started)
+                    if ds > 0.01 * first_ds and self._plane_turn(float(z_new[-1]), sol) > self.max_angle:
+                        reason = "the drawn branch turned too sharply"
             if reason is not None:
                 ds *= _SHRINK
                 if ds < min_ds:
@@ -1029,8 +1025,7 @@ class _Tracer:
         y, pz = eq.split(z0)
         y_fine = hermite(self.free, x, y, pz, eq.k)(fine_x)
         fine = CollocationEquations(self.free, fine_x, eq.k)
-        yt, pt = eq.split(t0)
-        t_fine = fine.join(np.array([np.interp(fine_x, x, row) for row in yt]), pt)
+        t_fine = arc.carry(t0, eq.n, x, fine_x)
         start = fine.join(y_fine, pz)
         try:
             z, _ = arc.correct(fine, start, arc.tangent(fine, start, t_fine)[0], self.tol)

@@ -455,9 +455,11 @@ class CollocationEquations:
         col, bc, _, _, _ = self.parts(y, p)
         return np.concatenate([col.T.ravel(), bc])
 
-    def _blocks(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None):  # noqa: ANN202
+    def _blocks(self, y: np.ndarray, p: np.ndarray, ym: np.ndarray | None = None,
+                seen: dict | None = None):  # noqa: ANN202
         """``d col_i / d y_i``, ``d col_i / d y_i+1`` (each ``(m-1, n, n)``), the parameter
-        block ``(m-1, n, n_p)`` or None, and the condition Jacobians."""
+        block ``(m-1, n, n_p)`` or None, and the condition Jacobians. ``seen``, when given,
+        gets the Jacobians at the nodes and midpoints (``J``, ``Jm``, mesh axis first)."""
         c, k, h, n = self.c, self.k, self.h, self.n
         if ym is None:
             f = c.rhs(self.x, y, p, k)
@@ -465,6 +467,8 @@ class CollocationEquations:
         # (m, n, n) and (m-1, n, n), contiguous: batched products run twice as fast on them
         J = np.ascontiguousarray(np.moveaxis(c.jac(self.x, y, p, k), -1, 0))
         Jm = np.ascontiguousarray(np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0))
+        if seen is not None:
+            seen.update(J=J, Jm=Jm)
         hh = h[:, None, None]
         # left = -I - h/6 (J_i + 4 Jm (I/2 + h/8 J_i)), right = I - h/6 (J_i+1 + 4 Jm (I/2 - h/8 J_i+1))
         JmJl = Jm @ J[:-1]

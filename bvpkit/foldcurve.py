@@ -383,10 +383,11 @@ class _Follower:
             if sol.diagnostics.error_estimate > self.tol:
                 finer, z_fine = self._halved(eq, z_new)
                 if z_fine is not None:
+                    coarse_x = eq.x
                     eq, z_new = finer, z_fine
                     extra = self._extra(eq)
                     self._borders(eq, z_new)
-                    t_new, _ = arc.tangent(eq, z_new, self._carry(tangent, eq), extra)
+                    t_new, _ = arc.tangent(eq, z_new, arc.carry(tangent, eq.n, coarse_x, eq.x), extra)
                     sol = self._solution(eq, z_new)
             points.append((leg * s, mu_new, float(z_new[-2]), sol, None))
             if t_new[-1] * tangent[-1] < 0:
@@ -395,9 +396,6 @@ class _Follower:
             ds = ds * _GROW if its <= 3 and turn < self.max_angle / 2 else ds * (_SHRINK if its >= 8 else 1.0)
         self.failed = f"stopped after max_points = {self.max_points} points"
         return points
-
-    def _carry(self, vector: np.ndarray, eq: CollocationEquations) -> np.ndarray:
-        return vector if vector.size == eq.n * eq.m + eq.n_p else np.zeros(eq.n * eq.m + eq.n_p)
 
     def _angle(self, eq: CollocationEquations, u: np.ndarray, v: np.ndarray) -> float:
         c = arc.inner(eq, u, v) / max(arc.norm(eq, u) * arc.norm(eq, v), 1e-300)

@@ -36,7 +36,7 @@ from typing import Any
 import numpy as np
 import scipy.sparse as sparse
 
-from .discrete import CollocationEquations, block_matrix, midpoint_values
+from .discrete import CollocationEquations, block_matrix
 
 #: Eigenvalues within this part of the spectrum's bound from zero decide nothing (a fold or a
 #: branch point is where the principal eigenvalue crosses zero).
@@ -56,13 +56,12 @@ def principal_eigenvalue(solution: Any) -> float | None:
             or layout.users != len(layout.states) or any(order != 2 for _, order in layout.functions)):
         return None
     x, y, p, k = view.t, view.y, view.p, view.k
-    n, m = c.n, x.size
+    n = c.n
     eq = CollocationEquations(c, x, k)
+    seen: dict = {}
     with np.errstate(all="ignore"):
-        left, right, _, (a, b, _) = eq._blocks(y, p)
-        f = c.rhs(x, y, p, k)
-        J = np.moveaxis(np.asarray(c.jac(x, y, p, k), float), -1, 0)
-        Jm = np.moveaxis(np.asarray(c.jac(eq.mid, midpoint_values(y, f, eq.h), p, k), float), -1, 0)
+        left, right, _, (a, b, _) = eq._blocks(y, p, seen=seen)
+    J, Jm = seen["J"], seen["Jm"]  # the Jacobians at the nodes and midpoints the blocks were made of
     if a.shape[0] != n or not (np.isfinite(J).all() and np.isfinite(Jm).all()):
         return None
     value_rows = [layout.index(name, 0) for name, _ in layout.functions]
