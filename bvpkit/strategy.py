@@ -26,6 +26,7 @@ says decides what comes next:
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 import time
 from dataclasses import dataclass
@@ -186,10 +187,11 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
     converged: list[tuple[str, Outcome]] = []  # converged but inaccurate: witnesses against a later claim
     stalled: list[Status] = []  # how Newton failed, for the diagnosis at the end
     steps = list(chosen.steps)
+    nonlinear = functools.cache(lambda: _nonlinear(trial))  # probed once, when first asked
     auto = method == "auto"
     ended = ""
     for i, step in enumerate(steps):
-        if step.continuation and auto and context.homotopy == "auto" and not _continue(outcome, trial):
+        if step.continuation and auto and context.homotopy == "auto" and not _continue(outcome, nonlinear):
             continue
         start = time.perf_counter()
         share = _deadline(steps[i:], context.deadline, start)
@@ -200,7 +202,7 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
             hard = share + max(_GRACE, _GRACE_SHARE * (share - start))
             attempt_trial.compiled = _Timed(trial.compiled, hard)
         if auto and not step.continuation and i == 0 and _has_continuation(steps[i + 1:]):
-            attempt_trial.patience = _PATIENCE if _nonlinear(trial) else None
+            attempt_trial.patience = _PATIENCE if nonlinear() else None
         if step.continuation:
             found = _paths(context, trial)
             if isinstance(found, str):
@@ -238,7 +240,7 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
             break
     assert outcome is not None
     stuck = bool(stalled) and not converged and outcome.status in _NEWTON_FAILED
-    if auto and context.prepared is not None and stuck and context.homotopy != "off" and _nonlinear(trial):
+    if auto and context.prepared is not None and stuck and context.homotopy != "off" and nonlinear():
         diagnosis = _no_solution(context, trial)
         if diagnosis:
             outcome.message = f"{diagnosis} (what was seen: {outcome.message})"
@@ -290,13 +292,13 @@ def _has_continuation(steps: list[Step]) -> bool:
     return any(s.continuation for s in steps)
 
 
-def _continue(outcome: Outcome | None, trial: Trial) -> bool:
+def _continue(outcome: Outcome | None, nonlinear) -> bool:  # noqa: ANN001 - () -> bool
     """Whether the failure seen calls for continuation: Newton found no solution (or the
     equations overflowed along the guess). The mesh limit of a linear problem is a layer the
     mesh could not resolve, which no easier start cures."""
     if outcome is None or outcome.status not in _NEWTON_FAILED:
         return False
-    return outcome.status is not Status.MESH_LIMIT or _nonlinear(trial)
+    return outcome.status is not Status.MESH_LIMIT or nonlinear()
 
 
 def _hopeless(result: Outcome, trial: Trial) -> bool:
