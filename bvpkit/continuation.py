@@ -180,13 +180,7 @@ class Branch:
         if outputs is not None:
             self._rows.append(dict(zip(self._outputs, (float(v) for v in outputs))))
             return
-        row = {}
-        for o in self._outputs:
-            try:
-                row[o] = float(solution.evaluate(self._expressions[o], allow_failed=True))
-            except (ValueError, ArithmeticError):
-                row[o] = math.nan
-        self._rows.append(row)
+        self._rows.append(output_values(solution, self._expressions))
 
     def _insert(self, index: int, value: float, solution: Solution, how: str) -> None:
         """Put a point at ``index`` (a point added between two others to smooth the drawing)."""
@@ -268,6 +262,17 @@ class Branch:
         from .plots import branch_figure
 
         return branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+
+
+def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, float]:
+    """Each output (label -> expression) evaluated on ``solution``; NaN where it cannot be."""
+    row = {}
+    for label, text in expressions.items():
+        try:
+            row[label] = float(solution.evaluate(text, allow_failed=True))
+        except (ValueError, ArithmeticError):
+            row[label] = math.nan
+    return row
 
 
 def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[str, str]:
@@ -500,13 +505,7 @@ class _Tracer:
         return math.acos(max(-1.0, min(1.0, arc.inner(eq, u, v) / (nu * nv))))
 
     def _outs(self, sol: Solution) -> np.ndarray:
-        values = []
-        for text in self.branch._expressions.values():
-            try:
-                values.append(float(sol.evaluate(text, allow_failed=True)))
-            except (ValueError, ArithmeticError):
-                values.append(math.nan)
-        return np.array(values)
+        return np.array(list(output_values(sol, self.branch._expressions).values()))
 
     def _plane_turn(self, value: float, sol: Solution) -> float:
         """The angle by which the drawn branch turns at the last point if ``(value, sol)`` comes

@@ -27,7 +27,7 @@ import numpy as np
 
 from . import arclength as arc
 from ._output import json_ready, write_columns
-from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer
+from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
 from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations, SingularMatrix
 from .driver import DEFAULT_TOL, settle
@@ -95,13 +95,7 @@ class FoldCurve:
         self._along.append(float(along))
         self._values.append(float(value))
         self.solutions.append(solution)
-        row = {}
-        for o, text in self._expressions.items():
-            try:
-                row[o] = float(solution.evaluate(text, allow_failed=True))
-            except (ValueError, ArithmeticError):
-                row[o] = math.nan
-        self._rows.append(row)
+        self._rows.append(output_values(solution, self._expressions))
 
     def table(self) -> dict[str, np.ndarray]:
         return {self.along_name: self.along, self.name: self.parameter, **self.outputs}
