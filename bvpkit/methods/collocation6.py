@@ -283,15 +283,11 @@ class SixthOrderCollocation(Method):
     #: "tight": the method to prefer at tight tolerances on smooth problems (its cost per
     #: digit falls with the order).
     strengths = frozenset({"tight"})
-    takes_singular_term = False
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x0, y0 = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
         p = np.asarray(trial.p, float)
-        if c.layout.singular:
-            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end; use collocation",
-                           x0, y0, p)
         if x0.size < 2 or not np.all(np.diff(x0) > 0):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x0, y0, p)
         if not (np.isfinite(y0).all() and np.isfinite(p).all()):
