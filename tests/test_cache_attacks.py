@@ -21,9 +21,9 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit.generated import compiled
+from bvpkit.programs import compiled
 from bvpkit.reduce import prepared
-from bvpkit.generated import program
+from bvpkit.programs import program
 from bvpkit.errors import ProgramError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -449,7 +449,7 @@ def test_hostile_program_trees_are_refused_by_name(what):
 
 
 def test_a_program_list_that_is_not_a_systems_functions_is_refused():
-    from bvpkit.generated.layout import StateLayout
+    from bvpkit.programs.layout import StateLayout
 
     layout = StateLayout(key="k", independent="x", functions=(("y", 2),), states=(("y", 0), ("y", 1)), users=2,
                          regions=1, parameters=(), constants=())

@@ -139,7 +139,7 @@ def test_a_large_sparse_system_solves_alike_by_both_factorisations(monkeypatch):
 
 # -- preparation ----------------------------------------------------------------------------------
 def test_quick_derivatives_are_sympys():
-    from bvpkit.generated.codegen import _quick_derivative
+    from bvpkit.programs.codegen import _quick_derivative
 
     x, y, k = sp.symbols("x y k", real=True)
     for e in (-k * x**2 + k * y**2, 3 * x * y, k * x ** sp.Rational(3, 2), 2 * x + 5, k / x**2, k * x**2 * y):

@@ -505,7 +505,7 @@ def sweep(
     # (no SymPy in the workers)
     quantities = {**prepared.quantities, **{text: prepared.quantity(text) for text in labels.values()}}
     plain = dataclasses.replace(prepared, quantities=quantities).plain()
-    solver = {k: v for k, v in prepared.settings.items() if k in ("method", "tol", "max_nodes", "verify", "truncation")}
+    solver = {k: v for k, v in prepared.options.as_dict().items() if k in prepared.settings}
     problem_key = _key((prepared.facts["key"], sorted(prepared.constants.items()), sorted(prepared.facts["own"].items()),
                         sorted(solver.items()), sorted(labels.values()), sorted(options.items()), sorted(axes)))
     names = list(axes)

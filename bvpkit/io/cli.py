@@ -22,6 +22,7 @@ from typing import Any
 from .._interrupt import MESSAGE as INTERRUPTED
 from .._interrupt import early_interrupt, wants_json
 from .._output import json_ready
+from ..language.options import OPTIONS
 from ..status import Status
 from ..language.units import label, units_of
 
@@ -44,6 +45,36 @@ class _Parser(argparse.ArgumentParser):
         super().error(message)
 
 
+def _option_flags(parser: argparse.ArgumentParser, names: Any, says: dict[str, str] | None = None) -> None:
+    """The flags of solve options (language/options.py: one entry each, shared with the
+    spec's ``[solver]`` table and Python's keywords); the library checks the values."""
+    kinds = {"number": float, "count": int, "word": str}
+    for name in names:
+        option = OPTIONS[name]
+        words = (says or {}).get(name, option.says)
+        if option.kind == "switch":
+            parser.add_argument(option.flag, dest=name, action="store_const", const=not option.default, help=words)
+        elif name == "method":
+            parser.add_argument(option.flag, dest=name, choices=_methods(), help=words)
+        else:
+            parser.add_argument(option.flag, dest=name, type=kinds[option.kind], help=words,
+                                metavar="SECONDS" if name == "time_limit" else None)
+
+
+def _flag_values(args: argparse.Namespace, names: Any) -> dict[str, Any]:
+    """The values of option flags, checked here so that an error names the flag typed."""
+    from ..errors import OptionError
+
+    values = {name: getattr(args, name, None) for name in names}
+    for name, value in values.items():
+        if value is not None:
+            try:
+                OPTIONS[name].check(value)
+            except OptionError as err:
+                raise OptionError(str(err).replace(name, OPTIONS[name].flag, 1)) from None
+    return values
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="bvpkit",
@@ -59,15 +90,7 @@ def _parser() -> argparse.ArgumentParser:
         "solve", help="solve the problem of a TOML spec", description="Solve the problem of a TOML spec and print a summary.", epilog=_EPILOG
     )
     solve.add_argument("spec", help="path of the TOML spec file")
-    solve.add_argument("--method", choices=_methods(), help="solution method (default: the spec's, else auto)")
-    solve.add_argument("--tol", type=float, help="tolerance on the relative error (default: the spec's, else 1e-6)")
-    solve.add_argument("--max-nodes", type=int, help="mesh limit")
-    solve.add_argument("--no-verify", action="store_true", help="skip the error estimate (faster)")
-    solve.add_argument("--homotopy", metavar="NAME",
-                       help="continuation from an easier problem: auto (default), off, or a constant to "
-                       "continue in")
-    solve.add_argument("--time-limit", type=float, metavar="SECONDS",
-                       help="time for the whole solve (default 8)")
+    _option_flags(solve, OPTIONS)
     solve.add_argument(
         "--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)"
     )
@@ -89,8 +112,7 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--output", action="append", metavar="EXPR",
                        help="an expression (or output name) to record; repeatable (default: the spec's)")
     trace.add_argument("--max-points", type=int, help="upper bound on the points (default 200)")
-    trace.add_argument("--tol", type=float, help="tolerance of each point")
-    trace.add_argument("--method", choices=_methods(), help="method of the natural steps")
+    _option_flags(trace, ["tol", "method"], {"tol": "tolerance of each point", "method": "method of the natural steps"})
     trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
     trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
@@ -119,7 +141,7 @@ def _parser() -> argparse.ArgumentParser:
     folds.add_argument("--output", action="append", metavar="EXPR", help="an expression or output name; repeatable")
     folds.add_argument("--at", action="append", type=float, metavar="VALUE",
                        help="locate the fold exactly at this value of the second constant; repeatable")
-    folds.add_argument("--tol", type=float, help="tolerance of each point")
+    _option_flags(folds, ["tol"], {"tol": "tolerance of each point"})
     folds.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     folds.add_argument("--csv", metavar="FILE", help="write the curve as CSV")
     folds.add_argument("--json", action="store_true", help="print the curve as JSON instead of a table")
@@ -141,8 +163,7 @@ def _parser() -> argparse.ArgumentParser:
         "--grid", action="append", metavar="NAME=FROM:TO:COUNT[:geometric] | NAME=V1,V2,...",
         help="an axis of the grid (repeatable; the first is the fast axis); replaces the spec's [sweep] grid",
     )
-    sweep.add_argument("--tol", type=float, help="tolerance of each point")
-    sweep.add_argument("--method", choices=_methods(), help="solution method")
+    _option_flags(sweep, ["tol", "method"], {"tol": "tolerance of each point"})
     sweep.add_argument("--csv", metavar="FILE", help="write the table as CSV")
     sweep.add_argument("--json", action="store_true", help="print the table as JSON")
     sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra; the suffix names "
@@ -298,7 +319,6 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     from ..public import solve
-    from ..errors import OptionError
     from ..reduce.prepared import cached, prepare, remember, spec_key
 
     overrides = _constants(args.set)
@@ -317,17 +337,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
     if save.get("report_json"):
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
-    if args.max_nodes is not None and args.max_nodes < 10:
-        raise OptionError("--max-nodes must be at least 10")
-    solution = solve(
-        problem,
-        method=args.method,
-        tol=args.tol,
-        max_nodes=args.max_nodes,
-        verify=False if args.no_verify else None,
-        homotopy=args.homotopy,
-        time_limit=args.time_limit,
-    )
+    solution = solve(problem, **_flag_values(args, OPTIONS))
     if fresh:
         remember(key, problem)
     # the user asked for the file: a failed solve's is written too, every header saying it failed

@@ -56,6 +56,7 @@ from pathlib import Path
 from typing import Annotated, Any
 
 from pydantic import (
+    create_model,
     BaseModel,
     ConfigDict,
     Field,
@@ -67,6 +68,7 @@ from pydantic import (
 )
 
 from ..errors import BvpkitError, ExpressionError, SpecError
+from ..language.options import OPTIONS
 from ..language.problem import Problem
 
 #: Spec files larger than this are refused unread: a real spec is a few kilobytes.
@@ -100,14 +102,10 @@ class ProblemSection(_Model):
     regions: list[RegionSection] | None = None
 
 
-class SolverSection(_Model):
-    method: StrictStr = "auto"
-    tol: Number | None = None
-    max_nodes: StrictInt | None = None
-    verify: StrictBool | None = None
-    truncation: Number | None = None
-    homotopy: StrictStr | None = None
-    time_limit: Number | None = None
+#: The ``[solver]`` table: one key per solve option (language/options.py), of its kind.
+_KINDS = {"number": Number, "count": StrictInt, "switch": StrictBool, "word": StrictStr}
+SolverSection = create_model("SolverSection", __base__=_Model,
+                             **{o.name: (_KINDS[o.kind] | None, None) for o in OPTIONS.values()})
 
 
 class TraceSection(_Model):

@@ -20,6 +20,7 @@ from typing import Any
 from . import limits as _limits
 from .._lazy import LazyModule, applied_undef
 from ..errors import ExpressionError, ProblemError, closest
+from .options import SolveOptions
 
 sp = LazyModule("sympy")  # imported when a problem is first built from text
 _expr = LazyModule("bvpkit.language.expr")
@@ -187,6 +188,7 @@ class Problem:
         self.constants = _numbers(constants or {}, "constant")
         self.unknown_parameters = _numbers(unknown_parameters or {}, "unknown parameter")
         self.settings = dict(settings or {})
+        self.options = SolveOptions.make(self.settings)  # the solver's settings, checked once
         overlap = set(self.constants) & set(self.unknown_parameters)
         if overlap:
             raise ProblemError(f"'{sorted(overlap)[0]}' is both a constant and an unknown parameter")

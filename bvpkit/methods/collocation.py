@@ -33,6 +33,7 @@ import numpy as np
 
 from .diagnostics import Hermite, hermite, stability_constant
 from .discrete import CollocationEquations, SingularMatrix
+from ..language.options import TOL_FLOOR
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -281,7 +282,7 @@ class Collocation(Method):
         return self._lobatto(trial, x, y, p)
 
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
-        tol = max(trial.tol, 1e-13)
+        tol = max(trial.tol, TOL_FLOOR)
         iterations, rms, code, rounds = 0, None, 3, 0
         floor = 0.0  # the largest residual of this round left unrefined at the round-off level
         unsettled: list[int] = []  # meshes on which Newton did not converge

@@ -33,6 +33,7 @@ import numpy as np
 
 from .diagnostics import stability_constant
 from .discrete import SingularMatrix, factor_blocks, one_blas_thread
+from ..language.options import TOL_FLOOR
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -292,7 +293,7 @@ class SixthOrderCollocation(Method):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x0, y0, p)
         if not (np.isfinite(y0).all() and np.isfinite(p).all()):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x0, y0, p)
-        tol = max(trial.tol, 1e-13)
+        tol = max(trial.tol, TOL_FLOOR)
         # the starting mesh: the guess's, thinned (each interval of this method does the work
         # of several of the 4th-order one)
         x = x0[::2] if x0.size > 21 else x0.copy()

@@ -46,8 +46,8 @@ import sympy as sp
 from sympy.core.function import AppliedUndef
 
 from ..errors import ProblemError
-from ..generated.codegen import X  # the method variable t (named _x in generated code)
-from ..generated.layout import StateLayout, States
+from ..programs.codegen import X  # the method variable t (named _x in generated code)
+from ..programs.layout import StateLayout, States
 from ..language.budget import budget, check_sizes
 
 #: The user's (physical) variable while a region's system is being formed.

@@ -83,7 +83,7 @@ class GuessRecipe:
     ``(x, p, k)``) or ``"polynomial"`` (the lowest-degree polynomial meeting the linear
     conditions on the function alone: ``conditions`` lists each one's ``(point, derivative)``
     terms, and ``program`` computes their coefficients and constants from ``(p, k)``).
-    Programs are plain data (:mod:`bvpkit.generated.program`).
+    Programs are plain data (:mod:`bvpkit.programs.program`).
     """
 
     name: str
@@ -135,7 +135,7 @@ def _function(program: dict) -> Any:
     key = json.dumps(program, sort_keys=True)
     function = _FUNCTIONS.get(key)
     if function is None:
-        from ..generated.compiled import build_quantity
+        from ..programs.compiled import build_quantity
 
         if len(_FUNCTIONS) > 4_000:
             _FUNCTIONS.clear()
@@ -180,8 +180,8 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     """A guess expression of the user's variable (and constants, parameters) as a recipe."""
     import sympy as sp
 
-    from ..generated.codegen import compile_expressions, derivative
-    from .form import X
+    from ..programs.codegen import compile_expressions, derivative
+    from ..programs.codegen import X
 
     names = {problem.x: X}
     names.update({sp.Symbol(c): form.k[i] for i, c in enumerate(form.constants) if c in problem.constants})
@@ -202,8 +202,8 @@ def _polynomial_recipe(form, name: str, order: int, index: tuple | None = None) 
     (``index``: :func:`_condition_index` of the form, made once per problem)."""
     import sympy as sp
 
-    from ..generated.codegen import compile_expressions
-    from .form import X
+    from ..programs.codegen import compile_expressions
+    from ..programs.codegen import X
 
     if not form.point_conditions:
         return GuessRecipe(name, order, "polynomial")

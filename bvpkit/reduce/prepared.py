@@ -17,7 +17,7 @@ the bvpkit code (``compiled.code_stamp``). A cache file is written atomically an
 SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
 a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
 from other code is ignored and rewritten. Generated functions travel as programs (plain
-data, :mod:`bvpkit.generated.program`), never as code: they are printed and checked afresh when built.
+data, :mod:`bvpkit.programs.program`), never as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations
@@ -32,7 +32,7 @@ from typing import Any
 
 import numpy as np
 
-from ..generated.compiled import (
+from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
     _cache_dir,
@@ -45,7 +45,8 @@ from ..generated.compiled import (
 )
 from ..errors import BvpkitError, OptionError, ProblemError, closest
 from .guess import GuessRecipe
-from ..generated.layout import StateLayout
+from ..programs.layout import StateLayout
+from ..language.options import SolveOptions
 from .quantity import Quantity
 from . import classes  # noqa: F401 - registers the problem classes, for reading them back
 from .transform import Transform
@@ -64,7 +65,7 @@ class Prepared:
         (region values of constants), ``key``.
     layout : StateLayout
     system : dict
-        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.generated.program`),
+        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.programs.program`),
         Jacobian ``pattern``, and condition ``sides``.
     recipes : dict of str to GuessRecipe
     quantities : dict of str to Quantity
@@ -112,6 +113,11 @@ class Prepared:
     @property
     def settings(self) -> dict[str, Any]:
         return dict(self.facts["settings"])
+
+    @property
+    def options(self) -> SolveOptions:
+        """The solver's settings of the problem (a spec's ``[solver]``), as typed options."""
+        return SolveOptions.make(self.facts["settings"])
 
     @property
     def truncated(self) -> bool:
@@ -291,7 +297,7 @@ def _plain_arguments(problem) -> dict[str, Any]:  # noqa: ANN001
 
 
 def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
-    from ..generated.codegen import compile_system
+    from ..programs.codegen import compile_system
     from .guess import guess_recipes
     from .quantity import compile_quantity
     from .form import standard_form

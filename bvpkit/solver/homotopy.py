@@ -189,7 +189,7 @@ def _system(prepared):  # noqa: ANN001, ANN202
     key = prepared.layout.key
     found = _SYSTEMS.get(key)
     if found is None:
-        from ..generated.codegen import compile_system
+        from ..programs.codegen import compile_system
         from ..reduce.form import path_form, standard_form
 
         found = compile_system(path_form(standard_form(prepared.problem())))

@@ -38,7 +38,7 @@ from .. import methods
 from . import homotopy
 from ..methods.diagnostics import Attempt, survey
 from ..errors import OptionError
-from ..generated.compiled import NEEDS
+from ..programs.compiled import NEEDS
 from ..methods.base import Outcome, Trial
 from ..status import Status
 

@@ -4,8 +4,8 @@ Nothing here imports SymPy: a system whose programs are in the cache (keyed by i
 and the bvpkit code, see code_stamp) is rebuilt from them alone. ``codegen.py`` makes the
 programs in the first place.
 
-A program is the plain data of one generated function (:mod:`bvpkit.generated.program`); callables are
-built from programs by :func:`bvpkit.generated.program.build`, which prints Python source from them
+A program is the plain data of one generated function (:mod:`bvpkit.programs.program`); callables are
+built from programs by :func:`bvpkit.programs.program.build`, which prints Python source from them
 afresh and checks it before compiling. No stored text is ever executed.
 
 Cache files are read only from a folder owned by the user and not writable by group or
@@ -73,7 +73,7 @@ class CompiledSystem:
         solve its Newton steps with a banded LU.
     programs : tuple of dict
         The generated functions as plain data (what the disk cache stores; see
-        :mod:`bvpkit.generated.program`).
+        :mod:`bvpkit.programs.program`).
     """
 
     def __init__(self, layout: StateLayout, functions: dict[str, Callable], pattern: np.ndarray,
@@ -486,7 +486,7 @@ def _expected_shapes(layout: StateLayout, m: int) -> dict[str, list[int]]:
 
 
 def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray, sides: np.ndarray) -> CompiledSystem:
-    """The callables of a standard form's ``programs`` (see :func:`bvpkit.generated.program.build`).
+    """The callables of a standard form's ``programs`` (see :func:`bvpkit.programs.program.build`).
 
     Raises
     ------
@@ -529,7 +529,7 @@ def skipped(key: str, err: ProgramError) -> None:
 
 
 def build_quantity(program: dict) -> Callable:
-    """The ``quantity`` function of ``program`` (see :func:`bvpkit.generated.program.build`),
+    """The ``quantity`` function of ``program`` (see :func:`bvpkit.programs.program.build`),
     carrying the program as ``.program`` (what a cache of quantities stores)."""
     if not isinstance(program, dict) or program.get("name") != "quantity":
         raise ProgramError("a compiled quantity must be a program named 'quantity'")

@@ -4,10 +4,10 @@ Each generated function evaluates over a whole mesh at once: states ``y`` have s
 ``(n, m)`` (SciPy's layout) or ``(n,)`` for a single point, and the output follows.
 Common subexpressions are eliminated across a function's entries.
 
-What this module produces is a *program* (:mod:`bvpkit.generated.program`): the function as plain
+What this module produces is a *program* (:mod:`bvpkit.programs.program`): the function as plain
 data, trees of numbers, internal symbols (``_x``, ``_y0``, ``_p0``, ``_k0``, ``_t0``) and a
 fixed set of operations. Any SymPy node outside that grammar is refused here by name. The
-callables are built from programs by :func:`bvpkit.generated.program.build`, whatever their origin
+callables are built from programs by :func:`bvpkit.programs.program.build`, whatever their origin
 (made just now, or read from a cache), so no stored text is ever executed.
 """
 
@@ -93,7 +93,7 @@ def _number(e: sp.Expr) -> int | float:
 
 
 def _tree(e: sp.Basic) -> Any:
-    """The plain tree of a SymPy expression (see :mod:`bvpkit.generated.program`)."""
+    """The plain tree of a SymPy expression (see :mod:`bvpkit.programs.program`)."""
     if e.is_Symbol:
         if not _program.SYMBOL.fullmatch(e.name):
             raise ProgramError(f"generated code cannot hold the name '{e.name}' (not an internal symbol)")
@@ -295,7 +295,7 @@ def compile_system(form) -> CompiledSystem:
 
     The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is
     keyed by the form's content and the bvpkit code (compiled.code_stamp) and holds
-    programs (plain data), which :func:`bvpkit.generated.program.build` validates, prints and checks
+    programs (plain data), which :func:`bvpkit.programs.program.build` validates, prints and checks
     before anything is compiled, whatever their origin.
     """
     key = form.key()
