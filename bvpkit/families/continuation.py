@@ -58,7 +58,7 @@ from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
 from ..errors import OptionError, closest
 from ..methods.base import Outcome
-from ..reduce.guess import Start
+from ..reduce.mapping import Start, positions
 from ..solver.driver import Run, options, settle, solve, solve_at
 from ..reduce.prepared import Prepared, prepare
 from ..solver.solution import Solution
@@ -924,8 +924,6 @@ class _Tracer:
         return settle(here, run, seconds)
 
     def _ends(self, p: np.ndarray, k: np.ndarray) -> tuple[float, float]:
-        from ..reduce.guess import positions
-
         ends = positions(np.asarray(self.compiled.maps(p, k), float))
         return float(ends[0]), float(ends[-1])
 

@@ -26,7 +26,7 @@ import numpy as np
 from .._lazy import LazyModule
 from ..methods.diagnostics import hermite
 from ..status import Status
-from .guess import Start, carried, positions
+from .mapping import Start, carried, positions
 from .transform import Transform, register
 
 sp = LazyModule("sympy")

@@ -178,7 +178,7 @@ class Prepared:
 
     def check(self, p: np.ndarray | None = None, k: np.ndarray | None = None) -> None:
         """Ends and interfaces in order and finite for these values (the one check of values)."""
-        from .guess import positions
+        from .mapping import positions
         from ..language.problem import check_positions
 
         with np.errstate(all="ignore"):

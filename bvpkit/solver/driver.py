@@ -21,7 +21,7 @@ from .. import methods
 from ..errors import OptionError, closest
 from ..language.options import DEFAULT_TOL, SolveOptions
 from ..methods.base import Trial
-from ..reduce.guess import physical, positions
+from ..reduce.mapping import physical, positions
 from ..reduce.prepared import Prepared, prepare
 from . import strategy
 from .settle import Run, settle

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..methods.base import Outcome
 from ..methods.diagnostics import Diagnostics, condition_estimate, residuals
-from ..reduce.guess import Start, positions
+from ..reduce.mapping import Start, positions
 from ..reduce.prepared import Prepared
 from ..status import Status
 from .solution import Interpolant, Solution

@@ -18,7 +18,7 @@ import numpy as np
 from .._output import json_ready, write_columns
 from ..methods.diagnostics import Diagnostics, hermite
 from ..errors import BvpkitError
-from ..reduce.guess import nudged, physical, positions, rate, standard
+from ..reduce.mapping import nudged, physical, positions, rate, standard
 from ..status import Status
 from ..language.units import label, units_of
 
