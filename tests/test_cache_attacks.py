@@ -21,10 +21,9 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit.programs import compiled
-from bvpkit.reduce import prepared
-from bvpkit.programs import program
 from bvpkit.errors import ProgramError
+from bvpkit.programs import compiled, program
+from bvpkit.reduce import prepared
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = ROOT / "specs" / "pin_fin.toml"

@@ -9,11 +9,23 @@ import sys
 import numpy as np
 import pytest
 import sympy as sp
+from catalogue import (
+    BLASIUS_FPP0,
+    EI,
+    L_FIN,
+    M_FIN,
+    L,
+    Q,
+    blasius,
+    bratu,
+    bratu_t,
+    cantilever,
+    fin,
+    simply_supported,
+)
 
 import bvpkit
 from bvpkit.methods.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
-
-from catalogue import BLASIUS_FPP0, EI, L, L_FIN, M_FIN, Q, blasius, bratu, bratu_t, cantilever, fin, simply_supported
 
 
 # -- the banded embedding of every Newton matrix --------------------------------------------------

@@ -10,9 +10,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import bvpkit
-from bvpkit.programs import program
 from bvpkit.errors import ProgramError
 from bvpkit.language.expr import FUNCTIONS as LANGUAGE
+from bvpkit.programs import program
 
 
 def _quantity(entries, temps=(), args=(("x", ["_x"]), ("y", ["_y0", "_y1"]))):

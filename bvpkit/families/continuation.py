@@ -52,19 +52,21 @@ from typing import Any
 
 import numpy as np
 
-from . import arclength as arc
 from .._output import json_ready, progress_bar, write_columns
+from ..errors import OptionError, closest
+from ..language.problem import Problem
+from ..language.units import labelled
+from ..methods.base import Outcome, Trial, compare
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
-from ..errors import OptionError, closest
-from ..methods.base import Outcome
 from ..reduce.mapping import Start, positions
-from ..solver.driver import Run, options, settle, solve, solve_at
 from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import Run, options, settle, solve, solve_at
 from ..solver.solution import Solution
-from .stability import stable
 from ..status import Status
-from ..language.units import labelled
+from . import arclength as arc
+from . import plots
+from .stability import stable
 
 _GROW, _SHRINK = 1.5, 0.5
 _TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
@@ -257,10 +259,9 @@ class Branch:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Draw every output (or ``output``) against the parameter, folds marked (``plot`` extra;
-        options of :func:`bvpkit.io.plots.branch_figure`)."""
-        from ..io.plots import branch_figure
+        options of :func:`bvpkit.families.plots.branch_figure`)."""
 
-        return branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+        return plots.branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, float]:
@@ -364,7 +365,6 @@ def trace(
     Branch
         Ctrl-C keeps what was traced: the branch is returned with ``success`` False.
     """
-    from ..language.problem import Problem
 
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"trace() takes a bvpkit.Problem, got {type(problem).__name__}")
@@ -935,7 +935,6 @@ class _Tracer:
         a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
         exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
         Returns the estimate and the corrected point ``(x, y, p)``."""
-        from ..methods.base import Trial, compare
 
         y, pz = eq.split(z)
         p = pz[:-1]

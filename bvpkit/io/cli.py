@@ -22,9 +22,11 @@ from typing import Any
 from .._interrupt import MESSAGE as INTERRUPTED
 from .._interrupt import early_interrupt, wants_json
 from .._output import json_ready
+from ..errors import BvpkitError, MissingExtraError, OptionError, closest
+from ..language import limits
 from ..language.options import OPTIONS
-from ..status import Status
 from ..language.units import label, units_of
+from ..status import Status
 
 _EPILOG = "exit codes: " + ", ".join(f"{s.exit_code} {s.word}" for s in Status)
 
@@ -37,7 +39,6 @@ def _methods() -> list[str]:
 
 class _Parser(argparse.ArgumentParser):
     """Usage errors are bad input: one line (or one JSON object with --json), exit code 2."""
-
     def error(self, message: str):  # noqa: ANN201
         if "--json" in getattr(self, "_argv", sys.argv[1:]):
             print(json.dumps({"success": False, "status": Status.BAD_INPUT.word, "message": message}))
@@ -63,8 +64,6 @@ def _option_flags(parser: argparse.ArgumentParser, names: Any, says: dict[str, s
 
 def _flag_values(args: argparse.Namespace, names: Any) -> dict[str, Any]:
     """The values of option flags, checked here so that an error names the flag typed."""
-    from ..errors import OptionError
-
     values = {name: getattr(args, name, None) for name in names}
     for name, value in values.items():
         if value is not None:
@@ -179,7 +178,6 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _constants(pairs: list[str]) -> dict[str, float]:
-    from ..errors import OptionError
 
     values = {}
     for pair in pairs:
@@ -194,7 +192,6 @@ def _constants(pairs: list[str]) -> dict[str, float]:
 
 
 def _no_nul(name: str, what: str) -> None:
-    from ..errors import OptionError
 
     if "\x00" in name:
         raise OptionError(f"{what} {name!r} holds a NUL character")
@@ -202,8 +199,6 @@ def _no_nul(name: str, what: str) -> None:
 
 def _writable(name: str | None) -> Path | None:
     """A path given on the command line: the user's choice, but its folder must exist."""
-    from ..errors import OptionError
-
     if name is None:
         return None
     _no_nul(name, "output file")
@@ -220,8 +215,6 @@ def _writable(name: str | None) -> Path | None:
 
 def _picture(name: str | None) -> Path | None:
     """A ``--plot`` file: checked before any computation (matplotlib there, a format it writes)."""
-    from ..errors import MissingExtraError, OptionError
-
     path = _writable(name)
     if path is None:
         return None
@@ -254,7 +247,6 @@ class SpecOutput:
     """
 
     def __init__(self, name: str, overwrite: bool, key: str):
-        from ..errors import OptionError
 
         self.name, self.overwrite, self.key = name, overwrite, key
         _no_nul(name, f"output file named in the spec's [save] {key}")
@@ -275,8 +267,6 @@ class SpecOutput:
 
     def open(self):  # noqa: ANN201 - a text file object
         """The file, opened for writing without following any link on its way."""
-        from ..errors import OptionError
-
         nofollow = getattr(os, "O_NOFOLLOW", 0)
         flags = os.O_WRONLY | os.O_CREAT | nofollow | (os.O_TRUNC if self.overwrite else os.O_EXCL)
         try:
@@ -363,7 +353,6 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
 
 def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     from .. import load, trace
-    from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
     problem = load(args.spec)
@@ -427,7 +416,6 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
 
 def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
     from .. import fold_curve, load
-    from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
     problem = load(args.spec)
@@ -468,9 +456,7 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load
-    from .. import sweep
-    from ..errors import MissingExtraError, OptionError
+    from .. import load, sweep
 
     _writable(args.csv), _picture(args.plot)
     if args.store is not None:
@@ -541,7 +527,6 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
         names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
         for name in names:
             if name is not None and name not in problem.constants:
-                from ..errors import OptionError, closest
 
                 raise OptionError(f"{args.spec}: [{section}] names '{name}', which is not a constant of the problem"
                                   f"{closest(name, problem.constants)}")
@@ -640,7 +625,6 @@ def _main(arguments: list[str]) -> int:
     args = parser.parse_args(arguments)
     wants_json = getattr(args, "json", False)
     try:
-        from ..errors import BvpkitError
 
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
                    "fold-curve": _fold_curve}[args.command]
@@ -707,8 +691,6 @@ def _fail(status: Status, message: str, wants_json: bool) -> int:
 
 
 def _number(value: Any, what: str) -> float:
-    from ..language import limits
-    from ..errors import OptionError
 
     try:
         return limits.check_value(value, what)
@@ -718,7 +700,6 @@ def _number(value: Any, what: str) -> float:
 
 def _grid(items: list[str]) -> dict[str, list[float]]:
     """``--grid`` axes: ``NAME=FROM:TO:COUNT[:geometric|linear]`` or ``NAME=V1,V2,...``, in order."""
-    from ..errors import OptionError
     from ..families.sweep import axis_values
 
     grid: dict[str, list[float]] = {}

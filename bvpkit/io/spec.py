@@ -56,7 +56,6 @@ from pathlib import Path
 from typing import Annotated, Any
 
 from pydantic import (
-    create_model,
     BaseModel,
     ConfigDict,
     Field,
@@ -65,11 +64,14 @@ from pydantic import (
     StrictInt,
     StrictStr,
     ValidationError,
+    create_model,
 )
 
 from ..errors import BvpkitError, ExpressionError, SpecError
+from ..language import limits
 from ..language.options import OPTIONS
 from ..language.problem import Problem
+from ..language.units import check_units, names_with_units
 
 #: Spec files larger than this are refused unread: a real spec is a few kilobytes.
 MAX_SPEC_BYTES = 1_000_000
@@ -450,7 +452,6 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     except BvpkitError as err:
         raise SpecError(f"{source}: [problem] {err}") from err
     if spec.units:
-        from ..language.units import check_units, names_with_units
 
         try:
             check_units(spec.units, names_with_units(problem), "[units]")
@@ -461,7 +462,6 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
 
 def _values(name: str, axis: Any, source: str) -> list[float]:
     """A grid axis: a list as given, or ``{from, to, count, spacing = linear | geometric}``."""
-    from ..language import limits
     from ..families.sweep import axis_values
 
     try:

@@ -32,11 +32,11 @@ from typing import ClassVar
 
 import numpy as np
 
+from ..language.options import TOL_FLOOR
 from ..programs.compiled import NEEDS, CompiledSystem
+from ..status import Status
 from .diagnostics import hermite
 from .discrete import midpoint_values
-from ..language.options import TOL_FLOOR
-from ..status import Status
 
 # Each round of tightening asks for this fraction of the tolerance times the ratio of the
 # tolerance to the error seen; three rounds cover a miss of several orders of magnitude.

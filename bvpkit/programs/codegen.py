@@ -19,8 +19,9 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from . import program as _program
+from ..errors import ProgramError
 from ..language.budget import budget
+from . import program as _program
 from .compiled import (
     _MEMORY,
     CACHE_VARIABLE,
@@ -31,7 +32,6 @@ from .compiled import (
     skipped,
     write_cache,
 )
-from ..errors import ProgramError
 from .program import check_source
 
 #: The method variable t (named _x in generated code, as every method calls it x).

@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from .. import __version__
 from ..errors import ProgramError
 from .layout import StateLayout
 from .program import build
@@ -372,7 +373,6 @@ def code_stamp() -> str:
         import hashlib
         import os
 
-        from .. import __version__
 
         folder = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))  # the package
         digest = hashlib.sha256()
@@ -526,6 +526,22 @@ def load_compiled(layout: StateLayout) -> CompiledSystem | None:
 def skipped(key: str, err: ProgramError) -> None:
     """Note a system's cache entry refused by the program checks (it is then regenerated)."""
     note(f"cache entry {_cache_file(key).name} skipped: {err.one_line()}")
+
+
+_QUANTITY_FUNCTIONS: dict[str, Callable] = {}
+
+
+def quantity_function(program: dict) -> Callable:
+    """The callable of a quantity's program, built once per program text."""
+    import json
+
+    key = json.dumps(program, sort_keys=True)
+    function = _QUANTITY_FUNCTIONS.get(key)
+    if function is None:
+        if len(_QUANTITY_FUNCTIONS) > 4_000:
+            _QUANTITY_FUNCTIONS.clear()
+        function = _QUANTITY_FUNCTIONS[key] = build_quantity(program)
+    return function
 
 
 def build_quantity(program: dict) -> Callable:

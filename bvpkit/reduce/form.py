@@ -46,9 +46,10 @@ import sympy as sp
 from sympy.core.function import AppliedUndef
 
 from ..errors import ProblemError
+from ..language.budget import budget, check_sizes
 from ..programs.codegen import X  # the method variable t (named _x in generated code)
 from ..programs.layout import StateLayout, States
-from ..language.budget import budget, check_sizes
+from .classes import PIPELINE
 
 #: The user's (physical) variable while a region's system is being formed.
 _PHYSICAL = sp.Symbol("_xphys", real=True)
@@ -294,7 +295,6 @@ class Reduction:
 
 
 def _build(problem) -> StandardForm:  # noqa: ANN001
-    from .classes import PIPELINE
 
     classes = [cls for cls in PIPELINE if cls.applies(problem)]
     names = _names(problem, classes)

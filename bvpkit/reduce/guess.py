@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ProblemError
+from ..programs.compiled import quantity_function
 from .mapping import physical, positions
 
 #: Nodes of the first mesh; collocation refines it where the residual asks.
@@ -54,11 +55,11 @@ class GuessRecipe:
         ``points`` are the ends and interfaces in the user's variable."""
         if self.kind == "expression":
             with np.errstate(all="ignore"):
-                return np.broadcast_to(_function(self.program)(x, p, k), (self.order, x.size)).astype(float)
+                return np.broadcast_to(quantity_function(self.program)(x, p, k), (self.order, x.size)).astype(float)
         if not self.conditions:
             return np.zeros((self.order, x.size))
         with np.errstate(all="ignore"):
-            values = iter(_function(self.program)(np.zeros(1), p, k)[:, 0])
+            values = iter(quantity_function(self.program)(np.zeros(1), p, k)[:, 0])
         rows, rhs = [], []
         for terms in self.conditions:
             row: dict = {}
@@ -79,24 +80,6 @@ class GuessRecipe:
     def from_plain(cls, data: Mapping[str, Any]) -> GuessRecipe:
         return cls(str(data["name"]), int(data["order"]), str(data["kind"]), data["program"],
                    [[(int(point), int(j)) for point, j in terms] for terms in data["conditions"]])
-
-
-_FUNCTIONS: dict[str, Any] = {}
-
-
-def _function(program: dict) -> Any:
-    """The callable of a quantity's program (built once per program text)."""
-    import json
-
-    key = json.dumps(program, sort_keys=True)
-    function = _FUNCTIONS.get(key)
-    if function is None:
-        from ..programs.compiled import build_quantity
-
-        if len(_FUNCTIONS) > 4_000:
-            _FUNCTIONS.clear()
-        function = _FUNCTIONS[key] = build_quantity(program)
-    return function
 
 
 # -- recipes (made with SymPy, once per problem) --------------------------------------------
@@ -136,8 +119,7 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     """A guess expression of the user's variable (and constants, parameters) as a recipe."""
     import sympy as sp
 
-    from ..programs.codegen import compile_expressions, derivative
-    from ..programs.codegen import X
+    from ..programs.codegen import X, compile_expressions, derivative
 
     names = {problem.x: X}
     names.update({sp.Symbol(c): form.k[i] for i, c in enumerate(form.constants) if c in problem.constants})
@@ -158,8 +140,7 @@ def _polynomial_recipe(form, name: str, order: int, index: tuple | None = None) 
     (``index``: :func:`_condition_index` of the form, made once per problem)."""
     import sympy as sp
 
-    from ..programs.codegen import compile_expressions
-    from ..programs.codegen import X
+    from ..programs.codegen import X, compile_expressions
 
     if not form.point_conditions:
         return GuessRecipe(name, order, "polynomial")

@@ -32,6 +32,9 @@ from typing import Any
 
 import numpy as np
 
+from ..errors import BvpkitError, OptionError, ProblemError, closest
+from ..language.options import SolveOptions
+from ..language.problem import Problem, _numbers, check_positions
 from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
@@ -43,12 +46,11 @@ from ..programs.compiled import (
     read_json,
     write_json,
 )
-from ..errors import BvpkitError, OptionError, ProblemError, closest
-from .guess import GuessRecipe
 from ..programs.layout import StateLayout
-from ..language.options import SolveOptions
-from .quantity import Quantity
 from . import classes  # noqa: F401 - registers the problem classes, for reading them back
+from .guess import GuessRecipe
+from .mapping import positions
+from .quantity import Quantity
 from .transform import Transform
 
 
@@ -155,7 +157,6 @@ class Prepared:
     def with_constants(self, **values: float) -> Prepared:
         """The same problem with other values of some constants (no new code); checked like
         values in the file."""
-        from ..language.problem import _numbers
 
         missing = [k for k in values if k not in self.constants]
         if missing:
@@ -168,8 +169,6 @@ class Prepared:
 
     def with_parameters(self, **values: float) -> Prepared:
         """The same problem with other guesses of its unknown parameters."""
-        from ..language.problem import _numbers
-
         missing = [k for k in values if k not in self.parameters]
         if missing:
             raise OptionError(f"'{missing[0]}' is not an unknown parameter{closest(missing[0], self.parameters)}")
@@ -178,9 +177,6 @@ class Prepared:
 
     def check(self, p: np.ndarray | None = None, k: np.ndarray | None = None) -> None:
         """Ends and interfaces in order and finite for these values (the one check of values)."""
-        from .mapping import positions
-        from ..language.problem import check_positions
-
         with np.errstate(all="ignore"):
             maps = np.asarray(self.compiled.maps(self.p0() if p is None else p, self.k() if k is None else k), float)
         values = list(positions(maps))
@@ -193,8 +189,8 @@ class Prepared:
         """An expression of the solution, compiled (from the preparation, or now, with SymPy)."""
         found = self.quantities.get(text) or _QUANTITIES.get((self.facts["key"], text))
         if found is None:
-            from .quantity import compile_quantity
             from .form import standard_form
+            from .quantity import compile_quantity
 
             problem = self.problem()
             found = compile_quantity(problem, standard_form(problem), text)
@@ -205,8 +201,8 @@ class Prepared:
 
     def recipe(self, name: str, expression: Any) -> GuessRecipe:
         """A guess expression for ``name`` given at solve time, as a recipe (SymPy's work)."""
-        from .guess import expression_recipe
         from .form import standard_form
+        from .guess import expression_recipe
 
         problem = self.problem()
         parsed = problem._guesses({name: expression})[name]
@@ -216,7 +212,6 @@ class Prepared:
         """The symbolic problem (rebuilt from its arguments on first need, with SymPy)."""
         found = _PROBLEMS.get(self.facts["key"])
         if found is None:
-            from ..language.problem import Problem
 
             arguments = dict(self.facts["arguments"])
             found = Problem(**arguments)
@@ -259,7 +254,6 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
     ``bvpkit.solve``, ``trace`` and ``sweep`` call it; call it yourself to solve many
     variations of one problem without touching SymPy again (``prepared.with_constants``).
     """
-    from ..language.problem import Problem
 
     if isinstance(problem, Prepared):
         return problem
@@ -298,9 +292,9 @@ def _plain_arguments(problem) -> dict[str, Any]:  # noqa: ANN001
 
 def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
     from ..programs.codegen import compile_system
+    from .form import standard_form
     from .guess import guess_recipes
     from .quantity import compile_quantity
-    from .form import standard_form
 
     form = standard_form(problem)
     compiled = compile_system(form)

@@ -63,9 +63,8 @@ def input_symbols(form) -> tuple:  # noqa: ANN001 - a StandardForm
 
 def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity:  # noqa: ANN001
     """Compile an expression of the solution of ``problem`` (with standard form ``form``)."""
-    from ..programs.codegen import compile_expressions
     from ..language.expr import DomainIntegral
-    from ..programs.codegen import X
+    from ..programs.codegen import X, compile_expressions
 
     e = parsed if parsed is not None else problem.parse_quantity(text, where=f"expression '{text}'")
     y = input_symbols(form)

@@ -34,6 +34,9 @@ from typing import Any
 import numpy as np
 
 from ..methods.base import Outcome, Trial
+from ..methods.collocation import Collocation
+from ..methods.diagnostics import hermite
+from ..reduce import guess as _guess
 from ..status import Status
 
 #: Tolerance of the solves along a path: they start Newton's method at the next value, so a
@@ -91,7 +94,6 @@ class Path:
 @dataclass
 class Facts:
     """What the symbolic problem says about the paths it allows (worked out once per problem)."""
-
     small: dict  # user constant -> value, for small constants multiplying a highest derivative
     far_field: bool  # a condition at the right end on derivatives only, or an infinite end
     reach: bool  # a single region with a fixed finite left end: the domain can grow
@@ -220,7 +222,6 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     """The solution of the problem with its nonlinear terms linearised about a constant state
     (the path form at ``s = 0``) on ``trial``'s mesh, or None: a start inside the domain of
     the equations when the default guess is not."""
-    from ..methods.collocation import Collocation
 
     system = _system(prepared)
     anchor = _anchors(system, trial, trial.k)
@@ -230,7 +231,6 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     result = Collocation().solve(dataclasses.replace(trial, compiled=system, k=k, verify=False))
     if not result.ok:
         return None
-    from ..methods.diagnostics import hermite
 
     return hermite(system, result.x, result.y, result.p, k)(trial.x)
 
@@ -244,7 +244,6 @@ def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str
     a failure says where the path stopped) and how it got there, in words (the problems
     solved on the way, a turn taken by pseudo-arclength).
     """
-    from ..methods.collocation import Collocation
 
     method = Collocation()
     if path.own:
@@ -307,8 +306,6 @@ def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str
 
 def _fresh(prepared, system, trial: Trial, k: np.ndarray):  # noqa: ANN001, ANN202
     """The default guess for the first problem of a path (its own domain, for a grown one)."""
-    from ..reduce import guess as _guess
-
     if system is trial.compiled:
         return trial.x, trial.y, trial.p
     try:
@@ -333,7 +330,6 @@ def _predict(system, last: Outcome, previous, value: float, target: float, path:
     """A secant prediction of the solution at ``target`` from the last two, on the last mesh."""
     if previous is None or path.geometric and path.name == "_reach":
         return last.x, last.y, last.p
-    from ..methods.diagnostics import hermite
 
     before, where = previous
     span = value - where

@@ -16,13 +16,13 @@ from typing import Any
 
 import numpy as np
 
-from ..reduce import guess as _guess
-from ..reduce.mapping import Start, carried
-from . import homotopy
 from ..errors import OptionError, closest
 from ..language.options import SolveOptions
 from ..methods.base import Trial
+from ..reduce import guess as _guess
+from ..reduce.mapping import Start, carried
 from ..reduce.prepared import Prepared
+from . import homotopy
 from .solution import Solution
 
 
