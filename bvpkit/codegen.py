@@ -31,6 +31,7 @@ from .compiled import (
     skipped,
     write_cache,
 )
+from ._exact import exact_key
 from .errors import ProgramError
 from .program import check_source
 from .reduce import StandardForm, X
@@ -320,7 +321,7 @@ def compile_expressions(
 ) -> Callable:
     """A vectorised callable ``(*args) -> ndarray, shape (len(exprs), m)`` (cached by content),
     carrying its program as ``.program``."""
-    key = (tuple(sp.srepr(e) for e in exprs), tuple((a, tuple(map(str, s))) for a, s in args), mesh)
+    key = exact_key([list(exprs), [(a, list(s)) for a, s in args], mesh])
     cached = _QUANTITIES.get(key)
     if cached is None:
         entries = {(i,): e for i, e in enumerate(exprs)}

@@ -42,12 +42,12 @@ user's variable and states. User names never reach generated code: states are ``
 from __future__ import annotations
 
 import dataclasses
-import hashlib
 from dataclasses import dataclass, field, fields
 
 import sympy as sp
 from sympy.core.function import AppliedUndef
 
+from ._exact import exact_key
 from .budget import budget, check_sizes
 from .errors import ProblemError
 from .expr import DomainIntegral
@@ -147,8 +147,9 @@ class StandardForm(States):
         """A content hash: equal forms have equal keys (the compiled-code cache key)."""
         cached = self.__dict__.get("_key")
         if cached is None:
-            text = repr(tuple(getattr(self, f.name) for f in fields(self) if f.init))
-            cached = hashlib.sha256(text.encode()).hexdigest()[:32]
+            # every number by its exact binary value: forms that print alike to 15 digits
+            # (1.0 and 1.0000000000000049) must not share compiled code
+            cached = exact_key(tuple(getattr(self, f.name) for f in fields(self) if f.init))
             object.__setattr__(self, "_key", cached)
         return cached
 

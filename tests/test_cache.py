@@ -80,6 +80,41 @@ def test_cache_can_be_turned_off(tmp_path, monkeypatch):
     assert not any(tmp_path.iterdir())
 
 
+# -- keys by exact content: numbers that print alike to 15 digits are different problems ----
+
+def _kink(level):
+    return bvpkit.Problem([f"y'' = 1e15*(max({level}, y) - 1)"], ["y(0) = 0", "y(1) = 0"], (0, 1))
+
+
+@pytest.mark.parametrize("order", [("1.0000000000000049", "1.0"), ("1.0", "1.0000000000000049")])
+def test_numbers_equal_to_fifteen_digits_do_not_share_compiled_code(monkeypatch, order):
+    import sympy as sp
+
+    from bvpkit import prepared
+
+    monkeypatch.setenv(codegen.CACHE_VARIABLE, "off")
+    codegen._MEMORY.clear()
+    prepared._PREPARED.clear()
+    found = {}
+    for level in order:
+        sol = bvpkit.solve(_kink(level))
+        found[level] = sol
+    # analytic: with level 1.0, y'' = 0 wherever y < 1 and both ends are 0, so y = 0
+    assert found["1.0"].success
+    assert abs(found["1.0"].evaluate("y", 0.5)) < 1e-12
+    # with level 1 + 22*2**-52, y'' is a positive constant below the level: y(1/2) < 0
+    # (analytic: y = c x (x - 1)/2 with c = 1e15*(level - 1) > 0, as rounded by the code)
+    assert found["1.0000000000000049"].evaluate("y", 0.5) < -0.5
+    # the same in SymPy input, where the text shown is the same 15 digits
+    x = sp.Symbol("x")
+    y = sp.Function("y")(x)
+    forms = [bvpkit.Problem([sp.Eq(y.diff(x, 2), sp.Float(1e15) * (sp.Max(sp.Float(c), y) - 1))],
+                            ["y(0) = 0", "y(1) = 0"], (0, 1)) for c in (1.0000000000000049, 1.0)]
+    assert forms[0].equation_text == forms[1].equation_text
+    assert forms[0].key() != forms[1].key()
+    assert abs(bvpkit.solve(forms[1]).evaluate("y", 0.5)) < 1e-12  # analytic: y = 0, as above
+
+
 # -- prepared problems: a second `bvpkit solve` of the same spec without SymPy ------------
 
 SPECS = sorted(p.name for p in (__import__("pathlib").Path(__file__).parents[1] / "specs").glob("*.toml"))
