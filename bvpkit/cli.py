@@ -298,18 +298,19 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     from .driver import solve
-    from .errors import OptionError
-    from .prepared import cached, prepare, remember, spec_key
+    from .errors import BvpkitError, OptionError, ProgramError
+    from .prepared import cached, remember, spec_key
+    from .specfile import read_spec
 
     overrides = _constants(args.set)
-    key = spec_key(args.spec, overrides)
-    problem = cached(key)  # prepared by an earlier run: no parsing, no SymPy
+    text = read_spec(args.spec)  # the file is read once: its text is the key, the check and the problem
+    key = spec_key(text, overrides)
+    problem = cached(key, text, overrides)  # prepared by an earlier run: no parsing, no SymPy
     fresh = problem is None
     if fresh:
-        from . import load
-
-        loaded = load(args.spec)
-        problem = prepare(loaded.with_constants(**overrides) if overrides else loaded)
+        problem = _prepare_spec(args.spec, text, overrides)
+    # the files to write come from the spec's text (a kept preparation is used only when its
+    # settings agree with it, and then they are replaced by the text's own)
     save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
     csv_out = json_out = None
@@ -319,17 +320,21 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
     if args.max_nodes is not None and args.max_nodes < 10:
         raise OptionError("--max-nodes must be at least 10")
-    solution = solve(
-        problem,
-        method=args.method,
-        tol=args.tol,
-        max_nodes=args.max_nodes,
-        verify=False if args.no_verify else None,
-        homotopy=args.homotopy,
-        time_limit=args.time_limit,
-    )
+    options = dict(method=args.method, tol=args.tol, max_nodes=args.max_nodes,
+                   verify=False if args.no_verify else None, homotopy=args.homotopy, time_limit=args.time_limit)
+    try:
+        solution = solve(problem, **options)
+    except Exception as err:  # noqa: BLE001 - only a kept preparation is retried; a fresh one's error stands
+        if fresh or (isinstance(err, BvpkitError) and not isinstance(err, ProgramError)):
+            raise
+        # a kept preparation that passed every check and still fails in use: prepared afresh
+        from .compiled import note
+
+        note(f"cache entry for {args.spec} skipped: it failed in use ({type(err).__name__}); prepared afresh")
+        problem, fresh = _prepare_spec(args.spec, text, overrides), True
+        solution = solve(problem, **options)
     if fresh:
-        remember(key, problem)
+        remember(key, problem, text, overrides)
     # the user asked for the file: a failed solve's is written too, every header saying it failed
     if csv_path is not None:
         solution.to_csv(csv_path, allow_failed=True)
@@ -349,6 +354,14 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         if path:
             _say(f"{what} written to {path}")
     return solution.status.exit_code, None
+
+
+def _prepare_spec(path: str, text: str, overrides: dict[str, float]):  # noqa: ANN202 - a Prepared
+    from .prepared import prepare
+    from .spec import loads
+
+    loaded = loads(text, str(path))
+    return prepare(loaded.with_constants(**overrides) if overrides else loaded)
 
 
 def _trace(args: argparse.Namespace) -> tuple[int, Any]:

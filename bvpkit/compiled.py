@@ -489,13 +489,28 @@ def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray,
             or not np.isin(sides, (0, 1, 2)).all()):
         raise ProgramError("the Jacobian pattern or the condition sides do not fit the state layout")
     shapes = _expected_shapes(layout, sides.size)
+    n, n_p, n_k = layout.n, len(layout.parameters), len(layout.constants)
+    xyk = [["x", 1], ["y", n], ["p", n_p], ["k", n_k]]
+    ab = [["ya", n], ["yb", n], ["p", n_p], ["k", n_k]]
+    arguments = {name: (xyk, "y") if name in ("rhs", "jac", "pjac", "kjac") else ([["p", n_p], ["k", n_k]], None)
+                 if name in ("singular_matrix", "region_maps") else (ab, None) for name in shapes}
     if (not isinstance(programs, Sequence) or len(programs) != len(_FUNCTIONS)
             or any(not isinstance(q, dict) or q.get("name") not in shapes
-                   or q.get("shape") != shapes[q["name"]] for q in programs)):
+                   or q.get("shape") != shapes[q["name"]] for q in programs)
+            or sorted(q["name"] for q in programs) != sorted(_FUNCTIONS)
+            or any((_arity(q), q.get("mesh")) != arguments[q["name"]] for q in programs)):
         raise ProgramError("the programs are not the functions of a system with this state layout")
     compiled = CompiledSystem(layout, build(programs), pattern, sides, tuple(programs))
     _MEMORY[layout.key] = compiled
     return compiled
+
+
+def _arity(program: dict) -> list:
+    """``[[argument, number of symbols], ...]`` of a program (the grammar checks the symbols)."""
+    args = program.get("args")
+    if type(args) is not list or not all(type(a) is list and len(a) == 2 and type(a[1]) is list for a in args):
+        return []
+    return [[a[0], len(a[1])] for a in args]
 
 
 def load_compiled(layout: StateLayout) -> CompiledSystem | None:

@@ -182,6 +182,16 @@ class _Printer:
         if (arity is None and len(operands) < 2) or (arity is not None and len(operands) != arity):
             wanted = "two or more" if arity is None else str(arity)
             raise self.fail(f"'{op}' takes {wanted} operands, got {len(operands)}")
+        # What a program may cost is bounded by its size only if no arithmetic is done on
+        # Python numbers (an integer power such as 3**1000000000 runs for minutes, 1.0/0.0
+        # raises): codegen folds every constant into one number, so an operation always has
+        # an operand that comes from an argument (a NumPy value), and a sum or product holds
+        # at most one whole number.
+        constant = [_constant(item) for item in operands]
+        if all(constant) and not (op == "neg" and type(operands[0]) in (int, float)):
+            raise self.fail(f"'{op}' of numbers alone (a program holds each constant as one number)")
+        if op in ("add", "mul") and sum(_constant(item) is int for item in operands) > 1:
+            raise self.fail(f"'{op}' of more than one whole number (a program holds each constant as one number)")
         if op in ("add", "mul"):
             level, sign = (_ADD, " + ") if op == "add" else (_MUL, " * ")
             parts = [(sign, self.tree(operands[0], known, depth + 1))]
@@ -260,6 +270,8 @@ class _Printer:
         for i, temp in enumerate(temps):
             if type(temp) is not list or len(temp) != 2 or temp[0] != f"_t{i}":
                 raise self.fail(f"temporary {i} must be [\"_t{i}\", tree]")
+            if _constant(temp[1]):
+                raise self.fail(f"temporary {i} is a number alone (it would carry Python arithmetic)")
             body.append(self.statement(f"_t{i}", temp[1], known))
             known.add(f"_t{i}")
         seen = set()
@@ -286,6 +298,13 @@ class _Printer:
         lines += body
         lines.append("    return out")
         return "\n".join(lines) + "\n"
+
+
+def _constant(node: Any) -> type | None:
+    """``int`` or ``float`` for a number or the negation of one, else None."""
+    if type(node) is list and len(node) == 2 and node[0] == "neg":
+        node = node[1]
+    return type(node) if type(node) in (int, float) else None
 
 
 def _shown(value: Any) -> str:

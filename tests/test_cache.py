@@ -7,6 +7,7 @@ import pytest
 
 import bvpkit
 from bvpkit import codegen
+from bvpkit.specfile import read_spec
 
 
 @pytest.fixture()
@@ -189,11 +190,12 @@ def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "cantilever_shelf.toml"
     original = bvpkit.load(spec)
     expected = bvpkit.solve(original)
-    key = prepared.spec_key(spec, {})
-    prepared.remember(key, bvpkit.prepare(original))
+    text = read_spec(spec)
+    key = prepared.spec_key(text, {})
+    prepared.remember(key, bvpkit.prepare(original), text, {})
     codegen._MEMORY.clear()
     prepared._PROBLEMS.clear()
-    light = prepared.cached(key)
+    light = prepared.cached(key, text, {})
     assert isinstance(light, bvpkit.Prepared)
     solution = bvpkit.solve(light)
     assert solution.outputs == expected.outputs
@@ -202,7 +204,7 @@ def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(
     assert solution.evaluate("w''(0.3)") == pytest.approx(expected.evaluate("w''(0.3)"), rel=1e-12)
     assert prepared._PROBLEMS
     # with_constants on the rebuilt problem does not reuse point values of the old constants
-    longer = prepared.cached(key).with_constants(L=1.5)
+    longer = prepared.cached(key, text, {}).with_constants(L=1.5)
     assert bvpkit.solve(longer).outputs["tip_deflection_m"] == pytest.approx(
         bvpkit.solve(original.with_constants(L=1.5)).outputs["tip_deflection_m"], rel=1e-10)
 
@@ -212,10 +214,11 @@ def test_a_damaged_prepared_problem_is_ignored(cache, damage):
     from bvpkit import prepared
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "pin_fin.toml"
-    key = prepared.spec_key(spec, {})
+    text = read_spec(spec)
+    key = prepared.spec_key(text, {})
     problem = bvpkit.load(spec)
     bvpkit.solve(problem)
-    prepared.remember(key, bvpkit.prepare(problem))
+    prepared.remember(key, bvpkit.prepare(problem), text, {})
     path = next(cache.glob("problem-*.json"))
     text = path.read_text()
     if damage == "truncate":
@@ -224,7 +227,7 @@ def test_a_damaged_prepared_problem_is_ignored(cache, damage):
         data = json.loads(text)
         data["body"]["prepared"]["facts"]["title"] = "changed"  # the checksum no longer matches
         path.write_text(json.dumps(data))
-    assert prepared.cached(key) is None
+    assert prepared.cached(key, text, {}) is None
 
 
 def test_importing_bvpkit_imports_no_sympy():

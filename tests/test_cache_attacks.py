@@ -23,6 +23,7 @@ import pytest
 import bvpkit
 from bvpkit import compiled, prepared, program
 from bvpkit.errors import ProgramError
+from bvpkit.specfile import read_spec
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = ROOT / "specs" / "pin_fin.toml"
@@ -66,7 +67,7 @@ def _paths(folder, monkeypatch):
     from bvpkit.reduce import standard_form
 
     system = folder / f"system-{standard_form(bvpkit.load(SPEC)).key()}-{compiled.code_stamp()}.json"
-    return system, prepared._file(prepared.spec_key(SPEC, {}))
+    return system, prepared._file(prepared.spec_key(read_spec(SPEC), {}))
 
 
 @pytest.fixture(scope="module")
@@ -113,7 +114,7 @@ def test_a_planted_entry_in_the_old_source_format_never_runs(tmp_path, monkeypat
     key = standard_form(plain).key()
     system.write_text(json.dumps({"key": key, "source": payload, "pattern": [[False, True], [True, False]],
                                   "sides": [0, 1], "sha256": hashlib.sha256(payload.encode()).hexdigest()}))
-    body["key"] = prepared.spec_key(SPEC, {})
+    body["key"] = prepared.spec_key(read_spec(SPEC), {})
     inner = body["prepared"]
     inner["system"] = {**inner["system"], "source": payload}
     del inner["system"]["programs"]
