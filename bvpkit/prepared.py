@@ -47,6 +47,7 @@ from .compiled import (
 from .errors import BvpkitError, OptionError, ProblemError, closest
 from .guess import GuessRecipe
 from .layout import LENGTH, StateLayout
+from .program import stored_size
 from .quantity import Quantity
 
 #: First placement of an infinite end, measured from the finite one (the driver moves it out).
@@ -351,6 +352,9 @@ def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | No
         if given is None:
             raise _Refused("the spec does not read as the one it was made for")
         prepared = Prepared.from_plain(body["prepared"])
+        system = prepared.system.get("programs")
+        stored_size([*(system if type(system) is list else []),
+                     *(r.program for r in prepared.recipes.values()), *_programs(prepared.quantities.values())])
         mine = {"title": prepared.facts.get("title"), "settings": prepared.facts.get("settings"),
                 "arguments": prepared.facts.get("arguments"), "own": prepared.facts.get("own"),
                 "outputs": prepared.facts.get("outputs"), "constants": prepared.constants,
@@ -413,12 +417,21 @@ def _check_entry(prepared: Prepared) -> None:
             and (layout.eigenvalue is None or (whole(layout.eigenvalue, 0, n_p - 1) and whole(layout.mode, 1, 1000)))
             and (not layout.stretch or (len(layout.stretch) == layout.regions
                                         and all(whole(d, 1, 10) for d in layout.stretch)))
+            and (LENGTH in layout.constants) == any(layout.infinite)
             and layout.independent == prepared.facts.get("arguments", {}).get("independent")):
         raise _Refused("its state layout does not fit together")
     own = prepared.facts.get("own", {})
     if (set(prepared.parameters) != set(layout.parameters)
-            or any(c != LENGTH and c not in own and c not in prepared.constants for c in layout.constants)):
+            or set(layout.constants) - {LENGTH} != set(own) | set(prepared.constants)):
         raise _Refused("its constants or parameters are not those of its layout")
+    arguments = prepared.facts.get("arguments", {})
+    eigenvalue = arguments.get("eigenvalue")
+    unknowns = arguments.get("unknowns")
+    if ((layout.eigenvalue is None) != (eigenvalue is None)
+            or (eigenvalue is not None and (layout.parameters[layout.eigenvalue] != eigenvalue
+                                            or layout.mode != (arguments.get("mode") or 1)))
+            or (unknowns is not None and list(unknowns) != [f for f, _ in functions])):
+        raise _Refused("its state layout is not that of the spec")
     points = prepared.facts.get("points")
     if type(points) is not list or len(points) != layout.regions + 1 or not all(type(q) is str for q in points):
         raise _Refused("its ends and interfaces do not fit its layout")

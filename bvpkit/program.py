@@ -80,6 +80,10 @@ MAX_NODES = 500_000  # tree nodes in one program: the largest of the bundled spe
 MAX_SYMBOLS = 10_000  # symbols one argument unpacks (states, parameters, constants, point values)
 MAX_OUTPUT_SIZE = 1_000_000  # entries of the output before the mesh axis: a dense Jacobian of 1000 states
 MAX_INTEGER = 2**53  # larger integers are written as floats by codegen (exact up to here)
+MAX_STORED_NODES = 60_000  # tree nodes in all the programs of one cache entry, counted before any is
+#   built: printing, checking and compiling cost about 40 microseconds a node (2 to 3 s at this
+#   size on a shared machine), so a planted entry cannot cost more. The 600-state reacting chain
+#   of benchmarks/scale.py has 9,000; a larger system is generated afresh each time, not read
 
 
 # -- validation and printing ------------------------------------------------------------------
@@ -314,6 +318,28 @@ def _shown(value: Any) -> str:
 
 def _kind(value: Any) -> str:
     return "an empty list" if value == [] else f"a {type(value).__name__} ({_shown(value)})"
+
+
+def stored_size(programs: Iterable[Any], limit: int = MAX_STORED_NODES) -> int:
+    """The number of tree nodes in ``programs`` (plain data as read from a cache), counted
+    without recursion and stopping past ``limit``; a :class:`~bvpkit.errors.ProgramError`
+    when there are more (nothing is built from them)."""
+    count, stack = 0, []
+    for program in programs:
+        if type(program) is not dict:
+            continue  # the grammar refuses it when built
+        for part in ("temps", "entries"):
+            items = program.get(part)
+            if type(items) is list:
+                stack += [item[1] for item in items if type(item) is list and len(item) == 2]
+    while stack:
+        node = stack.pop()
+        count += 1
+        if count > limit:
+            raise ProgramError(f"it holds more than {limit} terms (a larger system is generated afresh)")
+        if type(node) is list:
+            stack += node[1:]
+    return count
 
 
 def validate(program: Any) -> None:

@@ -59,7 +59,7 @@ def test_a_corrupted_cache_file_is_regenerated(cache, damage):
     codegen._MEMORY.clear()
     sol = bvpkit.solve(_problem())
     assert sol.success
-    assert json.loads(path.read_text())["sha256"]  # rewritten whole
+    assert json.loads(path.read_text())["signature"]  # rewritten whole
 
 
 def test_concurrent_writers_leave_one_valid_file(cache):
