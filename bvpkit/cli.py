@@ -34,6 +34,21 @@ def _methods() -> list[str]:
     return ["auto", *REGISTRY]
 
 
+class _Methods:
+    """The ``--method`` choices, read from the registry only when asked (a value given, or
+    the help shown): importing the methods brings in SciPy's sparse modules, which a spec
+    refused on reading must not wait for."""
+
+    def __contains__(self, name: object) -> bool:
+        return name in _methods()
+
+    def __iter__(self):  # noqa: ANN204
+        return iter(_methods())
+
+    def __len__(self) -> int:
+        return len(_methods())
+
+
 class _Parser(argparse.ArgumentParser):
     """Usage errors are bad input: one line (or one JSON object with --json), exit code 2."""
 
@@ -59,7 +74,8 @@ def _parser() -> argparse.ArgumentParser:
         "solve", help="solve the problem of a TOML spec", description="Solve the problem of a TOML spec and print a summary.", epilog=_EPILOG
     )
     solve.add_argument("spec", help="path of the TOML spec file")
-    solve.add_argument("--method", choices=_methods(), help="solution method (default: the spec's, else auto)")
+    solve.add_argument("--method", choices=_Methods(), metavar="METHOD",
+                       help="solution method (default: the spec's, else auto): %(choices)s")
     solve.add_argument("--tol", type=float, help="tolerance on the relative error (default: the spec's, else 1e-6)")
     solve.add_argument("--max-nodes", type=int, help="mesh limit")
     solve.add_argument("--no-verify", action="store_true", help="skip the error estimate (faster)")
@@ -90,7 +106,7 @@ def _parser() -> argparse.ArgumentParser:
                        help="an expression (or output name) to record; repeatable (default: the spec's)")
     trace.add_argument("--max-points", type=int, help="upper bound on the points (default 200)")
     trace.add_argument("--tol", type=float, help="tolerance of each point")
-    trace.add_argument("--method", choices=_methods(), help="method of the natural steps")
+    trace.add_argument("--method", choices=_Methods(), metavar="METHOD", help="method of the natural steps: %(choices)s")
     trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
     trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
@@ -142,7 +158,7 @@ def _parser() -> argparse.ArgumentParser:
         help="an axis of the grid (repeatable; the first is the fast axis); replaces the spec's [sweep] grid",
     )
     sweep.add_argument("--tol", type=float, help="tolerance of each point")
-    sweep.add_argument("--method", choices=_methods(), help="solution method")
+    sweep.add_argument("--method", choices=_Methods(), metavar="METHOD", help="solution method: %(choices)s")
     sweep.add_argument("--csv", metavar="FILE", help="write the table as CSV")
     sweep.add_argument("--json", action="store_true", help="print the table as JSON")
     sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra; the suffix names "
@@ -297,13 +313,11 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
+    overrides = _constants(args.set)
+    text = args.spec_text  # read once (see _main): the key, the check of a kept preparation, the problem
     from .driver import solve
     from .errors import BvpkitError, OptionError, ProgramError
     from .prepared import cached, remember, spec_key
-    from .specfile import read_spec
-
-    overrides = _constants(args.set)
-    text = read_spec(args.spec)  # the file is read once: its text is the key, the check and the problem
     key = spec_key(text, overrides)
     problem = cached(key, text, overrides)  # prepared by an earlier run: no parsing, no SymPy
     fresh = problem is None
@@ -356,6 +370,13 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     return solution.status.exit_code, None
 
 
+def _load(args: argparse.Namespace):  # noqa: ANN202 - a Problem
+    """The problem of the spec file (its text read once, in _main), validated."""
+    from .spec import loads
+
+    return loads(args.spec_text, str(args.spec))
+
+
 def _prepare_spec(path: str, text: str, overrides: dict[str, float]):  # noqa: ANN202 - a Prepared
     from .prepared import prepare
     from .spec import loads
@@ -365,11 +386,11 @@ def _prepare_spec(path: str, text: str, overrides: dict[str, float]):  # noqa: A
 
 
 def _trace(args: argparse.Namespace) -> tuple[int, Any]:
-    from . import load, trace
+    from . import trace
     from .errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
-    problem = load(args.spec)
+    problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     settings = dict(problem.settings.get("trace", {}))
@@ -429,11 +450,11 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
-    from . import fold_curve, load
+    from . import fold_curve
     from .errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
-    problem = load(args.spec)
+    problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     settings = dict(problem.settings.get("fold_curve", {}))
@@ -471,14 +492,14 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
-    from . import load, sweep
+    from . import sweep
     from .errors import MissingExtraError, OptionError
 
     _writable(args.csv), _picture(args.plot)
     if args.store is not None:
         _no_nul(args.store, "store")
     grid = _grid(args.grid) if args.grid else None
-    problem = load(args.spec)
+    problem = _load(args)
     settings = dict(problem.settings.get("sweep") or {})
     if grid is not None:
         settings["grid"] = grid
@@ -532,10 +553,9 @@ def _units_line(units: dict[str, str], names: Sequence[str]) -> str:
 
 
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
-    from . import load
     from .reduce import standard_form
 
-    problem = load(args.spec)
+    problem = _load(args)
     form = standard_form(problem)
     report = check_report(problem, form)
     for section in ("trace", "sweep"):
@@ -628,6 +648,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _main(arguments)
     except KeyboardInterrupt:
         return _interrupted(wants_json)
+    except _OutputFailed as err:  # the standard output cannot take the outcome: said on stderr
+        return _fail(Status.BAD_INPUT, f"cannot write the standard output: {err}", False)
 
 
 def _wants_json(arguments: Sequence[str]) -> bool:
@@ -646,9 +668,17 @@ def _main(arguments: list[str]) -> int:
 
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
                    "fold-curve": _fold_curve}[args.command]
+        if getattr(args, "spec", None) is not None:
+            from .specfile import read_spec
+
+            # once, first, before anything heavy is imported: a FIFO, a device or a file past
+            # the size limit is refused in a fraction of a second, and never read whole
+            args.spec_text = read_spec(args.spec)
         code, report = handler(args)
     except KeyboardInterrupt:
         return _interrupted(wants_json)
+    except _OutputFailed:
+        raise
     except BvpkitError as err:
         return _fail(Status.BAD_INPUT, err.one_line(), wants_json)
     except OSError as err:  # writing an output file failed after all (disk full, permissions)
@@ -681,27 +711,47 @@ def _ignore_interrupts() -> None:
         pass
 
 
+class _OutputFailed(Exception):  # noqa: N818 - not an error of the input: the standard output is full or gone
+    """The standard output refused a write (a full disk, ``> /dev/full``)."""
+
+
 def _say(text: str, stream: Any = None) -> None:
     """Print a line; a reader that went away (``| head``, ``| true``) silences the rest, nothing more.
 
-    The exit code is the outcome's, whatever happened to the output.
+    The exit code is the outcome's, whatever happened to the output. Any other failure to
+    write the standard output (a full disk) raises :class:`_OutputFailed`, which :func:`main`
+    says in one line on standard error (exit code 2); standard error's own failures are
+    ignored.
     """
     stream = stream or sys.stdout
     try:
         print(text, file=stream, flush=True)
     except BrokenPipeError:
-        try:
-            devnull = os.open(os.devnull, os.O_WRONLY)
-            os.dup2(devnull, stream.fileno())  # Python's final flush at exit must not fail again
-            os.close(devnull)
-        except (OSError, ValueError):
-            pass
+        _silence(stream)
+    except OSError as err:
+        _silence(stream)
+        if stream is sys.stdout:
+            raise _OutputFailed(err.strerror or type(err).__name__) from None
+
+
+def _silence(stream: Any) -> None:
+    """Point ``stream`` at the null device: Python's final flush at exit must not fail again."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, stream.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):
+        pass
 
 
 def _fail(status: Status, message: str, wants_json: bool) -> int:
     if wants_json:
-        _say(json.dumps({"success": False, "status": status.word, "message": message}))
-    elif message.lower().startswith((status.word, status.word.replace("_", " "))):
+        try:
+            _say(json.dumps({"success": False, "status": status.word, "message": message}))
+            return status.exit_code
+        except _OutputFailed:  # the line goes to standard error instead
+            pass
+    if message.lower().startswith((status.word, status.word.replace("_", " "))):
         _say(f"bvpkit: {message}", sys.stderr)  # the message says the status itself: once is enough
     else:
         _say(f"bvpkit: {status.word}: {message}", sys.stderr)
