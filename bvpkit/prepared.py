@@ -254,7 +254,11 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
     key = problem.key(generated=True)
     template = _PREPARED.get(key)
     if template is None:
-        template = _prepare(problem, key)
+        from .budget import preparation
+
+        with preparation("preparing the problem (code generation, guesses, outputs)",
+                         advice="simplify the equations, or split them with added unknown functions"):
+            template = _prepare(problem, key)
         if len(_PREPARED) > 200:
             _PREPARED.clear()
         _PREPARED[key] = template

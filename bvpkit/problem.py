@@ -223,9 +223,11 @@ class Problem:
         self._frozen = True
         # The reduction validates what only it can see (isolating the highest derivatives,
         # singular terms), so a Problem that constructs is a Problem that can be prepared.
+        from .budget import preparation
         from .reduce import standard_form
 
-        standard_form(self)
+        with preparation("reducing the problem to first order", advice="simplify the equations"):
+            standard_form(self)
 
     def __setattr__(self, name: str, value: Any) -> None:
         if self.__dict__.get("_frozen"):
