@@ -10,8 +10,9 @@ afresh and checks it before compiling. No stored text is ever executed.
 
 Cache files are read only from a folder owned by the user and not writable by group or
 others, only when they are regular files owned by the user (opened without following
-symbolic links) and at most ``CACHE_FILE_LIMIT`` bytes long. Anything else is skipped, with
-one note on the ``bvpkit.cache`` logger (the command line prints it to standard error).
+symbolic links) and at most ``CACHE_FILE_LIMIT`` bytes long, and used only when signed with
+the folder's key (:func:`signing_key`). Anything else is skipped, with one note on the
+``bvpkit.cache`` logger (the command line prints it to standard error).
 """
 
 from __future__ import annotations

@@ -12,12 +12,14 @@ the file (ends and interfaces in order, finite): the one place every value reach
 solve passes (:func:`bvpkit.problem.check_positions`).
 
 A second ``bvpkit solve`` of the same spec file takes the preparation from the disk cache
-(:func:`cached`, :func:`remember`), keyed by the spec file's bytes, the ``--set`` values and
-the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and carries a
-SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
-a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
-from other code is ignored and rewritten. Generated functions travel as programs (plain
-data, :mod:`bvpkit.program`), never as code: they are printed and checked afresh when built.
+(:func:`cached`, :func:`remember`), keyed by the spec file's text, the ``--set`` values and
+the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and signed with
+the cache's key (``compiled.signing_key``); it is read with the checks of
+``compiled.read_private`` (a private folder, a regular file of the user's, a size cap), and
+used only for the spec text and values it was made for, after the checks of :func:`cached`.
+One that is unreadable, damaged, unsigned, refused or from other code is ignored and
+rewritten. Generated functions travel as programs (plain data, :mod:`bvpkit.program`), never
+as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations

@@ -1,7 +1,9 @@
 """Attacks on the disk cache and on what travels in it.
 
-A cache folder can be shared (group drives, cluster scratch, container images, CI caches), and
-a checksum beside the data guards against damage, not against a writer. What is checked here:
+A cache folder can be shared (group drives, cluster scratch, container images, CI caches).
+Entries are signed with a key kept in the folder, so an entry edited or written without it is
+skipped; a writer who holds the key is the harder case, and most tests below play it (they
+sign what they plant) to reach the checks behind the signature. What is checked here:
 planted entries never run code (nothing stored is executed: programs are plain data, printed
 afresh and checked before compiling), the source check refuses every escape we know of,
 hostile program trees are refused by name, and cache files or folders that are not the
