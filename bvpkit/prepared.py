@@ -40,7 +40,6 @@ from .compiled import (
     CompiledSystem,
     _cache_dir,
     assemble,
-    build_quantity,
     code_stamp,
     note,
     read_json,
@@ -374,10 +373,15 @@ def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | No
         prepared = dataclasses.replace(prepared, facts=facts, layout=layout, constants=dict(given["constants"]),
                                        parameters=dict(given["parameters"]))
         _check_entry(prepared)
-        # every program is validated and built now, not in the middle of a solve
+        # every program is validated and built now, not in the middle of a solve, and kept
+        # where the solve looks for it (built once)
+        from .guess import _function
+
         for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
                         *_programs(prepared.quantities.values())]:
-            build_quantity(program)
+            if type(program) is not dict or program.get("name") != "quantity":
+                raise _Refused("a compiled output or guess is not a program of one")
+            _function(program)
         prepared.compiled  # noqa: B018 - builds the system's programs now
         prepared.check()
         return prepared

@@ -371,6 +371,9 @@ _BINARY = (ast.Add, ast.Sub, ast.Mult, ast.Div, ast.Pow)
 class _SourceCheck:
     """Deny by default: each node type the printer emits is accepted in its place only."""
 
+    def __init__(self) -> None:
+        self.called: set[str] = set()  # the callables the source names (bound by build)
+
     @staticmethod
     def fail(node: ast.AST, what: str) -> ProgramError:
         return ProgramError(f"generated source refused at line {getattr(node, 'lineno', '?')}: {what}")
@@ -450,6 +453,7 @@ class _SourceCheck:
                 if node.keywords or len(node.args) != CALLABLES[f.id]:
                     raise self.fail(node, f"{f.id} takes {CALLABLES[f.id]} positional argument(s), "
                                           "no keywords")
+                self.called.add(f.id)
                 stack += node.args
             elif kind is ast.Subscript:
                 value = node.value
@@ -477,14 +481,20 @@ def check_source(source: str) -> ast.Module:
     tuples of sizes. Nothing else: no attributes, strings, subscripts of anything but the
     arguments, imports, lambdas, comprehensions, keywords, dunder names.
     """
+    return _checked(source)[0]
+
+
+def _checked(source: str) -> tuple[ast.Module, set[str]]:
+    """:func:`check_source`, and the names of the callables the source calls."""
     if not isinstance(source, str):
         raise ProgramError(f"generated source must be text, got {type(source).__name__}")
     try:
         tree = ast.parse(source, "<bvpkit-generated>", "exec")
     except (SyntaxError, ValueError, RecursionError, MemoryError) as err:
         raise ProgramError(f"generated source refused: it does not parse ({type(err).__name__})") from None
-    _SourceCheck().module(tree)
-    return tree
+    checker = _SourceCheck()
+    checker.module(tree)
+    return tree, checker.called
 
 
 def _callables(names: Iterable[str]) -> dict[str, Callable]:
@@ -527,8 +537,7 @@ def build(programs: Iterable[Mapping[str, Any]]) -> dict[str, Callable]:
         names.append(program["name"])
     if len(set(names)) != len(names):
         raise ProgramError(f"two programs share a name among {names}")
-    tree = check_source("".join(sources))
-    used = {n.func.id for n in ast.walk(tree) if type(n) is ast.Call}
+    tree, used = _checked("".join(sources))
     namespace: dict[str, Any] = {"__builtins__": {}, **_callables(used)}
     # The source was printed from validated plain data just now and passed check_source:
     # it names nothing but its arguments, internal symbols and the callables bound above.
