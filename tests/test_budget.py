@@ -1,4 +1,4 @@
-"""Budgets on symbolic work (bvpkit.budget) and the hostile problems that needed them.
+"""Budgets on symbolic work (bvpkit.language.budget) and the hostile problems that needed them.
 
 Each hostile problem below is built in a child process, which must answer (a Problem, or
 one bvpkit error) within 30 s of wall time and 1 GB of peak resident memory, measured in
@@ -17,8 +17,8 @@ import time
 import pytest
 
 import bvpkit
-from bvpkit import budget as budget_module
-from bvpkit.budget import budget, check_sizes
+from bvpkit.language import budget as budget_module
+from bvpkit.language.budget import budget, check_sizes
 
 SECONDS, MEGABYTES = 30.0, 1000
 
@@ -202,7 +202,7 @@ def _small_chain(n=30):
 def test_the_continuations_facts_differentiate_each_equation_once_not_by_every_unknown(monkeypatch):
     import sympy as sp
 
-    from bvpkit import homotopy
+    from bvpkit.solver import homotopy
 
     prepared = bvpkit.prepare(_small_chain())
     calls = []
@@ -216,7 +216,7 @@ def test_the_continuations_facts_differentiate_each_equation_once_not_by_every_u
 
 
 def test_the_continuations_preparation_stops_at_the_solves_time_limit(monkeypatch):
-    from bvpkit import homotopy
+    from bvpkit.solver import homotopy
 
     prepared = bvpkit.prepare(_small_chain(3))
     homotopy._FACTS.clear()
@@ -226,7 +226,8 @@ def test_the_continuations_preparation_stops_at_the_solves_time_limit(monkeypatc
 
 
 def test_a_preparation_as_a_whole_is_bounded_and_says_how_to_raise_the_bound(monkeypatch):
-    from bvpkit import codegen, prepared
+    from bvpkit.generated import codegen
+    from bvpkit.reduce import prepared
 
     monkeypatch.setenv(budget_module.PREPARATION_VARIABLE, "0.3")
     monkeypatch.setattr(codegen, "_system_programs", lambda form: _spin(30))

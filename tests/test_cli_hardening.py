@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit.cli import PLOT_INSTALL, main
+from bvpkit.io.cli import PLOT_INSTALL, main
 
 ROOT = Path(__file__).resolve().parent.parent
 SPECS = sorted((ROOT / "specs").glob("*.toml"))
@@ -129,7 +129,7 @@ def test_the_exit_code_survives_a_reader_that_went_away(tmp_path):
 # -- output paths ----------------------------------------------------------------------------
 _SPEC_ERRORS = """
 import sys
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 runs = [line.split("\t") for line in sys.argv[1].splitlines()]
 codes = [main(run) for run in runs[:int(sys.argv[2])]]
 print("heavy before parsing:", [m for m in ("sympy", "pydantic", "scipy.sparse") if m in sys.modules])
@@ -182,7 +182,7 @@ def test_a_full_standard_output_is_one_line_and_exit_2(argv, tmp_path):
 
 
 def test_a_folder_swapped_for_a_link_during_the_solve_cannot_redirect_a_save_file(tmp_path, monkeypatch, capsys):
-    import bvpkit.driver as driver
+    import bvpkit.solver.driver as driver
 
     work, outside = tmp_path / "work", tmp_path / "outside"
     work.mkdir()

@@ -8,7 +8,7 @@ import pytest
 from scipy.optimize import minimize_scalar
 
 import bvpkit
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 
 from catalogue import bratu_slope
 
@@ -43,7 +43,7 @@ def test_bratu_fold_is_located_to_1e8(bratu_branch):
 def test_a_first_step_far_beyond_the_range_is_clamped_and_the_fold_is_found(monkeypatch):
     """A first step of 1e80 once cost minutes (halved one failed solve at a time at the end of
     the range); it is clamped to a quarter of the range, and halving is bounded by a count."""
-    from bvpkit import continuation
+    from bvpkit.families import continuation
 
     tried = []
     at = continuation._Tracer._at
