@@ -173,6 +173,18 @@ def _function_program(
     exprs = [e.replace(sp.DiracDelta, lambda *_: sp.S.Zero) if e.has(sp.DiracDelta) else e
              for e in (entries[key] for key in keys)]
     temps, reduced = sp.cse(exprs, symbols=sp.numbered_symbols("_t"), order="none")
+    # a constant CSE pulled out (2*pi used twice) goes back into the expressions as one number:
+    # programs never hold arithmetic on Python numbers (bvpkit.generated.program)
+    numeric: dict = {}
+    kept = []
+    for t, e in temps:
+        e = e.xreplace(numeric) if numeric else e
+        if e.is_number:
+            numeric[t] = e
+        else:
+            kept.append((t, e))
+    if numeric:
+        temps, reduced = kept, [e.xreplace(numeric) for e in reduced]
     # programs name temporaries _t0, _t1, ... in the order they are defined
     names = {t: sp.Symbol(f"_t{i}") for i, (t, _) in enumerate(temps)}
     try:
