@@ -106,7 +106,8 @@ def _parser() -> argparse.ArgumentParser:
                        help="an expression (or output name) to record; repeatable (default: the spec's)")
     trace.add_argument("--max-points", type=int, help="upper bound on the points (default 200)")
     trace.add_argument("--tol", type=float, help="tolerance of each point")
-    trace.add_argument("--method", choices=_Methods(), metavar="METHOD", help="method of the natural steps: %(choices)s")
+    trace.add_argument("--method", choices=_Methods(), metavar="METHOD",
+                       help="method of the natural steps: %(choices)s")
     trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
     trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
