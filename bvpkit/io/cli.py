@@ -316,9 +316,9 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     overrides = _constants(args.set)
     text = args.spec_text  # read once (see _main): the key, the check of a kept preparation, the problem
-    from ..solver.driver import solve
     from ..errors import BvpkitError, OptionError, ProgramError
     from ..reduce.prepared import cached, remember, spec_key
+
     key = spec_key(text, overrides)
     problem = cached(key, text, overrides)  # prepared by an earlier run: no parsing, no SymPy
     fresh = problem is None
@@ -335,6 +335,8 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
     if args.max_nodes is not None and args.max_nodes < 10:
         raise OptionError("--max-nodes must be at least 10")
+    from ..solver.driver import solve  # after the problem is read: a bad spec does not wait for SciPy
+
     options = dict(method=args.method, tol=args.tol, max_nodes=args.max_nodes,
                    verify=False if args.no_verify else None, homotopy=args.homotopy, time_limit=args.time_limit)
     try:
