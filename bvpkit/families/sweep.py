@@ -182,6 +182,64 @@ def _row(point, outputs, success, status, method, error, message, iterations, se
             "iterations": int(iterations), "seconds": float(seconds)}
 
 
+_ROW_FIELDS = {"point": dict, "outputs": dict, "success": bool, "status": str, "method": str,
+               "error_estimate": float, "message": str, "iterations": int, "seconds": float}
+MAX_ROW_BYTES = 100_000  # a stored row's JSON text: a message, a point and its outputs (a few hundred bytes)
+
+
+def _signed_row(problem: str, row: dict, key: bytes | None) -> str:
+    """A row's JSON text, with the signature of the row, its problem and its point under the
+    cache's key (see :func:`bvpkit.programs.compiled.signing_key`) when there is one."""
+    from ..programs.compiled import signature
+
+    body = dict(row)
+    if key is not None:
+        body["signature"] = signature([problem, _grid_key(row["point"]), row], key)
+    return json.dumps(body, allow_nan=True)
+
+
+def _valid_row(problem: str, point: str, text: Any, success: Any, outputs: Sequence[str],
+               key: bytes | None) -> dict | None:
+    """A stored row as this sweep wrote it, or None: not JSON, fields missing or of the wrong
+    kind, a point other than the one it is stored under, outputs other than the sweep's, a
+    status that is not one of bvpkit's; or, when the cache has a key, a signature that is not
+    its own (an edited value, a row copied from another point, problem or machine)."""
+    import hmac
+
+    from ..programs.compiled import signature
+    from ..status import Status
+
+    if type(text) is not str or len(text) > MAX_ROW_BYTES:
+        return None
+    try:
+        row = json.loads(text)
+    except (ValueError, RecursionError):
+        return None
+    if type(row) is not dict or set(row) - {"signature"} != set(_ROW_FIELDS):
+        return None
+    stamp = row.pop("signature", None)
+    if key is not None and (type(stamp) is not str or not hmac.compare_digest(
+            stamp, signature([problem, point, row], key) or "")):
+        return None
+    for name, kind in _ROW_FIELDS.items():
+        value = row[name]
+        if not (type(value) is kind or (kind is float and type(value) is int)):
+            return None
+    try:
+        if _grid_key(row["point"]) != point or row["success"] != bool(success) or row["iterations"] < 0:
+            return None
+    except (TypeError, ValueError, AttributeError):
+        return None
+    values = row["outputs"]
+    if (not all(type(v) in (int, float) for v in values.values())
+            or (row["success"] and set(values) != set(outputs)) or not set(values) <= set(outputs)):
+        return None
+    status = {s.word: s for s in Status}.get(row["status"])
+    if status is None or status.success != row["success"]:
+        return None
+    return row
+
+
 class _Store:
     """SQLite store of finished points, keyed by the problem's content and the grid point."""
     def __init__(self, path: str | Path | None):
@@ -227,19 +285,37 @@ class _Store:
             return  # written before stores carried their id
         raise self._refused("a database of another program" if found != STORE_ID else "its tables differ")
 
-    def done(self, problem: str, retry_failed: bool) -> dict[str, dict]:
-        query = "SELECT point, row FROM points WHERE problem = ?" + (" AND success = 1" if retry_failed else "")
+    def done(self, problem: str, retry_failed: bool, outputs: Sequence[str]) -> dict[str, dict]:
+        """The finished points of ``problem`` whose rows pass :func:`_valid_row`; the others
+        are left out (solved again), said in one note."""
+        from ..programs.compiled import note, signing_key
+
+        query = "SELECT point, row, success FROM points WHERE problem = ?"
+        key = signing_key()
+        found, refused = {}, 0
         try:
-            return {point: json.loads(row) for point, row in self.db.execute(query, (problem,))}
-        except (sqlite3.DatabaseError, ValueError) as err:
+            for point, text, success in self.db.execute(query, (problem,)):
+                row = _valid_row(problem, point, text, success, outputs, key)
+                if row is None:
+                    refused += 1
+                elif row["success"] or not retry_failed:
+                    found[point] = row
+        except sqlite3.DatabaseError as err:
             raise self._refused(f"unreadable: {err}") from None
+        if refused:
+            note(f"sweep store {self.path}: {refused} stored point{'s' if refused > 1 else ''} skipped (edited, "
+                 "damaged, or stored without this cache's key) and solved again")
+        return found
 
     def write(self, problem: str, rows: list[dict]) -> None:
+        from ..programs.compiled import signing_key
+
+        key = signing_key(create=True)
         try:
             with self.db:  # one transaction per unit
                 self.db.executemany(
                     "INSERT OR REPLACE INTO points (problem, point, row, success) VALUES (?, ?, ?, ?)",
-                    [(problem, _grid_key(r["point"]), json.dumps(r, allow_nan=True), int(r["success"])) for r in rows],
+                    [(problem, _grid_key(r["point"]), _signed_row(problem, r, key), int(r["success"])) for r in rows],
                 )
         except sqlite3.DatabaseError as err:
             raise OptionError(f"cannot write to the store {self.path}: {err}") from None
@@ -508,7 +584,7 @@ def sweep(
     started = time.perf_counter()
     db = _Store(store)
     try:
-        done = db.done(problem_key, retry_failed)
+        done = db.done(problem_key, retry_failed, list(labels.values()))
         units = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):
             slow = tuple(zip(slow_names, map(float, slow_values)))
