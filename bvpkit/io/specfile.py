@@ -108,7 +108,7 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
             parameters[eigenvalue] = 0.0
         if not all(math.isfinite(v) for v in [*constants.values(), *parameters.values()]):
             return None
-        settings = {"method": "auto", **table(data, "solver")}
+        settings = dict(table(data, "solver"))  # as the spec model keeps it: only the keys given
         save = table(data, "save")
         settings["save"] = {"solution_csv": save.get("solution_csv"), "report_json": save.get("report_json")}
         if table(data, "units"):
