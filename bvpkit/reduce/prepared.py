@@ -44,6 +44,7 @@ from ..programs.compiled import (
     assemble,
     code_stamp,
     note,
+    quantity_function,
     read_json,
     write_json,
 )
@@ -384,13 +385,11 @@ def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | No
         _check_entry(prepared)
         # every program is validated and built now, not in the middle of a solve, and kept
         # where the solve looks for it (built once)
-        from .guess import _function
-
         for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
                         *_programs(prepared.quantities.values())]:
             if type(program) is not dict or program.get("name") != "quantity":
                 raise _Refused("a compiled output or guess is not a program of one")
-            _function(program)
+            quantity_function(program)
         prepared.compiled  # noqa: B018 - builds the system's programs now
         prepared.check()
         return prepared
