@@ -879,14 +879,17 @@ class _Tracer:
             return False, self._done(f"pseudo-arclength could not start at {self.name} = {point.value:.6g}")
         ds = first_ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
+        chord: list = []  # the factorisation of the last tangent's matrix, reused by the corrector
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
             predicted = z + ds * tangent
-            z_new, its = arc.correct(eq, predicted, tangent, self.tol)
+            reuse = chord[0] if chord and chord[1] is eq else None
+            z_new, its = arc.correct(eq, predicted, tangent, self.tol, chord=reuse)
             reason = None
             if z_new is not None:
                 try:
-                    t_new, sign = arc.tangent(eq, z_new, tangent)
+                    kept: list = []
+                    t_new, sign = arc.tangent(eq, z_new, tangent, keep=kept)
                 except SingularMatrix:
                     z_new, reason = None, "the bordered Jacobian was singular there"
             if z_new is None:
@@ -936,6 +939,7 @@ class _Tracer:
                 if better.success:
                     sol, new = better, _Point(lam_new, better)  # its tangent: from the last point's
             accepted = self._accept(lam_new, sol, "arclength", new)
+            chord = [kept[0], eq]
             if self._pending_branch is not None:
                 end = self._branch_point()
                 if end is not None:
