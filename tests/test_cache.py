@@ -185,17 +185,18 @@ def test_a_set_value_makes_a_different_prepared_problem(tmp_path):
 
 
 def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(cache):
+    from bvpkit.io import kept
     from bvpkit.reduce import prepared
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "cantilever_shelf.toml"
     original = bvpkit.load(spec)
     expected = bvpkit.solve(original)
     text = read_spec(spec)
-    key = prepared.spec_key(text, {})
-    prepared.remember(key, bvpkit.prepare(original), text, {})
+    key = kept.spec_key(text, {})
+    kept.remember(key, bvpkit.prepare(original), text, {})
     codegen._MEMORY.clear()
     prepared._PROBLEMS.clear()
-    light = prepared.cached(key, text, {})
+    light = kept.cached(key, text, {})
     assert isinstance(light, bvpkit.Prepared)
     solution = bvpkit.solve(light)
     assert solution.outputs == expected.outputs
@@ -204,21 +205,21 @@ def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(
     assert solution.evaluate("w''(0.3)") == pytest.approx(expected.evaluate("w''(0.3)"), rel=1e-12)
     assert prepared._PROBLEMS
     # with_constants on the rebuilt problem does not reuse point values of the old constants
-    longer = prepared.cached(key, text, {}).with_constants(L=1.5)
+    longer = kept.cached(key, text, {}).with_constants(L=1.5)
     assert bvpkit.solve(longer).outputs["tip_deflection_m"] == pytest.approx(
         bvpkit.solve(original.with_constants(L=1.5)).outputs["tip_deflection_m"], rel=1e-10)
 
 
 @pytest.mark.parametrize("damage", ["truncate", "tamper"])
 def test_a_damaged_prepared_problem_is_ignored(cache, damage):
-    from bvpkit.reduce import prepared
+    from bvpkit.io import kept
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "pin_fin.toml"
     text = read_spec(spec)
-    key = prepared.spec_key(text, {})
+    key = kept.spec_key(text, {})
     problem = bvpkit.load(spec)
     bvpkit.solve(problem)
-    prepared.remember(key, bvpkit.prepare(problem), text, {})
+    kept.remember(key, bvpkit.prepare(problem), text, {})
     path = next(cache.glob("problem-*.json"))
     text = path.read_text()
     if damage == "truncate":
@@ -227,7 +228,7 @@ def test_a_damaged_prepared_problem_is_ignored(cache, damage):
         data = json.loads(text)
         data["body"]["prepared"]["facts"]["title"] = "changed"  # the checksum no longer matches
         path.write_text(json.dumps(data))
-    assert prepared.cached(key, text, {}) is None
+    assert kept.cached(key, text, {}) is None
 
 
 def test_importing_bvpkit_imports_no_sympy():

@@ -23,10 +23,11 @@ from pathlib import Path
 import pytest
 
 import bvpkit
+import bvpkit.reduce.prepared
 from bvpkit.errors import ProgramError
+from bvpkit.io import kept
 from bvpkit.io.specfile import read_spec
 from bvpkit.programs import compiled, program
-from bvpkit.reduce import prepared
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = ROOT / "specs" / "pin_fin.toml"
@@ -70,7 +71,7 @@ def _paths(folder, monkeypatch):
     from bvpkit.reduce.form import standard_form
 
     system = folder / f"system-{standard_form(bvpkit.load(SPEC)).key()}-{compiled.code_stamp()}.json"
-    return system, prepared._file(prepared.spec_key(read_spec(SPEC), {}))
+    return system, kept._file(kept.spec_key(read_spec(SPEC), {}))
 
 
 @pytest.fixture(scope="module")
@@ -117,7 +118,7 @@ def test_a_planted_entry_in_the_old_source_format_never_runs(tmp_path, monkeypat
     key = standard_form(plain).key()
     system.write_text(json.dumps({"key": key, "source": payload, "pattern": [[False, True], [True, False]],
                                   "sides": [0, 1], "sha256": hashlib.sha256(payload.encode()).hexdigest()}))
-    body["key"] = prepared.spec_key(read_spec(SPEC), {})
+    body["key"] = kept.spec_key(read_spec(SPEC), {})
     inner = body["prepared"]
     inner["system"] = {**inner["system"], "source": payload}
     del inner["system"]["programs"]
@@ -313,7 +314,7 @@ def test_single_value_changes_of_a_signed_entrys_layout_never_give_an_internal_e
         node[at[-1]] = value
         _sign(problem, data)
         compiled._MEMORY.clear()
-        prepared._PROBLEMS.clear()
+        bvpkit.reduce.prepared._PROBLEMS.clear()
         compiled._NOTED.clear()
         code = main(["solve", str(SPEC)])
         out, err = capsys.readouterr()
@@ -404,7 +405,7 @@ def test_a_sweep_workers_preparation_with_a_hostile_program_is_refused(tmp_path,
     compiled._MEMORY.clear()
     body["system"]["programs"][0]["entries"][0][1] = ["getattr", "_y0", "_y1"]
     with pytest.raises(ProgramError, match="unknown operation 'getattr'"):
-        prepared.Prepared.from_plain(body).compiled
+        bvpkit.reduce.prepared.Prepared.from_plain(body).compiled
 
 
 # -- the source check -------------------------------------------------------------------------

@@ -327,7 +327,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     overrides = _constants(args.set)
     text = args.spec_text  # read once (see _main): the key, the check of a kept preparation, the problem
     from ..errors import BvpkitError, ProgramError
-    from ..reduce.prepared import cached, remember, spec_key
+    from .kept import cached, remember, spec_key
 
     key = spec_key(text, overrides)
     problem = cached(key, text, overrides)  # prepared by an earlier run: no parsing, no SymPy
