@@ -519,12 +519,14 @@ class Problem:
     def _same(self, p: sp.Expr, q: sp.Expr) -> bool:
         if p == q:
             return True
+        if p.has(sp.oo, -sp.oo) or q.has(sp.oo, -sp.oo):
+            return False  # inf and -inf are different ends (their float difference compares as "near")
         if p.is_number and q.is_number:
             try:
                 return abs(float(p) - float(q)) <= 1e-12 * max(1.0, abs(float(q)))
             except (TypeError, ValueError):
                 return False
-        return sp.simplify(p - q) == 0 if not (p.has(sp.oo) or q.has(sp.oo)) else False
+        return sp.simplify(p - q) == 0
 
     def which_point(self, point: sp.Expr) -> int | None:
         """Index of ``point`` among :attr:`points` (ends and interfaces), or None."""
