@@ -470,6 +470,23 @@ def _stretched(t: np.ndarray, ratio: float, left: bool, right: bool) -> np.ndarr
     return mesh
 
 
+def _golden(f, a: float, b: float, steps: int = 60) -> tuple[float, float]:  # noqa: ANN001
+    """The minimiser of ``f`` on ``[a, b]`` by golden-section search, and its value."""
+    ratio = (math.sqrt(5.0) - 1.0) / 2.0
+    c, d = b - ratio * (b - a), a + ratio * (b - a)
+    fc, fd = f(c), f(d)
+    for _ in range(steps):
+        if fc <= fd:
+            b, d, fd = d, c, fc
+            c = b - ratio * (b - a)
+            fc = f(c)
+        else:
+            a, c, fc = c, d, fd
+            d = a + ratio * (b - a)
+            fd = f(d)
+    return (c, fc) if fc <= fd else (d, fd)
+
+
 def _far_values(end: int, M: np.ndarray, c: np.ndarray) -> dict[str, float]:
     """The constants of an end's far-field map ``Y -> M Y + c`` by name."""
     values = [*np.asarray(M, float).ravel(), *np.asarray(c, float)]
@@ -539,14 +556,11 @@ def _euler_map(compiled, reference, k: np.ndarray, end: int, rows: tuple, users:
     grid = np.linspace(low, high, 33)
     values = [mismatch(s) for s in grid]
     best = int(np.argmin(values))
-    try:
-        from scipy.optimize import minimize_scalar
-
-        found = minimize_scalar(mismatch, bounds=(grid[max(best - 1, 0)], grid[min(best + 1, grid.size - 1)]),
-                                method="bounded", options={"xatol": 1e-10 * distance})
-        s, worst = (float(found.x), float(found.fun)) if found.fun <= values[best] else (grid[best], values[best])
-    except (ValueError, ArithmeticError):
-        s, worst = grid[best], values[best]
+    if not values[best] <= 4 * _EULER_MISMATCH:  # far from Euler type anywhere: no refinement
+        return None
+    s, worst = _golden(mismatch, grid[max(best - 1, 0)], grid[min(best + 1, grid.size - 1)])
+    if not worst <= values[best]:
+        s, worst = float(grid[best]), values[best]
     if not worst <= _EULER_MISMATCH:
         return None
     u = sigma * s
