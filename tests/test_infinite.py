@@ -184,3 +184,16 @@ def test_a_two_sided_condition_count_that_does_not_add_up_is_explained():
 def test_conditions_at_minus_and_plus_infinity_are_different_points():
     p = bvpkit.Problem(["y'' - y = -2*exp(-x**2)"], ["y(-inf) = 0", "y(inf) = 0"], ("-inf", "inf"))
     assert p.which_point(p.points[0]) == 0 and p.which_point(p.points[-1]) == 1
+
+
+def test_the_bundled_ribbon_front_gives_its_analytic_speed_and_width():
+    from pathlib import Path
+
+    spec = Path(__file__).resolve().parent.parent / "specs" / "ribbon_cure_front.toml"
+    sol = bvpkit.solve(bvpkit.load(spec))
+    assert sol.success, sol.message
+    D, r, a = 20.0, 5.0, 0.2  # the spec's constants
+    # McKean 1970 (analytic), in units: V = sqrt(2 D r) (1/2 - a); profile 1/(1 + exp(x/d)), d = sqrt(2 D/r),
+    # whose slope at 0 is -1/(4 d)
+    assert sol.outputs["front_speed_mm_per_s"] == pytest.approx(math.sqrt(2 * D * r) * (0.5 - a), rel=1e-7)
+    assert sol.outputs["front_width_mm"] == pytest.approx(4 * math.sqrt(2 * D / r), rel=1e-7)
