@@ -197,3 +197,14 @@ def test_the_bundled_ribbon_front_gives_its_analytic_speed_and_width():
     # whose slope at 0 is -1/(4 d)
     assert sol.outputs["front_speed_mm_per_s"] == pytest.approx(math.sqrt(2 * D * r) * (0.5 - a), rel=1e-7)
     assert sol.outputs["front_width_mm"] == pytest.approx(4 * math.sqrt(2 * D / r), rel=1e-7)
+
+
+def test_a_heated_sphere_in_an_infinite_medium_with_its_singular_centre():
+    # (r^2 T')' = -r^2 exp(-r), T'(0) = 0, T(inf) = 0; analytic (integrated twice by hand):
+    # T = (2 - exp(-r) (r + 2))/r, T(0) = 1; the far field falls like 2/r (algebraic)
+    p = bvpkit.Problem(["T'' + (2/r)*T' = -exp(-r)"], ["T'(0) = 0", "T(inf) = 0"], (0, "inf"), independent="r")
+    sol = bvpkit.solve(p, tol=1e-8)
+    assert sol.success, sol.message
+    r = np.array([0.5, 1.0, 5.0, 20.0])
+    assert sol.evaluate("T", at=r) == pytest.approx((2 - np.exp(-r) * (r + 2)) / r, abs=1e-8)
+    assert sol.evaluate("T(0)") == pytest.approx(1.0, abs=1e-8)

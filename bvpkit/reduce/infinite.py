@@ -320,7 +320,7 @@ class Infinite(Transform):
             if previous is not None:
                 change = truncation_change(
                     Start(compiled, previous.outcome.x, previous.outcome.y, previous.outcome.p, previous.k),
-                    Start(compiled, run.outcome.x, run.outcome.y, run.outcome.p, k))
+                    Start(compiled, run.outcome.x, run.outcome.y, run.outcome.p, run.k))
                 if change <= _SHARE_TRUNCATION * tol:
                     run.extra_error = change
                     run.notes["truncation_length"] = length
