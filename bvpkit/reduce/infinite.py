@@ -376,9 +376,9 @@ class Infinite(Transform):
 
         Several regions share one ``t``, and a point the old mesh holds for one region (the
         front of a travelling wave, near ``t = 1`` of the region on its left) would land in the
-        far field of another once moved: the mesh is kept as it was (measured on a front in
-        two regions, merging each region's moved mesh cost half as many Newton steps but grew
-        the mesh by 1.5 at each lengthening, and took twice as long in all)."""
+        far field of another once moved: merging each region's moved mesh keeps such points
+        in every region and grows the mesh at each lengthening, so the mesh is kept as it was
+        (collocation refines it where the moved solution asks)."""
         if layout.regions > 1:
             return t.copy()
         return _stretched(t, ratio, self.infinite[0], self.infinite[1])
