@@ -182,7 +182,7 @@ def _check_entry(prepared: Prepared) -> None:
         if recipe.kind == "expression" and fits(recipe.program, [("x", 1), ("p", 0), ("k", 0)], [order]):
             continue
         terms = recipe.conditions
-        if (recipe.kind == "polynomial" and all(whole(q, 0, layout.regions) and whole(j, 0, order - 1)
+        if (recipe.kind in ("polynomial", "levelled") and all(whole(q, 0, layout.regions) and whole(j, 0, order - 1)
                                                 for row in terms for q, j in row)
                 and (recipe.program is None if not terms else
                      fits(recipe.program, [("x", 1), ("p", 0), ("k", 0)], [sum(len(row) + 1 for row in terms)]))):
