@@ -69,7 +69,7 @@ class _State:
 
     nodes: np.ndarray
     stiff: bool
-    jacobian: np.ndarray | None = None  # single shooting's last Newton matrix (variational.secant_newton)
+    secant: object = None  # single shooting: its last Newton matrix (a variational.Secant)
 
 
 @dataclasses.dataclass
@@ -156,15 +156,13 @@ class Shooting(Method):
         if not isinstance(state, _State):
             return self._solve(refined)
         s = outcome.y[:, np.searchsorted(outcome.x, state.nodes[:-1])]
-        if state.jacobian is not None:
+        if state.secant is not None:
+            # one segment: the re-solve starts from the solve's own matrix and gives its states on
+            # the solve's halved mesh (what the estimate compares), with no output mesh of its own;
             # a tenth of the solve's own integration error is all the estimate needs
             rtol = max(_IVP_FLOOR, trial.tol * _ONE_SEGMENT_SHARE * 0.1)
-            # one segment: the re-solve starts from the solve's own matrix and gives its states on
-            # the solve's halved mesh (what the estimate compares), with no output mesh of its own
-            x = outcome.x
-            halved = np.empty(2 * x.size - 1)
-            halved[::2], halved[1::2] = x, 0.5 * (x[1:] + x[:-1])
-            return variational.secant_newton(self, refined, state.nodes, s, outcome.p, rtol, state.jacobian, halved)
+            return variational.reference(self, refined, state.nodes, s, outcome.p, rtol, state.secant, outcome.x,
+                                         trial.tol)
         rtol = max(_IVP_FLOOR, refined.tol * _IVP_SHARE)
         return self._newton(refined, state.nodes, s, outcome.p, rtol, state.stiff)
 

@@ -16,6 +16,7 @@ residual. Every other trial integrates the states alone.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import weakref
 from collections.abc import Callable
@@ -66,49 +67,109 @@ def point_system(compiled) -> PointSystem:  # noqa: ANN001
     return found
 
 
-def fused_rhs(point: PointSystem, p: np.ndarray, k: np.ndarray, t0: float, h: float, n: int, n_p: int,
-              sensitivities: bool, check: Callable[[float, np.ndarray, np.ndarray], None]) -> Callable:
-    """The right-hand side in ``tau`` on ``[0, 1]`` of one segment ``x = t0 + tau h``.
+def fused_rhs(point: PointSystem, p: np.ndarray, k: np.ndarray, n: int, n_p: int, sensitivities: bool,
+              limit: int, trouble: Callable[[float, np.ndarray, np.ndarray, int], None]) -> Callable:
+    """The right-hand side ``(x, z) -> dz/dx`` of the states, or of the variational system.
 
     With ``sensitivities`` the flat vector holds the states, then per state row ``i`` the row
-    ``i`` of ``Phi`` and of ``Psi`` side by side (as :meth:`Shooting._flow` lays them out);
-    ``check(x, y, f)`` is called on every evaluation and raises on a blow-up.
+    ``i`` of ``Phi`` and of ``Psi`` side by side (as :meth:`Shooting._flow` lays them out).
+    One cheap test per call (a dot product is finite only when every term is, and overflows
+    once the slopes pass 1e154, about where a trajectory blows up) and a count of calls;
+    ``trouble(x, y, f, calls)`` is called when either fails, and raises when something is
+    wrong.
     """
     rhs, jac, pjac = point.rhs, point.jac, point.pjac
     width = n + n_p
+    calls = [0]
 
     if not sensitivities:
-        def states(tau, z):  # noqa: ANN001, ANN202
-            x = t0 + tau * h
-            f = rhs(x, z, p, k)
-            check(x, z, f)
-            return f * h
+        def states(x, y):  # noqa: ANN001, ANN202
+            f = rhs(x, y, p, k)
+            calls[0] += 1
+            if not math.isfinite(f.dot(f)) or calls[0] > limit:
+                trouble(x, y, f, calls[0])
+            return f
 
         return states
 
-    def variational(tau, z):  # noqa: ANN001, ANN202
-        x = t0 + tau * h
+    def variational(x, z):  # noqa: ANN001, ANN202
         y = z[:n]
         f = rhs(x, y, p, k)
-        check(x, y, f)
+        calls[0] += 1
+        if not math.isfinite(f.dot(f)) or calls[0] > limit:
+            trouble(x, y, f, calls[0])
         d = jac(x, y, p, k) @ z[n:].reshape(n, width)
         if n_p:
             d[:, n:] += pjac(x, y, p, k)
         out = np.empty(z.size)
         out[:n] = f
         out[n:] = d.ravel()
-        out *= h
         return out
 
     return variational
 
 
+class _InTau:
+    """A dense output in ``x`` on ``[t0, t0 + h]`` read in ``tau = (x - t0) / h`` (what the flows give)."""
+
+    def __init__(self, solution, t0: float, h: float):  # noqa: ANN001
+        self.solution, self.t0, self.h = solution, t0, h
+        self.ts = (np.asarray(solution.ts) - t0) / h
+
+    def __call__(self, tau):  # noqa: ANN001, ANN204
+        return dense_values(self.solution, self.t0 + np.asarray(tau, float) * self.h)
+
+
+@dataclasses.dataclass
+class Secant:
+    """What a converged single-shooting solve hands to its error estimate: its last Newton
+    matrix, and how much its last exact sensitivities grew (``max |Phi|`` at the far end)."""
+
+    matrix: np.ndarray
+    growth: float
+
+
+def reference(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,  # noqa: ANN001
+              secant: Secant, x: np.ndarray, tol: float) -> Outcome:
+    """The error estimate's reference for a converged single-shooting solve on mesh ``x``.
+
+    One integration with the tighter ``rtol`` from the solve's start ``s``, ``p``, and one
+    Newton step with the solve's own matrix: when that step, times the growth of the
+    sensitivities, moves the trajectory by less than a hundredth of the tolerance ``tol``
+    the tighter trajectory itself is the reference (a second integration after the step
+    otherwise, and full Newton iterations if that one still moves). The reference holds the
+    states on the halved mesh of ``x`` (what :func:`~bvpkit.methods.base.compare` reads).
+    """
+    from scipy.linalg import lu_factor, lu_solve
+
+    from .shooting import _BlowUp
+
+    c, n = trial.compiled, trial.compiled.n
+    halved = np.empty(2 * x.size - 1)
+    halved[::2], halved[1::2] = x, 0.5 * (x[1:] + x[:-1])
+    u = np.concatenate([s[:, 0], p])
+    enough = 0.01 * tol / max(1.0, secant.growth)  # a start error this small moves the trajectory < tol / 100
+    try:
+        for _ in range(2):
+            flow = one_segment_flow(trial, nodes, u[:n, None], u[n:], rtol, True, False)
+            r = c.bc(u[:n], flow.ends[:, -1], u[n:], trial.k)
+            step = _solve(lu_factor, lu_solve, secant.matrix, -r)
+            if step is None:
+                break
+            if float(np.max(np.abs(step) / (1.0 + np.abs(u)), initial=0.0)) <= enough:
+                return _finish(shooting, trial, nodes, u, n, rtol, 1, secant, halved, flow)
+            u = u + step
+    except _BlowUp:
+        pass
+    return secant_newton(shooting, trial, nodes, s, p, rtol, secant, halved)
+
+
 def secant_newton(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,  # noqa: ANN001
-                  jacobian: np.ndarray | None = None, at: np.ndarray | None = None) -> Outcome:
+                  start: Secant | None = None, at: np.ndarray | None = None) -> Outcome:
     """Newton's method on the boundary residual of one segment, the matrix kept by Broyden's updates.
 
     ``shooting`` is the :class:`~bvpkit.methods.shooting.Shooting` method (its finish and
-    its messages); ``s`` is ``(n, 1)``; ``jacobian`` a matrix of a nearby solve to start
+    its messages); ``s`` is ``(n, 1)``; ``start`` the matrix of a nearby solve to start
     from (None: integrate the sensitivities first). The converged outcome keeps its last
     matrix in its workspace for the error estimate's re-solve. With ``at`` (points of ``t``)
     the converged trajectory is given at those points alone, with no output mesh of its
@@ -128,12 +189,14 @@ def secant_newton(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: n
         return Outcome(status, message, x_guess, y_guess, np.asarray(trial.p, float), iterations=iterations)
 
     def residual(u: np.ndarray, sensitivities: bool, dense: bool = False):  # noqa: ANN202
-        start, q = u[:n, None], u[n:]
-        flow = one_segment_flow(trial, nodes, start, q, rtol, dense, sensitivities)
-        r = c.bc(start[:, 0], flow.ends[:, -1], q, k)
+        nonlocal growth
+        begin, q = u[:n, None], u[n:]
+        flow = one_segment_flow(trial, nodes, begin, q, rtol, dense, sensitivities)
+        r = c.bc(begin[:, 0], flow.ends[:, -1], q, k)
         if not sensitivities:
             return r, None, flow
-        a, b, dp = c.bc_jac(start[:, 0], flow.ends[:, -1], q, k)
+        growth = float(flow.max_growth[0])
+        a, b, dp = c.bc_jac(begin[:, 0], flow.ends[:, -1], q, k)
         matrix = a + b @ flow.phi[:, :, -1]
         if n_p:
             matrix = np.hstack([matrix, b @ flow.psi[:, :, -1] + np.reshape(dp, (b.shape[0], -1))])
@@ -146,32 +209,14 @@ def secant_newton(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: n
         return float(np.max(np.abs(step) / (1.0 + np.abs(u)))) if step.size else 0.0
 
     u = np.concatenate([s[:, 0], p])
-    if at is not None and jacobian is not None:
-        # The error estimate's reference: from a converged solve, one tighter integration (and
-        # a second after one Newton step, when the first moves the start) is usually enough.
-        try:
-            r, _, flow = residual(u, False, dense=True)
-            step = solve(jacobian, -r)
-            if step is not None and relative(step, u) > small:
-                first = relative(step, u)
-                u_next = u + step
-                r, _, flow = residual(u_next, False, dense=True)
-                step_next = solve(jacobian, -r)
-                step = step_next if step_next is not None and relative(step_next, u_next) <= max(0.1 * first, small) \
-                    else None
-                u = u_next
-            if step is not None:
-                return _finish(shooting, trial, nodes, u, n, rtol, 1, jacobian, at, flow)
-        except _BlowUp:
-            pass
-        u = np.concatenate([s[:, 0], p])  # otherwise Newton's method in full
-    fresh = jacobian is None
+    fresh = start is None
+    growth = 1.0 if start is None else start.growth
     try:
         r, matrix, _ = residual(u, fresh)
     except _BlowUp as err:
         return failure(Status.INTEGRATION_FAILED, shooting._blowup_message(trial, err, "from the guess"), 0)
     if not fresh:
-        matrix = np.array(jacobian, float)
+        matrix = np.array(start.matrix, float)
     iterations, last_size = 0, math.inf
     while iterations < _MAX_NEWTON:
         if trial.out_of_time():
@@ -221,7 +266,7 @@ def secant_newton(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: n
                                    iterations)
                 continue
             if norm <= 10 * rtol:  # already at the integrator's noise level: converged
-                return _finish(shooting, trial, nodes, u, n, rtol, iterations, matrix, at, None)
+                return _finish(shooting, trial, nodes, u, n, rtol, iterations, Secant(matrix, growth), at, None)
             if last_error is not None:
                 return failure(Status.INTEGRATION_FAILED,
                                shooting._blowup_message(trial, last_error, "at every trial step of Newton's method"),
@@ -233,7 +278,7 @@ def secant_newton(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: n
         u, r = trial_u, r_new
         last_size = size
         if lam == 1.0 and final:
-            return _finish(shooting, trial, nodes, u, n, rtol, iterations, matrix, at, flow)
+            return _finish(shooting, trial, nodes, u, n, rtol, iterations, Secant(matrix, growth), at, flow)
         if norm_new > _SLOW * norm and not fresh:  # Broyden's updates stall: an exact matrix instead
             matrix, fresh = _exact(residual, u), True
             if matrix is None:
@@ -275,12 +320,12 @@ def _exact(residual, u: np.ndarray) -> np.ndarray | None:  # noqa: ANN001
 
 
 def _finish(shooting, trial: Trial, nodes: np.ndarray, u: np.ndarray, n: int, rtol: float, iterations: int,  # noqa: ANN001
-            matrix: np.ndarray, at: np.ndarray | None, flow) -> Outcome:  # noqa: ANN001
+            secant: Secant, at: np.ndarray | None, flow) -> Outcome:  # noqa: ANN001
     """The converged outcome: the method's output mesh, or the trajectory at ``at`` alone."""
     if at is None:
         outcome = shooting._finish(trial, nodes, u[:n, None], u[n:], rtol, False, iterations, None, flow=flow)
         if outcome.ok:
-            outcome.workspace.jacobian = matrix
+            outcome.workspace.secant = secant
         return outcome
     from .shooting import _BlowUp
 
@@ -315,26 +360,23 @@ def one_segment_flow(trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarr
     start[:n] = s[:, 0]
     if sensitivities:
         start[n:].reshape(n, n + n_p)[np.arange(n), np.arange(n)] = 1.0
-    calls = [0]
 
-    def check(x, y, f):  # noqa: ANN001, ANN202
-        calls[0] += 1
-        # one cheap test per call: a dot product is finite only when every term is (and
-        # overflows once the slopes pass 1e154, about where the trajectory blows up)
-        if not math.isfinite(f.dot(f)) or calls[0] > _MAX_CALLS:
-            if calls[0] > _MAX_CALLS:
-                raise _BlowUp(float(x), -1, f"the integration needed more than {_MAX_CALLS} evaluations (the "
-                              "step size is collapsing or the problem is too stiff)")
-            if not np.all(np.isfinite(f)):
-                raise _BlowUp(float(x), int(np.argmax(~np.isfinite(f))), "the right-hand side became NaN or inf", 0)
-            if np.abs(y).max() >= _BLOWUP:
-                raise _BlowUp(float(x), int(np.argmax(np.abs(y))), "the trajectory blew up", 0)
+    def trouble(x, y, f, calls):  # noqa: ANN001, ANN202
+        if calls > _MAX_CALLS:
+            raise _BlowUp(float(x), -1, f"the integration needed more than {_MAX_CALLS} evaluations (the "
+                          "step size is collapsing or the problem is too stiff)")
+        if not np.all(np.isfinite(f)):
+            raise _BlowUp(float(x), int(np.argmax(~np.isfinite(f))), "the right-hand side became NaN or inf", 0)
+        if np.abs(y).max() >= _BLOWUP:
+            raise _BlowUp(float(x), int(np.argmax(np.abs(y))), "the trajectory blew up", 0)
 
-    fun = fused_rhs(point_system(c), np.asarray(p, float), np.asarray(k, float), t0, h, n, n_p, sensitivities, check)
-    result = solve_ivp(fun, (0.0, 1.0), start, method="DOP853", rtol=rtol, atol=rtol, dense_output=dense)
+    # integrated in the standard variable itself: the same steps as in tau, no scaling per call
+    fun = fused_rhs(point_system(c), np.asarray(p, float), np.asarray(k, float), n, n_p, sensitivities, _MAX_CALLS,
+                    trouble)
+    result = solve_ivp(fun, (t0, t0 + h), start, method="DOP853", rtol=rtol, atol=rtol, dense_output=dense)
     if result.status != 0:
-        tau = float(result.t[-1]) if result.t.size else 0.0
-        raise _BlowUp(t0 + tau * h, -1, f"the integrator's step size collapsed ({result.message.rstrip('.')})")
+        where = float(result.t[-1]) if result.t.size else t0
+        raise _BlowUp(where, -1, f"the integrator's step size collapsed ({result.message.rstrip('.')})")
     end = result.y[:, -1]
     if not np.abs(end[:n]).max() < _BLOWUP:  # grew past the limit with slopes still below the test's
         raise _BlowUp(t0 + h, int(np.argmax(~(np.abs(end[:n]) < _BLOWUP))), "the trajectory blew up", 0)
@@ -344,7 +386,7 @@ def one_segment_flow(trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarr
         growth = np.abs(phi).reshape(n * n, 1).max(axis=0)
     else:
         phi, psi, growth = np.zeros((n, n, 1)), np.zeros((n, n_p, 1)), np.ones(1)
-    return _Flow(end[:n, None], phi, psi, result.sol if dense else None, growth)
+    return _Flow(end[:n, None], phi, psi, _InTau(result.sol, t0, h) if dense else None, growth)
 
 
 def dense_values(solution, t: np.ndarray) -> np.ndarray:
@@ -356,6 +398,8 @@ def dense_values(solution, t: np.ndarray) -> np.ndarray:
     it is.
     """
     t = np.asarray(t, float)
+    if isinstance(solution, _InTau):
+        return solution(t)
     stacked = getattr(solution, "_stacked_steps", None)
     if stacked is None:
         parts = getattr(solution, "interpolants", None)
