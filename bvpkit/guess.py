@@ -128,8 +128,16 @@ class GuessRecipe:
 _FUNCTIONS: dict[str, Any] = {}
 
 
+_BY_IDENTITY: dict[int, tuple[dict, Any]] = {}
+
+
 def _function(program: dict) -> Any:
     """The callable of a quantity's program (built once per program text)."""
+    # the same program object again (a recipe's, on every solve): no need to print it to a key;
+    # the entry keeps the object alive, so its id cannot be reused by another
+    known = _BY_IDENTITY.get(id(program))
+    if known is not None and known[0] is program:
+        return known[1]
     import json
 
     key = json.dumps(program, sort_keys=True)
@@ -140,6 +148,9 @@ def _function(program: dict) -> Any:
         if len(_FUNCTIONS) > 4_000:
             _FUNCTIONS.clear()
         function = _FUNCTIONS[key] = build_quantity(program)
+    if len(_BY_IDENTITY) > 4_000:
+        _BY_IDENTITY.clear()
+    _BY_IDENTITY[id(program)] = (program, function)
     return function
 
 
