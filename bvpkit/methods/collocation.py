@@ -250,6 +250,7 @@ class Collocation(Method):
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
     rank = 0
     strengths = frozenset({"layers", "default"})
+    order = 4
     takes_singular_term = True
 
     def _solve_and_verify(self, trial: Trial) -> Outcome:
