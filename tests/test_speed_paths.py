@@ -113,3 +113,80 @@ def test_auto_picks_the_sixth_order_only_where_its_cost_model_says_it_pays():
     x = np.linspace(0, 1, 41)
     trial = Trial(compiled, x, np.vstack([x, np.ones_like(x)]), np.zeros(0), np.array([1e-3]), 1e-12)
     assert strategy.plan(trial).steps[0].name == "collocation"
+
+
+# -- many points of a sweep in one Newton system -----------------------------------------------------
+def _fin():
+    return bvpkit.Problem(["T'' = m**2*T"], ["T(0) = 1", "T'(1) + H*T(1) = 0"], (0, 1),
+                          constants={"m": 1.0, "H": 1.0}, outputs={"slope": "T'(0)"})
+
+
+def _fin_slope(m: float, h: float) -> float:
+    # analytic: theta = cosh(m(1-x)) + (H/m) sinh(m(1-x)), normalised
+    return -m * (math.sinh(m) + h / m * math.cosh(m)) / (math.cosh(m) + h / m * math.sinh(m))
+
+
+def test_points_solved_together_are_what_each_solve_alone_gives():
+    from bvpkit import batched
+
+    prepared = bvpkit.prepare(_fin())
+    assert batched.applies(prepared, {})
+    first = bvpkit.solve(prepared.with_constants(m=1.0, H=0.5), tol=1e-8)
+    points = [{"m": m, "H": 0.5} for m in np.linspace(1.5, 9.0, 9)]
+    together = batched.solve_points(prepared, points, first, {"tol": 1e-8})
+    assert all(sol is not None for sol in together)  # the joint refinement reaches every point
+    for point, sol in zip(points, together):
+        alone = bvpkit.solve(prepared.with_constants(**point), tol=1e-8)
+        assert sol.status.word == alone.status.word == "solved"
+        assert sol.method == "collocation" and sol.message.startswith("converged in ")
+        exact = _fin_slope(point["m"], point["H"])
+        assert abs(sol.outputs["slope"] - exact) <= 1e-7 * abs(exact)
+        assert 0 < sol.diagnostics.error_estimate <= 1e-8
+        # the stability constant of its own block, as a solve alone computes it (meshes differ a little)
+        assert sol.diagnostics.condition == pytest.approx(alone.diagnostics.condition, rel=0.05)
+
+
+def test_a_point_the_batch_cannot_settle_is_left_to_be_solved_alone():
+    from bvpkit import batched
+
+    problem = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 1.0},
+                             outputs={"slope": "y'(0)"}, settings={"homotopy": "off"})  # a quick failure alone
+    prepared = bvpkit.prepare(problem)
+    first = bvpkit.solve(prepared, tol=1e-6)
+    # lam = 3.6 is past the fold (3.5138, Bratu's critical value): no solution, the batch leaves it
+    together = batched.solve_points(prepared, [{"lam": 1.2}, {"lam": 3.6}, {"lam": 1.4}], first, {})
+    assert together[1] is None and together[0] is not None and together[2] is not None
+    # analytic: t tanh(t/4) on the lower branch
+    assert together[2].outputs["slope"] == pytest.approx(bratu_slope(1.4, "lower"), rel=1e-5)
+    # and in a sweep that point is still reported as a failure of its own
+    result = bvpkit.sweep(problem, {"lam": [1.0, 1.2, 3.6, 1.4]}, workers=1)
+    rows = {row["lam"]: row for row in result.table}
+    assert not rows[3.6]["success"] and rows[1.4]["success"] and rows[1.2]["success"]
+
+
+def test_a_singular_term_is_taken_by_the_batch():
+    from bvpkit import batched
+
+    # the pellet of tests/test_sweep.py: c'' + (2/r) c' = phi^2 c, analytic effectiveness
+    problem = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c'(1) = Bi*(1 - c(1))"], (0, 1),
+                             independent="r", constants={"phi": 1.0, "Bi": 10.0},
+                             outputs={"effectiveness": "3*c'(1)/phi**2"})
+    prepared = bvpkit.prepare(problem)
+    first = bvpkit.solve(prepared, tol=1e-8)
+    phis = [1.5, 3.0, 6.0]
+    together = batched.solve_points(prepared, [{"phi": p, "Bi": 10.0} for p in phis], first, {"tol": 1e-8})
+    for phi, sol in zip(phis, together):
+        f = phi / math.tanh(phi) - 1  # analytic: 3 f / (phi^2 (1 + f/Bi)), f = phi coth(phi) - 1
+        assert sol is not None and sol.outputs["effectiveness"] == pytest.approx(3 * f / (phi**2 * (1 + f / 10)),
+                                                                                 rel=1e-7)
+
+
+def test_the_batch_declines_what_it_does_not_take():
+    from bvpkit import batched
+
+    with_parameter = bvpkit.Problem(["y'' = -p**2*y"], ["y(0) = 0", "y'(0) = 1", "y(1) = 0"], (0, 1),
+                                    unknown_parameters={"p": 3.0})
+    periodic = bvpkit.Problem(["y'' = -y + a"], ["y(0) = y(1)", "y'(0) = y'(1)"], (0, 1), constants={"a": 1.0})
+    assert not batched.applies(bvpkit.prepare(with_parameter), {})
+    assert not batched.applies(bvpkit.prepare(periodic), {})
+    assert not batched.applies(bvpkit.prepare(_fin()), {"method": "single_shooting"})
