@@ -231,7 +231,7 @@ def small_charts(repeats: int = 5, tol: float = 1e-6) -> str:
 
 def _counted(prepared, grid) -> int:  # noqa: ANN001
     """How many points of one more run of the chart the batch settled (counted by wrapping it)."""
-    import bvpkit.batched as batched
+    import bvpkit.families.batched as batched
 
     original, count = batched.solve_points, [0]
 

@@ -11,7 +11,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 import bvpkit
-from bvpkit.diagnostics import _real_parts
+from bvpkit.methods.diagnostics import _real_parts
 from bvpkit.methods.collocation import _pieces, _split
 from bvpkit.methods.variational import dense_values, point_system, subdivide
 
@@ -106,7 +106,7 @@ def test_auto_picks_the_sixth_order_only_where_its_cost_model_says_it_pays():
     assert tight.evaluate("y'(0)") == pytest.approx(bratu_slope(1.0, "lower"), rel=1e-10)
     # a stiff problem keeps the adaptive 4th order whatever the tolerance
     layer = bvpkit.Problem(["eps*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1), constants={"eps": 1e-3})
-    from bvpkit import strategy
+    from bvpkit.solver import strategy
     from bvpkit.methods.base import Trial
 
     compiled = bvpkit.prepare(layer).compiled
@@ -127,7 +127,7 @@ def _fin_slope(m: float, h: float) -> float:
 
 
 def test_points_solved_together_are_what_each_solve_alone_gives():
-    from bvpkit import batched
+    from bvpkit.families import batched
 
     prepared = bvpkit.prepare(_fin())
     assert batched.applies(prepared, {})
@@ -147,7 +147,7 @@ def test_points_solved_together_are_what_each_solve_alone_gives():
 
 
 def test_a_point_the_batch_cannot_settle_is_left_to_be_solved_alone():
-    from bvpkit import batched
+    from bvpkit.families import batched
 
     problem = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 1.0},
                              outputs={"slope": "y'(0)"}, settings={"homotopy": "off"})  # a quick failure alone
@@ -165,7 +165,7 @@ def test_a_point_the_batch_cannot_settle_is_left_to_be_solved_alone():
 
 
 def test_a_singular_term_is_taken_by_the_batch():
-    from bvpkit import batched
+    from bvpkit.families import batched
 
     # the pellet of tests/test_sweep.py: c'' + (2/r) c' = phi^2 c, analytic effectiveness
     problem = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c'(1) = Bi*(1 - c(1))"], (0, 1),
@@ -182,7 +182,7 @@ def test_a_singular_term_is_taken_by_the_batch():
 
 
 def test_the_batch_declines_what_it_does_not_take():
-    from bvpkit import batched
+    from bvpkit.families import batched
 
     with_parameter = bvpkit.Problem(["y'' = -p**2*y"], ["y(0) = 0", "y'(0) = 1", "y(1) = 0"], (0, 1),
                                     unknown_parameters={"p": 3.0})

@@ -27,8 +27,8 @@ import math
 import numpy as np
 import scipy.sparse as sparse
 
-from ..diagnostics import hermite, survey
-from ..discrete import SingularMatrix, factor_blocks
+from .diagnostics import hermite, survey
+from .discrete import SingularMatrix, factor_blocks
 from ..status import Status
 from . import variational
 from .base import Method, Outcome, Trial
