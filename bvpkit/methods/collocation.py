@@ -364,7 +364,9 @@ class Collocation(Method):
                     floor = float(np.max(rms[noisy]))
                     wanted = rms.copy()
                     wanted[noisy] = 0.0
-            pieces = _pieces(wanted, tol)
+            # the predicted factor reads the residual of a solution of this mesh's equations; an
+            # iterate Newton did not settle predicts nothing: one or two nodes per interval then
+            pieces = _pieces(wanted, tol) if settled else np.where(wanted >= 100 * tol, 3, np.where(wanted > tol, 2, 1))
             added = int(np.sum(pieces - 1))
             if x.size + added > trial.max_nodes:
                 code = 1
