@@ -292,7 +292,7 @@ def test_each_path_reaches_blasius_on_a_finite_domain(which):
     assert paths["_reach"].start == pytest.approx(1 / 12)  # from a domain of unit length
     outcome, how = homotopy.follow(prepared, paths[which], trial)
     assert outcome.ok and int(how.split()[0]) >= 3, outcome.message
-    sol = driver.settle(prepared, k, outcome, [], "", 0.0, 1e-8)
+    sol = driver.settle(prepared, driver.Run(outcome, k, [], "", 1e-8), 0.0)
     assert sol.evaluate("f''(0)") == pytest.approx(0.3320573362, abs=2e-9)  # Boyd 1999, as above
 
 

@@ -14,12 +14,14 @@ own stability constant.
 A point the batch does not settle (Newton not converged from the shared start, a residual
 that asks for more nodes, an estimate above the tolerance) is left to the caller, which
 solves it alone as before. A settled point becomes a :class:`~bvpkit.solver.solution.Solution`
-through :func:`bvpkit.solver.driver.settle`, the one place an outcome becomes a solution, so its
+through :func:`bvpkit.solver.settle.settle`, the one place an outcome becomes a solution, so its
 status, message and estimate are what a solve of it alone on that mesh gives.
 
 The batch takes what collocation's banded path takes without extra unknowns: no unknown
-parameters, separated conditions (each reads one end), a finite domain, up to
-:data:`~bvpkit.methods.discrete.BAND_LIMIT` states; a singular term ``S y / t`` is taken, with its
+parameters, separated conditions (each reads one end), up to
+:data:`~bvpkit.methods.discrete.BAND_LIMIT` states, and problem classes without numerical
+hooks (a loop around the solve such as an infinite end's, or a verdict such as an
+eigenvalue's mode, stays with the driver); a singular term ``S y / t`` is taken, with its
 limit at ``t = 0``. :func:`applies` says whether a prepared problem qualifies.
 """
 
@@ -44,14 +46,22 @@ _MAX_ITERATIONS = 6
 _SIGMA, _TAU, _TRIALS = 0.2, 0.5, 4
 
 
+#: The numerical hooks of a problem class (:class:`bvpkit.reduce.transform.Transform`): a class
+#: that has any of them (a loop around the solve, a verdict, its own start or constants) is
+#: solved point by point, where the driver runs them.
+_HOOKS = ("constants", "start", "around", "check", "along", "describe", "ends")
+
+
 def applies(prepared, options: Mapping[str, Any]) -> bool:  # noqa: ANN001 - a Prepared
     """Whether the points of ``prepared`` can be solved together (see the module docstring)."""
     from ..generated.compiled import CompiledSystem
+    from ..reduce.transform import Transform
 
     compiled = prepared.compiled
-    layout = compiled.layout
-    return (type(compiled) is CompiledSystem and not any(prepared.infinite) and compiled.n_parameters == 0
-            and layout.eigenvalue is None and compiled.n <= BAND_LIMIT and bool(np.all(compiled.bc_sides < 2))
+    plain = all(getattr(type(t), hook, None) is getattr(Transform, hook) for t in prepared.transforms
+                for hook in _HOOKS)
+    return (plain and type(compiled) is CompiledSystem and compiled.n_parameters == 0
+            and compiled.n <= BAND_LIMIT and bool(np.all(compiled.bc_sides < 2))
             and not sparse_pays(compiled.jac_pattern)
             and options.get("method", "auto") in ("auto", "collocation"))
 
@@ -387,14 +397,14 @@ def solve_points(prepared, points: Sequence[Mapping[str, float]], start, options
     round, on the mesh refined where any of them asked (their solutions carried over); a
     point whose Newton iteration fails is left to the caller. A value refused by the problem
     gives None there too (the caller says why)."""
+    from ..language.options import SolveOptions
     from ..methods.collocation import _pieces, _split
-    from ..solver.driver import DEFAULT_MAX_NODES, DEFAULT_TOL, settle
+    from ..solver.settle import Run, settle
 
     began = time.perf_counter()
     out: list = [None] * len(points)
-    tol = float(options.get("tol", prepared.settings.get("tol", DEFAULT_TOL)))
-    verify = bool(options.get("verify", prepared.settings.get("verify", True)))
-    max_nodes = int(options.get("max_nodes", prepared.settings.get("max_nodes", DEFAULT_MAX_NODES)))
+    chosen = SolveOptions.make(prepared.settings, options)  # as a solve of one point reads them
+    tol, verify, max_nodes = chosen.tol, chosen.verify, chosen.max_nodes
     heres, index = [], []
     for i, point in enumerate(points):
         try:
@@ -458,6 +468,7 @@ def solve_points(prepared, points: Sequence[Mapping[str, float]], start, options
         attempt = Attempt(method="collocation", reason=reason, status=Status.SOLVED.word, message=outcome.message,
                           iterations=outcome.iterations, nodes=int(outcome.x.size), seconds=seconds,
                           domain=(math.nan, math.nan), error_estimate=outcome.error_estimate)
-        out[index[position]] = settle(heres[position], ks_all[position], outcome, [attempt],
-                                      f"chose collocation: {reason}", seconds + time.perf_counter() - started, tol)
+        run = Run(outcome, ks_all[position], [attempt], f"chose collocation: {reason}", tol,
+                  independent=prepared.layout.independent)
+        out[index[position]] = settle(heres[position], run, seconds + time.perf_counter() - started)
     return out

@@ -30,7 +30,7 @@ from .._output import json_ready, write_columns
 from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
-from ..solver.driver import DEFAULT_TOL, settle
+from ..solver.driver import Run, options, settle
 from ..errors import OptionError, closest
 from ..methods.base import Outcome, Trial, compare
 from ..reduce.prepared import Prepared, prepare
@@ -191,7 +191,7 @@ def fold_curve(
         raise OptionError("start and stop must differ")
     requested = sorted({_number(v, "a value of at") for v in (at or [])})
     angle = MAX_ANGLE if max_angle is None else _number(max_angle, "max_angle")
-    tol = float(tol if tol is not None else prepared.settings.get("tol", DEFAULT_TOL))
+    tol = options(prepared.settings, {"tol": tol}).tol
     labels = _resolve_outputs(prepared, outputs)
     curve = FoldCurve(name, along, labels)
     started = time.perf_counter()
@@ -448,5 +448,6 @@ class _Follower:
         # constant says nothing about this point, which the bordered system fixes well
         outcome.condition = math.nan
         here = self.prepared.with_constants(**{self.name: float(z[-2]), self.along: float(z[-1])})
-        return settle(here, k, outcome, [attempt], "a fold followed in two constants", 0.0, self.tol)
+        return settle(here, Run(outcome, k, [attempt], "a fold followed in two constants", self.tol, here.independent),
+                      0.0)
 

@@ -138,6 +138,7 @@ def _abandoned_check():  # noqa: ANN202 - a callable returning bool
 def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     """Solve one chunk in order, each point seeded by the previous one (runs in a worker)."""
     from ..solver.driver import solve
+    from .continuation import trace  # the path follower of the selector's continuation
 
     prepared = _worker_problem(unit)
     named = {text: name for name, text in prepared.outputs.items()}
@@ -165,13 +166,13 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
             elif previous is not None and "method" not in options:
                 # the neighbour's method, started from its solution: no new plan (and no survey)
                 # while it works; the selector's full plan when it does not
-                sol = solve(here, guess=previous, method=previous.method, **options)
+                sol = solve(here, guess=previous, method=previous.method, follow=trace, **options)
                 if not sol.success:
-                    sol = solve(here, guess=previous, **options)
+                    sol = solve(here, guess=previous, follow=trace, **options)
             else:
-                sol = solve(here, guess=previous, **options)
+                sol = solve(here, guess=previous, follow=trace, **options)
             if not sol.success and previous is not None:
-                sol = solve(here, **options)  # a cold start as a second chance
+                sol = solve(here, follow=trace, **options)  # a cold start as a second chance
         except Exception as err:  # noqa: BLE001 - a point that raises is stored as failed
             rows.append(_row(point, {}, False, "bad_input", "", math.nan, f"{type(err).__name__}: {err}", 0,
                              time.perf_counter() - started))

@@ -33,7 +33,9 @@ from .compiled import (
 )
 from ..errors import ProgramError
 from .program import check_source
-from ..reduce.form import StandardForm, X
+
+#: The method variable t (named _x in generated code, as every method calls it x).
+X = sp.Symbol("_x", real=True)
 
 # names of compiled.py and program.py that code and tests reach through this module
 __all__ = ["CACHE_VARIABLE", "CompiledSystem", "check_source", "compile_expressions", "compile_system",
@@ -189,7 +191,7 @@ def _function_program(
     return program
 
 
-def _bc_sides(form: StandardForm) -> np.ndarray:
+def _bc_sides(form) -> np.ndarray:
     sides = []
     ya, yb, p = set(form.ya), set(form.yb), set(form.p)  # once: the loop stays linear in the size
     for e in form.conditions:
@@ -253,7 +255,7 @@ def _derivatives(exprs, symbols) -> dict:  # noqa: ANN001
     return found
 
 
-def _system_programs(form: StandardForm) -> tuple[list[dict[str, Any]], np.ndarray]:
+def _system_programs(form) -> tuple[list[dict[str, Any]], np.ndarray]:
     """Programs of the standard form's callables: ``rhs``, its Jacobians in ``y``, ``p`` and the
     constants ``k`` (continuation frees a constant by reading its column), the conditions and
     their Jacobians, the singular matrix and the region maps."""
@@ -288,7 +290,7 @@ def _system_programs(form: StandardForm) -> tuple[list[dict[str, Any]], np.ndarr
     return programs, pattern
 
 
-def compile_system(form: StandardForm) -> CompiledSystem:
+def compile_system(form) -> CompiledSystem:
     """Generate (or fetch from the in-process or disk cache) the callables of ``form``.
 
     The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is

@@ -40,6 +40,10 @@ def note(message: str) -> None:
         _LOG.warning(message)
 
 
+#: What each need of a system is, in words (refusals of a method that does not take it).
+NEEDS = {"singular_term": "the term S y/(x - a) singular at the left end"}
+
+
 class CompiledSystem:
     """The numerical callables of a standard form (see :class:`~bvpkit.reduce.form.StandardForm`):
     what every method calls.
@@ -86,6 +90,12 @@ class CompiledSystem:
             self.kjac = functools.partial(self._flat_singular, functions["kjac"])
         else:
             self.rhs, self.jac, self.pjac, self.kjac = (functions[name] for name in ("rhs", "jac", "pjac", "kjac"))
+
+    @property
+    def needs(self) -> frozenset[str]:
+        """What a method must take to solve this system beyond a plain standard form
+        (``"singular_term"``: the term ``S Y / t``); methods declare what they take."""
+        return frozenset({"singular_term"}) if self.layout.singular else frozenset()
 
     def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
         f = self._f

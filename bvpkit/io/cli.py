@@ -297,7 +297,7 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
-    from ..solver.driver import solve
+    from ..public import solve
     from ..errors import OptionError
     from ..reduce.prepared import cached, prepare, remember, spec_key
 

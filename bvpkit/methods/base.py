@@ -14,7 +14,7 @@ Contract of a method (subclass :class:`Method`):
    two to estimate the error of ``outcome``, and tightens the tolerance when the estimate
    misses it. A method need not know how the estimate is used.
 
-4. Class attributes declare what the method takes and is good at (``takes_singular_term``,
+4. Class attributes declare what the method takes and is good at (``takes``,
    ``strengths``, ``rank``); the selector filters and orders on them, and no module outside
    ``methods/`` tests a method's name.
 
@@ -32,7 +32,7 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..generated.compiled import CompiledSystem
+from ..generated.compiled import NEEDS, CompiledSystem
 from .diagnostics import hermite
 from .discrete import midpoint_values
 from ..status import Status
@@ -154,8 +154,10 @@ class Method:
     #: thin layers and fronts), "growth" (splits steep growth of the sensitivities),
     #: "default" (the first choice for a smooth problem).
     strengths: ClassVar[frozenset[str]] = frozenset()
-    #: Whether the method takes a term ``S y / t`` singular at ``t = 0`` (the standard form's).
-    takes_singular_term: ClassVar[bool] = False
+    #: What the method takes beyond a plain standard form: the needs of problem classes
+    #: (``"singular_term"``: a term ``S y / t`` singular at ``t = 0``); the selector offers a
+    #: problem only to the methods that take all its classes need.
+    takes: ClassVar[frozenset[str]] = frozenset()
     #: The cost model the selector reads for a method declaring "tight": the order of accuracy
     #: in the mesh spacing (0: no mesh, e.g. shooting) and the work per mesh node of a whole
     #: solve with its error estimate, relative to a method of ``node_cost`` 1. A mesh of
@@ -168,8 +170,14 @@ class Method:
         """Solve, check the result is finite, and (if asked) estimate and control the error.
 
         An error raised inside SciPy on the way (non-finite values it refuses, a failed
-        factorisation) becomes a failed outcome that says so, never a traceback.
+        factorisation) becomes a failed outcome that says so, never a traceback. A system
+        that needs what the method does not take (``compiled.needs``) is not tried.
         """
+        missing = sorted(trial.compiled.needs - self.takes)
+        if missing:
+            return Outcome(Status.NOT_CONVERGED, f"{self.name.replace('_', ' ')} cannot take "
+                           f"{', '.join(NEEDS.get(m, m) for m in missing)}; use a method that does",
+                           np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float))
         try:
             return self._solve_and_verify(trial)
         except (ValueError, ArithmeticError, np.linalg.LinAlgError, RuntimeError) as err:

@@ -250,8 +250,8 @@ class Collocation(Method):
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
     rank = 0
     strengths = frozenset({"layers", "default"})
+    takes = frozenset({"singular_term"})
     order = 4
-    takes_singular_term = True
 
     def _solve_and_verify(self, trial: Trial) -> Outcome:
         """The base class's solve and error estimate; a miss of the tolerance where the residual

@@ -286,7 +286,6 @@ class SixthOrderCollocation(Method):
     #: "tight": the method to prefer at tight tolerances on smooth problems (its cost per
     #: digit falls with the order).
     strengths = frozenset({"tight"})
-    takes_singular_term = False
     order = 6
     #: Work per mesh node of a solve with its estimate against 4th-order collocation's: every
     #: round solves the halved mesh too, and a node carries two stages. Measured with
@@ -299,9 +298,6 @@ class SixthOrderCollocation(Method):
         c, k = trial.compiled, trial.k
         x0, y0 = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
         p = np.asarray(trial.p, float)
-        if c.layout.singular:
-            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end; use collocation",
-                           x0, y0, p)
         if x0.size < 2 or not np.all(np.diff(x0) > 0):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x0, y0, p)
         if not (np.isfinite(y0).all() and np.isfinite(p).all()):

@@ -25,7 +25,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -46,11 +45,10 @@ from ..generated.compiled import (
 )
 from ..errors import BvpkitError, OptionError, ProblemError, closest
 from .guess import GuessRecipe
-from ..generated.layout import LENGTH, StateLayout
+from ..generated.layout import StateLayout
 from .quantity import Quantity
-
-#: First placement of an infinite end, measured from the finite one (the driver moves it out).
-DEFAULT_TRUNCATION = 10.0
+from . import classes  # noqa: F401 - registers the problem classes, for reading them back
+from .transform import Transform
 
 
 @dataclass(frozen=True)
@@ -76,6 +74,9 @@ class Prepared:
     parameters : dict of str to float
         Guesses of the unknown parameters (the eigenvalue's is 0: it comes from a
         discretised eigenproblem).
+    transforms : tuple of Transform
+        The problem's classes (:mod:`bvpkit.reduce.transform`): the driver, continuation and
+        settling call their hooks.
     """
 
     facts: dict
@@ -85,6 +86,7 @@ class Prepared:
     quantities: dict
     constants: dict
     parameters: dict = field(default_factory=dict)
+    transforms: tuple = ()
 
     # -- what the numerical side asks -------------------------------------------------------
     @property
@@ -112,25 +114,32 @@ class Prepared:
         return dict(self.facts["settings"])
 
     @property
-    def infinite(self) -> tuple[bool, bool]:
-        return self.layout.infinite
+    def truncated(self) -> bool:
+        """Whether the domain solved on is a truncation of the problem's (an infinite end)."""
+        ends = [0.0, 1.0]
+        for t in self.transforms:
+            ends = t.ends(ends)
+        return ends != [0.0, 1.0]
+
+    @property
+    def needs(self) -> frozenset[str]:
+        """What a method must take to solve this problem (its classes' needs)."""
+        return frozenset().union(*(t.needs for t in self.transforms))
 
     @property
     def orders(self) -> dict[str, int]:
         return dict(self.layout.functions)
 
-    def k(self, length: float | None = None) -> np.ndarray:
-        """The constants' values in the order of the compiled ``k`` (the truncation length of an
-        infinite end ``length``, default :data:`DEFAULT_TRUNCATION`)."""
-        own = self.facts["own"]
+    def k(self, options: Any = None) -> np.ndarray:
+        """The constants' values in the order of the compiled ``k``: the problem's, each
+        region's own, and those the classes add for the solve's ``options`` (their defaults
+        when None)."""
+        own = {**self.facts["own"]}
+        for t in self.transforms:
+            own.update(t.constants(options))
         values = []
         for name in self.layout.constants:
-            if name == LENGTH:
-                values.append(DEFAULT_TRUNCATION if length is None else float(length))
-            elif name in own:
-                values.append(own[name])
-            else:
-                values.append(self.constants[name])
+            values.append(own[name] if name in own else self.constants[name])
         return np.array(values, dtype=float)
 
     def p0(self) -> np.ndarray:
@@ -168,12 +177,10 @@ class Prepared:
 
         with np.errstate(all="ignore"):
             maps = np.asarray(self.compiled.maps(self.p0() if p is None else p, self.k() if k is None else k), float)
-        values = positions(maps)
-        if self.infinite[0]:
-            values[0] = -math.inf
-        if self.infinite[1]:
-            values[-1] = math.inf
-        check_positions(list(values), self.facts["points"], self.independent)
+        values = list(positions(maps))
+        for t in self.transforms:
+            values = t.ends(values)
+        check_positions(values, self.facts["points"], self.independent)
 
     # -- expressions -------------------------------------------------------------------------
     def quantity(self, text: str) -> Quantity:
@@ -215,7 +222,8 @@ class Prepared:
         return {"facts": self.facts, "layout": self.layout.as_dict(), "system": self.system,
                 "recipes": {k: r.plain() for k, r in self.recipes.items()},
                 "quantities": {k: q.plain() for k, q in self.quantities.items()},
-                "constants": self.constants, "parameters": self.parameters}
+                "constants": self.constants, "parameters": self.parameters,
+                "transforms": [t.plain() for t in self.transforms]}
 
     @classmethod
     def from_plain(cls, data: Mapping[str, Any]) -> Prepared:
@@ -227,6 +235,7 @@ class Prepared:
             quantities={k: Quantity.from_plain(q) for k, q in data["quantities"].items()},
             constants={k: float(v) for k, v in data["constants"].items()},
             parameters={k: float(v) for k, v in data["parameters"].items()},
+            transforms=tuple(Transform.from_plain(t) for t in data["transforms"]),
         )
 
     def __repr__(self) -> str:
@@ -298,7 +307,7 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
               "sides": compiled.bc_sides.tolist()}
     quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
     return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,
-                    dict(problem.constants), _parameters(problem))
+                    dict(problem.constants), _parameters(problem), form.transforms)
 
 
 # -- the disk cache of spec files' preparations --------------------------------------------------

@@ -135,7 +135,10 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
                     small[symbol.name] = float(value)
     right = set(form.yb)
     value_rows = {i for i, (_, order) in enumerate(form.states) if order == 0}
-    far = bool(form.infinite[1])
+    ends = [0.0, 1.0]
+    for transform in prepared.transforms:
+        ends = transform.ends(ends)
+    far = math.isinf(ends[-1])
     for c in form.conditions:
         used = c.free_symbols & right
         if used and not any(form.yb[i] in used for i in value_rows) and not c.free_symbols & set(form.ya):
@@ -156,7 +159,7 @@ def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN
             return [_small_path(named, value)]
         return [Path(named, 0.0, value, False, f"{named} continued from 0 to {value:g}")]
     result = [_small_path(name, value) for name, value in found.small.items()]
-    if found.nonlinear and trial.compiled.layout.eigenvalue is None:
+    if found.nonlinear:
         result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled by s from 0 to 1",
                            own=True))
     if found.far_field and found.reach:
@@ -233,8 +236,9 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
 
 
 # -- following a path ----------------------------------------------------------------------
-def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: ANN001
-    """Follow ``path`` to the user's problem and solve it from there.
+def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str]:  # noqa: ANN001
+    """Follow ``path`` to the user's problem and solve it from there (a turn on the way taken
+    by ``trace``, the path follower, when one is given).
 
     Returns the outcome of the final solve (collocation at ``trial.tol``, with its estimate;
     a failure says where the path stopped) and how it got there, in words (the problems
@@ -285,7 +289,7 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: 
             continue
         step *= _SHRINK
         if step < _MIN_FRACTION:
-            turned = _around(prepared, path, trial, system, at, value)
+            turned = _around(prepared, path, trial, system, at, value, trace)
             if turned is None:
                 # the last step's own failure says most (a layer the mesh limit cannot resolve)
                 stopped = _stopped(trial, f"the path stopped at {_shown(path, value)}: shorter and shorter "
@@ -348,13 +352,12 @@ def _predict(system, last: Outcome, previous, value: float, target: float, path:
     return last.x, y, p
 
 
-def _around(prepared, path: Path, trial: Trial, system, at, value: float) -> Outcome | None:  # noqa: ANN001
-    """The path around a turn, by pseudo-arclength continuation (``trace``) from its start;
-    the solution at its end, or None."""
-    if any(trial.compiled.layout.infinite) or trial.out_of_time():
+def _around(prepared, path: Path, trial: Trial, system, at, value: float,  # noqa: ANN001
+            trace=None) -> Outcome | None:  # noqa: ANN001
+    """The path around a turn, by pseudo-arclength continuation (``trace``, the path follower
+    the selector was given) from its start; the solution at its end, or None."""
+    if trace is None or prepared.truncated or trial.out_of_time():
         return None
-    from ..families.continuation import trace
-
     traced = _traceable(prepared, path, system, trial, at)
     try:
         branch = trace(traced, path.name, start=path.start, stop=path.stop, method="collocation",
@@ -379,8 +382,9 @@ def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001,
         return dataclasses.replace(prepared, facts=facts_)
     k = at(path.start)
     names = system.layout.constants
+    own = {name for transform in prepared.transforms for name in transform.constants(None)}  # the classes' own
     constants = {**prepared.constants, **{name: float(k[i]) for i, name in enumerate(names)
-                                         if name.startswith("_") and name != "_length"}}
+                                         if name.startswith("_") and name not in own}}
     plain = {"programs": list(system.programs), "pattern": system.jac_pattern.tolist(),
              "sides": system.bc_sides.tolist()}
     return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain,
@@ -401,17 +405,17 @@ def _stopped(trial: Trial, why: str) -> Outcome:
 
 
 # -- a value with no solution near it -------------------------------------------------------
-def no_solution(prepared, trial: Trial) -> str:  # noqa: ANN001
+def no_solution(prepared, trial: Trial, trace=None) -> str:  # noqa: ANN001
     """Words saying that the problem may have no solution at the constants' values, from a
     fold seen along a quick trace of a constant towards its value ('' when none is seen).
 
     Each constant that the equations depend on along the guess (not a small constant of the
     highest derivative: there a failure is a layer) is traced from ``_PROBE_FROM`` of its
     value towards it; a fold passed on the way, with the trace never reaching the value,
-    says that the solutions turn back before it.
+    says that the solutions turn back before it. Nothing is said without ``trace``.
     """
-    from ..families.continuation import trace
-
+    if trace is None:
+        return ""
     found = facts(prepared)
     layout = trial.compiled.layout
     with np.errstate(all="ignore"):

@@ -222,7 +222,7 @@ class Solution:
         quantity = self.prepared.quantity(expression)
         value, tail = _integral(self.interpolant, self.prepared, quantity)
         a, b = self.interpolant.ends
-        if any(self.prepared.infinite) and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
+        if self.prepared.truncated and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
             raise BvpkitError(
                 f"the integrand of '{expression}' is {tail:.3g} at the truncated end "
                 f"{self.independent} = {b:.6g}: the integral over the infinite domain does not converge"
@@ -434,7 +434,7 @@ def _check_inside(view: Interpolant, prepared, points: np.ndarray) -> None:  # n
     slack = 1e-12 * max(1.0, abs(a), abs(b))
     bad = points[~((points >= a - slack) & (points <= b + slack))]
     shown = bad[0] if bad.size else float("nan")
-    note = " (the infinite domain was truncated there)" if any(prepared.infinite) else ""
+    note = " (the infinite domain was truncated there)" if prepared.truncated else ""
     raise BvpkitError(
         f"{prepared.independent} = {shown:g} is outside the solved interval [{a:.6g}, {b:.6g}]{note}"
     )

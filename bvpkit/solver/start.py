@@ -4,8 +4,9 @@ From a previous solution (carried onto the new constants), from expressions the 
 per function, or from the problem's own guess recipes (:mod:`bvpkit.reduce.guess`); a default guess
 that leaves the domain of the equations (``sqrt``, ``log``, fractional powers of the states)
 is lifted to the positive side or replaced by the solution of the linearised problem of
-continuation; an eigenvalue problem starts from the eigenvalue guess. ``solve``, the
-infinite-domain loop and ``solve_at`` (continuation) all start here (:mod:`bvpkit.solver.driver`).
+continuation; then each problem class may start its own way (an eigenvalue problem from
+its eigenvalue guess). ``solve``, the classes' loops around it and ``solve_at``
+(continuation) all start here (:mod:`bvpkit.solver.driver`).
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ import numpy as np
 from ..reduce import guess as _guess
 from . import homotopy
 from ..errors import OptionError, closest
+from ..language.options import SolveOptions
 from ..methods.base import Trial
 from ..reduce.prepared import Prepared
 from .solution import Solution
@@ -39,15 +41,16 @@ def check_guess(prepared: Prepared, guess: Any) -> None:
     )
 
 
-def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions) -> tuple[np.ndarray, np.ndarray,
+                                                                                           np.ndarray]:
     """Mesh, states and parameters to start from: ``guess`` (a solution, carried onto ``k``, or
     expressions per function) over the problem's own recipes, moved into the domain of the
-    equations when needed, and the eigenvalue guess of an eigenvalue problem.
+    equations when needed, then each class's own start (the eigenvalue guess of an
+    eigenvalue problem: :meth:`bvpkit.reduce.transform.Transform.start`).
 
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled
-    layout = compiled.layout
-    nodes = min(_guess.INITIAL_NODES, chosen["max_nodes"] // 2)
+    nodes = min(_guess.INITIAL_NODES, chosen.max_nodes // 2)
     if isinstance(guess, Solution | _guess.Start):
         start = as_start(guess)
         p = start.p.copy()
@@ -61,15 +64,11 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tupl
             raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
         recipes[name] = prepared.recipe(name, expression)
     y = _guess.from_recipes(recipes, compiled, t, p, k)
-    if layout.eigenvalue is None and not defined(compiled, t, y, p, k):
+    if not defined(compiled, t, y, p, k):
         own = {n for n, r in recipes.items() if r.kind == "expression"}
         y = _inside(prepared, t, y, p, k, chosen, own=own)
-    if layout.eigenvalue is not None:
-        vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
-        if not guess:
-            y[layout.user_rows] = vectors[layout.user_rows]
-        p[layout.eigenvalue] = lam
-        _guess.fill_integrals(compiled, t, y, p, k)
+    for transform in prepared.transforms:
+        y, p = transform.start(prepared, t, y, p, k, bool(guess))
     return t, y, p
 
 
@@ -80,7 +79,7 @@ def defined(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray
                     and np.isfinite(compiled.jac(t, y, p, k)).all())
 
 
-def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: dict,
+def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: SolveOptions,
             own: set) -> np.ndarray:
     """A default guess moved into the domain of the equations (``sqrt``, ``log``, fractional
     powers of the states), when the conditions allow it: first lifted to the positive side
@@ -103,8 +102,8 @@ def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: 
         if defined(compiled, t, lifted, p, k):
             return lifted
     try:
-        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen["tol"], 1e-3),
-                                                     chosen["max_nodes"], False))
+        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen.tol, 1e-3),
+                                                     chosen.max_nodes, False))
     except Exception:  # noqa: BLE001 - no linearised problem here: the guess as it was
         return y
     if linear is not None and defined(compiled, t, linear, p, k):
