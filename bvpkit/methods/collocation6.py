@@ -289,10 +289,10 @@ class SixthOrderCollocation(Method):
     order = 6
     #: Work per mesh node of a solve with its estimate against 4th-order collocation's: every
     #: round solves the halved mesh too, and a node carries two stages. Measured with
-    #: benchmarks/collocation.py (sixth_order) on Blasius, Bratu, Troesch and a beam: the
-    #: methods break even near tol = 1e-11 (slower at 1e-10, 2 to 9 times faster at 1e-12),
-    #: which 8 * tol**(1/4 - 1/6) = 1 places at 1.5e-11.
-    node_cost = 8.0
+    #: benchmarks/collocation.py (sixth_order, tight_auto) on Blasius, Bratu, Troesch and a
+    #: beam: the sixth order is 1.0-1.4 times slower at tol 1e-10 and 1e-11 and 2 to 9 times
+    #: faster at 1e-12; 9 * tol**(1/4 - 1/6) = 1 places the break-even at 3.6e-12.
+    node_cost = 9.0
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
