@@ -54,7 +54,7 @@ _HOOKS = ("constants", "start", "around", "check", "along", "describe", "ends")
 
 def applies(prepared, options: Mapping[str, Any]) -> bool:  # noqa: ANN001 - a Prepared
     """Whether the points of ``prepared`` can be solved together (see the module docstring)."""
-    from ..generated.compiled import CompiledSystem
+    from ..programs.compiled import CompiledSystem
     from ..reduce.transform import Transform
 
     compiled = prepared.compiled

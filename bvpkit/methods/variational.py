@@ -44,12 +44,12 @@ class PointSystem:
     """
 
     def __init__(self, compiled):  # noqa: ANN001
-        from ..generated.compiled import CompiledSystem
+        from ..programs.compiled import CompiledSystem
 
         programs = {prog["name"]: prog for prog in getattr(compiled, "programs", ())}
         if type(compiled) is CompiledSystem and not compiled.layout.singular and all(
                 name in programs for name in _POINT_FUNCTIONS):
-            from ..generated.program import build
+            from ..programs.program import build
 
             built = build([{**programs[name], "mesh": None} for name in _POINT_FUNCTIONS])
             self.rhs, self.jac, self.pjac = (built[name] for name in _POINT_FUNCTIONS)
