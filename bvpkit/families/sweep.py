@@ -5,6 +5,11 @@ fast axis. Work is cut into chunks of grid lines (fixed slow parameters, a conti
 of the fast one) and each chunk is solved in order, every solve started from its
 neighbour's solution (continuation), so a chunk, not a point, is the unit of work.
 
+After the first point of a unit, the rest of its points are solved together, as one
+vectorised Newton system on a shared mesh (:mod:`bvpkit.families.batched`, where the problem allows),
+each with its own line search, convergence test, residual check, error estimate and
+stability constant; a point the batch leaves is solved alone, seeded by its neighbour.
+
 Units are small and picklable (the problem's own arguments, its prepared plain facts and
 programs (plain data), numbers; never code or compiled functions); a worker rebuilds a problem once,
 without SymPy (``prepared.py``), and keeps it. Inside a unit each point starts from its
@@ -141,14 +146,24 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     rows = []
     previous = None
     abandoned = _abandoned_check()
-    for value in unit.fast_values:
+    together: dict[int, Any] = {}  # solutions of the points solved in one Newton system
+    batch = _batched().applies(prepared, options) and len(unit.fast_values) > 2
+    for position, value in enumerate(unit.fast_values):
         if abandoned():
             break  # nobody waits for this unit any more: stop between two points
         point = {**dict(unit.slow), unit.fast: value}
         started = time.perf_counter()
+        if batch and previous is not None and previous.success:
+            # the rest of the chunk at once, from this solution; a point it leaves is solved alone below
+            batch = False
+            rest = [{**dict(unit.slow), unit.fast: v} for v in unit.fast_values[position:]]
+            found = _batched().solve_points(prepared, rest, previous, options)
+            together = {position + i: sol for i, sol in enumerate(found) if sol is not None}
         try:
             here = prepared.with_constants(**point)
-            if previous is not None and "method" not in options:
+            if position in together:
+                sol = together[position]
+            elif previous is not None and "method" not in options:
                 # the neighbour's method, started from its solution: no new plan (and no survey)
                 # while it works; the selector's full plan when it does not
                 sol = solve(here, guess=previous, method=previous.method, follow=trace, **options)
@@ -170,10 +185,17 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
                 name = named.get(text)
                 values[text] = sol.outputs[name] if name in sol.outputs else float(sol.evaluate(text))
         d = sol.diagnostics
+        seconds = d.seconds if position in together else time.perf_counter() - started  # its share of the batch
         rows.append(_row(point, values, sol.success, sol.status.word, sol.method, d.error_estimate, sol.message,
-                         d.iterations, time.perf_counter() - started))
+                         d.iterations, seconds))
         previous = sol if sol.success else None
     return rows
+
+
+def _batched():  # noqa: ANN202 - the module, imported when a unit first needs it
+    from . import batched
+
+    return batched
 
 
 def _row(point, outputs, success, status, method, error, message, iterations, seconds) -> dict[str, Any]:  # noqa: ANN001

@@ -159,6 +159,13 @@ class Method:
     #: (``"singular_term"``: a term ``S y / t`` singular at ``t = 0``); the selector offers a
     #: problem only to the methods that take all its classes need.
     takes: ClassVar[frozenset[str]] = frozenset()
+    #: The cost model the selector reads for a method declaring "tight": the order of accuracy
+    #: in the mesh spacing (0: no mesh, e.g. shooting) and the work per mesh node of a whole
+    #: solve with its error estimate, relative to a method of ``node_cost`` 1. A mesh of
+    #: order ``q`` needs nodes ~ ``tol**(-1/q)``, so the work of two methods compares as
+    #: ``node_cost * tol**(-1/q)``.
+    order: ClassVar[int] = 0
+    node_cost: ClassVar[float] = 1.0
 
     def solve(self, trial: Trial) -> Outcome:
         """Solve, check the result is finite, and (if asked) estimate and control the error.

@@ -28,6 +28,7 @@ import numpy as np
 import scipy.sparse as sparse
 
 from ..status import Status
+from . import variational
 from .base import Method, Outcome, Trial
 from .collocation import check_by_defect
 from .diagnostics import hermite, survey
@@ -37,6 +38,10 @@ from .discrete import SingularMatrix, factor_blocks
 # leaves a global error of a few times its rtol on smooth problems.
 _IVP_SHARE = 0.1
 _IVP_FLOOR = 1e-13  # DOP853 refuses rtol below 100 * machine epsilon
+# One segment integrates the whole interval: DOP853's global error there was 25 times its rtol
+# (Blasius on [0, 10]), so a tenth of the tolerance missed it and cost a second, tightened
+# solve; a hundredth costs 10**(1/8) = 1.33 times the steps of an order-8 method.
+_ONE_SEGMENT_SHARE = 0.01
 _MAX_NEWTON = 40
 _MIN_STEP = 1.0 / 256  # smallest line-search step before giving up
 _STIFF = 2000.0  # max |Re eig J| * length above which an implicit integrator is used
@@ -65,6 +70,7 @@ class _State:
 
     nodes: np.ndarray
     stiff: bool
+    secant: object = None  # single shooting: its last Newton matrix (a variational.Secant)
 
 
 @dataclasses.dataclass
@@ -133,17 +139,25 @@ class Shooting(Method):
         s = spline(nodes[:-1])
         if not np.all(np.isfinite(s)):
             s = np.array([np.interp(nodes[:-1], x, row) for row in y])
-        rtol = max(_IVP_FLOOR, trial.tol * _IVP_SHARE)
+        rtol = max(_IVP_FLOOR, trial.tol * (_ONE_SEGMENT_SHARE if nodes.size == 2 else _IVP_SHARE))
         return self._newton(trial, nodes, s, p, rtol, stiff)
 
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
-        """The same solve with a 100 times tighter integrator, started from ``outcome``."""
+        """The same solve with a tighter integrator, started from ``outcome`` (100 times tighter;
+        one segment: 10 times, from the solve's own matrix, on the solve's halved mesh)."""
         refined = dataclasses.replace(trial, tol=max(trial.tol * 1e-2, _IVP_FLOOR / _IVP_SHARE),
                                       x=outcome.x, y=outcome.y, p=outcome.p)
         state = outcome.workspace
         if not isinstance(state, _State):
             return self._solve(refined)
         s = outcome.y[:, np.searchsorted(outcome.x, state.nodes[:-1])]
+        if state.secant is not None:
+            # one segment: the re-solve starts from the solve's own matrix and gives its states on
+            # the solve's halved mesh (what the estimate compares), with no output mesh of its own;
+            # a tenth of the solve's own integration error is all the estimate needs
+            rtol = max(_IVP_FLOOR, trial.tol * _ONE_SEGMENT_SHARE * 0.1)
+            return variational.reference(self, refined, state.nodes, s, outcome.p, rtol, state.secant, outcome.x,
+                                         trial.tol)
         rtol = max(_IVP_FLOOR, refined.tol * _IVP_SHARE)
         return self._newton(refined, state.nodes, s, outcome.p, rtol, state.stiff)
 
@@ -167,6 +181,8 @@ class Shooting(Method):
               stiff: bool, dense: bool = False, sensitivities: bool = True) -> _Flow:
         c, k = trial.compiled, trial.k
         n, n_p, segments = c.n, c.n_parameters, nodes.size - 1
+        if segments == 1 and not stiff:  # one point per call: the fused variational system
+            return variational.one_segment_flow(trial, nodes, s, p, rtol, dense, sensitivities)
         t0, h = nodes[:-1], np.diff(nodes)
         size = n + (n * n + n * n_p if sensitivities else 0)
         start = np.zeros((size, segments))
@@ -253,6 +269,8 @@ class Shooting(Method):
     def _newton(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
                 stiff: bool) -> Outcome:
         n = trial.compiled.n
+        if nodes.size == 2 and not stiff and n + trial.compiled.n_parameters <= variational.MAX_BROYDEN:
+            return variational.secant_newton(self, trial, nodes, s, p, rtol)
         x_guess, y_guess = np.asarray(trial.x, float), np.asarray(trial.y, float)
 
         def failure(status: Status, message: str, iterations: int) -> Outcome:
@@ -369,13 +387,15 @@ class Shooting(Method):
         keep = np.argsort(starts)
         return new_nodes[order], new_s[:, keep]
 
-    def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix) -> Outcome:  # noqa: ANN001
-        """Build the output mesh from the dense output, fine enough for the C1 interpolant."""
+    def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix, flow=None) -> Outcome:  # noqa: ANN001
+        """Build the output mesh from the dense output, fine enough for the C1 interpolant
+        (``flow``: the last trial's, when it was integrated with its dense output)."""
         c, k, n = trial.compiled, trial.k, trial.compiled.n
         # A tiny Newton step is not enough: on an ill-conditioned shooting matrix the step
         # stalls while the conditions are still missed. Check the residual itself.
         try:  # one pass: the dense output changes none of the integrator's steps
-            flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
+            if flow is None or flow.dense is None:
+                flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
         except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
             return Outcome(Status.INTEGRATION_FAILED, str(err), trial.x, trial.y, p, iterations=iterations)
         residual = self._residual(trial, s, p, flow)
@@ -403,7 +423,7 @@ class Shooting(Method):
         def states(points: np.ndarray) -> np.ndarray:
             j = np.clip(np.searchsorted(nodes, points, side="right") - 1, 0, segments - 1)
             tau = np.clip((points - nodes[j]) / h[j], 0.0, 1.0)
-            values = flow.dense(tau).reshape(n, segments, tau.size)
+            values = variational.dense_values(flow.dense, tau).reshape(n, segments, tau.size)
             return values[:, j, np.arange(tau.size)] + tau * gap[:, j]
 
         taus = np.unique(np.concatenate([np.linspace(0, 1, 5), flow.dense.ts]))
@@ -429,7 +449,9 @@ class Shooting(Method):
             bad = (miss > trial.tol * 0.1) | (slope_miss > trial.tol**0.75)
             if not bad.any() or x.size > trial.max_nodes:
                 break
-            x = np.sort(np.concatenate([x, mid[bad]]))
+            # split each interval by the factor its miss predicts (a cubic's error goes as h**4, its slope's as h**3)
+            x = variational.subdivide(x, bad, np.maximum((miss / (trial.tol * 0.1)) ** 0.25,
+                                                          (slope_miss / trial.tol**0.75) ** (1 / 3)))
             y = states(x)
         outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} with {segments} "
                           f"segment{'s' if segments > 1 else ''} ({'Radau' if stiff else 'DOP853'})",

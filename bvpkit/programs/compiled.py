@@ -609,8 +609,16 @@ def skipped(key: str, err: ProgramError) -> None:
 _QUANTITY_FUNCTIONS: dict[str, Callable] = {}
 
 
+_QUANTITY_BY_IDENTITY: dict[int, tuple[dict, Callable]] = {}
+
+
 def quantity_function(program: dict) -> Callable:
     """The callable of a quantity's program, built once per program text."""
+    # the same program object again (a guess recipe's, an output's, on every solve): found
+    # without printing it to a key; the entry keeps the object alive, so its id is not reused
+    known = _QUANTITY_BY_IDENTITY.get(id(program))
+    if known is not None and known[0] is program:
+        return known[1]
     import json
 
     key = json.dumps(program, sort_keys=True)
@@ -619,6 +627,9 @@ def quantity_function(program: dict) -> Callable:
         if len(_QUANTITY_FUNCTIONS) > 4_000:
             _QUANTITY_FUNCTIONS.clear()
         function = _QUANTITY_FUNCTIONS[key] = build_quantity(program)
+    if len(_QUANTITY_BY_IDENTITY) > 4_000:
+        _QUANTITY_BY_IDENTITY.clear()
+    _QUANTITY_BY_IDENTITY[id(program)] = (program, function)
     return function
 
 
