@@ -34,10 +34,20 @@ from typing import Any
 
 import numpy as np
 
-from ..methods.diagnostics import _EXACT_INVERSE, Attempt
-from ..methods.discrete import _D, _DH, _H, _T, BAND_LIMIT, _condition_positions, _maps, one_blas_thread, sparse_pays
 from ..methods.base import Outcome
 from ..methods.collocation import _OUT_OF_DOMAIN_HALVINGS, _SETTLED
+from ..methods.diagnostics import _EXACT_INVERSE, Attempt
+from ..methods.discrete import (
+    _D,
+    _DH,
+    _H,
+    _T,
+    BAND_LIMIT,
+    _condition_positions,
+    _maps,
+    one_blas_thread,
+    sparse_pays,
+)
 from ..status import Status
 
 #: Newton's method of the batch: solve_bvp's line search (as :func:`methods.collocation._newton`),

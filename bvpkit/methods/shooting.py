@@ -33,6 +33,7 @@ from .base import Method, Outcome, Trial
 from .collocation import check_by_defect
 from .diagnostics import hermite, survey
 from .discrete import SingularMatrix, factor_blocks
+from .variational import _BLOWUP, _MAX_CALLS, _MAX_NEWTON, _MIN_STEP, _BlowUp, _Flow
 
 # Integration tolerance relative to the tolerance asked: the integrator's local control
 # leaves a global error of a few times its rtol on smooth problems.
@@ -42,25 +43,15 @@ _IVP_FLOOR = 1e-13  # DOP853 refuses rtol below 100 * machine epsilon
 # (Blasius on [0, 10]), so a tenth of the tolerance missed it and cost a second, tightened
 # solve; a hundredth costs 10**(1/8) = 1.33 times the steps of an order-8 method.
 _ONE_SEGMENT_SHARE = 0.01
-_MAX_NEWTON = 40
-_MIN_STEP = 1.0 / 256  # smallest line-search step before giving up
 _STIFF = 2000.0  # max |Re eig J| * length above which an implicit integrator is used
 _SEGMENT_LOG_GROWTH = math.log(20.0)  # target sensitivity growth per segment (along the guess)
 _SPLIT_GROWTH = 1e6  # a segment whose sensitivities grow more than this is split
 _MAX_SEGMENTS = 400
-_BLOWUP = 1e150  # a state this large is a blow-up, not a solution
-_MAX_CALLS = 60_000  # right-hand-side calls per integration (~5000 DOP853 steps): bounds time and memory
 
 
 _EPS = 2.2e-16  # machine epsilon: a stability constant times it bounds the accuracy any method can reach
 _ILL = (": the problem is so ill-conditioned that double precision cannot reach the tolerance, whatever the "
         "method")
-
-
-class _BlowUp(Exception):
-    def __init__(self, x: float, state: int, what: str, segment: int = -1):
-        super().__init__(what)
-        self.x, self.state, self.what, self.segment = x, state, what, segment
 
 
 @dataclasses.dataclass
@@ -71,16 +62,6 @@ class _State:
     nodes: np.ndarray
     stiff: bool
     secant: object = None  # single shooting: its last Newton matrix (a variational.Secant)
-
-
-@dataclasses.dataclass
-class _Flow:
-    """Result of integrating every segment from given node states."""
-    ends: np.ndarray  # (n, M) states at the segment ends
-    phi: np.ndarray  # (n, n, M)
-    psi: np.ndarray  # (n, n_p, M)
-    dense: object  # OdeSolution of the stacked system (or None)
-    max_growth: np.ndarray  # (M,) max |Phi| per segment
 
 
 class Shooting(Method):

@@ -26,6 +26,30 @@ import numpy as np
 from ..status import Status
 from .base import Outcome, Trial
 
+# what shooting and these paths share: limits of an integration and the records of its result
+_MAX_NEWTON = 40
+_MIN_STEP = 1.0 / 256  # smallest line-search step before giving up
+_BLOWUP = 1e150  # a state this large is a blow-up, not a solution
+_MAX_CALLS = 60_000  # right-hand-side calls per integration (~5000 DOP853 steps): bounds time and memory
+
+
+class _BlowUp(Exception):
+    def __init__(self, x: float, state: int, what: str, segment: int = -1):
+        super().__init__(what)
+        self.x, self.state, self.what, self.segment = x, state, what, segment
+
+
+@dataclasses.dataclass
+class _Flow:
+    """Result of integrating every segment from given node states."""
+    ends: np.ndarray  # (n, M) states at the segment ends
+    phi: np.ndarray  # (n, n, M)
+    psi: np.ndarray  # (n, n_p, M)
+    dense: object  # OdeSolution of the stacked system (or None)
+    max_growth: np.ndarray  # (M,) max |Phi| per segment
+
+
+
 _POINT: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 _POINT_FUNCTIONS = ("rhs", "jac", "pjac")
 # Broyden's matrix is refreshed by an exact integration of the sensitivities when a step it
@@ -142,7 +166,6 @@ def reference(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.nd
     """
     from scipy.linalg import lu_factor, lu_solve
 
-    from .shooting import _BlowUp
 
     c, n = trial.compiled, trial.compiled.n
     halved = np.empty(2 * x.size - 1)
@@ -178,7 +201,6 @@ def secant_newton(shooting, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: n
     """
     from scipy.linalg import lu_factor, lu_solve
 
-    from .shooting import _MAX_NEWTON, _MIN_STEP, _BlowUp
 
     c, k = trial.compiled, trial.k
     n, n_p = c.n, c.n_parameters
@@ -311,7 +333,6 @@ def _solve(lu_factor, lu_solve, matrix: np.ndarray, rhs: np.ndarray) -> np.ndarr
 
 def _exact(residual, u: np.ndarray) -> np.ndarray | None:  # noqa: ANN001
     """The exact shooting matrix at ``u`` (an integration of the sensitivities), or None if it blew up."""
-    from .shooting import _BlowUp
 
     try:
         return residual(u, True)[1]
@@ -327,7 +348,6 @@ def _finish(shooting, trial: Trial, nodes: np.ndarray, u: np.ndarray, n: int, rt
         if outcome.ok:
             outcome.workspace.secant = secant
         return outcome
-    from .shooting import _BlowUp
 
     try:
         if flow is None or flow.dense is None:
@@ -351,7 +371,6 @@ def one_segment_flow(trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarr
     """:meth:`Shooting._flow` for one segment and an explicit integrator, on :func:`fused_rhs`."""
     from scipy.integrate import solve_ivp
 
-    from .shooting import _BLOWUP, _MAX_CALLS, _BlowUp, _Flow
 
     c, k = trial.compiled, trial.k
     n, n_p = c.n, c.n_parameters
