@@ -125,6 +125,8 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
     x = problem.x
     for eq in problem.equations:
         for name in problem.unknowns:
+            if not problem.orders[name]:
+                continue  # an algebraic unknown: no highest derivative
             top = sp.Derivative(sp.Function(name)(x), (x, problem.orders[name]))
             coefficient = sp.diff(eq, top)
             for symbol in coefficient.free_symbols:
@@ -385,7 +387,7 @@ def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001,
     own = {name for transform in prepared.transforms for name in transform.constants(None)}  # the classes' own
     constants = {**prepared.constants, **{name: float(k[i]) for i, name in enumerate(names)
                                          if name.startswith("_") and name not in own}}
-    plain = {"programs": list(system.programs), "pattern": system.jac_pattern.tolist(),
+    plain = {"programs": list(system.programs), "pattern": system.raw_pattern.tolist(),
              "sides": system.bc_sides.tolist()}
     return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain,
                                constants=constants, quantities={})
