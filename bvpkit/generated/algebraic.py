@@ -53,6 +53,11 @@ _CONVERGED = 16 * _EPS
 _STAGNATION = 1e-9
 #: Meshes kept as starts besides the seed (the latest ones evaluated).
 _RECENT = 3
+#: A table this near (relative distance of the states) predicts a start good enough that
+#: farther tables are not looked at.
+_NEAR = 1e-4
+#: A Newton step this small (relative) is the last: the one after it would be below round-off.
+_LAST_STEP = 1e-8
 #: Constants Newton's method starts from at the left end when nothing else is known: 0 first
 #: (a root of many constraints), then 1 and -1 where dG/dZ vanishes at 0 (z**2 = 1 + y**2).
 _CONSTANTS = (0.0, 1.0, -1.0)
@@ -82,9 +87,9 @@ class StateSpace:
         ``bc_jac_b``, ``bc_jac_p`` and ``bc_jac_k`` over the vector ``(Y, Z)``.
     n, nz : int
         Sizes of ``Y`` and ``Z``.
-    fixed : (t, W) or None
-        A solution's own values ``W = (Y, Z)`` on its mesh ``t``: its only start, never
-        replaced (see :meth:`holding`).
+    fixed : (t, T) or None
+        A solution's own start table (:meth:`_table`: its ``Y``, ``Z`` and ``dZ/dY`` on its
+        mesh ``t``): its only start, never replaced (see :meth:`holding`).
     """
 
     def __init__(self, raw: dict, n: int, nz: int, fixed: tuple | None = None):
@@ -201,15 +206,25 @@ class StateSpace:
         self._note(X, Y, bad, singular)
         if (~bad).sum() >= 2:
             keep = ~bad
-            memory.seed = (X[keep].copy(), np.vstack([Y[:, keep], Z[:, keep]]))
+            _, J = self._evaluate(X[keep], Y[:, keep], Z[:, keep], p, k)
+            memory.seed = self._table(X[keep], Y[:, keep], Z[:, keep], J)
         return Z
 
-    def holding(self, t, y, z) -> StateSpace:  # noqa: ANN001
-        """A copy whose Newton iterations always start from this solution's own ``(t, Y, Z)``."""
-        t, y, z = (np.asarray(a, float) for a in (t, y, z))
+    def holding(self, t, y, p, k) -> StateSpace:  # noqa: ANN001
+        """A copy whose Newton iterations always start from the solution ``(t, y)``'s own
+        algebraic unknowns (solved now, from this system's starts)."""
+        t, y = np.asarray(t, float), self._flat(y)
+        z, _, J = self._solved(t, y, p, k)
         keep = np.isfinite(z).all(axis=0) & np.isfinite(y).all(axis=0)
-        fixed = (t[keep].copy(), np.vstack([y[:, keep], z[:, keep]])) if keep.sum() >= 2 else None
+        fixed = self._table(t[keep], y[:, keep], z[:, keep], J[:, :, keep]) if keep.sum() >= 2 else None
         return StateSpace(self.raw, self.n, self.nz, fixed)
+
+    def _table(self, X, Y, Z, J) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
+        """A start table: the mesh, and rows ``Y``, ``Z`` and ``dZ/dY = -G_Z^-1 G_Y`` (flattened)
+        there, from which a start is predicted to first order at nearby states."""
+        n = self.n
+        S = -_divide(J[n:, n:], J[n:, :n]).reshape(self.nz * n, X.size)
+        return X.copy(), np.vstack([Y, Z, S])
 
     @property
     def trouble(self) -> list:
@@ -225,28 +240,32 @@ class StateSpace:
         return memory.recent + ([memory.seed] if memory.seed is not None else [])
 
     def _start(self, X: np.ndarray, Y: np.ndarray) -> np.ndarray | None:
-        """Per point, ``Z`` of the table whose ``Y`` is nearest (interpolated in ``t``)."""
+        """Per point, ``Z`` predicted from the table whose ``Y`` is nearest (interpolated in ``t``):
+        ``Z_table + dZ/dY (Y - Y_table)``, exact to second order in the distance."""
         tables = self._tables()
         if not tables:
             return None
-        n = self.n
-        if len(tables) == 1:
-            t, W = tables[0]
-            return (W[n:] if t.size == X.size and np.array_equal(t, X) else _interpolate(t, W[n:], X)).copy()
+        n, nz = self.n, self.nz
         best = np.full(X.size, np.inf)
         Z0 = None
-        for t, W in tables:
-            # the same mesh (rhs, then jac, then the next iterate on it) needs no interpolation
-            Wi = W if t.size == X.size and np.array_equal(t, X) else _interpolate(t, W, X)
+        # tables of as many points (the same mesh again, or the segments of an integration a step
+        # on) first, taken point for point: the distance in Y says whether they are near
+        for t, T in sorted(tables, key=lambda table: table[0].size != X.size):
+            Ti = T if t.size == X.size else _interpolate(t, T, X)
+            dy = Y - Ti[:n]
             with np.errstate(all="ignore"):
-                d = np.max(np.abs(Y - Wi[:n]) / (1.0 + np.abs(Wi[:n])), axis=0) if n else np.zeros(X.size)
+                d = np.max(np.abs(dy) / (1.0 + np.abs(Ti[:n])), axis=0) if n else np.zeros(X.size)
+                guess = Ti[n:n + nz] + np.einsum("ijm,jm->im", Ti[n + nz:].reshape(nz, n, X.size), dy)
+            guess = np.where(np.isfinite(guess), guess, Ti[n:n + nz])
             d[~np.isfinite(d)] = np.inf
             if Z0 is None:
-                Z0, best = Wi[n:].copy(), d
-                continue
-            better = d < best
-            Z0[:, better] = Wi[n:, better]
-            best[better] = d[better]
+                Z0, best = guess, d
+            else:
+                better = d < best
+                Z0[:, better] = guess[:, better]
+                best[better] = d[better]
+            if best.max() <= _NEAR:
+                break
         return Z0
 
     # -- the inner solves ---------------------------------------------------------------
@@ -286,7 +305,7 @@ class StateSpace:
             R[:, bad] = np.nan
             J[:, :, bad] = np.nan
         elif self.fixed is None and X.size >= 3 and np.all(np.diff(X) > 0):
-            memory.recent = [(X.copy(), np.vstack([Y, Z])), *memory.recent][:_RECENT]
+            memory.recent = [self._table(X, Y, Z, J), *memory.recent][:_RECENT]
         if len(memory.cache) >= 4:
             memory.cache.clear()
         memory.cache[key] = (Z, R, J)
@@ -328,9 +347,14 @@ class StateSpace:
             converged = rel <= _CONVERGED
             if stepped is not None:
                 converged |= (rel <= _STAGNATION) & (rel >= 0.25 * stepped)
-            if converged.all():
+            if (converged | (rel <= _LAST_STEP)).all():
+                # the last step, taken without another evaluation: Z + dz is exact to round-off
+                # (Newton's error squares), F and G follow to first order (exact to the same),
+                # the Jacobian stays that at Z (within |dz|, at most _LAST_STEP, relative)
+                dz = np.where(converged, 0.0, dz)
+                R = R + np.einsum("ijm,jm->im", J[:, n:], dz)
                 no = np.zeros(m, bool)
-                return Z, R, J, no, no.copy()
+                return Z + dz, R, J, no, no.copy()
             Z = Z + np.where(converged, 0.0, dz)
             last, stepped = size, np.where(converged, 0.0, rel)
         return None

@@ -144,9 +144,8 @@ class CompiledSystem:
         branch whatever is solved later."""
         if self.space is None:
             return self
-        z = self.space.values(t, y, p, k)
         return CompiledSystem(self.layout, self._raw, self.raw_pattern, self.bc_sides, self.programs,
-                              self.space.holding(t, y, z))
+                              self.space.holding(t, y, p, k))
 
     @property
     def n(self) -> int:

@@ -39,6 +39,9 @@ _form = LazyModule("bvpkit.reduce.form")  # SymPy's work: loaded only when a pro
 #: ``|det dG/dZ|`` below this fraction of the product of the norms of ``G``'s rows (in ``Y``
 #: and ``Z``) is singular to working precision: index 1 is lost there.
 _SINGULAR = 1e-10
+#: An interior minimum of ``|det dG/dZ|`` below this fraction of its median along the solution
+#: is a point where index 1 is lost (the determinant dips to zero between nodes).
+_DIP = 1e-6
 
 
 def _derivative_free(eq) -> bool:  # noqa: ANN001
@@ -174,9 +177,14 @@ class Algebraic(Transform):
             det, scale = space.determinant(points, states, outcome.p, k)
         if not (np.isfinite(det).all() and np.isfinite(scale).all()):
             return None  # the values themselves are not finite: the guards of settle say so
-        ratio = np.abs(det) / np.where(scale > 0, scale, 1.0)
+        size = np.abs(det)
+        ratio = size / np.where(scale > 0, scale, 1.0)
         flips = np.flatnonzero(np.sign(det[1:]) * np.sign(det[:-1]) < 0)
-        small = np.flatnonzero(ratio <= _SINGULAR)
+        # an interior dip of |det| far below its typical size: the constraint's gradient itself may
+        # vanish there too (two branches of roots crossing), which the ratio above does not see
+        dips = np.flatnonzero((size[1:-1] < size[:-2]) & (size[1:-1] < size[2:])
+                              & (size[1:-1] <= _DIP * np.median(size))) + 1
+        small = np.union1d(np.flatnonzero(ratio <= _SINGULAR), dips)
         if not flips.size and not small.size:
             return None
         if flips.size:
