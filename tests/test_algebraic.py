@@ -17,8 +17,7 @@ from hypothesis import given, settings
 
 import bvpkit
 from bvpkit.errors import ProblemError
-from bvpkit.testing import assert_matches_exact, assert_solves, scaled_examples
-from bvpkit.testing.strategies import index_one_problems
+from bvpkit.testing import assert_matches_exact, assert_solves, index_one_problems, scaled_examples
 
 EXCHANGER = ["Th' = -a*(Th - Tw)", "Tc' = -b*(Tw - Tc)", "0 = h1*(Th - Tw) - h2*(Tw - Tc)"]
 EXCHANGER_CONSTANTS = {"a": 2.0, "b": 1.5, "h1": 1.0, "h2": 3.0}
