@@ -198,7 +198,7 @@ def test_conditions_on_algebraic_unknowns():
     (dict(equations=["f' + g' = 1", "0 = f - g"], conditions=["f(0) = 0", "g(0) = 0"]),
      ["index", "0 = f' - g'"]),
     # an algebraic unknown not listed is not an unknown
-    (dict(equations=["y' = z", "0 = z - y"], conditions=["y(0) = 1"]), ["list it among the unknowns"]),
+    (dict(equations=["y' = z", "0 = z - y"], conditions=["y(0) = 1"]), ["list it among the unknown functions"]),
     (dict(equations=["y' = z", "0 = z - y"], conditions=["z'(0) = 1"], unknowns=["y", "z"]),
      ["algebraic unknown", "its value z(0)"]),
 ])

@@ -320,7 +320,7 @@ class Problem:
                 hint = closest(s.name, known)
                 if not hint and "equation" in where:
                     hint = (f"; if '{s.name}' is an unknown function without derivatives (an algebraic unknown), "
-                            "list it among the unknowns (unknowns=[...])")
+                            "list it among the unknown functions: unknowns=[...]")
                 raise ProblemError(f"{where} ({text}): unknown name '{s.name}'{hint}")
         for f in e.atoms(applied_undef()):
             name = f.func.__name__
