@@ -346,3 +346,38 @@ def test_drawn_index_one_problems_meet_their_exact_solutions(case):
     sol = bvpkit.solve(case.problem, tol=1e-8)
     assert_matches_exact(sol, case)
     assert_solves(case.problem, sol)
+
+
+def test_a_method_that_does_not_take_algebraic_equations_is_refused_before_it_runs():
+    from bvpkit.methods.base import Method, Trial
+
+    class Plain(Method):  # a method that declares nothing it takes
+        name = "plain"
+
+        def _solve(self, trial):  # pragma: no cover - must not run
+            raise AssertionError("ran")
+
+    prepared = bvpkit.prepare(exchanger())
+    compiled = prepared.compiled
+    assert "algebraic" in compiled.needs
+    t = np.linspace(0, 1, 5)
+    outcome = Plain().solve(Trial(compiled, t, np.zeros((2, 5)), np.zeros(0), prepared.k(), 1e-6))
+    assert not outcome.ok and "cannot take algebraic equations beside the differential ones" in outcome.message
+    assert all("algebraic" in method.takes for method in bvpkit.methods.REGISTRY.values())
+
+
+def test_tracing_reads_no_stability_into_an_index_one_problem():
+    p = bvpkit.Problem(["y'' + lam*w = 0", "0 = w - exp(y)"], ["y(0) = 0", "y(1) = 0"], (0, 1), unknowns=["y", "w"],
+                       constants={"lam": 0.5})
+    branch = bvpkit.trace(p, "lam", start=0.5, stop=1.0, outputs=["w(1/2)"], stability=True, max_points=6)
+    # u_t = u'' - g does not describe an algebraic equation's evolution: not judged
+    assert all(s is None for s in branch.stability)
+
+
+def test_a_condition_that_repeats_what_the_algebraic_equation_fixes_is_said():
+    # z = y1, so y1(1) = 1 and z(1) = 2 fix the same value twice (and contradict each other)
+    p = bvpkit.Problem(["y1' = y2", "y2' = -y1 + z", "0 = z - y1"], ["y1(1) = 1", "z(1) = 2"], (0, 1),
+                       unknowns=["y1", "y2", "z"])
+    sol = bvpkit.solve(p, method="collocation")
+    assert not sol.success
+    assert "over-determine" in sol.message and "'z(1) = 2'" in sol.message

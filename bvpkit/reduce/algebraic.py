@@ -52,12 +52,15 @@ def _derivative_free(eq) -> bool:  # noqa: ANN001
 @dataclass(frozen=True)
 class Algebraic(Transform):
     """Algebraic unknowns ``unknowns``, each determined by the algebraic equation of the
-    same place in ``equations`` (as written; those of the first region)."""
+    same place in ``equations`` (as written; those of the first region); ``held`` names the
+    conditions on algebraic values."""
 
     kind = "algebraic"
     needs = frozenset({"algebraic"})
     unknowns: tuple = ()
     equations: tuple = ()
+    #: The given conditions that hold algebraic values: (row of the conditions, text).
+    held: tuple = ()
 
     # -- symbolic -------------------------------------------------------------------------
     @classmethod
@@ -119,16 +122,21 @@ class Algebraic(Transform):
 
     @classmethod
     def finish(cls, work):  # noqa: ANN001, ANN206
-        return cls(tuple(work.algebraic), tuple(work.scratch.get(cls.kind, ())))
+        values = set(work.zvalues.values())
+        held = tuple((i, work.problem.condition_text[i]) for i, c in enumerate(work.given) if c.free_symbols & values)
+        return cls(tuple(work.algebraic), tuple(work.scratch.get(cls.kind, ())), held)
 
     @classmethod
     def read(cls, fields) -> Algebraic:  # noqa: ANN001
-        unknowns, equations = fields.get("unknowns"), fields.get("equations")
-        if (set(fields) != {"unknowns", "equations"} or not isinstance(unknowns, list | tuple)
+        unknowns, equations, held = fields.get("unknowns"), fields.get("equations"), fields.get("held")
+        if (set(fields) != {"unknowns", "equations", "held"} or not isinstance(unknowns, list | tuple)
                 or not isinstance(equations, list | tuple) or len(unknowns) != len(equations)
-                or not all(isinstance(v, str) and len(v) < 10_000 for v in (*unknowns, *equations))):
-            raise ValueError("algebraic: names of the algebraic unknowns and their equations expected")
-        return cls(tuple(unknowns), tuple(equations))
+                or not all(isinstance(v, str) and len(v) < 10_000 for v in (*unknowns, *equations))
+                or not isinstance(held, list | tuple)
+                or not all(isinstance(h, list | tuple) and len(h) == 2 and type(h[0]) is int and 0 <= h[0] < 100_000
+                           and isinstance(h[1], str) and len(h[1]) < 10_000 for h in held)):
+            raise ValueError("algebraic: names of the algebraic unknowns, their equations and conditions expected")
+        return cls(tuple(unknowns), tuple(equations), tuple((int(i), str(t)) for i, t in held))
 
     # -- numerical ------------------------------------------------------------------------
     def begin(self, prepared, t, y, p, k, guess) -> None:  # noqa: ANN001
@@ -201,8 +209,12 @@ class Algebraic(Transform):
                 "write it as a differential equation")
 
     def diagnose(self, prepared, outcome, k) -> str | None:  # noqa: ANN001
-        """Where the algebraic equations stopped having a root during a failed solve."""
+        """Where the algebraic equations stopped having a root during a failed solve; or, for a
+        singular Newton matrix, a condition on an algebraic unknown that repeats what the
+        others fix (through its algebraic equation)."""
         trouble = prepared.compiled.algebraic_trouble()
+        if not trouble and outcome.status is Status.SINGULAR and self.held:
+            return self._repeated(prepared, outcome, k)
         if not trouble or outcome.status not in (Status.NON_FINITE, Status.NOT_CONVERGED, Status.SINGULAR,
                                                  Status.MESH_LIMIT, Status.INTEGRATION_FAILED):
             return None
@@ -215,6 +227,27 @@ class Algebraic(Transform):
                 f"{self._names()} from {where} on ({why}): a turning point of the constraint, where its Jacobian in "
                 "the algebraic unknowns is singular and the branch of roots ends, is near; check the constants and "
                 f"conditions, or give a guess of {self.unknowns[0]} on another branch")
+
+    def _repeated(self, prepared, outcome, k) -> str | None:  # noqa: ANN001
+        """The first condition on algebraic values whose row of the conditions' Jacobian (in the
+        end states and parameters, the algebraic values followed through their equations) the
+        other rows already span, at the outcome's ends."""
+        compiled = prepared.compiled
+        with np.errstate(all="ignore"):
+            y = np.asarray(outcome.y, float)
+            A, B, P = compiled.bc_jac(y[:, 0], y[:, -1], np.asarray(outcome.p, float), np.asarray(k, float))
+            M = np.hstack([A, B, np.reshape(P, (A.shape[0], -1))])
+        if not np.isfinite(M).all():
+            return None
+        full = np.linalg.matrix_rank(M)
+        if full == M.shape[0]:
+            return None
+        for row, text in self.held:
+            if row < M.shape[0] and np.linalg.matrix_rank(np.delete(M, row, axis=0)) == full:
+                return (f"the conditions over-determine the problem: '{text}' holds an algebraic unknown, which "
+                        f"its algebraic equation ({self._equations()}) ties to states the other conditions "
+                        "already fix; give a condition on another state instead")
+        return None
 
     # -- words ----------------------------------------------------------------------------
     def _names(self) -> str:
