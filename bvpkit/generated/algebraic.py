@@ -226,6 +226,10 @@ class StateSpace:
         S = -_divide(J[n:, n:], J[n:, :n]).reshape(self.nz * n, X.size)
         return X.copy(), np.vstack([Y, Z, S])
 
+    def share(self, other: StateSpace) -> None:
+        """Start from ``other``'s tables (and keep them with it) from now on."""
+        self._memory = other._memory
+
     @property
     def trouble(self) -> list:
         """Where the inner solves failed since the solve began (in this thread): a list of

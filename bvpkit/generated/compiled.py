@@ -226,6 +226,14 @@ class CompiledSystem:
                 P = D @ P
         return P
 
+    def share_starts(self, other: CompiledSystem) -> None:
+        """Let this system's inner solves of the algebraic equations start where ``other``'s do
+        (a system derived from it with the same states and algebraic equations: the path of a
+        continuation from an easier problem), so both stay on the branch the guess picked."""
+        if self.space is not None and getattr(other, "space", None) is not None and (
+                (self.space.n, self.space.nz) == (other.space.n, other.space.nz)):
+            self.space.share(other.space)
+
     def algebraic_trouble(self) -> list:
         """Where the algebraic equations could not be solved since the solve began (see
         :attr:`bvpkit.generated.algebraic.StateSpace.trouble`)."""

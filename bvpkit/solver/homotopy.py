@@ -195,6 +195,7 @@ def _system(prepared):  # noqa: ANN001, ANN202
         from ..reduce.form import path_form, standard_form
 
         found = compile_system(path_form(standard_form(prepared.problem())))
+        found.share_starts(prepared.compiled)  # algebraic unknowns: on the branch of the user's problem
         if len(_SYSTEMS) > 100:
             _SYSTEMS.clear()
         _SYSTEMS[key] = found
