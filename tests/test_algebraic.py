@@ -7,6 +7,7 @@ manufactured solutions, and the convergence order of the methods on an index-1 p
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import math
 import re
@@ -62,9 +63,12 @@ def test_every_method_takes_the_algebraic_class(method):
     assert sol.outputs["wall0"] == pytest.approx(wall_at_inlet(**EXCHANGER_CONSTANTS), abs=1e-8)  # analytic, above
 
 
-def test_counterflow_traced_in_the_wall_coefficient():
+def test_counterflow_traced_in_the_wall_coefficient(tmp_path):
     branch = bvpkit.trace(exchanger(), "h1", start=1.0, stop=8.0, outputs=["Tw(0)"], tol=1e-9, at=[5])
     (point,) = branch.requested[5]
+    if importlib.util.find_spec("matplotlib"):  # the figure of an algebraic unknown's output, like any other
+        figure = branch.plot(tmp_path / "wall.png")
+        assert figure is not None and (tmp_path / "wall.png").stat().st_size > 5_000
     expected = wall_at_inlet(a=2.0, b=1.5, h1=5.0, h2=3.0)  # analytic: Tw eliminated by hand
     assert point.evaluate("Tw(0)") == pytest.approx(expected, abs=1e-7)
     along = np.array([wall_at_inlet(2.0, 1.5, h1, 3.0) for h1 in branch.parameter])  # analytic, each point
@@ -266,7 +270,7 @@ def test_the_check_printout_lists_differential_and_algebraic_states():
     assert any(line.startswith("0 = ") and "(determines Tw)" in line for line in report["first_order"])
 
 
-@pytest.mark.parametrize("case", ["parameter", "free end", "regions", "infinite", "eigenvalue", "integral",
+@pytest.mark.parametrize("case", ["parameter", "parameter in the algebraic equation", "free end", "regions", "infinite", "eigenvalue", "integral",
                                   "singular centre", "periodic"])
 def test_pairings_with_the_other_classes(case):
     if case == "parameter":  # a of the hot side found from a condition on the wall
@@ -276,6 +280,16 @@ def test_pairings_with_the_other_classes(case):
         assert sol.success, sol.message
         assert sol.evaluate("Tw(1)") == pytest.approx(0.1, abs=1e-9)  # the condition it was found from
         assert wall_at_inlet(sol.parameters["a"], 1.5, 1.0, 3.0) == pytest.approx(sol.evaluate("Tw(0)"), abs=1e-7)
+    elif case == "parameter in the algebraic equation":  # h1 from the wall temperature at the inlet
+        p = bvpkit.Problem(EXCHANGER, ["Th(0) = 1", "Tc(1) = 0", "Tw(0) = 0.6"], (0, 1), unknowns=["Th", "Tc", "Tw"],
+                           constants={"a": 2.0, "b": 1.5, "h2": 3.0}, unknown_parameters={"h1": 1.0})
+        sol = bvpkit.solve(p, tol=1e-10)
+        assert sol.success, sol.message
+        from scipy.optimize import brentq
+
+        # analytic: the closed form above solved for h1 by scipy's brentq
+        h1 = brentq(lambda h: wall_at_inlet(2.0, 1.5, h, 3.0) - 0.6, 0.5, 10.0, xtol=1e-14)
+        assert sol.parameters["h1"] == pytest.approx(h1, abs=1e-8)
     elif case == "free end":  # the length at which the wall reaches 0.1
         p = bvpkit.Problem(EXCHANGER, ["Th(0) = 1", "Tc(L) = 0", "Tw(L) = 0.1"], (0, "L"), unknowns=["Th", "Tc", "Tw"],
                            constants=EXCHANGER_CONSTANTS, unknown_parameters={"L": 1.0})
