@@ -229,6 +229,10 @@ def test_a_turning_point_of_the_constraint_is_said_with_where():
     assert not sol.success
     assert "index 1 is lost" in sol.message and "turning point" in sol.message
     assert _place(sol.message) == pytest.approx(0.5, abs=0.05)  # analytic: y(x) = 1 at x = 1/2
+    # the default solve (the selector, continuation from an easier problem) says the same
+    sol = bvpkit.solve(problem, time_limit=1.5)
+    assert not sol.success and "index 1 is lost" in sol.message
+    assert _place(sol.message) == pytest.approx(0.5, abs=0.05)
 
 
 def test_a_singular_algebraic_jacobian_along_a_converged_solution_is_refused():

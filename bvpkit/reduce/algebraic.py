@@ -223,10 +223,10 @@ class Algebraic(Transform):
         where = self._place(prepared, outcome.p, k, t)
         why = (f"the Jacobian of the algebraic equations in {self._names()} is singular there"
                if singular else f"Newton's method for {self._names()} found no root there from its neighbours")
-        return (f"index 1 is lost: the algebraic equations ({self._equations()}) could not be solved for "
-                f"{self._names()} from {where} on ({why}): a turning point of the constraint, where its Jacobian in "
-                "the algebraic unknowns is singular and the branch of roots ends, is near; check the constants and "
-                f"conditions, or give a guess of {self.unknowns[0]} on another branch")
+        return (f"the algebraic equations ({self._equations()}) could not be solved for {self._names()} from "
+                f"{where} on along the iterates ({why}): likely a turning point of the constraint near there, where "
+                "its Jacobian in the algebraic unknowns is singular, index 1 is lost and the branch of roots ends; "
+                f"check the constants and conditions, or give a guess of {self.unknowns[0]} on another branch")
 
     def _repeated(self, prepared, outcome, k) -> str | None:  # noqa: ANN001
         """The first condition on algebraic values whose row of the conditions' Jacobian (in the
