@@ -13,7 +13,7 @@ the problem is refused with what to write instead: the constraint differentiated
 
 The problem is then solved as the ODE of its state-space form (Hairer and Wanner, Solving
 ODEs II, sec. VI.1): ``Z`` is found by Newton's method from ``G = 0`` at every point where a
-method evaluates the equations (:mod:`bvpkit.generated.algebraic`), so every method takes
+method evaluates the equations (:mod:`bvpkit.programs.algebraic`), so every method takes
 it; the user's guess of an algebraic unknown (or a previous solution) is where those
 iterations start, which picks the branch of an equation with several roots (:meth:`begin`).
 Index 1 along the solution (``dG/dZ`` non-singular) is checked on every converged solution
@@ -142,7 +142,7 @@ class Algebraic(Transform):
     def begin(self, prepared, t, y, p, k, guess) -> None:  # noqa: ANN001
         """Seed the inner Newton iterations for ``Z``: from a previous solution's ``Z``, the
         user's guesses of the algebraic unknowns, or (by default) from a constant."""
-        from .guess import Start, physical, positions
+        from .mapping import Start, physical, positions
 
         compiled = prepared.compiled
         layout = compiled.layout
@@ -258,7 +258,7 @@ class Algebraic(Transform):
 
     @staticmethod
     def _place(prepared, p, k, t: float) -> str:  # noqa: ANN001
-        from .guess import physical
+        from .mapping import physical
 
         compiled = prepared.compiled
         layout = compiled.layout
