@@ -175,6 +175,17 @@ PROBLEMS = {
     "python inside": ({"problem.equations": '''["y''.__class__ = 0"]'''}, "column"),
     "singular system": ({"problem.conditions": '''["y(0) = 1", "y(0) = 2"]'''}, ""),
     "log of a negative guess": ({"problem.equations": '''["y'' = log(y - 2)"]'''}, ""),
+    "constraint of higher index": ({"problem.equations": '''["y'' = m2*y + z", "0 = y - r"]''',
+                                    "problem.unknowns": '["y", "z"]'}, "index"),
+    "algebraic unknown without its equation": ({"problem.equations": '''["y'' = m2*y + z + w", "0 = z - y",
+                                                "0 = z**2 - y**2 - 1"]''', "problem.unknowns": '["y", "z", "w"]'},
+                                               "'w' is determined by no algebraic equation"),
+    "algebraic condition too many": ({"problem.equations": '''["y'' = m2*z", "0 = z - y"]''',
+                                      "problem.unknowns": '["y", "z"]',
+                                      "problem.conditions": '''["y(0) = 1", "y'(L) = 0", "z(L) = 2"]'''},
+                                     "over-determines"),
+    "algebraic unknown not listed": ({"problem.equations": '''["y'' = m2*z", "0 = z - y"]'''},
+                                     "list it among the unknown functions"),
 }
 
 

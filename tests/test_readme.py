@@ -99,7 +99,7 @@ def test_every_one_line_problem_class_solves():
     (block,) = _blocks("python", "eigenvalue=\"lam\"")
     problems = [eval(compile(ast.Expression(s.value), "<README>", "eval"), {"bvpkit": bvpkit})  # noqa: S307
                 for s in ast.parse(block).body]
-    assert len(problems) == 9
+    assert len(problems) == 10
     for problem in problems:
         solution = bvpkit.solve(problem)
         assert solution.success, f"{problem.equation_text}: {solution.message}"

@@ -582,6 +582,9 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
              "has a solution)",
              f"  first-order form ({report['independent']} mapped onto t in [0, 1] in each region):",
              *(f"    {line}" for line in report["first_order"]),
+             *([f"  differential states: {', '.join(report['states'])}; algebraic: "
+                f"{', '.join(report['algebraic'])} (each solved from its algebraic equation at every point; index 1)"]
+               if report["algebraic"] else []),
              f"  conditions: {report['count']}"]
     if problem.outputs:
         lines.append(f"  outputs: {', '.join(problem.outputs)}")
@@ -601,6 +604,11 @@ def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001
         names[form.p[i]] = sp.Symbol(q)
     for i, c in enumerate(form.constants):
         names[form.k[i]] = sp.Symbol(c if c != "_length" else "L_inf")
+    held = len(form.algebraic)
+    algebraic_rows = [name if layout.regions == 1 else f"{name}@{r + 1}"
+                      for r in range(layout.regions) for name in form.algebraic]
+    for i, row in enumerate(algebraic_rows):
+        names[form.z[i]] = sp.Symbol(row)
     lines = []
     for i, (row, rhs) in enumerate(zip(layout.row_names, form.rhs)):
         text = sp.sstr(rhs.xreplace(names).xreplace({sp.Symbol("_x", real=True): sp.Symbol("t")}))
@@ -608,6 +616,9 @@ def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001
             term = sp.sstr(sum(e * names[form.y[j]] for j, e in enumerate(form.singular[i]) if e != 0))
             text += f" + ({term})/t"
         lines.append(f"d({row})/dt = {text}")
+    for i, (row, g) in enumerate(zip(algebraic_rows, form.constraints)):
+        text = sp.sstr(g.xreplace(names).xreplace({sp.Symbol("_x", real=True): sp.Symbol("t")}))
+        lines.append(f"0 = {text}   (determines {row})")
     kinds = {kind: form.condition_kinds.count(kind) for kind in ("given", "continuity", "added", "phase")}
     parts = [f"{kinds['given']} given"]
     if kinds["continuity"]:
@@ -618,6 +629,8 @@ def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001
         parts.append("1 phase condition")
     count = (f"{len(form.conditions)} = {' + '.join(parts)}, for {len(form.rhs)} states"
              f" + {len(form.parameters)} unknown parameter(s)")
+    if held:
+        count += " (algebraic unknowns take none)"
     return {
         "success": True,
         "status": "valid",
@@ -625,6 +638,8 @@ def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001
         "independent": problem.independent,
         "unknowns": {name: problem.orders[name] for name in problem.unknowns},
         "states": list(layout.row_names),
+        "algebraic": {row: sp.sstr(g.xreplace(names).xreplace({sp.Symbol("_x", real=True): sp.Symbol("t")}))
+                      for row, g in zip(algebraic_rows, form.constraints)},
         "regions": layout.regions,
         "first_order": lines,
         "conditions": len(form.conditions),

@@ -141,7 +141,9 @@ def _check_entry(prepared: Prepared) -> None:
             and layout.users == sum(k for _, k in functions) and len(states) >= layout.users
             and states[:layout.users] == [(f, j) for f, k in functions for j in range(k)]
             and all(type(f) is str and whole(j, 0, 0) for f, j in states[layout.users:])
-            and layout.n <= MAX_ENTRY_STATES):
+            and layout.n <= MAX_ENTRY_STATES
+            and names([*(f for f, _ in functions), *layout.algebraic])
+            and len(layout.algebraic) <= MAX_ENTRY_STATES):
         raise _Refused("its state layout does not fit together")
     n_p, n_k = len(layout.parameters), len(layout.constants)
     if not (names(layout.parameters) and names(layout.constants) and n_p <= MAX_ENTRY_STATES
@@ -164,7 +166,9 @@ def _check_entry(prepared: Prepared) -> None:
     if (bool(eigen) != (eigenvalue is not None)
             or (eigen and not (whole(eigen[0].index, 0, n_p - 1) and layout.parameters[eigen[0].index] == eigenvalue
                                and eigen[0].mode == (arguments.get("mode") or 1)))
-            or (unknowns is not None and list(unknowns) != [f for f, _ in functions])):
+            or (unknowns is not None and (list(u for u in unknowns if u not in layout.algebraic)
+                                          != [f for f, _ in functions]
+                                          or not set(layout.algebraic) <= set(unknowns)))):
         raise _Refused("its state layout is not that of the spec")
     points = prepared.facts.get("points")
     if type(points) is not list or len(points) != layout.regions + 1 or not all(type(q) is str for q in points):
@@ -188,19 +192,26 @@ def _check_entry(prepared: Prepared) -> None:
                      fits(recipe.program, [("x", 1), ("p", 0), ("k", 0)], [sum(len(row) + 1 for row in terms)]))):
             continue
         raise _Refused(f"its guess recipe of {name} does not fit its layout")
-    if set(prepared.recipes) != {f for f, _ in functions}:
+    for name in layout.algebraic:  # where an algebraic unknown's inner solves start: a guess or none
+        recipe = prepared.recipes.get(name)
+        if (recipe is None or recipe.name != name or recipe.order != 1
+                or not (recipe.kind == "expression" and fits(recipe.program, [("x", 1), ("p", 0), ("k", 0)], [1])
+                        or recipe.kind == "polynomial" and recipe.program is None and not recipe.conditions)):
+            raise _Refused(f"its guess recipe of {name} does not fit its layout")
+    if set(prepared.recipes) != {f for f, _ in functions} | set(layout.algebraic):
         raise _Refused("its guess recipes are not those of its functions")
     if set(prepared.quantities) != set(prepared.facts.get("outputs", {}).values()):
         raise _Refused("its compiled outputs are not those of the spec")
 
     def quantity(q: Quantity) -> None:
-        wanted = [("x", 1), ("y", layout.users + len(functions)), ("p", n_p), ("k", n_k),
+        wanted = [("x", 1), ("y", layout.users + len(functions) + len(layout.algebraic)), ("p", n_p), ("k", n_k),
                   ("t", len(q.points) + len(q.integrals))]
         if (type(q.program) is not dict or q.program.get("shape") != [1] or q.program.get("mesh") != "y"
                 or _arguments(q.program) != wanted):
             raise _Refused("a compiled output does not fit its layout")
         for at, state, order, side in q.points:
-            if not (whole(state, 0, len(states) - 1) and whole(order, 0, 1000) and side in (-1, 0, 1)
+            if not (whole(state, 0, len(states) + len(layout.algebraic) - 1) and whole(order, 0, 1000)
+                    and side in (-1, 0, 1)
                     and (type(at) is float or fits(at, [("x", 1), ("p", 0), ("k", 0)], [1]))):
                 raise _Refused("a compiled output does not fit its layout")
         for inner in q.integrals:

@@ -213,6 +213,9 @@ class Problem:
             self._canonical(e, f"equation {i + 1}", self.equation_text[i]) for i, e in enumerate(raw_equations)
         ]
         self.orders = self._orders(self.equations, "the equations")
+        #: Unknowns without derivatives in the equations (order 0): fixed at every point by the
+        #: algebraic equations (those without derivatives); see bvpkit.reduce.algebraic.
+        self.algebraic = tuple(name for name in self.unknowns if self.orders[name] == 0)
         self.domain = self._domain(domain)
         self.conditions = [
             self._canonical(c, f"condition {i + 1}", self.condition_text[i]) for i, c in enumerate(raw_conditions)
@@ -317,7 +320,11 @@ class Problem:
             elif s.name in self._names:
                 replace[s] = sp.Symbol(s.name)
             else:
-                raise ProblemError(f"{where} ({text}): unknown name '{s.name}'{closest(s.name, known)}")
+                hint = closest(s.name, known)
+                if not hint and "equation" in where:
+                    hint = (f"; if '{s.name}' is an unknown function without derivatives (an algebraic unknown), "
+                            "list it among the unknown functions: unknowns=[...]")
+                raise ProblemError(f"{where} ({text}): unknown name '{s.name}'{hint}")
         for f in e.atoms(applied_undef()):
             name = f.func.__name__
             if name not in self.unknowns:
@@ -352,7 +359,8 @@ class Problem:
                         )
             raise ProblemError(
                 f"{len(equations)} equation(s) in {where} for {len(self.unknowns)} unknown "
-                f"function(s) ({', '.join(self.unknowns)}): give one differential equation per unknown"
+                f"function(s) ({', '.join(self.unknowns)}): give one equation per unknown (a differential "
+                "equation, or for an unknown without derivatives an algebraic equation such as 0 = ...)"
             )
         for eq in equations:
             if eq.has(_expr.DomainIntegral):
@@ -367,11 +375,26 @@ class Problem:
                 )
             for d in eq.atoms(sp.Derivative):
                 orders[d.expr.func.__name__] = max(orders[d.expr.func.__name__], d.derivative_count)
-        for name, order in orders.items():
-            if order == 0:
+        algebraic = [name for name, order in orders.items() if order == 0]
+        if algebraic and len(algebraic) == len(orders):
+            raise ProblemError(
+                f"no unknown has a derivative in {where}: write at least one differential equation "
+                "(derivatives with primes, e.g. \"y'' + y = 0\")"
+            )
+        if algebraic:
+            # an unknown without derivatives is algebraic: as many equations without derivatives
+            # (algebraic equations) as such unknowns, or the count is off (which equation fixes
+            # which unknown is the reduction's to decide: bvpkit.reduce.algebraic)
+            plain = [eq for eq in equations if not eq.atoms(sp.Derivative)]
+            if len(plain) < len(algebraic):
+                names = ", ".join(f"'{n}'" for n in algebraic)
                 raise ProblemError(
-                    f"'{name}' appears without derivatives in {where}: every unknown function needs a "
-                    "derivative in the equations (algebraic unknowns are not supported)"
+                    f"{names} appear{'s' if len(algebraic) == 1 else ''} without derivatives in {where}, so "
+                    f"{'it is an algebraic unknown' if len(algebraic) == 1 else 'they are algebraic unknowns'}, "
+                    f"but {len(plain)} equation(s) have no derivatives to determine "
+                    f"{'it' if len(algebraic) == 1 else 'them'}: give one algebraic equation per algebraic "
+                    f"unknown (e.g. 0 = ... or {algebraic[0]} = ...), or give {algebraic[0]} a derivative if "
+                    "it is meant to be differential"
                 )
         return {name: int(order) for name, order in orders.items()}  # plain ints, not SymPy's
 
@@ -595,7 +618,13 @@ class Problem:
                 j = self.which_point(pv.point)
                 if j is None:  # pragma: no cover - every interior point became an interface
                     raise ProblemError(f"{where}: the point {pv.point} is not an end or interface of the domain")
-                if pv.order >= self.orders[pv.name]:
+                if pv.name in self.algebraic:
+                    if pv.order:
+                        raise ProblemError(
+                            f"{where}: {pv.name} is an algebraic unknown (no derivative in the equations), so a "
+                            f"condition may use its value {pv.name}({_describe(pv.point)}), not a derivative"
+                        )
+                elif pv.order >= self.orders[pv.name]:
                     raise ProblemError(
                         f"{where}: {pv.name} has order {self.orders[pv.name]} in the equations, so a condition "
                         f"may use its derivatives up to order {self.orders[pv.name] - 1}, not {pv.order}"
@@ -609,8 +638,9 @@ class Problem:
                             f"{chr(39) * pv.order}({_describe(pv.point)}))"
                         )
                 elif pv.side:
-                    jumps[j].add((pv.name, pv.order))
-                elif 0 < j < len(self.points) - 1:
+                    if pv.name not in self.algebraic:  # an algebraic unknown follows its region's equations
+                        jumps[j].add((pv.name, pv.order))
+                elif 0 < j < len(self.points) - 1 and pv.name not in self.algebraic:
                     plain.append((where, pv, j))
         for where, pv, j in plain:
             if (pv.name, pv.order) in jumps[j]:
@@ -640,7 +670,7 @@ class Problem:
             )
         if len(self.conditions) == needed:
             return
-        parts = [" + ".join(f"{self.orders[n]} for {n}" for n in self.unknowns)]
+        parts = [" + ".join(f"{self.orders[n]} for {n}" for n in self.unknowns if n not in self.algebraic)]
         if free:
             parts.append(f"{free} for unknown parameters")
         for j, states in sorted(jumps.items()):
@@ -653,6 +683,12 @@ class Problem:
             text += " - 1 phase condition bvpkit adds to this periodic problem"
         if self.eigenvalue:
             text += f"; the eigenvalue '{self.eigenvalue}' brings its own normalisation"
+        if self.algebraic:
+            several = len(self.algebraic) > 1
+            text += (f"; the algebraic unknown{'s' if several else ''} {', '.join(self.algebraic)} need"
+                     f"{'' if several else 's'} no condition (the algebraic equations fix {'them' if several else 'it'} "
+                     f"at every point): a condition on {'them' if several else 'it'}, such as {self.algebraic[0]}({_describe(self.points[-1])}) = ..., "
+                     "takes the place of another, and one more over-determines the problem")
         interfaces = ""
         if len(self.points) > 2:
             held = ", ".join(_describe(p) for p in self.points[1:-1])
@@ -756,6 +792,14 @@ class Problem:
         except ExpressionError as err:
             raise ExpressionError(f"{where}: {err.reason}", err.text, err.column) from None
         e = self._canonical(e, where, text)
+        for name in self.algebraic:
+            f = sp.Function(name)(self.x)
+            if any(d.expr == f or (isinstance(d.expr, applied_undef()) and d.expr.func == f.func)
+                   for d in e.atoms(sp.Derivative)):
+                raise ProblemError(
+                    f"{where} ({text}): {name} is an algebraic unknown (no derivative in the equations), so its "
+                    "values can be evaluated, not its derivatives"
+                )
         for pv in self.point_values(e, f"{where} ({text})"):
             if pv.order > self.orders[pv.name]:
                 raise ProblemError(

@@ -244,7 +244,8 @@ class Method:
 
 
 def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, np.ndarray]:
-    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes and midpoints.
+    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes and midpoints (of the
+    algebraic unknowns too, solved from the equations on each).
 
     Returns the state estimate (which includes the parameters) and the per-parameter
     absolute differences.
@@ -267,6 +268,14 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
         mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(points)
         theirs = hermite(compiled, reference.x, reference.y, reference.p, k)(points)
     estimate = float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs))))
+    if getattr(compiled, "layout", None) is not None and compiled.layout.algebraic:
+        # the algebraic unknowns too, each solved from the equations on both solutions
+        points = reference.x if theirs is reference.y else np.sort(np.concatenate([x, mid]))
+        with np.errstate(all="ignore"):
+            z_mine = compiled.algebraic(points, mine, outcome.p, k)
+            z_theirs = compiled.algebraic(points, theirs, reference.p, k)
+            gap = np.abs(z_mine - z_theirs) / (1.0 + np.abs(z_theirs))
+        estimate = max(estimate, float(np.max(gap)) if np.isfinite(gap).all() else np.inf)
     p_errors = np.abs(outcome.p - reference.p)
     if p_errors.size:
         estimate = max(estimate, float(np.max(p_errors / (1.0 + np.abs(reference.p)))))

@@ -250,7 +250,9 @@ class Collocation(Method):
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
     rank = 0
     strengths = frozenset({"layers", "default"})
-    takes = frozenset({"singular_term"})
+    # algebraic unknowns: solved inside the compiled callables (the state-space form), so the
+    # collocation equations see an ODE; at the stages this is collocation of the DAE itself
+    takes = frozenset({"singular_term", "algebraic"})
     order = 4
 
     def _solve_and_verify(self, trial: Trial) -> Outcome:

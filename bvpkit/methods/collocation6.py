@@ -279,6 +279,7 @@ class _State:
 
 class SixthOrderCollocation(Method):
     name = "collocation6"
+    takes = frozenset({"algebraic"})  # solved inside the compiled callables, as for collocation
     summary = "6th-order Lobatto IIIA collocation (4 stages), error controlled against the halved mesh"
     rank = 3
     #: "tight": the method to prefer at tight tolerances on smooth problems (its cost per

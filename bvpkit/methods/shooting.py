@@ -66,7 +66,11 @@ class _State:
 
 class Shooting(Method):
     """Shared engine; subclasses fix how segments are chosen."""
-    # takes no singular term: the sensitivities of a start off S y(0) = 0 blow up at t = 0
+
+    # takes no singular term: the sensitivities of a start off S y(0) = 0 blow up at t = 0;
+    # algebraic unknowns are solved inside the compiled right-hand side at every step (the
+    # state-space form), so the integrator sees an ODE
+    takes = frozenset({"algebraic"})
 
     fixed_segments: int | None = None  # 1 for single shooting
 

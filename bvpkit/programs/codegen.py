@@ -207,10 +207,13 @@ def _function_program(
 def _bc_sides(form) -> np.ndarray:
     sides = []
     ya, yb, p = set(form.ya), set(form.yb), set(form.p)  # once: the loop stays linear in the size
+    # an algebraic value at an end follows the states there (and the parameters its equations hold)
+    za, zb = set(form.za), set(form.zb)
+    held = set().union(*(g.free_symbols for g in form.constraints)) & p
     for e in form.conditions:
         used = e.free_symbols
-        left, right = bool(used & ya), bool(used & yb)
-        if used & p or left == right:
+        left, right = bool(used & (ya | za)), bool(used & (yb | zb))
+        if used & p or (held and used & (za | zb)) or left == right:
             sides.append(2)
         else:
             sides.append(0 if left else 1)
@@ -272,13 +275,18 @@ def _system_programs(form) -> tuple[list[dict[str, Any]], np.ndarray]:
     """Programs of the standard form's callables: ``rhs``, its Jacobians in ``y``, ``p`` and the
     constants ``k`` (continuation frees a constant by reading its column), the conditions and
     their Jacobians, the singular matrix and the region maps."""
-    n, n_p, n_k = len(form.rhs), len(form.p), len(form.k)
-    xyk = [("x", [X]), ("y", form.y), ("p", form.p), ("k", form.k)]
-    ab = [("ya", form.ya), ("yb", form.yb), ("p", form.p), ("k", form.k)]
+    # With algebraic unknowns the programs take Y and Z as one vector and give F and G as one:
+    # rows of rhs are (F, G), columns of jac (d/dY, d/dZ); compiled.py solves G = 0 for Z.
+    n = len(form.rhs)
+    w, wa, wb = (*form.y, *form.z), (*form.ya, *form.za), (*form.yb, *form.zb)
+    rows = (*form.rhs, *form.constraints)
+    width, n_p, n_k = len(w), len(form.p), len(form.k)
+    xyk = [("x", [X]), ("y", w), ("p", form.p), ("k", form.k)]
+    ab = [("ya", wa), ("yb", wb), ("p", form.p), ("k", form.k)]
     pk = [("p", form.p), ("k", form.k)]
     m = len(form.conditions)
-    jac = _derivatives(form.rhs, form.y)
-    pattern = np.zeros((n, n), dtype=bool)
+    jac = _derivatives(rows, w)
+    pattern = np.zeros((width, width), dtype=bool)
     for i, j in jac:
         pattern[i, j] = True
     singular = {}
@@ -288,13 +296,13 @@ def _system_programs(form) -> tuple[list[dict[str, Any]], np.ndarray]:
             pattern[i, j] = True
     maps = {(r, c): e for r, pair in enumerate(form.maps) for c, e in enumerate(pair) if e != 0}
     programs = [
-        _function_program("rhs", xyk, {(i,): e for i, e in enumerate(form.rhs) if e != 0}, (n,), "y"),
-        _function_program("jac", xyk, jac, (n, n), "y"),
-        _function_program("pjac", xyk, _derivatives(form.rhs, form.p), (n, n_p), "y"),
-        _function_program("kjac", xyk, _derivatives(form.rhs, form.k), (n, n_k), "y"),
+        _function_program("rhs", xyk, {(i,): e for i, e in enumerate(rows) if e != 0}, (width,), "y"),
+        _function_program("jac", xyk, jac, (width, width), "y"),
+        _function_program("pjac", xyk, _derivatives(rows, form.p), (width, n_p), "y"),
+        _function_program("kjac", xyk, _derivatives(rows, form.k), (width, n_k), "y"),
         _function_program("bc", ab, {(i,): e for i, e in enumerate(form.conditions) if e != 0}, (m,), None),
-        _function_program("bc_jac_a", ab, _derivatives(form.conditions, form.ya), (m, n), None),
-        _function_program("bc_jac_b", ab, _derivatives(form.conditions, form.yb), (m, n), None),
+        _function_program("bc_jac_a", ab, _derivatives(form.conditions, wa), (m, width), None),
+        _function_program("bc_jac_b", ab, _derivatives(form.conditions, wb), (m, width), None),
         _function_program("bc_jac_p", ab, _derivatives(form.conditions, form.p), (m, n_p), None),
         _function_program("bc_jac_k", ab, _derivatives(form.conditions, form.k), (m, n_k), None),
         _function_program("singular_matrix", pk, singular, (n, n), None),

@@ -27,6 +27,7 @@ import numpy as np
 
 from .. import __version__
 from ..errors import ProgramError
+from .algebraic import StateSpace
 from .layout import StateLayout
 from .program import build, stored_size
 
@@ -43,7 +44,8 @@ def note(message: str) -> None:
 
 
 #: What each need of a system is, in words (refusals of a method that does not take it).
-NEEDS = {"singular_term": "the term S y/(x - a) singular at the left end"}
+NEEDS = {"singular_term": "the term S y/(x - a) singular at the left end",
+         "algebraic": "algebraic equations beside the differential ones"}
 
 
 class CompiledSystem:
@@ -79,8 +81,18 @@ class CompiledSystem:
     """
 
     def __init__(self, layout: StateLayout, functions: dict[str, Callable], pattern: np.ndarray,
-                 sides: np.ndarray, programs: tuple):
-        self.layout, self.jac_pattern, self.bc_sides, self.programs = layout, pattern, sides, programs
+                 sides: np.ndarray, programs: tuple, space: StateSpace | None = None):
+        self.layout, self.bc_sides, self.programs = layout, sides, programs
+        self.raw_pattern, self._raw = pattern, functions
+        self.space = space
+        if layout.algebraic and space is None:
+            space = self.space = StateSpace(functions, layout.n, layout.n_algebraic)
+        if space is not None:
+            # the state-space form: Z solved at every point, F and the conditions reduced to Y
+            functions = {**functions, "rhs": space.rhs, "jac": space.jac, "pjac": space.pjac,
+                         "kjac": space.kjac, "bc": space.bc, "bc_jac_k": space.bc_kjac}
+            pattern = _reduced_pattern(pattern, layout.n)
+        self.jac_pattern = pattern
         self._f = functions
         self.bc = functions["bc"]
         self.bc_kjac = functions["bc_jac_k"]
@@ -96,12 +108,46 @@ class CompiledSystem:
     @property
     def needs(self) -> frozenset[str]:
         """What a method must take to solve this system beyond a plain standard form
-        (``"singular_term"``: the term ``S Y / t``); methods declare what they take."""
-        return frozenset({"singular_term"}) if self.layout.singular else frozenset()
+        (``"singular_term"``: the term ``S Y / t``; ``"algebraic"``: algebraic unknowns, solved
+        inside the callables); methods declare what they take."""
+        return frozenset({"singular_term"} if self.layout.singular else ()) | frozenset(
+            {"algebraic"} if self.space is not None else ())
 
     def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        if self.space is not None:
+            return self.space.bc_jac(ya, yb, p, k)
         f = self._f
         return f["bc_jac_a"](ya, yb, p, k), f["bc_jac_b"](ya, yb, p, k), f["bc_jac_p"](ya, yb, p, k)
+
+    # -- algebraic unknowns (empty for a system without them) --------------------------------
+    def algebraic(self, x, y, p, k) -> np.ndarray:  # noqa: ANN001
+        """The algebraic unknowns ``Z`` at the points, shape ``(n_algebraic, m)`` (empty when
+        there are none), solved from the algebraic equations (see
+        :mod:`bvpkit.programs.algebraic`)."""
+        if self.space is None:
+            return np.zeros((0,) + np.shape(y)[1:])
+        return self.space.values(x, y, p, k)
+
+    def algebraic_residual(self, x, y, p, k) -> float:  # noqa: ANN001
+        """Largest residual ``|G| / (1 + |Z|)`` of the algebraic equations at the points (0 when
+        there are none)."""
+        return 0.0 if self.space is None else self.space.residual(x, y, p, k)
+
+    def seed(self, x, y, p, k, start: np.ndarray | None = None) -> np.ndarray:  # noqa: ANN001
+        """Start a solve's inner solves of the algebraic equations (their branch) on the mesh
+        ``x`` along ``y``: see :meth:`bvpkit.programs.algebraic.StateSpace.seed`."""
+        if self.space is None:
+            return np.zeros((0,) + np.shape(y)[1:])
+        return self.space.seed(x, y, p, k, start)
+
+    def holding(self, t, y, p, k) -> CompiledSystem:  # noqa: ANN001
+        """This system, its algebraic unknowns solved from the solution ``(t, y)``'s own values
+        (itself when there are none): what a solution keeps, so its values stay on its own
+        branch whatever is solved later."""
+        if self.space is None:
+            return self
+        return CompiledSystem(self.layout, self._raw, self.raw_pattern, self.bc_sides, self.programs,
+                              self.space.holding(t, y, p, k))
 
     @property
     def n(self) -> int:
@@ -182,6 +228,19 @@ class CompiledSystem:
                 P = D @ P
         return P
 
+    def share_starts(self, other: CompiledSystem) -> None:
+        """Let this system's inner solves of the algebraic equations start where ``other``'s do
+        (a system derived from it with the same states and algebraic equations: the path of a
+        continuation from an easier problem), so both stay on the branch the guess picked."""
+        if self.space is not None and getattr(other, "space", None) is not None and (
+                (self.space.n, self.space.nz) == (other.space.n, other.space.nz)):
+            self.space.share(other.space)
+
+    def algebraic_trouble(self) -> list:
+        """Where the algebraic equations could not be solved since the solve began (see
+        :attr:`bvpkit.programs.algebraic.StateSpace.trouble`)."""
+        return [] if self.space is None else self.space.trouble
+
     def freeing(self, *names: str) -> Freed:
         """A view of this system with the constants ``names`` solved for, as the last parameters."""
         return Freed(self, [self.layout.constants.index(name) for name in names])
@@ -237,6 +296,16 @@ class Freed:
 
     def maps(self, p, k):  # noqa: ANN001, ANN201
         return self.base.maps(*self._split(p, k))
+
+    def algebraic(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.algebraic(x, y, *self._split(p, k))
+
+    def algebraic_residual(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.algebraic_residual(x, y, *self._split(p, k))
+
+    @property
+    def needs(self) -> frozenset[str]:
+        return self.base.needs
 
     def row_scale(self, p, k):  # noqa: ANN001, ANN201
         return self.base.row_scale(*self._split(p, k))
@@ -543,9 +612,18 @@ _FUNCTIONS = ["rhs", "jac", "pjac", "kjac", "bc", "bc_jac_a", "bc_jac_b", "bc_ja
 
 def _expected_shapes(layout: StateLayout, m: int) -> dict[str, list[int]]:
     n, n_p, n_k = layout.n, len(layout.parameters), len(layout.constants)
-    return {"rhs": [n], "jac": [n, n], "pjac": [n, n_p], "kjac": [n, n_k], "singular_matrix": [n, n],
-            "region_maps": [layout.regions, 2], "bc": [m], "bc_jac_a": [m, n], "bc_jac_b": [m, n],
+    w = n + layout.n_algebraic  # the programs take (Y, Z) and give (F, G)
+    return {"rhs": [w], "jac": [w, w], "pjac": [w, n_p], "kjac": [w, n_k], "singular_matrix": [n, n],
+            "region_maps": [layout.regions, 2], "bc": [m], "bc_jac_a": [m, w], "bc_jac_b": [m, w],
             "bc_jac_p": [m, n_p], "bc_jac_k": [m, n_k]}
+
+
+def _reduced_pattern(pattern: np.ndarray, n: int) -> np.ndarray:
+    """Which entries of ``F_Y - F_Z G_Z^-1 G_Y`` can be non-zero, from the pattern over ``(Y, Z)``
+    (``G_Z^-1`` taken as full: a row of F that holds any Z may depend on every Y that any G holds)."""
+    pattern = np.asarray(pattern, bool)
+    through = pattern[:n, n:].any(axis=1)[:, None] & pattern[n:, :n].any(axis=0)[None, :]
+    return pattern[:n, :n] | through
 
 
 def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray, sides: np.ndarray) -> CompiledSystem:
@@ -558,13 +636,14 @@ def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray,
         outside the grammar; or ``pattern``, ``sides`` do not fit the layout.
     """
     pattern, sides = np.asarray(pattern), np.asarray(sides)
-    if (pattern.shape != (layout.n, layout.n) or pattern.dtype != bool or sides.ndim != 1
+    w = layout.n + layout.n_algebraic
+    if (pattern.shape != (w, w) or pattern.dtype != bool or sides.ndim != 1
             or not np.isin(sides, (0, 1, 2)).all()):
         raise ProgramError("the Jacobian pattern or the condition sides do not fit the state layout")
     shapes = _expected_shapes(layout, sides.size)
-    n, n_p, n_k = layout.n, len(layout.parameters), len(layout.constants)
-    xyk = [["x", 1], ["y", n], ["p", n_p], ["k", n_k]]
-    ab = [["ya", n], ["yb", n], ["p", n_p], ["k", n_k]]
+    n_p, n_k = len(layout.parameters), len(layout.constants)
+    xyk = [["x", 1], ["y", w], ["p", n_p], ["k", n_k]]  # (Y, Z) as one vector
+    ab = [["ya", w], ["yb", w], ["p", n_p], ["k", n_k]]
     arguments = {name: (xyk, "y") if name in ("rhs", "jac", "pjac", "kjac") else ([["p", n_p], ["k", n_k]], None)
                  if name in ("singular_matrix", "region_maps") else (ab, None) for name in shapes}
     if (not isinstance(programs, Sequence) or len(programs) != len(_FUNCTIONS)

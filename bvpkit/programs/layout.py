@@ -62,6 +62,10 @@ class StateLayout(States):
         A term ``S Y / t`` singular at ``t = 0`` is part of the equations.
     stretch : tuple of int
         Per region, the power ``d`` of its map ``x = c_r + h_r t**d`` (empty: all affine).
+    algebraic : tuple of str
+        One region's algebraic unknowns (empty for most problems): not states of ``Y``, but
+        values ``Z`` the algebraic equations fix at every point (``Z`` stacks the regions
+        like ``Y``: row ``r * len(algebraic) + j``).
     """
 
     key: str
@@ -75,6 +79,12 @@ class StateLayout(States):
     condition_kinds: tuple[str, ...] = ()
     singular: bool = False
     stretch: tuple[int, ...] = ()
+    algebraic: tuple[str, ...] = ()
+
+    @property
+    def n_algebraic(self) -> int:
+        """Size of ``Z``: all regions' algebraic unknowns."""
+        return self.regions * len(self.algebraic)
 
     @property
     def n(self) -> int:
@@ -112,5 +122,6 @@ class StateLayout(States):
             fields[name] = tuple((str(a), int(b)) for a, b in fields[name])
         for name in ("parameters", "constants", "condition_kinds"):
             fields[name] = tuple(fields[name])
+        fields["algebraic"] = tuple(str(a) for a in fields.get("algebraic", ()))
         fields["stretch"] = tuple(int(v) for v in fields.get("stretch", ()))
         return cls(**fields)

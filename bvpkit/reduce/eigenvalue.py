@@ -57,9 +57,14 @@ class Eigenvalue(Transform):
         problem = work.problem
         lam = work.names.p[sp.Symbol(problem.eigenvalue)]
         users = len(work.user_states)
-        for system in work.systems:
+        for r, system in enumerate(work.systems):
             with budget("checking that the eigenvalue problem is linear"):
-                _check_linear(system[:users], work.local[:users], lam, problem)
+                # algebraic unknowns and equations (if any) are part of the linear system
+                held = work.constraints[r] if work.constraints else []
+                _check_linear([*system[:users], *held], [*work.local[:users], *work.zlocal], lam, problem)
+                if any(g.has(lam) for g in held):
+                    raise ProblemError(f"eigenvalue '{problem.eigenvalue}': the algebraic equations must not hold "
+                                       "it; write it in the differential equations")
         values = [work.local[i] for i, (_, order) in enumerate(work.states[:users]) if order == 0]
         work.scratch[cls.kind] = work.add_state(NORMALISATION,
                                                 [sum(v**2 for v in values)] * len(work.systems))

@@ -102,6 +102,15 @@ class StandardForm(States):
     transforms : tuple of Transform
         The problem's classes, as the plain-data objects whose numerical hooks the solve
         driver, continuation and settling call (:mod:`bvpkit.reduce.transform`).
+    algebraic : tuple of str
+        One region's algebraic unknowns (functions without derivatives), ``Z`` stacking
+        ``regions`` copies of them (empty for most problems).
+    constraints : tuple of sympy.Expr, length regions * len(algebraic)
+        ``G(t, Y, Z, p, k)``: the algebraic equations ``0 = G``, the ``j``-th of a region the one
+        that determines its ``j``-th algebraic unknown (index 1: ``dG/dZ`` non-singular; see
+        :mod:`bvpkit.reduce.algebraic`). ``F`` and the conditions may hold ``Z`` (symbols
+        :attr:`z`, :attr:`za`, :attr:`zb`, numbered after ``Y``'s: the generated code takes
+        ``(Y, Z)`` as one vector).
     """
 
     independent: str
@@ -120,9 +129,14 @@ class StandardForm(States):
     point_conditions: tuple = ()
     stretch: tuple = ()
     transforms: tuple = ()
+    algebraic: tuple = ()
+    constraints: tuple = ()
     y: tuple = field(init=False, repr=False)
     ya: tuple = field(init=False, repr=False)
     yb: tuple = field(init=False, repr=False)
+    z: tuple = field(init=False, repr=False)
+    za: tuple = field(init=False, repr=False)
+    zb: tuple = field(init=False, repr=False)
     p: tuple = field(init=False, repr=False)
     k: tuple = field(init=False, repr=False)
 
@@ -131,6 +145,10 @@ class StandardForm(States):
         object.__setattr__(self, "y", _symbols("y", n))
         object.__setattr__(self, "ya", _symbols("ya", n))
         object.__setattr__(self, "yb", _symbols("yb", n))
+        for name in ("z", "za", "zb"):  # after Y's: _y{n}, _y{n+1}, ...
+            prefix = "y" + name[1:]
+            object.__setattr__(self, name, tuple(sp.Symbol(f"_{prefix}{n + i}", real=True)
+                                                 for i in range(len(self.constraints))))
         object.__setattr__(self, "p", _symbols("p", len(self.parameters)))
         object.__setattr__(self, "k", _symbols("k", len(self.constants)))
 
@@ -150,6 +168,7 @@ class StandardForm(States):
             key=self.key(), independent=self.independent, functions=self.functions, states=self.states,
             users=self.users, regions=self.regions, parameters=self.parameters, constants=self.constants,
             condition_kinds=self.condition_kinds, singular=self.singular is not None, stretch=tuple(self.stretch),
+            algebraic=tuple(self.algebraic),
         )
 
 
@@ -235,7 +254,18 @@ class Reduction:
     local : tuple of sympy.Symbol
         One region's state symbols while its system is formed (room for every added state).
     systems : list of list of sympy.Expr
-        Per region, the right-hand sides in the user's variable ``_xphys`` and ``local``.
+        Per region, the right-hand sides in the user's variable ``_xphys``, ``local`` and
+        ``zlocal``.
+    algebraic : list of str
+        The algebraic unknowns (no derivatives in the equations).
+    zlocal : tuple of sympy.Symbol
+        One region's symbols of the algebraic unknowns.
+    equations, texts : list of list
+        Per region, the equations still to be made first order, and their text (a class may
+        set some aside before: :meth:`~bvpkit.reduce.transform.Transform.equations`).
+    constraints : list of list of sympy.Expr
+        Per region, the algebraic equations ``0 = G`` in ``_xphys``, ``local`` and ``zlocal``,
+        the ``j``-th determining the ``j``-th algebraic unknown.
     substitutions : dict
         Replacements made in every given condition (an integral by its added state's end value).
     given : list of sympy.Expr
@@ -259,7 +289,13 @@ class Reduction:
     user_states: list
     states: list
     local: tuple
-    systems: list
+    systems: list = field(default_factory=list)
+    algebraic: list = field(default_factory=list)
+    zlocal: tuple = ()
+    equations: list = field(default_factory=list)
+    texts: list = field(default_factory=list)
+    constraints: list = field(default_factory=list)
+    zvalues: dict = field(default_factory=dict)
     substitutions: dict = field(default_factory=dict)
     given: list = field(default_factory=list)
     conditions: list = field(default_factory=list)
@@ -283,6 +319,16 @@ class Reduction:
             raise ProblemError("a one-sided value outside the domain")
         return self.values.setdefault((state, point, side), sp.Symbol(f"_v{state}_{point}_{side}", real=True))
 
+    def algebraic_value(self, j: int, point: int, side: int) -> sp.Symbol:
+        """The symbol of algebraic unknown ``j``'s value at an end or interface (``side`` as in
+        :meth:`value`: a region's own value, read from the left where not one-sided)."""
+        side = side or (1 if point == 0 else -1)
+        return self.zvalues.setdefault((j, point, side), sp.Symbol(f"_w{j}_{point}_{side}", real=True))
+
+    def replacements(self) -> dict:
+        """The user's functions and derivatives (and the variable) to one region's local symbols."""
+        return _local_replace(self.problem, self.user_states, self.local, self.zlocal)
+
     def add_state(self, description: str, rhs_per_region: list) -> int:
         """An added state (``(description, 0)``) with its right-hand side in each region."""
         self.states.append((description, 0))
@@ -299,14 +345,21 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
 
     classes = [cls for cls in PIPELINE if cls.applies(problem)]
     names = _names(problem, classes)
-    functions = tuple((f, problem.orders[f]) for f in problem.unknowns)
+    functions = tuple((f, problem.orders[f]) for f in problem.unknowns if problem.orders[f] > 0)
     user_states = tuple((f, j) for f, order in functions for j in range(order))
     room = len(user_states) + sum(cls.room(problem) for cls in classes)
     local = _symbols("s", room)  # one region's states while its system is formed
+    work = Reduction(problem, names, list(user_states), list(user_states), local,
+                     algebraic=list(problem.algebraic), zlocal=_symbols("a", len(problem.algebraic)))
+    work.equations = [list(region.equations) for region in problem.regions]
+    work.texts = [list(region.equation_text) for region in problem.regions]
+    work.constraints = [[] for _ in problem.regions]
+    # 0. equations a class sets aside (the algebraic ones)
+    for cls in classes:
+        cls.set_aside(work)
     # 1. each region's first-order system in the user's variable
-    systems = [_first_order(problem, region, user_states, local, names.region(r))
-               for r, region in enumerate(problem.regions)]
-    work = Reduction(problem, names, list(user_states), list(user_states), local, systems)
+    work.systems = [_first_order(problem, work.equations[r], work.texts[r], user_states, local, work.zlocal,
+                                 names.region(r)) for r in range(len(problem.regions))]
     work.points = tuple(p.xreplace(names.region(0)) for p in problem.points)
     # 2. added states (integrals of the conditions, the eigenvalue's normalisation)
     for cls in classes:
@@ -337,22 +390,32 @@ def _assemble(work: Reduction, transforms: list) -> StandardForm:
     """The regions' systems mapped onto ``[0, 1]`` and stacked into one ``Y``; conditions on
     ``Y(0)`` and ``Y(1)``."""
     problem, names, systems = work.problem, work.names, work.systems
-    rhs = []
+    rhs, constraints = [], []
     for r, system in enumerate(systems):
         c, h = work.maps[r]
         for f in system:
             rhs.append(h * f.xreplace({_PHYSICAL: c + h * X}))
+        for g in work.constraints[r]:  # an algebraic equation holds at each point: no factor h
+            constraints.append(g.xreplace({_PHYSICAL: c + h * X}))
     n_region = len(work.states)
     total = n_region * len(systems)
+    n_alg = len(work.algebraic)
     y = _symbols("y", total)
+    z = tuple(sp.Symbol(f"_y{total + i}", real=True) for i in range(n_alg * len(systems)))  # StandardForm.z
     for r in range(len(systems)):
         swap = {work.local[i]: y[r * n_region + i] for i in range(n_region)}
+        swap.update({work.zlocal[j]: z[r * n_alg + j] for j in range(n_alg)})
         for i in range(n_region):
             rhs[r * n_region + i] = rhs[r * n_region + i].xreplace(swap)
+        for j in range(n_alg):
+            constraints[r * n_alg + j] = constraints[r * n_alg + j].xreplace(swap)
     ya, yb = _symbols("ya", total), _symbols("yb", total)
     ends = {}
     for (state, point, side), symbol in work.values.items():
         ends[symbol] = yb[(point - 1) * n_region + state] if side < 0 else ya[point * n_region + state]
+    for (j, point, side), symbol in work.zvalues.items():  # StandardForm.za, zb
+        row = total + ((point - 1) if side < 0 else point) * n_alg + j
+        ends[symbol] = sp.Symbol(f"_{'yb' if side < 0 else 'ya'}{row}", real=True)
     stacked = [c.xreplace(ends) for c, _ in work.conditions]
     matrix = None
     if work.singular is not None:
@@ -365,9 +428,11 @@ def _assemble(work: Reduction, transforms: list) -> StandardForm:
     if work.power > 1:  # the map in the user's variable: x = a + (h_xi t)**d
         maps = [(work.points[0], maps[0][1] ** work.power)]
     names_of_values = tuple((symbol.name, state, point, side) for (state, point, side), symbol in work.values.items())
+    algebraic_values = set(work.zvalues.values())  # the default guess reads conditions on the states alone
+    given = tuple(c for c in work.given if not c.free_symbols & algebraic_values)
     return StandardForm(
         independent=problem.independent,
-        functions=tuple((f, problem.orders[f]) for f in problem.unknowns),
+        functions=tuple((f, problem.orders[f]) for f in problem.unknowns if problem.orders[f] > 0),
         states=tuple(work.states),
         users=len(work.user_states),
         regions=len(systems),
@@ -379,46 +444,48 @@ def _assemble(work: Reduction, transforms: list) -> StandardForm:
         maps=tuple(maps),
         points=work.points,
         singular=matrix,
-        point_conditions=(tuple(work.given), names_of_values),
+        point_conditions=(given, names_of_values),
         stretch=(work.power,) if work.power > 1 else (),
         transforms=tuple(transforms),
+        algebraic=tuple(work.algebraic),
+        constraints=tuple(constraints),
     )
 
 
 # -- the transforms -------------------------------------------------------------------------
-def _first_order(problem, region, user_states, local, names) -> list:  # noqa: ANN001
-    """One region's equations as ``s' = f(x, s, p, k)`` over the user states."""
+def _first_order(problem, equations, texts, user_states, local, zlocal, names) -> list:  # noqa: ANN001
+    """One region's (differential) equations as ``s' = f(x, s, z, p, k)`` over the user states,
+    ``z`` the algebraic unknowns' symbols ``zlocal``."""
     x = problem.x
-    tops = {name: sp.Symbol(f"_top_{name}", real=True) for name in problem.unknowns}
-    replace: dict = dict(names)
-    replace[x] = _PHYSICAL
-    for i, (name, order) in enumerate(user_states):
-        f = sp.Function(name)(x)
-        replace[f if order == 0 else sp.Derivative(f, (x, order))] = local[i]
-    for name in problem.unknowns:
+    differential = [name for name in problem.unknowns if problem.orders[name] > 0]
+    tops = {name: sp.Symbol(f"_top_{name}", real=True) for name in differential}
+    replace: dict = {**names, **_local_replace(problem, user_states, local, zlocal)}
+    for name in differential:
         f = sp.Function(name)(x)
         replace[sp.Derivative(f, (x, problem.orders[name]))] = tops[name]
-    equations = [eq.xreplace(replace) for eq in region.equations]
-    for eq, text in zip(equations, region.equation_text):
+    equations = [eq.xreplace(replace) for eq in equations]
+    for eq, text in zip(equations, texts):
         leftover = eq.atoms(AppliedUndef, sp.Derivative)
         if leftover:  # pragma: no cover - Problem validation prevents this
             raise ProblemError(f"equation ({text}): could not read {sorted(map(str, leftover))[0]}")
     with budget("isolating the highest derivatives", advice="write each equation solved for its highest derivative"):
-        solved = _isolate(equations, [tops[n] for n in problem.unknowns], problem)
-    check_sizes({f"the expression of {n}{chr(39) * problem.orders[n]}": e for n, e in zip(problem.unknowns, solved)},
+        solved = _isolate(equations, [tops[n] for n in differential], problem)
+    check_sizes({f"the expression of {n}{chr(39) * problem.orders[n]}": e for n, e in zip(differential, solved)},
                 step="isolating the highest derivatives")
     rhs = []
     for i, (name, order) in enumerate(user_states):
-        rhs.append(local[i + 1] if order + 1 < problem.orders[name] else solved[problem.unknowns.index(name)])
+        rhs.append(local[i + 1] if order + 1 < problem.orders[name] else solved[differential.index(name)])
     return rhs
 
 
-def _local_replace(problem, user_states, local) -> dict:  # noqa: ANN001
+def _local_replace(problem, user_states, local, zlocal=()) -> dict:  # noqa: ANN001
     x = problem.x
     replace = {x: _PHYSICAL}
     for i, (name, order) in enumerate(user_states):
         f = sp.Function(name)(x)
         replace[f if order == 0 else sp.Derivative(f, (x, order))] = local[i]
+    for j, symbol in enumerate(zlocal):
+        replace[sp.Function(problem.algebraic[j])(x)] = symbol
     return replace
 
 
@@ -430,7 +497,10 @@ def _given_conditions(work: Reduction) -> list:
         swap: dict = dict(work.substitutions)
         for pv in problem.point_values(c):
             j = problem.which_point(pv.point)
-            swap[pv.node] = work.value(work.user_states.index((pv.name, pv.order)), j, pv.side)
+            if pv.name in work.algebraic:
+                swap[pv.node] = work.algebraic_value(work.algebraic.index(pv.name), j, pv.side)
+            else:
+                swap[pv.node] = work.value(work.user_states.index((pv.name, pv.order)), j, pv.side)
         swap.update({s: names.k.get(s, names.p.get(s)) for s in c.free_symbols if s in names.k or s in names.p})
         result.append(c.xreplace(swap))
     return result
@@ -495,14 +565,16 @@ def path_form(form: StandardForm) -> StandardForm:
         ends = {**dict(zip(form.ya, anchors)), **dict(zip(form.yb, anchors))}
         conditions = tuple(scaled(g, [*form.ya, *form.yb], ends) for g in form.conditions)
     maps, points = form.maps, form.points
+    constraints = form.constraints  # the algebraic equations are kept as they are
     if form.regions == 1:
         rhs = [r * f.xreplace({X: r * X}) for f in rhs]
+        constraints = tuple(g.xreplace({X: r * X}) for g in constraints)
         power = form.stretch[0] if form.stretch else 1
         c, h = form.maps[0]
         maps = ((c, h * r**power),)
         points = (form.points[0], c + h * r**power)
     return dataclasses.replace(form, rhs=tuple(rhs), conditions=conditions, constants=constants, maps=maps,
-                               points=points)
+                               points=points, constraints=constraints)
 
 
 # -- helpers ---------------------------------------------------------------------------------
@@ -539,7 +611,7 @@ def _one_each(equations: list[sp.Expr], tops: list[sp.Symbol]) -> list[sp.Expr] 
 
 
 def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[sp.Expr]:  # noqa: ANN001
-    names = [f"{n}{chr(39) * problem.orders[n]}" for n in problem.unknowns]
+    names = [f"{n}{chr(39) * problem.orders[n]}" for n in problem.unknowns if problem.orders[n] > 0]
     one_each = _one_each(equations, tops)
     if one_each is not None:
         return one_each

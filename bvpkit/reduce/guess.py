@@ -101,6 +101,9 @@ def guess_recipes(problem, form) -> dict[str, GuessRecipe]:  # noqa: ANN001 - Pr
         else:
             index = index or _condition_index(form)  # once per problem, not once per function
             recipes[name] = _polynomial_recipe(form, name, order, index)
+    for name in form.algebraic:  # where the inner solves of an algebraic unknown start (no recipe: a constant)
+        recipes[name] = (expression_recipe(problem, form, name, problem.guess[name]) if name in problem.guess
+                         else GuessRecipe(name, 1, "polynomial"))
     return recipes
 
 
@@ -135,7 +138,7 @@ def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa:
     if not isinstance(e, sp.Basic):  # parsed by Problem (expr.parse); text never reaches SymPy here
         raise TypeError(f"a guess expression must be parsed first, got {type(e).__name__}")
     e = e.xreplace(names)
-    order = dict(form.functions)[name]
+    order = dict(form.functions).get(name, 1)  # an algebraic unknown: its value alone
     derivatives = [e]
     for _ in range(order - 1):
         derivatives.append(derivative(derivatives[-1], X))

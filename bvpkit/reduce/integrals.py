@@ -45,7 +45,7 @@ class Integrals(Transform):
     @classmethod
     def states(cls, work) -> None:  # noqa: ANN001
         problem = work.problem
-        replace = _form._local_replace(problem, work.user_states, work.local)
+        replace = work.replacements()
         added = []
         for g in _found(problem):
             integrand = [g.args[0].xreplace({**replace, **work.names.region(r)}) for r in range(len(work.systems))]

@@ -33,5 +33,6 @@ class Periodic(Transform):
         system = work.systems[0]
         a = work.problem.points[0].xreplace(work.names.region(0))
         swap = {work.local[i]: work.value(i, 0, 1) for i in range(len(system))}
+        swap.update({z: work.algebraic_value(j, 0, 1) for j, z in enumerate(work.zlocal)})
         swap[_form._PHYSICAL] = a
         work.conditions.append((system[0].xreplace(swap), "phase"))

@@ -300,7 +300,7 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
         "outputs": dict(problem.outputs), "settings": dict(problem.settings), "arguments": _plain_arguments(problem),
         "points": problem.point_labels, "own": _own(problem),
     }
-    system = {"programs": list(compiled.programs), "pattern": compiled.jac_pattern.tolist(),
+    system = {"programs": list(compiled.programs), "pattern": compiled.raw_pattern.tolist(),
               "sides": compiled.bc_sides.tolist()}
     quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
     return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,

@@ -8,8 +8,8 @@
   a function read from the equations (the slope of the state below it);
 * ``integral(...)`` becomes a placeholder filled by quadrature of its integrand, itself a
   quantity;
-* what remains is a function of the running point ``x``, the user states and highest
-  derivatives there, ``p``, ``k`` and the placeholders.
+* what remains is a function of the running point ``x``, the user states, highest
+  derivatives and algebraic unknowns there, ``p``, ``k`` and the placeholders.
 """
 
 from __future__ import annotations
@@ -30,11 +30,13 @@ class Quantity:
     ----------
     program : dict
         The generated function ``quantity(x, y, p, k, t)`` as plain data (:mod:`bvpkit.programs.program`);
-        ``y`` holds the user states of a region, then the highest derivative of each function.
+        ``y`` holds the user states of a region, then the highest derivative of each function,
+        then the algebraic unknowns.
     points : list of (float or dict, int, int, int)
         ``(point, state, order, side)`` per point value: the point a number (``inf`` for an
         infinite end) or the program of a function of ``(x, p, k)``; ``state`` the row of the
-        function's value in a region; ``side`` -1, 0 or +1.
+        function's value in a region (past the region's states: an algebraic unknown, by
+        its place in ``layout.algebraic``); ``side`` -1, 0 or +1.
     integrals : list of Quantity
         Integrands of ``integral(...)`` placeholders (after the point values in ``t``).
     running : bool
@@ -57,8 +59,10 @@ class Quantity:
 
 
 def input_symbols(form) -> tuple:  # noqa: ANN001 - a StandardForm
-    """The symbols a quantity's ``y`` holds: the user states, then each function's highest derivative."""
-    return tuple(sp.Symbol(f"_y{i}", real=True) for i in range(form.users + len(form.functions)))
+    """The symbols a quantity's ``y`` holds: the user states, then each function's highest
+    derivative, then the algebraic unknowns."""
+    return tuple(sp.Symbol(f"_y{i}", real=True)
+                 for i in range(form.users + len(form.functions) + len(form.algebraic)))
 
 
 def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity:  # noqa: ANN001
@@ -87,6 +91,11 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
         else:  # a point that depends on constants or parameters: a function of them
             at = compile_expressions([where], [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").program
         order = int(pv.order)
+        if pv.name in form.algebraic:  # its value, in the rows after a region's states
+            state = len(form.states) + form.algebraic.index(pv.name)
+            points.append((at, int(state), order, int(pv.side)))
+            placeholders.append(symbol)
+            continue
         highest = order == problem.orders[pv.name]
         state = form.states.index((pv.name, order - 1 if highest else order))
         points.append((at, int(state), order, int(pv.side)))
@@ -96,6 +105,8 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
         for j in range(order):
             replace[f if j == 0 else sp.Derivative(f, (problem.x, j))] = y[form.states.index((name, j))]
         replace[sp.Derivative(f, (problem.x, order))] = y[form.users + f_index]
+    for j, name in enumerate(form.algebraic):
+        replace[sp.Function(name)(problem.x)] = y[form.users + len(form.functions) + j]
     # the integrals' values follow the point values in ``t``, named as the program grammar allows
     filled = [sp.Symbol(f"_t_point{len(points) + j}", real=True) for j in range(len(integrals))]
     replace.update({g: s for (g, _, _), s in zip(integrals, filled)})

@@ -27,7 +27,7 @@ _form = LazyModule("bvpkit.reduce.form")  # SymPy's work: loaded only when a pro
 _MAX_STRETCH = 6
 
 
-def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
+def _stretch(problem, systems, points, parameters: set, constraints=None):  # noqa: ANN001, ANN202
     """Fractional powers of ``x - a`` at the finite left end ``a`` removed by ``x - a = xi**d``.
 
     ``1/sqrt(x)``, ``sqrt(x)`` and ``x**(3/2)`` at ``a = 0`` make the equations singular (or
@@ -47,7 +47,8 @@ def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
         return 1, points
     z = sp.Dummy("z", positive=True)
     power = 1
-    for f in systems[0]:
+    held = list(constraints[0]) if constraints else []  # algebraic equations: the same powers of x - a
+    for f in [*systems[0], *held]:
         shifted = f.xreplace({_form._PHYSICAL: a + z})
         for base, exponent in (q.as_base_exp() for q in shifted.atoms(sp.Pow)):
             if not (exponent.is_Rational and not exponent.is_Integer and base.has(z)):
@@ -71,6 +72,9 @@ def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
     xi = sp.Dummy("xi", positive=True)
     stretched = [power * xi ** (power - 1) * f.xreplace({_form._PHYSICAL: a + xi**power}) for f in systems[0]]
     systems[0][:] = [f.xreplace({xi: _form._PHYSICAL}) for f in stretched]
+    if held:  # an algebraic equation holds at each point: the variable changes, no factor
+        constraints[0][:] = [g.xreplace({_form._PHYSICAL: a + xi**power}).xreplace({xi: _form._PHYSICAL})
+                             for g in held]
     b = points[-1]
     return power, (sp.Integer(0), b if b in (sp.oo, -sp.oo) else (b - a) ** sp.Rational(1, power))
 
@@ -90,7 +94,8 @@ class EndStretch(Transform):
     @classmethod
     def system(cls, work) -> None:  # noqa: ANN001
         with budget("looking for fractional powers of the independent variable at the left end"):
-            work.power, work.ends = _stretch(work.problem, work.systems, work.points, work.parameter_symbols)
+            work.power, work.ends = _stretch(work.problem, work.systems, work.points, work.parameter_symbols,
+                                             work.constraints)
 
     @classmethod
     def finish(cls, work):  # noqa: ANN001, ANN206

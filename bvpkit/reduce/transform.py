@@ -16,6 +16,8 @@ only for a class that :meth:`Transform.applies`):
 
 1. ``names(problem, names)`` -- the constants and parameters the class adds (the
    truncation length of an infinite end; the eigenvalue);
+1a. ``set_aside(work)`` -- equations set aside before the rest are made first order (the
+   algebraic equations, as the standard form's ``G``);
 2. ``states(work)`` -- added states and their equations (an integral, the normalisation);
 3. ``conditions(work)`` -- added conditions (an added state's start, a phase condition);
 4. ``system(work)`` -- a rewrite of the regions' equations (a stretch of the variable, the
@@ -28,8 +30,13 @@ does nothing:
 
 * :meth:`Transform.constants` -- values of the constants the class added, from the options;
 * :meth:`Transform.start` -- the first iterate of a solve from scratch (the eigenvalue guess);
+* :meth:`Transform.begin` -- the start of every solve, from scratch or from a previous
+  solution, once the first iterate's states are known (where the algebraic unknowns' inner
+  Newton iterations start: the branch);
 * :meth:`Transform.around` -- a loop around a solve (lengthening a truncated domain);
 * :meth:`Transform.check` -- a verdict on a converged solution (the eigenvalue's mode);
+* :meth:`Transform.diagnose` -- the class's own cause of a failed solve, in words (where the
+  algebraic equations stop determining their unknowns);
 * :meth:`Transform.along` -- a check of each point of a trace (the far field);
 * :meth:`Transform.describe` -- what the class adds to a solution's message and diagnostics;
 * :meth:`Transform.ends` -- the true ends of the domain where the solved one differs.
@@ -83,6 +90,10 @@ class Transform:
         """Add constants or parameters to ``names`` (a :class:`~bvpkit.reduce.form.Names`)."""
 
     @classmethod
+    def set_aside(cls, work: Any) -> None:
+        """Take equations out of ``work.equations`` before the rest are made first order."""
+
+    @classmethod
     def states(cls, work: Any) -> None:
         """Add states and their right-hand sides to every region of ``work``."""
 
@@ -113,6 +124,11 @@ class Transform:
         guess expressions)."""
         return y, p
 
+    def begin(self, prepared: Any, t: Any, y: Any, p: Any, k: Any, guess: Any) -> None:
+        """The start of a solve on the mesh ``t`` from the states ``y``: ``guess`` is the
+        previous solution carried from (a :class:`~bvpkit.reduce.guess.Start`), or the guess
+        recipes in force (name -> :class:`~bvpkit.reduce.guess.GuessRecipe`)."""
+
     def around(self, solve: Callable[[Any], Any]) -> Callable[[Any], Any]:
         """A solve wrapped in this class's loop: ``solve(job) -> run`` in, the same out
         (:class:`bvpkit.solver.driver.Job` and :class:`~bvpkit.solver.driver.Run`)."""
@@ -120,6 +136,11 @@ class Transform:
 
     def check(self, prepared: Any, outcome: Any, k: Any) -> tuple[Any, str] | None:
         """A verdict ``(status, message)`` on a converged outcome, or None (no objection)."""
+        return None
+
+    def diagnose(self, prepared: Any, outcome: Any, k: Any) -> str | None:
+        """The cause of a failed outcome that this class can tell (it replaces the method's
+        words), or None."""
         return None
 
     def along(self, solution: Any, resolve: Callable[[Any, Any], Any], tol: float) -> Any:

@@ -135,6 +135,8 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
     for eq in (e for e in problem.equations if candidates and e.free_symbols & candidates):
         present = eq.atoms(sp.Derivative)
         for name in problem.unknowns:
+            if not problem.orders[name]:
+                continue  # an algebraic unknown: no highest derivative
             top = sp.Derivative(sp.Function(name)(x), (x, problem.orders[name]))
             if top not in present:
                 continue
@@ -205,6 +207,7 @@ def _system(prepared, deadline: float | None = None):  # noqa: ANN001, ANN202
 
         with preparation("preparing the linearised problem of the continuation", deadline=deadline):
             found = compile_system(path_form(standard_form(prepared.problem())))
+        found.share_starts(prepared.compiled)  # algebraic unknowns: on the branch of the user's problem
         if len(_SYSTEMS) > 100:
             _SYSTEMS.clear()
         _SYSTEMS[key] = found
@@ -394,7 +397,7 @@ def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001,
     own = {name for transform in prepared.transforms for name in transform.constants(None)}  # the classes' own
     constants = {**prepared.constants, **{name: float(k[i]) for i, name in enumerate(names)
                                          if name.startswith("_") and name not in own}}
-    plain = {"programs": list(system.programs), "pattern": system.jac_pattern.tolist(),
+    plain = {"programs": list(system.programs), "pattern": system.raw_pattern.tolist(),
              "sides": system.bc_sides.tolist()}
     return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain,
                                constants=constants, quantities={})

@@ -3,10 +3,12 @@
 The last guards (finite values; the estimate within the tolerance, or round-off times the
 stability constant bounding it: ``precision_limit``; an ill-conditioned problem said so), each
 problem class's verdict (:meth:`bvpkit.reduce.transform.Transform.check`: the eigenvalue's
-mode) and words (:meth:`~bvpkit.reduce.transform.Transform.describe`: where infinity was
-placed), a warning where the problem is nearly singular, the residuals and the diagnostics.
-``solve``, ``solve_at`` (continuation's natural steps), arclength points and fold curves all
-settle here.
+mode), its own cause of a failure (:meth:`~bvpkit.reduce.transform.Transform.diagnose`:
+where the algebraic equations lost their root) and words
+(:meth:`~bvpkit.reduce.transform.Transform.describe`: where infinity was placed), a warning
+where the problem is nearly singular, the residuals and the diagnostics. ``solve``,
+``solve_at`` (continuation's natural steps), arclength points and fold curves all settle
+here.
 """
 
 from __future__ import annotations
@@ -140,6 +142,12 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
         if verdict is not None:
             # the class's words: added to a success, or the reason it is not one
             status, message = verdict if verdict[0] is not Status.SOLVED else (status, f"{message}; {verdict[1]}")
+    if not status.success:
+        for transform in prepared.transforms:
+            cause = transform.diagnose(prepared, outcome, k)
+            if cause:  # the class's own cause first, then what the method saw
+                message = f"{cause} ({message})"
+                break
     if status is Status.SOLVED and tol is not None and condition is not None:
         warning = _nearly_singular(compiled, outcome, k, condition, tol)
         if warning:

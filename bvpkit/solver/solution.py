@@ -43,13 +43,19 @@ class Interpolant:
 
     Calling it with points ``x`` gives the states of a region at ``x``, shape
     ``(states per region, len(x))``; at an interface ``side = -1`` (default) reads the
-    region on the left, ``+1`` the one on the right.
+    region on the left, ``+1`` the one on the right. :meth:`algebraic` gives the algebraic
+    unknowns there (solved from the algebraic equations on the interpolated states, on this
+    solution's own branch: ``z`` holds them at the nodes).
     """
 
     def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001
+        t, y, p, k = (np.asarray(a, float) for a in (t, y, p, k))
+        with np.errstate(all="ignore"):
+            compiled = compiled.holding(t, y, p, k)  # its algebraic unknowns start from its own values
+            self.z = np.asarray(compiled.algebraic(t, y, p, k), float)
         self.compiled = compiled
         self.layout = compiled.layout
-        self.t, self.y, self.p, self.k = (np.asarray(a, float) for a in (t, y, p, k))
+        self.t, self.y, self.p, self.k = t, y, p, k
         with np.errstate(all="ignore"):
             self.maps = np.asarray(compiled.maps(self.p, self.k), float)
         self.points = positions(self.maps)
@@ -91,6 +97,19 @@ class Interpolant:
             f = self.compiled.rhs(t, self._spline(t), self.p, self.k)
         return self._pick(f, r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
 
+    def algebraic(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
+        """The algebraic unknowns of a region at ``x``, shape ``(len(layout.algebraic), len(x))``."""
+        x = np.atleast_1d(np.asarray(x, float))
+        r = self.region(x, side) if regions is None else np.asarray(regions)
+        size = len(self.layout.algebraic)
+        if not size:
+            return np.zeros((0, x.size))
+        t = self.standard(x, r)
+        with np.errstate(all="ignore"):
+            z = np.asarray(self.compiled.algebraic(t, self._spline(t), self.p, self.k), float)
+        rows = r[None, :] * size + np.arange(size)[:, None]
+        return z[rows, np.arange(r.size)[None, :]]
+
     def derivative(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
         """The derivative of the interpolating cubic itself (not of the equations) in the user's
         variable: a check that owes nothing to the right-hand side."""
@@ -123,7 +142,8 @@ class Solution:
         twice: as the end of one region and the start of the next); on the truncated
         interval for an infinite domain.
     y : ndarray, shape (n, m)
-        The states at ``x`` (SciPy's layout); ``state_names`` says what each row holds.
+        The states at ``x`` (SciPy's layout), then the algebraic unknowns there;
+        ``state_names`` says what each row holds.
     parameters : dict of str to float
         Values of the unknown parameters.
     parameter_errors : dict of str to float
@@ -166,6 +186,10 @@ class Solution:
         size, regions = layout.region_size, layout.regions
         self.x = physical(self.interpolant.t, self.interpolant.maps, layout.stretch).ravel()
         self.y = np.concatenate([self.interpolant.y[r * size:(r + 1) * size] for r in range(regions)], axis=1)
+        held = len(layout.algebraic)
+        if held:  # the algebraic unknowns at the nodes, rows after the states
+            z = self.interpolant.z
+            self.y = np.vstack([self.y, np.concatenate([z[r * held:(r + 1) * held] for r in range(regions)], axis=1)])
         names = layout.parameters
         self.parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
@@ -180,8 +204,9 @@ class Solution:
     # -- public questions ---------------------------------------------------------------
     @property
     def state_names(self) -> tuple[str, ...]:
-        """What each row of ``y`` holds: ``("f", "f'", "f''")``."""
-        return self.interpolant.layout.state_names
+        """What each row of ``y`` holds: ``("f", "f'", "f''")``, then the algebraic unknowns."""
+        layout = self.interpolant.layout
+        return (*layout.state_names, *layout.algebraic)
 
     @property
     def independent(self) -> str:
@@ -376,9 +401,9 @@ def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, val
         states = view(points, regions=r)
         slopes = view.slopes(points, regions=r)
         highest = [slopes[layout.index(name, order - 1)] for name, order in layout.functions]
-        inputs = np.vstack([states[: layout.users], *highest]) if highest else states[: layout.users]
+        inputs = np.vstack([states[: layout.users], *highest, view.algebraic(points, regions=r)])
     else:
-        inputs = np.zeros((layout.users + len(layout.functions), points.size))
+        inputs = np.zeros((layout.users + len(layout.functions) + len(layout.algebraic), points.size))
     with np.errstate(all="ignore"):
         result = f(points, inputs, view.p, view.k, values)[0]
     return np.broadcast_to(result, points.shape).astype(float)
@@ -395,6 +420,9 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
         where = b if where > 0 else a
     _check_inside(view, prepared, np.array([where]))
     side = side or (1 if where <= a else -1)
+    size = view.layout.region_size
+    if state >= size:  # an algebraic unknown: rows after the states
+        return float(view.algebraic(np.array([where]), side=side)[state - size, 0])
     highest = view.layout.states[state][1] != order
     row = (view.slopes if highest else view)(np.array([where]), side=side)
     return float(row[state, 0])

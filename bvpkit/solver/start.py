@@ -5,7 +5,8 @@ per function, or from the problem's own guess recipes (:mod:`bvpkit.reduce.guess
 that leaves the domain of the equations (``sqrt``, ``log``, fractional powers of the states)
 is lifted to the positive side or replaced by the solution of the linearised problem of
 continuation; then each problem class may start its own way (an eigenvalue problem from
-its eigenvalue guess). ``solve``, the classes' loops around it and ``solve_at``
+its eigenvalue guess). Every solve, from scratch or from a previous solution, lets each
+class begin on the first iterate's states (the branch of the algebraic unknowns). ``solve``, the classes' loops around it and ``solve_at``
 (continuation) all start here (:mod:`bvpkit.solver.driver`).
 """
 
@@ -56,7 +57,10 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
         start = as_start(guess)
         p = start.p.copy()
         t = start.t.copy()
-        return t, carried(start, compiled, t, p, k), p
+        y = carried(start, compiled, t, p, k)
+        for transform in prepared.transforms:
+            transform.begin(prepared, t, y, p, k, start)
+        return t, y, p
     p = prepared.p0()
     t = _guess.initial_mesh(nodes)
     recipes = dict(prepared.recipes)
@@ -65,6 +69,8 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
             raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
         recipes[name] = prepared.recipe(name, expression)
     y = _guess.from_recipes(recipes, compiled, t, p, k)
+    for transform in prepared.transforms:
+        transform.begin(prepared, t, y, p, k, recipes)
     if not defined(compiled, t, y, p, k):
         own = {n for n, r in recipes.items() if r.kind == "expression"}
         y = _inside(prepared, t, y, p, k, chosen, own=own)

@@ -141,8 +141,10 @@ def _tight(trial: Trial, candidates: list[type], first: type, facts) -> tuple[ty
 
 def _why(trial: Trial, name: str, facts=None) -> str:  # noqa: ANN001
     """Why the default method goes first, in words read from the survey."""
-    if trial.compiled.needs:
-        held = ", ".join(NEEDS.get(n, n) for n in sorted(trial.compiled.needs))
+    # only needs that leave some method out say why this one goes first
+    narrowing = {n for n in trial.compiled.needs if not all(n in m.takes for m in methods.REGISTRY.values())}
+    if narrowing:
+        held = ", ".join(NEEDS.get(n, n) for n in sorted(narrowing))
         return f"the equations hold {held}, which {name} treats exactly (the methods without it are left out)"
     if facts is None:
         facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)

@@ -26,7 +26,13 @@ from .assertions import (
 )
 from .cases import Manufactured
 from .profiles import register_profiles, scaled_examples
-from .strategies import linear_problems, manufactured_problems, semi_infinite_problems, smooth_functions
+from .strategies import (
+    index_one_problems,
+    linear_problems,
+    manufactured_problems,
+    semi_infinite_problems,
+    smooth_functions,
+)
 
 __all__ = [
     "Manufactured",
@@ -35,6 +41,7 @@ __all__ = [
     "assert_matches_exact",
     "assert_methods_agree",
     "assert_solves",
+    "index_one_problems",
     "linear_problems",
     "manufactured_problems",
     "register_profiles",

@@ -221,3 +221,50 @@ def semi_infinite_problems() -> Any:
         return Manufactured(problem, u, text)
 
     return draw()
+
+
+W = sp.Function("w")
+
+
+def index_one_problems() -> Any:
+    """Index-1 problems: ``u'' = q(x) u + c w + g(x)`` beside the algebraic equation
+    ``0 = w + m w**3 - a u - r(x)`` for the algebraic unknown ``w``, with known ``u`` and ``w``.
+
+    ``dG/dw = 1 + 3 m w**2 >= 1`` (``m >= 0``): index 1 everywhere, one real root ``w = W(x, u)``
+    increasing in ``u`` (``a > 0``), so ``u'' = q u + c W(x, u) + g`` is monotone in ``u``
+    (``q >= 0.2``, ``c >= 0``) and its problem with Dirichlet or Robin conditions has exactly one
+    solution (the maximum principle). Exact ``u`` and ``w`` are drawn from
+    :func:`smooth_functions` (``|u| <= 4``), ``g`` and ``r`` computed so that they solve it;
+    ``case.others["w"]`` is the exact ``w``.
+    """
+    st = _st()
+
+    @st.composite
+    def draw(draw_: Any) -> Manufactured:
+        from hypothesis import assume
+
+        from ..language.problem import Problem
+
+        u = draw_(smooth_functions())
+        w = draw_(smooth_functions())
+        a, b = draw_(_domain(st))
+        assume(_largest(u, a, b) <= MAX_NONLINEAR_SIZE and _largest(w, a, b) <= MAX_NONLINEAR_SIZE)
+        q = draw_(_coefficient(st, 0.2, 3))
+        c = draw_(_number(st, 0, 1))
+        slope = draw_(_number(st, 0.5, 2))
+        m = draw_(_number(st, 0, 0.5))
+        d2 = sp.Derivative(U(X), (X, 2))
+        g = sp.diff(u, X, 2) - q * u - c * w
+        r = w + m * w**3 - slope * u
+        differential = sp.Eq(d2, q * U(X) + c * W(X) + g)
+        algebraic = sp.Eq(0, W(X) + m * W(X) ** 3 - slope * U(X) - r)
+        alpha = draw_(_number(st, 0.5, 2))
+        kinds = draw_(st.tuples(*[st.sampled_from(["dirichlet", "robin"])] * 2))
+        left, lname = _condition(u, kinds[0], a, 0, alpha)
+        right, rname = _condition(u, kinds[1], b, 1, alpha)
+        problem = Problem([differential, algebraic], [left, right], (a, b), unknowns=["u", "w"])
+        text = (f"{sp.sstr(differential)}, {sp.sstr(algebraic)} on {(a, b)}, {lname} / {rname}, exact u = "
+                f"{sp.sstr(u)}, w = {sp.sstr(w)}")
+        return Manufactured(problem, u, text, others={"w": w})
+
+    return draw()
