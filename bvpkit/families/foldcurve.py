@@ -27,7 +27,7 @@ import numpy as np
 
 from . import arclength as arc
 from .._output import json_ready, write_columns
-from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
+from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values, real_constant
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
 from ..solver.driver import Run, options, settle
@@ -184,6 +184,7 @@ def fold_curve(
     for constant in (name, along):
         if constant not in prepared.constants:
             raise OptionError(f"'{constant}' is not a constant of the problem{closest(constant, prepared.constants)}")
+        real_constant(prepared, constant)
     if name == along:
         raise OptionError("the fold's constant and the one it is followed along must differ")
     start, stop = _number(start, "start"), _number(stop, "stop")

@@ -498,6 +498,7 @@ def sweep(
     named = prepared.outputs
     for text in outputs if outputs is not None else list(named):
         labels[text] = named.get(text, text)
+    labels = prepared.real_outputs(labels)  # a complex value as its real and imaginary parts
     if isinstance(chunk, bool) or not isinstance(chunk, int) or chunk < 1:
         raise OptionError(f"chunk must be a whole number of at least 1, got {chunk!r}")
     options = {k: v for k, v in {"tol": tol, "method": method}.items() if v is not None}
