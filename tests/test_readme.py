@@ -83,7 +83,7 @@ def _run_block(code: str, namespace: dict) -> int:
 
 
 def test_the_readme_has_the_blocks_this_test_runs():
-    assert len(_blocks("python")) == 5 and len(_blocks("toml")) == 2 and len(_blocks("bash")) >= 3
+    assert len(_blocks("python")) == 6 and len(_blocks("toml")) == 2 and len(_blocks("bash")) >= 3
 
 
 def test_the_tour_gives_the_values_it_shows():
@@ -99,7 +99,7 @@ def test_every_one_line_problem_class_solves():
     (block,) = _blocks("python", "eigenvalue=\"lam\"")
     problems = [eval(compile(ast.Expression(s.value), "<README>", "eval"), {"bvpkit": bvpkit})  # noqa: S307
                 for s in ast.parse(block).body]
-    assert len(problems) == 7
+    assert len(problems) == 8
     for problem in problems:
         solution = bvpkit.solve(problem)
         assert solution.success, f"{problem.equation_text}: {solution.message}"
@@ -109,6 +109,16 @@ def test_every_one_line_problem_class_solves():
     assert orbit.parameters["T"] == pytest.approx(6.663286866, rel=1e-6)
     # analytic: the third eigenvalue of y'' + lam y = 0, y(0) = y(pi) = 0, is 3^2
     assert bvpkit.solve(problems[0]).parameters["lam"] == pytest.approx(9.0, rel=1e-6)
+
+
+def test_the_complex_block_gives_the_values_it_shows():
+    (block,) = _blocks("python", "1j*w/a*T")
+    namespace: dict = {}
+    # analytic (Carslaw and Jaeger, Conduction of Heat in Solids, 1959, section 2.6): T =
+    # exp(-(1 + i) x / d), d = sqrt(2 a / w) = 0.1172824 m: the swing exp(-0.1/d) = 0.4262868
+    # and the lag (0.1/d)/w = 3.2578441 h
+    assert _run_block(block, namespace) == 2
+    assert isinstance(namespace["sol"].evaluate("T(0.1)"), complex)
 
 
 def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
