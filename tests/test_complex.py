@@ -13,6 +13,7 @@ import scipy.special
 import sympy as sp
 
 import bvpkit
+import bvpkit.testing
 from bvpkit.errors import BvpkitError, ExpressionError
 from bvpkit.language.expr import parse
 from bvpkit.reduce.prepared import Prepared
@@ -71,6 +72,8 @@ def test_periodic_heating_of_a_half_space():
     assert abs(sol.outputs["flux"] - (1 + 1j) * math.sqrt(w / 2)) < 1e-8  # analytic: -T'(0)
     assert sol.outputs["lag"] == pytest.approx(math.sqrt(w / 2), abs=1e-8)  # analytic: phase lag sqrt(w/2) x
     assert sol.state_names == ("re(T)", "re(T')", "im(T)", "im(T')")
+    # the equation as written, re-evaluated with complex values apart from the reduction
+    assert bvpkit.testing.assert_solves(problem, sol) < 1e-6
 
 
 def test_skin_effect_in_a_round_conductor_against_kelvin_functions():
@@ -94,6 +97,19 @@ def test_skin_effect_in_a_round_conductor_against_kelvin_functions():
                       scipy.integrate.quad(lambda s: 2 * math.pi * s * kelvin(s).imag, 0, 1, epsabs=1e-13)[0])
     assert sol.outputs["ratio"] == pytest.approx(math.pi * power / abs(current) ** 2, rel=1e-9)
     assert isinstance(sol.integrate("r*J"), complex)
+    bvpkit.testing.assert_solves(problem, sol)
+
+
+def test_a_sweep_records_complex_outputs_as_their_parts():
+    # T'' = i s T, T(0) = 1, T(1) = 0: T'(0) = -m coth(m), m = sqrt(i s) (analytic)
+    problem = bvpkit.Problem(["T'' = 1j*s*T"], ["T(0) = 1", "T(1) = 0"], (0, 1), constants={"s": 1.0})
+    result = bvpkit.sweep(problem, {"s": [1.0, 4.0]}, outputs=["T'(0)"], workers=1, tol=1e-9)
+    for row in result.table:
+        m = cmath.sqrt(1j * row["s"])
+        assert abs(complex(row["re(T'(0))"], row["im(T'(0))"]) + m / cmath.tanh(m)) < 1e-8
+    with pytest.raises(BvpkitError, match="the values of 'w' must be real numbers"):
+        bvpkit.sweep(bvpkit.Problem(["T'' = w*T"], ["T(0) = 1", "T(1) = 0"], (0, 1), constants={"w": 1j}),
+                     {"w": [1j, 2j]}, workers=1)
 
 
 _ORR_SOMMERFELD = ("phi'''' = 2*a**2*phi'' - a**4*phi + 1j*a*Re*((1 - y**2 - c)*(phi'' - a**2*phi) + 2*phi)")

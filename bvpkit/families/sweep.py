@@ -317,6 +317,10 @@ def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray
         try:
             array = np.asarray(values, dtype=float).ravel()
         except (TypeError, ValueError, OverflowError):
+            if any(isinstance(v, complex) for v in np.ravel(np.asarray(values, dtype=object))):
+                raise OptionError(f"the values of '{name}' must be real numbers: a sweep runs over real values (of a "
+                                  f"complex constant, its real part; write {name} = {name}_re + 1j*{name}_im with "
+                                  "real constants of their own to sweep an imaginary part)") from None
             raise OptionError(f"the values of '{name}' must be numbers") from None
         if array.size == 0 or not np.all(np.isfinite(array)):
             raise OptionError(f"the values of '{name}' must be finite numbers, at least one")
