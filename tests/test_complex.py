@@ -211,6 +211,19 @@ def test_complex_constants_change_without_new_code_and_are_checked():
         real.with_constants(w=2j)
 
 
+def test_regions_with_complex_values_of_their_own():
+    # T'' = w T on two layers (w = 2i, then 8i), T(0) = 1, T(2) = 0, T and T' continuous at 1:
+    # T = cosh(m1 x) + B sinh(m1 x), then C sinh(m2 (2 - x)), m = sqrt(w) (analytic)
+    problem = bvpkit.Problem(["T'' = w*T"], ["T(0) = 1", "T(2) = 0"], (0, 2), constants={"w": 2j},
+                             regions=[{"end": 1, "constants": {"w": 2j}}, {"constants": {"w": 8j}}],
+                             outputs={"middle": "T(1)"})
+    sol = bvpkit.solve(problem, tol=1e-10)
+    m1, m2 = cmath.sqrt(2j), cmath.sqrt(8j)
+    matrix = np.array([[cmath.sinh(m1), -cmath.sinh(m2)], [m1 * cmath.cosh(m1), m2 * cmath.cosh(m2)]])
+    b, _ = np.linalg.solve(matrix, np.array([-cmath.cosh(m1), -m1 * cmath.sinh(m1)]))
+    assert abs(sol.outputs["middle"] - (cmath.cosh(m1) + b * cmath.sinh(m1))) < 1e-9
+
+
 def test_a_complex_guess_and_conditions_and_the_summary_and_table(tmp_path):
     problem = bvpkit.Problem(["T'' = -T"], ["T(0) = 1j", "T'(0) = 1"], (0, 1), guess={"T": "1j*cos(x) + sin(x)"},
                              outputs={"end": "T(1)"})
