@@ -36,7 +36,7 @@ def _split_form() -> bvpkit.Problem:
 def _cold(build, value) -> float:  # noqa: ANN001
     """Problem from text, reduction, code generation and solve, with every memo cleared (the
     disk cache is off for the whole run)."""
-    from bvpkit.generated import codegen
+    from bvpkit.programs import codegen
     from bvpkit.reduce import form, prepared
 
     form._MEMO.clear()

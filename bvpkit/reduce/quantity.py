@@ -29,7 +29,7 @@ class Quantity:
     Attributes
     ----------
     program : dict
-        The generated function ``quantity(x, y, p, k, t)`` as plain data (:mod:`bvpkit.generated.program`);
+        The generated function ``quantity(x, y, p, k, t)`` as plain data (:mod:`bvpkit.programs.program`);
         ``y`` holds the user states of a region, then the highest derivative of each function;
         one entry for a real value, two (real and imaginary parts) for a complex one.
     points : list of (float or dict, int, int, int)
@@ -73,9 +73,9 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
     A complex value (:mod:`bvpkit.reduce.complex`) is compiled as its real and imaginary
     parts: the program's two entries (:attr:`Quantity.parts`); each point value and integral
     of a complex function fills one placeholder per part."""
-    from ..generated.codegen import compile_expressions
     from ..language.expr import DomainIntegral
-    from .form import X, factor, real_parts, spelled, user_symbols
+    from ..programs.codegen import X, compile_expressions
+    from .form import factor, real_parts, spelled, user_symbols
 
     e = parsed if parsed is not None else problem.parse_quantity(text, where=f"expression '{text}'")
     y = input_symbols(form)

@@ -16,11 +16,12 @@ from typing import Any
 import numpy as np
 
 from .._output import json_ready, write_columns
-from ..methods.diagnostics import Diagnostics, hermite
 from ..errors import BvpkitError
-from ..reduce.guess import nudged, physical, positions, rate, standard
-from ..status import Status
 from ..language.units import label, units_of
+from ..methods.diagnostics import Diagnostics, hermite
+from ..programs.compiled import quantity_function
+from ..reduce.mapping import nudged, physical, positions, rate, standard
+from ..status import Status
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -351,8 +352,6 @@ class Solution:
 
 def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
     """A compiled quantity on a solution (see bvpkit.reduce.quantity)."""
-    from ..reduce.guess import _function
-
     values = _placeholders(view, prepared, quantity)
     if at is None:
         if quantity.running:
@@ -367,7 +366,7 @@ def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> floa
             raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
         _check_inside(view, prepared, points)
     r = view.region(points)
-    result = _joined(_running(view, quantity, points, r, values, _function))
+    result = _joined(_running(view, quantity, points, r, values, quantity_function))
     if at is None or not np.ndim(at):
         return result[0].item()  # a float, or a complex
     return result
@@ -414,12 +413,10 @@ def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, val
 
 def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
     """The value of one point-value placeholder ``(point, state, order, side)``."""
-    from ..reduce.guess import _function
-
     where, state, order, side = point
     if isinstance(where, dict):  # a point that depends on the constants: its program
         with np.errstate(all="ignore"):
-            where = float(_function(where)(np.zeros(1), view.p, view.k)[0, 0])
+            where = float(quantity_function(where)(np.zeros(1), view.p, view.k)[0, 0])
     a, b = view.ends
     if math.isinf(where):
         where = b if where > 0 else a
@@ -433,8 +430,6 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
 def _integral(view: Interpolant, prepared, quantity) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
     """The integral of a quantity over every region, and the integrand at the far end, each
     by parts (shape ``(parts,)``: its real and imaginary parts for a complex integrand)."""
-    from ..reduce.guess import _function
-
     nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
     values = _placeholders(view, prepared, quantity)
     total = np.zeros(quantity.parts)
@@ -448,9 +443,9 @@ def _integral(view: Interpolant, prepared, quantity) -> tuple[np.ndarray, np.nda
         x = c + scale * s ** view.powers[region]
         r = np.full(x.size, region)
         dx = w * rate(s, scale, view.powers[region])
-        total += np.sum(_running(view, quantity, x, r, values, _function) * dx, axis=1)
+        total += np.sum(_running(view, quantity, x, r, values, quantity_function) * dx, axis=1)
     b = view.ends[1]
-    tail = _running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[:, 0]
+    tail = _running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, quantity_function)[:, 0]
     return total, tail
 
 
