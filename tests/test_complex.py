@@ -255,6 +255,34 @@ surface_flux = "-T'(0)"
         bvpkit.load(spec)
 
 
+def test_a_kept_preparation_of_a_complex_spec_is_used_again(tmp_path, monkeypatch):
+    from bvpkit.io import spec as spec_module
+    from bvpkit.programs import codegen
+    from bvpkit.reduce import prepared
+
+    monkeypatch.setenv(codegen.CACHE_VARIABLE, str(tmp_path / "cache"))
+    text = """
+[problem]
+domain = [0, "inf"]
+equations = ["T'' = w*T"]
+conditions = ["T(0) = 1", "T(inf) = 0"]
+constants = { w = { im = 2.0 } }
+unknown_parameters = {}
+[outputs]
+surface_flux = "-T'(0)"
+"""
+    for overrides in ({}, {"w": 8j}):
+        key = prepared.spec_key(text, overrides)
+        problem = spec_module.loads(text).with_constants(**overrides)
+        prepared.remember(key, bvpkit.prepare(problem), text, overrides)
+        light = prepared.cached(key, text, overrides)
+        assert isinstance(light, bvpkit.Prepared)
+        w = overrides.get("w", 2j)
+        assert light.constants == {"w": w}
+        sol = bvpkit.solve(light, tol=1e-8)
+        assert abs(sol.outputs["surface_flux"] - cmath.sqrt(w)) < 1e-7  # analytic: T = exp(-sqrt(w) x)
+
+
 # -- bad input: one clear line each, naming the item -----------------------------------------
 _HEAT = ["T'' = 1j*T"]
 
