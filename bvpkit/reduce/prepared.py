@@ -36,7 +36,7 @@ import numpy as np
 
 from ..errors import BvpkitError, OptionError, ProblemError, closest
 from ..language.options import SolveOptions
-from ..language.problem import Problem, _numbers, changed_numbers, check_positions
+from ..language.problem import Problem, changed_numbers, check_positions
 from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
