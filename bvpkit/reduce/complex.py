@@ -348,9 +348,12 @@ class _Splitter:
         coefficient = sp.Mul(*(a for a, _ in real))
         if not rest:
             return coefficient, sp.S.Zero
+        # multiplied in pairs, then pairs of pairs: each part of a product of n complex factors
+        # holds about n**2 terms, where one factor after another would hold 2**n
+        while len(rest) > 1:
+            rest = [(a * c - b * d, a * d + b * c) for (a, b), (c, d) in zip(rest[::2], rest[1::2])] + (
+                [rest[-1]] if len(rest) % 2 else [])
         a, b = rest[0]
-        for c, d in rest[1:]:
-            a, b = a * c - b * d, a * d + b * c
         return coefficient * a, coefficient * b
 
     def _power(self, base, exponent) -> tuple:  # noqa: ANN001
