@@ -121,10 +121,13 @@ class Problem:
         Name of the independent variable (default ``"x"``).
     unknowns : sequence of str, optional
         Names of the unknown functions; inferred from the equations when omitted.
-    constants : mapping of str to float, optional
-        Known values usable in any expression.
-    unknown_parameters : mapping of str to float, optional
-        Parameters determined by the solve (name: initial guess); each needs one more condition.
+    constants : mapping of str to float (or complex), optional
+        Known values usable in any expression. A complex value (``2j``, ``complex(1, 0)``)
+        makes the constant, and the problem, complex.
+    unknown_parameters : mapping of str to float (or complex), optional
+        Parameters determined by the solve (name: initial guess); each needs one more condition
+        (in a complex problem: a complex start value makes the parameter complex; real ones
+        come in pairs, two taking the place of one complex condition).
     guess : mapping of str to str/number/SymPy, optional
         An initial guess per unknown function, as an expression of the independent variable.
     outputs : mapping of str to str, optional
@@ -146,6 +149,13 @@ class Problem:
         [...], "constants": {...}}``: ``end`` is where the region stops (omit it for the
         last), ``equations`` replace the problem's equations there, ``constants`` give
         constants a value of their own there. Every region has the same unknown functions.
+
+    Attributes
+    ----------
+    complex : bool
+        Whether the problem is complex: an equation or condition holds the imaginary unit
+        (``1j``), or a constant or start value is complex. Then every unknown function is
+        complex (see :mod:`bvpkit.reduce.complex`).
 
     Raises
     ------
