@@ -16,11 +16,11 @@ import datetime
 import sys
 from pathlib import Path
 
-from . import collocation, continuation, robust, scale, shooting, startup, sweeps
+from . import collocation, complex, continuation, robust, scale, shooting, startup, sweeps
 from .harness import machine
 
 SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS,
-          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS]
+          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS]
 HEADING = "# Benchmark results (newest first)"
 
 

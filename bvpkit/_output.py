@@ -21,7 +21,22 @@ def write_columns(path: str | Path | TextIO, columns: Mapping[str, Any]) -> None
         _write_rows(handle, columns)
 
 
+def real_columns(columns: Mapping[str, Any]) -> dict[str, Any]:
+    """Columns with each complex one as two real ones, ``re(name)`` and ``im(name)`` (the one
+    written form of complex values in tables)."""
+    out: dict[str, Any] = {}
+    for name, values in columns.items():
+        kind = getattr(getattr(values, "dtype", None), "kind", None)
+        if kind == "c" or (kind in (None, "O") and any(isinstance(v, complex) for v in values)):
+            out[f"re({name})"] = [None if v is None else float(v.real) for v in values]
+            out[f"im({name})"] = [None if v is None else float(v.imag) for v in values]
+        else:
+            out[name] = values
+    return out
+
+
 def _write_rows(handle: TextIO, columns: Mapping[str, Any]) -> None:
+    columns = real_columns(columns)
     writer = csv.writer(handle)
     writer.writerow(columns)
     for row in zip(*columns.values()):
@@ -52,9 +67,12 @@ def progress_bar(enabled: bool, total: int):  # noqa: ANN201
 
 def json_ready(value: Any) -> Any:
     """The one cleaner of results for JSON: NaN and inf become null, NumPy scalars and arrays
-    plain numbers and lists, tuples lists, keys strings."""
+    plain numbers and lists, tuples lists, keys strings, a complex number ``{"re": ..., "im":
+    ...}``."""
     import math
 
+    if isinstance(value, complex):
+        return {"re": json_ready(value.real), "im": json_ready(value.imag)}
     if isinstance(value, dict):
         return {str(k): json_ready(v) for k, v in value.items()}
     if isinstance(value, list | tuple):

@@ -54,6 +54,12 @@ CASES = {
     "erfc": ("erfc({})", "erfc({})", scipy.special.erfc, 0.5),
     "min": ("min({}, 0.6)", "min({}, 1)", lambda u: min(u, 1.0), 0.5),
     "max": ("max({}, 0.6)", "max({}, 0)", lambda u: max(u, 0.0), 0.5),
+    # complex values: re and conj in a real problem are the value itself; im and arg are
+    # taken of 1j*u and 1 + 1j*u, which makes the problem complex (its solution stays real)
+    "re": ("re({})", "re({})", lambda u: u, 0.5),
+    "conj": ("conj({})", "conj({})", lambda u: u, 0.5),
+    "im": ("im(1j*{})", "im(1j*{})", lambda u: u, 0.5),
+    "arg": ("arg(1 + 1j*{})", "arg(1 + 1j*{})", math.atan, 0.5),  # principal argument: atan(u)
 }
 
 
@@ -91,17 +97,19 @@ def test_every_function_has_the_exact_jacobian(name):
     c = CASES[name][3]
     x = np.linspace(0.05, 0.95, 7)
     y = np.vstack([c + x**2 / 4 + 0.01 * np.sin(7 * x), np.cos(x)])
+    n = compiled.layout.n  # 2, or 4 for a complex problem: its imaginary parts near zero
+    y = np.vstack([y, 0.01 * np.sin(3 * x), 0.02 * np.cos(5 * x)])[:n]
     p, k, h = np.zeros(0), np.zeros(0), 1e-6
     jac = compiled.jac(x, y, p, k)
-    for j in range(2):
+    for j in range(n):
         step = np.zeros_like(y)
         step[j] = h
         central = (compiled.rhs(x, y + step, p, k) - compiled.rhs(x, y - step, p, k)) / (2 * h)
         np.testing.assert_allclose(jac[:, j], central, rtol=1e-6, atol=1e-8)  # common practice, no source
     ya, yb = y[:, 0], y[:, -1]
     dya, dyb, _ = compiled.bc_jac(ya, yb, p, k)
-    for j in range(2):
-        e = np.zeros(2)
+    for j in range(n):
+        e = np.zeros(n)
         e[j] = h
         left = (compiled.bc(ya + e, yb, p, k) - compiled.bc(ya - e, yb, p, k)) / (2 * h)
         right = (compiled.bc(ya, yb + e, p, k) - compiled.bc(ya, yb - e, p, k)) / (2 * h)

@@ -83,7 +83,7 @@ def _run_block(code: str, namespace: dict) -> int:
 
 
 def test_the_readme_has_the_blocks_this_test_runs():
-    assert len(_blocks("python")) == 5 and len(_blocks("toml")) == 2 and len(_blocks("bash")) >= 3
+    assert len(_blocks("python")) == 6 and len(_blocks("toml")) == 2 and len(_blocks("bash")) >= 3
 
 
 def test_the_tour_gives_the_values_it_shows():
@@ -99,7 +99,7 @@ def test_every_one_line_problem_class_solves():
     (block,) = _blocks("python", "eigenvalue=\"lam\"")
     problems = [eval(compile(ast.Expression(s.value), "<README>", "eval"), {"bvpkit": bvpkit})  # noqa: S307
                 for s in ast.parse(block).body]
-    assert len(problems) == 10
+    assert len(problems) == 11
     for problem in problems:
         solution = bvpkit.solve(problem)
         assert solution.success, f"{problem.equation_text}: {solution.message}"
@@ -113,6 +113,16 @@ def test_every_one_line_problem_class_solves():
     assert bvpkit.solve(problems[7]).parameters["c"] == pytest.approx(2**0.5 * 0.2, rel=1e-6)
     # analytic: T = 1/r outside the sphere, T'(1) = -1
     assert bvpkit.solve(problems[8]).evaluate("T'(1)") == pytest.approx(-1.0, rel=1e-6)
+
+
+def test_the_complex_block_gives_the_values_it_shows():
+    (block,) = _blocks("python", "1j*w/a*T")
+    namespace: dict = {}
+    # analytic (Carslaw and Jaeger, Conduction of Heat in Solids, 1959, section 2.6): T =
+    # exp(-(1 + i) x / d), d = sqrt(2 a / w) = 0.1172824 m: the swing exp(-0.1/d) = 0.4262868
+    # and the lag (0.1/d)/w = 3.2578441 h
+    assert _run_block(block, namespace) == 2
+    assert isinstance(namespace["sol"].evaluate("T(0.1)"), complex)
 
 
 def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):

@@ -291,16 +291,24 @@ def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, 
 
 
 def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[str, str]:
-    """Label -> expression: a name of the problem's outputs keeps its name as the label."""
+    """Label -> expression: a name of the problem's outputs keeps its name as the label; a
+    complex value is recorded as its real and imaginary parts (``re(label)``, ``im(label)``)."""
     labels = {}
     named = prepared.outputs
     for text in outputs if outputs is not None else list(named):
         if not isinstance(text, str):
             raise OptionError(f"outputs must be expressions as text, got {text!r}")
         labels[text] = named.get(text, text)
-    for label, text in labels.items():
-        prepared.quantity(text)  # parsed and checked now, not at the first point
-    return labels
+    return prepared.real_outputs(labels)  # parsed and checked now, not at the first point
+
+
+def real_constant(prepared: Prepared, name: str) -> None:
+    """A traced constant must be real: a complex one is refused, with what to write instead."""
+    if isinstance(prepared.constants[name], complex):
+        raise OptionError(
+            f"'{name}' is a complex constant; a trace follows a real one: write {name} = {name}_re + 1j*{name}_im "
+            "with real constants of their own and trace one of them"
+        )
 
 
 def _number(value: Any, label: str) -> float:
@@ -389,6 +397,7 @@ def trace(
             f"'{name}' is not a constant of the problem{closest(name, prepared.constants)}; "
             "a traced parameter must be one of its constants"
         )
+    real_constant(prepared, name)
     start, stop = _number(start, "start"), _number(stop, "stop")
     if start == stop:
         raise OptionError("start and stop must differ")

@@ -38,7 +38,7 @@ from ..solver.solution import Solution
 from ..status import Status
 from . import arclength as arc
 from . import plots
-from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
+from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values, real_constant
 
 _GROW, _SHRINK = 1.5, 0.5
 #: Over a positive range of more than two decades (drawn on a log scale) a step changes the
@@ -184,6 +184,7 @@ def fold_curve(
     for constant in (name, along):
         if constant not in prepared.constants:
             raise OptionError(f"'{constant}' is not a constant of the problem{closest(constant, prepared.constants)}")
+        real_constant(prepared, constant)
     if name == along:
         raise OptionError("the fold's constant and the one it is followed along must differ")
     start, stop = _number(start, "start"), _number(stop, "stop")

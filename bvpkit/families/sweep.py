@@ -413,6 +413,10 @@ def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray
         try:
             array = np.asarray(values, dtype=float).ravel()
         except (TypeError, ValueError, OverflowError):
+            if any(isinstance(v, complex) for v in np.ravel(np.asarray(values, dtype=object))):
+                raise OptionError(f"the values of '{name}' must be real numbers: a sweep runs over real values (of a "
+                                  f"complex constant, its real part; write {name} = {name}_re + 1j*{name}_im with "
+                                  "real constants of their own to sweep an imaginary part)") from None
             raise OptionError(f"the values of '{name}' must be numbers") from None
         if array.size == 0 or not np.all(np.isfinite(array)):
             raise OptionError(f"the values of '{name}' must be finite numbers, at least one")
@@ -591,6 +595,7 @@ def sweep(
     named = prepared.outputs
     for text in outputs if outputs is not None else list(named):
         labels[text] = named.get(text, text)
+    labels = prepared.real_outputs(labels)  # a complex value as its real and imaginary parts
     if isinstance(chunk, bool) or not isinstance(chunk, int) or chunk < 1:
         raise OptionError(f"chunk must be a whole number of at least 1, got {chunk!r}")
     options = {k: v for k, v in {"tol": tol, "method": method}.items() if v is not None}

@@ -193,17 +193,19 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _constants(pairs: list[str]) -> dict[str, float]:
-
-    values = {}
+def _constants(pairs: list[str]) -> dict[str, float | complex]:
+    """``--set NAME=VALUE`` pairs; a value ending in ``j`` is complex, as Python writes it
+    (``--set w=0.5+2j``), for a complex constant."""
+    values: dict[str, float | complex] = {}
     for pair in pairs:
         name, sep, value = pair.partition("=")
         try:
             if not sep:
                 raise ValueError
-            values[name.strip()] = float(value)
+            text = value.strip()
+            values[name.strip()] = complex(text.replace(" ", "")) if text[-1:] in ("j", "J") else float(text)
         except ValueError:
-            raise OptionError(f"--set expects NAME=NUMBER, got {pair!r}") from None
+            raise OptionError(f"--set expects NAME=NUMBER (or a complex number such as 0.5+2j), got {pair!r}") from None
     return values
 
 

@@ -31,7 +31,7 @@ from ..programs.compiled import (
     write_json,
 )
 from ..programs.program import stored_size
-from ..reduce.prepared import Prepared
+from ..reduce.prepared import Prepared, written_numbers
 from ..reduce.quantity import Quantity
 from .specfile import spec_facts
 
@@ -44,7 +44,7 @@ def spec_key(text: str, overrides: Mapping[str, float]) -> str:
     digest = hashlib.sha256()
     digest.update(code_stamp().encode())
     digest.update(b"\0" + text.encode("utf-8", "surrogatepass") + b"\0")
-    digest.update(json.dumps(sorted(overrides.items())).encode())
+    digest.update(json.dumps(written_numbers(sorted(overrides.items()))).encode())
     return digest.hexdigest()[:32]
 
 
@@ -54,7 +54,7 @@ def _file(key: str) -> Path | None:
 
 
 def _given(overrides: Mapping[str, float]) -> list:
-    return [[k, float(v)] for k, v in sorted(overrides.items())]
+    return [[k, written_numbers(v) if isinstance(v, complex) else float(v)] for k, v in sorted(overrides.items())]
 
 
 def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | None:
@@ -156,8 +156,8 @@ def _check_entry(prepared: Prepared) -> None:
         raise _Refused("its state layout does not fit together")
     own = prepared.facts.get("own", {})
     added = {name for t in prepared.transforms for name in t.constants(None)}  # the classes' own constants
-    if (set(prepared.parameters) != set(layout.parameters)
-            or set(layout.constants) - added != set(own) | set(prepared.constants)):
+    if (set(prepared.solved_values(prepared.parameters)) != set(layout.parameters)
+            or set(layout.constants) - added != set(prepared.solved_values({**own, **prepared.constants}))):
         raise _Refused("its constants or parameters are not those of its layout")
     arguments = prepared.facts.get("arguments", {})
     eigenvalue = arguments.get("eigenvalue")
@@ -166,9 +166,9 @@ def _check_entry(prepared: Prepared) -> None:
     if (bool(eigen) != (eigenvalue is not None)
             or (eigen and not (whole(eigen[0].index, 0, n_p - 1) and layout.parameters[eigen[0].index] == eigenvalue
                                and eigen[0].mode == (arguments.get("mode") or 1)))
-            or (unknowns is not None and (list(u for u in unknowns if u not in layout.algebraic)
-                                          != [f for f, _ in functions]
-                                          or not set(layout.algebraic) <= set(unknowns)))):
+            or (unknowns is not None
+                and (sorted(piece for u in unknowns if u not in layout.algebraic for piece in _spelled(prepared, u))
+                     != sorted(f for f, _ in functions) or not set(layout.algebraic) <= set(unknowns)))):
         raise _Refused("its state layout is not that of the spec")
     points = prepared.facts.get("points")
     if type(points) is not list or len(points) != layout.regions + 1 or not all(type(q) is str for q in points):
@@ -203,11 +203,14 @@ def _check_entry(prepared: Prepared) -> None:
     if set(prepared.quantities) != set(prepared.facts.get("outputs", {}).values()):
         raise _Refused("its compiled outputs are not those of the spec")
 
+    def parts(q: Quantity) -> int:  # 1 for a real value, 2 for a complex one; -1 for neither
+        shape = q.program.get("shape") if type(q.program) is dict else None
+        return shape[0] if shape in ([1], [2]) else -1
+
     def quantity(q: Quantity) -> None:
         wanted = [("x", 1), ("y", layout.users + len(functions) + len(layout.algebraic)), ("p", n_p), ("k", n_k),
-                  ("t", len(q.points) + len(q.integrals))]
-        if (type(q.program) is not dict or q.program.get("shape") != [1] or q.program.get("mesh") != "y"
-                or _arguments(q.program) != wanted):
+                  ("t", len(q.points) + sum(parts(inner) for inner in q.integrals))]
+        if (parts(q) < 1 or q.program.get("mesh") != "y" or _arguments(q.program) != wanted):
             raise _Refused("a compiled output does not fit its layout")
         for at, state, order, side in q.points:
             if not (whole(state, 0, len(states) + len(layout.algebraic) - 1) and whole(order, 0, 1000)
@@ -219,6 +222,15 @@ def _check_entry(prepared: Prepared) -> None:
 
     for q in prepared.quantities.values():
         quantity(q)
+
+
+def _spelled(prepared: Prepared, name: str) -> list[str]:
+    """The names of the functions the user's function ``name`` is solved as."""
+    for t in prepared.transforms:
+        found = t.spelled(name)
+        if found is not None:
+            return [piece for piece, _ in found]
+    return [name]
 
 
 def _arguments(program: dict) -> list:
@@ -237,6 +249,8 @@ def _canonical(data: Any) -> str:
     """Plain data as text for comparison: a whole number and the same float alike (TOML keeps
     ``2`` an integer, a preparation holds ``2.0``)."""
     def plain(item: Any) -> Any:
+        if isinstance(item, complex):
+            return {"re": item.real, "im": item.imag}
         if isinstance(item, dict):
             return {str(k): plain(v) for k, v in item.items()}
         if isinstance(item, list | tuple):

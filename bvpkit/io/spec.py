@@ -9,7 +9,7 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     domain = [0, "inf"]
     equations = ["f''' + f*f''/2 = 0"]
     conditions = ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"]
-    constants = { Re_x = 2.0e5 }
+    constants = { Re_x = 2.0e5 }     # a complex value: w = { re = 0.0, im = 7.3e-5 }
     guess = { f = "eta - 1 + exp(-eta)" }
     # unknowns = ["f"]; unknown_parameters = { lam = 1.0 }; eigenvalue = "P"; mode = 1
 
@@ -82,10 +82,25 @@ class _Model(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True)
 
 
+class ComplexNumber(_Model):
+    """A complex number in a spec: ``{ re = 1.0, im = 0.5 }`` (a part left out is zero)."""
+
+    re: Number = 0.0
+    im: Number = 0.0
+
+
+#: A constant or a start value: a number, or a complex one.
+Value = Number | ComplexNumber
+
+
+def _value(v: Any) -> Any:
+    return complex(v.re, v.im) if isinstance(v, ComplexNumber) else v
+
+
 class RegionSection(_Model):
     end: StrictStr | Number | None = None
     equations: list[StrictStr] | None = None
-    constants: dict[str, Number] = {}
+    constants: dict[str, Value] = {}
 
 
 class ProblemSection(_Model):
@@ -94,8 +109,8 @@ class ProblemSection(_Model):
     equations: Annotated[list[StrictStr], Field(min_length=1, max_length=200)]
     conditions: Annotated[list[StrictStr], Field(max_length=1000)]
     unknowns: list[StrictStr] | None = None
-    constants: dict[str, Number] = {}
-    unknown_parameters: dict[str, Number] = {}
+    constants: dict[str, Value] = {}
+    unknown_parameters: dict[str, Value] = {}
     guess: dict[str, StrictStr | Number] = {}
     eigenvalue: StrictStr | None = None
     mode: StrictInt | None = None
@@ -331,9 +346,13 @@ def _expected(annotation: Any) -> str:
         return "a number"
     if kinds == {str, int, float}:
         return "a number or an expression in quotes"
+    if kinds == {int, float, ComplexNumber}:
+        return "a number, or a complex one such as { re = 1.0, im = 0.5 }"
     if len(members) > 1:
         return " or ".join(_expected(m) for m in members)
     annotation = members[0]
+    if annotation is ComplexNumber:
+        return "a complex number such as { re = 1.0, im = 0.5 }"
     if annotation is GridRange:
         return 'a table such as { from = 0.1, to = 10.0, count = 20, spacing = "geometric" }'
     if isinstance(annotation, type) and issubclass(annotation, BaseModel):
@@ -379,7 +398,12 @@ def _hint(annotation: Any, value: Any) -> str:
         try:
             number = float(value)
         except ValueError:
-            return ""
+            try:
+                z = complex(value.replace(" ", ""))
+            except ValueError:
+                return ""
+            return f" (write a complex number as {{ re = {z.real!r}, im = {z.imag!r} }})" if ComplexNumber in kinds \
+                else ""
         if int in kinds and float not in kinds and not number.is_integer():
             return ""
         return " (write it without quotes)"
@@ -435,15 +459,15 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
             domain=tuple(section.domain),
             independent=section.independent,
             unknowns=section.unknowns,
-            constants=section.constants,
-            unknown_parameters=section.unknown_parameters,
+            constants={k: _value(v) for k, v in section.constants.items()},
+            unknown_parameters={k: _value(v) for k, v in section.unknown_parameters.items()},
             guess=section.guess,
             outputs=spec.outputs,
             settings=settings,
             title=spec.title,
             eigenvalue=section.eigenvalue,
             mode=section.mode,
-            regions=[r.model_dump(exclude_none=True) for r in section.regions] if section.regions else None,
+            regions=[_region(r) for r in section.regions] if section.regions else None,
         )
     except ExpressionError as err:
         raise SpecError(f"{source}: [problem] {err.one_line()}") from err
@@ -456,6 +480,12 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
         except BvpkitError as err:
             raise SpecError(f"{source}: {err}") from None
     return problem
+
+
+def _region(region: RegionSection) -> dict[str, Any]:
+    found = region.model_dump(exclude_none=True)
+    found["constants"] = {k: _value(v) for k, v in region.constants.items()}
+    return found
 
 
 def _values(name: str, axis: Any, source: str) -> list[float]:

@@ -96,17 +96,26 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
             raise TypeError(name)
         return value
 
+    def number(value: object) -> float | complex:
+        """A number of the spec: a complex one is a table ``{ re = ..., im = ... }``."""
+        if isinstance(value, dict):
+            if not value or not set(value) <= {"re", "im"}:
+                raise TypeError("not a complex number")
+            return complex(float(value.get("re", 0.0)), float(value.get("im", 0.0)))
+        return float(value)  # type: ignore[arg-type]
+
     try:
-        constants = {str(k): float(v) for k, v in table(section, "constants").items()}
+        constants = {str(k): number(v) for k, v in table(section, "constants").items()}
         for name, value in overrides.items():
             if name not in constants:
                 return None
-            constants[name] = limits.check_value(float(value), f"value of '{name}'")
-        parameters = {str(k): float(v) for k, v in table(section, "unknown_parameters").items()}
+            checked = limits.check_number(value, f"value of '{name}'")
+            constants[name] = complex(checked) if isinstance(constants[name], complex) else float(checked)
+        parameters = {str(k): number(v) for k, v in table(section, "unknown_parameters").items()}
         eigenvalue = section.get("eigenvalue")
         if eigenvalue is not None:
             parameters[eigenvalue] = 0.0
-        if not all(math.isfinite(v) for v in [*constants.values(), *parameters.values()]):
+        if not all(math.isfinite(v.real) and math.isfinite(v.imag) for v in [*constants.values(), *parameters.values()]):
             return None
         settings = dict(table(data, "solver"))  # as the spec model keeps it: only the keys given
         save = table(data, "save")
@@ -120,8 +129,9 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
             settings["sweep"] = _sweep(table(data, "sweep"))
         regions = section.get("regions")
         if regions is not None:
-            regions = [{**{k: v for k, v in r.items()}, "constants": dict(r.get("constants", {}))} for r in regions]
-        own = {f"{name}@{r + 1}": float(value) for r, region in enumerate(regions or [])
+            regions = [{**{k: v for k, v in r.items()},
+                        "constants": {k: number(v) for k, v in r.get("constants", {}).items()}} for r in regions]
+        own = {f"{name}@{r + 1}": number(value) for r, region in enumerate(regions or [])
                for name, value in region["constants"].items()}
         title = data.get("title", "")
         outputs = dict(table(data, "outputs"))
@@ -129,7 +139,8 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
             "equations": section.get("equations"), "conditions": section.get("conditions"),
             "domain": section.get("domain"), "independent": section.get("independent", "x"),
             "unknowns": section.get("unknowns"), "constants": constants,
-            "unknown_parameters": dict(table(section, "unknown_parameters")), "guess": dict(table(section, "guess")),
+            "unknown_parameters": {k: number(v) for k, v in table(section, "unknown_parameters").items()},
+            "guess": dict(table(section, "guess")),
             "outputs": outputs, "settings": settings, "title": title, "eigenvalue": eigenvalue,
             "mode": section.get("mode"), "regions": regions,
         }

@@ -13,6 +13,9 @@ Meaning of names:
 
 * a whitelisted function called with arguments (``exp(x)``, ``atan2(y, x)``);
 * ``pi``, ``e``, ``inf`` (also ``oo``);
+* ``2j``, ``1.5e3j`` -- an imaginary number, written as Python writes it (a number followed by
+  ``j``); it makes the problem complex (:mod:`bvpkit.reduce.complex`). The name ``I`` stays
+  free for the user (a current, a moment of inertia);
 * ``f'''`` -- a derivative of the unknown function ``f`` with respect to the independent
   variable: ``Derivative(f(x), (x, 3))``;
 * ``f(0)``, ``f'(inf)``, ``f(L)`` -- a point evaluation: ``f(0)``, ``Subs(Derivative(f(x), x), x, oo)``;
@@ -72,6 +75,12 @@ FUNCTIONS: dict[str, tuple[object, int]] = {
     "erfc": (sp.erfc, 1),
     "min": (sp.Min, 2),
     "max": (sp.Max, 2),
+    # complex values (see bvpkit.reduce.complex): real and imaginary parts, the conjugate and
+    # the principal argument in (-pi, pi]; in a real problem re(u) = u, im(u) = 0, conj(u) = u
+    "re": (sp.re, 1),
+    "im": (sp.im, 1),
+    "conj": (sp.conjugate, 1),
+    "arg": (lambda z: sp.atan2(sp.im(z), sp.re(z)), 1),
 }
 
 #: Names with a fixed meaning; they cannot name a constant, parameter or function.
@@ -109,7 +118,7 @@ class SideValue(sp.Function):
 _TOKEN = re.compile(
     r"""
     (?P<space>\s+)
-  | (?P<number>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)
+  | (?P<number>(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[jJ]?)
   | (?P<name>[A-Za-z_][A-Za-z_0-9]*)
   | (?P<primes>'+)
   | (?P<op>\*\*|[-+*/(),=])
@@ -175,6 +184,9 @@ def _tokenize(text: str) -> list[_Token]:
 
 
 def _number(token: _Token, text: str) -> sp.Expr:
+    """A literal: an integer or float, times the imaginary unit when it ends in ``j`` (``2j``)."""
+    if token.text[-1] in "jJ":
+        return _number(_Token(token.kind, token.text[:-1], token.column), text) * sp.I
     literal = token.text
     try:
         value = float(literal)

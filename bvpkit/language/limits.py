@@ -87,12 +87,30 @@ def check_value(value: object, what: str) -> float:
     except OverflowError:
         raise ProblemError(outside) from None
     except (TypeError, ValueError):
+        if is_complex(value) or _complex_text(value):
+            raise ProblemError(f"{what}: expected a real number, got the complex number {describe(_as_complex(value))}; "
+                               "only constants, unknown parameters, conditions and equations may be complex") from None
         raise ProblemError(f"{what}: expected a real number, got {describe(value)}") from None
     if math.isnan(number) or number in (math.inf, -math.inf) and not _is_big(value):
         raise ProblemError(f"{what}: expected a finite number, got {describe(value)}")
     if not in_range(number):  # also a finite expression whose value overflowed (Float('1e600'))
         raise ProblemError(outside)
     return number
+
+
+def is_complex(value: object) -> bool:
+    """Whether ``value`` is a complex number by its type (Python's ``complex``, NumPy's complex
+    floats): a complex constant or start value, even with a zero imaginary part."""
+    return isinstance(value, numbers.Complex) and not isinstance(value, numbers.Real)
+
+
+def check_number(value: object, what: str) -> float | complex:
+    """Like :func:`check_value`, but a complex number (by its type, :func:`is_complex`) is
+    accepted too, each part checked like a real value: a ``complex`` comes back."""
+    if not is_complex(value):
+        return check_value(value, what)
+    z = complex(value)  # type: ignore[arg-type]
+    return complex(check_value(z.real, f"{what} (real part)"), check_value(z.imag, f"{what} (imaginary part)"))
 
 
 def check_end(value: object, what: str) -> float:
@@ -104,6 +122,22 @@ def check_end(value: object, what: str) -> float:
     if number in (math.inf, -math.inf) and not isinstance(value, numbers.Rational) and not _is_big(value):
         return number
     return check_value(value, what)
+
+
+def _complex_text(value: object) -> bool:
+    """Whether ``value`` prints as a SymPy complex number (a domain end such as ``2*I``)."""
+    try:
+        return bool(getattr(value, "is_number", False) and getattr(value, "is_real", None) is False)
+    except (TypeError, ValueError):  # pragma: no cover - SymPy's assumptions on odd input
+        return False
+
+
+def _as_complex(value: object) -> object:
+    """A complex value as Python writes it (``1j``, not SymPy's ``I``), when it converts."""
+    try:
+        return complex(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError, OverflowError):
+        return value
 
 
 def _is_big(value: object) -> bool:

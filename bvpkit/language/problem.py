@@ -121,10 +121,13 @@ class Problem:
         Name of the independent variable (default ``"x"``).
     unknowns : sequence of str, optional
         Names of the unknown functions; inferred from the equations when omitted.
-    constants : mapping of str to float, optional
-        Known values usable in any expression.
-    unknown_parameters : mapping of str to float, optional
-        Parameters determined by the solve (name: initial guess); each needs one more condition.
+    constants : mapping of str to float (or complex), optional
+        Known values usable in any expression. A complex value (``2j``, ``complex(1, 0)``)
+        makes the constant, and the problem, complex.
+    unknown_parameters : mapping of str to float (or complex), optional
+        Parameters determined by the solve (name: initial guess); each needs one more condition
+        (in a complex problem: a complex start value makes the parameter complex; real ones
+        come in pairs, two taking the place of one complex condition).
     guess : mapping of str to str/number/SymPy, optional
         An initial guess per unknown function, as an expression of the independent variable.
     outputs : mapping of str to str, optional
@@ -146,6 +149,13 @@ class Problem:
         [...], "constants": {...}}``: ``end`` is where the region stops (omit it for the
         last), ``equations`` replace the problem's equations there, ``constants`` give
         constants a value of their own there. Every region has the same unknown functions.
+
+    Attributes
+    ----------
+    complex : bool
+        Whether the problem is complex: an equation or condition holds the imaginary unit
+        (``1j``), or a constant or start value is complex. Then every unknown function is
+        complex (see :mod:`bvpkit.reduce.complex`).
 
     Raises
     ------
@@ -184,8 +194,8 @@ class Problem:
         self.title = str(title)
         self.independent = _expr.check_name(independent, "independent variable")
         self.x = sp.Symbol(self.independent)
-        self.constants = _numbers(constants or {}, "constant")
-        self.unknown_parameters = _numbers(unknown_parameters or {}, "unknown parameter")
+        self.constants = _numbers(constants or {}, "constant", complex_ok=True)
+        self.unknown_parameters = _numbers(unknown_parameters or {}, "unknown parameter", complex_ok=True)
         self.settings = dict(settings or {})
         self.options = SolveOptions.make(self.settings)  # the solver's settings, checked once
         overlap = set(self.constants) & set(self.unknown_parameters)
@@ -208,6 +218,11 @@ class Problem:
         ]
 
         everything = raw_equations + [e for eqs in raw_regional if eqs for e in eqs]
+        # a problem with any complex number (the imaginary unit written, a complex constant or
+        # start value) is complex: all its functions are (bvpkit.reduce.complex)
+        self.complex = (any(_imaginary(e) for e in [*everything, *raw_conditions])
+                        or any(_limits.is_complex(v) for v in [*self.constants.values(),
+                                                                *self.unknown_parameters.values()]))
         self.unknowns = self._infer_unknowns(everything, raw_conditions, unknowns)
         self.equations = [
             self._canonical(e, f"equation {i + 1}", self.equation_text[i]) for i, e in enumerate(raw_equations)
@@ -332,6 +347,8 @@ class Problem:
                     self._check_applied(f, e)
                 raise ProblemError(f"{where} ({text}): '{name}' is not an unknown function{closest(name, self.unknowns)}")
         e = e.xreplace(replace) if replace else e
+        if not self.__dict__.get("complex", True):
+            e = _real_only(e)
         # brackets with primes, ((1 + b*T)*T')', are differentiated now that T is T(x)
         e = e.replace(lambda d: isinstance(d, sp.Derivative) and not isinstance(d.expr, applied_undef()),
                       lambda d: d.doit())
@@ -482,7 +499,7 @@ class Problem:
                         f"{label}: '{name}' is not a constant of the problem{closest(name, self.constants)}; "
                         "a region gives its own value to constants the problem declares"
                     )
-            found.append((label, end, equations, _numbers(own, f"{label} constant", names_known=True)))
+            found.append((label, end, equations, changed_numbers(own, self.constants, f"{label} constant")))
         return found
 
     def _regions(self, given: list, raw: list) -> tuple[list[Region], list]:
@@ -658,6 +675,15 @@ class Problem:
         free = len(self.unknown_parameters)
         total = sum(self.orders.values())
         jumping = sum(len(s) for s in jumps.values())
+        real = [n for n, v in self.unknown_parameters.items() if not _limits.is_complex(v)]
+        if self.complex and len(real) % 2:
+            raise ProblemError(
+                f"a complex problem: each condition holds for a complex number (two real conditions), so its real "
+                f"unknown parameters ({', '.join(real)}) must come in pairs; give one a complex start value "
+                f"({real[0]} = 1+0j) to make it complex"
+            )
+        if self.complex:
+            free -= len(real) // 2  # two real parameters take one (complex) condition
         needed = total + free + jumping - self_phase
         if self._shifts():
             first = self.unknowns[0]
@@ -679,6 +705,8 @@ class Problem:
                 names = ", ".join(n + "'" * k for n, k in sorted(states))
                 parts.append(f"{len(states)} at {where}, where {names} jump{'s' if len(states) == 1 else ''}")
         text = " + ".join(parts)
+        if self.complex and real:
+            text += f" (each pair of the real ones {', '.join(real)} counts as one complex parameter)"
         if self_phase:
             text += " - 1 phase condition bvpkit adds to this periodic problem"
         if self.eigenvalue:
@@ -752,8 +780,10 @@ class Problem:
                 raise ProblemError(f"guess for '{name}', which is not an unknown function{closest(name, self.unknowns)}")
             if isinstance(value, bool):
                 raise ProblemError(f"guess for '{name}': expected an expression or number")
-            if isinstance(value, int | float):
-                e = sp.Float(_limits.check_value(value, f"guess for '{name}'"))
+            if isinstance(value, int | float) or _limits.is_complex(value):
+                number = _limits.check_number(value, f"guess for '{name}'")
+                e = sp.Float(number.real) + sp.I * sp.Float(number.imag) if isinstance(number, complex) \
+                    else sp.Float(number)
             elif isinstance(value, str):
                 try:
                     e = _expr.parse(value, self.x)
@@ -770,6 +800,10 @@ class Problem:
                     raise ProblemError(f"guess for '{name}': unknown name '{s.name}'{closest(s.name, allowed)}")
             if e.has(applied_undef(), sp.Derivative, sp.Subs):
                 raise ProblemError(f"guess for '{name}' may not use unknown functions")
+            if not self.complex:
+                if _imaginary(e):
+                    raise ProblemError(f"guess for '{name}': {_REAL_PROBLEM}")
+                e = _real_only(e)
             result[name] = e.xreplace(
                 {s: (self.x if s.name == self.independent else sp.Symbol(s.name)) for s in e.free_symbols}
             )
@@ -791,6 +825,8 @@ class Problem:
             e = _expr.parse(text, self.x)
         except ExpressionError as err:
             raise ExpressionError(f"{where}: {err.reason}", err.text, err.column) from None
+        if not self.complex and _imaginary(e):
+            raise ProblemError(f"{where} ({text}): {_REAL_PROBLEM}")
         e = self._canonical(e, where, text)
         for name in self.algebraic:
             f = sp.Function(name)(self.x)
@@ -830,6 +866,9 @@ class Problem:
                  list(self.points), list(self.constants), list(self.unknown_parameters),
                  self.eigenvalue, self.mode,
                  [(r.equations, sorted(r.constants)) for r in self.regions]]
+        if self.complex:  # which values are complex is structure: the real system differs
+            parts.append(["complex", *(n for n, v in {**self.constants, **self.unknown_parameters}.items()
+                                       if _limits.is_complex(v))])
         if generated:
             parts += [sorted(self.guess.items()), sorted(self.outputs.items())]
         return exact_key(parts)
@@ -849,7 +888,7 @@ class Problem:
             )
         new = object.__new__(Problem)
         new.__dict__.update(self.__dict__)
-        new.__dict__["constants"] = {**self.constants, **_numbers(values, "constant", names_known=True)}
+        new.__dict__["constants"] = {**self.constants, **changed_numbers(values, self.constants, "constant")}
         new._check_order(list(self.points), [_describe(p) for p in self.points])
         return new
 
@@ -865,7 +904,8 @@ def point_value(point: Any, values: Mapping[str, float], what: str = "") -> floa
     a real number of floating-point size, or an infinite end); ``what`` names it in errors."""
     if not isinstance(point, sp.Basic):  # parsed by Problem._point; text never reaches SymPy here
         raise TypeError(f"a point must be a parsed expression, got {type(point).__name__}")
-    value = point.xreplace({sp.Symbol(k): sp.Float(v) for k, v in values.items()})
+    value = point.xreplace({sp.Symbol(k): sp.Float(v.real) + sp.I * sp.Float(v.imag) if isinstance(v, complex)
+                            else sp.Float(v) for k, v in values.items()})
     if value == sp.oo:
         return math.inf
     if value == -sp.oo:
@@ -940,15 +980,50 @@ def _list(items: Any, what: str) -> list:
     return list(items)
 
 
-def _numbers(values: Mapping[str, Any], role: str, names_known: bool = False) -> dict[str, float]:
+def _numbers(values: Mapping[str, Any], role: str, names_known: bool = False,
+             complex_ok: bool = False) -> dict[str, float | complex]:
     if not isinstance(values, Mapping):
         raise ProblemError(f"{role}s must be a mapping of name to number")
     result = {}
+    check = _limits.check_number if complex_ok else _limits.check_value
     for name, value in values.items():
         if not names_known:
             _expr.check_name(name, role)
-        result[name] = _limits.check_value(value, f"{role} '{name}'")  # finite, within 1e-300..1e300
+        result[name] = check(value, f"{role} '{name}'")  # finite, within 1e-300..1e300
     return result
+
+
+def changed_numbers(values: Mapping[str, Any], current: Mapping[str, Any], role: str) -> dict[str, float | complex]:
+    """New values of a problem's constants (or parameter guesses), checked: a complex one
+    takes a real or complex value (kept complex), a real one a real value only (a complex
+    value would make another problem: its real system has other states)."""
+    result = _numbers(values, role, names_known=True, complex_ok=True)
+    for name, value in result.items():
+        if _limits.is_complex(current.get(name)):
+            result[name] = complex(value)
+        elif isinstance(value, complex):
+            raise ProblemError(
+                f"{role} '{name}' is real in this problem; a complex value ({_limits.describe(value)}) makes "
+                f"another problem: build it with {name} complex from the start"
+            )
+    return result
+
+
+#: Why the imaginary unit is refused in an expression of a real problem.
+_REAL_PROBLEM = ("the imaginary unit (1j) in a real problem; a problem is complex when its equations, conditions, "
+                 "constants or unknown-parameter start values hold a complex number")
+
+
+def _imaginary(e: Any) -> bool:
+    """Whether a parsed expression holds the imaginary unit."""
+    return isinstance(e, sp.Basic) and e.has(sp.I)
+
+
+def _real_only(e: Any) -> Any:
+    """``e`` of a real problem: ``re(u) = u``, ``im(u) = 0``, ``conj(u) = u`` (every value real)."""
+    if not isinstance(e, sp.Basic) or not e.has(sp.re, sp.im, sp.conjugate):
+        return e
+    return e.replace(sp.re, lambda u: u).replace(sp.im, lambda u: sp.S.Zero).replace(sp.conjugate, lambda u: u)
 
 
 __all__ = ["Problem", "PointValue", "Region", "check_positions", "point_value"]

@@ -12,6 +12,16 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 
+def written(name: str, k: int) -> str:
+    """A state as a person writes it: ``f''``; the primes go inside a bracket (``re(T')``, the
+    real part of ``T'``); an added state's description (``integral(c)``) as it is."""
+    if not k:
+        return name
+    if name.endswith(")") and "(" in name:
+        return name[:-1] + "'" * k + ")"
+    return name + "'" * k
+
+
 class States:
     """What a region's ``states`` (``(function, derivative order)`` per state) tell."""
 
@@ -25,7 +35,7 @@ class States:
     @property
     def state_names(self) -> tuple[str, ...]:
         """``("f", "f'", "f''")``: what each state of a region holds, as a person writes it."""
-        return tuple(name + "'" * k if "(" not in name else name for name, k in self.states)
+        return tuple(written(name, k) for name, k in self.states)
 
     def index(self, name: str, order: int) -> int:
         """Row of ``name``'s derivative ``order`` within a region."""

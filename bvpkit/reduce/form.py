@@ -56,8 +56,11 @@ _PHYSICAL = sp.Symbol("_xphys", real=True)
 
 
 
-def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
-    return tuple(sp.Symbol(f"_{prefix}{i}", real=True) for i in range(n))
+def _symbols(prefix: str, n: int, real: bool = True) -> tuple[sp.Symbol, ...]:
+    """Internal symbols ``_y0, _y1, ...``: real, or with no assumption while the values they
+    stand for may be complex (so SymPy simplifies nothing a complex value would not allow:
+    ``abs(s)**2`` stays, ``re(s)`` is not ``s``)."""
+    return tuple(sp.Symbol(f"_{prefix}{i}", real=True) if real else sp.Symbol(f"_{prefix}{i}") for i in range(n))
 
 
 @dataclass(frozen=True)
@@ -209,9 +212,9 @@ class Names:
     p: dict = field(default_factory=dict)
     own: list[dict] = field(default_factory=list)  # per region: user Symbol -> k symbol of its own value
 
-    def seal(self, problem) -> None:  # noqa: ANN001
-        k = _symbols("k", len(self.constants))
-        p = _symbols("p", len(self.parameters))
+    def seal(self, problem, real: bool = True) -> None:  # noqa: ANN001
+        k = _symbols("k", len(self.constants), real)
+        p = _symbols("p", len(self.parameters), real)
         self.k = {sp.Symbol(c): k[i] for i, c in enumerate(problem.constants)}
         self.p = {sp.Symbol(q): p[i] for i, q in enumerate(self.parameters)}
         self.own = [{sp.Symbol(name): k[i] for name, i in own.items()} for own in self.own_names]
@@ -224,7 +227,7 @@ class Names:
         return {**self.k, **self.own[r], **self.p}
 
 
-def _names(problem, classes) -> Names:  # noqa: ANN001
+def _names(problem, classes, real: bool = True) -> Names:  # noqa: ANN001
     constants = list(problem.constants)
     own_names: list[dict] = []
     for r, region in enumerate(problem.regions):
@@ -236,7 +239,7 @@ def _names(problem, classes) -> Names:  # noqa: ANN001
     names = Names(constants, list(problem.unknown_parameters), own_names)
     for cls in classes:
         cls.names(problem, names)
-    names.seal(problem)
+    names.seal(problem, real)
     return names
 
 
@@ -282,6 +285,9 @@ class Reduction:
         ``S`` of a term ``S y / (x - a)`` of the first region (one region's size).
     maps : list of (sympy.Expr, sympy.Expr)
         Per region ``(c_r, h_r)``: ``x = c_r + h_r t``.
+    functions : list of (str, int)
+        The standard form's functions and their orders (the user's, unless a class splits
+        them: ``re(T)``, ``im(T)``).
     """
 
     problem: Any
@@ -305,6 +311,8 @@ class Reduction:
     singular: list | None = None
     maps: list = field(default_factory=list)
     values: dict = field(default_factory=dict)
+    real: bool = True  # whether the symbols carry SymPy's real assumption (see Transform.real_values)
+    functions: list = field(default_factory=list)  # the form's functions and their orders
     scratch: dict = field(default_factory=dict)  # what a class keeps between its own hooks, by kind
 
     @property
@@ -317,7 +325,9 @@ class Reduction:
         side = side or (1 if point == 0 else -1)  # written f(L): continuous there, read from the left
         if (point == 0 and side < 0) or (point == self.last and side > 0):  # pragma: no cover - refused by Problem
             raise ProblemError("a one-sided value outside the domain")
-        return self.values.setdefault((state, point, side), sp.Symbol(f"_v{state}_{point}_{side}", real=True))
+        name = f"_v{state}_{point}_{side}"
+        return self.values.setdefault((state, point, side),
+                                      sp.Symbol(name, real=True) if self.real else sp.Symbol(name))
 
     def algebraic_value(self, j: int, point: int, side: int) -> sp.Symbol:
         """The symbol of algebraic unknown ``j``'s value at an end or interface (``side`` as in
@@ -344,13 +354,15 @@ class Reduction:
 def _build(problem) -> StandardForm:  # noqa: ANN001
 
     classes = [cls for cls in PIPELINE if cls.applies(problem)]
-    names = _names(problem, classes)
+    real = all(cls.real_values for cls in classes)
+    names = _names(problem, classes, real)
     functions = tuple((f, problem.orders[f]) for f in problem.unknowns if problem.orders[f] > 0)
     user_states = tuple((f, j) for f, order in functions for j in range(order))
     room = len(user_states) + sum(cls.room(problem) for cls in classes)
-    local = _symbols("s", room)  # one region's states while its system is formed
+    local = _symbols("s", room, real)  # one region's states while its system is formed
     work = Reduction(problem, names, list(user_states), list(user_states), local,
-                     algebraic=list(problem.algebraic), zlocal=_symbols("a", len(problem.algebraic)))
+                     algebraic=list(problem.algebraic), zlocal=_symbols("a", len(problem.algebraic), real),
+                     real=real, functions=list(functions))
     work.equations = [list(region.equations) for region in problem.regions]
     work.texts = [list(region.equation_text) for region in problem.regions]
     work.constraints = [[] for _ in problem.regions]
@@ -383,6 +395,9 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
     work.maps = _map(work.ends)
     for cls in classes:
         cls.maps(work)
+    # 6. rewrites of the whole reduction (complex values onto real ones)
+    for cls in classes:
+        cls.split(work)
     return _assemble(work, [t for t in (cls.finish(work) for cls in classes) if t is not None])
 
 
@@ -432,7 +447,7 @@ def _assemble(work: Reduction, transforms: list) -> StandardForm:
     given = tuple(c for c in work.given if not c.free_symbols & algebraic_values)
     return StandardForm(
         independent=problem.independent,
-        functions=tuple((f, problem.orders[f]) for f in problem.unknowns if problem.orders[f] > 0),
+        functions=tuple(work.functions),
         states=tuple(work.states),
         users=len(work.user_states),
         regions=len(systems),
@@ -450,6 +465,51 @@ def _assemble(work: Reduction, transforms: list) -> StandardForm:
         algebraic=tuple(work.algebraic),
         constraints=tuple(constraints),
     )
+
+
+# -- the user's names in the standard form (quantities, guesses) ------------------------------
+def spelled(form: StandardForm, name: str) -> tuple[tuple[str, Any], ...]:
+    """The names of ``form`` that make up the user's function, constant or parameter ``name``,
+    each with its factor (``((name, 1),)`` unless a class splits it)."""
+    for t in form.transforms:
+        found = t.spelled(name)
+        if found is not None:
+            return found
+    return ((name, 1),)
+
+
+def factor(z: Any) -> sp.Expr:
+    """A factor of :func:`spelled` (1, 1j) as SymPy's."""
+    z = complex(z)
+    return sp.Integer(int(z.real)) + sp.I * sp.Integer(int(z.imag))
+
+
+def user_symbols(problem, form: StandardForm) -> dict:  # noqa: ANN001
+    """The user's constants and unknown parameters (plain Symbols) as expressions of the
+    standard form's ``k`` and ``p``."""
+    out = {}
+    for names, symbols, own in ((problem.constants, form.k, form.constants),
+                                (form_parameters(problem), form.p, form.parameters)):
+        for name in names:
+            pieces = spelled(form, name)
+            if all(piece in own for piece, _ in pieces):
+                out[sp.Symbol(name)] = sp.Add(*(factor(f) * symbols[own.index(piece)] for piece, f in pieces))
+    return out
+
+
+def form_parameters(problem) -> list[str]:  # noqa: ANN001
+    """The user's unknown parameters, the eigenvalue included."""
+    return [*problem.unknown_parameters, *([problem.eigenvalue] if problem.eigenvalue else [])]
+
+
+def real_parts(form: StandardForm, e: sp.Expr, replace: dict, where: str) -> list:
+    """The real expressions of ``e`` (in the user's names) with ``replace`` made in it: ``[e]``,
+    or its real and imaginary parts when a class splits values."""
+    for t in form.transforms:
+        found = t.parts(e, replace, where)
+        if found is not None:
+            return found
+    return [e.xreplace(replace)]
 
 
 # -- the transforms -------------------------------------------------------------------------

@@ -92,18 +92,22 @@ class GuessRecipe:
 
 # -- recipes (made with SymPy, once per problem) --------------------------------------------
 def guess_recipes(problem, form) -> dict[str, GuessRecipe]:  # noqa: ANN001 - Problem, StandardForm
-    """The recipe of every unknown's default guess: its own guess expression, else the polynomial."""
+    """The recipe of every function of the standard form: from the user's guess expression of
+    its function, else the polynomial."""
     recipes = {}
+    for name in problem.unknowns:
+        if name in problem.guess and name not in form.algebraic:
+            recipes.update(expression_recipes(problem, form, name, problem.guess[name]))
     index = None
     for name, order in form.functions:
-        if name in problem.guess:
-            recipes[name] = expression_recipe(problem, form, name, problem.guess[name])
-        else:
+        if name not in recipes:
             index = index or _condition_index(form)  # once per problem, not once per function
             recipes[name] = _polynomial_recipe(form, name, order, index)
     for name in form.algebraic:  # where the inner solves of an algebraic unknown start (no recipe: a constant)
-        recipes[name] = (expression_recipe(problem, form, name, problem.guess[name]) if name in problem.guess
-                         else GuessRecipe(name, 1, "polynomial"))
+        if name in problem.guess:
+            recipes.update(expression_recipes(problem, form, name, problem.guess[name]))
+        else:
+            recipes[name] = GuessRecipe(name, 1, "polynomial")
     return recipes
 
 
@@ -126,24 +130,30 @@ def _condition_index(form) -> tuple[dict, dict]:  # noqa: ANN001 - StandardForm
     return what, by_name
 
 
-def expression_recipe(problem, form, name: str, e: Any) -> GuessRecipe:  # noqa: ANN001
-    """A guess expression of the user's variable (and constants, parameters) as a recipe."""
+def expression_recipes(problem, form, name: str, e: Any) -> dict[str, GuessRecipe]:  # noqa: ANN001
+    """A guess expression of the user's variable (and constants, parameters) for the user's
+    function ``name``, as the recipes of the form's functions that make it up (one, or the
+    real and imaginary parts of a complex function)."""
     import sympy as sp
 
     from ..programs.codegen import X, compile_expressions, derivative
+    from .form import real_parts, spelled, user_symbols
 
-    names = {problem.x: X}
-    names.update({sp.Symbol(c): form.k[i] for i, c in enumerate(form.constants) if c in problem.constants})
-    names.update({sp.Symbol(q): form.p[i] for i, q in enumerate(form.parameters)})
+    names = {problem.x: X, **user_symbols(problem, form)}
     if not isinstance(e, sp.Basic):  # parsed by Problem (expr.parse); text never reaches SymPy here
         raise TypeError(f"a guess expression must be parsed first, got {type(e).__name__}")
-    e = e.xreplace(names)
-    order = dict(form.functions).get(name, 1)  # an algebraic unknown: its value alone
-    derivatives = [e]
-    for _ in range(order - 1):
-        derivatives.append(derivative(derivatives[-1], X))
-    f = compile_expressions(derivatives, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
-    return GuessRecipe(name, order, "expression", f.program)
+    pieces = spelled(form, name)
+    parts = real_parts(form, e, names, f"the guess for '{name}'")
+    parts += [sp.S.Zero] * (len(pieces) - len(parts))
+    recipes = {}
+    for (piece, _), part in zip(pieces, parts):
+        order = dict(form.functions).get(piece, 1)  # an algebraic unknown: its value alone
+        derivatives = [part]
+        for _ in range(order - 1):
+            derivatives.append(derivative(derivatives[-1], X))
+        f = compile_expressions(derivatives, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
+        recipes[piece] = GuessRecipe(piece, order, "expression", f.program)
+    return recipes
 
 
 def _polynomial_recipe(form, name: str, order: int, index: tuple | None = None) -> GuessRecipe:  # noqa: ANN001

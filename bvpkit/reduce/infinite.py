@@ -91,9 +91,12 @@ def far_names(end: int, users: int) -> list[str]:
 def _far_rows(problem) -> tuple[tuple[int, ...], tuple[int, ...]]:  # noqa: ANN001
     """Per end (left, right), the conditions that hold at that infinite end alone (indices in
     the problem's conditions), when every condition there does and the region is small
-    enough for the far-field map; else ``()``."""
+    enough for the far-field map; else ``()``. Not for a complex problem (its states are
+    split into real and imaginary parts after this class has run: the conditions as written)."""
     from ..language.expr import DomainIntegral
 
+    if getattr(problem, "complex", False):
+        return (), ()
     users = sum(problem.orders.values())
     last = len(problem.points) - 1
     found: list[tuple[int, ...]] = []

@@ -33,7 +33,7 @@ import numpy as np
 
 from ..errors import OptionError, ProblemError, closest
 from ..language.options import SolveOptions
-from ..language.problem import Problem, _numbers, check_positions
+from ..language.problem import Problem, changed_numbers, check_positions
 from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
@@ -135,28 +135,43 @@ class Prepared:
         """The constants' values in the order of the compiled ``k``: the problem's, each
         region's own, and those the classes add for the solve's ``options`` (their defaults
         when None)."""
-        own = {**self.facts["own"]}
+        given = self.solved_values({**self.constants, **self.facts["own"]})
         for t in self.transforms:
-            own.update(t.constants(options))
-        values = []
-        for name in self.layout.constants:
-            values.append(own[name] if name in own else self.constants[name])
-        return np.array(values, dtype=float)
+            given.update(t.constants(options))
+        return np.array([given[name] for name in self.layout.constants], dtype=float)
 
     def p0(self) -> np.ndarray:
-        return np.array([self.parameters.get(q, 0.0) for q in self.layout.parameters], dtype=float)
+        """The start values of the unknown parameters in the order of the compiled ``p``."""
+        given = self.solved_values(self.parameters)
+        return np.array([given.get(q, 0.0) for q in self.layout.parameters], dtype=float)
+
+    def solved_values(self, values: Mapping[str, Any]) -> dict[str, Any]:
+        """Values by the user's names (constants, parameter guesses) as those of the standard
+        form: a complex one as its real and imaginary parts."""
+        out = dict(values)
+        for t in self.transforms:
+            out = t.inward(out)
+        return out
+
+    def user_values(self, values: Mapping[str, Any]) -> dict[str, Any]:
+        """Values by the names of the standard form (solved parameters) as the user's names:
+        a complex parameter from its real and imaginary parts."""
+        out = dict(values)
+        for t in self.transforms:
+            out = t.outward(out)
+        return out
 
     # -- new values --------------------------------------------------------------------------
     def with_constants(self, **values: float) -> Prepared:
         """The same problem with other values of some constants (no new code); checked like
         values in the file."""
-
         missing = [k for k in values if k not in self.constants]
         if missing:
             raise ProblemError(
                 f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
             )
-        new = dataclasses.replace(self, constants={**self.constants, **_numbers(values, "constant", names_known=True)})
+        new = dataclasses.replace(self, constants={**self.constants,
+                                                   **changed_numbers(values, self.constants, "constant")})
         new.check()
         return new
 
@@ -165,8 +180,8 @@ class Prepared:
         missing = [k for k in values if k not in self.parameters]
         if missing:
             raise OptionError(f"'{missing[0]}' is not an unknown parameter{closest(missing[0], self.parameters)}")
-        return dataclasses.replace(self, parameters={**self.parameters, **_numbers(values, "unknown parameter",
-                                                                                     names_known=True)})
+        return dataclasses.replace(self, parameters={**self.parameters,
+                                                     **changed_numbers(values, self.parameters, "unknown parameter")})
 
     def check(self, p: np.ndarray | None = None, k: np.ndarray | None = None) -> None:
         """Ends and interfaces in order and finite for these values (the one check of values)."""
@@ -192,14 +207,32 @@ class Prepared:
             _QUANTITIES[(self.facts["key"], text)] = found
         return found
 
-    def recipe(self, name: str, expression: Any) -> GuessRecipe:
-        """A guess expression for ``name`` given at solve time, as a recipe (SymPy's work)."""
-        from .form import standard_form
-        from .guess import expression_recipe
+    def real_outputs(self, labels: Mapping[str, str]) -> dict[str, str]:
+        """Label -> expression, with each complex-valued expression as two real ones, its real
+        and imaginary parts (labelled ``re(label)`` and ``im(label)``): what traces, fold curves
+        and sweeps record (compiled now, so a bad expression is refused before any solve)."""
+        out = {}
+        for label, text in labels.items():
+            if self.quantity(text).parts == 2:
+                out[f"re({label})"], out[f"im({label})"] = f"re({text})", f"im({text})"
+            else:
+                out[label] = text
+        for text in out.values():
+            self.quantity(text)
+        return out
 
+    def recipes_for(self, name: str, expression: Any) -> dict[str, GuessRecipe]:
+        """A guess expression for the user's function ``name`` given at solve time, as the
+        recipes of the functions it is solved as (SymPy's work)."""
+        from .form import standard_form
+        from .guess import expression_recipes
+
+        if name not in self.facts["unknowns"]:
+            raise OptionError(f"guess for '{name}', which is not an unknown function"
+                              f"{closest(name, self.facts['unknowns'])}")
         problem = self.problem()
         parsed = problem._guesses({name: expression})[name]
-        return expression_recipe(problem, standard_form(problem), name, parsed)
+        return expression_recipes(problem, standard_form(problem), name, parsed)
 
     def problem(self):  # noqa: ANN201 - a bvpkit.Problem
         """The symbolic problem (rebuilt from its arguments on first need, with SymPy)."""
@@ -213,27 +246,56 @@ class Prepared:
 
     # -- plain data ---------------------------------------------------------------------------
     def plain(self) -> dict[str, Any]:
-        return {"facts": self.facts, "layout": self.layout.as_dict(), "system": self.system,
+        return {"facts": written_numbers(self.facts), "layout": self.layout.as_dict(), "system": self.system,
                 "recipes": {k: r.plain() for k, r in self.recipes.items()},
                 "quantities": {k: q.plain() for k, q in self.quantities.items()},
-                "constants": self.constants, "parameters": self.parameters,
+                "constants": written_numbers(self.constants), "parameters": written_numbers(self.parameters),
                 "transforms": [t.plain() for t in self.transforms]}
 
     @classmethod
     def from_plain(cls, data: Mapping[str, Any]) -> Prepared:
         return cls(
-            facts=dict(data["facts"]),
+            facts=read_numbers(dict(data["facts"])),
             layout=StateLayout.from_dict(data["layout"]),
             system=dict(data["system"]),
             recipes={k: GuessRecipe.from_plain(r) for k, r in data["recipes"].items()},
             quantities={k: Quantity.from_plain(q) for k, q in data["quantities"].items()},
-            constants={k: float(v) for k, v in data["constants"].items()},
-            parameters={k: float(v) for k, v in data["parameters"].items()},
+            constants={k: _number(v) for k, v in data["constants"].items()},
+            parameters={k: _number(v) for k, v in data["parameters"].items()},
             transforms=tuple(Transform.from_plain(t) for t in data["transforms"]),
         )
 
     def __repr__(self) -> str:
         return f"<Prepared {self.facts.get('title') or self.layout.row_names}>"
+
+
+def written_numbers(value: Any) -> Any:
+    """``value`` with every complex number written as ``{"re": ..., "im": ...}`` (JSON has none)."""
+    if isinstance(value, complex):
+        return {"re": value.real, "im": value.imag}
+    if isinstance(value, dict):
+        return {k: written_numbers(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [written_numbers(v) for v in value]
+    return value
+
+
+def read_numbers(value: Any) -> Any:
+    """The reverse of :func:`written_numbers`: a mapping of exactly ``re`` and ``im`` numbers is
+    a complex number (no name of a constant, function or output can be ``re`` or ``im``)."""
+    if isinstance(value, dict):
+        if set(value) == {"re", "im"} and all(isinstance(v, int | float) and not isinstance(v, bool)
+                                              for v in value.values()):
+            return complex(value["re"], value["im"])
+        return {k: read_numbers(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [read_numbers(v) for v in value]
+    return value
+
+
+def _number(value: Any) -> float | complex:
+    found = read_numbers(value)
+    return found if isinstance(found, complex) else float(found)
 
 
 _PREPARED: dict[str, Prepared] = {}
@@ -270,12 +332,12 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
                                parameters=_parameters(problem))
 
 
-def _own(problem) -> dict[str, float]:  # noqa: ANN001
-    return {f"{name}@{r + 1}": float(value) for r, region in enumerate(problem.regions)
+def _own(problem) -> dict[str, float | complex]:  # noqa: ANN001
+    return {f"{name}@{r + 1}": value for r, region in enumerate(problem.regions)
             for name, value in region.constants.items()}
 
 
-def _parameters(problem) -> dict[str, float]:  # noqa: ANN001
+def _parameters(problem) -> dict[str, float | complex]:  # noqa: ANN001
     values = dict(problem.unknown_parameters)
     if problem.eigenvalue:
         values[problem.eigenvalue] = 0.0

@@ -23,7 +23,9 @@ only for a class that :meth:`Transform.applies`):
 4. ``system(work)`` -- a rewrite of the regions' equations (a stretch of the variable, the
    singular term split off);
 5. ``maps(work)`` -- the regions' maps onto ``[0, 1]`` (a truncated infinite end);
-6. ``finish(work)`` -- the transform object itself, plain data, made from what the steps saw.
+6. ``split(work)`` -- a rewrite of the whole reduction onto other states and names (complex
+   values onto their real and imaginary parts);
+7. ``finish(work)`` -- the transform object itself, plain data, made from what the steps saw.
 
 Numerical hooks (methods of the object; plain NumPy, no SymPy), each with a default that
 does nothing:
@@ -40,6 +42,12 @@ does nothing:
 * :meth:`Transform.along` -- a check of each point of a trace (the far field);
 * :meth:`Transform.describe` -- what the class adds to a solution's message and diagnostics;
 * :meth:`Transform.ends` -- the true ends of the domain where the solved one differs.
+
+The map back to the user's names (each with a default that changes nothing): :meth:`Transform.spelled`
+(the names of the standard form that make up one of the user's), :meth:`Transform.parts` (the
+real expressions an expression of the solution is evaluated as; symbolic), :meth:`Transform.inward`
+and :meth:`Transform.outward` (values by the user's names to those of the standard form, and
+back: a complex constant or parameter to its real and imaginary parts).
 
 ``needs`` names what a method must be able to take for this class (``"singular_term"``);
 methods declare what they take, and the selector matches the two.
@@ -71,6 +79,10 @@ class Transform:
     kind: ClassVar[str] = ""
     #: What a method must take to solve a problem of this class.
     needs: ClassVar[frozenset[str]] = frozenset()
+    #: Whether the values the reduction forms are real (its symbols carry SymPy's real
+    #: assumption); a class of complex values says False, and rewrites them onto real ones in
+    #: its ``split`` hook.
+    real_values: ClassVar[bool] = True
     #: Whether a steady state of this class can still be read as one of ``u_t = u'' - g``
     #: (the stability judgement of traced points).
     keeps_evolution: ClassVar[bool] = False
@@ -108,6 +120,11 @@ class Transform:
     @classmethod
     def maps(cls, work: Any) -> None:
         """Rewrite the regions' maps onto ``[0, 1]`` in ``work``."""
+
+    @classmethod
+    def split(cls, work: Any) -> None:
+        """Rewrite the whole reduction ``work`` onto other states and names (its states,
+        systems, conditions and names all at once)."""
 
     @classmethod
     def finish(cls, work: Any) -> Transform:
@@ -156,6 +173,27 @@ class Transform:
     def ends(self, ends: list[float]) -> list[float]:
         """The true ends and interfaces of the domain, from those solved on."""
         return ends
+
+    # -- the map back to the user's names -----------------------------------------------------
+    def spelled(self, name: str) -> tuple[tuple[str, Any], ...] | None:
+        """The names of the standard form (states' functions, constants, parameters) that make
+        up the user's ``name``, each with its factor: ``(("re(T)", 1), ("im(T)", 1j))``; None
+        when this class leaves the name as it is."""
+        return None
+
+    def parts(self, e: Any, replace: dict, where: str = "an expression") -> list | None:
+        """The real expressions generated code evaluates for ``e``, an expression of the
+        user's names, once ``replace`` (the user's names -> the standard form's symbols) is
+        made in it (SymPy); None when this class leaves it to a plain replacement."""
+        return None
+
+    def inward(self, values: dict[str, Any]) -> dict[str, Any]:
+        """Values by the user's names (constants, parameter guesses) as the standard form's."""
+        return values
+
+    def outward(self, values: dict[str, Any]) -> dict[str, Any]:
+        """Values by the standard form's names (solved parameters) as the user's."""
+        return values
 
     # -- plain data ---------------------------------------------------------------------------
     def plain(self) -> dict[str, Any]:

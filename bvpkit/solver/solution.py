@@ -143,12 +143,14 @@ class Solution:
         interval for an infinite domain.
     y : ndarray, shape (n, m)
         The states at ``x`` (SciPy's layout), then the algebraic unknowns there;
-        ``state_names`` says what each row holds.
-    parameters : dict of str to float
+        ``state_names`` says what each row holds (for a complex problem, the real and
+        imaginary parts: ``re(T)``, ``im(T')``).
+    parameters : dict of str to float (complex for a complex parameter)
         Values of the unknown parameters.
     parameter_errors : dict of str to float
-        Their estimated absolute errors (NaN when not estimated).
-    outputs : dict of str to float
+        Their estimated absolute errors (NaN when not estimated; of a complex value, the size
+        of its complex error).
+    outputs : dict of str to float (complex for a complex value)
         The problem's named outputs, evaluated (empty when the solve failed).
     output_errors : dict of str to float
         Estimated absolute errors of the outputs (from the refined solve and, for infinite
@@ -191,9 +193,11 @@ class Solution:
             z = self.interpolant.z
             self.y = np.vstack([self.y, np.concatenate([z[r * held:(r + 1) * held] for r in range(regions)], axis=1)])
         names = layout.parameters
-        self.parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
+        self.parameters = prepared.user_values({q: float(v) for q, v in zip(names, self.interpolant.p)})
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
-        self.parameter_errors = {q: float(v) for q, v in zip(names, errs)}
+        # the error of a complex parameter is the size of the complex error (of both parts)
+        self.parameter_errors = {q: float(abs(v)) for q, v in
+                                 prepared.user_values({q: float(v) for q, v in zip(names, errs)}).items()}
         self._reference, self._previous = reference, previous
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
@@ -234,11 +238,12 @@ class Solution:
         Returns
         -------
         float or ndarray, shape (len(at),)
+            Complex (a ``complex`` or a complex array) when the expression's value is.
         """
         self._check_success("evaluate", allow_failed)
         return _evaluate(self.interpolant, self.prepared, self.prepared.quantity(expression), expression, at)
 
-    def integrate(self, expression: str, *, allow_failed: bool = False) -> float:
+    def integrate(self, expression: str, *, allow_failed: bool = False) -> float | complex:
         """Integral of an expression of the running point over the whole domain.
 
         For an infinite domain the integral is taken up to the truncation length, after
@@ -246,11 +251,11 @@ class Solution:
         """
         self._check_success("integrate", allow_failed)
         quantity = self.prepared.quantity(expression)
-        value, tail = _integral(self.interpolant, self.prepared, quantity)
+        value, tail = (_joined(v).item() for v in _integral(self.interpolant, self.prepared, quantity))
         a, b = self.interpolant.ends
         if self.prepared.truncated and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
             raise BvpkitError(
-                f"the integrand of '{expression}' is {tail:.3g} at the truncated end "
+                f"the integrand of '{expression}' is {number_text(tail, 3)} at the truncated end "
                 f"{self.independent} = {b:.6g}: the integral over the infinite domain does not converge"
             )
         return value
@@ -318,8 +323,8 @@ class Solution:
             shown += [(name, value, self.output_errors[name]) for name, value in self.outputs.items()]
             for name, value, error in shown:
                 unit = f" {units[name]}" if name in units else ""
-                note = "" if math.isfinite(value) else "  (not a finite number: check the expression)"
-                lines.append(f"  {name} = {value:.12g}{unit}  (+/- {_fmt_err(error)}){note}")
+                note = "" if np.isfinite(value) else "  (not a finite number: check the expression)"
+                lines.append(f"  {name} = {number_text(value, 12)}{unit}  (+/- {_fmt_err(error)}){note}")
         elif self.prepared.outputs or self.parameters:
             lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
@@ -356,15 +361,15 @@ class Solution:
             f"Fix the cause, or pass allow_failed=True to {action} anyway"
         )
 
-    def _output(self, text: str) -> tuple[float, float]:
+    def _output(self, text: str) -> tuple[float | complex, float]:
         quantity = self.prepared.quantity(text)
-        value = float(_evaluate(self.interpolant, self.prepared, quantity, text, None))
+        value = _evaluate(self.interpolant, self.prepared, quantity, text, None)
         error = 0.0 if self._reference is not None else math.nan
         for other in (self._reference, self._previous):
             if other is None:
                 continue
             try:
-                error += abs(value - float(_evaluate(other, self.prepared, quantity, text, None)))
+                error += abs(value - _evaluate(other, self.prepared, quantity, text, None))
             except BvpkitError:
                 error = math.nan  # e.g. a point outside the shorter truncated domain
         return value, error
@@ -372,8 +377,7 @@ class Solution:
 
 def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
     """A compiled quantity on a solution (see bvpkit.reduce.quantity)."""
-    values = [_point_value(view, prepared, point) for point in quantity.points]
-    values += [_integral(view, prepared, q)[0] for q in quantity.integrals]
+    values = _placeholders(view, prepared, quantity)
     if at is None:
         if quantity.running:
             raise BvpkitError(
@@ -387,14 +391,37 @@ def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> floa
             raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
         _check_inside(view, prepared, points)
     r = view.region(points)
-    result = _running(view, quantity, points, r, np.array(values, dtype=float), quantity_function)
-    if at is None:
-        return float(result[0])
-    return result if np.ndim(at) else float(result[0])
+    result = _joined(_running(view, quantity, points, r, values, quantity_function))
+    if at is None or not np.ndim(at):
+        return result[0].item()  # a float, or a complex
+    return result
+
+
+def _joined(parts: np.ndarray) -> np.ndarray:
+    """A quantity's value from its parts, shape ``(parts, ...)``: real, or complex from its
+    real and imaginary parts."""
+    return parts[0] if parts.shape[0] == 1 else parts[0] + 1j * parts[1]
+
+
+def number_text(value: float | complex, digits: int) -> str:
+    """A value as a summary writes it: ``0.25``, or a complex one as Python writes it, in a
+    form the expression language reads back: ``0.2375+0.0037j``."""
+    if isinstance(value, complex | np.complexfloating):
+        return f"{value.real:.{digits}g}{value.imag:+.{digits}g}j"
+    return f"{value:.{digits}g}"
+
+
+def _placeholders(view: Interpolant, prepared, quantity) -> np.ndarray:  # noqa: ANN001
+    """The values of a quantity's placeholders: its point values, then each integral's parts."""
+    values = [_point_value(view, prepared, point) for point in quantity.points]
+    for q in quantity.integrals:
+        values += list(_integral(view, prepared, q)[0])
+    return np.array(values, dtype=float)
 
 
 def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, values: np.ndarray,  # noqa: ANN001
              function_of) -> np.ndarray:  # noqa: ANN001
+    """The parts of a quantity at ``points``: shape ``(parts, len(points))``."""
     layout = view.layout
     f = function_of(quantity.program)
     if quantity.running:
@@ -405,8 +432,8 @@ def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, val
     else:
         inputs = np.zeros((layout.users + len(layout.functions) + len(layout.algebraic), points.size))
     with np.errstate(all="ignore"):
-        result = f(points, inputs, view.p, view.k, values)[0]
-    return np.broadcast_to(result, points.shape).astype(float)
+        result = f(points, inputs, view.p, view.k, values)
+    return np.broadcast_to(result, (quantity.parts, points.size)).astype(float)
 
 
 def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
@@ -428,12 +455,12 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
     return float(row[state, 0])
 
 
-def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # noqa: ANN001
-    """The integral of a quantity over every region, and the integrand at the far end."""
+def _integral(view: Interpolant, prepared, quantity) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
+    """The integral of a quantity over every region, and the integrand at the far end, each
+    by parts (shape ``(parts,)``: its real and imaginary parts for a complex integrand)."""
     nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
-    values = np.array([_point_value(view, prepared, point) for point in quantity.points]
-                      + [_integral(view, prepared, q)[0] for q in quantity.integrals], dtype=float)
-    total = 0.0
+    values = _placeholders(view, prepared, quantity)
+    total = np.zeros(quantity.parts)
     t = view.t
     h = np.diff(t)
     mid = 0.5 * (t[1:] + t[:-1])
@@ -444,9 +471,9 @@ def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # 
         x = c + scale * s ** view.powers[region]
         r = np.full(x.size, region)
         dx = w * rate(s, scale, view.powers[region])
-        total += float(np.sum(_running(view, quantity, x, r, values, quantity_function) * dx))
+        total += np.sum(_running(view, quantity, x, r, values, quantity_function) * dx, axis=1)
     b = view.ends[1]
-    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, quantity_function)[0])
+    tail = _running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, quantity_function)[:, 0]
     return total, tail
 
 

@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import OptionError, closest
+from ..errors import OptionError
 from ..language.options import SolveOptions
 from ..methods.base import Trial
 from ..reduce import guess as _guess
@@ -65,9 +65,7 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
     t = _guess.initial_mesh(nodes)
     recipes = dict(prepared.recipes)
     for name, expression in (guess or {}).items():
-        if name not in recipes:
-            raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
-        recipes[name] = prepared.recipe(name, expression)
+        recipes.update(prepared.recipes_for(name, expression))
     y = _guess.from_recipes(recipes, compiled, t, p, k)
     for transform in prepared.transforms:
         transform.begin(prepared, t, y, p, k, recipes)

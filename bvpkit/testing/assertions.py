@@ -46,11 +46,23 @@ def _values(problem, solution, points: np.ndarray) -> dict[sp.Basic, np.ndarray]
         if order == 0:  # an algebraic unknown: its value, solved from its equation
             values[f] = held[system.algebraic.index(name)]
             continue
+        pieces = _pieces(solution, name)
         for j in range(order):
             node = f if j == 0 else sp.Derivative(f, (problem.x, j))
-            values[node] = states[system.index(name, j)]
-        values[sp.Derivative(f, (problem.x, order))] = spline[system.index(name, order - 1)]
+            values[node] = sum(c * states[system.index(piece, j)] for piece, c in pieces)
+        values[sp.Derivative(f, (problem.x, order))] = sum(c * spline[system.index(piece, order - 1)]
+                                                           for piece, c in pieces)
     return values
+
+
+def _pieces(solution, name: str) -> tuple:  # noqa: ANN001
+    """The solved functions that make up the user's ``name`` with their factors (a complex
+    function: its real and imaginary parts, ``re(T)`` and ``1j * im(T)``)."""
+    for t in solution.prepared.transforms:
+        found = t.spelled(name)
+        if found is not None:
+            return found
+    return ((name, 1),)
 
 
 def assert_solves(problem, solution, *, tol: float | None = None, points: np.ndarray | None = None) -> float:  # noqa: ANN001
@@ -126,10 +138,11 @@ def _condition_value(problem, solution, c: sp.Expr) -> float | None:  # noqa: AN
     for pv in problem.point_values(c):
         side = "-" if pv.side < 0 else "+" if pv.side > 0 else ""
         where = "inf" if pv.point == sp.oo else "-inf" if pv.point == -sp.oo else sp.sstr(pv.point)
-        swap[pv.node] = sp.Float(solution.evaluate(pv.name + "'" * pv.order + "(" + where + side + ")"))
-    e = c.xreplace(swap).xreplace({sp.Symbol(k): v for k, v in {**problem.constants, **solution.parameters}.items()})
+        swap[pv.node] = sp.sympify(solution.evaluate(pv.name + "'" * pv.order + "(" + where + side + ")"))
+    e = c.xreplace(swap).xreplace({sp.Symbol(k): sp.sympify(v)
+                                   for k, v in {**problem.constants, **solution.parameters}.items()})
     try:
-        return float(e)
+        return complex(e) if e.has(sp.I) else float(e)
     except TypeError:
         return None
 
