@@ -208,13 +208,22 @@ def _picture(name: str | None) -> Path | None:
         import matplotlib  # noqa: F401 - only whether it is there
         from matplotlib.backend_bases import FigureCanvasBase
     except ImportError:
-        raise MissingExtraError(f'--plot needs matplotlib: {PLOT_INSTALL}') from None
-    formats = sorted(FigureCanvasBase.get_supported_filetypes())
+        formats, missing = list(PICTURE_FORMATS), True
+    else:
+        formats, missing = sorted(FigureCanvasBase.get_supported_filetypes()), False
+    # the name is judged first: a wrong suffix is wrong whether or not the plot extra is there
     suffix = path.suffix[1:].lower()
     if suffix not in formats:
         said = f"'.{suffix}' is not a picture format" if suffix else "it has no suffix to name the format"
         raise OptionError(f"cannot draw {name}: {said}; use one of {', '.join(formats)}")
+    if missing:
+        raise MissingExtraError(f'--plot needs matplotlib: {PLOT_INSTALL}')
     return path
+
+
+#: The formats every matplotlib since 3.7 writes with its default canvas: what a ``--plot`` name
+#: is judged against when matplotlib is not installed (installed, its own list is used).
+PICTURE_FORMATS = ("eps", "jpeg", "jpg", "pdf", "pgf", "png", "ps", "raw", "rgba", "svg", "svgz", "tif", "tiff")
 
 
 #: The words that install the plotting extra, as the README gives them.

@@ -145,6 +145,7 @@ def test_a_fold_curve_reports_a_cusp():
     assert 3.5 < curve.cusps[0]["along"] < 4.6
 
 
+@pytest.mark.extra
 def test_cli_traces_the_bundled_strut_and_draws_the_ignition_map(tmp_path, capsys):
     from pathlib import Path
 

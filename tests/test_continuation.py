@@ -100,6 +100,7 @@ def test_falkner_skan_family_from_beta_one_down_to_zero():
     assert not b.folds
 
 
+@pytest.mark.extra
 def test_branch_table_csv_json_and_plot(bratu_branch, tmp_path):
     b = bratu_branch
     table = b.table()
@@ -132,6 +133,7 @@ def test_natural_steps_use_the_selector_and_record_diagnostics():
     assert b.outputs["y'(0)"][-1] == pytest.approx(bratu_slope(1.0, "lower"), rel=1e-8)  # analytic
 
 
+@pytest.mark.extra
 def test_cli_trace_prints_the_fold_and_writes_a_plot(tmp_path, capsys):
     from pathlib import Path
 

@@ -14,6 +14,7 @@ from bvpkit import plots
 from bvpkit.errors import OptionError
 
 pytest.importorskip("matplotlib")
+pytestmark = pytest.mark.extra
 
 SLAB = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.1},
                       title="Our stored slab", settings={"units": {"lam": "1", "x": "m", "y": "K"}})
@@ -173,3 +174,14 @@ L = [0.03, 0.05]
     assert trace_fig.axes[0].get_ylabel() == "tip [K]" and sweep_fig.axes[0].get_xlabel() == "m2 [1/m^2]"
     assert (tmp_path / "t.csv").read_text().splitlines()[0] == "m2 [1/m^2],tip [K],step"
     assert (tmp_path / "s.csv").read_text().splitlines()[0].startswith("m2 [1/m^2],L,tip [K],success")
+
+
+def test_the_formats_a_plot_name_is_judged_by_without_matplotlib_are_ones_it_writes():
+    # the command line's fallback list (used when the plot extra is missing) never accepts a
+    # name that matplotlib would then refuse
+    from matplotlib.backend_bases import FigureCanvasBase
+
+    from bvpkit.cli import PICTURE_FORMATS
+
+    assert set(PICTURE_FORMATS) <= set(FigureCanvasBase.get_supported_filetypes())
+    assert "png" in PICTURE_FORMATS and "pdf" in PICTURE_FORMATS and "svg" in PICTURE_FORMATS

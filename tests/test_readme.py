@@ -111,6 +111,7 @@ def test_every_one_line_problem_class_solves():
     assert bvpkit.solve(problems[0]).parameters["lam"] == pytest.approx(9.0, rel=1e-6)
 
 
+@pytest.mark.extra
 def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.trace(")
@@ -122,6 +123,7 @@ def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
     assert (tmp_path / "branch.png").stat().st_size > 10_000
 
 
+@pytest.mark.extra
 def test_the_fold_curve_block_runs_and_gives_the_ignition_limit(tmp_path, monkeypatch):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.fold_curve(")
@@ -139,6 +141,7 @@ def test_the_fold_curve_block_runs_and_gives_the_ignition_limit(tmp_path, monkey
     assert (tmp_path / "map.png").stat().st_size > 10_000
 
 
+@pytest.mark.extra
 def test_the_sweep_block_runs_as_a_plain_script(tmp_path):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.sweep(")
