@@ -216,6 +216,7 @@ class Problem:
         self.conditions = [
             self._canonical(c, f"condition {i + 1}", self.condition_text[i]) for i, c in enumerate(raw_conditions)
         ]
+        self.domain = self._named_ends(self.domain)
         self.regions, self.points = self._regions(region_input, raw_regional)
         self.jumps = self._check_conditions()
         self.guess = self._guesses(guess or {})
@@ -408,6 +409,31 @@ class Problem:
         self._check_order([a, b], [_describe(domain[0]), _describe(domain[1])])
         return a, b
 
+    def _named_ends(self, domain: tuple[sp.Expr, sp.Expr]) -> tuple[sp.Expr, sp.Expr]:
+        """The domain with a numeric end replaced by the name a condition gives the same point.
+
+        ``w(L) = 0`` on a domain ``(0, 4.0)`` with the constant ``L = 4.0``: the length is
+        written once as a number and once as a name, and both mean the end. The end takes
+        the name, so a condition there is a condition at the end, and a change of ``L``
+        (``with_constants``, ``--set``, a trace of ``L``) moves the end with the conditions.
+        Only constants qualify: a point of unknown parameters is a free point, and a number
+        written in a condition beside a named end keeps its refusal (the number would not
+        follow the name)."""
+        ends = list(domain)
+        constants = {sp.Symbol(n) for n in self.constants}
+        for i, c in enumerate(self.conditions):
+            for pv in self.point_values(c, f"condition {i + 1} ({self.condition_text[i]})"):
+                point = pv.point
+                if point.is_number or not point.free_symbols or not point.free_symbols <= constants:
+                    continue
+                for j, end in enumerate(ends):
+                    if not end.is_number or end in (sp.oo, -sp.oo):
+                        continue
+                    value = self.value(point, f"the point {_describe(point)}")
+                    if math.isfinite(value) and abs(value - float(end)) <= 1e-12 * max(1.0, abs(float(end))):
+                        ends[j] = point
+        return ends[0], ends[1]
+
     def value(self, point: sp.Expr, what: str = "") -> float:
         """The value of a point (constants and parameter guesses substituted)."""
         values = {**self.constants, **self.unknown_parameters}
@@ -464,7 +490,8 @@ class Problem:
 
         Interfaces are the ends of the regions given, and every point inside the domain at
         which a condition takes a value. Points are matched by their expression (``L``
-        and ``L`` are one point; ``1`` and ``L`` with ``L = 1`` are two, and refused).
+        and ``L`` are one point; ``1`` and ``L`` with ``L = 1`` are two, and refused), after
+        a numeric end took the name a condition gives it (:meth:`_named_ends`).
         """
         a, b = self.domain
         cuts: list[tuple[sp.Expr, int | None]] = []  # (point, index of the region given that ends there)
