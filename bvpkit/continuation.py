@@ -76,6 +76,12 @@ MAX_ANGLE = math.radians(8.0)
 MAX_DRIFT = 0.2
 #: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
 FLOOR = 1e-7
+#: A chord shorter than this fraction of the finished drawing shows no bend a reader can see:
+#: its angles are round-off, and no point is added on it.
+SHORTEST_CHORD = 1e-4
+#: Points closer than this fraction of the finished drawing to the point before them carry
+#: nothing new (a requested value met twice by round-off): the later one is dropped.
+SAME_POINT = 1e-6
 _TAIL = 0.9  # the far-field check compares the states at t = 1 and t = 0.9 of the infinite region
 _OUTPUT_FLOOR = 0.05  # an output's scale in the drawn plane: its spread so far, at least 5% of its size
 _SETTLED = 4  # points on a branch before its drawn angle is checked while tracing
@@ -190,6 +196,37 @@ class Branch:
         for found in (*self.folds, *self.branch_points):
             if found.index >= index:
                 found.index += 1
+
+    def _thin(self) -> None:
+        """Drop every point closer than :data:`SAME_POINT` of the drawing (outputs against the
+        parameter, each scaled to its spread) to the point before it; of two such points the
+        one reached by a plain step goes, a requested one stays."""
+        if len(self._values) < 2:
+            return
+        rows = np.array([[self._values[i], *(row[o] for o in self._outputs)] for i, row in enumerate(self._rows)])
+        spread = np.ptp(np.where(np.isfinite(rows), rows, 0.0), axis=0)
+        spread = np.where(spread > 0, spread, 1.0)
+        keep = [0]
+        for i in range(1, len(rows)):
+            j = keep[-1]
+            if not np.all(np.abs(rows[i] - rows[j]) / spread < SAME_POINT):
+                keep.append(i)
+            elif self.steps[j] != "requested" and self.steps[i] == "requested" and self.steps[j] != "branch point":
+                keep[-1] = i  # the requested point stands for both
+        if len(keep) == len(rows):
+            return
+        gone = {id(self.solutions[i]) for i in range(len(rows)) if i not in set(keep)}
+        new_index = {old: new for new, old in enumerate(keep)}
+        for found in (*self.folds, *self.branch_points):
+            # a fold lies between points index - 1 and index: the first kept point at or after it
+            found.index = next((new_index[i] for i in keep if i >= found.index), len(keep))
+        for items in ("_values", "solutions", "steps", "stability", "_rows"):
+            old = getattr(self, items)
+            setattr(self, items, [old[i] for i in keep])
+        for value in list(self.requested):
+            self.requested[value] = [s for s in self.requested[value] if id(s) not in gone]
+            if not self.requested[value]:
+                del self.requested[value]
 
     def _pop(self) -> None:
         """Drop the last point (past a branch point, on the branch the trace leaves)."""
@@ -600,6 +637,8 @@ class _Tracer:
                 self._requested_here(self.start)
                 self._loop()
                 traced = len(b.solutions)
+                b._thin()
+                traced = len(b.solutions)
                 self._smooth()
                 if len(b.solutions) != traced:
                     b.message = b.message.replace(f"in {traced} points", f"in {len(b.solutions)} points "
@@ -636,8 +675,10 @@ class _Tracer:
             d = np.diff(data / spread, axis=0)
             lengths = np.linalg.norm(d, axis=1)
             cosine = np.sum(d[:-1] * d[1:], axis=1) / np.maximum(lengths[:-1] * lengths[1:], 1e-300)
-            sharp = np.flatnonzero(np.arccos(np.clip(cosine, -1, 1)) > self.max_angle) + 1
-            segments = sorted({j for i in sharp if b.steps[i] != "branch point" for j in (i - 1, i)})
+            visible = (lengths[:-1] >= SHORTEST_CHORD) & (lengths[1:] >= SHORTEST_CHORD)
+            sharp = np.flatnonzero((np.arccos(np.clip(cosine, -1, 1)) > self.max_angle) & visible) + 1
+            segments = sorted({j for i in sharp if b.steps[i] != "branch point" for j in (i - 1, i)
+                               if lengths[j] >= SHORTEST_CHORD})
             if not segments:
                 return
             added = 0
@@ -827,6 +868,9 @@ class _Tracer:
             return False, self._done(f"pseudo-arclength could not start at {self.name} = {point.value:.6g}")
         ds = first_ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
+        # the value of the accepted point a step leaves: the polish above may move z's parameter
+        # by round-off, and a requested value the point sits on must not count as crossed again
+        here = point.value
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
             predicted = z + ds * tangent
@@ -855,7 +899,7 @@ class _Tracer:
                         "the branch may end or branch off here"
                     )
                 continue
-            lam_old, lam_new = float(z[-1]), float(z_new[-1])
+            lam_old, lam_new = here, float(z_new[-1])
             if tangent[-1] * t_new[-1] < 0:
                 self._locate_fold(eq, z, tangent, ds, (float(tangent[-1]), float(t_new[-1])))
                 self.turned = True
@@ -887,12 +931,12 @@ class _Tracer:
                     return end
                 point = self.points[-1]
                 eq = self._equations(point)
-                z, tangent = point.z, point.tangent
+                z, tangent, here = point.z, point.tangent, point.value
                 ds = self._first_ds(eq, z)
                 continue
             if accepted.t is not eq.x:
                 eq = self._equations(accepted)  # a refined mesh, or a longer truncation
-            z, tangent = accepted.z, accepted.tangent
+            z, tangent, here = accepted.z, accepted.tangent, accepted.value
             ds = ds * _GROW if its <= 3 and smooth else ds * (_SHRINK if its >= 8 else 1.0)
             if abs(float(tangent[-1])) > _STRAIGHT and self.turned and abs(lam_new - lam_old) > 0:
                 self.direction = 1.0 if lam_new > lam_old else -1.0

@@ -33,3 +33,38 @@ def test_a_number_in_a_condition_beside_a_named_end_is_still_refused_with_the_wa
     with pytest.raises(ProblemError, match=r"lies on an end of the domain \[0, L\] = \[0, 4\]: write a condition "
                                            r"there at the end itself \(L\)"):
         bvpkit.Problem(["EI*w'''' = q"], ["w(0) = 0", "w''(0) = 0", "w(4) = 0", "w''(L) = 0"], (0, "L"), **BEAM)
+
+
+# -- requested points in a trace --------------------------------------------------------------
+def _drawn_gaps(branch, output):
+    """Distances between consecutive points of the drawing, each axis scaled to its spread."""
+    x, y = branch.parameter, branch.outputs[output]
+    return np.hypot(np.diff(x) / np.ptp(x), np.diff(y) / np.ptp(y))
+
+
+def test_a_requested_value_gives_one_row_per_crossing_and_no_near_duplicates():
+    wedge = bvpkit.Problem(["f''' + f*f'' + beta*(1 - f'**2) = 0"], ["f(0) = 0", "f'(0) = 0", "f'(inf) = 1"],
+                           (0, "inf"), independent="eta", constants={"beta": 0.0})
+    b = bvpkit.trace(wedge, "beta", start=0.0, stop=-0.3, outputs=["f''(0)"], at=[-0.12], return_to=-0.02)
+    assert b.success, b.message
+    assert _drawn_gaps(b, "f''(0)").min() > 1e-6
+    # the branch passes beta = -0.12 twice (once on each side of the separation fold)
+    assert b.steps.count("requested") == 2 and len(b.requested[-0.12]) == 2
+    lower = min(s.evaluate("f''(0)") for s in b.requested[-0.12])
+    assert lower == pytest.approx(-0.1429351944, abs=1e-5)  # Belden et al. 2019 (lower branch at -0.12)
+
+
+def test_thinning_keeps_the_requested_point_of_a_near_duplicate_pair():
+    from bvpkit.continuation import Branch, Fold
+
+    b = Branch("lam", {"y(0)": "y(0)"})
+    marks = [object() for _ in range(5)]
+    for value, out, how, mark in zip([0.0, 0.5, 0.5 + 1e-12, 1.0, 1.5], [0.0, 1.0, 1.0, 1.5, 1.0],
+                                     ["natural", "arclength", "requested", "arclength", "arclength"], marks):
+        b._add(value, mark, how, np.array([out]))
+    b.requested[0.5] = [marks[2]]
+    b.folds.append(Fold(parameter=1.2, outputs={}, error=0.0, index=4, solution=None))
+    b._thin()
+    assert b.steps == ["natural", "requested", "arclength", "arclength"]
+    assert b.solutions[1] is marks[2] and b.requested[0.5] == [marks[2]]
+    assert b.folds[0].index == 3  # still between the points at 1.0 and 1.5
