@@ -408,11 +408,8 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         branch.to_csv(args.csv, units=units, independent=problem.independent)
     if args.plot:
         branch.plot(args.plot, title=problem.title, units=units)
-    code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
+    code = branch.status.exit_code
     report = branch.as_dict()
-    if branch.interrupted:
-        code = Status.INTERRUPTED.exit_code
-        report["status"] = Status.INTERRUPTED.word
     if args.json:
         return code, report
     title = f"{problem.title}\n" if problem.title else ""
@@ -455,7 +452,7 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
         curve.to_csv(args.csv, units=units_of(problem), independent=problem.independent)
     if args.plot:
         curve.plot(args.plot)
-    code = 0 if curve.success else Status.NOT_CONVERGED.exit_code
+    code = curve.status.exit_code
     if args.json:
         return code, curve.as_dict()
     title = f"{problem.title}\n" if problem.title else ""

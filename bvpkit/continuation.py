@@ -162,8 +162,19 @@ class Branch:
         self._judge = False  # whether points are judged stable (trace(..., stability=True))
         self.success = False
         self.interrupted = False
+        self.out_of_points = False  # stopped by its budget of points (max_points)
         self.message = ""
         self.seconds = 0.0
+
+    @property
+    def status(self) -> Status:
+        """``solved``; ``interrupted``; ``point_limit`` (stopped by ``max_points``, every point
+        kept converged); or ``not_converged`` (a step could not go on)."""
+        if self.success:
+            return Status.SOLVED
+        if self.interrupted:
+            return Status.INTERRUPTED
+        return Status.POINT_LIMIT if self.out_of_points else Status.NOT_CONVERGED
 
     @property
     def parameter(self) -> np.ndarray:
@@ -254,7 +265,7 @@ class Branch:
 
     def as_dict(self) -> dict[str, Any]:
         outputs = self.outputs
-        status = "solved" if self.success else "interrupted" if self.interrupted else "not_converged"
+        status = self.status.word
 
         def points(found: list) -> list[dict[str, Any]]:
             return [{"parameter": f.parameter, "error": f.error, "outputs": f.outputs, "index": f.index} for f in found]
@@ -640,9 +651,12 @@ class _Tracer:
                 b._thin()
                 traced = len(b.solutions)
                 self._smooth()
-                if len(b.solutions) != traced:
+                added = len(b.solutions) - traced
+                if added and f"in {traced} points" in b.message:
                     b.message = b.message.replace(f"in {traced} points", f"in {len(b.solutions)} points "
-                                                  f"({len(b.solutions) - traced} added where the drawn branch bends)")
+                                                  f"({added} added where the drawn branch bends)")
+                elif added:
+                    b.message += f"; {added} more points were added where the drawn branch bends"
         except KeyboardInterrupt:
             b.success = False
             b.interrupted = True
@@ -742,8 +756,7 @@ class _Tracer:
                 b.success, b.message = end
                 return
             step = max(abs(b.parameter[-1] - b.parameter[-2]), self.span / 100) if len(b.parameter) > 1 else self.step
-        b.success = False
-        b.message = self._done(f"stopped after max_points = {self.max_points} points")
+        b.success, b.message = self._out_of_points()
 
     def _ending(self, edge: float) -> str:
         if edge == self.stop:
@@ -752,11 +765,25 @@ class _Tracer:
             return f"came back to {self.name} = {edge:g}"
         return f"the branch turned back and reached the other end of the range, {self.name} = {edge:g},"
 
-    def _done(self, what: str) -> str:
+    def _out_of_points(self) -> tuple[bool, str]:
+        """The end of a trace that spent its budget of points: where it stopped, and how far it got."""
+        b = self.branch
+        b.out_of_points = True
+        value = b._values[-1]
+        shown = ", ".join(f"{o} = {b._rows[-1][o]:.6g}" for o in b._outputs[:2])
+        where = f"{self.name} = {value:.6g}" + (f" ({shown})" if shown else "")
+        turned = " after the fold" if self.turned else ""
+        aim = self.return_to if self.turned and self.return_to is not None else self.edge
+        return False, self._done(
+            f"stopped at {where}{turned}, on the way to {self.name} = {aim:g}: its budget of max_points = "
+            f"{self.max_points} points is spent (raise max_points to go further)", count=False)
+
+    def _done(self, what: str, count: bool = True) -> str:
         found = [f"{len(self.branch.folds)} fold(s)"] if self.branch.folds else []
         if self.branch.branch_points:
             found.append(f"{len(self.branch.branch_points)} branch point(s)")
-        return f"{what} in {len(self.branch.solutions)} points" + (f"; {' and '.join(found)} located" if found else "")
+        counted = f" in {len(self.branch.solutions)} points" if count else ""
+        return f"{what}{counted}" + (f"; {' and '.join(found)} located" if found else "")
 
     def _edges(self, value: float, target: float) -> tuple[float, bool, bool]:
         """The target clipped to the first end or requested value between ``value`` and it:
@@ -811,7 +838,7 @@ class _Tracer:
                 step *= _SHRINK
                 continue
             return None  # the branch turns (or natural steps fail): pseudo-arclength
-        return False, self._done(f"stopped after max_points = {self.max_points} points")
+        return self._out_of_points()
 
     def _same_k(self, a: _Point, b: _Point) -> bool:
         """Whether two points share every constant but the traced one (the truncation length:
@@ -942,7 +969,7 @@ class _Tracer:
                 self.direction = 1.0 if lam_new > lam_old else -1.0
                 self.edge = self.hi if self.direction > 0 else self.lo
                 return None
-        return False, self._done(f"stopped after max_points = {self.max_points} points")
+        return self._out_of_points()
 
     def _first_ds(self, eq: CollocationEquations, z: np.ndarray) -> float:
         return 0.05 * math.sqrt(float(np.sum(eq.weights * z * z)) + 1.0)

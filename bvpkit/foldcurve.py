@@ -76,8 +76,17 @@ class FoldCurve:
         self.cusps: list[dict[str, float]] = []
         self.requested: dict[float, list[Solution]] = {}
         self.success = False
+        self.out_of_points = False  # a leg spent its budget of points (max_points)
         self.message = ""
         self.seconds = 0.0
+
+    @property
+    def status(self) -> Status:
+        """``solved``; ``point_limit`` (a leg spent ``max_points``; every point kept converged);
+        or ``not_converged``."""
+        if self.success:
+            return Status.SOLVED
+        return Status.POINT_LIMIT if self.out_of_points else Status.NOT_CONVERGED
 
     @property
     def along(self) -> np.ndarray:
@@ -106,7 +115,7 @@ class FoldCurve:
 
     def as_dict(self) -> dict[str, Any]:
         return json_ready({
-            "success": self.success, "status": "solved" if self.success else "not_converged",
+            "success": self.success, "status": self.status.word,
             "message": self.message, "parameter_name": self.name, "along_name": self.along_name,
             "along": self.along.tolist(), "parameter": self.parameter.tolist(),
             "outputs": {k: v.tolist() for k, v in self.outputs.items()}, "cusps": self.cusps, "seconds": self.seconds,
@@ -388,7 +397,10 @@ class _Follower:
                 self.curve.cusps.append({"along": mu_new, "parameter": float(z_new[-2])})
             z, tangent = z_new, t_new
             ds = ds * _GROW if its <= 3 and turn < self.max_angle / 2 else ds * (_SHRINK if its >= 8 else 1.0)
-        self.failed = f"stopped after max_points = {self.max_points} points"
+        self.curve.out_of_points = True
+        self.failed = (f"stopped at {self.along} = {float(z[-1]):.6g} ({self.name} = {float(z[-2]):.6g} at the fold), "
+                       f"on the way to {self.along} = {end:g}: its budget of max_points = {self.max_points} points "
+                       "is spent (raise max_points to go further)")
         return points
 
     def _angle(self, eq: CollocationEquations, u: np.ndarray, v: np.ndarray) -> float:

@@ -68,3 +68,31 @@ def test_thinning_keeps_the_requested_point_of_a_near_duplicate_pair():
     assert b.steps == ["natural", "requested", "arclength", "arclength"]
     assert b.solutions[1] is marks[2] and b.requested[0.5] == [marks[2]]
     assert b.folds[0].index == 3  # still between the points at 1.0 and 1.5
+
+
+# -- a trace that spends its budget of points --------------------------------------------------
+def test_a_trace_stopped_by_its_budget_of_points_says_so_with_a_status_and_exit_code_of_its_own(capsys):
+    import json
+    from pathlib import Path
+
+    from bvpkit.cli import main
+    from bvpkit.status import Status
+
+    spec = Path(__file__).resolve().parent.parent / "specs/reacting_slab_ignition.toml"
+    code = main(["trace", str(spec), "--max-points", "10", "--json", "--tol", "1e-6"])
+    data = json.loads(capsys.readouterr().out)
+    assert data["status"] == "point_limit" and not data["success"]
+    assert code == Status.POINT_LIMIT.exit_code and code != Status.NOT_CONVERGED.exit_code
+    # how many points and where it stopped, once each and in agreement
+    last = data["parameter"][-1]
+    assert "budget of max_points = 10 points" in data["message"] and len(data["parameter"]) >= 10
+    assert f"lam = {last:.6g}" in data["message"] and "not_converged" not in data["message"]
+    assert Status.POINT_LIMIT.word in Path(spec.parent.parent / "docs/failures.md").read_text()
+
+
+def test_a_fold_curve_stopped_by_its_budget_says_where():
+    slab = bvpkit.Problem(["y'' + d*exp(y) = 0"], ["y'(0) = 0", "y'(1) + Bi*y(1) = 0"], (0, 1),
+                          constants={"d": 0.1, "Bi": 1.0})
+    curve = bvpkit.fold_curve(slab, "d", along="Bi", start=0.5, stop=100.0, max_points=3)
+    assert curve.status is bvpkit.Status.POINT_LIMIT and curve.as_dict()["status"] == "point_limit"
+    assert "budget of max_points = 3 points" in curve.message and "stopped at Bi = " in curve.message
