@@ -96,3 +96,45 @@ def test_a_fold_curve_stopped_by_its_budget_says_where():
     curve = bvpkit.fold_curve(slab, "d", along="Bi", start=0.5, stop=100.0, max_points=3)
     assert curve.status is bvpkit.Status.POINT_LIMIT and curve.as_dict()["status"] == "point_limit"
     assert "budget of max_points = 3 points" in curve.message and "stopped at Bi = " in curve.message
+
+
+# -- free ends from rough starts ----------------------------------------------------------------
+# the first zero of the Lane-Emden function of index n (Boyd 2011, Table 1)
+FIRST_ZERO = {1.5: 3.65375373621912608, 3: 6.896848619376960}
+
+
+def _polytrope(n, start):
+    return bvpkit.Problem([f"u'' + 2/z*u' + u**{n} = 0"], ["u(0) = 1", "u'(0) = 0", "u(s) = 0"], (0, "s"),
+                          independent="z", unknown_parameters={"s": start})
+
+
+@pytest.mark.parametrize("n", [1.5, 3])
+def test_the_first_zero_of_a_polytrope_from_every_rough_start(n):
+    zero = FIRST_ZERO[n]
+    for fraction in (0.6, 0.7, 0.8, 0.9, 1.0, 1.1, 1.2, 1.3):
+        sol = bvpkit.solve(_polytrope(n, fraction * zero), tol=1e-10)
+        assert sol.success, f"start {fraction} x: {sol.message}"
+        assert sol.parameters["s"] == pytest.approx(zero, abs=1e-8), f"start {fraction} x"
+
+
+def test_a_free_end_that_lands_on_a_later_zero_says_the_first_is_there():
+    # from a start near the second zero the solve ends there; the first zero (Boyd 2011) is named
+    sol = bvpkit.solve(_polytrope(3, 36.5), tol=1e-8)
+    assert sol.success and sol.parameters["s"] > 30
+    assert "u(s) = 0 is also met inside the domain, near z = 6.89" in sol.message
+    assert "another solution" in sol.message
+    # the same problem written on [0, 1] (s stretching the equation): the note, conditionally
+    fixed = bvpkit.Problem(["u'' + 2/t*u' + s**2*u**3 = 0"], ["u(0) = 1", "u'(0) = 0", "u(1) = 0"], (0, 1),
+                           independent="t", unknown_parameters={"s": 6.9})
+    again = bvpkit.solve(fixed, tol=1e-8)
+    if again.success and again.parameters["s"] > 30:
+        # analytic (scaling): the first zero sits at t = 6.8968 / s
+        import re
+
+        near = float(re.search(r"near t = ([0-9.]+)", again.message).group(1))
+        assert near == pytest.approx(FIRST_ZERO[3] / again.parameters["s"], abs=1e-3)
+    elif again.success:
+        assert again.parameters["s"] == pytest.approx(FIRST_ZERO[3], abs=1e-6)
+    # a solution at the first zero carries no such note
+    first = bvpkit.solve(_polytrope(3, 6.0), tol=1e-8)
+    assert first.success and "also met inside" not in first.message
