@@ -220,12 +220,16 @@ class Survey:
         integrator or a coarse uniform mesh cannot follow.
     rates : ndarray, shape (m,)
         ``max(0, max Re eig J)`` at the guess nodes (used to place shooting nodes).
+    oscillation : float
+        ``max |Im eig J| * length``: how many radians the fastest oscillating mode turns
+        across the interval (0 when none oscillates).
     """
 
     length: float
     growth: float
     stiffness: float
     rates: Any = None
+    oscillation: float = 0.0
 
 
 _SURVEY_POINTS = 11
@@ -253,7 +257,8 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     log_growth = float(np.sum(0.5 * (rates[1:] + rates[:-1]) * np.diff(x)))
     length = float(x[-1] - x[0])
     stiffness = float(np.abs(eig.real).max() * length)
-    return Survey(length, math.exp(min(log_growth, 700.0)), stiffness, rates)
+    oscillation = float(np.abs(eig.imag).max() * length)
+    return Survey(length, math.exp(min(log_growth, 700.0)), stiffness, rates, oscillation)
 
 
 def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> float | None:  # noqa: ANN001

@@ -323,6 +323,7 @@ class Problem:
                     self._check_applied(f, e)
                 raise ProblemError(f"{where} ({text}): '{name}' is not an unknown function{closest(name, self.unknowns)}")
         e = e.xreplace(replace) if replace else e
+        e = _exact_powers(e)
         # brackets with primes, ((1 + b*T)*T')', are differentiated now that T is T(x)
         e = e.replace(lambda d: isinstance(d, sp.Derivative) and not isinstance(d.expr, applied_undef()),
                       lambda d: d.doit())
@@ -868,6 +869,25 @@ def check_positions(values: Sequence[float], labels: Sequence[str], independent:
                 f"the points {independent} = {lu} and {independent} = {lv} must be in increasing order with room "
                 f"between them (got {u:g} and {v:g}); ends and interfaces: {', '.join(labels)}"
             )
+
+
+#: A decimal exponent is read as the fraction it writes when that fraction's denominator is at
+#: most this (0.5 is 1/2, 1.5 is 3/2, 0.333 is 333/1000); longer decimals stay numbers.
+_EXACT_DENOMINATOR = 1000
+
+
+def _exact_powers(e: sp.Expr) -> sp.Expr:
+    """``e`` with decimal exponents written as the fractions they are (``x**0.5`` as ``sqrt(x)``,
+    ``y**1.5`` as ``y**(3/2)``): one form of every power, so the analysis of powers of the
+    independent variable at an end (a stretch, a singular term) sees ``x**0.5`` as it sees
+    ``sqrt(x)``, and the generated code is the same."""
+    def exact(q: sp.Pow) -> sp.Expr:
+        fraction = sp.Rational(str(q.exp))
+        if fraction.q > _EXACT_DENOMINATOR or sp.Float(fraction) != q.exp:
+            return q
+        return sp.Pow(q.base, fraction)
+
+    return e.replace(lambda q: isinstance(q, sp.Pow) and q.exp.is_Float, exact)
 
 
 def _plain_number(label: str, value: float) -> str:

@@ -41,6 +41,8 @@ user's variable and states. User names never reach generated code: states are ``
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import dataclasses
 import hashlib
 from dataclasses import dataclass, field, fields
@@ -262,10 +264,21 @@ def _build(problem) -> StandardForm:  # noqa: ANN001
             conditions.append((value(i, j, -1) - value(i, j, 1), kind))
     # 5. singular terms, 6. the map onto [0, 1], 7. the stack
     points = tuple(p.xreplace(names.region(0)) for p in problem.points)
+    spoken = _speaker(problem, names, local, states)
     with budget("looking for fractional powers of the independent variable at the left end"):
-        power, stretched = _stretch(problem, systems, points, set(names.p.values()))
+        power, stretched = _stretch(problem, systems, points, set(names.p.values()), spoken)
+    if power > 1:  # the singular term is looked for in the stretched variable: messages say so
+        spoken = _speaker(problem, names, local, states, "xi")
     with budget("splitting off the singular term", advice="write the singular coefficient in a simpler form"):
-        singular = _singular(problem, systems, stretched, local, len(states), set(names.p.values()))
+        try:
+            singular = _singular(problem, systems, stretched, local, len(states), set(names.p.values()), spoken,
+                                 "xi" if power > 1 else "")
+        except ProblemError as err:
+            if power == 1:
+                raise
+            x, a = problem.independent, spoken(points[0])
+            raise ProblemError(f"with the stretch {_shift(x, a)} = xi**{power} that removes its fractional powers, "
+                               f"{err}") from None
     if singular is not None:
         check_sizes({f"the right-hand side of state {i}": e for i, e in enumerate(singular[1])},
                     step="splitting off the singular term")
@@ -421,7 +434,23 @@ def _phase(problem, system, local, value, names) -> sp.Expr:  # noqa: ANN001
 _MAX_STRETCH = 6
 
 
-def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
+def _speaker(problem, names: _Names, local, states, variable: str = "") -> Callable[[sp.Expr], str]:  # noqa: ANN001
+    """A printer of the reduction's expressions with the user's names (``x``, ``y'``, ``L``)
+    in place of the internal symbols, for messages (``variable``: the name of the independent
+    variable after a stretch)."""
+    swap = {_PHYSICAL: sp.Symbol(variable or problem.independent)}
+    for i, (name, order) in enumerate(states):
+        swap[local[i]] = sp.Symbol(name + "'" * order)
+    for table in (names.k, names.p, *names.own):
+        swap.update({internal: user for user, internal in table.items()})
+
+    def spoken(e: sp.Expr) -> str:
+        return sp.sstr(e.xreplace(swap)) if isinstance(e, sp.Basic) else str(e)
+
+    return spoken
+
+
+def _stretch(problem, systems, points, parameters: set, spoken=str):  # noqa: ANN001, ANN202
     """Fractional powers of ``x - a`` at the finite left end ``a`` removed by ``x - a = xi**d``.
 
     ``1/sqrt(x)``, ``sqrt(x)`` and ``x**(3/2)`` at ``a = 0`` make the equations singular (or
@@ -458,8 +487,8 @@ def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
         return 1, points
     if power > _MAX_STRETCH:
         raise ProblemError(
-            f"the equations hold powers of {problem.independent} - {a} with exponents that need a stretch "
-            f"{problem.independent} - {a} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
+            f"the equations hold powers of {problem.independent} - {spoken(a)} with exponents that need a stretch "
+            f"{problem.independent} - {spoken(a)} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
             "simpler exponents"
         )
     xi = sp.Dummy("xi", positive=True)
@@ -469,13 +498,15 @@ def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
     return power, (sp.Integer(0), b if b in (sp.oo, -sp.oo) else (b - a) ** sp.Rational(1, power))
 
 
-def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa: ANN001, ANN202
+def _singular(problem, systems, points, local, n: int, parameters: set, spoken=str,  # noqa: ANN001, ANN202
+              variable: str = ""):
     """Split ``S s / (x - a)`` off the first region's equations, singular at the left end ``a``.
 
     Returns ``(S, regular right-hand sides of the first region)`` or None. A term singular at
-    any other end or interface, or not of this form, is refused by name.
+    any other end or interface, or not of this form, is refused by name (``variable``: the
+    independent variable's name in messages, after a stretch).
     """
-    name = problem.independent
+    name = variable or problem.independent
     last = len(points) - 1
     for r, system in enumerate(systems):
         for j, end in ((r, points[r]), (r + 1, points[r + 1])):
@@ -484,7 +515,7 @@ def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa
             if any(_blows_up(f.xreplace({_PHYSICAL: end})) for f in system):
                 where = "the right end" if j == last else "an interface"
                 raise ProblemError(
-                    f"the equations are singular at {where} {name} = {end}: bvpkit treats singular terms at the "
+                    f"the equations are singular at {where} {name} = {spoken(end)}: bvpkit treats singular terms at the "
                     f"left end only{'; reverse the direction of ' + name if j == last else ''}"
                 )
     a = points[0]
@@ -496,7 +527,7 @@ def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa
         return None
     if a.free_symbols & parameters:
         raise ProblemError(
-            f"the equations are singular at the left end {name} = {a}, which is an unknown parameter; this "
+            f"the equations are singular at the left end {name} = {spoken(a)}, which is an unknown parameter; this "
             "combination is not supported (a singular end must be fixed)"
         )
     S = [[sp.Integer(0)] * n for _ in range(n)]
@@ -506,19 +537,37 @@ def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa
         g = sp.cancel(sp.together((_PHYSICAL - a) * first[i]))
         for j in range(n):
             entry = sp.simplify(sp.diff(g, s[j]).xreplace({_PHYSICAL: a}))
+            if _blows_up(entry) and not entry.has(*s):
+                raise ProblemError(
+                    f"{spoken(local[i])}' = {spoken(first[i])}: its coefficient of {spoken(s[j])} grows faster than "
+                    f"1/{_shift(name, spoken(a))} at {name} = {spoken(a)}, and only terms {_term(name, spoken(a))} "
+                    "are treated there"
+                )
             if entry.has(*s) or _blows_up(entry):
                 raise ProblemError(
-                    f"the singular coefficient {sp.sstr(entry)} at {name} = {a} is not of the form S y/({name} - a)"
+                    f"the singular coefficient {spoken(entry)} at {name} = {spoken(a)} is not of the form "
+                    f"{_term(name, spoken(a))}"
                 )
             S[i][j] = entry
         rest = sp.cancel(sp.together(first[i] - sum(S[i][j] * s[j] for j in range(n)) / (_PHYSICAL - a)))
         if _blows_up(rest.xreplace({_PHYSICAL: a})):
             raise ProblemError(
-                f"the term {sp.sstr(first[i])} is singular at {name} = {a} in a way bvpkit cannot treat (only "
-                f"terms S y/({name} - a) are, e.g. (2/{name})*y')"
+                f"{spoken(local[i])}' = {spoken(first[i])} is singular at {name} = {spoken(a)} "
+                f"in a way bvpkit cannot treat (only terms {_term(name, spoken(a))} are, e.g. "
+                f"(2/{_shift(name, spoken(a))})*y')"
             )
         regular[i] = rest
     return S, regular
+
+
+def _shift(x: str, a: str) -> str:
+    """``x - a`` as a person writes it: ``r`` at ``a = 0``, ``(x - 1)`` otherwise."""
+    return x if a in ("0", "0.0") else f"({x} - {a})"
+
+
+def _term(x: str, a: str) -> str:
+    """The singular term bvpkit treats, in the problem's own names: ``S y/r``, ``S y/(x - 1)``."""
+    return f"S y/{_shift(x, a)}"
 
 
 def _map(points, names) -> list:  # noqa: ANN001

@@ -298,7 +298,7 @@ class Solution:
             lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
             f"{d.iterations} Newton iteration{_s(d.iterations)}",
-            f"{d.mesh_nodes} nodes",
+            _nodes(d.mesh_nodes, self.prepared.layout.regions),
             f"residual {d.max_residual:.2g}",
             f"boundary residual {d.bc_residual:.2g}",
             f"error estimate {_fmt_err(d.error_estimate)}",
@@ -448,3 +448,10 @@ def _fmt_err(value: float | None) -> str:
     if value is None or not math.isfinite(value):
         return "not estimated"
     return f"{value:.2g}"
+
+
+def _nodes(count: int, regions: int) -> str:
+    """The nodes of a solution as its message counts them (per region) and in all."""
+    if regions <= 1:
+        return f"{count} nodes"
+    return f"{count} nodes ({count // regions} in each of its {regions} regions)"

@@ -91,6 +91,7 @@ CONTINUATION = "continuation"
 _FALLBACK = "fallback"  # completed at run time with the step it follows
 # Thresholds of the selector, each with the reason it is where it is.
 STIFF = 500.0  # max |Re eig J| * length: explicit integrators need ~this many steps; layers form
+_OSCILLATES = 1.0  # max |Im eig J| * length above this (a sixth of a turn): worth saying in the reason
 _ROUNDING = float(np.finfo(float).eps)
 #: Shares of the time budget: each step gets ``weight / (sum of the weights of the steps
 #: left)`` of the time left. Collocation first and continuation measured fastest on the test
@@ -120,19 +121,29 @@ def _first(candidates: list[type], strength: str) -> type:
     return candidates[0]
 
 
+def singular_term(trial: Trial) -> str:
+    """The singular term of ``trial``'s problem in its own names: ``S y/r``, ``S y/(x - 1.5)``."""
+    x = trial.compiled.layout.independent
+    with np.errstate(all="ignore"):
+        a = float(np.asarray(trial.compiled.maps(trial.p, trial.k), float)[0, 0])
+    return f"S y/{x}" if a == 0 else f"S y/({x} - {a:g})" if math.isfinite(a) else f"S y/({x} - a)"
+
+
 def _why(trial: Trial, name: str) -> str:
     """Why the default method goes first, in words read from the survey."""
     if trial.compiled.layout.singular:
-        return ("the equations hold a term S y/(x - a) singular at the left end, which "
+        return (f"the equations hold a term {singular_term(trial)} singular at the left end, which "
                 f"{name} treats exactly (the methods without it are left out)")
     facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
     if not math.isfinite(facts.stiffness):
         return "the Jacobian is not finite along the guess; the most forgiving start"
     if facts.stiffness >= STIFF:
-        return (f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the "
-                "solution has layers that an adaptive mesh follows")
-    words = (f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length "
-             f"{facts.stiffness:.2g}); the fastest robust choice at this size")
+        return (f"stiff: |real part of an eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so "
+                "the solution has layers that an adaptive mesh follows")
+    turns = (f", oscillating: |imaginary part| x length {facts.oscillation:.2g}"
+             if facts.oscillation > _OSCILLATES else "")
+    words = (f"smooth (sensitivity grows by {facts.growth:.2g}, |real part of an eigenvalue| x length "
+             f"{facts.stiffness:.2g}{turns}); the fastest robust choice at this size")
     if facts.growth > 1e8:
         words = (f"sensitivity grows by {facts.growth:.0e} across the domain, which its global Newton matrix "
                  "takes without integrating (on the test set it was faster than multiple shooting there)")
@@ -152,8 +163,8 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
         chosen = methods.get(method)  # validates the name
         if trial.compiled.layout.singular and not chosen.takes_singular_term:
             able = ", ".join(m.name for m in _ordered(trial))
-            raise OptionError(f"method {method!r} cannot take the term S y/(x - a) singular at the left end of "
-                              f"this problem; use {able} or auto")
+            raise OptionError(f"method {method!r} cannot take the term {singular_term(trial)} singular at the left "
+                              f"end of this problem; use {able} or auto")
         return Plan([Step(method, "asked for by name", 1.0)])
     context = context or Context()
     candidates = _ordered(trial)

@@ -138,3 +138,26 @@ def test_a_free_end_that_lands_on_a_later_zero_says_the_first_is_there():
     # a solution at the first zero carries no such note
     first = bvpkit.solve(_polytrope(3, 6.0), tol=1e-8)
     assert first.success and "also met inside" not in first.message
+
+
+# -- decimal powers of the independent variable --------------------------------------------------
+def test_thomas_fermi_with_decimal_powers_is_the_problem_with_fractions():
+    fractions = bvpkit.Problem(["y'' = y**(3/2)/sqrt(x)"], ["y(0) = 1", "y(inf) = 0"], (0, "inf"))
+    decimals = bvpkit.Problem(["y'' = y**1.5/x**0.5"], ["y(0) = 1", "y(inf) = 0"], (0, "inf"))
+    # one canonical form: the same standard form, the same generated code
+    assert bvpkit.prepare(decimals).layout.key == bvpkit.prepare(fractions).layout.key
+    sol = bvpkit.solve(decimals, tol=1e-8)
+    assert sol.success, sol.message
+    # y'(0) = -1.588071022611375 (Amore, Boyd and Fernandez 2012)
+    assert sol.evaluate("y'(0)") == pytest.approx(-1.588071022611375, abs=1e-6)
+
+
+@pytest.mark.parametrize("equation", ["y'' = y/x**1.5", "y'' = 1/x**1.5", "y'' = y/(x - a)**3", "y'' = y/r**3"])
+def test_a_singularity_bvpkit_cannot_treat_is_refused_in_the_users_names(equation):
+    name = "r" if "r" in equation else "x"
+    with pytest.raises(ProblemError) as refused:
+        bvpkit.Problem([equation], [f"y({'a' if 'a' in equation else 0}) = 1", "y(1) = 0"],
+                       ("a" if "a" in equation else 0, 1), independent=name, constants={"a": 0.5})
+    said = str(refused.value)
+    assert "_" not in said.replace("y_", ""), said  # no internal symbol (_s0, _xphys, _k0)
+    assert f"S y/{'(x - a)' if 'a' in equation else name}" in said.replace("xi", name)
