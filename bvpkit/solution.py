@@ -124,9 +124,10 @@ class Solution:
     y : ndarray, shape (n, m)
         The states at ``x`` (SciPy's layout); ``state_names`` says what each row holds.
     parameters : dict of str to float
-        Values of the unknown parameters.
+        Values of the unknown parameters (empty when the solve failed: the last iterate is
+        not an answer; :meth:`parameter_values` with ``allow_failed=True`` gives it).
     parameter_errors : dict of str to float
-        Their estimated absolute errors (NaN when not estimated).
+        Their estimated absolute errors (NaN when not estimated; empty when the solve failed).
     outputs : dict of str to float
         The problem's named outputs, evaluated (empty when the solve failed).
     output_errors : dict of str to float
@@ -166,9 +167,12 @@ class Solution:
         self.x = physical(self.interpolant.t, self.interpolant.maps, layout.stretch).ravel()
         self.y = np.concatenate([self.interpolant.y[r * size:(r + 1) * size] for r in range(regions)], axis=1)
         names = layout.parameters
-        self.parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
-        self.parameter_errors = {q: float(v) for q, v in zip(names, errs)}
+        self._parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
+        self._parameter_errors = {q: float(v) for q, v in zip(names, errs)}
+        # a failed solve hands out no numbers as answers, its parameters no more than its outputs
+        self.parameters = dict(self._parameters) if self.success else {}
+        self.parameter_errors = dict(self._parameter_errors) if self.success else {}
         self._reference, self._previous = reference, previous
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
@@ -189,6 +193,15 @@ class Solution:
     def problem(self):  # noqa: ANN201 - a bvpkit.Problem
         """The symbolic problem solved (rebuilt with SymPy if this solution came from a cache)."""
         return self.prepared.problem()
+
+    def parameter_values(self, *, allow_failed: bool = False) -> dict[str, float]:
+        """The unknown parameters' values (name -> value).
+
+        A failed solve raises (as :meth:`evaluate` does) unless ``allow_failed=True``; then
+        the values are those of the last iterate, not an answer.
+        """
+        self._check_success("parameter_values", allow_failed)
+        return dict(self._parameters)
 
     def evaluate(self, expression: str, at: Any = None, *, allow_failed: bool = False) -> float | np.ndarray:
         """Evaluate an expression of the solution.
@@ -274,8 +287,8 @@ class Solution:
                 "method": self.method,
                 "outputs": outputs,
                 "output_errors": errors,
-                "parameters": self.parameters if self.success else {name: None for name in self.parameters},
-                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self.parameters},
+                "parameters": self.parameters if self.success else {name: None for name in self._parameters},
+                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self._parameters},
                 "state_names": list(self.state_names),
                 "diagnostics": self.diagnostics.as_dict(),
             }
@@ -294,7 +307,7 @@ class Solution:
                 unit = f" {units[name]}" if name in units else ""
                 note = "" if math.isfinite(value) else "  (not a finite number: check the expression)"
                 lines.append(f"  {name} = {value:.12g}{unit}  (+/- {_fmt_err(error)}){note}")
-        elif self.prepared.outputs or self.parameters:
+        elif self.prepared.outputs or self._parameters:
             lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
             f"{d.iterations} Newton iteration{_s(d.iterations)}",
@@ -324,6 +337,7 @@ class Solution:
             return
         cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
         action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
+                  "parameter_values": "get the last iterate's values",
                   "to_csv": "write them (every column header then says the solve failed)"}[asked]
         raise BvpkitError(
             f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "

@@ -323,15 +323,24 @@ def _hopeless(result: Outcome, trial: Trial) -> bool:
 
 
 def _nonlinear(trial: Trial) -> bool:
-    """Whether the equations are nonlinear in the states (the Jacobian changes with them)."""
+    """Whether the equations are nonlinear in the unknowns: the Jacobian in the states changes
+    with the states, or with the unknown parameters (a free end multiplies the equations by
+    the length, so ``y'' + y = 0`` with an unknown end is a nonlinear problem)."""
     with np.errstate(all="ignore"):
         y = trial.y
         scale = 1.0 + float(np.max(np.abs(y))) if y.size and np.isfinite(y).all() else 1.0
         other = y + 0.25 * scale * np.cos(np.arange(y.shape[0]) + 1.0)[:, None]
         a = trial.compiled.jac(trial.x, y, trial.p, trial.k)
         b = trial.compiled.jac(trial.x, other, trial.p, trial.k)
-    finite = np.isfinite(a) & np.isfinite(b)
-    return bool(not finite.all() or not np.allclose(a[finite], b[finite], rtol=1e-10, atol=1e-12))
+        pairs = [(a, b)]
+        if len(trial.p):
+            moved = trial.p + 0.25 * (1.0 + np.abs(trial.p))
+            pairs.append((a, trial.compiled.jac(trial.x, y, moved, trial.k)))
+    for a, b in pairs:
+        finite = np.isfinite(a) & np.isfinite(b)
+        if not finite.all() or not np.allclose(a[finite], b[finite], rtol=1e-10, atol=1e-12):
+            return True
+    return False
 
 
 def _paths(context: Context, trial: Trial):  # noqa: ANN202

@@ -161,3 +161,20 @@ def test_a_singularity_bvpkit_cannot_treat_is_refused_in_the_users_names(equatio
     said = str(refused.value)
     assert "_" not in said.replace("y_", ""), said  # no internal symbol (_s0, _xphys, _k0)
     assert f"S y/{'(x - a)' if 'a' in equation else name}" in said.replace("xi", name)
+
+
+# -- a failed solve's parameters ------------------------------------------------------------------
+def test_a_failed_solve_gives_no_parameter_values_unless_asked():
+    # y = sin on a free end: sin(s) = 5 has no solution, so the solve fails (analytic: |sin| <= 1)
+    p = bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y'(0) = 1", "y(s) = 5"], (0, "s"), unknown_parameters={"s": 1.0})
+    sol = bvpkit.solve(p, time_limit=4)
+    assert not sol.success
+    assert sol.parameters == {} and sol.parameter_errors == {}
+    assert sol.as_dict()["parameters"] == {"s": None}
+    with pytest.raises(bvpkit.BvpkitError, match=r"parameter_values\(\): this solve failed .*allow_failed=True"):
+        sol.parameter_values()
+    assert set(sol.parameter_values(allow_failed=True)) == {"s"}
+    # a solved one gives them both ways (analytic: sin(s) = 1/2 at s = pi/6)
+    good = bvpkit.solve(bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y'(0) = 1", "y(s) = 1/2"], (0, "s"),
+                                       unknown_parameters={"s": 1.0}), tol=1e-10)
+    assert good.parameters["s"] == pytest.approx(np.pi / 6, abs=1e-9) == good.parameter_values()["s"]
