@@ -531,6 +531,7 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
     problem = load(args.spec)
     form = standard_form(problem)
     report = check_report(problem, form)
+    _check_solver(problem, form)
     for section in ("trace", "sweep"):
         settings = problem.settings.get(section) or {}
         names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
@@ -551,6 +552,26 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
         lines.append(f"  outputs: {', '.join(problem.outputs)}")
     _say("\n".join(lines))
     return 0, None
+
+
+def _check_solver(problem, form) -> None:  # noqa: ANN001
+    """The spec's [solver] settings, refused by ``check`` where ``solve`` would refuse them: an
+    unknown method, a method that cannot take the problem's singular term, a constant named for
+    continuation that the problem lacks."""
+    from . import methods
+    from .driver import options
+    from .errors import OptionError, closest
+
+    chosen = options(problem.settings, {})
+    method = chosen["method"]
+    if method != "auto" and form.singular is not None and not methods.get(method).takes_singular_term:
+        able = ", ".join(m.name for m in methods.REGISTRY.values() if m.takes_singular_term)
+        raise OptionError(f"method {method!r} cannot take the term singular at the left end of this problem; "
+                          f"use {able} or auto")
+    homotopy = chosen["homotopy"]
+    if homotopy not in ("auto", "off") and homotopy not in problem.constants:
+        raise OptionError(f"homotopy names '{homotopy}', which is not a constant of the problem"
+                          f"{closest(homotopy, problem.constants)}; give \"auto\", \"off\" or one of its constants")
 
 
 def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001

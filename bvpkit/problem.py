@@ -742,9 +742,30 @@ class Problem:
             _expr.check_name(name, "output")
             if not isinstance(text, str):
                 raise ProblemError(f"output '{name}': expected an expression as text")
-            self.parse_quantity(text, where=f"output '{name}'")
+            e = self.parse_quantity(text, where=f"output '{name}'")
+            self._inside(e, f"output '{name}' ({text})")
             result[name] = text
         return result
+
+    def _inside(self, e: sp.Expr, where: str) -> None:
+        """Every point value of ``e`` inside the domain (ends included), where the point and the
+        ends are fixed by constants (an unknown parameter's end is known only once solved)."""
+        a, b = self.domain
+        fixed = set(map(sp.Symbol, self.constants))
+        if (a.free_symbols | b.free_symbols) - fixed:
+            return
+        lo = self.value(a, "domain end")
+        hi = self.value(b, "domain end")
+        for pv in self.point_values(e, where):
+            if pv.point.free_symbols - fixed or pv.point in (sp.oo, -sp.oo):
+                continue
+            value = self.value(pv.point, where)
+            slack = 1e-12 * max(1.0, abs(value))
+            if not lo - slack <= value <= hi + slack:
+                shown = _plain_number(_describe(pv.point), value)
+                shown = shown if shown == f"{value:g}" else f"{shown} (= {value:g})"
+                domain = f"[{_describe(a)}, {_describe(b)}]"
+                raise ProblemError(f"{where}: the point {self.independent} = {shown} lies outside the domain {domain}")
 
     def parse_quantity(self, text: str, where: str = "expression") -> sp.Expr:
         """Parse an expression of the solution (point values, states, integrals, constants)."""

@@ -178,7 +178,10 @@ class Solution:
         self.output_errors: dict[str, float] = {}
         if self.success:
             for name, text in prepared.outputs.items():
-                self.outputs[name], self.output_errors[name] = self._output(text)
+                try:
+                    self.outputs[name], self.output_errors[name] = self._output(text)
+                except BvpkitError as err:  # a point the solution does not reach (a constant moved an end)
+                    raise BvpkitError(f"output '{name}' ({text}): {err}") from None
 
     # -- public questions ---------------------------------------------------------------
     @property

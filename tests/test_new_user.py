@@ -178,3 +178,38 @@ def test_a_failed_solve_gives_no_parameter_values_unless_asked():
     good = bvpkit.solve(bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y'(0) = 1", "y(s) = 1/2"], (0, "s"),
                                        unknown_parameters={"s": 1.0}), tol=1e-10)
     assert good.parameters["s"] == pytest.approx(np.pi / 6, abs=1e-9) == good.parameter_values()["s"]
+
+
+# -- `bvpkit check` refuses what `solve` refuses --------------------------------------------------
+CHECKED = """
+[problem]
+domain = [0, 1]
+equations = ["y'' = -y"]
+conditions = ["y(0) = 0", "y(1) = 1"]
+[solver]
+method = "{method}"
+[outputs]
+far = "{far}"
+"""
+
+
+@pytest.mark.parametrize("command", ["check", "solve"])
+@pytest.mark.parametrize("method, far, said", [
+    ("shootin", "y(1/2)", "unknown method 'shootin' (did you mean 'single_shooting'?)"),
+    ("auto", "y(2)", "[outputs] output 'far' (y(2)): the point x = 2 lies outside the domain [0, 1]"),
+])
+def test_check_refuses_what_solve_refuses_naming_it(command, method, far, said, tmp_path, capsys):
+    from bvpkit.cli import main
+
+    spec = tmp_path / "s.toml"
+    spec.write_text(CHECKED.format(method=method, far=far))
+    assert main([command, str(spec)]) == bvpkit.Status.BAD_INPUT.exit_code
+    err = capsys.readouterr().err
+    assert said in err and err.count("\n") == 1
+
+
+def test_an_output_a_changed_constant_leaves_outside_is_named():
+    p = bvpkit.Problem(["y'' = -y"], ["y(0) = 0", "y(L) = 1"], (0, "L"), constants={"L": 1.0},
+                       outputs={"inner": "y(0.9)"})
+    with pytest.raises(bvpkit.BvpkitError, match=r"output 'inner' \(y\(0.9\)\): x = 0.9 is outside"):
+        bvpkit.solve(p.with_constants(L=0.5))
