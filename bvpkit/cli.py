@@ -72,6 +72,8 @@ def _parser() -> argparse.ArgumentParser:
         "--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)"
     )
     solve.add_argument("--csv", metavar="FILE", help="write the mesh solution as CSV")
+    solve.add_argument("--plot", metavar="FILE.png", help="draw every unknown function, outputs marked (needs the "
+                       "plot extra; the suffix names the format: png, pdf, svg, ...)")
     solve.add_argument("--json", action="store_true", help="print the result as JSON instead of a summary")
     solve.add_argument(
         "--overwrite", action="store_true", help="let files named in the spec's [save] replace existing files"
@@ -321,6 +323,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         problem = prepare(loaded.with_constants(**overrides) if overrides else loaded)
     save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
+    picture = _picture(args.plot)
     csv_out = json_out = None
     if csv_path is None and save.get("solution_csv"):
         csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
@@ -342,6 +345,8 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     # the user asked for the file: a failed solve's is written too, every header saying it failed
     if csv_path is not None:
         solution.to_csv(csv_path, allow_failed=True)
+    if picture is not None:  # a failed solve's too, marked on the figure as no answer
+        solution.plot(picture, allow_failed=True)
     report = solution.as_dict()
     for output, write in ((csv_out, lambda handle: solution.to_csv(handle, allow_failed=True)),
                           (json_out, lambda handle: handle.write(json.dumps(report, indent=2) + "\n"))):
@@ -354,7 +359,9 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     title = f"{problem.title}\n" if problem.title else ""
     _say(title + solution.summary())
     mesh = "mesh solution" if solution.success else "mesh solution of the failed solve (headers marked failed)"
-    for path, what in ((csv_path or (csv_out and csv_out.path), mesh), (json_out and json_out.path, "report")):
+    drawn = "plot" if solution.success else "plot of the failed solve (marked failed)"
+    for path, what in ((csv_path or (csv_out and csv_out.path), mesh), (json_out and json_out.path, "report"),
+                       (picture, drawn)):
         if path:
             _say(f"{what} written to {path}")
     return solution.status.exit_code, None

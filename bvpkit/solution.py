@@ -197,6 +197,15 @@ class Solution:
         """The symbolic problem solved (rebuilt with SymPy if this solution came from a cache)."""
         return self.prepared.problem()
 
+    def plot(self, path: str | Path, functions: Any = None, *, allow_failed: bool = False, **options: Any) -> Any:
+        """Draw every unknown function (or those named) against the independent variable, the
+        outputs marked (``plot`` extra; options of :func:`bvpkit.plots.solution_figure`);
+        returns the figure. A failed solve raises unless ``allow_failed=True``."""
+        from .plots import solution_figure
+
+        return solution_figure(self, path, [functions] if isinstance(functions, str) else functions,
+                               allow_failed=allow_failed, **options)
+
     def parameter_values(self, *, allow_failed: bool = False) -> dict[str, float]:
         """The unknown parameters' values (name -> value).
 
@@ -340,7 +349,7 @@ class Solution:
             return
         cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
         action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
-                  "parameter_values": "get the last iterate's values",
+                  "parameter_values": "get the last iterate's values", "plot": "draw them",
                   "to_csv": "write them (every column header then says the solve failed)"}[asked]
         raise BvpkitError(
             f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "

@@ -213,3 +213,53 @@ def test_an_output_a_changed_constant_leaves_outside_is_named():
                        outputs={"inner": "y(0.9)"})
     with pytest.raises(bvpkit.BvpkitError, match=r"output 'inner' \(y\(0.9\)\): x = 0.9 is outside"):
         bvpkit.solve(p.with_constants(L=0.5))
+
+
+# -- a picture of one solution ---------------------------------------------------------------------
+@pytest.mark.extra
+def test_solve_draws_the_profile_with_its_outputs_marked(tmp_path, capsys):
+    pytest.importorskip("matplotlib")
+    from pathlib import Path
+
+    from bvpkit.cli import main
+
+    spec = Path(__file__).resolve().parent.parent / "specs/pin_fin.toml"
+    picture = tmp_path / "fin.png"
+    assert main(["solve", str(spec), "--plot", str(picture)]) == 0
+    assert picture.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and "plot written to" in capsys.readouterr().out
+    sol = bvpkit.solve(bvpkit.load(spec))
+    fig = sol.plot(tmp_path / "again.svg")
+    (ax,) = fig.axes
+    assert ax.get_ylabel() == "theta [K]" and ax.get_xlabel() == "x [m]"
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    # theta(L) is a point of the curve: marked there; the others are listed
+    assert any(t.startswith("tip_excess_temperature_K = ") for t in legend)
+    assert any(t.startswith("heat_rate_W = ") and t.endswith(" W") for t in legend)
+    marker = [line for line in ax.get_lines() if line.get_marker() == "o"][0]
+    assert marker.get_xdata()[0] == pytest.approx(0.08) and marker.get_ydata()[0] == pytest.approx(
+        sol.outputs["tip_excess_temperature_K"])
+    assert "pin fin" in fig._suptitle.get_text()  # the spec's title
+
+
+@pytest.mark.extra
+def test_a_figure_without_a_title_of_its_own_gets_the_equations_and_a_failed_solve_is_not_drawn(tmp_path):
+    pytest.importorskip("matplotlib")
+    sol = bvpkit.solve(bvpkit.Problem(["y'' = -y"], ["y(0) = 0", "y(1) = 1"], (0, 1)))
+    fig = sol.plot(tmp_path / "y.png")
+    assert fig._suptitle.get_text() == "y'' = -y"
+    failed = bvpkit.solve(bvpkit.Problem(["y'' + y = 0"], ["y(0) = 0", "y'(0) = 1", "y(s) = 5"], (0, "s"),
+                                         unknown_parameters={"s": 1.0}), time_limit=2)
+    with pytest.raises(bvpkit.BvpkitError, match=r"plot\(\): this solve failed"):
+        failed.plot(tmp_path / "no.png")
+    drawn = failed.plot(tmp_path / "marked.png", allow_failed=True)
+    assert any("FAILED" in t.get_text() for t in drawn.texts)
+
+
+@pytest.mark.extra
+def test_a_traced_figure_says_which_constants_were_held_and_has_a_title_without_a_spec(tmp_path):
+    pytest.importorskip("matplotlib")
+    slab = bvpkit.Problem(["y'' + d*exp(y) = 0"], ["y'(0) = 0", "y'(1) + Bi*y(1) = 0"], (0, 1),
+                          constants={"d": 0.1, "Bi": 1.0})
+    branch = bvpkit.trace(slab, "d", start=0.1, stop=0.2, outputs=["y(0)"])
+    title = branch.plot(tmp_path / "b.png")._suptitle.get_text()
+    assert title.startswith("y'' + d*exp(y) = 0") and "(d varied; Bi = 1)" in title
