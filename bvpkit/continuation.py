@@ -251,9 +251,15 @@ class Branch:
             if not self.requested[value]:
                 del self.requested[value]
 
+    @property
+    def error_estimate(self) -> np.ndarray:
+        """Per point, the estimated error of its solution (NaN where none was made)."""
+        return np.array([_estimate(s) for s in self.solutions], float)
+
     def table(self) -> dict[str, np.ndarray]:
-        """Columns: the parameter, each output, and how each point was reached."""
-        columns = {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
+        """Columns: the parameter, each output, each point's error estimate and how it was reached."""
+        columns = {self.name: self.parameter, **self.outputs, "error_estimate": self.error_estimate,
+                   "step": np.array(self.steps)}
         if self._judge:
             words = {True: "stable", False: "unstable", None: "-"}
             columns["stability"] = np.array([words[v] for v in self.stability])
@@ -278,6 +284,7 @@ class Branch:
             "parameter": self.parameter.tolist(),
             "outputs": {k: v.tolist() for k, v in outputs.items()},
             "steps": list(self.steps),
+            "error_estimate": self.error_estimate.tolist(),
             "truncation": self.truncation,
             "folds": points(self.folds),
             "branch_points": points(self.branch_points),
@@ -288,11 +295,13 @@ class Branch:
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
         outputs = self.outputs
-        header = [self.name, *self._outputs, "step", *(["stability"] if self._judge else [])]
+        header = [self.name, *self._outputs, "error", "step", *(["stability"] if self._judge else [])]
         lines.append("  ".join(f"{h:>14s}" for h in header))
         words = {True: "stable", False: "unstable", None: "-"}
+        errors = self.error_estimate
         for i, value in enumerate(self._values):
-            row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{self.steps[i]:>14s}"]
+            row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{errors[i]:14.2g}",
+                   f"{self.steps[i]:>14s}"]
             if self._judge:
                 row.append(f"{words[self.stability[i]]:>14s}")
             lines.append("  ".join(row))
@@ -310,6 +319,12 @@ class Branch:
         from .plots import branch_figure
 
         return branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+
+
+def _estimate(solution: Solution) -> float:
+    """A solution's error estimate as a plain number (NaN where none was made)."""
+    value = solution.diagnostics.error_estimate
+    return float(value) if value is not None else math.nan
 
 
 def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, float]:

@@ -27,7 +27,7 @@ import numpy as np
 
 from . import arclength as arc
 from ._output import json_ready, write_columns
-from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
+from .continuation import MAX_ANGLE, MAX_DRIFT, _estimate, _number, _resolve_outputs, _Tracer, output_values
 from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations, SingularMatrix
 from .driver import DEFAULT_TOL, settle
@@ -106,8 +106,15 @@ class FoldCurve:
         self.solutions.append(solution)
         self._rows.append(output_values(solution, self._expressions))
 
+    @property
+    def error_estimate(self) -> np.ndarray:
+        """Per point, the estimated error of the fold's solution (NaN where none was made)."""
+        return np.array([_estimate(s) for s in self.solutions], float)
+
     def table(self) -> dict[str, np.ndarray]:
-        return {self.along_name: self.along, self.name: self.parameter, **self.outputs}
+        """Columns: the second constant, the first at the fold, each output, each point's error estimate."""
+        return {self.along_name: self.along, self.name: self.parameter, **self.outputs,
+                "error_estimate": self.error_estimate}
 
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """:meth:`table` as CSV; headers labelled with ``units`` when given."""
@@ -118,16 +125,19 @@ class FoldCurve:
             "success": self.success, "status": self.status.word,
             "message": self.message, "parameter_name": self.name, "along_name": self.along_name,
             "along": self.along.tolist(), "parameter": self.parameter.tolist(),
-            "outputs": {k: v.tolist() for k, v in self.outputs.items()}, "cusps": self.cusps, "seconds": self.seconds,
+            "outputs": {k: v.tolist() for k, v in self.outputs.items()}, "error_estimate": self.error_estimate.tolist(),
+            "cusps": self.cusps, "seconds": self.seconds,
         })
 
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
-        header = [self.along_name, f"{self.name} at fold", *self._expressions]
+        header = [self.along_name, f"{self.name} at fold", *self._expressions, "error"]
         lines.append("  ".join(f"{h:>16s}" for h in header))
         outputs = self.outputs
+        errors = self.error_estimate
         for i, (a, v) in enumerate(zip(self._along, self._values)):
-            lines.append("  ".join([f"{a:16.10g}", f"{v:16.10g}", *(f"{outputs[o][i]:16.10g}" for o in outputs)]))
+            lines.append("  ".join([f"{a:16.10g}", f"{v:16.10g}", *(f"{outputs[o][i]:16.10g}" for o in outputs),
+                                    f"{errors[i]:16.2g}"]))
         for c in self.cusps:
             lines.append(f"cusp near {self.along_name} = {c['along']:.8g}, {self.name} = {c['parameter']:.8g}: two "
                          "folds meet and vanish there")

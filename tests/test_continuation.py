@@ -104,7 +104,7 @@ def test_falkner_skan_family_from_beta_one_down_to_zero():
 def test_branch_table_csv_json_and_plot(bratu_branch, tmp_path):
     b = bratu_branch
     table = b.table()
-    assert list(table) == ["lam", "y'(0)", "y(1/2)", "step"]
+    assert list(table) == ["lam", "y'(0)", "y(1/2)", "error_estimate", "step"]
     b.to_csv(tmp_path / "b.csv")
     lines = (tmp_path / "b.csv").read_text().splitlines()
     assert len(lines) == len(b.parameter) + 1

@@ -263,3 +263,27 @@ def test_a_traced_figure_says_which_constants_were_held_and_has_a_title_without_
     branch = bvpkit.trace(slab, "d", start=0.1, stop=0.2, outputs=["y(0)"])
     title = branch.plot(tmp_path / "b.png")._suptitle.get_text()
     assert title.startswith("y'' + d*exp(y) = 0") and "(d varied; Bi = 1)" in title
+
+
+# -- error estimates in every table ------------------------------------------------------------------
+def test_trace_and_fold_curve_tables_carry_each_points_error_estimate(tmp_path, capsys):
+    import csv
+    from pathlib import Path
+
+    from bvpkit.cli import main
+
+    spec = Path(__file__).resolve().parent.parent / "specs/reacting_slab_ignition.toml"
+    out = tmp_path / "b.csv"
+    assert main(["trace", str(spec), "--csv", str(out), "--quiet", "--stop", "1.0", "--tol", "1e-6"]) == 0
+    rows = list(csv.DictReader(out.read_text().splitlines()))
+    assert rows and "error_estimate" in rows[0]
+    errors = [float(r["error_estimate"]) for r in rows]
+    assert all(0 <= e <= 1e-6 for e in errors)  # each point met the tolerance asked
+    header = [line for line in capsys.readouterr().out.splitlines() if line.split()[:1] == ["lam"]]
+    assert header and "error" in header[0].split()  # the summary's column
+    slab = bvpkit.Problem(["y'' + d*exp(y) = 0"], ["y'(0) = 0", "y'(1) + Bi*y(1) = 0"], (0, 1),
+                          constants={"d": 0.1, "Bi": 1.0})
+    curve = bvpkit.fold_curve(slab, "d", along="Bi", start=1.0, stop=2.0, outputs=["y(0)"], tol=1e-6)
+    table = curve.table()
+    assert list(table)[-1] == "error_estimate" and len(table["error_estimate"]) == len(curve.along)
+    assert np.all(np.asarray(table["error_estimate"]) < 1e-4)
