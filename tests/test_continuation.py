@@ -149,6 +149,7 @@ def test_cli_trace_prints_the_fold_and_writes_a_plot(tmp_path, capsys):
     # analytic: the Bratu fold 3.51383071912516 (the root of the fold equation; see catalogue)
     assert abs(float(found.group(1)) - 3.51383071912516) <= max(1e-9, 10 * float(found.group(2)))
     assert (tmp_path / "fold.png").exists() and (tmp_path / "b.csv").exists()
-    assert main(["trace", str(spec), "--json", "--max-points", "5"]) == bvpkit.Status.NOT_CONVERGED.exit_code
+    assert main(["trace", str(spec), "--json", "--max-points", "5"]) == bvpkit.Status.POINT_LIMIT.exit_code
     data = json.loads(capsys.readouterr().out)
     assert data["success"] is False and "max_points" in data["message"] and len(data["parameter"]) == 5
+    assert data["status"] == "point_limit"
