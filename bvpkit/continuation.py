@@ -265,6 +265,12 @@ class Branch:
             columns["stability"] = np.array([words[v] for v in self.stability])
         return columns
 
+    def to_pandas(self) -> Any:
+        """:meth:`table` as a pandas DataFrame, one row per point (the ``tables`` extra)."""
+        from ._output import data_frame
+
+        return data_frame(self.table())
+
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """:meth:`table` as CSV; headers labelled with ``units`` when given (``lam [N]``)."""
         write_columns(path, labelled(self.table(), units, independent))

@@ -116,6 +116,12 @@ class FoldCurve:
         return {self.along_name: self.along, self.name: self.parameter, **self.outputs,
                 "error_estimate": self.error_estimate}
 
+    def to_pandas(self) -> Any:
+        """:meth:`table` as a pandas DataFrame, one row per point of the curve (the ``tables`` extra)."""
+        from ._output import data_frame
+
+        return data_frame(self.table())
+
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """:meth:`table` as CSV; headers labelled with ``units`` when given."""
         write_columns(path, labelled(self.table(), units, independent))

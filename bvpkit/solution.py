@@ -265,6 +265,13 @@ class Solution:
             columns[name] = row
         return columns
 
+    def to_pandas(self, *, allow_failed: bool = False) -> Any:
+        """:meth:`table` as a pandas DataFrame (the ``tables`` extra); a failed solve raises
+        unless ``allow_failed=True``."""
+        from ._output import data_frame
+
+        return data_frame(self.table(allow_failed=allow_failed))
+
     def to_csv(self, path: str | Path, *, allow_failed: bool = False) -> None:
         """Write :meth:`table` as CSV (one row per mesh node).
 

@@ -287,10 +287,48 @@ class SweepResult:
         """One column of the table as an array (a parameter, an output or a diagnostic)."""
         return np.array([r.get(name, math.nan) for r in self.table])
 
+    _COLUMNS = ("success", "status", "method", "error_estimate", "message")
+
+    def to_pandas(self) -> Any:
+        """The table as a pandas DataFrame, one row per grid point in grid order: the
+        parameters, each output (NaN where the point failed), ``success``, ``status``,
+        ``method``, ``error_estimate``, ``message`` (the ``tables`` extra)."""
+        from ._output import data_frame
+
+        names = [*self.parameters, *self.outputs, *self._COLUMNS]
+        return data_frame({n: [r.get(n) for r in self.table] for n in names})
+
+    def to_xarray(self) -> Any:
+        """The sweep as an xarray Dataset over its grid (the ``tables`` extra): one dimension
+        per parameter (coordinates: the grid's values), variables each output, ``status``,
+        ``success`` and ``error_estimate``. A point not in the table (an interrupted sweep)
+        is NaN, with the status ``missing``."""
+        from ._output import optional
+
+        xarray = optional("xarray", "to_xarray()")
+        axes = {name: np.asarray(values, float) for name, values in self.parameters.items()}
+        shape = tuple(v.size for v in axes.values())
+        where = {name: {float(v): i for i, v in enumerate(values)} for name, values in axes.items()}
+        numbers = {name: np.full(shape, np.nan) for name in [*self.outputs, "error_estimate"]}
+        status = np.full(shape, "missing", dtype=object)
+        success = np.zeros(shape, dtype=bool)
+        for row in self.table:
+            index = tuple(where[name][float(row[name])] for name in axes)
+            for name in numbers:
+                value = row.get(name)
+                numbers[name][index] = np.nan if value is None else float(value)
+            status[index], success[index] = row["status"], bool(row["success"])
+        dims = list(axes)
+        variables = {name: (dims, values) for name, values in numbers.items()}
+        variables["status"] = (dims, status.astype(str))
+        variables["success"] = (dims, success)
+        return xarray.Dataset(variables, coords={name: values for name, values in axes.items()},
+                              attrs={"message": self.message})
+
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """The table as CSV, through the one writer of results (``_output.write_columns``);
         headers labelled with ``units`` when given."""
-        names = [*self.parameters, *self.outputs, "success", "status", "method", "error_estimate", "message"]
+        names = [*self.parameters, *self.outputs, *self._COLUMNS]
         write_columns(path, labelled({n: [r.get(n) for r in self.table] for n in names}, units, independent))
 
     def as_dict(self) -> dict[str, Any]:
