@@ -327,3 +327,28 @@ def test_a_missing_table_library_names_the_extra(monkeypatch):
     sol = bvpkit.solve(bvpkit.Problem(["y'' = -y"], ["y(0) = 0", "y(1) = 1"], (0, 1)))
     with pytest.raises(bvpkit.errors.MissingExtraError, match=r'to_pandas\(\) needs pandas: pip install "\.\[tables\]"'):
         sol.to_pandas()
+
+
+# -- stability at a singular centre --------------------------------------------------------------------
+@pytest.mark.parametrize("power, first", [
+    (2, np.pi**2),  # analytic: sphere, v = sin(pi r)/r, mu_1 = -pi^2
+    (1, 2.404825557695773**2),  # analytic: cylinder, v = J0(j r), j the first zero of J0 (scipy.special.jn_zeros)
+])
+def test_the_principal_eigenvalue_of_diffusion_in_a_sphere_and_a_cylinder(power, first):
+    from bvpkit.stability import principal_eigenvalue
+
+    p = bvpkit.Problem([f"y'' + ({power}/r)*y' + d*exp(y) = 0"], ["y'(0) = 0", "y(1) = 0"], (0, 1), independent="r",
+                       constants={"d": 1e-9})
+    sol = bvpkit.solve(p, tol=1e-8)
+    assert principal_eigenvalue(sol) == pytest.approx(-first, rel=1e-6)
+
+
+def test_a_sphere_that_ignites_is_stable_below_its_fold_and_unstable_above():
+    p = bvpkit.Problem(["y'' + (2/r)*y' + d*exp(y) = 0"], ["y'(0) = 0", "y(1) = 0"], (0, 1), independent="r",
+                       constants={"d": 3.0})
+    b = bvpkit.trace(p, "d", start=3.0, stop=4.0, outputs=["y(0)"], stability=True, return_to=3.2)
+    assert b.success and len(b.folds) == 1
+    # the critical value of a sphere, 3.32 (Frank-Kamenetskii's delta_cr for a sphere, from memory)
+    assert b.folds[0].parameter == pytest.approx(3.32, abs=0.005)
+    before, after = b.stability[: b.folds[0].index], b.stability[b.folds[0].index:]
+    assert all(s is True for s in before[:-1]) and all(s is False for s in after[1:])
