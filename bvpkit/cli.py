@@ -103,7 +103,8 @@ def _parser() -> argparse.ArgumentParser:
                        help="solve exactly at this value of the parameter, on every part of the branch; repeatable")
     trace.add_argument("--return-to", type=float, metavar="VALUE",
                        help="after a fold or branch point, end when the parameter comes back to this value")
-    trace.add_argument("--no-switch", action="store_true", help="stay on the branch at a branch point")
+    trace.add_argument("--no-branch-switching", "--no-switch", dest="no_switch", action="store_true",
+                       help="stay on the branch at a branch point (--no-switch: its former name)")
     trace.add_argument("--stability", action="store_true",
                        help="judge each point as the steady state of u_t = u'' - g of a problem u'' = g "
                        "(reaction-diffusion, heat conduction, ignition); stable parts drawn solid, unstable dashed")
@@ -407,7 +408,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         progress=not args.quiet and not args.json,
         at=args.at if args.at else settings.get("at"),
         return_to=args.return_to if args.return_to is not None else settings.get("return_to"),
-        switch=not args.no_switch and settings.get("branch_switching", True),
+        branch_switching=not args.no_switch and settings.get("branch_switching", True),
         stability=bool(args.stability or settings.get("stability", False)),
     )
     units = units_of(problem)

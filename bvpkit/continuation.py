@@ -29,7 +29,7 @@ difference is the reported error). **Branch points** are sign changes of the det
 the bordered Jacobian ``[G_z; t]`` (regular at folds, singular at branch points), located
 by bracketed secant steps on a bordered test function (``arclength.branch_test``) and refined on
 halved meshes until two successive meshes agree to the tolerance; the trace then switches
-onto the other branch (along the null vector) unless ``switch=False``.
+onto the other branch (along the null vector) unless ``branch_switching=False``.
 
 **Infinite domains.** The truncation length is chosen once, by the first point's solve,
 and held; after each point a cheap far-field check (the change of each state, or of its
@@ -379,9 +379,10 @@ def trace(
     verify: bool = True,
     at: Sequence[float] | None = None,
     return_to: float | None = None,
-    switch: bool = True,
+    branch_switching: bool = True,
     max_angle: float | None = None,
     stability: bool = False,
+    switch: bool | None = None,
 ) -> Branch:
     """Trace the solutions of ``problem`` as the constant ``name`` goes from ``start`` to ``stop``.
 
@@ -418,8 +419,10 @@ def trace(
     return_to : float, optional
         After the branch has turned (a fold) or switched (a branch point), end when the
         parameter comes back to this value.
-    switch : bool
-        At a simple branch point, go on along the other branch (default True).
+    branch_switching : bool
+        At a simple branch point, go on along the other branch (default True); the same
+        name as the spec's ``branch_switching`` and the command line's
+        ``--no-branch-switching``.
     max_angle : float, optional
         Largest angle (radians) between successive secants of accepted steps (default
         :data:`MAX_ANGLE`, 8 degrees).
@@ -428,6 +431,8 @@ def trace(
         problem ``u'' = g(x, u, u')`` (reaction-diffusion, heat conduction with a source,
         ignition): ``branch.stability`` True, False, or None where that reading does not
         apply (see :mod:`bvpkit.stability`). Default False: every entry None.
+    switch : bool, optional
+        The former name of ``branch_switching``, kept for one release; giving both refuses.
 
     Returns
     -------
@@ -459,7 +464,13 @@ def trace(
     names = _resolve_outputs(prepared, outputs)
     tracer = _Tracer(prepared, name, start, stop, names, tol, method, step, max_points, progress)
     tracer.fixed, tracer.verify, tracer.requested, tracer.return_to = fixed_step, verify, requested, return_to
-    tracer.switch, tracer.max_angle = switch, angle
+    if switch is not None:
+        if branch_switching is not True:
+            raise OptionError("give branch_switching only (switch is its former name)")
+        branch_switching = switch
+    if not isinstance(branch_switching, bool):
+        raise OptionError(f"branch_switching must be true or false, got {branch_switching!r}")
+    tracer.switch, tracer.max_angle = branch_switching, angle
     if not isinstance(stability, bool):
         raise OptionError(f"stability must be true or false, got {stability!r}")
     tracer.branch._judge = stability

@@ -352,3 +352,19 @@ def test_a_sphere_that_ignites_is_stable_below_its_fold_and_unstable_above():
     assert b.folds[0].parameter == pytest.approx(3.32, abs=0.005)
     before, after = b.stability[: b.folds[0].index], b.stability[b.folds[0].index:]
     assert all(s is True for s in before[:-1]) and all(s is False for s in after[1:])
+
+
+# -- one name for the branch switch ------------------------------------------------------------------------
+def test_the_branch_switch_has_one_name_everywhere_and_the_old_ones_still_work():
+    from bvpkit.cli import _parser
+
+    for flag in ("--no-branch-switching", "--no-switch"):
+        assert _parser().parse_args(["trace", "s.toml", flag]).no_switch is True
+    bratu = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.1})
+    with pytest.raises(bvpkit.OptionError, match="give branch_switching only"):
+        bvpkit.trace(bratu, "lam", start=0.1, stop=0.2, switch=False, branch_switching=False)
+    with pytest.raises(bvpkit.OptionError, match="branch_switching must be true or false"):
+        bvpkit.trace(bratu, "lam", start=0.1, stop=0.2, branch_switching="no")
+    old = bvpkit.trace(bratu, "lam", start=0.1, stop=0.3, outputs=["y'(0)"], switch=False)
+    new = bvpkit.trace(bratu, "lam", start=0.1, stop=0.3, outputs=["y'(0)"], branch_switching=False)
+    assert np.array_equal(old.parameter, new.parameter)
