@@ -144,9 +144,9 @@ class Prepared:
 
         missing = [k for k in values if k not in self.constants]
         if missing:
-            raise ProblemError(
-                f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
-            )
+            from .problem import _not_a_constant
+
+            raise ProblemError(_not_a_constant(missing[0], self.constants, self.parameters))
         new = dataclasses.replace(self, constants={**self.constants, **_numbers(values, "constant", names_known=True)})
         new.check()
         return new

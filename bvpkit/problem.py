@@ -816,9 +816,7 @@ class Problem:
         the domain's ends and interfaces must stay in order)."""
         missing = [k for k in values if k not in self.constants]
         if missing:
-            raise ProblemError(
-                f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
-            )
+            raise ProblemError(_not_a_constant(missing[0], self.constants, self.unknown_parameters))
         new = object.__new__(Problem)
         new.__dict__.update(self.__dict__)
         new.__dict__["constants"] = {**self.constants, **_numbers(values, "constant", names_known=True)}
@@ -830,6 +828,15 @@ class Problem:
         bcs = "; ".join(self.condition_text)
         a, b = (_describe(e) for e in self.domain)
         return f"Problem({eqs} | {bcs} | {self.independent} in ({a}, {b}))"
+
+
+def _not_a_constant(name: str, constants: Mapping[str, float], parameters: Mapping[str, float]) -> str:
+    """Why ``name`` cannot be given a value as a constant (``with_constants``, ``--set``)."""
+    if name in parameters:
+        return (f"'{name}' is an unknown parameter, not a constant: the solve finds its value, from the start "
+                f"given with the problem (unknown_parameters = {{ {name} = ... }} under [problem] in a spec, "
+                f"unknown_parameters={{\"{name}\": ...}} from Python, where it is now {parameters[name]:g})")
+    return f"'{name}' is not a constant of this problem{closest(name, constants)}"
 
 
 def point_value(point: Any, values: Mapping[str, float], what: str = "") -> float:

@@ -368,3 +368,14 @@ def test_the_branch_switch_has_one_name_everywhere_and_the_old_ones_still_work()
     old = bvpkit.trace(bratu, "lam", start=0.1, stop=0.3, outputs=["y'(0)"], switch=False)
     new = bvpkit.trace(bratu, "lam", start=0.1, stop=0.3, outputs=["y'(0)"], branch_switching=False)
     assert np.array_equal(old.parameter, new.parameter)
+
+
+def test_set_on_an_unknown_parameter_says_where_its_start_is_given(capsys):
+    from pathlib import Path
+
+    from bvpkit.cli import main
+
+    spec = Path(__file__).resolve().parent.parent / "specs/fin_length_for_tip.toml"
+    assert main(["solve", str(spec), "--set", "L=6"]) == bvpkit.Status.BAD_INPUT.exit_code
+    err = capsys.readouterr().err
+    assert "'L' is an unknown parameter, not a constant" in err and "unknown_parameters = { L = ... }" in err
