@@ -97,3 +97,24 @@ def data_frame(columns: Mapping[str, Any], feature: str = "to_pandas()") -> Any:
         else:
             frame[name] = np.array([np.nan if v is None else v for v in values])
     return pandas.DataFrame(frame)
+
+
+def output_labels(named: Mapping[str, str], outputs: Any) -> dict[str, str]:
+    """Label -> expression of the outputs asked for: the problem's outputs keep their names, a
+    mapping gives its own labels, and a plain expression is its own label."""
+    if isinstance(outputs, Mapping):
+        labels = {}
+        for label, text in outputs.items():
+            if not isinstance(label, str) or not isinstance(text, str):
+                raise _option_error(f"outputs: a label and an expression as text each, got {label!r}: {text!r}")
+            labels[label] = named.get(text, text)
+        return labels
+    if isinstance(outputs, str):
+        raise _option_error(f"outputs must be a list of expressions, got the text {outputs!r}; write [{outputs!r}]")
+    return {text: named.get(text, text) for text in (outputs if outputs is not None else list(named))}
+
+
+def _option_error(message: str) -> Exception:
+    from .errors import OptionError
+
+    return OptionError(message)

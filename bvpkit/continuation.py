@@ -53,7 +53,7 @@ from typing import Any
 import numpy as np
 
 from . import arclength as arc
-from ._output import json_ready, progress_bar, write_columns
+from ._output import json_ready, output_labels, progress_bar, write_columns
 from .diagnostics import Attempt, hermite
 from .discrete import CollocationEquations, SingularMatrix
 from .driver import DEFAULT_TOL, GROWTH, MAX_LENGTHENINGS, settle, solve, solve_at
@@ -346,12 +346,10 @@ def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, 
 
 def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[str, str]:
     """Label -> expression: a name of the problem's outputs keeps its name as the label."""
-    labels = {}
-    named = prepared.outputs
-    for text in outputs if outputs is not None else list(named):
+    for text in (outputs.values() if isinstance(outputs, Mapping) else outputs or []):
         if not isinstance(text, str):
             raise OptionError(f"outputs must be expressions as text, got {text!r}")
-        labels[text] = named.get(text, text)
+    labels = output_labels(prepared.outputs, outputs)
     for label, text in labels.items():
         prepared.quantity(text)  # parsed and checked now, not at the first point
     return labels
@@ -395,9 +393,10 @@ def trace(
     start, stop : float
         The range. After a fold the branch may come back; the trace ends when the parameter
         reaches ``stop`` or leaves the range on the other side.
-    outputs : sequence of str, optional
+    outputs : sequence of str, or mapping of str to str, optional
         Expressions (or names of the problem's outputs) recorded along the branch; default
-        the problem's outputs.
+        the problem's outputs. A mapping gives each a label (``{"wall_gradient": "y'(0)"}``),
+        which names its column and its axis.
     tol : float, optional
         Tolerance of each point (default: the problem's, else 1e-6).
     method : str, optional

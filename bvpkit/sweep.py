@@ -60,7 +60,7 @@ from typing import Any
 
 import numpy as np
 
-from ._output import json_ready, progress_bar, write_columns
+from ._output import json_ready, output_labels, progress_bar, write_columns
 from .errors import OptionError, closest
 from .limits import LARGEST, SMALLEST, in_range
 from .units import labelled
@@ -501,8 +501,10 @@ def sweep(
     problem : Problem
     grid : mapping of str to sequence of float
         Constant name to values; the first is the fast axis (continuation runs along it).
-    outputs : sequence of str, optional
-        Expressions (or names of the problem's outputs) to record; default the problem's outputs.
+    outputs : sequence of str, or mapping of str to str, optional
+        Expressions (or names of the problem's outputs) to record; default the problem's
+        outputs. A mapping gives each a label (``{"effectiveness": "3*c'(1)/phi**2"}``):
+        the label names its column, its variable and its axis.
     store : path, optional
         SQLite file; a rerun with the same store solves only what is missing.
     executor : concurrent.futures.Executor or distributed.Client, optional
@@ -531,10 +533,7 @@ def sweep(
         raise OptionError(f"sweep() takes a bvpkit.Problem, got {type(problem).__name__}")
     prepared = prepare(problem)
     axes = _axes(prepared, grid)
-    labels = {}
-    named = prepared.outputs
-    for text in outputs if outputs is not None else list(named):
-        labels[text] = named.get(text, text)
+    labels = output_labels(prepared.outputs, outputs)
     if isinstance(chunk, bool) or not isinstance(chunk, int) or chunk < 1:
         raise OptionError(f"chunk must be a whole number of at least 1, got {chunk!r}")
     options = {k: v for k, v in {"tol": tol, "method": method}.items() if v is not None}
