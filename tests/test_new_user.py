@@ -55,7 +55,7 @@ def test_a_requested_value_gives_one_row_per_crossing_and_no_near_duplicates():
 
 
 def test_thinning_keeps_the_requested_point_of_a_near_duplicate_pair():
-    from bvpkit.continuation import Branch, Fold
+    from bvpkit.families.continuation import Branch, Fold
 
     b = Branch("lam", {"y(0)": "y(0)"})
     marks = [object() for _ in range(5)]
@@ -75,7 +75,7 @@ def test_a_trace_stopped_by_its_budget_of_points_says_so_with_a_status_and_exit_
     import json
     from pathlib import Path
 
-    from bvpkit.cli import main
+    from bvpkit.io.cli import main
     from bvpkit.status import Status
 
     spec = Path(__file__).resolve().parent.parent / "specs/reacting_slab_ignition.toml"
@@ -199,7 +199,7 @@ far = "{far}"
     ("auto", "y(2)", "[outputs] output 'far' (y(2)): the point x = 2 lies outside the domain [0, 1]"),
 ])
 def test_check_refuses_what_solve_refuses_naming_it(command, method, far, said, tmp_path, capsys):
-    from bvpkit.cli import main
+    from bvpkit.io.cli import main
 
     spec = tmp_path / "s.toml"
     spec.write_text(CHECKED.format(method=method, far=far))
@@ -221,7 +221,7 @@ def test_solve_draws_the_profile_with_its_outputs_marked(tmp_path, capsys):
     pytest.importorskip("matplotlib")
     from pathlib import Path
 
-    from bvpkit.cli import main
+    from bvpkit.io.cli import main
 
     spec = Path(__file__).resolve().parent.parent / "specs/pin_fin.toml"
     picture = tmp_path / "fin.png"
@@ -270,7 +270,7 @@ def test_trace_and_fold_curve_tables_carry_each_points_error_estimate(tmp_path, 
     import csv
     from pathlib import Path
 
-    from bvpkit.cli import main
+    from bvpkit.io.cli import main
 
     spec = Path(__file__).resolve().parent.parent / "specs/reacting_slab_ignition.toml"
     out = tmp_path / "b.csv"
@@ -335,7 +335,7 @@ def test_a_missing_table_library_names_the_extra(monkeypatch):
     (1, 2.404825557695773**2),  # analytic: cylinder, v = J0(j r), j the first zero of J0 (scipy.special.jn_zeros)
 ])
 def test_the_principal_eigenvalue_of_diffusion_in_a_sphere_and_a_cylinder(power, first):
-    from bvpkit.stability import principal_eigenvalue
+    from bvpkit.families.stability import principal_eigenvalue
 
     p = bvpkit.Problem([f"y'' + ({power}/r)*y' + d*exp(y) = 0"], ["y'(0) = 0", "y(1) = 0"], (0, 1), independent="r",
                        constants={"d": 1e-9})
@@ -356,7 +356,7 @@ def test_a_sphere_that_ignites_is_stable_below_its_fold_and_unstable_above():
 
 # -- one name for the branch switch ------------------------------------------------------------------------
 def test_the_branch_switch_has_one_name_everywhere_and_the_old_ones_still_work():
-    from bvpkit.cli import _parser
+    from bvpkit.io.cli import _parser
 
     for flag in ("--no-branch-switching", "--no-switch"):
         assert _parser().parse_args(["trace", "s.toml", flag]).no_switch is True
@@ -373,7 +373,7 @@ def test_the_branch_switch_has_one_name_everywhere_and_the_old_ones_still_work()
 def test_set_on_an_unknown_parameter_says_where_its_start_is_given(capsys):
     from pathlib import Path
 
-    from bvpkit.cli import main
+    from bvpkit.io.cli import main
 
     spec = Path(__file__).resolve().parent.parent / "specs/fin_length_for_tip.toml"
     assert main(["solve", str(spec), "--set", "L=6"]) == bvpkit.Status.BAD_INPUT.exit_code

@@ -1,6 +1,6 @@
 """Figures ready for a report: every output on its panel, units in the labels, folds in the
 legend, smooth branches, design charts with one curve per slower value and log axes on
-geometric grids (bvpkit.plots, reached through Branch.plot and SweepResult.plot)."""
+geometric grids (bvpkit.io.plots, reached through Branch.plot and SweepResult.plot)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 import bvpkit
-from bvpkit import plots
+from bvpkit.io import plots
 from bvpkit.errors import OptionError
 
 pytest.importorskip("matplotlib")
@@ -128,7 +128,7 @@ def test_asking_for_an_output_the_result_lacks_names_what_it_has(branch, chart, 
 
 
 def test_cli_plots_carry_the_spec_title_and_units(tmp_path, monkeypatch, capsys):
-    from bvpkit import cli
+    from bvpkit.io import cli
 
     spec = tmp_path / "fin.toml"
     spec.write_text("""
@@ -181,7 +181,7 @@ def test_the_formats_a_plot_name_is_judged_by_without_matplotlib_are_ones_it_wri
     # name that matplotlib would then refuse
     from matplotlib.backend_bases import FigureCanvasBase
 
-    from bvpkit.cli import PICTURE_FORMATS
+    from bvpkit.io.cli import PICTURE_FORMATS
 
     assert set(PICTURE_FORMATS) <= set(FigureCanvasBase.get_supported_filetypes())
     assert "png" in PICTURE_FORMATS and "pdf" in PICTURE_FORMATS and "svg" in PICTURE_FORMATS

@@ -31,8 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..diagnostics import Hermite, hermite, stability_constant
-from ..discrete import CollocationEquations, SingularMatrix
+from .diagnostics import Hermite, hermite, stability_constant
+from .discrete import CollocationEquations, SingularMatrix
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -222,7 +222,7 @@ class Collocation(Method):
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
     rank = 0
     strengths = frozenset({"layers", "default"})
-    takes_singular_term = True
+    takes = frozenset({"singular_term"})
 
     def _solve_and_verify(self, trial: Trial) -> Outcome:
         """The base class's solve and error estimate; a miss of the tolerance where the residual

@@ -12,7 +12,7 @@ meets the equations at the four Lobatto points ``c = 0, (5 - sqrt 5)/10, (5 + sq
 Newton's method on the nodes, the two interior stages and the parameters; the stages are
 eliminated interval by interval (batched dense solves, no Python work per interval), which
 leaves the bordered block-bidiagonal matrix of 4th-order collocation for the nodes,
-factored by :func:`bvpkit.discrete.factor_blocks`.
+factored by :func:`bvpkit.methods.discrete.factor_blocks`.
 
 Error control and estimate: every solve is repeated on the halved mesh; their difference,
 at the output points and between them (through the C1 cubic interpolant a ``Solution``
@@ -31,8 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..diagnostics import stability_constant
-from ..discrete import SingularMatrix, factor_blocks, one_blas_thread
+from .diagnostics import stability_constant
+from .discrete import SingularMatrix, factor_blocks, one_blas_thread
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -250,7 +250,7 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
     """Per interval of the coarse mesh, the largest relative difference ``|u - u_fine| / (1 +
     |u_fine|)`` at its output points and between them (the coarse output's C1 cubic, as a
     Solution evaluates it, against the fine polynomials)."""
-    from ..diagnostics import hermite
+    from .diagnostics import hermite
 
     xo, yo = coarse.output()
     mid = 0.5 * (xo[1:] + xo[:-1])
@@ -283,15 +283,11 @@ class SixthOrderCollocation(Method):
     #: "tight": the method to prefer at tight tolerances on smooth problems (its cost per
     #: digit falls with the order).
     strengths = frozenset({"tight"})
-    takes_singular_term = False
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x0, y0 = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
         p = np.asarray(trial.p, float)
-        if c.layout.singular:
-            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end; use collocation",
-                           x0, y0, p)
         if x0.size < 2 or not np.all(np.diff(x0) > 0):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x0, y0, p)
         if not (np.isfinite(y0).all() and np.isfinite(p).all()):

@@ -27,8 +27,8 @@ import math
 import numpy as np
 import scipy.sparse as sparse
 
-from ..diagnostics import hermite, survey
-from ..discrete import SingularMatrix, factor_blocks
+from .diagnostics import hermite, survey
+from .discrete import SingularMatrix, factor_blocks
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -80,7 +80,7 @@ class _Flow:
 class Shooting(Method):
     """Shared engine; subclasses fix how segments are chosen."""
 
-    takes_singular_term = False  # the sensitivities of a start off S y(0) = 0 blow up at t = 0
+    # takes no singular term: the sensitivities of a start off S y(0) = 0 blow up at t = 0
 
     fixed_segments: int | None = None  # 1 for single shooting
 
@@ -122,9 +122,6 @@ class Shooting(Method):
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x, y, p = np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float)
-        if c.layout.singular:
-            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end (a term like "
-                           "(2/x) y'); shooting would need a series start there: use collocation", x, y, p)
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
         facts = survey(c, x, y, p, k)

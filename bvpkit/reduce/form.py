@@ -1,0 +1,578 @@
+"""Every problem, reduced to one standard form.
+
+The standard form is the one kind of problem every method solves (Ascher and Russell,
+"Reformulation of boundary value problems into standard form", SIAM Review 23 (1981)
+238-254)::
+
+    dY/dt = F(t, Y, p, k) + S Y / t,   0 <= t <= 1,   G(Y(0), Y(1), p, k) = 0
+
+with ``Y`` the states, ``p`` the unknown parameters (as many conditions more than states),
+``k`` the constants (known values, changed without new code) and ``S`` the matrix of a term
+singular at ``t = 0`` (zero for most problems). The core steps are here:
+
+* :func:`_first_order` -- highest derivatives isolated; the state layout ``f, f', f'', g``;
+* :func:`_given_conditions` -- the user's conditions in symbols of point values;
+* :func:`_map` -- each region ``[X_r, X_r+1]`` mapped onto ``[0, 1]`` by ``x = c_r + h_r t``:
+  a fixed end, or an unknown one (free boundary: ``h_r`` holds the parameter);
+* :func:`_assemble` -- the regions' states stacked into one ``Y``; every state continuous at
+  an interface unless a condition takes its one-sided values; conditions at any point become
+  conditions on ``Y(0)`` and ``Y(1)``.
+
+Each problem class is one transform object in a module of its own (integral conditions,
+eigenvalues, periodic orbits, weak end singularities, the singular term, infinite ends:
+:mod:`bvpkit.reduce.classes` lists them), whose symbolic hooks :func:`_build` runs on a
+:class:`Reduction` at fixed points of the steps above (:mod:`bvpkit.reduce.transform`).
+
+Two transforms of a finished standard form serve the selector's continuation from an easy
+problem (:func:`path_form`): the nonlinear terms scaled by ``_homotopy`` (0: the problem
+linearised about a constant state, 1: the user's), and the domain shortened by ``_reach``.
+
+Nothing outside the reduce stage knows which classes a problem belongs to: the methods see
+the standard form only; the driver, continuation and settling call the transforms' hooks; one
+map (``x = c_r + h_r t`` and
+the state rows of each region, kept in :class:`StandardForm`) takes a solution back to the
+user's variable and states. User names never reach generated code: states are ``_y0``,
+``_y1``, ..., parameters ``_p0``, constants ``_k0``, the variable ``_x``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+from dataclasses import dataclass, field, fields
+from typing import Any
+
+import sympy as sp
+from sympy.core.function import AppliedUndef
+
+from ..errors import ProblemError
+from ..generated.codegen import X  # the method variable t (named _x in generated code)
+from ..generated.layout import StateLayout, States
+from ..language.budget import budget, check_sizes
+
+#: The user's (physical) variable while a region's system is being formed.
+_PHYSICAL = sp.Symbol("_xphys", real=True)
+
+
+
+def _symbols(prefix: str, n: int) -> tuple[sp.Symbol, ...]:
+    return tuple(sp.Symbol(f"_{prefix}{i}", real=True) for i in range(n))
+
+
+@dataclass(frozen=True)
+class StandardForm(States):
+    """A problem in the standard form (see the module docstring), as SymPy expressions.
+
+    Attributes
+    ----------
+    independent : str
+        The user's name of the independent variable.
+    functions : tuple of (str, int)
+        The unknown functions and their orders.
+    states : tuple of (str, int)
+        One region's states: ``(function, derivative order)`` for the user's states, then
+        ``(description, 0)`` for the added ones (integrals, the normalisation).
+    users : int
+        User states per region (the first ``users`` of ``states``).
+    regions : int
+        Regions; ``Y`` stacks ``regions`` copies of ``states``.
+    rhs : tuple of sympy.Expr, length regions * len(states)
+        ``F(t, Y, p, k)`` in the symbols ``X``, ``y``, ``p``, ``k``.
+    conditions : tuple of sympy.Expr
+        ``G`` in ``ya``, ``yb``, ``p``, ``k``; one per state of ``Y`` plus one per parameter.
+    condition_kinds : tuple of str
+        ``given`` (the user's), ``continuity`` (of a user state at an interface),
+        ``added`` (of an added state), ``phase``.
+    parameters, constants : tuple of str
+        Names of ``p`` and ``k``; constants of a region's own are ``name@r`` and the
+        truncation length of an infinite end is ``_length``.
+    maps : tuple of (sympy.Expr, sympy.Expr)
+        Per region, ``(c_r, h_r)`` with ``x = c_r + h_r t``, in ``p`` and ``k``.
+    points : tuple of sympy.Expr
+        The ends and interfaces in ``p`` and ``k`` (``oo`` for an infinite end).
+    singular : tuple of tuple of sympy.Expr, or None
+        ``S`` (size of ``Y``), nonzero in the first region's rows only.
+    point_conditions : (tuple of sympy.Expr, tuple of (str, int, int, int))
+        The user's conditions in point-value symbols, and what each symbol is:
+        ``(symbol name, state, point, side)``; read by the default guess.
+    stretch : tuple of int
+        Per region, the power ``d`` of its map ``x = c_r + h_r t**d`` (empty: every map
+        affine, ``d = 1``); see :mod:`bvpkit.reduce.stretch`.
+    transforms : tuple of Transform
+        The problem's classes, as the plain-data objects whose numerical hooks the solve
+        driver, continuation and settling call (:mod:`bvpkit.reduce.transform`).
+    """
+
+    independent: str
+    functions: tuple[tuple[str, int], ...]
+    states: tuple[tuple[str, int], ...]
+    users: int
+    regions: int
+    rhs: tuple
+    conditions: tuple
+    condition_kinds: tuple[str, ...]
+    parameters: tuple[str, ...]
+    constants: tuple[str, ...]
+    maps: tuple
+    points: tuple
+    singular: tuple | None = None
+    point_conditions: tuple = ()
+    stretch: tuple = ()
+    transforms: tuple = ()
+    y: tuple = field(init=False, repr=False)
+    ya: tuple = field(init=False, repr=False)
+    yb: tuple = field(init=False, repr=False)
+    p: tuple = field(init=False, repr=False)
+    k: tuple = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        n = len(self.rhs)
+        object.__setattr__(self, "y", _symbols("y", n))
+        object.__setattr__(self, "ya", _symbols("ya", n))
+        object.__setattr__(self, "yb", _symbols("yb", n))
+        object.__setattr__(self, "p", _symbols("p", len(self.parameters)))
+        object.__setattr__(self, "k", _symbols("k", len(self.constants)))
+
+    def key(self) -> str:
+        """A content hash: equal forms have equal keys (the compiled-code cache key)."""
+        cached = self.__dict__.get("_key")
+        if cached is None:
+            text = repr(tuple(getattr(self, f.name) for f in fields(self) if f.init))
+            cached = hashlib.sha256(text.encode()).hexdigest()[:32]
+            object.__setattr__(self, "_key", cached)
+        return cached
+
+    def layout(self) -> StateLayout:
+        """The plain facts of this form (what the numerical side needs; no SymPy)."""
+        return StateLayout(
+            key=self.key(), independent=self.independent, functions=self.functions, states=self.states,
+            users=self.users, regions=self.regions, parameters=self.parameters, constants=self.constants,
+            condition_kinds=self.condition_kinds, singular=self.singular is not None, stretch=tuple(self.stretch),
+        )
+
+
+_MEMO: dict[str, StandardForm] = {}
+
+
+def standard_form(problem) -> StandardForm:  # noqa: ANN001 - a bvpkit.Problem (imports us lazily)
+    """The standard form of a validated :class:`~bvpkit.Problem` (kept per problem structure).
+
+    Raises
+    ------
+    ProblemError
+        When the highest derivatives cannot be isolated (a differential-algebraic system,
+        or a highest derivative that appears nonlinearly), a singular term is of a kind
+        bvpkit does not treat, or an eigenvalue problem is not linear.
+    """
+    key = problem.key()
+    found = _MEMO.get(key)
+    if found is None:
+        found = _build(problem)
+        if len(_MEMO) > 500:
+            _MEMO.clear()
+        _MEMO[key] = found
+    return found
+
+
+@dataclass
+class Names:
+    """The names of a problem's constants ``k`` and parameters ``p`` and their internal symbols.
+
+    The lists are filled first (the problem's own names, then each class's, see
+    :meth:`bvpkit.reduce.transform.Transform.names`); :meth:`seal` then makes the symbols."""
+
+    constants: list[str]
+    parameters: list[str]
+    own_names: list[dict] = field(default_factory=list)  # per region: name -> index in constants
+    k: dict = field(default_factory=dict)  # user Symbol -> k symbol (the problem's values)
+    p: dict = field(default_factory=dict)
+    own: list[dict] = field(default_factory=list)  # per region: user Symbol -> k symbol of its own value
+
+    def seal(self, problem) -> None:  # noqa: ANN001
+        k = _symbols("k", len(self.constants))
+        p = _symbols("p", len(self.parameters))
+        self.k = {sp.Symbol(c): k[i] for i, c in enumerate(problem.constants)}
+        self.p = {sp.Symbol(q): p[i] for i, q in enumerate(self.parameters)}
+        self.own = [{sp.Symbol(name): k[i] for name, i in own.items()} for own in self.own_names]
+
+    def symbol(self, name: str) -> sp.Symbol:
+        """The ``k`` symbol of a constant added by a class (``_length``)."""
+        return sp.Symbol(f"_k{self.constants.index(name)}", real=True)
+
+    def region(self, r: int) -> dict:
+        return {**self.k, **self.own[r], **self.p}
+
+
+def _names(problem, classes) -> Names:  # noqa: ANN001
+    constants = list(problem.constants)
+    own_names: list[dict] = []
+    for r, region in enumerate(problem.regions):
+        own = {}
+        for name in region.constants:
+            constants.append(f"{name}@{r + 1}")
+            own[name] = len(constants) - 1
+        own_names.append(own)
+    names = Names(constants, list(problem.unknown_parameters), own_names)
+    for cls in classes:
+        cls.names(problem, names)
+    names.seal(problem)
+    return names
+
+
+@dataclass
+class Reduction:
+    """A problem on its way to the standard form: what the transforms' symbolic hooks read and
+    change (see :mod:`bvpkit.reduce.transform`).
+
+    Attributes
+    ----------
+    problem : Problem
+    names : Names
+    user_states, states : list of (str, int)
+        One region's user states, and all its states (user states, then added ones).
+    local : tuple of sympy.Symbol
+        One region's state symbols while its system is formed (room for every added state).
+    systems : list of list of sympy.Expr
+        Per region, the right-hand sides in the user's variable ``_xphys`` and ``local``.
+    substitutions : dict
+        Replacements made in every given condition (an integral by its added state's end value).
+    given : list of sympy.Expr
+        The user's conditions in point-value symbols (see :meth:`value`).
+    conditions : list of (sympy.Expr, str)
+        Every condition and its kind (``given``, ``added``, ``phase``, ``continuity``).
+    points : tuple of sympy.Expr
+        Ends and interfaces in the symbols of ``k`` and ``p``.
+    ends : tuple of sympy.Expr
+        The ends the regions' maps run between (in ``xi`` after a stretch).
+    power : int
+        The power ``d`` of a stretch ``x - a = xi**d`` (1: none).
+    singular : list of list of sympy.Expr or None
+        ``S`` of a term ``S y / (x - a)`` of the first region (one region's size).
+    maps : list of (sympy.Expr, sympy.Expr)
+        Per region ``(c_r, h_r)``: ``x = c_r + h_r t``.
+    """
+
+    problem: Any
+    names: Names
+    user_states: list
+    states: list
+    local: tuple
+    systems: list
+    substitutions: dict = field(default_factory=dict)
+    given: list = field(default_factory=list)
+    conditions: list = field(default_factory=list)
+    points: tuple = ()
+    ends: tuple = ()
+    power: int = 1
+    singular: list | None = None
+    maps: list = field(default_factory=list)
+    values: dict = field(default_factory=dict)
+    scratch: dict = field(default_factory=dict)  # what a class keeps between its own hooks, by kind
+
+    @property
+    def last(self) -> int:
+        """Index of the right end in ``points``."""
+        return len(self.problem.points) - 1
+
+    def value(self, state: int, point: int, side: int) -> sp.Symbol:
+        """The symbol of a state's value at an end or interface (``side`` -1: from the left)."""
+        side = side or (1 if point == 0 else -1)  # written f(L): continuous there, read from the left
+        if (point == 0 and side < 0) or (point == self.last and side > 0):  # pragma: no cover - refused by Problem
+            raise ProblemError("a one-sided value outside the domain")
+        return self.values.setdefault((state, point, side), sp.Symbol(f"_v{state}_{point}_{side}", real=True))
+
+    def add_state(self, description: str, rhs_per_region: list) -> int:
+        """An added state (``(description, 0)``) with its right-hand side in each region."""
+        self.states.append((description, 0))
+        for system, f in zip(self.systems, rhs_per_region):
+            system.append(f)
+        return len(self.states) - 1
+
+    @property
+    def parameter_symbols(self) -> set:
+        return set(self.names.p.values())
+
+    def spoken(self, e: Any) -> str:
+        """``e`` printed with the user's names (``x``, ``y'``, ``L``) in place of the internal
+        symbols, for messages; the independent variable is ``xi`` after a stretch."""
+        swap = {_PHYSICAL: sp.Symbol("xi" if self.power > 1 else self.problem.independent)}
+        for i, (name, order) in enumerate(self.states):
+            swap[self.local[i]] = sp.Symbol(name + "'" * order)
+        for table in (self.names.k, self.names.p, *self.names.own):
+            swap.update({internal: user for user, internal in table.items()})
+        return sp.sstr(e.xreplace(swap)) if isinstance(e, sp.Basic) else str(e)
+
+
+def _build(problem) -> StandardForm:  # noqa: ANN001
+    from .classes import PIPELINE
+
+    classes = [cls for cls in PIPELINE if cls.applies(problem)]
+    names = _names(problem, classes)
+    functions = tuple((f, problem.orders[f]) for f in problem.unknowns)
+    user_states = tuple((f, j) for f, order in functions for j in range(order))
+    room = len(user_states) + sum(cls.room(problem) for cls in classes)
+    local = _symbols("s", room)  # one region's states while its system is formed
+    # 1. each region's first-order system in the user's variable
+    systems = [_first_order(problem, region, user_states, local, names.region(r))
+               for r, region in enumerate(problem.regions)]
+    work = Reduction(problem, names, list(user_states), list(user_states), local, systems)
+    work.points = tuple(p.xreplace(names.region(0)) for p in problem.points)
+    # 2. added states (integrals of the conditions, the eigenvalue's normalisation)
+    for cls in classes:
+        cls.states(work)
+    # 3. conditions: the user's, each class's, continuity at interfaces
+    work.given = _given_conditions(work)
+    work.conditions = [(c, "given") for c in work.given]
+    for cls in classes:
+        cls.conditions(work)
+    for j in range(1, work.last):
+        for i, (name, order) in enumerate(work.states):
+            if i < len(user_states) and (name, order) in problem.jumps[j]:
+                continue
+            kind = "continuity" if i < len(user_states) else "added"
+            work.conditions.append((work.value(i, j, -1) - work.value(i, j, 1), kind))
+    # 4. rewrites of the equations (a stretch of the variable, the singular term)
+    work.ends = work.points
+    for cls in classes:
+        cls.system(work)
+    # 5. the map of each region onto [0, 1], then each class's
+    work.maps = _map(work.ends)
+    for cls in classes:
+        cls.maps(work)
+    return _assemble(work, [t for t in (cls.finish(work) for cls in classes) if t is not None])
+
+
+def _assemble(work: Reduction, transforms: list) -> StandardForm:
+    """The regions' systems mapped onto ``[0, 1]`` and stacked into one ``Y``; conditions on
+    ``Y(0)`` and ``Y(1)``."""
+    problem, names, systems = work.problem, work.names, work.systems
+    rhs = []
+    for r, system in enumerate(systems):
+        c, h = work.maps[r]
+        for f in system:
+            rhs.append(h * f.xreplace({_PHYSICAL: c + h * X}))
+    n_region = len(work.states)
+    total = n_region * len(systems)
+    y = _symbols("y", total)
+    for r in range(len(systems)):
+        swap = {work.local[i]: y[r * n_region + i] for i in range(n_region)}
+        for i in range(n_region):
+            rhs[r * n_region + i] = rhs[r * n_region + i].xreplace(swap)
+    ya, yb = _symbols("ya", total), _symbols("yb", total)
+    ends = {}
+    for (state, point, side), symbol in work.values.items():
+        ends[symbol] = yb[(point - 1) * n_region + state] if side < 0 else ya[point * n_region + state]
+    stacked = [c.xreplace(ends) for c, _ in work.conditions]
+    matrix = None
+    if work.singular is not None:
+        S = work.singular
+        matrix = tuple(
+            tuple(S[i][j] if i < n_region and j < n_region else sp.Integer(0) for j in range(total))
+            for i in range(total)
+        )
+    maps = list(work.maps)
+    if work.power > 1:  # the map in the user's variable: x = a + (h_xi t)**d
+        maps = [(work.points[0], maps[0][1] ** work.power)]
+    names_of_values = tuple((symbol.name, state, point, side) for (state, point, side), symbol in work.values.items())
+    return StandardForm(
+        independent=problem.independent,
+        functions=tuple((f, problem.orders[f]) for f in problem.unknowns),
+        states=tuple(work.states),
+        users=len(work.user_states),
+        regions=len(systems),
+        rhs=tuple(rhs),
+        conditions=tuple(stacked),
+        condition_kinds=tuple(kind for _, kind in work.conditions),
+        parameters=tuple(names.parameters),
+        constants=tuple(names.constants),
+        maps=tuple(maps),
+        points=work.points,
+        singular=matrix,
+        point_conditions=(tuple(work.given), names_of_values),
+        stretch=(work.power,) if work.power > 1 else (),
+        transforms=tuple(transforms),
+    )
+
+
+# -- the transforms -------------------------------------------------------------------------
+def _first_order(problem, region, user_states, local, names) -> list:  # noqa: ANN001
+    """One region's equations as ``s' = f(x, s, p, k)`` over the user states."""
+    x = problem.x
+    tops = {name: sp.Symbol(f"_top_{name}", real=True) for name in problem.unknowns}
+    replace: dict = dict(names)
+    replace[x] = _PHYSICAL
+    for i, (name, order) in enumerate(user_states):
+        f = sp.Function(name)(x)
+        replace[f if order == 0 else sp.Derivative(f, (x, order))] = local[i]
+    for name in problem.unknowns:
+        f = sp.Function(name)(x)
+        replace[sp.Derivative(f, (x, problem.orders[name]))] = tops[name]
+    equations = [eq.xreplace(replace) for eq in region.equations]
+    for eq, text in zip(equations, region.equation_text):
+        leftover = eq.atoms(AppliedUndef, sp.Derivative)
+        if leftover:  # pragma: no cover - Problem validation prevents this
+            raise ProblemError(f"equation ({text}): could not read {sorted(map(str, leftover))[0]}")
+    with budget("isolating the highest derivatives", advice="write each equation solved for its highest derivative"):
+        solved = _isolate(equations, [tops[n] for n in problem.unknowns], problem)
+    check_sizes({f"the expression of {n}{chr(39) * problem.orders[n]}": e for n, e in zip(problem.unknowns, solved)},
+                step="isolating the highest derivatives")
+    rhs = []
+    for i, (name, order) in enumerate(user_states):
+        rhs.append(local[i + 1] if order + 1 < problem.orders[name] else solved[problem.unknowns.index(name)])
+    return rhs
+
+
+def _local_replace(problem, user_states, local) -> dict:  # noqa: ANN001
+    x = problem.x
+    replace = {x: _PHYSICAL}
+    for i, (name, order) in enumerate(user_states):
+        f = sp.Function(name)(x)
+        replace[f if order == 0 else sp.Derivative(f, (x, order))] = local[i]
+    return replace
+
+
+def _given_conditions(work: Reduction) -> list:
+    """The user's conditions with point values (and integrals) as point-value symbols."""
+    problem, names = work.problem, work.names
+    result = []
+    for c in problem.conditions:
+        swap: dict = dict(work.substitutions)
+        for pv in problem.point_values(c):
+            j = problem.which_point(pv.point)
+            swap[pv.node] = work.value(work.user_states.index((pv.name, pv.order)), j, pv.side)
+        swap.update({s: names.k.get(s, names.p.get(s)) for s in c.free_symbols if s in names.k or s in names.p})
+        result.append(c.xreplace(swap))
+    return result
+
+
+def _map(ends: tuple) -> list:
+    """Per region ``(c_r, h_r)``: ``x = c_r + h_r t`` maps ``t`` in ``[0, 1]`` onto the region
+    (None where an end is infinite: :mod:`bvpkit.reduce.infinite` places it)."""
+    maps = []
+    for left, right in zip(ends[:-1], ends[1:]):
+        finite = left not in (sp.oo, -sp.oo) and right not in (sp.oo, -sp.oo)
+        maps.append((left, right - left) if finite else None)
+    return maps
+
+
+# -- forms for continuation from an easy problem (the selector's fallback) ----------------------
+#: The constant that scales the nonlinear terms: 0 the linearised problem, 1 the user's.
+HOMOTOPY = "_homotopy"
+#: The fraction of the domain solved (a single region shortened towards its left end).
+REACH = "_reach"
+#: Prefix of the constants holding the state about which the nonlinear terms are linearised.
+ANCHOR = "_anchor"
+
+
+def path_form(form: StandardForm) -> StandardForm:
+    """``form`` with the constants ``_homotopy`` (``s``), ``_reach`` (``r``) and one anchor
+    ``c_i`` per state added (user names cannot start with ``_``): the right-hand side becomes
+
+        F_s = L + s (F - L),   L = F(t, c) + dF/dY(t, c) (Y - c)
+
+    (rows linear in ``Y`` are left as they are), and the conditions likewise in ``Y(0)``,
+    ``Y(1)``. At ``s = 1`` this is the user's problem; at ``s = 0`` it is linear in the
+    states, the nonlinear terms replaced by their tangent at the constant state ``c`` (``c =
+    0``: the nonlinear terms dropped, so Blasius' ``f''' + f f''/2 = 0`` becomes
+    ``f''' = 0``; another ``c`` where the terms are not defined at 0, as ``sqrt(y)``), and one
+    Newton step solves it. Linearising about a constant rather than about the guess keeps
+    the path a problem of its own (the same code whatever the guess) and its start
+    independent of a guess that may be poor.
+
+    For a single region, ``t`` is also scaled by ``r``: ``dY/dt = r F_s(r t, Y)``, the map's
+    length multiplied by ``r`` (``r**d`` for a stretched map): the problem on the first
+    ``r``-th of the domain with the right end's conditions there, which grows the domain
+    from a short one where a far-field condition is easy to meet. Parameters are not
+    linearised.
+    """
+    n = len(form.rhs)
+    constants = (*form.constants, HOMOTOPY, REACH, *(f"{ANCHOR}{i}" for i in range(n)))
+    k = _symbols("k", len(constants))
+    s, r = k[len(form.constants)], k[len(form.constants) + 1]
+    anchors = k[len(form.constants) + 2:]
+
+    def scaled(e: sp.Expr, variables: list, at: dict) -> sp.Expr:
+        used = [v for v in variables if v in e.free_symbols]
+        gradient = [sp.diff(e, v) for v in used]
+        if not any(g.has(*variables) for g in gradient):
+            return e  # linear in the states already
+        tangent = e.xreplace(at) + sum(g.xreplace(at) * (v - at[v]) for g, v in zip(gradient, used))
+        return tangent + s * (e - tangent)
+
+    with budget("forming the linearised problem of the continuation"):
+        rhs = [scaled(f, list(form.y), dict(zip(form.y, anchors))) for f in form.rhs]
+        ends = {**dict(zip(form.ya, anchors)), **dict(zip(form.yb, anchors))}
+        conditions = tuple(scaled(g, [*form.ya, *form.yb], ends) for g in form.conditions)
+    maps, points = form.maps, form.points
+    if form.regions == 1:
+        rhs = [r * f.xreplace({X: r * X}) for f in rhs]
+        power = form.stretch[0] if form.stretch else 1
+        c, h = form.maps[0]
+        maps = ((c, h * r**power),)
+        points = (form.points[0], c + h * r**power)
+    return dataclasses.replace(form, rhs=tuple(rhs), conditions=conditions, constants=constants, maps=maps,
+                               points=points)
+
+
+# -- helpers ---------------------------------------------------------------------------------
+def _as_written(e: sp.Expr, problem) -> str:  # noqa: ANN001
+    """``e`` printed as a person writes it: ``y'`` rather than ``Derivative(y(x), x)``."""
+    swap = {}
+    for d in e.atoms(sp.Derivative):
+        swap[d] = sp.Symbol(d.expr.func.__name__ + "'" * d.derivative_count)
+    for f in e.atoms(AppliedUndef):
+        swap[f] = sp.Symbol(f.func.__name__)
+    return sp.sstr(e.xreplace(swap))
+
+
+def _blows_up(e: sp.Expr) -> bool:
+    return bool(e.has(sp.zoo, sp.nan, sp.oo, -sp.oo))
+
+
+def _one_each(equations: list[sp.Expr], tops: list[sp.Symbol]) -> list[sp.Expr] | None:
+    """Each equation holding one highest derivative linearly, each a different one (the
+    usual case): each solved on its own, in time linear in the number of equations (the
+    whole-system Jacobian below has n^2 entries). None when that is not the case."""
+    wanted = set(tops)
+    solved = {}
+    for eq in equations:
+        held = eq.free_symbols & wanted
+        if len(held) != 1:
+            return None
+        (t,) = held
+        coefficient = sp.diff(eq, t)
+        if t in solved or coefficient == 0 or coefficient.has(t):
+            return None
+        solved[t] = -eq.xreplace({t: 0}) / coefficient
+    return [solved[t] for t in tops] if len(solved) == len(tops) else None
+
+
+def _isolate(equations: list[sp.Expr], tops: list[sp.Symbol], problem) -> list[sp.Expr]:  # noqa: ANN001
+    names = [f"{n}{chr(39) * problem.orders[n]}" for n in problem.unknowns]
+    one_each = _one_each(equations, tops)
+    if one_each is not None:
+        return one_each
+    jac = sp.Matrix(equations).jacobian(tops)
+    if not any(jac.has(t) for t in tops):
+        # Linear in the highest derivatives: one exact linear solve.
+        rest = sp.Matrix([eq.xreplace({t: 0 for t in tops}) for eq in equations])
+        if jac.is_diagonal() and all(jac[i, i] != 0 for i in range(len(tops))):
+            return [-rest[i] / jac[i, i] for i in range(len(tops))]  # each equation holds its own: no O(n^3) LU
+        if len(tops) == 1:
+            if jac[0, 0] == 0:
+                raise ProblemError(f"the equation does not contain {names[0]}")
+            return [-rest[0] / jac[0, 0]]
+        if jac.rank(simplify=True) < len(tops):
+            raise ProblemError(
+                f"the equations cannot be solved for the highest derivatives {', '.join(names)} "
+                "(they form a differential-algebraic system); differentiate a constraint or "
+                "rewrite the system"
+            )
+        return list(jac.LUsolve(-rest))
+    # A symbolic solve for highest derivatives that appear nonlinearly can run for minutes and
+    # mostly finds several roots or none: refused at once, with what to write instead.
+    nonlinear = [name for name, t in zip(names, tops) if any(entry.has(t) for entry in jac)]
+    raise ProblemError(
+        f"highest derivatives that appear nonlinearly ({', '.join(nonlinear)}) are not isolated by bvpkit: "
+        f"write each equation solved for its highest derivative ({nonlinear[0]} = ...)"
+    )

@@ -1,0 +1,779 @@
+"""Continuation from an easy problem to the user's: the selector's fallback when the methods
+fail from the default guess, and its diagnosis of a value with no solution near it.
+
+Three paths, each a one-parameter family of problems that ends at the user's:
+
+* **nonlinear terms scaled** (``_homotopy`` from 0 to 1, :func:`bvpkit.reduce.form.path_form`):
+  at 0 the problem is linear (its nonlinear terms replaced by their tangent at a constant
+  state) and one Newton step solves it;
+* **a small constant multiplying the highest derivative** (``eps y'' + ...``), continued
+  down from ``_EASY``, where a layer is a few mesh intervals wide, in geometric steps;
+* **the domain grown** (``_reach`` from a domain of unit length to the whole): a far-field
+  condition (``f'(L) = 1``, or an infinite end) is easy to meet on a short domain.
+
+A user may name the constant to continue in (``homotopy = "eps"``): from ``_EASY`` down for a
+small constant multiplying the highest derivative, else from 0 to its value.
+
+Each path is followed by natural continuation with step control: collocation at a loose
+tolerance (``_PATH_TOL``; the intermediate solutions only start Newton's method at the next
+value), from a secant prediction, the step doubled after an easy solve and halved after a
+failure. When the steps fail to advance (the path turns back at a fold), the pseudo-arclength
+machinery of :func:`bvpkit.families.continuation.trace` follows it around the turn, so a turn is not a
+failure. The last solution of the path starts the user's problem, solved by collocation at
+the tolerance asked, with its error estimate: the path only supplies a guess.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ..methods.base import Outcome, Trial
+from ..status import Status
+
+#: Tolerance of the solves along a path: they start Newton's method at the next value, so a
+#: coarse mesh is enough; the user's problem at the end is solved at the tolerance asked.
+_PATH_TOL = 1e-3
+#: A constant multiplying a highest derivative counts as small below this (relative to one).
+_SMALL = 0.05
+#: Where the continuation of a small constant starts: a layer of width 0.1 (or sqrt 0.1) of a
+#: unit domain is resolved by the first mesh of 41 nodes.
+_EASY = 0.1
+#: First step: a quarter of the way (geometric paths: a factor of 4 per step at most).
+_FIRST_FRACTION = 0.25
+_GROW, _SHRINK = 2.0, 0.5
+#: Smallest step, as a fraction of the whole path, before the turn is handed to trace().
+_MIN_FRACTION = 1.0 / 128
+#: Length (in the user's variable) of the short domain the growing path starts from.
+_SHORT = 1.0
+#: The probe for a value without a solution traces each constant from this fraction of its value.
+_PROBE_FROM = 0.1
+_PROBE_POINTS = 150  # a trace that stops at this count proves nothing (the message needs an ended trace)
+#: Traces inside a solve draw nothing: a coarse bound on the drawn angle (trace's default is 8 degrees).
+_PATH_ANGLE = math.radians(30.0)
+_TRACE_SOLVES = 10  # a solve inside a trace gets this part of the time left
+#: A step of a path gives up after Newton fails on this many meshes (a shorter step follows).
+_PATIENCE = 2
+_PROBES = 3  # constants probed at most
+
+
+@dataclass
+class Path:
+    """One family of problems from an easy one to the user's.
+
+    Attributes
+    ----------
+    name : str
+        The constant continued (``_homotopy``, ``_reach`` or a user's constant).
+    start, stop : float
+    geometric : bool
+        Steps by factors (a small constant going down by decades) rather than differences.
+    words : str
+        What the path is, for the attempts and the selection line.
+    own : bool
+        The constant is one of the path form's (:func:`bvpkit.reduce.form.path_form`), not the user's.
+    """
+
+    name: str
+    start: float
+    stop: float
+    geometric: bool
+    words: str
+    own: bool = False
+
+
+# -- what the problem offers -------------------------------------------------------------------
+@dataclass
+class Facts:
+    """What the symbolic problem says about the paths it allows (worked out once per problem)."""
+
+    small: dict  # user constant -> value, for small constants multiplying a highest derivative
+    far_field: bool  # a condition at the right end on derivatives only, or an infinite end
+    reach: bool  # a single region with a fixed finite left end: the domain can grow
+    nonlinear: bool
+
+
+_FACTS: dict[str, Facts] = {}
+_SYSTEMS: dict[str, Any] = {}
+
+
+def facts(prepared) -> Facts:  # noqa: ANN001 - a Prepared
+    """The paths ``prepared`` allows (SymPy's work, once per problem)."""
+    key = prepared.facts["key"] + repr(sorted(prepared.constants.items()))
+    found = _FACTS.get(key)
+    if found is None:
+        found = _facts(prepared)
+        if len(_FACTS) > 200:
+            _FACTS.clear()
+        _FACTS[key] = found
+    return found
+
+
+def _facts(prepared) -> Facts:  # noqa: ANN001
+    import sympy as sp
+
+    from ..reduce.form import standard_form
+
+    problem = prepared.problem()
+    form = standard_form(problem)
+    small = {}
+    x = problem.x
+    for eq in problem.equations:
+        for name in problem.unknowns:
+            top = sp.Derivative(sp.Function(name)(x), (x, problem.orders[name]))
+            coefficient = sp.diff(eq, top)
+            for symbol in coefficient.free_symbols:
+                value = problem.constants.get(symbol.name)
+                if value is None or not 0 < abs(value) < _SMALL:
+                    continue
+                if sp.simplify(coefficient.xreplace({symbol: 0})) == 0:
+                    small[symbol.name] = float(value)
+    right = set(form.yb)
+    value_rows = {i for i, (_, order) in enumerate(form.states) if order == 0}
+    ends = [0.0, 1.0]
+    for transform in prepared.transforms:
+        ends = transform.ends(ends)
+    far = math.isinf(ends[-1])
+    for c in form.conditions:
+        used = c.free_symbols & right
+        if used and not any(form.yb[i] in used for i in value_rows) and not c.free_symbols & set(form.ya):
+            far = True
+    nonlinear = any(sp.diff(f, v).has(*form.y) for f in form.rhs for v in f.free_symbols & set(form.y))
+    a = form.points[0]
+    reach = form.regions == 1 and a not in (sp.oo, -sp.oo) and not a.free_symbols & set(form.p)
+    return Facts(small, far, reach, nonlinear)
+
+
+def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN001
+    """The paths to try, in order: the one named, else a small constant of the highest
+    derivative, the nonlinear terms scaled, the domain grown (those the problem allows)."""
+    found = facts(prepared)
+    if named:
+        value = float(prepared.constants[named])
+        if named in found.small:
+            return [_small_path(named, value)]
+        return [Path(named, 0.0, value, False, f"{named} continued from 0 to {value:g}")]
+    result = [_small_path(name, value) for name, value in found.small.items()]
+    if free_span(trial) is not None:
+        # first: growing the domain from short finds the nearest end, and its held problems are
+        # easy (the nonlinear terms scaled need a start near the end, which is what is missing)
+        result.insert(0, Path("_free_end", 0.0, 1.0, False, "the free end moved out from a short domain", own=True))
+    if found.nonlinear:
+        result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled up from 0 to their full size",
+                           own=True))
+    if found.far_field and found.reach:
+        length = _length(trial)
+        if length > 2 * _SHORT:
+            power = trial.compiled.layout.power(0)
+            start = (_SHORT / length) ** (1.0 / power)
+            result.append(Path("_reach", start, 1.0, True, f"the domain grown from a length of {_SHORT:g} to "
+                               f"{length:.4g}", own=True))
+    return result
+
+
+def _small_path(name: str, value: float) -> Path:
+    start = math.copysign(_EASY, value)
+    return Path(name, start, value, True, f"{name} continued down from {start:g} to {value:g}")
+
+
+def _length(trial: Trial) -> float:
+    with np.errstate(all="ignore"):
+        maps = np.asarray(trial.compiled.maps(trial.p, trial.k), float)
+    return float(abs(maps[0, 1]))
+
+
+# -- the path form -------------------------------------------------------------------------
+def _system(prepared):  # noqa: ANN001, ANN202
+    """The compiled path form of ``prepared`` (code generated once per problem structure)."""
+    key = prepared.layout.key
+    found = _SYSTEMS.get(key)
+    if found is None:
+        from ..generated.codegen import compile_system
+        from ..reduce.form import path_form, standard_form
+
+        found = compile_system(path_form(standard_form(prepared.problem())))
+        if len(_SYSTEMS) > 100:
+            _SYSTEMS.clear()
+        _SYSTEMS[key] = found
+    return found
+
+
+def _anchors(system, trial: Trial, k: np.ndarray) -> np.ndarray | None:  # noqa: ANN001
+    """The constant state the nonlinear terms are linearised about: zero where the equations
+    and their Jacobian are finite there, else the mean of the guess; None when neither is."""
+    n = trial.compiled.n
+    x = trial.x
+    for anchor in (np.zeros(n), np.mean(trial.y, axis=1)):
+        kk = np.concatenate([k, [0.0, 1.0], anchor])
+        with np.errstate(all="ignore"):
+            y = np.repeat(anchor[:, None], x.size, axis=1)
+            ok = (np.isfinite(system.rhs(x, y, trial.p, kk)).all()
+                  and np.isfinite(system.jac(x, y, trial.p, kk)).all()
+                  and np.isfinite(system.bc(anchor, anchor, trial.p, kk)).all())
+        if ok:
+            return anchor
+    return None
+
+
+def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
+    """The solution of the problem with its nonlinear terms linearised about a constant state
+    (the path form at ``s = 0``) on ``trial``'s mesh, or None: a start inside the domain of
+    the equations when the default guess is not."""
+    from ..methods.collocation import Collocation
+
+    system = _system(prepared)
+    anchor = _anchors(system, trial, trial.k)
+    if anchor is None:
+        return None
+    k = np.concatenate([trial.k, [0.0, 1.0], anchor])
+    result = Collocation().solve(dataclasses.replace(trial, compiled=system, k=k, verify=False))
+    if not result.ok:
+        return None
+    from ..methods.diagnostics import hermite
+
+    return hermite(system, result.x, result.y, result.p, k)(trial.x)
+
+
+# -- following a path ----------------------------------------------------------------------
+def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str]:  # noqa: ANN001
+    """Follow ``path`` to the user's problem and solve it from there (a turn on the way taken
+    by ``trace``, the path follower, when one is given).
+
+    Returns the outcome of the final solve (collocation at ``trial.tol``, with its estimate;
+    a failure says where the path stopped) and how it got there, in words (the problems
+    solved on the way, a turn taken by pseudo-arclength).
+    """
+    from ..methods.collocation import Collocation
+
+    if path.name == "_free_end":
+        found = free_end(prepared, trial)
+        return found if found is not None else (_stopped(trial, "the problem has no free end"), "no solve")
+    method = Collocation()
+    if path.own:
+        system = _system(prepared)
+        anchor = _anchors(system, trial, trial.k)
+        if anchor is None:
+            why = "the linearised problem is not defined at any constant state tried"
+            return _stopped(trial, why), "no solve"
+        index = len(trial.k) + (0 if path.name == "_homotopy" else 1)
+        base = np.concatenate([trial.k, [1.0, 1.0], anchor])
+    else:
+        system = trial.compiled
+        index = trial.compiled.layout.constants.index(path.name)
+        base = np.array(trial.k, float)
+
+    def at(value: float) -> np.ndarray:
+        k = base.copy()
+        k[index] = value
+        return k
+
+    def solve(value: float, x, y, p, tol: float = _PATH_TOL) -> Outcome:  # noqa: ANN001
+        return method.solve(dataclasses.replace(trial, compiled=system, x=x, y=y, p=p, k=at(value),
+                                                tol=max(tol, trial.tol), verify=False, patience=_PATIENCE))
+
+    guess = _fresh(prepared, system, trial, at(path.start))
+    first = solve(path.start, *guess)
+    if not first.ok:
+        why = f"the easiest problem of the path ({path.words}) did not solve: {first.message}"
+        return _stopped(trial, why), "1 solve"
+    value, last, previous, count, around = path.start, first, None, 1, ""
+    step = _FIRST_FRACTION
+    while value != path.stop:
+        if trial.out_of_time():
+            return _stopped(trial, f"the time budget ran out at {_shown(path, value)}"), f"{count} solves"
+        target = _advance(path, value, step)
+        x, y, p = _predict(system, last, previous, value, target, path, at)
+        result = solve(target, x, y, p)
+        count += 1
+        if result.ok:
+            previous, last, value = (last, value), result, target
+            step = min(1.0, step * (_GROW if result.iterations <= 6 else 1.0))
+            continue
+        step *= _SHRINK
+        if step < _MIN_FRACTION:
+            turned = _around(prepared, path, trial, system, at, value, trace)
+            if turned is None:
+                # the last step's own failure says most (a layer the mesh limit cannot resolve)
+                stopped = _stopped(trial, f"the path stopped at {_shown(path, value)}: shorter and shorter "
+                                          "steps beyond it failed, and no way round a turn was found; the "
+                                          f"last step: {result.message}")
+                if result.status is Status.MESH_LIMIT:
+                    stopped.status = Status.MESH_LIMIT
+                return stopped, f"{count} solves"
+            around = f", then around a turn at {_shown(path, value)} by pseudo-arclength"
+            last, value = turned, path.stop
+            break
+    final = method.solve(dataclasses.replace(trial, x=last.x, y=last.y, p=last.p, patience=None))
+    return final, f"{count + 1} solves{around}"
+
+
+def _fresh(prepared, system, trial: Trial, k: np.ndarray):  # noqa: ANN001, ANN202
+    """The default guess for the first problem of a path (its own domain, for a grown one)."""
+    from ..reduce import guess as _guess
+
+    if system is trial.compiled:
+        return trial.x, trial.y, trial.p
+    try:
+        y = _guess.from_recipes(prepared.recipes, system, trial.x, trial.p, k)
+    except Exception:  # noqa: BLE001 - a guess that cannot be formed here: the trial's own
+        return trial.x, trial.y, trial.p
+    return trial.x, y, trial.p
+
+
+def _advance(path: Path, value: float, step: float) -> float:
+    """The next value: ``step`` of the whole way (geometric: of the way in logarithms)."""
+    if path.geometric:
+        ratio = path.stop / path.start
+        target = value * ratio**step
+        return path.stop if (target - path.stop) * math.copysign(1.0, ratio - 1.0) >= 0 else target
+    target = value + step * (path.stop - path.start)
+    return path.stop if (target - path.stop) * math.copysign(1.0, path.stop - path.start) >= 0 else target
+
+
+def _predict(system, last: Outcome, previous, value: float, target: float, path: Path,  # noqa: ANN001, ANN202
+             at):
+    """A secant prediction of the solution at ``target`` from the last two, on the last mesh."""
+    if previous is None or path.geometric and path.name == "_reach":
+        return last.x, last.y, last.p
+    from ..methods.diagnostics import hermite
+
+    before, where = previous
+    span = value - where
+    if span == 0:
+        return last.x, last.y, last.p
+    ratio = (target - value) / span
+    with np.errstate(all="ignore"):
+        y_before = hermite(system, before.x, before.y, before.p, at(where))(last.x)
+    if not np.isfinite(y_before).all():
+        return last.x, last.y, last.p
+    y = last.y + ratio * (last.y - y_before)
+    p = last.p + ratio * (last.p - before.p)
+    with np.errstate(all="ignore"):
+        if not np.isfinite(system.rhs(last.x, y, p, at(target))).all():
+            return last.x, last.y, last.p  # the prediction left the equations' domain
+    return last.x, y, p
+
+
+def _around(prepared, path: Path, trial: Trial, system, at, value: float,  # noqa: ANN001
+            trace=None) -> Outcome | None:  # noqa: ANN001
+    """The path around a turn, by pseudo-arclength continuation (``trace``, the path follower
+    the selector was given) from its start; the solution at its end, or None."""
+    if trace is None or prepared.truncated or trial.out_of_time():
+        return None
+    traced = _traceable(prepared, path, system, trial, at)
+    try:
+        branch = trace(traced, path.name, start=path.start, stop=path.stop, method="collocation",
+                       tol=_PATH_TOL, verify=False, max_points=_PROBE_POINTS, max_angle=_PATH_ANGLE)
+    except Exception:  # noqa: BLE001 - a trace that cannot run here leaves the path stopped
+        return None
+    slack = 1e-9 * max(1.0, abs(path.stop))
+    reached = bool(branch.solutions) and abs(branch.parameter[-1] - path.stop) <= slack
+    if not (branch.success and reached):
+        return None
+    view = branch.solutions[-1].interpolant
+    return Outcome(Status.SOLVED, "", view.t, view.y, view.p)
+
+
+def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001, ANN202
+    """``prepared`` (or its path form) as a prepared problem ``trace`` can take: continuation
+    inside it switched off, each solve bounded by what is left of the budget."""
+    left = max(0.1, (trial.deadline - time.perf_counter()) if trial.deadline is not None else 5.0)
+    settings = {"homotopy": "off", "time_limit": max(0.1, left / _TRACE_SOLVES), "method": "collocation"}
+    facts_ = {**prepared.facts, "settings": settings, "outputs": {}}
+    if not path.own:
+        return dataclasses.replace(prepared, facts=facts_)
+    k = at(path.start)
+    names = system.layout.constants
+    own = {name for transform in prepared.transforms for name in transform.constants(None)}  # the classes' own
+    constants = {**prepared.constants, **{name: float(k[i]) for i, name in enumerate(names)
+                                         if name.startswith("_") and name not in own}}
+    plain = {"programs": list(system.programs), "pattern": system.jac_pattern.tolist(),
+             "sides": system.bc_sides.tolist()}
+    return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain,
+                               constants=constants, quantities={})
+
+
+def _shown(path: Path, value: float) -> str:
+    if path.name == "_homotopy":
+        return f"{value:.3g} of the nonlinear terms"
+    if path.name == "_reach":
+        return f"{value:.3g} of the domain"
+    return f"{path.name} = {value:.4g}"
+
+
+def _stopped(trial: Trial, why: str) -> Outcome:
+    return Outcome(Status.NOT_CONVERGED, f"the continuation did not reach the problem asked: {why}",
+                   np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float))
+
+
+# -- a value with no solution near it -------------------------------------------------------
+def no_solution(prepared, trial: Trial, trace=None) -> str:  # noqa: ANN001
+    """Words saying that the problem may have no solution at the constants' values, from a
+    fold seen along a quick trace of a constant towards its value ('' when none is seen).
+
+    Each constant that the equations depend on along the guess (not a small constant of the
+    highest derivative: there a failure is a layer) is traced from ``_PROBE_FROM`` of its
+    value towards it; a fold passed on the way, with the trace never reaching the value,
+    says that the solutions turn back before it. Nothing is said without ``trace``.
+    """
+    if trace is None:
+        return ""
+    found = facts(prepared)
+    layout = trial.compiled.layout
+    with np.errstate(all="ignore"):
+        kjac = np.asarray(trial.compiled.kjac(trial.x, trial.y, trial.p, trial.k))
+    probed = 0
+    for name, value in prepared.constants.items():
+        if probed >= _PROBES or trial.out_of_time():
+            break
+        if name in found.small or value == 0 or name not in layout.constants:
+            continue
+        if not np.any(np.abs(kjac[:, layout.constants.index(name)]) > 0):
+            continue
+        probed += 1
+        traced = _traceable(prepared, Path(name, 0.0, value, False, ""), trial.compiled, trial, None)
+        start = _PROBE_FROM * value
+        try:
+            branch = trace(traced, name, start=start, stop=value, method="collocation",
+                           tol=max(trial.tol, 1e-6), verify=False, max_points=_PROBE_POINTS, max_angle=_PATH_ANGLE)
+        except Exception:  # noqa: BLE001 - a probe that cannot run says nothing
+            continue
+        reached = any(abs(v - value) <= 1e-9 * max(1.0, abs(value)) for v in branch.parameter)
+        if branch.folds and not reached and len(branch.parameter) < _PROBE_POINTS:
+            fold = branch.folds[0]
+            beyond = "above" if value > fold.parameter else "below"
+            return (f"the problem may have no solution for {name} = {value:g}: traced from {name} = "
+                    f"{start:g}, the solutions turn back at a fold at {name} = {fold.parameter:.10g}, and "
+                    f"none was found {beyond} it. See the family with bvpkit trace (parameter {name}, from "
+                    f"{start:g} to {value:g}); a solution may exist on another branch, from another guess")
+    return ""
+
+
+# -- a free end found from a short domain ------------------------------------------------------
+class Held:
+    """A compiled system with its unknown parameter held at a value and one condition set aside.
+
+    The held value is the last constant (``k[-1]``); the remaining conditions, one fewer, fix
+    the states. Along a family of held values the condition set aside is a scalar function of
+    the value, whose root is the user's solution (:func:`free_end`). No new code: every
+    callable is the base system's, rows and columns taken away.
+    """
+
+    def __init__(self, base, row: int):  # noqa: ANN001 - a CompiledSystem (one unknown parameter)
+        import dataclasses as _dc
+
+        self.base, self.row = base, row
+        lay = base.layout
+        self.layout = _dc.replace(lay, parameters=(), constants=(*lay.constants, "_held"))
+        self.jac_pattern, self.programs = base.jac_pattern, base.programs
+        self.keep = np.array([i for i in range(base.bc_sides.size) if i != row])
+        self.bc_sides = np.full(self.keep.size, 2)
+
+    @property
+    def n(self) -> int:
+        return self.base.n
+
+    n_parameters = 0
+
+    def _full(self, k):  # noqa: ANN001, ANN202
+        k = np.asarray(k, float)
+        return k[-1:], k[:-1]
+
+    def rhs(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.rhs(x, y, *self._full(k))
+
+    slopes = rhs
+
+    def jac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.jac(x, y, *self._full(k))
+
+    def pjac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return np.zeros((self.n, 0) + np.shape(x))
+
+    def bc(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        return np.asarray(self.base.bc(ya, yb, *self._full(k)))[self.keep]
+
+    def aside(self, ya, yb, k) -> float:  # noqa: ANN001
+        """The condition set aside, at these end values."""
+        return float(np.asarray(self.base.bc(ya, yb, *self._full(k)))[self.row])
+
+    def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        a, b, _ = self.base.bc_jac(ya, yb, *self._full(k))
+        a, b = np.asarray(a)[self.keep], np.asarray(b)[self.keep]
+        return a, b, np.zeros((self.keep.size, 0))
+
+    def maps(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.maps(*self._full(k))
+
+    def row_scale(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.row_scale(*self._full(k))
+
+    def singular(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.singular(*self._full(k))
+
+
+#: The short domain a free end's search starts from: this fraction of the guess's length.
+_SHORT_FRACTION = 0.2
+#: How far the search grows the domain: up to this many times the guess's length.
+_LONGEST = 5.0
+_HELD_STEPS = 60  # solves along the held family at most
+_HELD_REFINE = 40  # bracketing steps on the set-aside condition at most
+_FINALS = 3  # solves of the whole problem from a predicted end at most
+#: The whole problem is tried from a predicted end once the set-aside condition has shrunk to
+#: this fraction of its value on the short domain (a secant further out is a poor guess).
+_CLOSE = 0.05
+_NOTE_NODES = 400  # mesh nodes at most on which a crossing inside the domain is looked for
+#: The bracket is narrowed to this relative width: the whole problem's Newton iteration, from
+#: the held solution there, does the rest at the tolerance asked.
+_BRACKET = 1e-4
+
+
+def _lengths(compiled, k: np.ndarray, values) -> np.ndarray:  # noqa: ANN001
+    with np.errstate(all="ignore"):
+        return np.array([float(np.asarray(compiled.maps(np.array([v]), k), float)[:, 1].sum()) for v in values])
+
+
+def _length_slope(compiled, p: np.ndarray, k: np.ndarray) -> tuple[float, float] | None:  # noqa: ANN001
+    """``(length, d length / d p)`` where the one unknown parameter (not an eigenvalue or a
+    period) sets the length of a finite domain: a free end. None otherwise."""
+    layout = compiled.layout
+    # an eigenvalue or a truncated infinite end does not set the length (the slope below is 0);
+    # a period does, and is no free end
+    if compiled.n_parameters != 1 or "phase" in layout.condition_kinds:
+        return None
+    value = float(p[0])
+    delta = 1e-6 * max(1.0, abs(value))
+    near = _lengths(compiled, k, [value, value + delta])
+    slope = (near[1] - near[0]) / delta
+    if not (np.isfinite(near).all() and near[0] > 0 and abs(slope) > 1e-3):
+        return None
+    return float(near[0]), float(slope)
+
+
+def earlier_end(prepared, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> str:  # noqa: ANN001
+    """Words saying that a condition on the states at the right end alone is also met inside
+    the domain of a solution of a problem with one unknown parameter ('' when not): where
+    the parameter is a free end, the end could have been there, so the problem may have
+    several solutions, and the one found takes a later crossing (a polytrope's second zero,
+    say, where the first was meant). The same is said, conditionally, of a free end written
+    on a fixed domain (the parameter stretching the equations instead)."""
+    from ..reduce import guess as _guess
+
+    compiled = prepared.compiled
+    layout = compiled.layout
+    if layout.regions != 1 or compiled.n_parameters != 1 or "phase" in layout.condition_kinds or \
+            "added" in layout.condition_kinds:  # an eigenvalue's normalisation: no end condition to cross
+        return ""
+    free = _length_slope(compiled, p, k) is not None
+    kinds = layout.condition_kinds
+    given = [i for i, kind in enumerate(kinds) if kind == "given"] if kinds else []
+    texts = list(prepared.facts.get("arguments", {}).get("conditions") or [])
+    if x.size > _NOTE_NODES:  # a crossing spans many nodes: every few of them show it
+        keep = np.unique(np.linspace(0, x.size - 1, _NOTE_NODES).round().astype(int))
+        x, y = x[keep], y[:, keep]
+    interior = slice(1, max(1, x.size - 1))
+    for row in range(compiled.bc_sides.size):
+        if compiled.bc_sides[row] != 1:
+            continue  # only a condition on the states at the free end alone
+        with np.errstate(all="ignore"):
+            values = np.array([float(np.asarray(compiled.bc(y[:, 0], y[:, j], p, k))[row])
+                               for j in range(x.size)])
+        inside = values[interior]
+        scale = float(np.nanmax(np.abs(values))) if np.isfinite(values).any() else 0.0
+        clear = np.abs(inside) > 1e-6 * scale
+        signs = np.sign(inside[clear])
+        crossing = np.flatnonzero(signs[1:] != signs[:-1])
+        if not crossing.size or scale == 0.0:
+            continue
+        nodes = np.flatnonzero(clear) + 1  # mesh indices of the clear interior values
+        i, j = nodes[crossing[0]], nodes[crossing[0] + 1]  # the first crossing lies between these
+        t = float(x[i] - values[i] * (x[j] - x[i]) / (values[j] - values[i]))
+        where = _guess.positions(np.asarray(compiled.maps(p, k), float))
+        a, b = float(where[0]), float(where[-1])
+        at = a + (b - a) * t ** layout.power(0)
+        text = "a condition at the free end"
+        if row in given and len(given) == len(texts) and isinstance(texts[given.index(row)], str):
+            text = f"the condition {texts[given.index(row)]}"
+        met = f"{text} is also met inside the domain, near {layout.independent} = {at:.4g}"
+        if free:
+            return (f"{met}: the problem may have another solution with the end there (it has several, and the "
+                    "one found meets the condition again further out); a start at a shorter length reaches "
+                    "the nearer one")
+        return (f"{met}: where the unknown parameter stretches the domain (a free end written on a fixed one), "
+                "the problem has another solution that meets the condition there first")
+    return ""
+
+
+def free_span(trial: Trial) -> tuple[float, float, float] | None:
+    """``(start, stop, direction)`` of the search for a free end: the held values from a short
+    domain to a long one; None unless the problem has one unknown parameter (not an
+    eigenvalue or a period) that sets the length of a finite domain."""
+    found = _length_slope(trial.compiled, trial.p, trial.k)
+    if found is None:
+        return None  # the parameter does not set the length: not a free end
+    length, slope = found
+    guess = float(trial.p[0])
+    near = [length]
+    direction = 1.0 if slope > 0 else -1.0
+    start = guess - direction * (1 - _SHORT_FRACTION) * near[0] / abs(slope)
+    stop = guess + direction * (_LONGEST - 1) * near[0] / abs(slope)
+    return start, stop, direction
+
+
+def free_end(prepared, trial: Trial) -> tuple[Outcome, str] | None:  # noqa: ANN001
+    """The solution of a problem with one free end from a rough guess of where the end is.
+
+    The free end is held at a short length (:data:`_SHORT_FRACTION` of the guess's) and one
+    condition at it set aside: the rest fix the states (an initial-value problem, for the
+    first zero of a polytrope). The length then grows in steps, each held problem solved by
+    collocation from the last, while the set-aside condition shrinks towards zero; once a
+    secant through its last two values puts its root within the next step (or its sign
+    changes, bracketing the root for a regula falsi), the whole problem is solved from the
+    held solution with the end at the predicted root, at the tolerance asked. Growing from
+    short finds the nearest end beyond the short domain (the first zero, not a later one).
+    None when the problem is not of this kind (one unknown parameter that sets the domain's
+    length).
+    """
+    from ..methods.collocation import Collocation
+
+    base = trial.compiled
+    span = free_span(trial)
+    if span is None:
+        return None
+    start, stop, _ = span
+    method = Collocation()
+    rows = [i for i in range(base.bc_sides.size) if base.bc_sides[i] != 0][::-1]  # the free end's conditions last
+    tried = []
+    for row in rows:
+        if trial.out_of_time():
+            break
+        held = Held(base, row)
+        found = _Growth(prepared, held, trial, method, start, stop).run()
+        if isinstance(found, str):
+            tried.append(found)
+            continue
+        value, final, solves = found
+        return final, (f"{solves} solves with the free end held, moved out from {start:.4g} until the condition set "
+                       f"aside was met near {value:.6g}")
+    why = "; ".join(tried) if tried else "no condition at the free end could be set aside"
+    return _stopped(trial, f"the free end could not be found from a short domain: {why}"), "no solve"
+
+
+class _Growth:
+    """The held family grown from a short domain towards the root of the set-aside condition."""
+
+    def __init__(self, prepared, held: Held, trial: Trial, method, start: float, stop: float):  # noqa: ANN001
+        self.prepared, self.held, self.trial, self.method = prepared, held, trial, method
+        self.start, self.stop = start, stop
+        self.solves = 0
+        self.finals = 0
+
+    def held_solve(self, value: float, x, y) -> tuple[Outcome, float]:  # noqa: ANN001
+        """The held problem at ``value`` (loose tolerance: it only starts the next) and the
+        set-aside condition there (NaN when it did not solve)."""
+        trial = self.trial
+        k = np.concatenate([trial.k, [value]])
+        self.solves += 1
+        result = self.method.solve(dataclasses.replace(
+            trial, compiled=self.held, x=x, y=y, p=np.zeros(0), k=k, tol=max(_PATH_TOL, trial.tol), verify=False,
+            patience=_PATIENCE))
+        if not result.ok:
+            return result, math.nan
+        return result, self.held.aside(result.y[:, 0], result.y[:, -1], k)
+
+    def finish(self, value: float, held: Outcome, reach: float) -> Outcome | None:
+        """The whole problem from the held solution with the end at ``value``; None when it
+        failed or put the end further than ``reach`` from ``value`` (Newton's method wandered
+        to another end, a later zero, which growing from short is there to avoid)."""
+        if self.finals >= _FINALS or not math.isfinite(value):
+            return None
+        self.finals += 1
+        self.solves += 1
+        final = self.method.solve(dataclasses.replace(self.trial, x=held.x, y=held.y, p=np.array([value]),
+                                                      patience=None))
+        return final if final.ok and abs(float(final.p[0]) - value) <= abs(reach) else None
+
+    def run(self):  # noqa: ANN201 - (value, outcome, solves), or why not (a str)
+        trial, start, stop = self.trial, self.start, self.stop
+        k0 = np.concatenate([trial.k, [start]])
+        x, y, _ = _fresh(self.prepared, self.held, trial, k0)
+        last, r_here = self.held_solve(start, x, y)
+        r_start = r_here
+        if not last.ok or not math.isfinite(r_here) or r_here == 0.0:
+            return f"the problem held at {start:.4g} did not solve ({last.message})"
+        span = stop - start
+        step = 0.05 * span
+        here = start
+        behind: tuple[float, float] | None = None
+        for _ in range(_HELD_STEPS):
+            if trial.out_of_time():
+                return "the time budget ran out while the free end was moved out"
+            predicted = _secant(behind, (here, r_here))
+            close = abs(r_here) <= _CLOSE * abs(r_start)
+            if predicted is not None and close and 0 < (predicted - here) / step <= 1.0:
+                final = self.finish(predicted, last, step)
+                if final is not None:
+                    return predicted, final, self.solves
+            target = here + step
+            if (target - stop) * math.copysign(1.0, span) > 0:
+                return f"the condition set aside kept its sign up to a length {_LONGEST:g} times the guess's"
+            result, r = self.held_solve(target, last.x, last.y)
+            if not result.ok or not math.isfinite(r):
+                # past the root the equations may be undefined (u**1.5 with u < 0): shorter steps
+                step *= 0.5
+                if abs(step) < 1e-9 * abs(span):
+                    return "the held problems stopped solving before the condition set aside was met"
+                continue
+            if r == 0.0 or (r > 0) != (r_here > 0):
+                value, nearest = _bracketed(self.held_solve, (here, r_here, last), (target, r, result))
+                final = self.finish(value, nearest, target - here)
+                if final is not None:
+                    return value, final, self.solves
+                return "the whole problem did not solve from the end bracketed by the held problems"
+            behind = (here, r_here)
+            here, last, r_here = target, result, r
+            step = min(step * 1.5, 0.1 * span) if result.iterations <= 4 else step
+        return "the free end was not found in the steps allowed"
+
+
+def _secant(behind, here: tuple[float, float]) -> float | None:  # noqa: ANN001
+    """Where the line through the last two values of the set-aside condition meets zero,
+    when the condition is shrinking (None otherwise)."""
+    if behind is None:
+        return None
+    (a, ra), (b, rb) = behind, here
+    if not abs(rb) < abs(ra) or (ra > 0) != (rb > 0):
+        return None
+    return b - rb * (b - a) / (rb - ra)
+
+
+def _bracketed(solve, left: tuple, right: tuple):  # noqa: ANN001, ANN202
+    """Regula falsi (the Illinois variant) on a bracket of the set-aside condition; the value
+    nearest the root and the held solution there."""
+    (a, ra, sa), (b, rb, sb) = left, right
+    side = 0
+    for _ in range(_HELD_REFINE):
+        if rb == 0.0 or abs(b - a) <= _BRACKET * max(1.0, abs(b)):
+            break
+        c = b - rb * (b - a) / (rb - ra)
+        if not min(a, b) < c < max(a, b):
+            c = 0.5 * (a + b)
+        near = sb if abs(rb) < abs(ra) else sa
+        result, rc = solve(c, near.x, near.y)
+        if not result.ok or not math.isfinite(rc):
+            break
+        if (rc > 0) == (rb > 0):
+            b, rb, sb = c, rc, result
+            if side == -1:
+                ra *= 0.5
+            side = -1
+        else:
+            a, ra, sa = b, rb, sb
+            b, rb, sb = c, rc, result
+            side = 1
+    return (b, sb) if abs(rb) <= abs(ra) else (a, sa)
