@@ -478,6 +478,10 @@ class Held:
     def n(self) -> int:
         return self.base.n
 
+    @property
+    def needs(self) -> frozenset[str]:
+        return self.base.needs
+
     n_parameters = 0
 
     def _full(self, k):  # noqa: ANN001, ANN202
