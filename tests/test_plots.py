@@ -170,9 +170,11 @@ L = [0.03, 0.05]
     assert "units: m2 in 1/m^2, tip in K" in out
     assert "m2 [1/m^2]" in out  # the sweep table's header
     trace_fig, sweep_fig = drawn
-    assert trace_fig._suptitle.get_text() == sweep_fig._suptitle.get_text() == "Our test fin"
+    assert sweep_fig._suptitle.get_text() == "Our test fin"
+    # the trace is one cut of the problem: its title says at which value of the other constant
+    assert trace_fig._suptitle.get_text() == "Our test fin\n(m2 varied; L = 0.05)"
     assert trace_fig.axes[0].get_ylabel() == "tip [K]" and sweep_fig.axes[0].get_xlabel() == "m2 [1/m^2]"
-    assert (tmp_path / "t.csv").read_text().splitlines()[0] == "m2 [1/m^2],tip [K],step"
+    assert (tmp_path / "t.csv").read_text().splitlines()[0] == "m2 [1/m^2],tip [K],error_estimate,step"
     assert (tmp_path / "s.csv").read_text().splitlines()[0].startswith("m2 [1/m^2],L,tip [K],success")
 
 

@@ -164,9 +164,8 @@ def branch_figure(branch: Any, path: str | Path, outputs: Sequence[str] | None =
     if parameter.size == 0:
         raise OptionError("the branch holds no points to draw")
     source = branch.solutions[0] if branch.solutions else None
-    asked = title
     title, units, independent = _title_and_units(source, title, units)
-    if asked is None and source is not None:
+    if source is not None:  # a spec's title may describe more than this cut of the problem
         title = _held(title, source.prepared, [branch.name], units)
     columns = [np.asarray(recorded[n], float) for n in names]
     good = np.isfinite(parameter) & np.all([np.isfinite(c) for c in columns], axis=0)
