@@ -340,8 +340,8 @@ def _hopeless(result: Outcome, trial: Trial) -> bool:
 
 def _nonlinear(trial: Trial) -> bool:
     """Whether the equations are nonlinear in the unknowns: the Jacobian in the states changes
-    with the states, or with the unknown parameters (a free end multiplies the equations by
-    the length, so ``y'' + y = 0`` with an unknown end is a nonlinear problem)."""
+    with the states, or, for a free end, with the end (the length multiplies the equations, so
+    ``y'' + y = 0`` with an unknown end is a nonlinear problem)."""
     with np.errstate(all="ignore"):
         y = trial.y
         scale = 1.0 + float(np.max(np.abs(y))) if y.size and np.isfinite(y).all() else 1.0
@@ -349,7 +349,7 @@ def _nonlinear(trial: Trial) -> bool:
         a = trial.compiled.jac(trial.x, y, trial.p, trial.k)
         b = trial.compiled.jac(trial.x, other, trial.p, trial.k)
         pairs = [(a, b)]
-        if len(trial.p):
+        if len(trial.p) and _free_end(trial):
             moved = trial.p + 0.25 * (1.0 + np.abs(trial.p))
             pairs.append((a, trial.compiled.jac(trial.x, y, moved, trial.k)))
     for a, b in pairs:
@@ -357,6 +357,13 @@ def _nonlinear(trial: Trial) -> bool:
         if not finite.all() or not np.allclose(a[finite], b[finite], rtol=1e-10, atol=1e-12):
             return True
     return False
+
+
+def _free_end(trial: Trial) -> bool:
+    """Whether the problem's one unknown parameter sets the length of its domain."""
+    from .homotopy import free_span
+
+    return free_span(trial) is not None
 
 
 def _paths(context: Context, trial: Trial):  # noqa: ANN202
