@@ -11,7 +11,6 @@ from scipy.integrate import solve_ivp
 import bvpkit
 
 
-
 @pytest.mark.parametrize("k", [1, 2, 3, 4, 5])
 def test_sine_eigenvalues_by_mode(k):
     p = bvpkit.Problem(["y'' + lam*y = 0"], ["y(0) = 0", "y(pi) = 0"], (0, "pi"), eigenvalue="lam", mode=k)

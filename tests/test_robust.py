@@ -13,8 +13,8 @@ import pytest
 from scipy.special import erf
 
 import bvpkit
-from bvpkit.io.cli import main
 from bvpkit.errors import OptionError
+from bvpkit.io.cli import main
 from bvpkit.status import Status
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -272,10 +272,8 @@ def test_auto_claims_no_false_success_on_test_set_instances(name, tol):
 # -- the paths of continuation, one by one -------------------------------------------------------
 @pytest.mark.parametrize("which", ["_homotopy", "_reach"])
 def test_each_path_reaches_blasius_on_a_finite_domain(which):
-    from bvpkit.solver import driver
-    from bvpkit.solver import homotopy
-    from bvpkit.solver import start
     from bvpkit.methods.base import Trial
+    from bvpkit.solver import driver, homotopy, start
 
     problem = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(12) = 1"], (0, 12))
     prepared = bvpkit.prepare(problem)

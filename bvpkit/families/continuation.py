@@ -52,19 +52,21 @@ from typing import Any
 
 import numpy as np
 
-from . import arclength as arc
 from .._output import json_ready, output_labels, progress_bar, write_columns
+from ..errors import OptionError, closest
+from ..language.problem import Problem
+from ..language.units import labelled
+from ..methods.base import Outcome, Trial, compare
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
-from ..errors import OptionError, closest
-from ..methods.base import Outcome
-from ..reduce.guess import Start
-from ..solver.driver import Run, options, settle, solve, solve_at
+from ..reduce.mapping import Start, positions
 from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import Run, options, settle, solve, solve_at
 from ..solver.solution import Solution
-from .stability import stable
 from ..status import Status
-from ..language.units import labelled
+from . import arclength as arc
+from . import plots
+from .stability import stable
 
 _GROW, _SHRINK = 1.5, 0.5
 _TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
@@ -75,6 +77,9 @@ MAX_ANGLE = math.radians(8.0)
 MAX_DRIFT = 0.2
 #: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
 FLOOR = 1e-7
+#: Most halvings in a row of a natural step (log2(1/FLOOR) is 23): a step that keeps failing
+#: is given up after this many solves, whatever it started from.
+MAX_HALVINGS = 24
 #: A chord shorter than this fraction of the finished drawing shows no bend a reader can see:
 #: its angles are round-off, and no point is added on it.
 SHORTEST_CHORD = 1e-4
@@ -320,10 +325,9 @@ class Branch:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Draw every output (or ``output``) against the parameter, folds marked (``plot`` extra;
-        options of :func:`bvpkit.io.plots.branch_figure`)."""
-        from ..io.plots import branch_figure
+        options of :func:`bvpkit.families.plots.branch_figure`)."""
 
-        return branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+        return plots.branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def _estimate(solution: Solution) -> float:
@@ -437,7 +441,6 @@ def trace(
     Branch
         Ctrl-C keeps what was traced: the branch is returned with ``success`` False.
     """
-    from ..language.problem import Problem
 
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"trace() takes a bvpkit.Problem, got {type(problem).__name__}")
@@ -495,7 +498,10 @@ class _Tracer:
         self.prepared, self.name, self.start, self.stop = prepared, name, start, stop
         self.tol, self.method, self.max_points = tol, method, max_points
         self.span = abs(stop - start)
-        self.step = abs(step) if step else self.span / 50
+        # a first step is at most the largest a natural step grows to (a quarter of the range):
+        # a step of 1e80 would otherwise be halved one failed solve at a time, at the end of
+        # the range where every target is clipped
+        self.step = min(abs(step), self.span / 4) if step else self.span / 50
         self.lo, self.hi = min(start, stop), max(start, stop)
         self.direction = 1.0 if stop > start else -1.0
         self.edge = stop  # the end of the range the natural steps head for
@@ -804,10 +810,12 @@ class _Tracer:
     def _natural(self, step: float) -> tuple[bool, str] | None:
         """Natural steps until the branch turns (None: go on in arclength) or the trace ends."""
         b = self.branch
+        halvings = 0  # in a row: a count, not a clock, bounds the search for a step that works
         while len(b.solutions) < self.max_points:
             last = self.points[-1]
             value = last.value
             target, ends, requested = self._edges(value, value + self.direction * step)
+            taken = abs(target - value)  # the step actually tried: halving starts from it
             guess = self._predict(target)
             sol = self._at(target, guess)
             point = _Point(target, sol) if sol.success else None
@@ -815,10 +823,12 @@ class _Tracer:
             if point is not None and len(self.points) >= 1:
                 turning, too_sharp = self._geometry(last, point)
                 too_sharp = too_sharp or self._plane_turn(target, sol) > self.max_angle
-                if too_sharp and not requested and not ends and step > self.span * FLOOR and not self.fixed:
-                    step *= _SHRINK
+                if (too_sharp and not requested and not ends and step > self.span * FLOOR and not self.fixed
+                        and halvings < MAX_HALVINGS):
+                    step, halvings = min(step, taken) * _SHRINK, halvings + 1
                     continue
             if point is not None and not turning:
+                halvings = 0
                 self._accept(target, sol, "natural", point)
                 if requested:
                     self.branch.requested.setdefault(target, []).append(self.branch.solutions[-1])
@@ -834,8 +844,8 @@ class _Tracer:
                     easy = sol.diagnostics.iterations <= 4
                     step = min(step * (_GROW if easy else 1.0), self.span / 4)
                 continue
-            if not turning and step > self.span * 1e-3:
-                step *= _SHRINK
+            if not turning and step > self.span * 1e-3 and halvings < MAX_HALVINGS:
+                step, halvings = min(step, taken) * _SHRINK, halvings + 1
                 continue
             return None  # the branch turns (or natural steps fail): pseudo-arclength
         return self._out_of_points()
@@ -1026,8 +1036,6 @@ class _Tracer:
         return settle(here, run, seconds)
 
     def _ends(self, p: np.ndarray, k: np.ndarray) -> tuple[float, float]:
-        from ..reduce.guess import positions
-
         ends = positions(np.asarray(self.compiled.maps(p, k), float))
         return float(ends[0]), float(ends[-1])
 
@@ -1039,7 +1047,6 @@ class _Tracer:
         a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
         exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
         Returns the estimate and the corrected point ``(x, y, p)``."""
-        from ..methods.base import Trial, compare
 
         y, pz = eq.split(z)
         p = pz[:-1]

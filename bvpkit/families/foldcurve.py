@@ -25,18 +25,20 @@ from typing import Any
 
 import numpy as np
 
-from . import arclength as arc
 from .._output import json_ready, write_columns
-from .continuation import MAX_ANGLE, MAX_DRIFT, _estimate, _number, _resolve_outputs, _Tracer, output_values
+from ..errors import OptionError, closest
+from ..language.problem import Problem
+from ..language.units import labelled
+from ..methods.base import Outcome, Trial, compare
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
-from ..solver.driver import Run, options, settle
-from ..errors import OptionError, closest
-from ..methods.base import Outcome, Trial, compare
 from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import Run, options, settle
 from ..solver.solution import Solution
 from ..status import Status
-from ..language.units import labelled
+from . import arclength as arc
+from . import plots
+from .continuation import MAX_ANGLE, MAX_DRIFT, _estimate, _number, _resolve_outputs, _Tracer, output_values
 
 _GROW, _SHRINK = 1.5, 0.5
 #: Over a positive range of more than two decades (drawn on a log scale) a step changes the
@@ -151,10 +153,9 @@ class FoldCurve:
 
     def plot(self, path: str | Path, **options: Any) -> Any:
         """Draw the fold curve and the outputs along it, cusps marked (``plot`` extra; options of
-        :func:`bvpkit.io.plots.fold_curve_figure`); returns the figure."""
-        from ..io.plots import fold_curve_figure
+        :func:`bvpkit.families.plots.fold_curve_figure`); returns the figure."""
 
-        return fold_curve_figure(self, path, **options)
+        return plots.fold_curve_figure(self, path, **options)
 
 
 def fold_curve(
@@ -201,7 +202,6 @@ def fold_curve(
     -------
     FoldCurve
     """
-    from ..language.problem import Problem
 
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"fold_curve() takes a bvpkit.Problem, got {type(problem).__name__}")
@@ -262,7 +262,6 @@ def _first_fold(problem: Prepared, name: str, lo: float, hi: float, labels: dict
 
 class _Follower:
     """Pseudo-arclength along the fold curve (see the module docstring)."""
-
     def __init__(self, prepared: Prepared, name: str, along: str, fold, tol: float, requested: list[float],  # noqa: ANN001
                  angle: float, max_points: int, curve: FoldCurve):
         self.prepared, self.name, self.along, self.tol = prepared, name, along, tol

@@ -63,7 +63,12 @@ import numpy as np
 from .._output import json_ready, output_labels, progress_bar, write_columns
 from ..errors import OptionError, closest
 from ..language.limits import LARGEST, SMALLEST, in_range
+from ..language.problem import Problem
 from ..language.units import labelled
+from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import solve
+from . import plots
+from .continuation import trace  # the path follower of the selector's continuation
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
 #: short enough to spread a grid over the workers.
@@ -78,7 +83,6 @@ PARENT_CHECK = 0.5
 @dataclass(frozen=True)
 class _Unit:
     """One chunk of one grid line: what a worker needs, as plain data."""
-
     problem_key: str
     fast: str
     fast_values: tuple[float, ...]
@@ -102,7 +106,6 @@ _WORKER_PROBLEMS: dict[str, Any] = {}
 def _worker_problem(unit: _Unit):  # noqa: ANN202
     prepared = _WORKER_PROBLEMS.get(unit.problem_key)
     if prepared is None:
-        from ..reduce.prepared import Prepared
 
         prepared = _WORKER_PROBLEMS[unit.problem_key] = Prepared.from_plain(unit.prepared)
     return prepared
@@ -132,9 +135,6 @@ def _abandoned_check():  # noqa: ANN202 - a callable returning bool
 
 def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     """Solve one chunk in order, each point seeded by the previous one (runs in a worker)."""
-    from ..solver.driver import solve
-    from .continuation import trace  # the path follower of the selector's continuation
-
     prepared = _worker_problem(unit)
     named = {text: name for name, text in prepared.outputs.items()}
     options = dict(unit.options)
@@ -182,9 +182,66 @@ def _row(point, outputs, success, status, method, error, message, iterations, se
             "iterations": int(iterations), "seconds": float(seconds)}
 
 
+_ROW_FIELDS = {"point": dict, "outputs": dict, "success": bool, "status": str, "method": str,
+               "error_estimate": float, "message": str, "iterations": int, "seconds": float}
+MAX_ROW_BYTES = 100_000  # a stored row's JSON text: a message, a point and its outputs (a few hundred bytes)
+
+
+def _signed_row(problem: str, row: dict, key: bytes | None) -> str:
+    """A row's JSON text, with the signature of the row, its problem and its point under the
+    cache's key (see :func:`bvpkit.programs.compiled.signing_key`) when there is one."""
+    from ..programs.compiled import signature
+
+    body = dict(row)
+    if key is not None:
+        body["signature"] = signature([problem, _grid_key(row["point"]), row], key)
+    return json.dumps(body, allow_nan=True)
+
+
+def _valid_row(problem: str, point: str, text: Any, success: Any, outputs: Sequence[str],
+               key: bytes | None) -> dict | None:
+    """A stored row as this sweep wrote it, or None: not JSON, fields missing or of the wrong
+    kind, a point other than the one it is stored under, outputs other than the sweep's, a
+    status that is not one of bvpkit's; or, when the cache has a key, a signature that is not
+    its own (an edited value, a row copied from another point, problem or machine)."""
+    import hmac
+
+    from ..programs.compiled import signature
+    from ..status import Status
+
+    if type(text) is not str or len(text) > MAX_ROW_BYTES:
+        return None
+    try:
+        row = json.loads(text)
+    except (ValueError, RecursionError):
+        return None
+    if type(row) is not dict or set(row) - {"signature"} != set(_ROW_FIELDS):
+        return None
+    stamp = row.pop("signature", None)
+    if key is not None and (type(stamp) is not str or not hmac.compare_digest(
+            stamp, signature([problem, point, row], key) or "")):
+        return None
+    for name, kind in _ROW_FIELDS.items():
+        value = row[name]
+        if not (type(value) is kind or (kind is float and type(value) is int)):
+            return None
+    try:
+        if _grid_key(row["point"]) != point or row["success"] != bool(success) or row["iterations"] < 0:
+            return None
+    except (TypeError, ValueError, AttributeError):
+        return None
+    values = row["outputs"]
+    if (not all(type(v) in (int, float) for v in values.values())
+            or (row["success"] and set(values) != set(outputs)) or not set(values) <= set(outputs)):
+        return None
+    status = {s.word: s for s in Status}.get(row["status"])
+    if status is None or status.success != row["success"]:
+        return None
+    return row
+
+
 class _Store:
     """SQLite store of finished points, keyed by the problem's content and the grid point."""
-
     def __init__(self, path: str | Path | None):
         self.path = ":memory:" if path is None else str(path)
         self.db = None
@@ -228,19 +285,37 @@ class _Store:
             return  # written before stores carried their id
         raise self._refused("a database of another program" if found != STORE_ID else "its tables differ")
 
-    def done(self, problem: str, retry_failed: bool) -> dict[str, dict]:
-        query = "SELECT point, row FROM points WHERE problem = ?" + (" AND success = 1" if retry_failed else "")
+    def done(self, problem: str, retry_failed: bool, outputs: Sequence[str]) -> dict[str, dict]:
+        """The finished points of ``problem`` whose rows pass :func:`_valid_row`; the others
+        are left out (solved again), said in one note."""
+        from ..programs.compiled import note, signing_key
+
+        query = "SELECT point, row, success FROM points WHERE problem = ?"
+        key = signing_key()
+        found, refused = {}, 0
         try:
-            return {point: json.loads(row) for point, row in self.db.execute(query, (problem,))}
-        except (sqlite3.DatabaseError, ValueError) as err:
+            for point, text, success in self.db.execute(query, (problem,)):
+                row = _valid_row(problem, point, text, success, outputs, key)
+                if row is None:
+                    refused += 1
+                elif row["success"] or not retry_failed:
+                    found[point] = row
+        except sqlite3.DatabaseError as err:
             raise self._refused(f"unreadable: {err}") from None
+        if refused:
+            note(f"sweep store {self.path}: {refused} stored point{'s' if refused > 1 else ''} skipped (edited, "
+                 "damaged, or stored without this cache's key) and solved again")
+        return found
 
     def write(self, problem: str, rows: list[dict]) -> None:
+        from ..programs.compiled import signing_key
+
+        key = signing_key(create=True)
         try:
             with self.db:  # one transaction per unit
                 self.db.executemany(
                     "INSERT OR REPLACE INTO points (problem, point, row, success) VALUES (?, ?, ?, ?)",
-                    [(problem, _grid_key(r["point"]), json.dumps(r, allow_nan=True), int(r["success"])) for r in rows],
+                    [(problem, _grid_key(r["point"]), _signed_row(problem, r, key), int(r["success"])) for r in rows],
                 )
         except sqlite3.DatabaseError as err:
             raise OptionError(f"cannot write to the store {self.path}: {err}") from None
@@ -339,10 +414,9 @@ class SweepResult:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Design chart: one curve per value of the slower parameters, every output (or ``output``)
-        on its own panel (``plot`` extra; options of :func:`bvpkit.io.plots.sweep_figure`)."""
-        from ..io.plots import sweep_figure
+        on its own panel (``plot`` extra; options of :func:`bvpkit.families.plots.sweep_figure`)."""
 
-        return sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+        return plots.sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray]:  # noqa: ANN001
@@ -434,7 +508,6 @@ class _MainHidden:
 
 class _WorkerProcess(SpawnProcess):
     """A spawned worker that starts without the caller's ``__main__`` (see :class:`_MainHidden`)."""
-
     def start(self) -> None:
         # SIGINT blocked while the worker is made: the worker inherits the mask and never
         # sees Ctrl-C (the parent handles it), even while it is still importing; in the
@@ -521,8 +594,6 @@ def sweep(
     -------
     SweepResult
     """
-    from ..reduce.prepared import Prepared, prepare
-    from ..language.problem import Problem
 
     if _starting_worker():
         # an executor of the caller's that imports __main__ again in its workers
@@ -542,7 +613,7 @@ def sweep(
     # (no SymPy in the workers)
     quantities = {**prepared.quantities, **{text: prepared.quantity(text) for text in labels.values()}}
     plain = dataclasses.replace(prepared, quantities=quantities).plain()
-    solver = {k: v for k, v in prepared.settings.items() if k in ("method", "tol", "max_nodes", "verify", "truncation")}
+    solver = {k: v for k, v in prepared.options.as_dict().items() if k in prepared.settings}
     problem_key = _key((prepared.facts["key"], sorted(prepared.constants.items()), sorted(prepared.facts["own"].items()),
                         sorted(solver.items()), sorted(labels.values()), sorted(options.items()), sorted(axes)))
     names = list(axes)
@@ -550,7 +621,7 @@ def sweep(
     started = time.perf_counter()
     db = _Store(store)
     try:
-        done = db.done(problem_key, retry_failed)
+        done = db.done(problem_key, retry_failed, list(labels.values()))
         units = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):
             slow = tuple(zip(slow_names, map(float, slow_values)))

@@ -22,8 +22,11 @@ from typing import Any
 from .._interrupt import MESSAGE as INTERRUPTED
 from .._interrupt import early_interrupt, wants_json
 from .._output import json_ready
-from ..status import Status
+from ..errors import BvpkitError, MissingExtraError, OptionError, closest
+from ..language import limits
+from ..language.options import OPTIONS
 from ..language.units import label, units_of
+from ..status import Status
 
 _EPILOG = "exit codes: " + ", ".join(f"{s.exit_code} {s.word}" for s in Status)
 
@@ -34,14 +37,57 @@ def _methods() -> list[str]:
     return ["auto", *REGISTRY]
 
 
+class _Methods:
+    """The ``--method`` choices, read from the registry only when asked (a value given, or
+    the help shown): importing the methods brings in SciPy's sparse modules, which a spec
+    refused on reading must not wait for."""
+
+    def __contains__(self, name: object) -> bool:
+        return name in _methods()
+
+    def __iter__(self):  # noqa: ANN204
+        return iter(_methods())
+
+    def __len__(self) -> int:
+        return len(_methods())
+
+
 class _Parser(argparse.ArgumentParser):
     """Usage errors are bad input: one line (or one JSON object with --json), exit code 2."""
-
     def error(self, message: str):  # noqa: ANN201
         if "--json" in getattr(self, "_argv", sys.argv[1:]):
             print(json.dumps({"success": False, "status": Status.BAD_INPUT.word, "message": message}))
             sys.exit(Status.BAD_INPUT.exit_code)
         super().error(message)
+
+
+def _option_flags(parser: argparse.ArgumentParser, names: Any, says: dict[str, str] | None = None) -> None:
+    """The flags of solve options (language/options.py: one entry each, shared with the
+    spec's ``[solver]`` table and Python's keywords); the library checks the values."""
+    kinds = {"number": float, "count": int, "word": str}
+    for name in names:
+        option = OPTIONS[name]
+        words = (says or {}).get(name, option.says)
+        if option.kind == "switch":
+            parser.add_argument(option.flag, dest=name, action="store_const", const=not option.default, help=words)
+        elif name == "method":  # the names listed only when asked (the registry imports SciPy)
+            parser.add_argument(option.flag, dest=name, choices=_Methods(), metavar="METHOD",
+                                help=f"{words}: %(choices)s")
+        else:
+            parser.add_argument(option.flag, dest=name, type=kinds[option.kind], help=words,
+                                metavar="SECONDS" if name == "time_limit" else None)
+
+
+def _flag_values(args: argparse.Namespace, names: Any) -> dict[str, Any]:
+    """The values of option flags, checked here so that an error names the flag typed."""
+    values = {name: getattr(args, name, None) for name in names}
+    for name, value in values.items():
+        if value is not None:
+            try:
+                OPTIONS[name].check(value)
+            except OptionError as err:
+                raise OptionError(str(err).replace(name, OPTIONS[name].flag, 1)) from None
+    return values
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -59,15 +105,7 @@ def _parser() -> argparse.ArgumentParser:
         "solve", help="solve the problem of a TOML spec", description="Solve the problem of a TOML spec and print a summary.", epilog=_EPILOG
     )
     solve.add_argument("spec", help="path of the TOML spec file")
-    solve.add_argument("--method", choices=_methods(), help="solution method (default: the spec's, else auto)")
-    solve.add_argument("--tol", type=float, help="tolerance on the relative error (default: the spec's, else 1e-6)")
-    solve.add_argument("--max-nodes", type=int, help="mesh limit")
-    solve.add_argument("--no-verify", action="store_true", help="skip the error estimate (faster)")
-    solve.add_argument("--homotopy", metavar="NAME",
-                       help="continuation from an easier problem: auto (default), off, or a constant to "
-                       "continue in")
-    solve.add_argument("--time-limit", type=float, metavar="SECONDS",
-                       help="time for the whole solve (default 8)")
+    _option_flags(solve, OPTIONS)
     solve.add_argument(
         "--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)"
     )
@@ -91,8 +129,7 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--output", action="append", metavar="EXPR",
                        help="an expression (or output name) to record; repeatable (default: the spec's)")
     trace.add_argument("--max-points", type=int, help="upper bound on the points (default 200)")
-    trace.add_argument("--tol", type=float, help="tolerance of each point")
-    trace.add_argument("--method", choices=_methods(), help="method of the natural steps")
+    _option_flags(trace, ["tol", "method"], {"tol": "tolerance of each point", "method": "method of the natural steps"})
     trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
     trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
@@ -122,7 +159,7 @@ def _parser() -> argparse.ArgumentParser:
     folds.add_argument("--output", action="append", metavar="EXPR", help="an expression or output name; repeatable")
     folds.add_argument("--at", action="append", type=float, metavar="VALUE",
                        help="locate the fold exactly at this value of the second constant; repeatable")
-    folds.add_argument("--tol", type=float, help="tolerance of each point")
+    _option_flags(folds, ["tol"], {"tol": "tolerance of each point"})
     folds.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     folds.add_argument("--csv", metavar="FILE", help="write the curve as CSV")
     folds.add_argument("--json", action="store_true", help="print the curve as JSON instead of a table")
@@ -144,8 +181,7 @@ def _parser() -> argparse.ArgumentParser:
         "--grid", action="append", metavar="NAME=FROM:TO:COUNT[:geometric] | NAME=V1,V2,...",
         help="an axis of the grid (repeatable; the first is the fast axis); replaces the spec's [sweep] grid",
     )
-    sweep.add_argument("--tol", type=float, help="tolerance of each point")
-    sweep.add_argument("--method", choices=_methods(), help="solution method")
+    _option_flags(sweep, ["tol", "method"], {"tol": "tolerance of each point"})
     sweep.add_argument("--csv", metavar="FILE", help="write the table as CSV")
     sweep.add_argument("--json", action="store_true", help="print the table as JSON")
     sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra; the suffix names "
@@ -161,7 +197,6 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _constants(pairs: list[str]) -> dict[str, float]:
-    from ..errors import OptionError
 
     values = {}
     for pair in pairs:
@@ -176,7 +211,6 @@ def _constants(pairs: list[str]) -> dict[str, float]:
 
 
 def _no_nul(name: str, what: str) -> None:
-    from ..errors import OptionError
 
     if "\x00" in name:
         raise OptionError(f"{what} {name!r} holds a NUL character")
@@ -184,8 +218,6 @@ def _no_nul(name: str, what: str) -> None:
 
 def _writable(name: str | None) -> Path | None:
     """A path given on the command line: the user's choice, but its folder must exist."""
-    from ..errors import OptionError
-
     if name is None:
         return None
     _no_nul(name, "output file")
@@ -202,8 +234,6 @@ def _writable(name: str | None) -> Path | None:
 
 def _picture(name: str | None) -> Path | None:
     """A ``--plot`` file: checked before any computation (matplotlib there, a format it writes)."""
-    from ..errors import MissingExtraError, OptionError
-
     path = _writable(name)
     if path is None:
         return None
@@ -245,7 +275,6 @@ class SpecOutput:
     """
 
     def __init__(self, name: str, overwrite: bool, key: str):
-        from ..errors import OptionError
 
         self.name, self.overwrite, self.key = name, overwrite, key
         _no_nul(name, f"output file named in the spec's [save] {key}")
@@ -266,8 +295,6 @@ class SpecOutput:
 
     def open(self):  # noqa: ANN201 - a text file object
         """The file, opened for writing without following any link on its way."""
-        from ..errors import OptionError
-
         nofollow = getattr(os, "O_NOFOLLOW", 0)
         flags = os.O_WRONLY | os.O_CREAT | nofollow | (os.O_TRUNC if self.overwrite else os.O_EXCL)
         try:
@@ -309,19 +336,18 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
-    from ..public import solve
-    from ..errors import OptionError
-    from ..reduce.prepared import cached, prepare, remember, spec_key
-
     overrides = _constants(args.set)
-    key = spec_key(args.spec, overrides)
-    problem = cached(key)  # prepared by an earlier run: no parsing, no SymPy
+    text = args.spec_text  # read once (see _main): the key, the check of a kept preparation, the problem
+    from ..errors import BvpkitError, ProgramError
+    from ..reduce.prepared import cached, remember, spec_key
+
+    key = spec_key(text, overrides)
+    problem = cached(key, text, overrides)  # prepared by an earlier run: no parsing, no SymPy
     fresh = problem is None
     if fresh:
-        from .. import load
-
-        loaded = load(args.spec)
-        problem = prepare(loaded.with_constants(**overrides) if overrides else loaded)
+        problem = _prepare_spec(args.spec, text, overrides)
+    # the files to write come from the spec's text (a kept preparation is used only when its
+    # settings agree with it, and then they are replaced by the text's own)
     save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
     picture = _picture(args.plot)
@@ -330,19 +356,22 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
     if save.get("report_json"):
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
-    if args.max_nodes is not None and args.max_nodes < 10:
-        raise OptionError("--max-nodes must be at least 10")
-    solution = solve(
-        problem,
-        method=args.method,
-        tol=args.tol,
-        max_nodes=args.max_nodes,
-        verify=False if args.no_verify else None,
-        homotopy=args.homotopy,
-        time_limit=args.time_limit,
-    )
+    options = _flag_values(args, OPTIONS)
+    from ..public import solve  # after the problem is read: a bad spec does not wait for SciPy
+
+    try:
+        solution = solve(problem, **options)
+    except Exception as err:  # noqa: BLE001 - only a kept preparation is retried; a fresh one's error stands
+        if fresh or (isinstance(err, BvpkitError) and not isinstance(err, ProgramError)):
+            raise
+        # a kept preparation that passed every check and still fails in use: prepared afresh
+        from ..programs.compiled import note
+
+        note(f"cache entry for {args.spec} skipped: it failed in use ({type(err).__name__}); prepared afresh")
+        problem, fresh = _prepare_spec(args.spec, text, overrides), True
+        solution = solve(problem, **options)
     if fresh:
-        remember(key, problem)
+        remember(key, problem, text, overrides)
     # the user asked for the file: a failed solve's is written too, every header saying it failed
     if csv_path is not None:
         solution.to_csv(csv_path, allow_failed=True)
@@ -368,12 +397,27 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     return solution.status.exit_code, None
 
 
+def _load(args: argparse.Namespace):  # noqa: ANN202 - a Problem
+    """The problem of the spec file (its text read once, in _main), validated."""
+    from .spec import loads
+
+    return loads(args.spec_text, str(args.spec))
+
+
+def _prepare_spec(path: str, text: str, overrides: dict[str, float]):  # noqa: ANN202 - a Prepared
+    from ..reduce.prepared import prepare
+    from .spec import loads
+
+    loaded = loads(text, str(path))
+    return prepare(loaded.with_constants(**overrides) if overrides else loaded)
+
+
 def _trace(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load, trace
+    from .. import trace
     from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
-    problem = load(args.spec)
+    problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     settings = dict(problem.settings.get("trace", {}))
@@ -430,11 +474,11 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import fold_curve, load
+    from .. import fold_curve
     from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
-    problem = load(args.spec)
+    problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     settings = dict(problem.settings.get("fold_curve", {}))
@@ -472,7 +516,6 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load
     from .. import sweep
     from ..errors import MissingExtraError, OptionError
 
@@ -480,7 +523,7 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     if args.store is not None:
         _no_nul(args.store, "store")
     grid = _grid(args.grid) if args.grid else None
-    problem = load(args.spec)
+    problem = _load(args)
     settings = dict(problem.settings.get("sweep") or {})
     if grid is not None:
         settings["grid"] = grid
@@ -534,10 +577,9 @@ def _units_line(units: dict[str, str], names: Sequence[str]) -> str:
 
 
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load
     from ..reduce.form import standard_form
 
-    problem = load(args.spec)
+    problem = _load(args)
     form = standard_form(problem)
     report = check_report(problem, form)
     _check_solver(problem, form)
@@ -546,7 +588,6 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
         names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
         for name in names:
             if name is not None and name not in problem.constants:
-                from ..errors import OptionError, closest
 
                 raise OptionError(f"{args.spec}: [{section}] names '{name}', which is not a constant of the problem"
                                   f"{closest(name, problem.constants)}")
@@ -569,7 +610,7 @@ def _check_solver(problem, form) -> None:  # noqa: ANN001
     constant named for continuation that the problem lacks."""
     from .. import methods
     from ..errors import OptionError, closest
-    from ..generated.compiled import NEEDS
+    from ..programs.compiled import NEEDS
     from ..solver.driver import options
 
     chosen = options(problem.settings, {})
@@ -654,6 +695,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _main(arguments)
     except KeyboardInterrupt:
         return _interrupted(wants_json)
+    except _OutputFailed as err:  # the standard output cannot take the outcome: said on stderr
+        return _fail(Status.BAD_INPUT, f"cannot write the standard output: {err}", False)
 
 
 def _wants_json(arguments: Sequence[str]) -> bool:
@@ -668,13 +711,20 @@ def _main(arguments: list[str]) -> int:
     args = parser.parse_args(arguments)
     wants_json = getattr(args, "json", False)
     try:
-        from ..errors import BvpkitError
 
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
                    "fold-curve": _fold_curve}[args.command]
+        if getattr(args, "spec", None) is not None:
+            from .specfile import read_spec
+
+            # once, first, before anything heavy is imported: a FIFO, a device or a file past
+            # the size limit is refused in a fraction of a second, and never read whole
+            args.spec_text = read_spec(args.spec)
         code, report = handler(args)
     except KeyboardInterrupt:
         return _interrupted(wants_json)
+    except _OutputFailed:
+        raise
     except BvpkitError as err:
         return _fail(Status.BAD_INPUT, err.one_line(), wants_json)
     except OSError as err:  # writing an output file failed after all (disk full, permissions)
@@ -707,27 +757,47 @@ def _ignore_interrupts() -> None:
         pass
 
 
+class _OutputFailed(Exception):  # noqa: N818 - not an error of the input: the standard output is full or gone
+    """The standard output refused a write (a full disk, ``> /dev/full``)."""
+
+
 def _say(text: str, stream: Any = None) -> None:
     """Print a line; a reader that went away (``| head``, ``| true``) silences the rest, nothing more.
 
-    The exit code is the outcome's, whatever happened to the output.
+    The exit code is the outcome's, whatever happened to the output. Any other failure to
+    write the standard output (a full disk) raises :class:`_OutputFailed`, which :func:`main`
+    says in one line on standard error (exit code 2); standard error's own failures are
+    ignored.
     """
     stream = stream or sys.stdout
     try:
         print(text, file=stream, flush=True)
     except BrokenPipeError:
-        try:
-            devnull = os.open(os.devnull, os.O_WRONLY)
-            os.dup2(devnull, stream.fileno())  # Python's final flush at exit must not fail again
-            os.close(devnull)
-        except (OSError, ValueError):
-            pass
+        _silence(stream)
+    except OSError as err:
+        _silence(stream)
+        if stream is sys.stdout:
+            raise _OutputFailed(err.strerror or type(err).__name__) from None
+
+
+def _silence(stream: Any) -> None:
+    """Point ``stream`` at the null device: Python's final flush at exit must not fail again."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, stream.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):
+        pass
 
 
 def _fail(status: Status, message: str, wants_json: bool) -> int:
     if wants_json:
-        _say(json.dumps({"success": False, "status": status.word, "message": message}))
-    elif message.lower().startswith((status.word, status.word.replace("_", " "))):
+        try:
+            _say(json.dumps({"success": False, "status": status.word, "message": message}))
+            return status.exit_code
+        except _OutputFailed:  # the line goes to standard error instead
+            pass
+    if message.lower().startswith((status.word, status.word.replace("_", " "))):
         _say(f"bvpkit: {message}", sys.stderr)  # the message says the status itself: once is enough
     else:
         _say(f"bvpkit: {status.word}: {message}", sys.stderr)
@@ -735,8 +805,6 @@ def _fail(status: Status, message: str, wants_json: bool) -> int:
 
 
 def _number(value: Any, what: str) -> float:
-    from ..language import limits
-    from ..errors import OptionError
 
     try:
         return limits.check_value(value, what)
@@ -746,7 +814,6 @@ def _number(value: Any, what: str) -> float:
 
 def _grid(items: list[str]) -> dict[str, list[float]]:
     """``--grid`` axes: ``NAME=FROM:TO:COUNT[:geometric|linear]`` or ``NAME=V1,V2,...``, in order."""
-    from ..errors import OptionError
     from ..families.sweep import axis_values
 
     grid: dict[str, list[float]] = {}

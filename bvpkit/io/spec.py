@@ -64,13 +64,15 @@ from pydantic import (
     StrictInt,
     StrictStr,
     ValidationError,
+    create_model,
 )
 
 from ..errors import BvpkitError, ExpressionError, SpecError
+from ..language import limits
+from ..language.options import OPTIONS
 from ..language.problem import Problem
-
-#: Spec files larger than this are refused unread: a real spec is a few kilobytes.
-MAX_SPEC_BYTES = 1_000_000
+from ..language.units import check_units, names_with_units
+from .specfile import read_spec
 
 Number = StrictInt | StrictFloat
 End = StrictInt | StrictFloat | StrictStr
@@ -100,14 +102,10 @@ class ProblemSection(_Model):
     regions: list[RegionSection] | None = None
 
 
-class SolverSection(_Model):
-    method: StrictStr = "auto"
-    tol: Number | None = None
-    max_nodes: StrictInt | None = None
-    verify: StrictBool | None = None
-    truncation: Number | None = None
-    homotopy: StrictStr | None = None
-    time_limit: Number | None = None
+#: The ``[solver]`` table: one key per solve option (language/options.py), of its kind.
+_KINDS = {"number": Number, "count": StrictInt, "switch": StrictBool, "word": StrictStr}
+SolverSection = create_model("SolverSection", __base__=_Model,
+                             **{o.name: (_KINDS[o.kind] | None, None) for o in OPTIONS.values()})
 
 
 class TraceSection(_Model):
@@ -452,7 +450,6 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     except BvpkitError as err:
         raise SpecError(f"{source}: {_section(str(err))} {err}") from err
     if spec.units:
-        from ..language.units import check_units, names_with_units
 
         try:
             check_units(spec.units, names_with_units(problem), "[units]")
@@ -463,7 +460,6 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
 
 def _values(name: str, axis: Any, source: str) -> list[float]:
     """A grid axis: a list as given, or ``{from, to, count, spacing = linear | geometric}``."""
-    from ..language import limits
     from ..families.sweep import axis_values
 
     try:
@@ -486,21 +482,4 @@ def loads(text: str, source: str = "<spec>") -> Problem:
 
 def load(path: str | Path) -> Problem:
     """Read a spec file -> :class:`Problem` (solver settings and outputs carried along)."""
-    path = Path(path)
-    try:
-        size = path.stat().st_size
-        if size > MAX_SPEC_BYTES:
-            raise SpecError(f"{path}: {size} bytes; spec files are limited to {MAX_SPEC_BYTES}")
-        with open(path, "rb") as handle:
-            raw = handle.read(MAX_SPEC_BYTES + 1)
-    except FileNotFoundError:
-        raise SpecError(f"{path}: no such file") from None
-    except IsADirectoryError:
-        raise SpecError(f"{path}: is a folder, not a spec file") from None
-    except OSError as err:
-        raise SpecError(f"{path}: cannot read ({err.strerror})") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise SpecError(f"{path}: not UTF-8 text (byte {err.start})") from None
-    return loads(text, str(path))
+    return loads(read_spec(path), str(Path(path)))

@@ -44,6 +44,14 @@ class Option:
     low: float | None = None
     high: float | None = None
     help: str = ""
+    #: What the option does, in the words of the command line's help.
+    says: str = ""
+
+    @property
+    def flag(self) -> str:
+        """The command line's flag (``--max-nodes``; a switch that is on by default: ``--no-verify``)."""
+        word = self.name.replace("_", "-")
+        return f"--no-{word}" if self.kind == "switch" and self.default is True else f"--{word}"
 
     def check(self, value: Any) -> Any:
         """``value`` converted and checked (an :class:`OptionError` naming the option otherwise)."""
@@ -58,7 +66,7 @@ class Option:
         number = isinstance(value, int | float) and not isinstance(value, bool)
         if self.kind == "count":
             if not number or float(value) != int(value) or not self.low <= int(value) <= self.high:
-                raise OptionError(f"{self.name} must be a whole number from {self.low:g} to {self.high:g}, "
+                raise OptionError(f"{self.name} must be a whole number from {self.low:,} to {self.high:,}, "
                                   f"got {value!r}")
             return int(value)
         if not number or not math.isfinite(value) or not self.low <= float(value) <= self.high:
@@ -67,15 +75,20 @@ class Option:
 
 
 OPTIONS: dict[str, Option] = {o.name: o for o in (
-    Option("method", "word", "auto", help='"auto" or the name of a method'),
+    Option("method", "word", "auto", help='"auto" or the name of a method',
+           says="solution method (default: the spec's, else auto)"),
     Option("tol", "number", DEFAULT_TOL, TOL_FLOOR, TOL_CEILING,
-           help=f"a number between {TOL_FLOOR:g} and {TOL_CEILING:g}"),
-    Option("max_nodes", "count", DEFAULT_MAX_NODES, 10, 10**7),
-    Option("verify", "switch", True),
-    Option("truncation", "number", DEFAULT_TRUNCATION, 1e-8, 1e8, help="a positive length below 1e8"),
-    Option("homotopy", "word", "auto", help='"auto", "off" or the name of a constant'),
+           help=f"a number between {TOL_FLOOR:g} and {TOL_CEILING:g}",
+           says=f"tolerance on the relative error (default: the spec's, else {DEFAULT_TOL:g})"),
+    Option("max_nodes", "count", DEFAULT_MAX_NODES, 10, 10**7, says=f"mesh limit (default {DEFAULT_MAX_NODES})"),
+    Option("verify", "switch", True, says="skip the error estimate (faster)"),
+    Option("truncation", "number", DEFAULT_TRUNCATION, 1e-8, 1e8, help="a positive length below 1e8",
+           says=f"first placement of an infinite end (default {DEFAULT_TRUNCATION:g}; moved out from there)"),
+    Option("homotopy", "word", "auto", help='"auto", "off" or the name of a constant',
+           says="continuation from an easier problem: auto (default), off, or a constant to continue in"),
     Option("time_limit", "number", DEFAULT_TIME_LIMIT, 1e-3, 1e6,
-           help="a positive number of seconds (at most 1e6)"),
+           help="a positive number of seconds (at most 1e6)",
+           says=f"seconds for the whole solve (default {DEFAULT_TIME_LIMIT:g} with method auto)"),
 )}
 
 

@@ -11,15 +11,16 @@ standard form, then compiled code); see ``reduce.py`` and ``prepared.py``.
 
 from __future__ import annotations
 
-import hashlib
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from . import limits as _limits
 from .._lazy import LazyModule, applied_undef
 from ..errors import ExpressionError, ProblemError, closest
+from . import limits as _limits
+from .exact import exact_key
+from .options import SolveOptions
 
 sp = LazyModule("sympy")  # imported when a problem is first built from text
 _expr = LazyModule("bvpkit.language.expr")
@@ -34,9 +35,8 @@ _SOLUTION_AS_GUESS = (
 
 
 def _is_solution(value: Any) -> bool:
-    from ..solver.solution import Solution
-
-    return isinstance(value, Solution)
+    """Whether ``value`` is a solution (it has the map back every Solution carries)."""
+    return hasattr(value, "interpolant") and hasattr(value, "prepared")
 
 
 def _check_guess_kind(guess: Any) -> None:
@@ -187,6 +187,7 @@ class Problem:
         self.constants = _numbers(constants or {}, "constant")
         self.unknown_parameters = _numbers(unknown_parameters or {}, "unknown parameter")
         self.settings = dict(settings or {})
+        self.options = SolveOptions.make(self.settings)  # the solver's settings, checked once
         overlap = set(self.constants) & set(self.unknown_parameters)
         if overlap:
             raise ProblemError(f"'{sorted(overlap)[0]}' is both a constant and an unknown parameter")
@@ -225,8 +226,10 @@ class Problem:
         # The reduction validates what only it can see (isolating the highest derivatives,
         # singular terms), so a Problem that constructs is a Problem that can be prepared.
         from ..reduce.form import standard_form
+        from .budget import preparation
 
-        standard_form(self)
+        with preparation("reducing the problem to first order", advice="simplify the equations"):
+            standard_form(self)
 
     def __setattr__(self, name: str, value: Any) -> None:
         if self.__dict__.get("_frozen"):
@@ -798,13 +801,15 @@ class Problem:
         """A hash of the problem's structure: what it says, not the values of its constants or
         the guesses of its parameters (those change without new code). With ``generated``,
         also what else is turned into code: the guess expressions and the outputs."""
-        parts = [self.independent, self.unknowns, self.equation_text, self.condition_text,
-                 [sp.srepr(p) for p in self.points], list(self.constants), list(self.unknown_parameters),
+        # the parsed expressions, every number by its exact binary value (text printed by
+        # SymPy shows 15 digits: 1.0 and 1.0000000000000049 alike)
+        parts = [self.independent, self.unknowns, self.equations, self.conditions,
+                 list(self.points), list(self.constants), list(self.unknown_parameters),
                  self.eigenvalue, self.mode,
-                 [(r.equation_text, sorted(r.constants)) for r in self.regions]]
+                 [(r.equations, sorted(r.constants)) for r in self.regions]]
         if generated:
-            parts += [sorted((k, sp.srepr(v)) for k, v in self.guess.items()), sorted(self.outputs.items())]
-        return hashlib.sha256(repr(parts).encode()).hexdigest()[:32]
+            parts += [sorted(self.guess.items()), sorted(self.outputs.items())]
+        return exact_key(parts)
 
     @property
     def point_labels(self) -> list[str]:

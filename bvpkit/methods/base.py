@@ -32,16 +32,17 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..generated.compiled import NEEDS, CompiledSystem
+from ..language.options import TOL_FLOOR
+from ..programs.compiled import NEEDS, CompiledSystem
+from ..status import Status
 from .diagnostics import hermite
 from .discrete import midpoint_values
-from ..status import Status
 
 # Each round of tightening asks for this fraction of the tolerance times the ratio of the
 # tolerance to the error seen; three rounds cover a miss of several orders of magnitude.
 _TIGHTEN_SAFETY = 0.3
 _TIGHTEN_ROUNDS = 3
-_SMALLEST_TOL = 1e-13  # below this, double precision round-off dominates any method
+_SMALLEST_TOL = TOL_FLOOR  # below this, double precision round-off dominates any method
 
 
 @dataclass

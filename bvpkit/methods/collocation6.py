@@ -31,10 +31,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .diagnostics import stability_constant
-from .discrete import SingularMatrix, factor_blocks, one_blas_thread
+from ..language.options import TOL_FLOOR
 from ..status import Status
 from .base import Method, Outcome, Trial
+from .diagnostics import hermite, stability_constant
+from .discrete import SingularMatrix, factor_blocks, one_blas_thread
 
 _ROOT5 = math.sqrt(5.0)
 _C = np.array([0.0, (5 - _ROOT5) / 10, (5 + _ROOT5) / 10, 1.0])
@@ -81,7 +82,6 @@ def _output_mesh(x: np.ndarray) -> np.ndarray:
 @dataclass
 class _Discrete:
     """A converged solve on one mesh: nodes ``y (n, m)``, stages ``Z (n, m-1, 2)``, parameters."""
-
     x: np.ndarray
     y: np.ndarray
     z: np.ndarray
@@ -250,7 +250,6 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
     """Per interval of the coarse mesh, the largest relative difference ``|u - u_fine| / (1 +
     |u_fine|)`` at its output points and between them (the coarse output's C1 cubic, as a
     Solution evaluates it, against the fine polynomials)."""
-    from .diagnostics import hermite
 
     xo, yo = coarse.output()
     mid = 0.5 * (xo[1:] + xo[:-1])
@@ -272,7 +271,6 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
 @dataclass
 class _State:
     """The finer solve of the last round, the reference of the error estimate."""
-
     reference: Outcome
 
 
@@ -292,7 +290,7 @@ class SixthOrderCollocation(Method):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x0, y0, p)
         if not (np.isfinite(y0).all() and np.isfinite(p).all()):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x0, y0, p)
-        tol = max(trial.tol, 1e-13)
+        tol = max(trial.tol, TOL_FLOOR)
         # the starting mesh: the guess's, thinned (each interval of this method does the work
         # of several of the 4th-order one)
         x = x0[::2] if x0.size > 21 else x0.copy()

@@ -27,10 +27,11 @@ import math
 import numpy as np
 import scipy.sparse as sparse
 
-from .diagnostics import hermite, survey
-from .discrete import SingularMatrix, factor_blocks
 from ..status import Status
 from .base import Method, Outcome, Trial
+from .collocation import check_by_defect
+from .diagnostics import hermite, survey
+from .discrete import SingularMatrix, factor_blocks
 
 # Integration tolerance relative to the tolerance asked: the integrator's local control
 # leaves a global error of a few times its rtol on smooth problems.
@@ -69,7 +70,6 @@ class _State:
 @dataclasses.dataclass
 class _Flow:
     """Result of integrating every segment from given node states."""
-
     ends: np.ndarray  # (n, M) states at the segment ends
     phi: np.ndarray  # (n, n, M)
     psi: np.ndarray  # (n, n_p, M)
@@ -79,7 +79,6 @@ class _Flow:
 
 class Shooting(Method):
     """Shared engine; subclasses fix how segments are chosen."""
-
     # takes no singular term: the sensitivities of a start off S y(0) = 0 blow up at t = 0
 
     fixed_segments: int | None = None  # 1 for single shooting
@@ -99,7 +98,6 @@ class Shooting(Method):
         outcome = super()._solve_and_verify(trial)
         if not (trial.verify and outcome.status in (Status.SOLVED, Status.ERROR_TOO_LARGE)):
             return outcome
-        from .collocation import check_by_defect
 
         check, condition = check_by_defect(trial.compiled, outcome.x, outcome.y, outcome.p, trial.k)
         if condition is not None and math.isfinite(condition):

@@ -26,7 +26,7 @@ import numpy as np
 from .._lazy import LazyModule
 from ..methods.diagnostics import hermite
 from ..status import Status
-from .guess import Start, carried, positions
+from .mapping import Start, carried, positions
 from .transform import Transform, register
 
 sp = LazyModule("sympy")
@@ -112,6 +112,7 @@ class Infinite(Transform):
 
     def describe(self, prepared, run, ends: tuple[float, float]) -> str:  # noqa: ANN001
         run.notes.setdefault("truncation_length", self.length(prepared, run.k))
+        run.notes["truncation_error"] = run.extra_error
         placed = [f"{v:.4g}" for v, inf in zip(ends, self.infinite) if inf]
         change = run.extra_error
         how = (f"the solution changed by {change:.2g} from the last shorter domain"

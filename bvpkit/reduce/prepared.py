@@ -12,12 +12,14 @@ the file (ends and interfaces in order, finite): the one place every value reach
 solve passes (:func:`bvpkit.language.problem.check_positions`).
 
 A second ``bvpkit solve`` of the same spec file takes the preparation from the disk cache
-(:func:`cached`, :func:`remember`), keyed by the spec file's bytes, the ``--set`` values and
-the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and carries a
-SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
-a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
-from other code is ignored and rewritten. Generated functions travel as programs (plain
-data, :mod:`bvpkit.generated.program`), never as code: they are printed and checked afresh when built.
+(:func:`cached`, :func:`remember`), keyed by the spec file's text, the ``--set`` values and
+the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and signed with
+the cache's key (``compiled.signing_key``); it is read with the checks of
+``compiled.read_private`` (a private folder, a regular file of the user's, a size cap), and
+used only for the spec text and values it was made for, after the checks of :func:`cached`.
+One that is unreadable, damaged, unsigned, refused or from other code is ignored and
+rewritten. Generated functions travel as programs (plain data, :mod:`bvpkit.programs.program`), never
+as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations
@@ -32,22 +34,26 @@ from typing import Any
 
 import numpy as np
 
-from ..generated.compiled import (
+from ..errors import BvpkitError, OptionError, ProblemError, closest
+from ..language.options import SolveOptions
+from ..language.problem import Problem, _numbers, check_positions
+from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
     _cache_dir,
     assemble,
-    build_quantity,
     code_stamp,
     note,
+    quantity_function,
     read_json,
     write_json,
 )
-from ..errors import BvpkitError, OptionError, ProblemError, closest
-from .guess import GuessRecipe
-from ..generated.layout import StateLayout
-from .quantity import Quantity
+from ..programs.layout import StateLayout
+from ..programs.program import stored_size
 from . import classes  # noqa: F401 - registers the problem classes, for reading them back
+from .guess import GuessRecipe
+from .mapping import positions
+from .quantity import Quantity
 from .transform import Transform
 
 
@@ -64,7 +70,7 @@ class Prepared:
         (region values of constants), ``key``.
     layout : StateLayout
     system : dict
-        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.generated.program`),
+        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.programs.program`),
         Jacobian ``pattern``, and condition ``sides``.
     recipes : dict of str to GuessRecipe
     quantities : dict of str to Quantity
@@ -114,6 +120,11 @@ class Prepared:
         return dict(self.facts["settings"])
 
     @property
+    def options(self) -> SolveOptions:
+        """The solver's settings of the problem (a spec's ``[solver]``), as typed options."""
+        return SolveOptions.make(self.facts["settings"])
+
+    @property
     def truncated(self) -> bool:
         """Whether the domain solved on is a truncation of the problem's (an infinite end)."""
         ends = [0.0, 1.0]
@@ -149,7 +160,6 @@ class Prepared:
     def with_constants(self, **values: float) -> Prepared:
         """The same problem with other values of some constants (no new code); checked like
         values in the file."""
-        from ..language.problem import _numbers
 
         missing = [k for k in values if k not in self.constants]
         if missing:
@@ -162,8 +172,6 @@ class Prepared:
 
     def with_parameters(self, **values: float) -> Prepared:
         """The same problem with other guesses of its unknown parameters."""
-        from ..language.problem import _numbers
-
         missing = [k for k in values if k not in self.parameters]
         if missing:
             raise OptionError(f"'{missing[0]}' is not an unknown parameter{closest(missing[0], self.parameters)}")
@@ -172,9 +180,6 @@ class Prepared:
 
     def check(self, p: np.ndarray | None = None, k: np.ndarray | None = None) -> None:
         """Ends and interfaces in order and finite for these values (the one check of values)."""
-        from .guess import positions
-        from ..language.problem import check_positions
-
         with np.errstate(all="ignore"):
             maps = np.asarray(self.compiled.maps(self.p0() if p is None else p, self.k() if k is None else k), float)
         values = list(positions(maps))
@@ -187,8 +192,8 @@ class Prepared:
         """An expression of the solution, compiled (from the preparation, or now, with SymPy)."""
         found = self.quantities.get(text) or _QUANTITIES.get((self.facts["key"], text))
         if found is None:
-            from .quantity import compile_quantity
             from .form import standard_form
+            from .quantity import compile_quantity
 
             problem = self.problem()
             found = compile_quantity(problem, standard_form(problem), text)
@@ -199,8 +204,8 @@ class Prepared:
 
     def recipe(self, name: str, expression: Any) -> GuessRecipe:
         """A guess expression for ``name`` given at solve time, as a recipe (SymPy's work)."""
-        from .guess import expression_recipe
         from .form import standard_form
+        from .guess import expression_recipe
 
         problem = self.problem()
         parsed = problem._guesses({name: expression})[name]
@@ -210,7 +215,6 @@ class Prepared:
         """The symbolic problem (rebuilt from its arguments on first need, with SymPy)."""
         found = _PROBLEMS.get(self.facts["key"])
         if found is None:
-            from ..language.problem import Problem
 
             arguments = dict(self.facts["arguments"])
             found = Problem(**arguments)
@@ -253,7 +257,6 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
     ``bvpkit.solve``, ``trace`` and ``sweep`` call it; call it yourself to solve many
     variations of one problem without touching SymPy again (``prepared.with_constants``).
     """
-    from ..language.problem import Problem
 
     if isinstance(problem, Prepared):
         return problem
@@ -262,7 +265,11 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
     key = problem.key(generated=True)
     template = _PREPARED.get(key)
     if template is None:
-        template = _prepare(problem, key)
+        from ..language.budget import preparation
+
+        with preparation("preparing the problem (code generation, guesses, outputs)",
+                         advice="simplify the equations, or split them with added unknown functions"):
+            template = _prepare(problem, key)
         if len(_PREPARED) > 200:
             _PREPARED.clear()
         _PREPARED[key] = template
@@ -291,10 +298,10 @@ def _plain_arguments(problem) -> dict[str, Any]:  # noqa: ANN001
 
 
 def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
-    from ..generated.codegen import compile_system
+    from ..programs.codegen import compile_system
+    from .form import standard_form
     from .guess import guess_recipes
     from .quantity import compile_quantity
-    from .form import standard_form
 
     form = standard_form(problem)
     compiled = compile_system(form)
@@ -314,15 +321,11 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
 _KIND = "problem"
 
 
-def spec_key(path: str | Path, overrides: Mapping[str, float]) -> str | None:
-    """Key of a spec file with ``--set`` values (None when the file cannot be read)."""
-    try:
-        data = Path(path).read_bytes()
-    except OSError:
-        return None
+def spec_key(text: str, overrides: Mapping[str, float]) -> str:
+    """Key of a spec's text (as :func:`bvpkit.io.specfile.read_spec` read it) with ``--set`` values."""
     digest = hashlib.sha256()
     digest.update(code_stamp().encode())
-    digest.update(b"\0" + data + b"\0")
+    digest.update(b"\0" + text.encode("utf-8", "surrogatepass") + b"\0")
     digest.update(json.dumps(sorted(overrides.items())).encode())
     return digest.hexdigest()[:32]
 
@@ -332,28 +335,189 @@ def _file(key: str) -> Path | None:
     return None if folder is None else folder / f"{_KIND}-{key}-{code_stamp()}.json"
 
 
-def cached(key: str | None) -> Prepared | None:
-    """The preparation kept under ``key`` (no SymPy), or None (missing, skipped, damaged)."""
-    path = None if key is None else _file(key)
+def _given(overrides: Mapping[str, float]) -> list:
+    return [[k, float(v)] for k, v in sorted(overrides.items())]
+
+
+def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | None:
+    """The preparation kept under ``key`` (no SymPy), or None: missing, skipped or damaged,
+    or made for another problem.
+
+    An entry carries the text of the spec and the ``--set`` values it was made for, and is
+    used for that text and those values only. What the spec says as given (title, settings,
+    the files to write, constants, parameter guesses, the arguments that rebuild the problem)
+    is read from ``text`` itself (:func:`bvpkit.io.specfile.spec_facts`) and must agree with the
+    entry; the rest (layout, programs, recipes, outputs) is checked for shape and consistency
+    (:func:`_check_entry`) and built before it is used. Anything else: one note, and None.
+    """
+    from ..io.specfile import spec_facts
+
+    path = _file(key)
     if path is None:
         return None
     body = read_json(path)
     if body is None:
         return None
     try:
-        if body["key"] != key:
-            raise KeyError("key")
+        if type(body) is not dict or body.get("key") != key:
+            raise _Refused("it does not hold what its name says")
+        if body.get("spec") != text or body.get("set") != _given(overrides):
+            raise _Refused("it was made for another spec or other --set values")
+        given = spec_facts(text, overrides)
+        if given is None:
+            raise _Refused("the spec does not read as the one it was made for")
         prepared = Prepared.from_plain(body["prepared"])
-        # every program is validated and built now, not in the middle of a solve
+        system = prepared.system.get("programs")
+        stored_size([*(system if type(system) is list else []),
+                     *(r.program for r in prepared.recipes.values()), *_programs(prepared.quantities.values())])
+        mine = {"title": prepared.facts.get("title"), "settings": prepared.facts.get("settings"),
+                "arguments": prepared.facts.get("arguments"), "own": prepared.facts.get("own"),
+                "outputs": prepared.facts.get("outputs"), "constants": prepared.constants,
+                "parameters": prepared.parameters}
+        if _canonical(mine) != _canonical({name: given[name] for name in mine}):
+            raise _Refused("what it holds of the spec (a value, a setting or a file name) differs from the spec")
+        # bound to this spec by name, whatever the entry says: memos of this process are keyed by it
+        facts = {**prepared.facts, **{name: given[name] for name in ("title", "settings", "arguments", "own",
+                                                                     "outputs")}, "key": f"spec-{key}"}
+        layout = dataclasses.replace(prepared.layout, key=f"spec-{key}")
+        prepared = dataclasses.replace(prepared, facts=facts, layout=layout, constants=dict(given["constants"]),
+                                       parameters=dict(given["parameters"]))
+        _check_entry(prepared)
+        # every program is validated and built now, not in the middle of a solve, and kept
+        # where the solve looks for it (built once)
         for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
                         *_programs(prepared.quantities.values())]:
-            build_quantity(program)
+            if type(program) is not dict or program.get("name") != "quantity":
+                raise _Refused("a compiled output or guess is not a program of one")
+            quantity_function(program)
         prepared.compiled  # noqa: B018 - builds the system's programs now
+        prepared.check()
         return prepared
-    except (ValueError, KeyError, TypeError, IndexError, AttributeError, RecursionError) as err:
+    except _Refused as err:
+        note(f"cache entry {path.name} skipped: {err}")
+    except (ValueError, KeyError, TypeError, IndexError, AttributeError, RecursionError, OverflowError) as err:
         why = err.one_line() if isinstance(err, BvpkitError) else "it does not hold a preparation"
         note(f"cache entry {path.name} skipped: {why}")
-        return None
+    return None
+
+
+_KINDS = frozenset({"given", "continuity", "added", "phase"})
+MAX_ENTRY_STATES = 100_000  # rows of Y a kept preparation may describe (a dense Jacobian of 1000 states
+#   is the largest the program grammar allows; this bounds what is sized before any program is read)
+
+
+def _check_entry(prepared: Prepared) -> None:
+    """Refuse (``_Refused``) a preparation read from disk whose parts do not fit together: the
+    layout, the programs' arguments and shapes, the recipes and the outputs. Cheap: sizes and
+    indexes only, checked before anything is sized or built from them."""
+    layout = prepared.layout
+
+    def whole(value: Any, low: int, high: int) -> bool:
+        return type(value) is int and low <= value <= high
+
+    def names(items: Any) -> bool:
+        return all(type(v) is str for v in items) and len(set(items)) == len(items)
+
+    states, functions = list(layout.states), list(layout.functions)
+    if not (functions and names([f for f, _ in functions]) and all(whole(k, 1, 1000) for _, k in functions)
+            and whole(layout.users, 1, MAX_ENTRY_STATES) and whole(layout.regions, 1, MAX_ENTRY_STATES)
+            and layout.users == sum(k for _, k in functions) and len(states) >= layout.users
+            and states[:layout.users] == [(f, j) for f, k in functions for j in range(k)]
+            and all(type(f) is str and whole(j, 0, 0) for f, j in states[layout.users:])
+            and layout.n <= MAX_ENTRY_STATES):
+        raise _Refused("its state layout does not fit together")
+    n_p, n_k = len(layout.parameters), len(layout.constants)
+    if not (names(layout.parameters) and names(layout.constants) and n_p <= MAX_ENTRY_STATES
+            and n_k <= MAX_ENTRY_STATES and len(layout.condition_kinds) == layout.n + n_p
+            and all(kind in _KINDS for kind in layout.condition_kinds)
+            and type(layout.singular) is bool
+            and (not layout.stretch or (len(layout.stretch) == layout.regions
+                                        and all(whole(d, 1, 10) for d in layout.stretch)))
+            and layout.independent == prepared.facts.get("arguments", {}).get("independent")):
+        raise _Refused("its state layout does not fit together")
+    own = prepared.facts.get("own", {})
+    added = {name for t in prepared.transforms for name in t.constants(None)}  # the classes' own constants
+    if (set(prepared.parameters) != set(layout.parameters)
+            or set(layout.constants) - added != set(own) | set(prepared.constants)):
+        raise _Refused("its constants or parameters are not those of its layout")
+    arguments = prepared.facts.get("arguments", {})
+    eigenvalue = arguments.get("eigenvalue")
+    unknowns = arguments.get("unknowns")
+    eigen = [t for t in prepared.transforms if t.kind == "eigenvalue"]  # the reduce stage may name its classes
+    if (bool(eigen) != (eigenvalue is not None)
+            or (eigen and not (whole(eigen[0].index, 0, n_p - 1) and layout.parameters[eigen[0].index] == eigenvalue
+                               and eigen[0].mode == (arguments.get("mode") or 1)))
+            or (unknowns is not None and list(unknowns) != [f for f, _ in functions])):
+        raise _Refused("its state layout is not that of the spec")
+    points = prepared.facts.get("points")
+    if type(points) is not list or len(points) != layout.regions + 1 or not all(type(q) is str for q in points):
+        raise _Refused("its ends and interfaces do not fit its layout")
+    args = {"x": 1, "y": layout.n, "p": n_p, "k": n_k}
+
+    def fits(program: Any, wanted: list, shape: list) -> bool:
+        return (type(program) is dict and program.get("shape") == shape and program.get("mesh") == "x"
+                and _arguments(program) == [(a, args[a] if a in args else count) for a, count in wanted])
+
+    for name, order in functions:
+        recipe = prepared.recipes.get(name)
+        if recipe is None or recipe.name != name or recipe.order != order:
+            raise _Refused(f"its guess recipe of {name} does not fit its layout")
+        if recipe.kind == "expression" and fits(recipe.program, [("x", 1), ("p", 0), ("k", 0)], [order]):
+            continue
+        terms = recipe.conditions
+        if (recipe.kind == "polynomial" and all(whole(q, 0, layout.regions) and whole(j, 0, order - 1)
+                                                for row in terms for q, j in row)
+                and (recipe.program is None if not terms else
+                     fits(recipe.program, [("x", 1), ("p", 0), ("k", 0)], [sum(len(row) + 1 for row in terms)]))):
+            continue
+        raise _Refused(f"its guess recipe of {name} does not fit its layout")
+    if set(prepared.recipes) != {f for f, _ in functions}:
+        raise _Refused("its guess recipes are not those of its functions")
+    if set(prepared.quantities) != set(prepared.facts.get("outputs", {}).values()):
+        raise _Refused("its compiled outputs are not those of the spec")
+
+    def quantity(q: Quantity) -> None:
+        wanted = [("x", 1), ("y", layout.users + len(functions)), ("p", n_p), ("k", n_k),
+                  ("t", len(q.points) + len(q.integrals))]
+        if (type(q.program) is not dict or q.program.get("shape") != [1] or q.program.get("mesh") != "y"
+                or _arguments(q.program) != wanted):
+            raise _Refused("a compiled output does not fit its layout")
+        for at, state, order, side in q.points:
+            if not (whole(state, 0, len(states) - 1) and whole(order, 0, 1000) and side in (-1, 0, 1)
+                    and (type(at) is float or fits(at, [("x", 1), ("p", 0), ("k", 0)], [1]))):
+                raise _Refused("a compiled output does not fit its layout")
+        for inner in q.integrals:
+            quantity(inner)
+
+    for q in prepared.quantities.values():
+        quantity(q)
+
+
+def _arguments(program: dict) -> list:
+    """``[(argument, number of symbols), ...]`` of a program (the grammar checks the symbols)."""
+    args = program.get("args")
+    if type(args) is not list or not all(type(a) is list and len(a) == 2 and type(a[1]) is list for a in args):
+        return []
+    return [(a[0], len(a[1])) for a in args]
+
+
+class _Refused(ValueError):
+    """A cache entry that is not used (the reason in words)."""
+
+
+def _canonical(data: Any) -> str:
+    """Plain data as text for comparison: a whole number and the same float alike (TOML keeps
+    ``2`` an integer, a preparation holds ``2.0``)."""
+    def plain(item: Any) -> Any:
+        if isinstance(item, dict):
+            return {str(k): plain(v) for k, v in item.items()}
+        if isinstance(item, list | tuple):
+            return [plain(v) for v in item]
+        if type(item) is int:
+            return float(item)
+        return item
+
+    return json.dumps(plain(data), sort_keys=True, separators=(",", ":"), allow_nan=False)
 
 
 def _programs(quantities) -> list[dict]:  # noqa: ANN001
@@ -365,12 +529,13 @@ def _programs(quantities) -> list[dict]:  # noqa: ANN001
     return found
 
 
-def remember(key: str | None, prepared: Prepared) -> None:
-    """Keep ``prepared`` under ``key``; never raises (a cache costs speed, not correctness)."""
-    path = None if key is None else _file(key)
+def remember(key: str, prepared: Prepared, text: str, overrides: Mapping[str, float]) -> None:
+    """Keep ``prepared`` under ``key`` with the spec's text and ``--set`` values it was made
+    for; never raises (a cache costs speed, not correctness)."""
+    path = _file(key)
     if path is None:
         return
     try:
-        write_json(path, {"key": key, "prepared": prepared.plain()})
+        write_json(path, {"key": key, "spec": text, "set": _given(overrides), "prepared": prepared.plain()})
     except (TypeError, ValueError):
         return  # not JSON-ready (SymPy objects in the arguments): costs speed only

@@ -10,9 +10,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from .._lazy import LazyModule
 from ..errors import ProblemError
 from ..language.budget import budget, check_sizes
-from .._lazy import LazyModule
 from .transform import Transform, register
 
 sp = LazyModule("sympy")

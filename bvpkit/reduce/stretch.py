@@ -14,9 +14,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from .._lazy import LazyModule
 from ..errors import ProblemError
 from ..language.budget import budget
-from .._lazy import LazyModule
 from .transform import Transform, register
 
 sp = LazyModule("sympy")

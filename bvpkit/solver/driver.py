@@ -20,8 +20,9 @@ import numpy as np
 from .. import methods
 from ..errors import OptionError, closest
 from ..language.options import DEFAULT_TOL, SolveOptions
+from ..language.problem import Problem
 from ..methods.base import Trial
-from ..reduce.guess import physical, positions
+from ..reduce.mapping import physical, positions
 from ..reduce.prepared import Prepared, prepare
 from . import strategy
 from .settle import Run, settle
@@ -131,7 +132,6 @@ def solve(
         ``success`` is False (and ``message`` says why) when the solve failed; bad input
         raises a :class:`~bvpkit.BvpkitError` instead.
     """
-    from ..language.problem import Problem
 
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"solve() takes a bvpkit.Problem, got {type(problem).__name__}")

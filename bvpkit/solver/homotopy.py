@@ -33,7 +33,12 @@ from typing import Any
 
 import numpy as np
 
+from ..errors import ProblemError
+from ..language.budget import preparation
 from ..methods.base import Outcome, Trial
+from ..methods.collocation import Collocation
+from ..methods.diagnostics import hermite
+from ..reduce import guess as _guess
 from ..status import Status
 
 #: Tolerance of the solves along a path: they start Newton's method at the next value, so a
@@ -91,7 +96,6 @@ class Path:
 @dataclass
 class Facts:
     """What the symbolic problem says about the paths it allows (worked out once per problem)."""
-
     small: dict  # user constant -> value, for small constants multiplying a highest derivative
     far_field: bool  # a condition at the right end on derivatives only, or an infinite end
     reach: bool  # a single region with a fixed finite left end: the domain can grow
@@ -102,12 +106,14 @@ _FACTS: dict[str, Facts] = {}
 _SYSTEMS: dict[str, Any] = {}
 
 
-def facts(prepared) -> Facts:  # noqa: ANN001 - a Prepared
-    """The paths ``prepared`` allows (SymPy's work, once per problem)."""
+def facts(prepared, deadline: float | None = None) -> Facts:  # noqa: ANN001 - a Prepared
+    """The paths ``prepared`` allows (SymPy's work, once per problem; within the preparation's
+    cap and ``deadline``, see :func:`bvpkit.language.budget.preparation`)."""
     key = prepared.facts["key"] + repr(sorted(prepared.constants.items()))
     found = _FACTS.get(key)
     if found is None:
-        found = _facts(prepared)
+        with preparation("working out the continuation's paths", deadline=deadline):
+            found = _facts(prepared)
         if len(_FACTS) > 200:
             _FACTS.clear()
         _FACTS[key] = found
@@ -123,16 +129,19 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
     form = standard_form(problem)
     small = {}
     x = problem.x
-    for eq in problem.equations:
+    candidates = {sp.Symbol(name) for name, value in problem.constants.items() if 0 < abs(value) < _SMALL}
+    # only an equation holding a small constant, and only its own highest derivatives (not
+    # every equation by every unknown's: 90,000 derivatives for a chain of 300 equations)
+    for eq in (e for e in problem.equations if candidates and e.free_symbols & candidates):
+        present = eq.atoms(sp.Derivative)
         for name in problem.unknowns:
             top = sp.Derivative(sp.Function(name)(x), (x, problem.orders[name]))
+            if top not in present:
+                continue
             coefficient = sp.diff(eq, top)
-            for symbol in coefficient.free_symbols:
-                value = problem.constants.get(symbol.name)
-                if value is None or not 0 < abs(value) < _SMALL:
-                    continue
+            for symbol in coefficient.free_symbols & candidates:
                 if sp.simplify(coefficient.xreplace({symbol: 0})) == 0:
-                    small[symbol.name] = float(value)
+                    small[symbol.name] = float(problem.constants[symbol.name])
     right = set(form.yb)
     value_rows = {i for i, (_, order) in enumerate(form.states) if order == 0}
     ends = [0.0, 1.0]
@@ -143,7 +152,8 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
         used = c.free_symbols & right
         if used and not any(form.yb[i] in used for i in value_rows) and not c.free_symbols & set(form.ya):
             far = True
-    nonlinear = any(sp.diff(f, v).has(*form.y) for f in form.rhs for v in f.free_symbols & set(form.y))
+    states = set(form.y)
+    nonlinear = any(sp.diff(f, v).free_symbols & states for f in form.rhs for v in f.free_symbols & states)
     a = form.points[0]
     reach = form.regions == 1 and a not in (sp.oo, -sp.oo) and not a.free_symbols & set(form.p)
     return Facts(small, far, reach, nonlinear)
@@ -152,7 +162,7 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
 def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN001
     """The paths to try, in order: the one named, else a small constant of the highest
     derivative, the nonlinear terms scaled, the domain grown (those the problem allows)."""
-    found = facts(prepared)
+    found = facts(prepared, trial.deadline)
     if named:
         value = float(prepared.constants[named])
         if named in found.small:
@@ -188,15 +198,17 @@ def _length(trial: Trial) -> float:
 
 
 # -- the path form -------------------------------------------------------------------------
-def _system(prepared):  # noqa: ANN001, ANN202
-    """The compiled path form of ``prepared`` (code generated once per problem structure)."""
+def _system(prepared, deadline: float | None = None):  # noqa: ANN001, ANN202
+    """The compiled path form of ``prepared`` (code generated once per problem structure,
+    within the preparation's cap and ``deadline``)."""
     key = prepared.layout.key
     found = _SYSTEMS.get(key)
     if found is None:
-        from ..generated.codegen import compile_system
+        from ..programs.codegen import compile_system
         from ..reduce.form import path_form, standard_form
 
-        found = compile_system(path_form(standard_form(prepared.problem())))
+        with preparation("preparing the linearised problem of the continuation", deadline=deadline):
+            found = compile_system(path_form(standard_form(prepared.problem())))
         if len(_SYSTEMS) > 100:
             _SYSTEMS.clear()
         _SYSTEMS[key] = found
@@ -224,9 +236,8 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     """The solution of the problem with its nonlinear terms linearised about a constant state
     (the path form at ``s = 0``) on ``trial``'s mesh, or None: a start inside the domain of
     the equations when the default guess is not."""
-    from ..methods.collocation import Collocation
 
-    system = _system(prepared)
+    system = _system(prepared, trial.deadline)
     anchor = _anchors(system, trial, trial.k)
     if anchor is None:
         return None
@@ -234,7 +245,6 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     result = Collocation().solve(dataclasses.replace(trial, compiled=system, k=k, verify=False))
     if not result.ok:
         return None
-    from ..methods.diagnostics import hermite
 
     return hermite(system, result.x, result.y, result.p, k)(trial.x)
 
@@ -248,14 +258,16 @@ def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str
     a failure says where the path stopped) and how it got there, in words (the problems
     solved on the way, a turn taken by pseudo-arclength).
     """
-    from ..methods.collocation import Collocation
 
     if path.name == "_free_end":
         found = free_end(prepared, trial)
         return found if found is not None else (_stopped(trial, "the problem has no free end"), "no solve")
     method = Collocation()
     if path.own:
-        system = _system(prepared)
+        try:
+            system = _system(prepared, trial.deadline)
+        except ProblemError as err:  # its preparation ran past its cap or the time limit
+            return _stopped(trial, err.one_line()), "no solve"
         anchor = _anchors(system, trial, trial.k)
         if anchor is None:
             why = "the linearised problem is not defined at any constant state tried"
@@ -314,8 +326,6 @@ def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str
 
 def _fresh(prepared, system, trial: Trial, k: np.ndarray):  # noqa: ANN001, ANN202
     """The default guess for the first problem of a path (its own domain, for a grown one)."""
-    from ..reduce import guess as _guess
-
     if system is trial.compiled:
         return trial.x, trial.y, trial.p
     try:
@@ -340,7 +350,6 @@ def _predict(system, last: Outcome, previous, value: float, target: float, path:
     """A secant prediction of the solution at ``target`` from the last two, on the last mesh."""
     if previous is None or path.geometric and path.name == "_reach":
         return last.x, last.y, last.p
-    from ..methods.diagnostics import hermite
 
     before, where = previous
     span = value - where
@@ -423,7 +432,7 @@ def no_solution(prepared, trial: Trial, trace=None) -> str:  # noqa: ANN001
     """
     if trace is None:
         return ""
-    found = facts(prepared)
+    found = facts(prepared, trial.deadline)
     layout = trial.compiled.layout
     with np.errstate(all="ignore"):
         kjac = np.asarray(trial.compiled.kjac(trial.x, trial.y, trial.p, trial.k))
@@ -566,7 +575,7 @@ def earlier_end(prepared, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nda
     several solutions, and the one found takes a later crossing (a polytrope's second zero,
     say, where the first was meant). The same is said, conditionally, of a free end written
     on a fixed domain (the parameter stretching the equations instead)."""
-    from ..reduce import guess as _guess
+    from ..reduce.mapping import positions
 
     compiled = prepared.compiled
     layout = compiled.layout
@@ -597,7 +606,7 @@ def earlier_end(prepared, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nda
         nodes = np.flatnonzero(clear) + 1  # mesh indices of the clear interior values
         i, j = nodes[crossing[0]], nodes[crossing[0] + 1]  # the first crossing lies between these
         t = float(x[i] - values[i] * (x[j] - x[i]) / (values[j] - values[i]))
-        where = _guess.positions(np.asarray(compiled.maps(p, k), float))
+        where = positions(np.asarray(compiled.maps(p, k), float))
         a, b = float(where[0]), float(where[-1])
         at = a + (b - a) * t ** layout.power(0)
         text = "a condition at the free end"

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..methods.base import Outcome
 from ..methods.diagnostics import Diagnostics, condition_estimate, residuals
-from ..reduce.guess import Start, positions
+from ..reduce.mapping import Start, positions
 from ..reduce.prepared import Prepared
 from ..status import Status
 from .solution import Interpolant, Solution
@@ -60,7 +60,8 @@ class Run:
     previous : Start or None
         A neighbouring solve (a shorter truncation) whose outputs bound the outputs' errors.
     notes : dict
-        Facts for the diagnostics (``truncation_length``).
+        Fields of :class:`~bvpkit.methods.diagnostics.Diagnostics` a class fills in
+        (``truncation_length``, ``truncation_error``).
     """
 
     outcome: Outcome
@@ -149,7 +150,6 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
         note = earlier_end(prepared, outcome.x, outcome.y, outcome.p, k)
         if note:
             message = f"{message}; note: {note}"
-    length = run.notes.get("truncation_length")
     diagnostics = Diagnostics(
         method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,
@@ -158,13 +158,12 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
         bc_residual=bc_residual,
         error_estimate=estimate,
         discretisation_error=discretisation,
-        truncation_error=change if length is not None else None,
-        truncation_length=length,
         condition=condition,
         seconds=seconds,
         attempts=attempts,
         selection=selection,
         tol=tol,
+        **run.notes,  # what a class noted for the diagnostics (where infinity was placed)
     )
     reference = None
     if outcome.reference is not None:

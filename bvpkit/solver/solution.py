@@ -16,11 +16,12 @@ from typing import Any
 import numpy as np
 
 from .._output import json_ready, write_columns
-from ..methods.diagnostics import Diagnostics, hermite
 from ..errors import BvpkitError
-from ..reduce.guess import nudged, physical, positions, rate, standard
-from ..status import Status
 from ..language.units import label, units_of
+from ..methods.diagnostics import Diagnostics, hermite
+from ..programs.compiled import quantity_function
+from ..reduce.mapping import nudged, physical, positions, rate, standard
+from ..status import Status
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -199,9 +200,9 @@ class Solution:
 
     def plot(self, path: str | Path, functions: Any = None, *, allow_failed: bool = False, **options: Any) -> Any:
         """Draw every unknown function (or those named) against the independent variable, the
-        outputs marked (``plot`` extra; options of :func:`bvpkit.plots.solution_figure`);
+        outputs marked (``plot`` extra; options of :func:`bvpkit.families.plots.solution_figure`);
         returns the figure. A failed solve raises unless ``allow_failed=True``."""
-        from ..io.plots import solution_figure
+        from ..families.plots import solution_figure  # lazy: the figure module lives with the families it draws
 
         return solution_figure(self, path, [functions] if isinstance(functions, str) else functions,
                                allow_failed=allow_failed, **options)
@@ -379,8 +380,6 @@ class Solution:
 
 def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
     """A compiled quantity on a solution (see bvpkit.reduce.quantity)."""
-    from ..reduce.guess import _function
-
     values = [_point_value(view, prepared, point) for point in quantity.points]
     values += [_integral(view, prepared, q)[0] for q in quantity.integrals]
     if at is None:
@@ -396,7 +395,7 @@ def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> floa
             raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
         _check_inside(view, prepared, points)
     r = view.region(points)
-    result = _running(view, quantity, points, r, np.array(values, dtype=float), _function)
+    result = _running(view, quantity, points, r, np.array(values, dtype=float), quantity_function)
     if at is None:
         return float(result[0])
     return result if np.ndim(at) else float(result[0])
@@ -420,12 +419,10 @@ def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, val
 
 def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
     """The value of one point-value placeholder ``(point, state, order, side)``."""
-    from ..reduce.guess import _function
-
     where, state, order, side = point
     if isinstance(where, dict):  # a point that depends on the constants: its program
         with np.errstate(all="ignore"):
-            where = float(_function(where)(np.zeros(1), view.p, view.k)[0, 0])
+            where = float(quantity_function(where)(np.zeros(1), view.p, view.k)[0, 0])
     a, b = view.ends
     if math.isinf(where):
         where = b if where > 0 else a
@@ -438,8 +435,6 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
 
 def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # noqa: ANN001
     """The integral of a quantity over every region, and the integrand at the far end."""
-    from ..reduce.guess import _function
-
     nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
     values = np.array([_point_value(view, prepared, point) for point in quantity.points]
                       + [_integral(view, prepared, q)[0] for q in quantity.integrals], dtype=float)
@@ -454,9 +449,9 @@ def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # 
         x = c + scale * s ** view.powers[region]
         r = np.full(x.size, region)
         dx = w * rate(s, scale, view.powers[region])
-        total += float(np.sum(_running(view, quantity, x, r, values, _function) * dx))
+        total += float(np.sum(_running(view, quantity, x, r, values, quantity_function) * dx))
     b = view.ends[1]
-    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[0])
+    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, quantity_function)[0])
     return total, tail
 
 

@@ -16,12 +16,13 @@ from typing import Any
 
 import numpy as np
 
-from ..reduce import guess as _guess
-from . import homotopy
 from ..errors import OptionError, closest
 from ..language.options import SolveOptions
 from ..methods.base import Trial
+from ..reduce import guess as _guess
+from ..reduce.mapping import Start, carried
 from ..reduce.prepared import Prepared
+from . import homotopy
 from .solution import Solution
 
 
@@ -29,7 +30,7 @@ def check_guess(prepared: Prepared, guess: Any) -> None:
     """Refuse a guess that is neither a mapping of expressions nor a solution with the same states."""
     if guess is None or isinstance(guess, Mapping):
         return
-    if isinstance(guess, Solution | _guess.Start):
+    if isinstance(guess, Solution | Start):
         layout = guess.interpolant.layout if isinstance(guess, Solution) else guess.layout
         if layout.row_names != prepared.layout.row_names:
             raise OptionError(
@@ -51,11 +52,11 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled
     nodes = min(_guess.INITIAL_NODES, chosen.max_nodes // 2)
-    if isinstance(guess, Solution | _guess.Start):
+    if isinstance(guess, Solution | Start):
         start = as_start(guess)
         p = start.p.copy()
         t = start.t.copy()
-        return t, _guess.carried(start, compiled, t, p, k), p
+        return t, carried(start, compiled, t, p, k), p
     p = prepared.p0()
     t = _guess.initial_mesh(nodes)
     recipes = dict(prepared.recipes)
@@ -111,9 +112,9 @@ def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: 
     return y
 
 
-def as_start(guess: Any) -> _guess.Start:
-    """A previous solution (or a start) as a :class:`~bvpkit.reduce.guess.Start`."""
-    if isinstance(guess, _guess.Start):
+def as_start(guess: Any) -> Start:
+    """A previous solution (or a start) as a :class:`~bvpkit.reduce.mapping.Start`."""
+    if isinstance(guess, Start):
         return guess
     view = guess.interpolant
-    return _guess.Start(view.compiled, view.t, view.y, view.p, view.k)
+    return Start(view.compiled, view.t, view.y, view.p, view.k)

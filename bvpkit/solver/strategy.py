@@ -35,18 +35,17 @@ from typing import Any
 import numpy as np
 
 from .. import methods
-from . import homotopy
-from ..methods.diagnostics import Attempt, survey
 from ..errors import OptionError
-from ..generated.compiled import NEEDS
 from ..methods.base import Outcome, Trial
+from ..methods.diagnostics import Attempt, hermite, survey
+from ..programs.compiled import NEEDS
 from ..status import Status
+from . import homotopy
 
 
 @dataclass
 class Step:
     """One step of a plan: a method, or continuation along a path into a method."""
-
     name: str  # the method's registry name, or "continuation"
     reason: str
     weight: float  # its share of the time budget, relative to the steps after it
@@ -59,7 +58,6 @@ class Step:
 @dataclass
 class Plan:
     """Steps to try in order, each with the reason it is in that place."""
-
     steps: list[Step]
 
     @property
@@ -447,7 +445,6 @@ def _disagreement(result: Outcome, converged: list[tuple[str, Outcome]], trial: 
     claim has no better title than the earlier one (seen on an ill-conditioned problem:
     shooting claimed 1e-13 where collocation honestly reported 0.05 and the truth was 10).
     """
-    from ..methods.diagnostics import hermite
 
     for name, other in converged:
         points = other.x

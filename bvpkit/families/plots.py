@@ -443,7 +443,7 @@ def solution_figure(solution: Any, path: str | Path, functions: Sequence[str] | 
 
 def _points(solution: Any) -> np.ndarray:
     """Ends and interfaces of the solution's domain in the user's variable."""
-    from ..reduce.guess import positions
+    from ..reduce.mapping import positions
 
     view = solution.interpolant
     return positions(np.asarray(view.maps, float))

@@ -4,10 +4,10 @@ Each generated function evaluates over a whole mesh at once: states ``y`` have s
 ``(n, m)`` (SciPy's layout) or ``(n,)`` for a single point, and the output follows.
 Common subexpressions are eliminated across a function's entries.
 
-What this module produces is a *program* (:mod:`bvpkit.generated.program`): the function as plain
+What this module produces is a *program* (:mod:`bvpkit.programs.program`): the function as plain
 data, trees of numbers, internal symbols (``_x``, ``_y0``, ``_p0``, ``_k0``, ``_t0``) and a
 fixed set of operations. Any SymPy node outside that grammar is refused here by name. The
-callables are built from programs by :func:`bvpkit.generated.program.build`, whatever their origin
+callables are built from programs by :func:`bvpkit.programs.program.build`, whatever their origin
 (made just now, or read from a cache), so no stored text is ever executed.
 """
 
@@ -19,8 +19,10 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from . import program as _program
+from ..errors import ProgramError
 from ..language.budget import budget
+from ..language.exact import exact_key
+from . import program as _program
 from .compiled import (
     _MEMORY,
     CACHE_VARIABLE,
@@ -31,7 +33,6 @@ from .compiled import (
     skipped,
     write_cache,
 )
-from ..errors import ProgramError
 from .program import check_source
 
 #: The method variable t (named _x in generated code, as every method calls it x).
@@ -93,7 +94,7 @@ def _number(e: sp.Expr) -> int | float:
 
 
 def _tree(e: sp.Basic) -> Any:
-    """The plain tree of a SymPy expression (see :mod:`bvpkit.generated.program`)."""
+    """The plain tree of a SymPy expression (see :mod:`bvpkit.programs.program`)."""
     if e.is_Symbol:
         if not _program.SYMBOL.fullmatch(e.name):
             raise ProgramError(f"generated code cannot hold the name '{e.name}' (not an internal symbol)")
@@ -174,6 +175,18 @@ def _function_program(
     exprs = [e.replace(sp.DiracDelta, lambda *_: sp.S.Zero) if e.has(sp.DiracDelta) else e
              for e in (entries[key] for key in keys)]
     temps, reduced = sp.cse(exprs, symbols=sp.numbered_symbols("_t"), order="none")
+    # a constant CSE pulled out (2*pi used twice) goes back into the expressions as one number:
+    # programs never hold arithmetic on Python numbers (bvpkit.programs.program)
+    numeric: dict = {}
+    kept = []
+    for t, e in temps:
+        e = e.xreplace(numeric) if numeric else e
+        if e.is_number:
+            numeric[t] = e
+        else:
+            kept.append((t, e))
+    if numeric:
+        temps, reduced = kept, [e.xreplace(numeric) for e in reduced]
     # programs name temporaries _t0, _t1, ... in the order they are defined
     names = {t: sp.Symbol(f"_t{i}") for i, (t, _) in enumerate(temps)}
     try:
@@ -295,7 +308,7 @@ def compile_system(form) -> CompiledSystem:
 
     The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is
     keyed by the form's content and the bvpkit code (compiled.code_stamp) and holds
-    programs (plain data), which :func:`bvpkit.generated.program.build` validates, prints and checks
+    programs (plain data), which :func:`bvpkit.programs.program.build` validates, prints and checks
     before anything is compiled, whatever their origin.
     """
     key = form.key()
@@ -322,7 +335,7 @@ def compile_expressions(
 ) -> Callable:
     """A vectorised callable ``(*args) -> ndarray, shape (len(exprs), m)`` (cached by content),
     carrying its program as ``.program``."""
-    key = (tuple(sp.srepr(e) for e in exprs), tuple((a, tuple(map(str, s))) for a, s in args), mesh)
+    key = exact_key([list(exprs), [(a, list(s)) for a, s in args], mesh])
     cached = _QUANTITIES.get(key)
     if cached is None:
         entries = {(i,): e for i, e in enumerate(exprs)}
