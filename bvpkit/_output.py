@@ -82,3 +82,57 @@ def json_ready(value: Any) -> Any:
     if isinstance(value, float):
         return value if math.isfinite(value) else None
     return value
+
+
+#: The words that install the table libraries (pandas, xarray), as the README gives them.
+TABLES_INSTALL = 'pip install ".[tables]"'
+
+
+def optional(module: str, feature: str) -> Any:
+    """``module`` imported on first use; missing, a :class:`~bvpkit.errors.MissingExtraError`
+    says which extra installs it."""
+    import importlib
+
+    from .errors import MissingExtraError
+
+    try:
+        return importlib.import_module(module)
+    except ImportError:
+        raise MissingExtraError(f"{feature} needs {module}: {TABLES_INSTALL}") from None
+
+
+def data_frame(columns: Mapping[str, Any], feature: str = "to_pandas()") -> Any:
+    """Equal-length columns as a pandas DataFrame (the ``tables`` extra); a missing value
+    (None) of a number column becomes NaN."""
+    import numpy as np
+
+    pandas = optional("pandas", feature)
+    frame = {}
+    for name, values in columns.items():
+        values = list(values)
+        if any(isinstance(v, str) for v in values) or all(v is None for v in values):
+            frame[name] = values
+        else:
+            frame[name] = np.array([np.nan if v is None else v for v in values])
+    return pandas.DataFrame(frame)
+
+
+def output_labels(named: Mapping[str, str], outputs: Any) -> dict[str, str]:
+    """Label -> expression of the outputs asked for: the problem's outputs keep their names, a
+    mapping gives its own labels, and a plain expression is its own label."""
+    if isinstance(outputs, Mapping):
+        labels = {}
+        for label, text in outputs.items():
+            if not isinstance(label, str) or not isinstance(text, str):
+                raise _option_error(f"outputs: a label and an expression as text each, got {label!r}: {text!r}")
+            labels[label] = named.get(text, text)
+        return labels
+    if isinstance(outputs, str):
+        raise _option_error(f"outputs must be a list of expressions, got the text {outputs!r}; write [{outputs!r}]")
+    return {text: named.get(text, text) for text in (outputs if outputs is not None else list(named))}
+
+
+def _option_error(message: str) -> Exception:
+    from .errors import OptionError
+
+    return OptionError(message)

@@ -88,6 +88,14 @@ class Status(enum.Enum):
         "an eigenvalue was found, but of another mode than the one asked for",
         "give a guess with mode - 1 interior zeros (guess = ...) or ask for a neighbouring mode",
     )
+    POINT_LIMIT = (
+        "point_limit",
+        13,
+        "a trace or fold curve spent its budget of points (max_points) before it reached the end of "
+        "its range; every point it kept meets the tolerance, and the message says where it stopped",
+        "raise max_points (--max-points, or max_points under [trace] or [fold_curve]), or trace a "
+        "narrower range",
+    )
     BAD_INPUT = (
         "bad_input",
         2,

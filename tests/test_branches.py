@@ -93,7 +93,7 @@ def test_the_strut_branch_point_is_the_euler_load_and_the_trace_follows_the_bent
 def test_branch_points_can_be_left_alone():
     p = bvpkit.Problem(["theta'' + lam*sin(theta) = 0"], ["theta'(0) = 0", "theta'(1) = 0"], (0, 1),
                        constants={"lam": 8.0})
-    b = bvpkit.trace(p, "lam", start=8.0, stop=12.0, outputs=["theta(0)"], tol=1e-8, switch=False)
+    b = bvpkit.trace(p, "lam", start=8.0, stop=12.0, outputs=["theta(0)"], tol=1e-8, branch_switching=False)
     assert b.success and len(b.branch_points) == 1 and not b.branch_points[0].switched
     assert np.all(np.abs(b.outputs["theta(0)"]) < 1e-9)  # it stayed on the straight branch
 
@@ -145,6 +145,7 @@ def test_a_fold_curve_reports_a_cusp():
     assert 3.5 < curve.cusps[0]["along"] < 4.6
 
 
+@pytest.mark.extra
 def test_cli_traces_the_bundled_strut_and_draws_the_ignition_map(tmp_path, capsys):
     from pathlib import Path
 

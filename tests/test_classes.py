@@ -195,7 +195,7 @@ def test_unknown_parameter_with_its_error_estimate():
         (dict(equations=["y'' + y = 0"], conditions=["y(0) = 0", "y(1) = 0"], domain=(0, 1), mode=2),
          "no eigenvalue"),
         (dict(equations=["y'' + y'/x**2 = 0"], conditions=["y'(0) = 0", "y(1) = 1"], domain=(0, 1)),
-         "singular at x = 0 in a way bvpkit cannot treat|not of the form"),
+         "singular at x = 0 in a way bvpkit cannot treat|not of the form|grows faster than 1/x at x = 0"),
         (dict(equations=["y'' + y'/(1 - x) = 0"], conditions=["y(0) = 0", "y(1) = 1"], domain=(0, 1)),
          "singular at the right end"),
         (dict(equations=["y'' + y = 0"], conditions=["y(0) = 0", "y(T) = 0"], domain=(0, "T"),
@@ -214,7 +214,7 @@ def test_bad_problem_classes_are_explained(kwargs, message):
 def test_mode_mismatch_is_reported():
     p = bvpkit.Problem(["y'' + lam*y = 0"], ["y(0) = 0", "y(pi) = 0"], (0, "pi"), eigenvalue="lam", mode=2)
     sol = bvpkit.solve(p, guess={"y": "sin(3*x)"}, tol=1e-8)  # a guess with the zeros of mode 3
-    if sol.parameters["lam"] == pytest.approx(9.0, rel=1e-6):  # analytic: lam_3 = 9, lam_2 = 4
+    if sol.parameter_values(allow_failed=True)["lam"] == pytest.approx(9.0, rel=1e-6):  # analytic: lam_3 = 9, lam_2 = 4
         assert sol.status is bvpkit.Status.OTHER_MODE and "mode 3" in sol.message
     else:
         assert sol.success and sol.parameters["lam"] == pytest.approx(4.0, rel=1e-6)

@@ -230,9 +230,13 @@ def test_nul_bytes_in_paths_are_refused_in_one_line(argv, tmp_path, monkeypatch,
     assert err.startswith("bvpkit: bad_input: ") and err.count("\n") == 1 and "NUL" in err
 
 
+@pytest.mark.parametrize("hidden", [False, True], ids=["as_installed", "without_matplotlib"])
 @pytest.mark.parametrize("command", ["trace", "sweep"])
-def test_unknown_picture_formats_are_refused_before_any_work(command, tmp_path, monkeypatch, capsys):
+def test_unknown_picture_formats_are_refused_before_any_work(command, hidden, tmp_path, monkeypatch, capsys):
+    # a wrong suffix is refused for what it is, whether or not the plot extra is installed
     monkeypatch.chdir(tmp_path)
+    if hidden:
+        monkeypatch.setitem(sys.modules, "matplotlib", None)
 
     def never(*args, **kwargs):  # noqa: ANN002, ANN003, ANN202
         raise AssertionError("computed before the picture was checked")
@@ -417,6 +421,7 @@ a = { from = 0.0, to = 0.5, count = 200 }
 """
 
 
+@pytest.mark.extra
 @pytest.mark.slow
 def test_a_killed_dask_client_leaves_no_bvpkit_task_running(tmp_path):
     distributed = pytest.importorskip("distributed")

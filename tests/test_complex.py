@@ -258,9 +258,9 @@ surface_flux = "-T'(0)"
 
 
 def test_a_kept_preparation_of_a_complex_spec_is_used_again(tmp_path, monkeypatch):
+    from bvpkit.io import kept
     from bvpkit.io import spec as spec_module
     from bvpkit.programs import codegen
-    from bvpkit.io import kept
 
     monkeypatch.setenv(codegen.CACHE_VARIABLE, str(tmp_path / "cache"))
     text = """

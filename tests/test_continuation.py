@@ -119,10 +119,11 @@ def test_falkner_skan_family_from_beta_one_down_to_zero():
     assert not b.folds
 
 
+@pytest.mark.extra
 def test_branch_table_csv_json_and_plot(bratu_branch, tmp_path):
     b = bratu_branch
     table = b.table()
-    assert list(table) == ["lam", "y'(0)", "y(1/2)", "step"]
+    assert list(table) == ["lam", "y'(0)", "y(1/2)", "error_estimate", "step"]
     b.to_csv(tmp_path / "b.csv")
     lines = (tmp_path / "b.csv").read_text().splitlines()
     assert len(lines) == len(b.parameter) + 1
@@ -151,6 +152,7 @@ def test_natural_steps_use_the_selector_and_record_diagnostics():
     assert b.outputs["y'(0)"][-1] == pytest.approx(bratu_slope(1.0, "lower"), rel=1e-8)  # analytic
 
 
+@pytest.mark.extra
 def test_cli_trace_prints_the_fold_and_writes_a_plot(tmp_path, capsys):
     from pathlib import Path
 
@@ -166,6 +168,7 @@ def test_cli_trace_prints_the_fold_and_writes_a_plot(tmp_path, capsys):
     # analytic: the Bratu fold 3.51383071912516 (the root of the fold equation; see catalogue)
     assert abs(float(found.group(1)) - 3.51383071912516) <= max(1e-9, 10 * float(found.group(2)))
     assert (tmp_path / "fold.png").exists() and (tmp_path / "b.csv").exists()
-    assert main(["trace", str(spec), "--json", "--max-points", "5"]) == bvpkit.Status.NOT_CONVERGED.exit_code
+    assert main(["trace", str(spec), "--json", "--max-points", "5"]) == bvpkit.Status.POINT_LIMIT.exit_code
     data = json.loads(capsys.readouterr().out)
     assert data["success"] is False and "max_points" in data["message"] and len(data["parameter"]) == 5
+    assert data["status"] == "point_limit"

@@ -12,9 +12,9 @@ import bvpkit
 from bvpkit.errors import ProblemError
 from bvpkit.reduce.infinite import Infinite, far_names
 from bvpkit.reduce.prepared import prepare
+from bvpkit.reduce.transform import Transform
 from bvpkit.solver.driver import options
 from bvpkit.solver.start import initial
-from bvpkit.reduce.transform import Transform
 
 FRONT = "u'' + c*u' + u*(1 - u)*(u - a) = 0"
 

@@ -1,6 +1,6 @@
 """Figures ready for a report: every output on its panel, units in the labels, folds in the
 legend, smooth branches, design charts with one curve per slower value and log axes on
-geometric grids (bvpkit.families.plots, reached through Branch.plot and SweepResult.plot)."""
+geometric grids (bvpkit.solver.plots, reached through Branch.plot and SweepResult.plot)."""
 
 from __future__ import annotations
 
@@ -11,9 +11,10 @@ import pytest
 
 import bvpkit
 from bvpkit.errors import OptionError
-from bvpkit.families import plots
+from bvpkit.solver import plots
 
 pytest.importorskip("matplotlib")
+pytestmark = pytest.mark.extra
 
 SLAB = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.1},
                       title="Our stored slab", settings={"units": {"lam": "1", "x": "m", "y": "K"}})
@@ -169,7 +170,20 @@ L = [0.03, 0.05]
     assert "units: m2 in 1/m^2, tip in K" in out
     assert "m2 [1/m^2]" in out  # the sweep table's header
     trace_fig, sweep_fig = drawn
-    assert trace_fig._suptitle.get_text() == sweep_fig._suptitle.get_text() == "Our test fin"
+    assert sweep_fig._suptitle.get_text() == "Our test fin"
+    # the trace is one cut of the problem: its title says at which value of the other constant
+    assert trace_fig._suptitle.get_text() == "Our test fin\n(m2 varied; L = 0.05)"
     assert trace_fig.axes[0].get_ylabel() == "tip [K]" and sweep_fig.axes[0].get_xlabel() == "m2 [1/m^2]"
-    assert (tmp_path / "t.csv").read_text().splitlines()[0] == "m2 [1/m^2],tip [K],step"
+    assert (tmp_path / "t.csv").read_text().splitlines()[0] == "m2 [1/m^2],tip [K],error_estimate,step"
     assert (tmp_path / "s.csv").read_text().splitlines()[0].startswith("m2 [1/m^2],L,tip [K],success")
+
+
+def test_the_formats_a_plot_name_is_judged_by_without_matplotlib_are_ones_it_writes():
+    # the command line's fallback list (used when the plot extra is missing) never accepts a
+    # name that matplotlib would then refuse
+    from matplotlib.backend_bases import FigureCanvasBase
+
+    from bvpkit.io.cli import PICTURE_FORMATS
+
+    assert set(PICTURE_FORMATS) <= set(FigureCanvasBase.get_supported_filetypes())
+    assert "png" in PICTURE_FORMATS and "pdf" in PICTURE_FORMATS and "svg" in PICTURE_FORMATS

@@ -125,6 +125,7 @@ def test_the_complex_block_gives_the_values_it_shows():
     assert isinstance(namespace["sol"].evaluate("T(0.1)"), complex)
 
 
+@pytest.mark.extra
 def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.trace(")
@@ -136,6 +137,7 @@ def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
     assert (tmp_path / "branch.png").stat().st_size > 10_000
 
 
+@pytest.mark.extra
 def test_the_fold_curve_block_runs_and_gives_the_ignition_limit(tmp_path, monkeypatch):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.fold_curve(")
@@ -153,6 +155,7 @@ def test_the_fold_curve_block_runs_and_gives_the_ignition_limit(tmp_path, monkey
     assert (tmp_path / "map.png").stat().st_size > 10_000
 
 
+@pytest.mark.extra
 def test_the_sweep_block_runs_as_a_plain_script(tmp_path):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.sweep(")

@@ -8,14 +8,13 @@ import math
 
 import numpy as np
 import pytest
+from catalogue import bratu, bratu_slope
 from scipy.integrate import solve_ivp
 
 import bvpkit
-from bvpkit.methods.diagnostics import _real_parts
 from bvpkit.methods.collocation import _pieces, _split
+from bvpkit.methods.diagnostics import _eigen_parts
 from bvpkit.methods.variational import dense_values, point_system, subdivide
-
-from catalogue import bratu, bratu_slope
 
 
 def test_the_point_functions_are_the_mesh_functions_at_one_point():
@@ -62,9 +61,10 @@ def test_collocation_cuts_by_the_predicted_factor():
 @pytest.mark.parametrize("n", [1, 2, 3])
 def test_real_parts_of_eigenvalues_match_lapack(n):
     matrices = np.random.default_rng(n).normal(size=(40, n, n))
-    mine = np.sort(_real_parts(matrices), axis=1)
-    theirs = np.sort(np.linalg.eigvals(matrices).real, axis=1)  # reference: LAPACK through NumPy
-    np.testing.assert_allclose(mine, theirs, atol=1e-12)
+    real, imag = _eigen_parts(matrices)
+    eig = np.linalg.eigvals(matrices)  # reference: LAPACK through NumPy
+    np.testing.assert_allclose(np.sort(real, axis=1), np.sort(eig.real, axis=1), atol=1e-12)
+    np.testing.assert_allclose(imag, np.abs(eig.imag).max(axis=1), atol=1e-12)
 
 
 def test_single_shooting_with_broyden_updates_meets_its_tolerance():
@@ -106,8 +106,8 @@ def test_auto_picks_the_sixth_order_only_where_its_cost_model_says_it_pays():
     assert tight.evaluate("y'(0)") == pytest.approx(bratu_slope(1.0, "lower"), rel=1e-10)
     # a stiff problem keeps the adaptive 4th order whatever the tolerance
     layer = bvpkit.Problem(["eps*y'' + y' = 0"], ["y(0) = 0", "y(1) = 1"], (0, 1), constants={"eps": 1e-3})
-    from bvpkit.solver import strategy
     from bvpkit.methods.base import Trial
+    from bvpkit.solver import strategy
 
     compiled = bvpkit.prepare(layer).compiled
     x = np.linspace(0, 1, 41)

@@ -54,6 +54,7 @@ def test_local_process_pool_gives_the_same_table():
     assert _values(pooled) == _values(serial)
 
 
+@pytest.mark.extra
 def test_dask_local_cluster_on_loopback_gives_the_same_table():
     distributed = pytest.importorskip("distributed")
     serial = bvpkit.sweep(pellet(), GRID, executor="serial", tol=1e-8, chunk=4)

@@ -29,7 +29,7 @@ difference is the reported error). **Branch points** are sign changes of the det
 the bordered Jacobian ``[G_z; t]`` (regular at folds, singular at branch points), located
 by bracketed secant steps on a bordered test function (``arclength.branch_test``) and refined on
 halved meshes until two successive meshes agree to the tolerance; the trace then switches
-onto the other branch (along the null vector) unless ``switch=False``.
+onto the other branch (along the null vector) unless ``branch_switching=False``.
 
 **Infinite domains.** The truncation length is chosen once, by the first point's solve,
 and held; after each point a cheap far-field check (the change of each state, or of its
@@ -52,7 +52,7 @@ from typing import Any
 
 import numpy as np
 
-from .._output import json_ready, progress_bar, write_columns
+from .._output import json_ready, output_labels, progress_bar, write_columns
 from ..errors import OptionError, closest
 from ..language.problem import Problem
 from ..language.units import labelled
@@ -61,11 +61,11 @@ from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
 from ..reduce.mapping import Start, positions
 from ..reduce.prepared import Prepared, prepare
+from ..solver import plots
 from ..solver.driver import Run, options, settle, solve, solve_at
 from ..solver.solution import Solution
 from ..status import Status
 from . import arclength as arc
-from . import plots
 from .stability import stable
 
 _GROW, _SHRINK = 1.5, 0.5
@@ -93,6 +93,12 @@ _FOLD_AHEAD = 1.2
 #: gaps running), make a spiral: the branch winds through ever more folds towards a limit
 #: point (a singular solution), and the trace ends there, saying so.
 _SPIRAL_RATIO, _SPIRAL_FOLDS = 0.6, 4
+#: A chord shorter than this fraction of the finished drawing shows no bend a reader can see:
+#: its angles are round-off, and no point is added on it.
+SHORTEST_CHORD = 1e-4
+#: Points closer than this fraction of the finished drawing to the point before them carry
+#: nothing new (a requested value met twice by round-off): the later one is dropped.
+SAME_POINT = 1e-6
 _OUTPUT_FLOOR = 0.05  # an output's scale in the drawn plane: its spread so far, at least 5% of its size
 _SETTLED = 4  # points on a branch before its drawn angle is checked while tracing
 
@@ -172,8 +178,19 @@ class Branch:
         self._judge = False  # whether points are judged stable (trace(..., stability=True))
         self.success = False
         self.interrupted = False
+        self.out_of_points = False  # stopped by its budget of points (max_points)
         self.message = ""
         self.seconds = 0.0
+
+    @property
+    def status(self) -> Status:
+        """``solved``; ``interrupted``; ``point_limit`` (stopped by ``max_points``, every point
+        kept converged); or ``not_converged`` (a step could not go on)."""
+        if self.success:
+            return Status.SOLVED
+        if self.interrupted:
+            return Status.INTERRUPTED
+        return Status.POINT_LIMIT if self.out_of_points else Status.NOT_CONVERGED
 
     @property
     def parameter(self) -> np.ndarray:
@@ -207,6 +224,37 @@ class Branch:
             if found.index >= index:
                 found.index += 1
 
+    def _thin(self) -> None:
+        """Drop every point closer than :data:`SAME_POINT` of the drawing (outputs against the
+        parameter, each scaled to its spread) to the point before it; of two such points the
+        one reached by a plain step goes, a requested one stays."""
+        if len(self._values) < 2:
+            return
+        rows = np.array([[self._values[i], *(row[o] for o in self._outputs)] for i, row in enumerate(self._rows)])
+        spread = np.ptp(np.where(np.isfinite(rows), rows, 0.0), axis=0)
+        spread = np.where(spread > 0, spread, 1.0)
+        keep = [0]
+        for i in range(1, len(rows)):
+            j = keep[-1]
+            if not np.all(np.abs(rows[i] - rows[j]) / spread < SAME_POINT):
+                keep.append(i)
+            elif self.steps[j] != "requested" and self.steps[i] == "requested" and self.steps[j] != "branch point":
+                keep[-1] = i  # the requested point stands for both
+        if len(keep) == len(rows):
+            return
+        gone = {id(self.solutions[i]) for i in range(len(rows)) if i not in set(keep)}
+        new_index = {old: new for new, old in enumerate(keep)}
+        for found in (*self.folds, *self.branch_points):
+            # a fold lies between points index - 1 and index: the first kept point at or after it
+            found.index = next((new_index[i] for i in keep if i >= found.index), len(keep))
+        for items in ("_values", "solutions", "steps", "stability", "_rows"):
+            old = getattr(self, items)
+            setattr(self, items, [old[i] for i in keep])
+        for value in list(self.requested):
+            self.requested[value] = [s for s in self.requested[value] if id(s) not in gone]
+            if not self.requested[value]:
+                del self.requested[value]
+
     def _pop(self) -> None:
         """Drop the last point (past a branch point, on the branch the trace leaves)."""
         gone = self.solutions.pop()
@@ -219,13 +267,25 @@ class Branch:
             if not self.requested[value]:
                 del self.requested[value]
 
+    @property
+    def error_estimate(self) -> np.ndarray:
+        """Per point, the estimated error of its solution (NaN where none was made)."""
+        return np.array([_estimate(s) for s in self.solutions], float)
+
     def table(self) -> dict[str, np.ndarray]:
-        """Columns: the parameter, each output, and how each point was reached."""
-        columns = {self.name: self.parameter, **self.outputs, "step": np.array(self.steps)}
+        """Columns: the parameter, each output, each point's error estimate and how it was reached."""
+        columns = {self.name: self.parameter, **self.outputs, "error_estimate": self.error_estimate,
+                   "step": np.array(self.steps)}
         if self._judge:
             words = {True: "stable", False: "unstable", None: "-"}
             columns["stability"] = np.array([words[v] for v in self.stability])
         return columns
+
+    def to_pandas(self) -> Any:
+        """:meth:`table` as a pandas DataFrame, one row per point (the ``tables`` extra)."""
+        from .._output import data_frame
+
+        return data_frame(self.table())
 
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """:meth:`table` as CSV; headers labelled with ``units`` when given (``lam [N]``)."""
@@ -233,7 +293,7 @@ class Branch:
 
     def as_dict(self) -> dict[str, Any]:
         outputs = self.outputs
-        status = "solved" if self.success else "interrupted" if self.interrupted else "not_converged"
+        status = self.status.word
 
         def points(found: list) -> list[dict[str, Any]]:
             return [{"parameter": f.parameter, "error": f.error, "outputs": f.outputs, "index": f.index} for f in found]
@@ -246,6 +306,7 @@ class Branch:
             "parameter": self.parameter.tolist(),
             "outputs": {k: v.tolist() for k, v in outputs.items()},
             "steps": list(self.steps),
+            "error_estimate": self.error_estimate.tolist(),
             "truncation": self.truncation,
             "folds": points(self.folds),
             "branch_points": points(self.branch_points),
@@ -256,11 +317,13 @@ class Branch:
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
         outputs = self.outputs
-        header = [self.name, *self._outputs, "step", *(["stability"] if self._judge else [])]
+        header = [self.name, *self._outputs, "error", "step", *(["stability"] if self._judge else [])]
         lines.append("  ".join(f"{h:>14s}" for h in header))
         words = {True: "stable", False: "unstable", None: "-"}
+        errors = self.error_estimate
         for i, value in enumerate(self._values):
-            row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{self.steps[i]:>14s}"]
+            row = [f"{value:14.8g}", *(f"{outputs[o][i]:14.8g}" for o in self._outputs), f"{errors[i]:14.2g}",
+                   f"{self.steps[i]:>14s}"]
             if self._judge:
                 row.append(f"{words[self.stability[i]]:>14s}")
             lines.append("  ".join(row))
@@ -274,9 +337,15 @@ class Branch:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Draw every output (or ``output``) against the parameter, folds marked (``plot`` extra;
-        options of :func:`bvpkit.families.plots.branch_figure`)."""
+        options of :func:`bvpkit.solver.plots.branch_figure`)."""
 
         return plots.branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+
+
+def _estimate(solution: Solution) -> float:
+    """A solution's error estimate as a plain number (NaN where none was made)."""
+    value = solution.diagnostics.error_estimate
+    return float(value) if value is not None else math.nan
 
 
 def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, float]:
@@ -293,13 +362,10 @@ def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, 
 def _resolve_outputs(prepared: Prepared, outputs: Sequence[str] | None) -> dict[str, str]:
     """Label -> expression: a name of the problem's outputs keeps its name as the label; a
     complex value is recorded as its real and imaginary parts (``re(label)``, ``im(label)``)."""
-    labels = {}
-    named = prepared.outputs
-    for text in outputs if outputs is not None else list(named):
+    for text in (outputs.values() if isinstance(outputs, Mapping) else outputs or []):
         if not isinstance(text, str):
             raise OptionError(f"outputs must be expressions as text, got {text!r}")
-        labels[text] = named.get(text, text)
-    return prepared.real_outputs(labels)  # parsed and checked now, not at the first point
+    return prepared.real_outputs(output_labels(prepared.outputs, outputs))  # parsed and checked now
 
 
 def real_constant(prepared: Prepared, name: str) -> None:
@@ -333,9 +399,10 @@ def trace(
     verify: bool = True,
     at: Sequence[float] | None = None,
     return_to: float | None = None,
-    switch: bool = True,
+    branch_switching: bool = True,
     max_angle: float | None = None,
     stability: bool = False,
+    switch: bool | None = None,
 ) -> Branch:
     """Trace the solutions of ``problem`` as the constant ``name`` goes from ``start`` to ``stop``.
 
@@ -348,9 +415,10 @@ def trace(
     start, stop : float
         The range. After a fold the branch may come back; the trace ends when the parameter
         reaches ``stop`` or leaves the range on the other side.
-    outputs : sequence of str, optional
+    outputs : sequence of str, or mapping of str to str, optional
         Expressions (or names of the problem's outputs) recorded along the branch; default
-        the problem's outputs.
+        the problem's outputs. A mapping gives each a label (``{"wall_gradient": "y'(0)"}``),
+        which names its column and its axis.
     tol : float, optional
         Tolerance of each point (default: the problem's, else 1e-6).
     method : str, optional
@@ -372,8 +440,10 @@ def trace(
     return_to : float, optional
         After the branch has turned (a fold) or switched (a branch point), end when the
         parameter comes back to this value.
-    switch : bool
-        At a simple branch point, go on along the other branch (default True).
+    branch_switching : bool
+        At a simple branch point, go on along the other branch (default True); the same
+        name as the spec's ``branch_switching`` and the command line's
+        ``--no-branch-switching``.
     max_angle : float, optional
         Largest angle (radians) between successive secants of accepted steps (default
         :data:`MAX_ANGLE`, 8 degrees).
@@ -382,6 +452,8 @@ def trace(
         problem ``u'' = g(x, u, u')`` (reaction-diffusion, heat conduction with a source,
         ignition): ``branch.stability`` True, False, or None where that reading does not
         apply (see :mod:`bvpkit.families.stability`). Default False: every entry None.
+    switch : bool, optional
+        The former name of ``branch_switching``, kept for one release; giving both refuses.
 
     Returns
     -------
@@ -413,7 +485,13 @@ def trace(
     names = _resolve_outputs(prepared, outputs)
     tracer = _Tracer(prepared, name, start, stop, names, tol, method, step, max_points, progress)
     tracer.fixed, tracer.verify, tracer.requested, tracer.return_to = fixed_step, verify, requested, return_to
-    tracer.switch, tracer.max_angle = switch, angle
+    if switch is not None:
+        if branch_switching is not True:
+            raise OptionError("give branch_switching only (switch is its former name)")
+        branch_switching = switch
+    if not isinstance(branch_switching, bool):
+        raise OptionError(f"branch_switching must be true or false, got {branch_switching!r}")
+    tracer.switch, tracer.max_angle = branch_switching, angle
     if not isinstance(stability, bool):
         raise OptionError(f"stability must be true or false, got {stability!r}")
     tracer.branch._judge = stability
@@ -603,10 +681,15 @@ class _Tracer:
                 self._requested_here(self.start)
                 self._loop()
                 traced = len(b.solutions)
+                b._thin()
+                traced = len(b.solutions)
                 self._smooth()
-                if len(b.solutions) != traced:
+                added = len(b.solutions) - traced
+                if added and f"in {traced} points" in b.message:
                     b.message = b.message.replace(f"in {traced} points", f"in {len(b.solutions)} points "
-                                                  f"({len(b.solutions) - traced} added where the drawn branch bends)")
+                                                  f"({added} added where the drawn branch bends)")
+                elif added:
+                    b.message += f"; {added} more points were added where the drawn branch bends"
         except KeyboardInterrupt:
             b.success = False
             b.interrupted = True
@@ -639,8 +722,10 @@ class _Tracer:
             d = np.diff(data / spread, axis=0)
             lengths = np.linalg.norm(d, axis=1)
             cosine = np.sum(d[:-1] * d[1:], axis=1) / np.maximum(lengths[:-1] * lengths[1:], 1e-300)
-            sharp = np.flatnonzero(np.arccos(np.clip(cosine, -1, 1)) > self.max_angle) + 1
-            segments = sorted({j for i in sharp if b.steps[i] != "branch point" for j in (i - 1, i)})
+            visible = (lengths[:-1] >= SHORTEST_CHORD) & (lengths[1:] >= SHORTEST_CHORD)
+            sharp = np.flatnonzero((np.arccos(np.clip(cosine, -1, 1)) > self.max_angle) & visible) + 1
+            segments = sorted({j for i in sharp if b.steps[i] != "branch point" for j in (i - 1, i)
+                               if lengths[j] >= SHORTEST_CHORD})
             if not segments:
                 return
             added = 0
@@ -704,8 +789,7 @@ class _Tracer:
                 b.success, b.message = end
                 return
             step = max(abs(b.parameter[-1] - b.parameter[-2]), self.span / 100) if len(b.parameter) > 1 else self.step
-        b.success = False
-        b.message = self._done(f"stopped after max_points = {self.max_points} points")
+        b.success, b.message = self._out_of_points()
 
     def _ending(self, edge: float) -> str:
         if edge == self.stop:
@@ -714,11 +798,25 @@ class _Tracer:
             return f"came back to {self.name} = {edge:g}"
         return f"the branch turned back and reached the other end of the range, {self.name} = {edge:g},"
 
-    def _done(self, what: str) -> str:
+    def _out_of_points(self) -> tuple[bool, str]:
+        """The end of a trace that spent its budget of points: where it stopped, and how far it got."""
+        b = self.branch
+        b.out_of_points = True
+        value = b._values[-1]
+        shown = ", ".join(f"{o} = {b._rows[-1][o]:.6g}" for o in b._outputs[:2])
+        where = f"{self.name} = {value:.6g}" + (f" ({shown})" if shown else "")
+        turned = " after the fold" if self.turned else ""
+        aim = self.return_to if self.turned and self.return_to is not None else self.edge
+        return False, self._done(
+            f"stopped at {where}{turned}, on the way to {self.name} = {aim:g}: its budget of max_points = "
+            f"{self.max_points} points is spent (raise max_points to go further)", count=False)
+
+    def _done(self, what: str, count: bool = True) -> str:
         found = [f"{len(self.branch.folds)} fold(s)"] if self.branch.folds else []
         if self.branch.branch_points:
             found.append(f"{len(self.branch.branch_points)} branch point(s)")
-        return f"{what} in {len(self.branch.solutions)} points" + (f"; {' and '.join(found)} located" if found else "")
+        counted = f" in {len(self.branch.solutions)} points" if count else ""
+        return f"{what}{counted}" + (f"; {' and '.join(found)} located" if found else "")
 
     def _edges(self, value: float, target: float) -> tuple[float, bool, bool]:
         """The target clipped to the first end or requested value between ``value`` and it:
@@ -783,7 +881,7 @@ class _Tracer:
                 step, halvings = min(step, taken) * _SHRINK, halvings + 1
                 continue
             return None  # the branch turns (or natural steps fail): pseudo-arclength
-        return False, self._done(f"stopped after max_points = {self.max_points} points")
+        return self._out_of_points()
 
     def _turning_ahead(self) -> bool:
         """Whether the last tangent's parameter component is small enough that a failed step
@@ -889,6 +987,9 @@ class _Tracer:
         ds = first_ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
         chord: list = []  # the factorisation of the last tangent's matrix, reused by the corrector
+        # the value of the accepted point a step leaves: the polish above may move z's parameter
+        # by round-off, and a requested value the point sits on must not count as crossed again
+        here = point.value
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
             predicted = z + ds * tangent
@@ -919,7 +1020,7 @@ class _Tracer:
                         "the branch may end or branch off here"
                     )
                 continue
-            lam_old, lam_new = float(z[-1]), float(z_new[-1])
+            lam_old, lam_new = here, float(z_new[-1])
             if tangent[-1] * t_new[-1] < 0:
                 self._locate_fold(eq, z, tangent, ds, (float(tangent[-1]), float(t_new[-1])))
                 self.turned = True
@@ -955,18 +1056,18 @@ class _Tracer:
                     return end
                 point = self.points[-1]
                 eq = self._equations(point)
-                z, tangent = point.z, point.tangent
+                z, tangent, here = point.z, point.tangent, point.value
                 ds = self._first_ds(eq, z)
                 continue
             if accepted.t is not eq.x:
                 eq = self._equations(accepted)  # a refined mesh, or a longer truncation
-            z, tangent = accepted.z, accepted.tangent
+            z, tangent, here = accepted.z, accepted.tangent, accepted.value
             ds = ds * _GROW if its <= 3 and smooth else ds * (_SHRINK if its >= 8 else 1.0)
             if abs(float(tangent[-1])) > _STRAIGHT and self.turned and abs(lam_new - lam_old) > 0:
                 self.direction = 1.0 if lam_new > lam_old else -1.0
                 self.edge = self.hi if self.direction > 0 else self.lo
                 return None
-        return False, self._done(f"stopped after max_points = {self.max_points} points")
+        return self._out_of_points()
 
     def _first_ds(self, eq: CollocationEquations, z: np.ndarray) -> float:
         return 0.05 * math.sqrt(float(np.sum(eq.weights * z * z)) + 1.0)

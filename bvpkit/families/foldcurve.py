@@ -33,12 +33,21 @@ from ..methods.base import Outcome, Trial, compare
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
 from ..reduce.prepared import Prepared, prepare
+from ..solver import plots
 from ..solver.driver import Run, options, settle
 from ..solver.solution import Solution
 from ..status import Status
 from . import arclength as arc
-from . import plots
-from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values, real_constant
+from .continuation import (
+    MAX_ANGLE,
+    MAX_DRIFT,
+    _estimate,
+    _number,
+    _resolve_outputs,
+    _Tracer,
+    output_values,
+    real_constant,
+)
 
 _GROW, _SHRINK = 1.5, 0.5
 #: Over a positive range of more than two decades (drawn on a log scale) a step changes the
@@ -78,8 +87,17 @@ class FoldCurve:
         self.cusps: list[dict[str, float]] = []
         self.requested: dict[float, list[Solution]] = {}
         self.success = False
+        self.out_of_points = False  # a leg spent its budget of points (max_points)
         self.message = ""
         self.seconds = 0.0
+
+    @property
+    def status(self) -> Status:
+        """``solved``; ``point_limit`` (a leg spent ``max_points``; every point kept converged);
+        or ``not_converged``."""
+        if self.success:
+            return Status.SOLVED
+        return Status.POINT_LIMIT if self.out_of_points else Status.NOT_CONVERGED
 
     @property
     def along(self) -> np.ndarray:
@@ -99,8 +117,21 @@ class FoldCurve:
         self.solutions.append(solution)
         self._rows.append(output_values(solution, self._expressions))
 
+    @property
+    def error_estimate(self) -> np.ndarray:
+        """Per point, the estimated error of the fold's solution (NaN where none was made)."""
+        return np.array([_estimate(s) for s in self.solutions], float)
+
     def table(self) -> dict[str, np.ndarray]:
-        return {self.along_name: self.along, self.name: self.parameter, **self.outputs}
+        """Columns: the second constant, the first at the fold, each output, each point's error estimate."""
+        return {self.along_name: self.along, self.name: self.parameter, **self.outputs,
+                "error_estimate": self.error_estimate}
+
+    def to_pandas(self) -> Any:
+        """:meth:`table` as a pandas DataFrame, one row per point of the curve (the ``tables`` extra)."""
+        from .._output import data_frame
+
+        return data_frame(self.table())
 
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """:meth:`table` as CSV; headers labelled with ``units`` when given."""
@@ -108,19 +139,22 @@ class FoldCurve:
 
     def as_dict(self) -> dict[str, Any]:
         return json_ready({
-            "success": self.success, "status": "solved" if self.success else "not_converged",
+            "success": self.success, "status": self.status.word,
             "message": self.message, "parameter_name": self.name, "along_name": self.along_name,
             "along": self.along.tolist(), "parameter": self.parameter.tolist(),
-            "outputs": {k: v.tolist() for k, v in self.outputs.items()}, "cusps": self.cusps, "seconds": self.seconds,
+            "outputs": {k: v.tolist() for k, v in self.outputs.items()}, "error_estimate": self.error_estimate.tolist(),
+            "cusps": self.cusps, "seconds": self.seconds,
         })
 
     def summary(self) -> str:
         lines = [f"{'traced' if self.success else 'STOPPED'}: {self.message}"]
-        header = [self.along_name, f"{self.name} at fold", *self._expressions]
+        header = [self.along_name, f"{self.name} at fold", *self._expressions, "error"]
         lines.append("  ".join(f"{h:>16s}" for h in header))
         outputs = self.outputs
+        errors = self.error_estimate
         for i, (a, v) in enumerate(zip(self._along, self._values)):
-            lines.append("  ".join([f"{a:16.10g}", f"{v:16.10g}", *(f"{outputs[o][i]:16.10g}" for o in outputs)]))
+            lines.append("  ".join([f"{a:16.10g}", f"{v:16.10g}", *(f"{outputs[o][i]:16.10g}" for o in outputs),
+                                    f"{errors[i]:16.2g}"]))
         for c in self.cusps:
             lines.append(f"cusp near {self.along_name} = {c['along']:.8g}, {self.name} = {c['parameter']:.8g}: two "
                          "folds meet and vanish there")
@@ -128,7 +162,7 @@ class FoldCurve:
 
     def plot(self, path: str | Path, **options: Any) -> Any:
         """Draw the fold curve and the outputs along it, cusps marked (``plot`` extra; options of
-        :func:`bvpkit.families.plots.fold_curve_figure`); returns the figure."""
+        :func:`bvpkit.solver.plots.fold_curve_figure`); returns the figure."""
 
         return plots.fold_curve_figure(self, path, **options)
 
@@ -388,7 +422,10 @@ class _Follower:
                 self.curve.cusps.append({"along": mu_new, "parameter": float(z_new[-2])})
             z, tangent = z_new, t_new
             ds = ds * _GROW if its <= 3 and turn < self.max_angle / 2 else ds * (_SHRINK if its >= 8 else 1.0)
-        self.failed = f"stopped after max_points = {self.max_points} points"
+        self.curve.out_of_points = True
+        self.failed = (f"stopped at {self.along} = {float(z[-1]):.6g} ({self.name} = {float(z[-2]):.6g} at the fold), "
+                       f"on the way to {self.along} = {end:g}: its budget of max_points = {self.max_points} points "
+                       "is spent (raise max_points to go further)")
         return points
 
     def _angle(self, eq: CollocationEquations, u: np.ndarray, v: np.ndarray) -> float:

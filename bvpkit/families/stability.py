@@ -15,7 +15,8 @@ whose ends are constrained in a way the conditions do not state, a beam, a third
 the answer would be about another question, so it is not given: None.
 
 Where it applies: one region on a finite domain, every unknown function of order two, no
-unknown parameter, no singular term. Elsewhere :func:`principal_eigenvalue` returns None.
+unknown parameter (a singular centre, ``u'' + (2/r) u' = g``, included: the steady state of
+diffusion in a sphere or a cylinder). Elsewhere :func:`principal_eigenvalue` returns None.
 
 Discretisation. The collocation equations of the linear problem ``v' = (J + mu E) v`` on the
 solution's own mesh, with ``J`` the exact Jacobian along the solution and ``E`` the matrix
@@ -72,14 +73,27 @@ def principal_eigenvalue(solution: Any) -> float | None:
     h_len = float(length[0, 0])
     E = np.zeros((n, n))
     E[slope_rows, value_rows] = h_len
+    # per node, the matrix adding mu v: at t = 0 of a singular centre (S v / t, as in
+    # u'' + (2/r) u') the equations take the limit (I - S)^+ F there, and so does mu v
+    nodes = np.repeat(E[None], x.size, axis=0)
+    S = c.singular(p, k)
+    regular = J
+    if S is not None:
+        nodes[0] = np.linalg.pinv(np.eye(n) - S) @ E
+        with np.errstate(all="ignore"):
+            regular = J - S[None] / np.where(x > 0, x, np.inf)[:, None, None]  # the bound reads g's terms alone
+        regular = regular[x > 0]
     hh = eq.h[:, None, None]
-    d_left = -(hh / 6) * (3 * E + (hh / 2) * (E @ J[:-1] + Jm @ E))
-    d_right = -(hh / 6) * (3 * E - (hh / 2) * (E @ J[1:] + Jm @ E))
+    # the derivative in mu of the Lobatto IIIA blocks (y1 - y0 - h/6 (f0 + 4 fm + f1), with the
+    # midpoint ym = (y0 + y1)/2 - h/8 (f1 - f0)); E^2 = 0, so they are exactly linear in mu
+    d_left = -(hh / 6) * (nodes[:-1] + 2 * E + (hh / 2) * (E @ J[:-1] + Jm @ nodes[:-1]))
+    d_right = -(hh / 6) * (nodes[1:] + 2 * E - (hh / 2) * (E @ J[1:] + Jm @ nodes[1:]))
     zeros = np.zeros((n, n))
     G = block_matrix(left, right, None, a, b, None)
     N = -block_matrix(d_left, d_right, None, zeros, zeros, None)
-    # a bound of the spectrum of v'' + p v' + q v (rows of u'' in x-units: J / length)
-    rows = np.abs(J[:, slope_rows, :]) / h_len
+    # a bound of the spectrum of v'' + p v' + q v (rows of u'' in x-units: J / length); a
+    # singular term's (2/r) v' moves no eigenvalue above max q, so it is left out of the bound
+    rows = np.abs(regular[:, slope_rows, :]) / h_len
     r = float(np.max(np.sum(rows, axis=2)))
     bound = 2.0 * (r + r * r / 4.0) + 10.0
     return _largest(G, N, bound)

@@ -65,14 +65,14 @@ from typing import Any
 
 import numpy as np
 
-from .._output import json_ready, progress_bar, write_columns
+from .._output import json_ready, output_labels, progress_bar, write_columns
 from ..errors import OptionError, closest
 from ..language.limits import LARGEST, SMALLEST, in_range
 from ..language.problem import Problem
 from ..language.units import labelled
 from ..reduce.prepared import Prepared, prepare
+from ..solver import plots
 from ..solver.driver import solve
-from . import plots
 from .continuation import trace  # the path follower of the selector's continuation
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
@@ -385,10 +385,48 @@ class SweepResult:
         """One column of the table as an array (a parameter, an output or a diagnostic)."""
         return np.array([r.get(name, math.nan) for r in self.table])
 
+    _COLUMNS = ("success", "status", "method", "error_estimate", "message")
+
+    def to_pandas(self) -> Any:
+        """The table as a pandas DataFrame, one row per grid point in grid order: the
+        parameters, each output (NaN where the point failed), ``success``, ``status``,
+        ``method``, ``error_estimate``, ``message`` (the ``tables`` extra)."""
+        from .._output import data_frame
+
+        names = [*self.parameters, *self.outputs, *self._COLUMNS]
+        return data_frame({n: [r.get(n) for r in self.table] for n in names})
+
+    def to_xarray(self) -> Any:
+        """The sweep as an xarray Dataset over its grid (the ``tables`` extra): one dimension
+        per parameter (coordinates: the grid's values), variables each output, ``status``,
+        ``success`` and ``error_estimate``. A point not in the table (an interrupted sweep)
+        is NaN, with the status ``missing``."""
+        from .._output import optional
+
+        xarray = optional("xarray", "to_xarray()")
+        axes = {name: np.asarray(values, float) for name, values in self.parameters.items()}
+        shape = tuple(v.size for v in axes.values())
+        where = {name: {float(v): i for i, v in enumerate(values)} for name, values in axes.items()}
+        numbers = {name: np.full(shape, np.nan) for name in [*self.outputs, "error_estimate"]}
+        status = np.full(shape, "missing", dtype=object)
+        success = np.zeros(shape, dtype=bool)
+        for row in self.table:
+            index = tuple(where[name][float(row[name])] for name in axes)
+            for name in numbers:
+                value = row.get(name)
+                numbers[name][index] = np.nan if value is None else float(value)
+            status[index], success[index] = row["status"], bool(row["success"])
+        dims = list(axes)
+        variables = {name: (dims, values) for name, values in numbers.items()}
+        variables["status"] = (dims, status.astype(str))
+        variables["success"] = (dims, success)
+        return xarray.Dataset(variables, coords={name: values for name, values in axes.items()},
+                              attrs={"message": self.message})
+
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:
         """The table as CSV, through the one writer of results (``_output.write_columns``);
         headers labelled with ``units`` when given."""
-        names = [*self.parameters, *self.outputs, "success", "status", "method", "error_estimate", "message"]
+        names = [*self.parameters, *self.outputs, *self._COLUMNS]
         write_columns(path, labelled({n: [r.get(n) for r in self.table] for n in names}, units, independent))
 
     def as_dict(self) -> dict[str, Any]:
@@ -398,7 +436,7 @@ class SweepResult:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Design chart: one curve per value of the slower parameters, every output (or ``output``)
-        on its own panel (``plot`` extra; options of :func:`bvpkit.families.plots.sweep_figure`)."""
+        on its own panel (``plot`` extra; options of :func:`bvpkit.solver.plots.sweep_figure`)."""
 
         return plots.sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
@@ -563,8 +601,10 @@ def sweep(
     problem : Problem
     grid : mapping of str to sequence of float
         Constant name to values; the first is the fast axis (continuation runs along it).
-    outputs : sequence of str, optional
-        Expressions (or names of the problem's outputs) to record; default the problem's outputs.
+    outputs : sequence of str, or mapping of str to str, optional
+        Expressions (or names of the problem's outputs) to record; default the problem's
+        outputs. A mapping gives each a label (``{"effectiveness": "3*c'(1)/phi**2"}``):
+        the label names its column, its variable and its axis.
     store : path, optional
         SQLite file; a rerun with the same store solves only what is missing.
     executor : concurrent.futures.Executor or distributed.Client, optional
@@ -591,11 +631,7 @@ def sweep(
         raise OptionError(f"sweep() takes a bvpkit.Problem, got {type(problem).__name__}")
     prepared = prepare(problem)
     axes = _axes(prepared, grid)
-    labels = {}
-    named = prepared.outputs
-    for text in outputs if outputs is not None else list(named):
-        labels[text] = named.get(text, text)
-    labels = prepared.real_outputs(labels)  # a complex value as its real and imaginary parts
+    labels = prepared.real_outputs(output_labels(prepared.outputs, outputs))  # complex: real and imaginary parts
     if isinstance(chunk, bool) or not isinstance(chunk, int) or chunk < 1:
         raise OptionError(f"chunk must be a whole number of at least 1, got {chunk!r}")
     options = {k: v for k, v in {"tol": tol, "method": method}.items() if v is not None}

@@ -110,6 +110,8 @@ def _parser() -> argparse.ArgumentParser:
         "--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)"
     )
     solve.add_argument("--csv", metavar="FILE", help="write the mesh solution as CSV")
+    solve.add_argument("--plot", metavar="FILE.png", help="draw every unknown function, outputs marked (needs the "
+                       "plot extra; the suffix names the format: png, pdf, svg, ...)")
     solve.add_argument("--json", action="store_true", help="print the result as JSON instead of a summary")
     solve.add_argument(
         "--overwrite", action="store_true", help="let files named in the spec's [save] replace existing files"
@@ -138,7 +140,8 @@ def _parser() -> argparse.ArgumentParser:
                        help="solve exactly at this value of the parameter, on every part of the branch; repeatable")
     trace.add_argument("--return-to", type=float, metavar="VALUE",
                        help="after a fold or branch point, end when the parameter comes back to this value")
-    trace.add_argument("--no-switch", action="store_true", help="stay on the branch at a branch point")
+    trace.add_argument("--no-branch-switching", "--no-switch", dest="no_switch", action="store_true",
+                       help="stay on the branch at a branch point (--no-switch: its former name)")
     trace.add_argument("--stability", action="store_true",
                        help="judge each point as the steady state of u_t = u'' - g of a problem u'' = g "
                        "(reaction-diffusion, heat conduction, ignition); stable parts drawn solid, unstable dashed")
@@ -240,13 +243,22 @@ def _picture(name: str | None) -> Path | None:
         import matplotlib  # noqa: F401 - only whether it is there
         from matplotlib.backend_bases import FigureCanvasBase
     except ImportError:
-        raise MissingExtraError(f'--plot needs matplotlib: {PLOT_INSTALL}') from None
-    formats = sorted(FigureCanvasBase.get_supported_filetypes())
+        formats, missing = list(PICTURE_FORMATS), True
+    else:
+        formats, missing = sorted(FigureCanvasBase.get_supported_filetypes()), False
+    # the name is judged first: a wrong suffix is wrong whether or not the plot extra is there
     suffix = path.suffix[1:].lower()
     if suffix not in formats:
         said = f"'.{suffix}' is not a picture format" if suffix else "it has no suffix to name the format"
         raise OptionError(f"cannot draw {name}: {said}; use one of {', '.join(formats)}")
+    if missing:
+        raise MissingExtraError(f'--plot needs matplotlib: {PLOT_INSTALL}')
     return path
+
+
+#: The formats every matplotlib since 3.7 writes with its default canvas: what a ``--plot`` name
+#: is judged against when matplotlib is not installed (installed, its own list is used).
+PICTURE_FORMATS = ("eps", "jpeg", "jpg", "pdf", "pgf", "png", "ps", "raw", "rgba", "svg", "svgz", "tif", "tiff")
 
 
 #: The words that install the plotting extra, as the README gives them.
@@ -340,6 +352,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     # settings agree with it, and then they are replaced by the text's own)
     save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
+    picture = _picture(args.plot)
     csv_out = json_out = None
     if csv_path is None and save.get("solution_csv"):
         csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
@@ -364,6 +377,8 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     # the user asked for the file: a failed solve's is written too, every header saying it failed
     if csv_path is not None:
         solution.to_csv(csv_path, allow_failed=True)
+    if picture is not None:  # a failed solve's too, marked on the figure as no answer
+        solution.plot(picture, allow_failed=True)
     report = solution.as_dict()
     for output, write in ((csv_out, lambda handle: solution.to_csv(handle, allow_failed=True)),
                           (json_out, lambda handle: handle.write(json.dumps(report, indent=2) + "\n"))):
@@ -376,7 +391,9 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     title = f"{problem.title}\n" if problem.title else ""
     _say(title + solution.summary())
     mesh = "mesh solution" if solution.success else "mesh solution of the failed solve (headers marked failed)"
-    for path, what in ((csv_path or (csv_out and csv_out.path), mesh), (json_out and json_out.path, "report")):
+    drawn = "plot" if solution.success else "plot of the failed solve (marked failed)"
+    for path, what in ((csv_path or (csv_out and csv_out.path), mesh), (json_out and json_out.path, "report"),
+                       (picture, drawn)):
         if path:
             _say(f"{what} written to {path}")
     return solution.status.exit_code, None
@@ -437,7 +454,7 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         progress=not args.quiet and not args.json,
         at=args.at if args.at else settings.get("at"),
         return_to=args.return_to if args.return_to is not None else settings.get("return_to"),
-        switch=not args.no_switch and settings.get("branch_switching", True),
+        branch_switching=not args.no_switch and settings.get("branch_switching", True),
         stability=bool(args.stability or settings.get("stability", False)),
     )
     units = units_of(problem)
@@ -445,11 +462,8 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
         branch.to_csv(args.csv, units=units, independent=problem.independent)
     if args.plot:
         branch.plot(args.plot, title=problem.title, units=units)
-    code = 0 if branch.success else Status.NOT_CONVERGED.exit_code
+    code = branch.status.exit_code
     report = branch.as_dict()
-    if branch.interrupted:
-        code = Status.INTERRUPTED.exit_code
-        report["status"] = Status.INTERRUPTED.word
     if args.json:
         return code, report
     title = f"{problem.title}\n" if problem.title else ""
@@ -492,7 +506,7 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
         curve.to_csv(args.csv, units=units_of(problem), independent=problem.independent)
     if args.plot:
         curve.plot(args.plot)
-    code = 0 if curve.success else Status.NOT_CONVERGED.exit_code
+    code = curve.status.exit_code
     if args.json:
         return code, curve.as_dict()
     title = f"{problem.title}\n" if problem.title else ""
@@ -570,6 +584,7 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
     problem = _load(args)
     form = standard_form(problem)
     report = check_report(problem, form)
+    _check_solver(problem, form)
     for section in ("trace", "sweep"):
         settings = problem.settings.get(section) or {}
         names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
@@ -592,6 +607,29 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
         lines.append(f"  outputs: {', '.join(problem.outputs)}")
     _say("\n".join(lines))
     return 0, None
+
+
+def _check_solver(problem, form) -> None:  # noqa: ANN001
+    """The spec's [solver] settings, refused by ``check`` where ``solve`` would refuse them: an
+    unknown method, a method that cannot take what the problem holds (a singular term), a
+    constant named for continuation that the problem lacks."""
+    from .. import methods
+    from ..errors import OptionError, closest
+    from ..programs.compiled import NEEDS
+    from ..solver.driver import options
+
+    chosen = options(problem.settings, {})
+    needs = frozenset().union(*(t.needs for t in form.transforms))
+    if chosen.method != "auto":
+        missing = sorted(needs - methods.get(chosen.method).takes)
+        if missing:
+            able = ", ".join(m.name for m in methods.REGISTRY.values() if needs <= m.takes)
+            raise OptionError(f"method {chosen.method!r} cannot take {', '.join(NEEDS.get(n, n) for n in missing)} "
+                              f"of this problem; use {able} or auto")
+    homotopy = chosen.homotopy
+    if homotopy not in ("auto", "off") and homotopy not in problem.constants:
+        raise OptionError(f"homotopy names '{homotopy}', which is not a constant of the problem"
+                          f"{closest(homotopy, problem.constants)}; give \"auto\", \"off\" or one of its constants")
 
 
 def check_report(problem, form) -> dict[str, Any]:  # noqa: ANN001

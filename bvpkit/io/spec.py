@@ -470,9 +470,9 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
             regions=[_region(r) for r in section.regions] if section.regions else None,
         )
     except ExpressionError as err:
-        raise SpecError(f"{source}: [problem] {err.one_line()}") from err
+        raise SpecError(f"{source}: {_section(str(err))} {err.one_line()}") from err
     except BvpkitError as err:
-        raise SpecError(f"{source}: [problem] {err}") from err
+        raise SpecError(f"{source}: {_section(str(err))} {err}") from err
     if spec.units:
 
         try:
@@ -498,6 +498,11 @@ def _values(name: str, axis: Any, source: str) -> list[float]:
         return axis_values(name, axis.start, axis.stop, axis.count, axis.spacing)
     except BvpkitError as err:
         raise SpecError(f"{source}: sweep.grid.{name}: {err}") from None
+
+
+def _section(said: str) -> str:
+    """The section of the spec a problem's error is about: outputs live under [outputs]."""
+    return "[outputs]" if said.startswith("output '") else "[problem]"
 
 
 def loads(text: str, source: str = "<spec>") -> Problem:

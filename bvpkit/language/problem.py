@@ -235,6 +235,7 @@ class Problem:
         self.conditions = [
             self._canonical(c, f"condition {i + 1}", self.condition_text[i]) for i, c in enumerate(raw_conditions)
         ]
+        self.domain = self._named_ends(self.domain)
         self.regions, self.points = self._regions(region_input, raw_regional)
         self.jumps = self._check_conditions()
         self.guess = self._guesses(guess or {})
@@ -349,6 +350,7 @@ class Problem:
         e = e.xreplace(replace) if replace else e
         if not self.__dict__.get("complex", True):
             e = _real_only(e)
+        e = _exact_powers(e)
         # brackets with primes, ((1 + b*T)*T')', are differentiated now that T is T(x)
         e = e.replace(lambda d: isinstance(d, sp.Derivative) and not isinstance(d.expr, applied_undef()),
                       lambda d: d.doit())
@@ -451,6 +453,31 @@ class Problem:
         self._check_order([a, b], [_describe(domain[0]), _describe(domain[1])])
         return a, b
 
+    def _named_ends(self, domain: tuple[sp.Expr, sp.Expr]) -> tuple[sp.Expr, sp.Expr]:
+        """The domain with a numeric end replaced by the name a condition gives the same point.
+
+        ``w(L) = 0`` on a domain ``(0, 4.0)`` with the constant ``L = 4.0``: the length is
+        written once as a number and once as a name, and both mean the end. The end takes
+        the name, so a condition there is a condition at the end, and a change of ``L``
+        (``with_constants``, ``--set``, a trace of ``L``) moves the end with the conditions.
+        Only constants qualify: a point of unknown parameters is a free point, and a number
+        written in a condition beside a named end keeps its refusal (the number would not
+        follow the name)."""
+        ends = list(domain)
+        constants = {sp.Symbol(n) for n in self.constants}
+        for i, c in enumerate(self.conditions):
+            for pv in self.point_values(c, f"condition {i + 1} ({self.condition_text[i]})"):
+                point = pv.point
+                if point.is_number or not point.free_symbols or not point.free_symbols <= constants:
+                    continue
+                for j, end in enumerate(ends):
+                    if not end.is_number or end in (sp.oo, -sp.oo):
+                        continue
+                    value = self.value(point, f"the point {_describe(point)}")
+                    if math.isfinite(value) and abs(value - float(end)) <= 1e-12 * max(1.0, abs(float(end))):
+                        ends[j] = point
+        return ends[0], ends[1]
+
     def value(self, point: sp.Expr, what: str = "") -> float:
         """The value of a point (constants and parameter guesses substituted)."""
         values = {**self.constants, **self.unknown_parameters}
@@ -507,7 +534,8 @@ class Problem:
 
         Interfaces are the ends of the regions given, and every point inside the domain at
         which a condition takes a value. Points are matched by their expression (``L``
-        and ``L`` are one point; ``1`` and ``L`` with ``L = 1`` are two, and refused).
+        and ``L`` are one point; ``1`` and ``L`` with ``L = 1`` are two, and refused), after
+        a numeric end took the name a condition gives it (:meth:`_named_ends`).
         """
         a, b = self.domain
         cuts: list[tuple[sp.Expr, int | None]] = []  # (point, index of the region given that ends there)
@@ -815,9 +843,30 @@ class Problem:
             _expr.check_name(name, "output")
             if not isinstance(text, str):
                 raise ProblemError(f"output '{name}': expected an expression as text")
-            self.parse_quantity(text, where=f"output '{name}'")
+            e = self.parse_quantity(text, where=f"output '{name}'")
+            self._inside(e, f"output '{name}' ({text})")
             result[name] = text
         return result
+
+    def _inside(self, e: sp.Expr, where: str) -> None:
+        """Every point value of ``e`` inside the domain (ends included), where the point and the
+        ends are fixed by constants (an unknown parameter's end is known only once solved)."""
+        a, b = self.domain
+        fixed = set(map(sp.Symbol, self.constants))
+        if (a.free_symbols | b.free_symbols) - fixed:
+            return
+        lo = self.value(a, "domain end")
+        hi = self.value(b, "domain end")
+        for pv in self.point_values(e, where):
+            if pv.point.free_symbols - fixed or pv.point in (sp.oo, -sp.oo):
+                continue
+            value = self.value(pv.point, where)
+            slack = 1e-12 * max(1.0, abs(value))
+            if not lo - slack <= value <= hi + slack:
+                shown = _plain_number(_describe(pv.point), value)
+                shown = shown if shown == f"{value:g}" else f"{shown} (= {value:g})"
+                domain = f"[{_describe(a)}, {_describe(b)}]"
+                raise ProblemError(f"{where}: the point {self.independent} = {shown} lies outside the domain {domain}")
 
     def parse_quantity(self, text: str, where: str = "expression") -> sp.Expr:
         """Parse an expression of the solution (point values, states, integrals, constants)."""
@@ -883,9 +932,7 @@ class Problem:
         the domain's ends and interfaces must stay in order)."""
         missing = [k for k in values if k not in self.constants]
         if missing:
-            raise ProblemError(
-                f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
-            )
+            raise ProblemError(_not_a_constant(missing[0], self.constants, self.unknown_parameters))
         new = object.__new__(Problem)
         new.__dict__.update(self.__dict__)
         new.__dict__["constants"] = {**self.constants, **changed_numbers(values, self.constants, "constant")}
@@ -897,6 +944,15 @@ class Problem:
         bcs = "; ".join(self.condition_text)
         a, b = (_describe(e) for e in self.domain)
         return f"Problem({eqs} | {bcs} | {self.independent} in ({a}, {b}))"
+
+
+def _not_a_constant(name: str, constants: Mapping[str, float], parameters: Mapping[str, float]) -> str:
+    """Why ``name`` cannot be given a value as a constant (``with_constants``, ``--set``)."""
+    if name in parameters:
+        return (f"'{name}' is an unknown parameter, not a constant: the solve finds its value, from the start "
+                f"given with the problem (unknown_parameters = {{ {name} = ... }} under [problem] in a spec, "
+                f"unknown_parameters={{\"{name}\": ...}} from Python, where it is now {parameters[name]:g})")
+    return f"'{name}' is not a constant of this problem{closest(name, constants)}"
 
 
 def point_value(point: Any, values: Mapping[str, float], what: str = "") -> float:
@@ -958,6 +1014,25 @@ def check_positions(values: Sequence[float], labels: Sequence[str], independent:
                 f"the points {independent} = {lu} and {independent} = {lv} must be in increasing order with room "
                 f"between them (got {u:g} and {v:g}); ends and interfaces: {', '.join(labels)}"
             )
+
+
+#: A decimal exponent is read as the fraction it writes when that fraction's denominator is at
+#: most this (0.5 is 1/2, 1.5 is 3/2, 0.333 is 333/1000); longer decimals stay numbers.
+_EXACT_DENOMINATOR = 1000
+
+
+def _exact_powers(e: sp.Expr) -> sp.Expr:
+    """``e`` with decimal exponents written as the fractions they are (``x**0.5`` as ``sqrt(x)``,
+    ``y**1.5`` as ``y**(3/2)``): one form of every power, so the analysis of powers of the
+    independent variable at an end (a stretch, a singular term) sees ``x**0.5`` as it sees
+    ``sqrt(x)``, and the generated code is the same."""
+    def exact(q: sp.Pow) -> sp.Expr:
+        fraction = sp.Rational(str(q.exp))
+        if fraction.q > _EXACT_DENOMINATOR or sp.Float(fraction) != q.exp:
+            return q
+        return sp.Pow(q.base, fraction)
+
+    return e.replace(lambda q: isinstance(q, sp.Pow) and q.exp.is_Float, exact)
 
 
 def _plain_number(label: str, value: float) -> str:

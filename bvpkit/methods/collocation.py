@@ -389,7 +389,7 @@ class Collocation(Method):
                 break
             if rounds >= _ROUNDS:  # the residual is met but the conditions are not: Newton again, within limits
                 break
-        outcome = self._outcome(trial, code, x, y, p, iterations, rms, settled)
+        outcome = self._outcome(trial, code, x, y, p, iterations, rms, settled, rounds)
         if code == 0:
             outcome.workspace = _State(eq, parts, lu, floor)  # for the error estimate
             if floor > tol:
@@ -398,10 +398,13 @@ class Collocation(Method):
         return outcome
 
     def _outcome(self, trial: Trial, code: int, x, y, p, iterations: int, rms,  # noqa: ANN001
-                 settled: bool = True) -> Outcome:
+                 settled: bool = True, meshes: int = 1) -> Outcome:
         status = _STATUS.get(code, Status.NOT_CONVERGED)
         if status is Status.SOLVED:
-            message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} on {x.size} nodes"
+            # the iterations of every mesh refined on the way (a linear problem takes one or two on
+            # each): the count alone read as if Newton had struggled
+            on = f"over {meshes} meshes, the last of {x.size} nodes" if meshes > 1 else f"on {x.size} nodes"
+            message = f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} {on}"
         elif status is Status.MESH_LIMIT and not settled:
             # the residual that drove the refinement is that of an iterate, not of a solution:
             # no layer can be read from it

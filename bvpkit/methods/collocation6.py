@@ -346,9 +346,11 @@ class SixthOrderCollocation(Method):
                 if indicator.max() <= _SAFETY * tol:
                     xo, yo = coarse.output()
                     fxo, fyo = fine.output()
-                    outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iterations on {x.size} nodes "
-                                      f"(and {fx.size} for the error estimate)", xo, yo, coarse.p,
-                                      iterations=iterations)
+                    # the nodes counted are those of the solution handed on (the mesh and the two
+                    # Lobatto points inside each interval), as the summary counts them
+                    outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iterations on {xo.size} nodes "
+                                      f"({x.size - 1} intervals of 3 collocation points; the error estimate from "
+                                      f"{fx.size - 1} halved intervals)", xo, yo, coarse.p, iterations=iterations)
                     reference = Outcome(Status.SOLVED, "the halved mesh", fxo, fyo, fine.p)
                     # the stability constant from the last Newton matrix (rows in derivative units)
                     reference.condition = stability_constant(fine.lu, fine.lu.size, fine.scale)

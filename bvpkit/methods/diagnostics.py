@@ -224,31 +224,38 @@ class Survey:
         integrator or a coarse uniform mesh cannot follow.
     rates : ndarray, shape (m,)
         ``max(0, max Re eig J)`` at the guess nodes (used to place shooting nodes).
+    oscillation : float
+        ``max |Im eig J| * length``: how many radians the fastest oscillating mode turns
+        across the interval (0 when none oscillates).
     """
 
     length: float
     growth: float
     stiffness: float
     rates: Any = None
+    oscillation: float = 0.0
 
 
 _SURVEY_POINTS = 11
 
 
-def _real_parts(matrices):  # noqa: ANN001, ANN202
-    """Real parts of the eigenvalues of a stack of square matrices ``(k, n, n)``, shape ``(k, n)``;
-    one and two states in closed form (LAPACK's call per matrix costs more than the arithmetic)."""
+def _eigen_parts(matrices):  # noqa: ANN001, ANN202
+    """Real parts of the eigenvalues of a stack of square matrices ``(k, n, n)``, shape
+    ``(k, n)``, and the largest imaginary part of each, shape ``(k,)``; one and two states in
+    closed form (LAPACK's call per matrix costs more than the arithmetic)."""
     import numpy as np
 
     n = matrices.shape[-1]
     if n == 1:
-        return matrices[:, :, 0]
+        return matrices[:, :, 0], np.zeros(matrices.shape[0])
     if n == 2:
         a, b, c, d = matrices[:, 0, 0], matrices[:, 0, 1], matrices[:, 1, 0], matrices[:, 1, 1]
         half = 0.5 * (a + d)
-        root = np.sqrt(np.maximum(0.25 * (a - d) ** 2 + b * c, 0.0))  # complex pair: no real part added
-        return np.stack([half + root, half - root], axis=1)
-    return np.linalg.eigvals(matrices).real
+        discriminant = 0.25 * (a - d) ** 2 + b * c
+        root = np.sqrt(np.maximum(discriminant, 0.0))  # complex pair: no real part added
+        return np.stack([half + root, half - root], axis=1), np.sqrt(np.maximum(-discriminant, 0.0))
+    eig = np.linalg.eigvals(matrices)
+    return eig.real, np.abs(eig.imag).max(axis=1)
 
 
 def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
@@ -264,7 +271,10 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     with np.errstate(all="ignore"), one_blas_thread(compiled.n):  # threaded eigvals: 20x slower on 2 busy cores
         jac = compiled.jac(x[at], y[:, at], p, k)  # (n, n, len(at))
         finite = bool(np.isfinite(jac).all())
-        real = _real_parts(np.moveaxis(jac, -1, 0)) if finite else np.full((at.size, 1), np.nan)
+        if finite:
+            real, imag = _eigen_parts(np.moveaxis(jac, -1, 0))
+        else:
+            real, imag = np.full((at.size, 1), np.nan), np.zeros(at.size)
     if not np.isfinite(real).all():
         return Survey(float(x[-1] - x[0]), math.inf, math.inf, np.full(x.size, np.inf))
     sampled = np.maximum(real.max(axis=1), 0.0)
@@ -272,7 +282,8 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     log_growth = float(np.sum(0.5 * (rates[1:] + rates[:-1]) * np.diff(x)))
     length = float(x[-1] - x[0])
     stiffness = float(np.abs(real).max() * length)
-    return Survey(length, math.exp(min(log_growth, 700.0)), stiffness, rates)
+    oscillation = float(np.max(imag) * length) if imag.size else 0.0
+    return Survey(length, math.exp(min(log_growth, 700.0)), stiffness, rates, oscillation)
 
 
 def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> float | None:  # noqa: ANN001

@@ -39,10 +39,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from .._lazy import LazyModule
 from ..errors import ProblemError
 from ..language import limits
 from ..language.budget import budget, check_sizes
-from .._lazy import LazyModule
 from .transform import Transform, register
 
 sp = LazyModule("sympy")

@@ -350,6 +350,16 @@ class Reduction:
     def parameter_symbols(self) -> set:
         return set(self.names.p.values())
 
+    def spoken(self, e: Any) -> str:
+        """``e`` printed with the user's names (``x``, ``y'``, ``L``) in place of the internal
+        symbols, for messages; the independent variable is ``xi`` after a stretch."""
+        swap = {_PHYSICAL: sp.Symbol("xi" if self.power > 1 else self.problem.independent)}
+        for i, (name, order) in enumerate(self.states):
+            swap[self.local[i]] = sp.Symbol(name + "'" * order)
+        for table in (self.names.k, self.names.p, *self.names.own):
+            swap.update({internal: user for user, internal in table.items()})
+        return sp.sstr(e.xreplace(swap)) if isinstance(e, sp.Basic) else str(e)
+
 
 def _build(problem) -> StandardForm:  # noqa: ANN001
 
@@ -465,51 +475,6 @@ def _assemble(work: Reduction, transforms: list) -> StandardForm:
         algebraic=tuple(work.algebraic),
         constraints=tuple(constraints),
     )
-
-
-# -- the user's names in the standard form (quantities, guesses) ------------------------------
-def spelled(form: StandardForm, name: str) -> tuple[tuple[str, Any], ...]:
-    """The names of ``form`` that make up the user's function, constant or parameter ``name``,
-    each with its factor (``((name, 1),)`` unless a class splits it)."""
-    for t in form.transforms:
-        found = t.spelled(name)
-        if found is not None:
-            return found
-    return ((name, 1),)
-
-
-def factor(z: Any) -> sp.Expr:
-    """A factor of :func:`spelled` (1, 1j) as SymPy's."""
-    z = complex(z)
-    return sp.Integer(int(z.real)) + sp.I * sp.Integer(int(z.imag))
-
-
-def user_symbols(problem, form: StandardForm) -> dict:  # noqa: ANN001
-    """The user's constants and unknown parameters (plain Symbols) as expressions of the
-    standard form's ``k`` and ``p``."""
-    out = {}
-    for names, symbols, own in ((problem.constants, form.k, form.constants),
-                                (form_parameters(problem), form.p, form.parameters)):
-        for name in names:
-            pieces = spelled(form, name)
-            if all(piece in own for piece, _ in pieces):
-                out[sp.Symbol(name)] = sp.Add(*(factor(f) * symbols[own.index(piece)] for piece, f in pieces))
-    return out
-
-
-def form_parameters(problem) -> list[str]:  # noqa: ANN001
-    """The user's unknown parameters, the eigenvalue included."""
-    return [*problem.unknown_parameters, *([problem.eigenvalue] if problem.eigenvalue else [])]
-
-
-def real_parts(form: StandardForm, e: sp.Expr, replace: dict, where: str) -> list:
-    """The real expressions of ``e`` (in the user's names) with ``replace`` made in it: ``[e]``,
-    or its real and imaginary parts when a class splits values."""
-    for t in form.transforms:
-        found = t.parts(e, replace, where)
-        if found is not None:
-            return found
-    return [e.xreplace(replace)]
 
 
 # -- the transforms -------------------------------------------------------------------------

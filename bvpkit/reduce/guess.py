@@ -137,7 +137,7 @@ def expression_recipes(problem, form, name: str, e: Any) -> dict[str, GuessRecip
     import sympy as sp
 
     from ..programs.codegen import X, compile_expressions, derivative
-    from .form import real_parts, spelled, user_symbols
+    from .spelling import real_parts, spelled, user_symbols
 
     names = {problem.x: X, **user_symbols(problem, form)}
     if not isinstance(e, sp.Basic):  # parsed by Problem (expr.parse); text never reaches SymPy here

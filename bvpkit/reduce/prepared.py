@@ -33,7 +33,7 @@ import numpy as np
 
 from ..errors import OptionError, ProblemError, closest
 from ..language.options import SolveOptions
-from ..language.problem import Problem, changed_numbers, check_positions
+from ..language.problem import Problem, _not_a_constant, changed_numbers, check_positions
 from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
@@ -167,9 +167,7 @@ class Prepared:
         values in the file."""
         missing = [k for k in values if k not in self.constants]
         if missing:
-            raise ProblemError(
-                f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
-            )
+            raise ProblemError(_not_a_constant(missing[0], self.constants, self.parameters))
         new = dataclasses.replace(self, constants={**self.constants,
                                                    **changed_numbers(values, self.constants, "constant")})
         new.check()

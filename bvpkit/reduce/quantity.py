@@ -79,7 +79,7 @@ def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity: 
     of a complex function fills one placeholder per part."""
     from ..language.expr import DomainIntegral
     from ..programs.codegen import X, compile_expressions
-    from .form import factor, real_parts, spelled, user_symbols
+    from .spelling import factor, real_parts, spelled, user_symbols
 
     e = parsed if parsed is not None else problem.parse_quantity(text, where=f"expression '{text}'")
     y = input_symbols(form)

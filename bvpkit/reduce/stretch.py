@@ -27,7 +27,7 @@ _form = LazyModule("bvpkit.reduce.form")  # SymPy's work: loaded only when a pro
 _MAX_STRETCH = 6
 
 
-def _stretch(problem, systems, points, parameters: set, constraints=None):  # noqa: ANN001, ANN202
+def _stretch(problem, systems, points, parameters: set, constraints=None, spoken=str):  # noqa: ANN001, ANN202
     """Fractional powers of ``x - a`` at the finite left end ``a`` removed by ``x - a = xi**d``.
 
     ``1/sqrt(x)``, ``sqrt(x)`` and ``x**(3/2)`` at ``a = 0`` make the equations singular (or
@@ -64,9 +64,10 @@ def _stretch(problem, systems, points, parameters: set, constraints=None):  # no
     if power == 1:
         return 1, points
     if power > _MAX_STRETCH:
+        shown = spoken(a)
         raise ProblemError(
-            f"the equations hold powers of {problem.independent} - {a} with exponents that need a stretch "
-            f"{problem.independent} - {a} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
+            f"the equations hold powers of {problem.independent} - {shown} with exponents that need a stretch "
+            f"{problem.independent} - {shown} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
             "simpler exponents"
         )
     xi = sp.Dummy("xi", positive=True)
@@ -95,7 +96,7 @@ class EndStretch(Transform):
     def system(cls, work) -> None:  # noqa: ANN001
         with budget("looking for fractional powers of the independent variable at the left end"):
             work.power, work.ends = _stretch(work.problem, work.systems, work.points, work.parameter_symbols,
-                                             work.constraints)
+                                             work.constraints, work.spoken)
 
     @classmethod
     def finish(cls, work):  # noqa: ANN001, ANN206

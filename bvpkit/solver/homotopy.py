@@ -171,8 +171,12 @@ def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN
             return [_small_path(named, value)]
         return [Path(named, 0.0, value, False, f"{named} continued from 0 to {value:g}")]
     result = [_small_path(name, value) for name, value in found.small.items()]
+    if free_span(trial) is not None:
+        # first: growing the domain from short finds the nearest end, and its held problems are
+        # easy (the nonlinear terms scaled need a start near the end, which is what is missing)
+        result.insert(0, Path("_free_end", 0.0, 1.0, False, "the free end moved out from a short domain", own=True))
     if found.nonlinear:
-        result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled by s from 0 to 1",
+        result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled up from 0 to their full size",
                            own=True))
     if found.far_field and found.reach:
         length = _length(trial)
@@ -258,6 +262,9 @@ def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str
     solved on the way, a turn taken by pseudo-arclength).
     """
 
+    if path.name == "_free_end":
+        found = free_end(prepared, trial)
+        return found if found is not None else (_stopped(trial, "the problem has no free end"), "no solve")
     method = Collocation()
     if path.own:
         try:
@@ -405,7 +412,7 @@ def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001,
 
 def _shown(path: Path, value: float) -> str:
     if path.name == "_homotopy":
-        return f"s = {value:.3g} of the nonlinear terms"
+        return f"{value:.3g} of the nonlinear terms"
     if path.name == "_reach":
         return f"{value:.3g} of the domain"
     return f"{path.name} = {value:.4g}"
@@ -457,3 +464,332 @@ def no_solution(prepared, trial: Trial, trace=None) -> str:  # noqa: ANN001
                     f"none was found {beyond} it. See the family with bvpkit trace (parameter {name}, from "
                     f"{start:g} to {value:g}); a solution may exist on another branch, from another guess")
     return ""
+
+
+# -- a free end found from a short domain ------------------------------------------------------
+class Held:
+    """A compiled system with its unknown parameter held at a value and one condition set aside.
+
+    The held value is the last constant (``k[-1]``); the remaining conditions, one fewer, fix
+    the states. Along a family of held values the condition set aside is a scalar function of
+    the value, whose root is the user's solution (:func:`free_end`). No new code: every
+    callable is the base system's, rows and columns taken away.
+    """
+
+    def __init__(self, base, row: int):  # noqa: ANN001 - a CompiledSystem (one unknown parameter)
+        import dataclasses as _dc
+
+        self.base, self.row = base, row
+        lay = base.layout
+        self.layout = _dc.replace(lay, parameters=(), constants=(*lay.constants, "_held"))
+        self.jac_pattern, self.programs = base.jac_pattern, base.programs
+        self.keep = np.array([i for i in range(base.bc_sides.size) if i != row])
+        self.bc_sides = np.full(self.keep.size, 2)
+
+    @property
+    def n(self) -> int:
+        return self.base.n
+
+    @property
+    def needs(self) -> frozenset[str]:
+        return self.base.needs
+
+    n_parameters = 0
+
+    def _full(self, k):  # noqa: ANN001, ANN202
+        k = np.asarray(k, float)
+        return k[-1:], k[:-1]
+
+    def rhs(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.rhs(x, y, *self._full(k))
+
+    slopes = rhs
+
+    def jac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return self.base.jac(x, y, *self._full(k))
+
+    def pjac(self, x, y, p, k):  # noqa: ANN001, ANN201
+        return np.zeros((self.n, 0) + np.shape(x))
+
+    def bc(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        return np.asarray(self.base.bc(ya, yb, *self._full(k)))[self.keep]
+
+    def aside(self, ya, yb, k) -> float:  # noqa: ANN001
+        """The condition set aside, at these end values."""
+        return float(np.asarray(self.base.bc(ya, yb, *self._full(k)))[self.row])
+
+    def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
+        a, b, _ = self.base.bc_jac(ya, yb, *self._full(k))
+        a, b = np.asarray(a)[self.keep], np.asarray(b)[self.keep]
+        return a, b, np.zeros((self.keep.size, 0))
+
+    def maps(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.maps(*self._full(k))
+
+    def row_scale(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.row_scale(*self._full(k))
+
+    def singular(self, p, k):  # noqa: ANN001, ANN201
+        return self.base.singular(*self._full(k))
+
+
+#: The short domain a free end's search starts from: this fraction of the guess's length.
+_SHORT_FRACTION = 0.2
+#: How far the search grows the domain: up to this many times the guess's length.
+_LONGEST = 5.0
+_HELD_STEPS = 60  # solves along the held family at most
+_HELD_REFINE = 40  # bracketing steps on the set-aside condition at most
+_FINALS = 3  # solves of the whole problem from a predicted end at most
+#: The whole problem is tried from a predicted end once the set-aside condition has shrunk to
+#: this fraction of its value on the short domain (a secant further out is a poor guess).
+_CLOSE = 0.05
+_NOTE_NODES = 400  # mesh nodes at most on which a crossing inside the domain is looked for
+#: The bracket is narrowed to this relative width: the whole problem's Newton iteration, from
+#: the held solution there, does the rest at the tolerance asked.
+_BRACKET = 1e-4
+
+
+def _lengths(compiled, k: np.ndarray, values) -> np.ndarray:  # noqa: ANN001
+    with np.errstate(all="ignore"):
+        return np.array([float(np.asarray(compiled.maps(np.array([v]), k), float)[:, 1].sum()) for v in values])
+
+
+def _length_slope(compiled, p: np.ndarray, k: np.ndarray) -> tuple[float, float] | None:  # noqa: ANN001
+    """``(length, d length / d p)`` where the one unknown parameter (not an eigenvalue or a
+    period) sets the length of a finite domain: a free end. None otherwise."""
+    layout = compiled.layout
+    # an eigenvalue or a truncated infinite end does not set the length (the slope below is 0);
+    # a period does, and is no free end
+    if compiled.n_parameters != 1 or "phase" in layout.condition_kinds:
+        return None
+    value = float(p[0])
+    delta = 1e-6 * max(1.0, abs(value))
+    near = _lengths(compiled, k, [value, value + delta])
+    slope = (near[1] - near[0]) / delta
+    if not (np.isfinite(near).all() and near[0] > 0 and abs(slope) > 1e-3):
+        return None
+    return float(near[0]), float(slope)
+
+
+def earlier_end(prepared, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray) -> str:  # noqa: ANN001
+    """Words saying that a condition on the states at the right end alone is also met inside
+    the domain of a solution of a problem with one unknown parameter ('' when not): where
+    the parameter is a free end, the end could have been there, so the problem may have
+    several solutions, and the one found takes a later crossing (a polytrope's second zero,
+    say, where the first was meant). The same is said, conditionally, of a free end written
+    on a fixed domain (the parameter stretching the equations instead)."""
+    from ..reduce.mapping import positions
+
+    compiled = prepared.compiled
+    layout = compiled.layout
+    if layout.regions != 1 or compiled.n_parameters != 1 or "phase" in layout.condition_kinds or \
+            "added" in layout.condition_kinds:  # an eigenvalue's normalisation: no end condition to cross
+        return ""
+    free = _length_slope(compiled, p, k) is not None
+    kinds = layout.condition_kinds
+    given = [i for i, kind in enumerate(kinds) if kind == "given"] if kinds else []
+    texts = list(prepared.facts.get("arguments", {}).get("conditions") or [])
+    if x.size > _NOTE_NODES:  # a crossing spans many nodes: every few of them show it
+        keep = np.unique(np.linspace(0, x.size - 1, _NOTE_NODES).round().astype(int))
+        x, y = x[keep], y[:, keep]
+    interior = slice(1, max(1, x.size - 1))
+    for row in range(compiled.bc_sides.size):
+        if compiled.bc_sides[row] != 1:
+            continue  # only a condition on the states at the free end alone
+        with np.errstate(all="ignore"):
+            values = np.array([float(np.asarray(compiled.bc(y[:, 0], y[:, j], p, k))[row])
+                               for j in range(x.size)])
+        inside = values[interior]
+        scale = float(np.nanmax(np.abs(values))) if np.isfinite(values).any() else 0.0
+        clear = np.abs(inside) > 1e-6 * scale
+        signs = np.sign(inside[clear])
+        crossing = np.flatnonzero(signs[1:] != signs[:-1])
+        if not crossing.size or scale == 0.0:
+            continue
+        nodes = np.flatnonzero(clear) + 1  # mesh indices of the clear interior values
+        i, j = nodes[crossing[0]], nodes[crossing[0] + 1]  # the first crossing lies between these
+        t = float(x[i] - values[i] * (x[j] - x[i]) / (values[j] - values[i]))
+        where = positions(np.asarray(compiled.maps(p, k), float))
+        a, b = float(where[0]), float(where[-1])
+        at = a + (b - a) * t ** layout.power(0)
+        text = "a condition at the free end"
+        if row in given and len(given) == len(texts) and isinstance(texts[given.index(row)], str):
+            text = f"the condition {texts[given.index(row)]}"
+        met = f"{text} is also met inside the domain, near {layout.independent} = {at:.4g}"
+        if free:
+            return (f"{met}: the problem may have another solution with the end there (it has several, and the "
+                    "one found meets the condition again further out); a start at a shorter length reaches "
+                    "the nearer one")
+        return (f"{met}: where the unknown parameter stretches the domain (a free end written on a fixed one), "
+                "the problem has another solution that meets the condition there first")
+    return ""
+
+
+def free_span(trial: Trial) -> tuple[float, float, float] | None:
+    """``(start, stop, direction)`` of the search for a free end: the held values from a short
+    domain to a long one; None unless the problem has one unknown parameter (not an
+    eigenvalue or a period) that sets the length of a finite domain."""
+    found = _length_slope(trial.compiled, trial.p, trial.k)
+    if found is None:
+        return None  # the parameter does not set the length: not a free end
+    length, slope = found
+    guess = float(trial.p[0])
+    near = [length]
+    direction = 1.0 if slope > 0 else -1.0
+    start = guess - direction * (1 - _SHORT_FRACTION) * near[0] / abs(slope)
+    stop = guess + direction * (_LONGEST - 1) * near[0] / abs(slope)
+    return start, stop, direction
+
+
+def free_end(prepared, trial: Trial) -> tuple[Outcome, str] | None:  # noqa: ANN001
+    """The solution of a problem with one free end from a rough guess of where the end is.
+
+    The free end is held at a short length (:data:`_SHORT_FRACTION` of the guess's) and one
+    condition at it set aside: the rest fix the states (an initial-value problem, for the
+    first zero of a polytrope). The length then grows in steps, each held problem solved by
+    collocation from the last, while the set-aside condition shrinks towards zero; once a
+    secant through its last two values puts its root within the next step (or its sign
+    changes, bracketing the root for a regula falsi), the whole problem is solved from the
+    held solution with the end at the predicted root, at the tolerance asked. Growing from
+    short finds the nearest end beyond the short domain (the first zero, not a later one).
+    None when the problem is not of this kind (one unknown parameter that sets the domain's
+    length).
+    """
+    from ..methods.collocation import Collocation
+
+    base = trial.compiled
+    span = free_span(trial)
+    if span is None:
+        return None
+    start, stop, _ = span
+    method = Collocation()
+    rows = [i for i in range(base.bc_sides.size) if base.bc_sides[i] != 0][::-1]  # the free end's conditions last
+    tried = []
+    for row in rows:
+        if trial.out_of_time():
+            break
+        held = Held(base, row)
+        found = _Growth(prepared, held, trial, method, start, stop).run()
+        if isinstance(found, str):
+            tried.append(found)
+            continue
+        value, final, solves = found
+        return final, (f"{solves} solves with the free end held, moved out from {start:.4g} until the condition set "
+                       f"aside was met near {value:.6g}")
+    why = "; ".join(tried) if tried else "no condition at the free end could be set aside"
+    return _stopped(trial, f"the free end could not be found from a short domain: {why}"), "no solve"
+
+
+class _Growth:
+    """The held family grown from a short domain towards the root of the set-aside condition."""
+
+    def __init__(self, prepared, held: Held, trial: Trial, method, start: float, stop: float):  # noqa: ANN001
+        self.prepared, self.held, self.trial, self.method = prepared, held, trial, method
+        self.start, self.stop = start, stop
+        self.solves = 0
+        self.finals = 0
+
+    def held_solve(self, value: float, x, y) -> tuple[Outcome, float]:  # noqa: ANN001
+        """The held problem at ``value`` (loose tolerance: it only starts the next) and the
+        set-aside condition there (NaN when it did not solve)."""
+        trial = self.trial
+        k = np.concatenate([trial.k, [value]])
+        self.solves += 1
+        result = self.method.solve(dataclasses.replace(
+            trial, compiled=self.held, x=x, y=y, p=np.zeros(0), k=k, tol=max(_PATH_TOL, trial.tol), verify=False,
+            patience=_PATIENCE))
+        if not result.ok:
+            return result, math.nan
+        return result, self.held.aside(result.y[:, 0], result.y[:, -1], k)
+
+    def finish(self, value: float, held: Outcome, reach: float) -> Outcome | None:
+        """The whole problem from the held solution with the end at ``value``; None when it
+        failed or put the end further than ``reach`` from ``value`` (Newton's method wandered
+        to another end, a later zero, which growing from short is there to avoid)."""
+        if self.finals >= _FINALS or not math.isfinite(value):
+            return None
+        self.finals += 1
+        self.solves += 1
+        final = self.method.solve(dataclasses.replace(self.trial, x=held.x, y=held.y, p=np.array([value]),
+                                                      patience=None))
+        return final if final.ok and abs(float(final.p[0]) - value) <= abs(reach) else None
+
+    def run(self):  # noqa: ANN201 - (value, outcome, solves), or why not (a str)
+        trial, start, stop = self.trial, self.start, self.stop
+        k0 = np.concatenate([trial.k, [start]])
+        x, y, _ = _fresh(self.prepared, self.held, trial, k0)
+        last, r_here = self.held_solve(start, x, y)
+        r_start = r_here
+        if not last.ok or not math.isfinite(r_here) or r_here == 0.0:
+            return f"the problem held at {start:.4g} did not solve ({last.message})"
+        span = stop - start
+        step = 0.05 * span
+        here = start
+        behind: tuple[float, float] | None = None
+        for _ in range(_HELD_STEPS):
+            if trial.out_of_time():
+                return "the time budget ran out while the free end was moved out"
+            predicted = _secant(behind, (here, r_here))
+            close = abs(r_here) <= _CLOSE * abs(r_start)
+            if predicted is not None and close and 0 < (predicted - here) / step <= 1.0:
+                final = self.finish(predicted, last, step)
+                if final is not None:
+                    return predicted, final, self.solves
+            target = here + step
+            if (target - stop) * math.copysign(1.0, span) > 0:
+                return f"the condition set aside kept its sign up to a length {_LONGEST:g} times the guess's"
+            result, r = self.held_solve(target, last.x, last.y)
+            if not result.ok or not math.isfinite(r):
+                # past the root the equations may be undefined (u**1.5 with u < 0): shorter steps
+                step *= 0.5
+                if abs(step) < 1e-9 * abs(span):
+                    return "the held problems stopped solving before the condition set aside was met"
+                continue
+            if r == 0.0 or (r > 0) != (r_here > 0):
+                value, nearest = _bracketed(self.held_solve, (here, r_here, last), (target, r, result))
+                final = self.finish(value, nearest, target - here)
+                if final is not None:
+                    return value, final, self.solves
+                return "the whole problem did not solve from the end bracketed by the held problems"
+            behind = (here, r_here)
+            here, last, r_here = target, result, r
+            step = min(step * 1.5, 0.1 * span) if result.iterations <= 4 else step
+        return "the free end was not found in the steps allowed"
+
+
+def _secant(behind, here: tuple[float, float]) -> float | None:  # noqa: ANN001
+    """Where the line through the last two values of the set-aside condition meets zero,
+    when the condition is shrinking (None otherwise)."""
+    if behind is None:
+        return None
+    (a, ra), (b, rb) = behind, here
+    if not abs(rb) < abs(ra) or (ra > 0) != (rb > 0):
+        return None
+    return b - rb * (b - a) / (rb - ra)
+
+
+def _bracketed(solve, left: tuple, right: tuple):  # noqa: ANN001, ANN202
+    """Regula falsi (the Illinois variant) on a bracket of the set-aside condition; the value
+    nearest the root and the held solution there."""
+    (a, ra, sa), (b, rb, sb) = left, right
+    side = 0
+    for _ in range(_HELD_REFINE):
+        if rb == 0.0 or abs(b - a) <= _BRACKET * max(1.0, abs(b)):
+            break
+        c = b - rb * (b - a) / (rb - ra)
+        if not min(a, b) < c < max(a, b):
+            c = 0.5 * (a + b)
+        near = sb if abs(rb) < abs(ra) else sa
+        result, rc = solve(c, near.x, near.y)
+        if not result.ok or not math.isfinite(rc):
+            break
+        if (rc > 0) == (rb > 0):
+            b, rb, sb = c, rc, result
+            if side == -1:
+                ra *= 0.5
+            side = -1
+        else:
+            a, ra, sa = b, rb, sb
+            b, rb, sb = c, rc, result
+            side = 1
+    return (b, sb) if abs(rb) <= abs(ra) else (a, sa)

@@ -152,6 +152,12 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
         warning = _nearly_singular(compiled, outcome, k, condition, tol)
         if warning:
             status, message = Status.NEARLY_SINGULAR, f"{message}; but {warning}"
+    if status.success and layout.parameters:
+        from .homotopy import earlier_end
+
+        note = earlier_end(prepared, outcome.x, outcome.y, outcome.p, k)
+        if note:
+            message = f"{message}; note: {note}"
     diagnostics = Diagnostics(
         method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,

@@ -22,6 +22,7 @@ from ..methods.diagnostics import Diagnostics, hermite
 from ..programs.compiled import quantity_function
 from ..reduce.mapping import nudged, physical, positions, rate, standard
 from ..status import Status
+from . import plots
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -146,10 +147,11 @@ class Solution:
         ``state_names`` says what each row holds (for a complex problem, the real and
         imaginary parts: ``re(T)``, ``im(T')``).
     parameters : dict of str to float (complex for a complex parameter)
-        Values of the unknown parameters.
+        Values of the unknown parameters (empty when the solve failed: the last iterate is
+        not an answer; :meth:`parameter_values` with ``allow_failed=True`` gives it).
     parameter_errors : dict of str to float
         Their estimated absolute errors (NaN when not estimated; of a complex value, the size
-        of its complex error).
+        of its complex error; empty when the solve failed).
     outputs : dict of str to float (complex for a complex value)
         The problem's named outputs, evaluated (empty when the solve failed).
     output_errors : dict of str to float
@@ -193,17 +195,23 @@ class Solution:
             z = self.interpolant.z
             self.y = np.vstack([self.y, np.concatenate([z[r * held:(r + 1) * held] for r in range(regions)], axis=1)])
         names = layout.parameters
-        self.parameters = prepared.user_values({q: float(v) for q, v in zip(names, self.interpolant.p)})
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
+        self._parameters = prepared.user_values({q: float(v) for q, v in zip(names, self.interpolant.p)})
         # the error of a complex parameter is the size of the complex error (of both parts)
-        self.parameter_errors = {q: float(abs(v)) for q, v in
-                                 prepared.user_values({q: float(v) for q, v in zip(names, errs)}).items()}
+        self._parameter_errors = {q: float(abs(v)) for q, v in
+                                  prepared.user_values({q: float(v) for q, v in zip(names, errs)}).items()}
+        # a failed solve hands out no numbers as answers, its parameters no more than its outputs
+        self.parameters = dict(self._parameters) if self.success else {}
+        self.parameter_errors = dict(self._parameter_errors) if self.success else {}
         self._reference, self._previous = reference, previous
         self.outputs: dict[str, float] = {}
         self.output_errors: dict[str, float] = {}
         if self.success:
             for name, text in prepared.outputs.items():
-                self.outputs[name], self.output_errors[name] = self._output(text)
+                try:
+                    self.outputs[name], self.output_errors[name] = self._output(text)
+                except BvpkitError as err:  # a point the solution does not reach (a constant moved an end)
+                    raise BvpkitError(f"output '{name}' ({text}): {err}") from None
 
     # -- public questions ---------------------------------------------------------------
     @property
@@ -219,6 +227,23 @@ class Solution:
     def problem(self):  # noqa: ANN201 - a bvpkit.Problem
         """The symbolic problem solved (rebuilt with SymPy if this solution came from a cache)."""
         return self.prepared.problem()
+
+    def plot(self, path: str | Path, functions: Any = None, *, allow_failed: bool = False, **options: Any) -> Any:
+        """Draw every unknown function (or those named) against the independent variable, the
+        outputs marked (``plot`` extra; options of :func:`bvpkit.solver.plots.solution_figure`);
+        returns the figure. A failed solve raises unless ``allow_failed=True``."""
+
+        return plots.solution_figure(self, path, [functions] if isinstance(functions, str) else functions,
+                               allow_failed=allow_failed, **options)
+
+    def parameter_values(self, *, allow_failed: bool = False) -> dict[str, float]:
+        """The unknown parameters' values (name -> value).
+
+        A failed solve raises (as :meth:`evaluate` does) unless ``allow_failed=True``; then
+        the values are those of the last iterate, not an answer.
+        """
+        self._check_success("parameter_values", allow_failed)
+        return dict(self._parameters)
 
     def evaluate(self, expression: str, at: Any = None, *, allow_failed: bool = False) -> float | np.ndarray:
         """Evaluate an expression of the solution.
@@ -271,6 +296,13 @@ class Solution:
             columns[name] = row
         return columns
 
+    def to_pandas(self, *, allow_failed: bool = False) -> Any:
+        """:meth:`table` as a pandas DataFrame (the ``tables`` extra); a failed solve raises
+        unless ``allow_failed=True``."""
+        from .._output import data_frame
+
+        return data_frame(self.table(allow_failed=allow_failed))
+
     def to_csv(self, path: str | Path, *, allow_failed: bool = False) -> None:
         """Write :meth:`table` as CSV (one row per mesh node).
 
@@ -305,8 +337,8 @@ class Solution:
                 "method": self.method,
                 "outputs": outputs,
                 "output_errors": errors,
-                "parameters": self.parameters if self.success else {name: None for name in self.parameters},
-                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self.parameters},
+                "parameters": self.parameters if self.success else {name: None for name in self._parameters},
+                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self._parameters},
                 "state_names": list(self.state_names),
                 "diagnostics": self.diagnostics.as_dict(),
             }
@@ -325,11 +357,11 @@ class Solution:
                 unit = f" {units[name]}" if name in units else ""
                 note = "" if np.isfinite(value) else "  (not a finite number: check the expression)"
                 lines.append(f"  {name} = {number_text(value, 12)}{unit}  (+/- {_fmt_err(error)}){note}")
-        elif self.prepared.outputs or self.parameters:
+        elif self.prepared.outputs or self._parameters:
             lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
             f"{d.iterations} Newton iteration{_s(d.iterations)}",
-            f"{d.mesh_nodes} nodes",
+            _nodes(d.mesh_nodes, self.prepared.layout.regions),
             f"residual {d.max_residual:.2g}",
             f"boundary residual {d.bc_residual:.2g}",
             f"error estimate {_fmt_err(d.error_estimate)}",
@@ -355,6 +387,7 @@ class Solution:
             return
         cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
         action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
+                  "parameter_values": "get the last iterate's values", "plot": "draw them",
                   "to_csv": "write them (every column header then says the solve failed)"}[asked]
         raise BvpkitError(
             f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "
@@ -498,3 +531,10 @@ def _fmt_err(value: float | None) -> str:
     if value is None or not math.isfinite(value):
         return "not estimated"
     return f"{value:.2g}"
+
+
+def _nodes(count: int, regions: int) -> str:
+    """The nodes of a solution as its message counts them (per region) and in all."""
+    if regions <= 1:
+        return f"{count} nodes"
+    return f"{count} nodes ({count // regions} in each of its {regions} regions)"

@@ -95,6 +95,7 @@ CONTINUATION = "continuation"
 _FALLBACK = "fallback"  # completed at run time with the step it follows
 # Thresholds of the selector, each with the reason it is where it is.
 STIFF = 500.0  # max |Re eig J| * length: explicit integrators need ~this many steps; layers form
+_OSCILLATES = 1.0  # max |Im eig J| * length above this (a sixth of a turn): worth saying in the reason
 _ROUNDING = float(np.finfo(float).eps)
 #: Shares of the time budget: each step gets ``weight / (sum of the weights of the steps
 #: left)`` of the time left. Collocation first and continuation measured fastest on the test
@@ -139,22 +140,40 @@ def _tight(trial: Trial, candidates: list[type], first: type, facts) -> tuple[ty
     return best
 
 
+def _needed(trial: Trial, need: str) -> str:
+    """What the problem holds that a method must take, in words (the singular term in the
+    problem's own names)."""
+    if need == "singular_term":
+        return f"the term {singular_term(trial)} singular at the left end"
+    return NEEDS.get(need, need)
+
+
+def singular_term(trial: Trial) -> str:
+    """The singular term of ``trial``'s problem in its own names: ``S y/r``, ``S y/(x - 1.5)``."""
+    x = trial.compiled.layout.independent
+    with np.errstate(all="ignore"):
+        a = float(np.asarray(trial.compiled.maps(trial.p, trial.k), float)[0, 0])
+    return f"S y/{x}" if a == 0 else f"S y/({x} - {a:g})" if math.isfinite(a) else f"S y/({x} - a)"
+
+
 def _why(trial: Trial, name: str, facts=None) -> str:  # noqa: ANN001
     """Why the default method goes first, in words read from the survey."""
     # only needs that leave some method out say why this one goes first
     narrowing = {n for n in trial.compiled.needs if not all(n in m.takes for m in methods.REGISTRY.values())}
     if narrowing:
-        held = ", ".join(NEEDS.get(n, n) for n in sorted(narrowing))
+        held = ", ".join(_needed(trial, n) for n in sorted(narrowing))
         return f"the equations hold {held}, which {name} treats exactly (the methods without it are left out)"
     if facts is None:
         facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
     if not math.isfinite(facts.stiffness):
         return "the Jacobian is not finite along the guess; the most forgiving start"
     if facts.stiffness >= STIFF:
-        return (f"stiff: |eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so the "
-                "solution has layers that an adaptive mesh follows")
-    words = (f"smooth (sensitivity grows by {facts.growth:.2g}, |eigenvalue| x length "
-             f"{facts.stiffness:.2g}); the fastest robust choice at this size")
+        return (f"stiff: |real part of an eigenvalue| x length of the Jacobian reaches {facts.stiffness:.2g}, so "
+                "the solution has layers that an adaptive mesh follows")
+    turns = (f", oscillating: |imaginary part| x length {facts.oscillation:.2g}"
+             if facts.oscillation > _OSCILLATES else "")
+    words = (f"smooth (sensitivity grows by {facts.growth:.2g}, |real part of an eigenvalue| x length "
+             f"{facts.stiffness:.2g}{turns}); the fastest robust choice at this size")
     if facts.growth > 1e8:
         words = (f"sensitivity grows by {facts.growth:.0e} across the domain, which its global Newton matrix "
                  "takes without integrating (on the test set it was faster than multiple shooting there)")
@@ -177,7 +196,7 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
         missing = sorted(trial.compiled.needs - chosen.takes)
         if missing:
             able = ", ".join(m.name for m in _ordered(trial))
-            raise OptionError(f"method {method!r} cannot take {', '.join(NEEDS.get(n, n) for n in missing)} of "
+            raise OptionError(f"method {method!r} cannot take {', '.join(_needed(trial, n) for n in missing)} of "
                               f"this problem; use {able} or auto")
         return Plan([Step(method, "asked for by name", 1.0)])
     context = context or Context()
@@ -349,7 +368,9 @@ def _hopeless(result: Outcome, trial: Trial) -> bool:
 
 
 def _nonlinear(trial: Trial) -> bool:
-    """Whether the equations are nonlinear in the states (the Jacobian changes with them)."""
+    """Whether the equations are nonlinear in the unknowns: the Jacobian in the states changes
+    with the states, or, for a free end, with the end (the length multiplies the equations, so
+    ``y'' + y = 0`` with an unknown end is a nonlinear problem)."""
     with np.errstate(all="ignore"):
         y = trial.y
         scale = 1.0 + float(np.max(np.abs(y))) if y.size and np.isfinite(y).all() else 1.0
@@ -357,8 +378,22 @@ def _nonlinear(trial: Trial) -> bool:
         a = trial.compiled.jac(trial.x, y, trial.p, trial.k)
         b = trial.compiled.jac(trial.x, other, trial.p, trial.k)
         # np.allclose's test (|a - b| <= atol + rtol |b|), written out: allclose costs more than the probe
+        pairs = [(a, b)]
+        if len(trial.p) and _free_end(trial):
+            moved = trial.p + 0.25 * (1.0 + np.abs(trial.p))
+            pairs.append((a, trial.compiled.jac(trial.x, y, moved, trial.k)))
+    for a, b in pairs:
         close = np.abs(a - b) <= 1e-12 + 1e-10 * np.abs(b)
-    return not bool(close.all())  # NaN or inf anywhere compares as not close: nonlinear
+        if not bool(close.all()):  # NaN or inf anywhere compares as not close: nonlinear
+            return True
+    return False
+
+
+def _free_end(trial: Trial) -> bool:
+    """Whether the problem's one unknown parameter sets the length of its domain."""
+    from .homotopy import free_span
+
+    return free_span(trial) is not None
 
 
 def _paths(context: Context, trial: Trial):  # noqa: ANN202

@@ -17,7 +17,10 @@ What a figure shows:
 * for a fold curve (:func:`fold_curve_figure`): the first constant at the fold against the
   second, then each output at the fold, cusps and requested values marked;
 * for a sweep: one curve per value of the slower parameters, a logarithmic axis where the
-  grid is geometric, failed points left out and counted below the chart.
+  grid is geometric, failed points left out and counted below the chart;
+* for one solution (:func:`solution_figure`): each unknown function against the independent
+  variable, the outputs that are a function's value at a point marked on its panel, the
+  others listed in the legend, interfaces between regions dotted.
 
 A legend appears only when it explains something (more than one curve, or marks).
 """
@@ -34,6 +37,7 @@ import numpy as np
 
 from ..errors import MissingExtraError, OptionError
 from ..language.units import label, units_of
+from ..reduce.mapping import positions
 
 #: Width of a figure in inches, and the height of one panel: a page column at full width.
 FIGURE_WIDTH, PANEL_HEIGHT = 6.6, 2.9
@@ -67,7 +71,8 @@ def _figure(panels: int):  # noqa: ANN202 - (Figure, list of Axes)
 
 def _finish(fig, axes, title: str, path: str | Path) -> None:  # noqa: ANN001
     if title:
-        fig.suptitle("\n".join(textwrap.wrap(title, TITLE_WIDTH)), fontsize=11)
+        lines = [line for part in title.split("\n") for line in textwrap.wrap(part, TITLE_WIDTH)]
+        fig.suptitle("\n".join(lines), fontsize=11)
     for ax in axes:
         ax.grid(True, which="major", alpha=0.35)
         ax.grid(True, which="minor", alpha=0.12)
@@ -78,7 +83,7 @@ def _title_and_units(source: Any, title: str | None,
                      units: Mapping[str, str] | None) -> tuple[str, dict, str | None]:
     prepared = getattr(source, "prepared", None)
     if title is None:
-        title = getattr(prepared, "title", "") or ""
+        title = getattr(prepared, "title", "") or default_title(prepared)
     found = dict(units_of(prepared)) if prepared is not None else {}
     found.update(units or {})
     return title, found, getattr(prepared, "independent", None)
@@ -161,6 +166,8 @@ def branch_figure(branch: Any, path: str | Path, outputs: Sequence[str] | None =
         raise OptionError("the branch holds no points to draw")
     source = branch.solutions[0] if branch.solutions else None
     title, units, independent = _title_and_units(source, title, units)
+    if source is not None:  # a spec's title may describe more than this cut of the problem
+        title = _held(title, source.prepared, [branch.name], units)
     columns = [np.asarray(recorded[n], float) for n in names]
     good = np.isfinite(parameter) & np.all([np.isfinite(c) for c in columns], axis=0)
     s_points = _arclength([parameter[good], *(c[good] for c in columns)]) if good.any() else np.zeros(0)
@@ -358,6 +365,150 @@ def fold_curve_figure(curve: Any, path: str | Path, outputs: Sequence[str] | Non
     axes[0].legend(loc="best", fontsize=8.5, framealpha=0.9)
     _finish(fig, axes, title, path)
     return fig
+
+
+#: Points at which a solution's functions are drawn (besides its mesh nodes and interfaces).
+PROFILE_SAMPLES = 800
+_OUTPUT_STYLE = dict(marker="o", ms=6.5, mfc="white", mew=1.6, color="tab:red", ls="none", zorder=5)
+
+
+def solution_figure(solution: Any, path: str | Path, functions: Sequence[str] | None = None, *,
+                    title: str | None = None, units: Mapping[str, str] | None = None,
+                    allow_failed: bool = False) -> Any:
+    """Draw one solution: each unknown function against the independent variable on its own
+    panel, the outputs that are values of a function at a point marked on its panel (with
+    their values in the legend), the other outputs listed in the first panel's legend, and
+    interfaces between regions drawn as dotted lines.
+
+    Parameters
+    ----------
+    solution : Solution
+        From :func:`bvpkit.solve`.
+    path : str or Path
+        The file; its suffix names the format (png, pdf, svg, ...).
+    functions : sequence of str, optional
+        Which unknown functions (default: all of them).
+    title, units
+        As in :func:`branch_figure` (the default title, without a spec's, is the equations).
+    allow_failed : bool
+        Draw a failed solve (the figure then says in red that its numbers are not an answer);
+        otherwise a failed solve raises, as its other numbers do.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if not solution.success and not allow_failed:
+        solution._check_success("plot", False)
+    prepared = solution.prepared
+    known = [name for name, _ in prepared.layout.functions]
+    names = list(functions) if functions is not None else known
+    unknown = [n for n in names if n not in known]
+    if unknown:
+        raise OptionError(f"'{unknown[0]}' is not an unknown function of this problem (it has: {', '.join(known)})")
+    title, units, independent = _title_and_units(solution, title, units)
+    title = title or default_title(prepared)
+    x = np.asarray(solution.x, float)
+    finite = x[np.isfinite(x)]
+    if finite.size < 2:
+        raise OptionError("the solution holds no finite mesh to draw")
+    a, b = float(finite.min()), float(finite.max())
+    where = np.union1d(np.linspace(a, b, PROFILE_SAMPLES), finite)
+    ends = [float(v) for v in _points(solution)]
+    inner = [v for v in ends[1:-1] if a < v < b]
+    fig, axes = _figure(len(names))
+    marked, listed = _outputs_on_panels(solution, names)
+    for panel, (ax, name) in enumerate(zip(axes, names)):
+        pieces = _pieces(where, inner)
+        for piece in pieces:
+            values = np.asarray(solution.evaluate(name, at=piece, allow_failed=True), float)
+            ax.plot(piece, values, "-", color="tab:blue", lw=1.8, zorder=3)
+        for v in inner:
+            ax.axvline(v, ls=":", color="0.45", lw=1.0, zorder=2)
+        for output, (point, value) in marked.get(name, {}).items():
+            shown = f"{output} = {value:.6g}{_unit(output, units)}"
+            ax.plot([point], [value], label=shown, **_OUTPUT_STYLE)
+        if panel == 0:  # the outputs that are no point of a curve: listed in the first legend
+            for output, value in listed:
+                ax.plot([], [], ls="none", label=f"{output} = {value:.6g}{_unit(output, units)}")
+        if marked.get(name) or (panel == 0 and listed):
+            ax.legend(loc="best", fontsize=8.5, framealpha=0.9, handlelength=0.8)
+        ax.set_ylabel(label(name, units, independent))
+    axes[-1].set_xlabel(label(independent or solution.independent, units, independent))
+    if not solution.success:
+        fig.text(0.5, 0.995, f"FAILED ({solution.status.word}): these numbers are not an answer", fontsize=9,
+                 color="tab:red", ha="center", va="top")
+    _finish(fig, axes, title, path)
+    return fig
+
+
+def _points(solution: Any) -> np.ndarray:
+    """Ends and interfaces of the solution's domain in the user's variable."""
+    view = solution.interpolant
+    return positions(np.asarray(view.maps, float))
+
+
+def _pieces(where: np.ndarray, inner: Sequence[float]) -> list[np.ndarray]:
+    """``where`` cut at the interfaces: a function may jump there, and is drawn region by region."""
+    pieces, start = [], float(where[0])
+    for cut in [*inner, float(where[-1])]:
+        piece = where[(where >= start) & (where <= cut)]
+        if piece.size:
+            # just inside the interface: the value of this region, not the next
+            span = 1e-12 * max(1.0, abs(cut))
+            piece = np.clip(piece, start + span if pieces else start, cut - span if cut != where[-1] else cut)
+            pieces.append(piece)
+        start = cut
+    return pieces
+
+
+def _outputs_on_panels(solution: Any, names: Sequence[str]) -> tuple[dict, list]:
+    """The outputs that are a function's value at a point (``theta(L)``), by function and
+    ``{output: (point, value)}``; the others as ``[(output, value)]``."""
+    import re
+
+    marked: dict[str, dict] = {}
+    listed: list = []
+    outputs = solution.outputs if solution.success else {}
+    for output, value in outputs.items():
+        text = solution.prepared.outputs.get(output, "")
+        found = re.fullmatch(r"\s*([A-Za-z_]\w*)\s*\((.+)\)\s*", text)
+        if found and found.group(1) in names:
+            try:
+                point = float(solution.evaluate(found.group(2)))
+            except (ValueError, ArithmeticError, TypeError):
+                point = math.nan
+            if math.isfinite(point):
+                marked.setdefault(found.group(1), {})[output] = (point, float(value))
+                continue
+        listed.append((output, float(value)))
+    return marked, listed
+
+
+#: A figure's line of the constants held while one is traced names at most this many.
+HELD_SHOWN = 4
+
+
+def _held(title: str, prepared: Any, moving: Sequence[str], units: Mapping[str, str]) -> str:
+    """``title`` and a line naming the constants held fixed while ``moving`` change (a spec's
+    title may describe a map in two constants, and this figure is one cut of it at Bi = 1)."""
+    held = [(name, value) for name, value in (getattr(prepared, "constants", {}) or {}).items() if name not in moving]
+    if not held:
+        return title
+    shown = ", ".join(f"{name} = {value:g}{_unit(name, units)}" for name, value in held[:HELD_SHOWN])
+    more = f" and {len(held) - HELD_SHOWN} more" if len(held) > HELD_SHOWN else ""
+    return f"{title}\n" + f"({', '.join(moving)} varied; {shown}{more})" if title else f"{shown}{more}"
+
+
+def default_title(prepared: Any) -> str:
+    """A title for a figure of a problem that has none of its own: its equations, as written."""
+    if prepared is None:
+        return ""
+    arguments = getattr(prepared, "facts", {}).get("arguments", {}) or {}
+    equations = arguments.get("equations") or []
+    if isinstance(equations, str):
+        equations = [equations]
+    return ", ".join(str(e) for e in equations)
 
 
 def _geometric_range(values: np.ndarray) -> bool:
