@@ -7,6 +7,8 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any, TextIO
 
+from .errors import MissingExtraError, OptionError
+
 
 def write_columns(path: str | Path | TextIO, columns: Mapping[str, Any]) -> None:
     """Write equal-length columns as CSV: a header row, then numbers in full precision (text as is).
@@ -93,7 +95,6 @@ def optional(module: str, feature: str) -> Any:
     says which extra installs it."""
     import importlib
 
-    from .errors import MissingExtraError
 
     try:
         return importlib.import_module(module)
@@ -133,6 +134,5 @@ def output_labels(named: Mapping[str, str], outputs: Any) -> dict[str, str]:
 
 
 def _option_error(message: str) -> Exception:
-    from .errors import OptionError
 
     return OptionError(message)

@@ -34,8 +34,9 @@ from typing import Any
 
 import numpy as np
 
+from ..language.options import SolveOptions
 from ..methods.base import Outcome
-from ..methods.collocation import _OUT_OF_DOMAIN_HALVINGS, _SETTLED
+from ..methods.collocation import _OUT_OF_DOMAIN_HALVINGS, _SETTLED, _pieces, _split
 from ..methods.diagnostics import _EXACT_INVERSE, Attempt
 from ..methods.discrete import (
     _D,
@@ -48,6 +49,9 @@ from ..methods.discrete import (
     one_blas_thread,
     sparse_pays,
 )
+from ..programs.compiled import CompiledSystem
+from ..reduce.transform import Transform
+from ..solver.settle import Run, settle
 from ..status import Status
 
 #: Newton's method of the batch: solve_bvp's line search (as :func:`methods.collocation._newton`),
@@ -64,9 +68,6 @@ _HOOKS = ("constants", "start", "around", "check", "along", "describe", "ends")
 
 def applies(prepared, options: Mapping[str, Any]) -> bool:  # noqa: ANN001 - a Prepared
     """Whether the points of ``prepared`` can be solved together (see the module docstring)."""
-    from ..programs.compiled import CompiledSystem
-    from ..reduce.transform import Transform
-
     compiled = prepared.compiled
     plain = all(getattr(type(t), hook, None) is getattr(Transform, hook) for t in prepared.transforms
                 for hook in _HOOKS)
@@ -78,7 +79,6 @@ def applies(prepared, options: Mapping[str, Any]) -> bool:  # noqa: ANN001 - a P
 
 class _Points:
     """The standard form at ``K`` points (values of the constants): states ``(n, K, m)``."""
-
     def __init__(self, compiled, ks: np.ndarray):  # noqa: ANN001
         self.c, self.ks = compiled, ks  # ks (K, n_k)
         self.K, self.n = ks.shape[0], compiled.n
@@ -188,7 +188,6 @@ class _BandLU:
 
 class _Equations:
     """Collocation's equations (:class:`bvpkit.methods.discrete.CollocationEquations`) at every point."""
-
     def __init__(self, points: _Points, x: np.ndarray):
         self.pts, self.x = points, x
         self.h = np.diff(x)
@@ -407,9 +406,6 @@ def solve_points(prepared, points: Sequence[Mapping[str, float]], start, options
     round, on the mesh refined where any of them asked (their solutions carried over); a
     point whose Newton iteration fails is left to the caller. A value refused by the problem
     gives None there too (the caller says why)."""
-    from ..language.options import SolveOptions
-    from ..methods.collocation import _pieces, _split
-    from ..solver.settle import Run, settle
 
     began = time.perf_counter()
     out: list = [None] * len(points)

@@ -52,7 +52,7 @@ from typing import Any
 
 import numpy as np
 
-from .._output import json_ready, output_labels, progress_bar, write_columns
+from .._output import data_frame, json_ready, output_labels, progress_bar, write_columns
 from ..errors import OptionError, closest
 from ..language.problem import Problem
 from ..language.units import labelled
@@ -283,8 +283,6 @@ class Branch:
 
     def to_pandas(self) -> Any:
         """:meth:`table` as a pandas DataFrame, one row per point (the ``tables`` extra)."""
-        from .._output import data_frame
-
         return data_frame(self.table())
 
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:

@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from .._output import json_ready, write_columns
+from .._output import data_frame, json_ready, write_columns
 from ..errors import OptionError, closest
 from ..language.problem import Problem
 from ..language.units import labelled
@@ -129,8 +129,6 @@ class FoldCurve:
 
     def to_pandas(self) -> Any:
         """:meth:`table` as a pandas DataFrame, one row per point of the curve (the ``tables`` extra)."""
-        from .._output import data_frame
-
         return data_frame(self.table())
 
     def to_csv(self, path: str | Path, units: Mapping[str, str] | None = None, independent: str | None = None) -> None:

@@ -65,14 +65,17 @@ from typing import Any
 
 import numpy as np
 
-from .._output import json_ready, output_labels, progress_bar, write_columns
+from .._output import data_frame, json_ready, optional, output_labels, progress_bar, write_columns
 from ..errors import OptionError, closest
 from ..language.limits import LARGEST, SMALLEST, in_range
 from ..language.problem import Problem
 from ..language.units import labelled
+from ..programs.compiled import note, signature, signing_key
 from ..reduce.prepared import Prepared, prepare
 from ..solver import plots
 from ..solver.driver import solve
+from ..status import Status
+from . import batched
 from .continuation import trace  # the path follower of the selector's continuation
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
@@ -193,7 +196,6 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
 
 
 def _batched():  # noqa: ANN202 - the module, imported when a unit first needs it
-    from . import batched
 
     return batched
 
@@ -212,7 +214,6 @@ MAX_ROW_BYTES = 100_000  # a stored row's JSON text: a message, a point and its 
 def _signed_row(problem: str, row: dict, key: bytes | None) -> str:
     """A row's JSON text, with the signature of the row, its problem and its point under the
     cache's key (see :func:`bvpkit.programs.compiled.signing_key`) when there is one."""
-    from ..programs.compiled import signature
 
     body = dict(row)
     if key is not None:
@@ -228,8 +229,6 @@ def _valid_row(problem: str, point: str, text: Any, success: Any, outputs: Seque
     its own (an edited value, a row copied from another point, problem or machine)."""
     import hmac
 
-    from ..programs.compiled import signature
-    from ..status import Status
 
     if type(text) is not str or len(text) > MAX_ROW_BYTES:
         return None
@@ -310,7 +309,6 @@ class _Store:
     def done(self, problem: str, retry_failed: bool, outputs: Sequence[str]) -> dict[str, dict]:
         """The finished points of ``problem`` whose rows pass :func:`_valid_row`; the others
         are left out (solved again), said in one note."""
-        from ..programs.compiled import note, signing_key
 
         query = "SELECT point, row, success FROM points WHERE problem = ?"
         key = signing_key()
@@ -330,7 +328,6 @@ class _Store:
         return found
 
     def write(self, problem: str, rows: list[dict]) -> None:
-        from ..programs.compiled import signing_key
 
         key = signing_key(create=True)
         try:
@@ -391,7 +388,6 @@ class SweepResult:
         """The table as a pandas DataFrame, one row per grid point in grid order: the
         parameters, each output (NaN where the point failed), ``success``, ``status``,
         ``method``, ``error_estimate``, ``message`` (the ``tables`` extra)."""
-        from .._output import data_frame
 
         names = [*self.parameters, *self.outputs, *self._COLUMNS]
         return data_frame({n: [r.get(n) for r in self.table] for n in names})
@@ -401,7 +397,6 @@ class SweepResult:
         per parameter (coordinates: the grid's values), variables each output, ``status``,
         ``success`` and ``error_estimate``. A point not in the table (an interrupted sweep)
         is NaN, with the status ``missing``."""
-        from .._output import optional
 
         xarray = optional("xarray", "to_xarray()")
         axes = {name: np.asarray(values, float) for name, values in self.parameters.items()}

@@ -14,6 +14,7 @@ import stat
 from pathlib import Path
 
 from ..errors import SpecError
+from ..language import limits
 
 #: Spec files larger than this are refused unread: a real spec is a few kilobytes.
 MAX_SPEC_BYTES = 1_000_000
@@ -80,7 +81,6 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
     import math
     import tomllib
 
-    from ..language import limits
 
     try:
         data = tomllib.loads(text)
@@ -152,7 +152,6 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
 
 def _sweep(section: dict) -> dict:
     from ..families.sweep import axis_values
-    from ..language import limits
 
     grid = {}
     for name, axis in section["grid"].items():

@@ -19,6 +19,7 @@ from typing import Any
 from .._lazy import LazyModule, applied_undef
 from ..errors import ExpressionError, ProblemError, closest
 from . import limits as _limits
+from .budget import preparation
 from .exact import exact_key
 from .options import SolveOptions
 
@@ -244,7 +245,6 @@ class Problem:
         # The reduction validates what only it can see (isolating the highest derivatives,
         # singular terms), so a Problem that constructs is a Problem that can be prepared.
         from ..reduce.form import standard_form
-        from .budget import preparation
 
         with preparation("reducing the problem to first order", advice="simplify the equations"):
             standard_form(self)

@@ -23,6 +23,8 @@ from collections.abc import Callable
 
 import numpy as np
 
+from ..programs.compiled import CompiledSystem
+from ..programs.program import build
 from ..status import Status
 from .base import Outcome, Trial
 
@@ -68,12 +70,10 @@ class PointSystem:
     """
 
     def __init__(self, compiled):  # noqa: ANN001
-        from ..programs.compiled import CompiledSystem
 
         programs = {prog["name"]: prog for prog in getattr(compiled, "programs", ())}
         if type(compiled) is CompiledSystem and not compiled.layout.singular and all(
                 name in programs for name in _POINT_FUNCTIONS):
-            from ..programs.program import build
 
             built = build([{**programs[name], "mesh": None} for name in _POINT_FUNCTIONS])
             self.rhs, self.jac, self.pjac = (built[name] for name in _POINT_FUNCTIONS)
@@ -135,7 +135,6 @@ def fused_rhs(point: PointSystem, p: np.ndarray, k: np.ndarray, n: int, n_p: int
 
 class _InTau:
     """A dense output in ``x`` on ``[t0, t0 + h]`` read in ``tau = (x - t0) / h`` (what the flows give)."""
-
     def __init__(self, solution, t0: float, h: float):  # noqa: ANN001
         self.solution, self.t0, self.h = solution, t0, h
         self.ts = (np.asarray(solution.ts) - t0) / h
@@ -333,7 +332,6 @@ def _solve(lu_factor, lu_solve, matrix: np.ndarray, rhs: np.ndarray) -> np.ndarr
 
 def _exact(residual, u: np.ndarray) -> np.ndarray | None:  # noqa: ANN001
     """The exact shooting matrix at ``u`` (an integration of the sensitivities), or None if it blew up."""
-
     try:
         return residual(u, True)[1]
     except _BlowUp:

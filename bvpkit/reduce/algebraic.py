@@ -30,7 +30,9 @@ import numpy as np
 
 from .._lazy import LazyModule
 from ..errors import ProblemError
+from ..methods.diagnostics import hermite
 from ..status import Status
+from .mapping import Start, physical, positions
 from .transform import Transform, register
 
 sp = LazyModule("sympy")
@@ -142,7 +144,6 @@ class Algebraic(Transform):
     def begin(self, prepared, t, y, p, k, guess) -> None:  # noqa: ANN001
         """Seed the inner Newton iterations for ``Z``: from a previous solution's ``Z``, the
         user's guesses of the algebraic unknowns, or (by default) from a constant."""
-        from .mapping import Start, physical, positions
 
         compiled = prepared.compiled
         layout = compiled.layout
@@ -176,7 +177,6 @@ class Algebraic(Transform):
         if space is None:
             return None
         x = np.asarray(outcome.x, float)
-        from ..methods.diagnostics import hermite
 
         mid = 0.5 * (x[1:] + x[:-1])
         points = np.sort(np.concatenate([x, mid]))
@@ -258,7 +258,6 @@ class Algebraic(Transform):
 
     @staticmethod
     def _place(prepared, p, k, t: float) -> str:  # noqa: ANN001
-        from .mapping import physical
 
         compiled = prepared.compiled
         layout = compiled.layout

@@ -39,6 +39,7 @@ from ..methods.base import Outcome, Trial
 from ..methods.collocation import Collocation
 from ..methods.diagnostics import hermite
 from ..reduce import guess as _guess
+from ..reduce.mapping import positions
 from ..status import Status
 
 #: Tolerance of the solves along a path: they start Newton's method at the next value, so a
@@ -578,7 +579,6 @@ def earlier_end(prepared, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nda
     several solutions, and the one found takes a later crossing (a polytrope's second zero,
     say, where the first was meant). The same is said, conditionally, of a free end written
     on a fixed domain (the parameter stretching the equations instead)."""
-    from ..reduce.mapping import positions
 
     compiled = prepared.compiled
     layout = compiled.layout
@@ -655,7 +655,6 @@ def free_end(prepared, trial: Trial) -> tuple[Outcome, str] | None:  # noqa: ANN
     None when the problem is not of this kind (one unknown parameter that sets the domain's
     length).
     """
-    from ..methods.collocation import Collocation
 
     base = trial.compiled
     span = free_span(trial)
@@ -682,7 +681,6 @@ def free_end(prepared, trial: Trial) -> tuple[Outcome, str] | None:  # noqa: ANN
 
 class _Growth:
     """The held family grown from a short domain towards the root of the set-aside condition."""
-
     def __init__(self, prepared, held: Held, trial: Trial, method, start: float, stop: float):  # noqa: ANN001
         self.prepared, self.held, self.trial, self.method = prepared, held, trial, method
         self.start, self.stop = start, stop

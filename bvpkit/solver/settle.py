@@ -24,6 +24,7 @@ from ..methods.diagnostics import Diagnostics, condition_estimate, residuals
 from ..reduce.mapping import Start, positions
 from ..reduce.prepared import Prepared
 from ..status import Status
+from .homotopy import earlier_end
 from .solution import Interpolant, Solution
 
 #: Unit round-off of double precision: the stability constant times it is the smallest error
@@ -153,7 +154,6 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
         if warning:
             status, message = Status.NEARLY_SINGULAR, f"{message}; but {warning}"
     if status.success and layout.parameters:
-        from .homotopy import earlier_end
 
         note = earlier_end(prepared, outcome.x, outcome.y, outcome.p, k)
         if note:

@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from .._output import json_ready, write_columns
+from .._output import data_frame, json_ready, write_columns
 from ..errors import BvpkitError
 from ..language.units import label, units_of
 from ..methods.diagnostics import Diagnostics, hermite
@@ -299,7 +299,6 @@ class Solution:
     def to_pandas(self, *, allow_failed: bool = False) -> Any:
         """:meth:`table` as a pandas DataFrame (the ``tables`` extra); a failed solve raises
         unless ``allow_failed=True``."""
-        from .._output import data_frame
 
         return data_frame(self.table(allow_failed=allow_failed))
 

@@ -41,6 +41,7 @@ from ..methods.diagnostics import Attempt, hermite, survey
 from ..programs.compiled import NEEDS
 from ..status import Status
 from . import homotopy
+from .homotopy import free_span
 
 
 @dataclass
@@ -391,8 +392,6 @@ def _nonlinear(trial: Trial) -> bool:
 
 def _free_end(trial: Trial) -> bool:
     """Whether the problem's one unknown parameter sets the length of its domain."""
-    from .homotopy import free_span
-
     return free_span(trial) is not None
 
 
