@@ -176,7 +176,7 @@ def test_a_trace_in_a_real_constant_records_complex_outputs_as_their_parts(tmp_p
     assert np.max(np.abs(branch.outputs["re(T(1))"] + 1j * branch.outputs["im(T(1))"] - exact)) < 1e-6
     assert np.max(np.abs(branch.outputs["abs(T(1))"] - np.abs(exact))) < 1e-6
     branch.to_csv(tmp_path / "branch.csv")
-    assert (tmp_path / "branch.csv").read_text().splitlines()[0] == "w,re(T(1)),im(T(1)),abs(T(1)),step"
+    assert (tmp_path / "branch.csv").read_text().splitlines()[0] == "w,re(T(1)),im(T(1)),abs(T(1)),error_estimate,step"
 
 
 def test_a_complex_eigenvalue_normalised_by_an_integral_of_the_square():
