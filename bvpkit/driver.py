@@ -25,7 +25,7 @@ import numpy as np
 
 from . import guess as _guess
 from . import methods, strategy
-from .diagnostics import Diagnostics, condition_estimate, residuals
+from .diagnostics import Diagnostics, condition_estimate, hermite, residuals
 from .errors import BvpkitError, OptionError
 from .layout import LENGTH
 from .methods.base import Outcome, Trial
@@ -50,6 +50,10 @@ _ROUNDING = float(np.finfo(float).eps)
 #: of the Jacobian is more than the problem's fast modes explain: the layers of the test set
 #: (benchmarks/testset.py) stay below 50 times, y'' + pi^2 y = 0 at its eigenvalue is 1e7 times.
 _NEAR_SINGULAR = 1e3
+#: Growth of the stability constant on halving the mesh above which it has no limit: a
+#: singular problem's grows 4 times (the trapezoidal rule's second order), a well-posed one's
+#: converges (y'' + pi^2 y = 0 at its eigenvalue: 4.0; the layers of the test set: 1.0 to 1.3).
+_DIVERGING = 3.0
 _SAMPLES = 21  # points where the Jacobian's eigenvalues are read for that comparison
 #: Round-off times the stability constant up to this is an accuracy worth reporting as reached
 #: (precision_limit); above, the problem is too ill-conditioned for any answer (error_too_large).
@@ -387,6 +391,11 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         warning = _nearly_singular(compiled, outcome, k, condition, tol)
         if warning:
             status, message = Status.NEARLY_SINGULAR, f"{message}; but {warning}"
+    elif status is Status.PRECISION_LIMIT and tol is not None and condition is not None:
+        # round-off times a huge stability constant: say when the cause is a singular problem
+        warning = _nearly_singular(compiled, outcome, k, condition, tol)
+        if warning:
+            message = f"{message}; {warning}"
     diagnostics = Diagnostics(
         method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,
@@ -440,12 +449,39 @@ def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float
     """
     size = 1.0 + float(np.max(np.abs(outcome.y[compiled.layout.user_rows]), initial=0.0))
     relative = condition / size
-    if not (math.isfinite(relative) and relative * tol > 1.0):
+    if not (math.isfinite(relative) and relative > _NEAR_SINGULAR):
         return ""
     if relative <= _NEAR_SINGULAR * (1.0 + _fastest(compiled, outcome, k)):
         return ""
-    return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance "
-            f"of {tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+    if relative * tol > 1.0:
+        return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance "
+                f"of {tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+    growth = _growth_on_halving(compiled, outcome, k)
+    if growth < _DIVERGING:
+        return ""
+    return (f"the problem is singular here (its stability constant, {condition:.2g} on this mesh, grows "
+            f"{growth:.2g} times when the mesh is halved: it has no bound, whatever the tolerance): "
+            f"{_likely_cause(compiled, outcome, k)}")
+
+
+def _growth_on_halving(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001
+    """How much the stability constant (``condition_estimate``, trapezoidal rule) grows when the
+    solution's mesh is halved: about 1 for a well-posed problem, where it converges; about 4
+    for a singular linearised problem, where the discrete eigenvalue closing on zero (at the
+    rule's second order) sets the figure and the constant has no limit. NaN when it cannot
+    be estimated."""
+    x = outcome.x
+    fine = np.empty(2 * x.size - 1)
+    fine[::2], fine[1::2] = x, 0.5 * (x[1:] + x[:-1])
+    with np.errstate(all="ignore"):
+        y = hermite(compiled, x, outcome.y, outcome.p, k)(fine)
+        if not np.isfinite(y).all():
+            return math.nan
+        coarse = condition_estimate(compiled, x, outcome.y, outcome.p, k)
+        halved = condition_estimate(compiled, fine, y, outcome.p, k)
+    if coarse is None or halved is None or not (coarse > 0 and math.isfinite(coarse)):
+        return math.nan
+    return halved / coarse
 
 
 def _fastest(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001

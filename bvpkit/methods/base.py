@@ -33,7 +33,7 @@ from typing import ClassVar
 import numpy as np
 
 from ..compiled import CompiledSystem
-from ..diagnostics import hermite
+from ..diagnostics import crossings, hermite
 from ..discrete import midpoint_values
 from ..status import Status
 
@@ -228,7 +228,9 @@ class Method:
 
 
 def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, np.ndarray]:
-    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes and midpoints.
+    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes, midpoints and the
+    zero crossings of the reference's states between them (:func:`~bvpkit.diagnostics.crossings`:
+    where the relative difference of a state that is large elsewhere peaks).
 
     Returns the state estimate (which includes the parameters) and the per-parameter
     absolute differences.
@@ -236,6 +238,7 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
     compiled, k = trial.compiled, trial.k
     x = outcome.x
     mid = 0.5 * (x[1:] + x[:-1])
+    spline = hermite(compiled, reference.x, reference.y, reference.p, k)
     if reference.x.size == 2 * x.size - 1 and np.array_equal(reference.x[::2], x) and np.array_equal(
             reference.x[1::2], mid):
         # the reference lives on the halved mesh: its values are the comparison points
@@ -245,12 +248,18 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
         mine = np.empty_like(reference.y)
         mine[:, ::2] = outcome.y
         mine[:, 1::2] = midpoint_values(outcome.y, f, h)
-        theirs = reference.y
+        points, theirs = reference.x, reference.y
     else:
         points = np.sort(np.concatenate([x, mid]))
         mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(points)
-        theirs = hermite(compiled, reference.x, reference.y, reference.p, k)(points)
+        theirs = spline(points)
     estimate = float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs))))
+    roots = crossings(spline, points, theirs)
+    if roots.size:
+        theirs = spline(roots)
+        mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(roots)
+        with np.errstate(all="ignore"):
+            estimate = max(estimate, float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs)))))
     p_errors = np.abs(outcome.p - reference.p)
     if p_errors.size:
         estimate = max(estimate, float(np.max(p_errors / (1.0 + np.abs(reference.p)))))
