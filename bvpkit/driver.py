@@ -23,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from . import features as _features
 from . import guess as _guess
 from . import methods, strategy
 from .diagnostics import Diagnostics, condition_estimate, hermite, residuals
@@ -203,7 +204,8 @@ def _run(prepared: Prepared, t, y, p, k, tol: float, chosen: dict) -> tuple[Outc
     compiled = prepared.compiled
     with np.errstate(all="ignore"):
         ends = _guess.positions(np.asarray(compiled.maps(p, k), float))
-    trial = Trial(compiled, t, y, p, k, tol, chosen["max_nodes"], chosen["verify"], place=place(compiled, p, k))
+    trial = Trial(compiled, t, y, p, k, tol, chosen["max_nodes"], chosen["verify"], place=place(compiled, p, k),
+                  features=prepared.features(p, k))
     context = strategy.Context(prepared, chosen["homotopy"], chosen.get("deadline"))
     return strategy.run(trial, chosen["method"], (float(ends[0]), float(ends[-1])), context)
 
@@ -348,6 +350,9 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
     # The last guards: success never comes with non-finite values or an estimate above tol.
     if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
+    if status is Status.SOLVED:
+        # ... nor with a narrow feature of the equations that the answer's mesh steps over
+        status, message = _features_resolved(prepared, outcome, k, status, message)
     attainable = condition * _ROUNDING if condition is not None and math.isfinite(condition) else math.inf
     missed = (status is Status.SOLVED and tol is not None and math.isfinite(estimate)
               and estimate > tol * (1 + 1e-9))
@@ -418,6 +423,27 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
         reference = Interpolant(compiled, ref.x, ref.y, ref.p, k)
     return Solution(prepared, k, status, message, diagnostics.method, outcome.x, outcome.y, outcome.p,
                     diagnostics, outcome.parameter_errors, reference, previous)
+
+
+def _features_resolved(prepared: Prepared, outcome: Outcome, k: np.ndarray, status: Status,
+                        message: str) -> tuple[Status, str]:
+    """A success whose mesh does not hold a narrow feature of the equations
+    (:func:`bvpkit.features.unresolved`) is no success: the method never saw the feature, and
+    its error estimate cannot either."""
+    missed = _features.unresolved(outcome.x, prepared.features(outcome.p, k))
+    if missed is None:
+        return status, message
+    compiled = prepared.compiled
+    with np.errstate(all="ignore"):
+        scale = float(np.abs(np.asarray(compiled.maps(outcome.p, k), float)[0, 1]))
+    what = _features.words(missed, place(compiled, outcome.p, k), scale)
+    if not missed.representable:
+        why = (f"{what}: narrower than double precision can resolve there, so no mesh holds it; write the term "
+               "as a step (min, max) or widen it")
+    else:
+        why = (f"{what}, which the final mesh of {outcome.x.size} nodes does not resolve (the method stepped over "
+               "it, and its error estimate cannot see it); raise max_nodes or give a finer first guess there")
+    return Status.MESH_LIMIT, f"{message}, but the equations hold {why}"
 
 
 def _by_order(compiled, outcome: Outcome, k: np.ndarray, mode: int) -> bool:  # noqa: ANN001

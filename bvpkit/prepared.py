@@ -136,6 +136,13 @@ class Prepared:
     def p0(self) -> np.ndarray:
         return np.array([self.parameters.get(q, 0.0) for q in self.layout.parameters], dtype=float)
 
+    def features(self, p: np.ndarray, k: np.ndarray) -> tuple:
+        """The narrow features and corners of the equations' terms in the independent variable
+        alone at these values (:func:`bvpkit.features.locate`; empty when there are none)."""
+        from .features import locate
+
+        return locate(self.system.get("features"), p, k)
+
     # -- new values --------------------------------------------------------------------------
     def with_constants(self, **values: float) -> Prepared:
         """The same problem with other values of some constants (no new code); checked like
@@ -295,10 +302,25 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
         "points": problem.point_labels, "own": _own(problem),
     }
     system = {"programs": list(compiled.programs), "pattern": compiled.jac_pattern.tolist(),
-              "sides": compiled.bc_sides.tolist()}
+              "sides": compiled.bc_sides.tolist(), "features": _feature_terms(form)}
     quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
     return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,
                     dict(problem.constants), _parameters(problem))
+
+
+def _feature_terms(form) -> dict | None:  # noqa: ANN001
+    """The terms that can make narrow features (:func:`bvpkit.features.terms`), or None: a
+    hint for the first mesh, never a reason to refuse a problem."""
+    from .budget import budget, step_seconds
+    from .errors import ProgramError
+    from .features import terms
+
+    try:
+        with budget("looking for narrow features of the equations", seconds=min(2.0, step_seconds()),
+                    advice="simplify the terms in the independent variable alone"):
+            return terms(form)
+    except (ProgramError, ProblemError, TypeError, ValueError, RecursionError):
+        return None
 
 
 # -- the disk cache of spec files' preparations --------------------------------------------------
@@ -336,8 +358,12 @@ def cached(key: str | None) -> Prepared | None:
             raise KeyError("key")
         prepared = Prepared.from_plain(body["prepared"])
         # every program is validated and built now, not in the middle of a solve
+        features = prepared.system.get("features")
+        if features is not None and not (isinstance(features, dict) and isinstance(features.get("corner"), list)):
+            raise TypeError("features")
         for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
-                        *_programs(prepared.quantities.values())]:
+                        *_programs(prepared.quantities.values()),
+                        *([features["program"]] if features is not None else [])]:
             build_quantity(program)
         prepared.compiled  # noqa: B018 - builds the system's programs now
         return prepared

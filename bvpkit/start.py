@@ -18,6 +18,7 @@ import numpy as np
 from . import guess as _guess
 from . import homotopy
 from .errors import OptionError, closest
+from .features import seeded
 from .methods.base import Trial
 from .prepared import Prepared
 from .solution import Solution
@@ -42,7 +43,8 @@ def check_guess(prepared: Prepared, guess: Any) -> None:
 def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Mesh, states and parameters to start from: ``guess`` (a solution, carried onto ``k``, or
     expressions per function) over the problem's own recipes, moved into the domain of the
-    equations when needed, and the eigenvalue guess of an eigenvalue problem.
+    equations when needed, and the eigenvalue guess of an eigenvalue problem. The mesh holds
+    points graded into the narrow features of the equations (:mod:`bvpkit.features`).
 
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled
@@ -51,10 +53,10 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tupl
     if isinstance(guess, Solution | _guess.Start):
         start = as_start(guess)
         p = start.p.copy()
-        t = start.t.copy()
+        t = seeded(start.t, prepared.features(p, k), chosen["max_nodes"] // 2)
         return t, _guess.carried(start, compiled, t, p, k), p
     p = prepared.p0()
-    t = _guess.initial_mesh(nodes)
+    t = seeded(_guess.initial_mesh(nodes), prepared.features(p, k), chosen["max_nodes"] // 2)
     recipes = dict(prepared.recipes)
     for name, expression in (guess or {}).items():
         if name not in recipes:

@@ -77,6 +77,10 @@ class Trial:
         Meshes on which Newton's method may fail to converge, from the start, before the method
         gives up with :attr:`~bvpkit.status.Status.NOT_CONVERGED` (the selector sets it when
         continuation from an easier problem can take over; None: no limit, refinement goes on).
+    features : tuple of bvpkit.features.Feature
+        Narrow features and corners of the equations' terms in ``t`` alone, found before the
+        solve: a method's first mesh keeps the points graded into them, its integrators stop at
+        the corners and take short steps across them.
     """
 
     compiled: CompiledSystem
@@ -90,6 +94,7 @@ class Trial:
     place: Callable[[float], str] = lambda t: f"t = {t:.6g}"  # noqa: E731
     deadline: float | None = None
     patience: int | None = None
+    features: tuple = ()
 
     def out_of_time(self) -> bool:
         """Whether the attempt's time budget is spent."""

@@ -33,6 +33,7 @@ import numpy as np
 
 from ..diagnostics import stability_constant
 from ..discrete import SingularMatrix, factor_blocks, one_blas_thread
+from ..features import seeded
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -302,6 +303,7 @@ class SixthOrderCollocation(Method):
         x = x0[::2] if x0.size > 21 else x0.copy()
         if x[-1] != x0[-1]:
             x = np.append(x, x0[-1])
+        x = seeded(x, trial.features)  # the narrow features of the equations stay seeded
         y, z = _start(c, None, x, y0, x0, p, k)
         previous: _Discrete | None = None
         ready: _Discrete | None = None

@@ -29,6 +29,7 @@ import scipy.sparse as sparse
 
 from ..diagnostics import crossings, hermite, survey
 from ..discrete import SingularMatrix, factor_blocks
+from ..features import pieces
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -259,7 +260,7 @@ class Shooting(Method):
             options.update(method="Radau", jac_sparsity=block)
         else:
             options.update(method="DOP853")
-        result = solve_ivp(rhs, (0.0, 1.0), start.ravel(), **options)
+        result = _integrate(solve_ivp, rhs, start.ravel(), options, pieces(trial.features, t0, h))
         if result.status != 0:
             tau = float(result.t[-1]) if result.t.size else 0.0
             where = t0 + tau * h
@@ -555,3 +556,36 @@ def _check_floor(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nd
     noisy = y + 4.0 * _EPS * np.abs(y) * pattern
     moved, _ = check_by_defect(compiled, x, noisy, p, k)
     return 2.0 * abs(moved - check) if math.isfinite(moved) else 0.0
+
+
+def _integrate(solve_ivp, rhs, start: np.ndarray, options: dict, parts: list):  # noqa: ANN001, ANN202
+    """``solve_ivp`` over ``tau`` in ``[0, 1]`` in the pieces ``(a, b, max_step)`` of
+    :func:`bvpkit.features.pieces`: restarted at each corner of the equations, and with steps
+    no longer than a narrow feature's width across it (an integrator that steps over a
+    feature never sees it). One call when there is one piece; otherwise the pieces' results
+    joined into one (their dense outputs too)."""
+    if len(parts) == 1:
+        return solve_ivp(rhs, (0.0, 1.0), start, **options)
+    from types import SimpleNamespace
+
+    from scipy.integrate import OdeSolution
+
+    times, states, solutions = [np.zeros(1)], [start[:, None]], []
+    result = None
+    for a, b, step in parts:
+        chosen = dict(options, max_step=min(options.get("max_step", np.inf), step))
+        result = solve_ivp(rhs, (a, b), start, **chosen)
+        if result.status != 0:
+            result.t = np.concatenate([*times, result.t])
+            return result
+        times.append(result.t[1:])
+        states.append(result.y[:, 1:])
+        if options.get("dense_output"):
+            solutions.append(result.sol)
+        start = result.y[:, -1]
+    sol = None
+    if solutions:
+        ts = np.concatenate([solutions[0].ts, *(s.ts[1:] for s in solutions[1:])])
+        sol = OdeSolution(ts, [piece for s in solutions for piece in s.interpolants])
+    return SimpleNamespace(status=0, message=result.message, t=np.concatenate(times), y=np.concatenate(states, axis=1),
+                           sol=sol)
