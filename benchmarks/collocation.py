@@ -98,7 +98,7 @@ def small_problems(tol: float = 1e-6, repeats: int = 7) -> str:
     import statistics
     import time
 
-    from bvpkit.discrete import CollocationEquations
+    from bvpkit.methods.discrete import CollocationEquations
 
     lines = [f"### Collocation against one Newton iteration on its final mesh, tol = {tol:g}", "",
              "| problem | nodes | collocation, verify off (ms) | with error estimate (ms) | one Newton iteration (ms) "

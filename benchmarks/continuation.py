@@ -69,7 +69,7 @@ def bratu_round_the_fold(tol: float = 1e-6) -> str:
     many values (the loop stays on the lower branch; it cannot turn)."""
     p = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.1})
 
-    def traced() -> bvpkit.continuation.Branch:
+    def traced() -> bvpkit.families.continuation.Branch:
         return bvpkit.trace(p, "lam", start=0.1, stop=5.0, outputs=["y'(0)"], tol=tol, at=[LAST], return_to=1.0)
 
     points = len(traced().parameter)

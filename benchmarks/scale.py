@@ -168,8 +168,8 @@ def preparation(repeats: int = 3) -> str:
 def crossover(m: int = 201, repeats: int = 3) -> str:
     """Where the sparse LU of the Newton matrix beats the banded one (discrete.BAND_LIMIT,
     sparse_pays): on the reacting chain itself, and on random blocks of three kinds."""
-    import bvpkit.discrete as discrete
-    from bvpkit.discrete import factor_blocks, one_blas_thread
+    import bvpkit.methods.discrete as discrete
+    from bvpkit.methods.discrete import factor_blocks, one_blas_thread
 
     lines = ["### Banded against sparse LU: the reacting chain (whole collocation solves, verify off)", "",
              "| states | banded (ms) | sparse (ms) | sparse / banded | chosen |", "| --- | --- | --- | --- | --- |"]
@@ -222,7 +222,7 @@ def crossover(m: int = 201, repeats: int = 3) -> str:
 
 def threads(n: int = 60, m: int = 201, repeats: int = 5) -> str:
     """One BLAS thread against the machine's default in the banded LU of dense blocks, side by side."""
-    from bvpkit.discrete import factor_blocks, one_blas_thread
+    from bvpkit.methods.discrete import factor_blocks, one_blas_thread
 
     rng = np.random.default_rng(5)
     left = rng.normal(size=(m - 1, n, n)) - np.eye(n)
@@ -284,7 +284,7 @@ def growth() -> str:
     lines += ["| mesh nodes m | residual + Jacobian evaluation (ms) | one Newton step: Jacobian, banded LU, solve (ms) |",
               "| --- | --- | --- |"]
     prepared = bvpkit.prepare(chain_problem(5))
-    from bvpkit.discrete import CollocationEquations
+    from bvpkit.methods.discrete import CollocationEquations
 
     c = prepared.compiled
     ms, ts, steps = [], [], []

@@ -65,7 +65,7 @@ TIMEOUT = 10.0  # seconds of wall time per solve, as the issue asks
 PREPARE_TIMEOUT = 120.0  # parsing, code generation and the test set's own reading of one instance
 MAX_NODES = 100_000  # the same mesh limit for bvpkit and solve_bvp
 FALSE_FACTOR = 10.0  # success is false when the true error exceeds this times tol or the estimate
-INITIAL_NODES = 41  # bvpkit's first mesh (bvpkit.guess.INITIAL_NODES), used for solve_bvp too
+INITIAL_NODES = 41  # bvpkit's first mesh (bvpkit.reduce.guess.INITIAL_NODES), used for solve_bvp too
 SCIPY = "solve_bvp"
 
 # The error grid: uniform points plus geometric clusters down to 1e-9 of the length at both

@@ -11,9 +11,6 @@ from . import _interrupt
 
 _interrupt.install_if_command()  # first: Ctrl-C while the `bvpkit` command starts (see _interrupt.py)
 
-import sys  # noqa: E402
-import types  # noqa: E402
-
 from .errors import (  # noqa: E402
     BvpkitError,
     ExpressionError,
@@ -28,11 +25,12 @@ from .status import Status  # noqa: E402
 # NumPy, no SymPy): the command line handles Ctrl-C before anything heavy is imported, and
 # a cached `bvpkit solve` never imports SymPy.
 _LAZY = {
-    "Attempt": "diagnostics", "Diagnostics": "diagnostics", "Branch": "continuation", "Fold": "continuation",
-    "trace": "continuation", "solve": "driver", "Problem": "problem", "Solution": "solution",
-    "Interpolant": "solution", "Prepared": "prepared", "prepare": "prepared",
-    "BranchPoint": "continuation", "FoldCurve": "foldcurve", "fold_curve": "foldcurve",
-    "sweep": "sweep", "SweepResult": "sweep",
+    "Attempt": "methods.diagnostics", "Diagnostics": "methods.diagnostics", "Branch": "families.continuation",
+    "Fold": "families.continuation", "trace": "families.continuation", "solve": "solver.driver",
+    "Problem": "language.problem", "Solution": "solver.solution", "Interpolant": "solver.solution",
+    "Prepared": "reduce.prepared", "prepare": "reduce.prepared", "BranchPoint": "families.continuation",
+    "FoldCurve": "families.foldcurve", "fold_curve": "families.foldcurve", "sweep": "families.sweep",
+    "SweepResult": "families.sweep",
 }
 
 
@@ -46,22 +44,6 @@ def __getattr__(name: str):  # noqa: ANN202
     raise AttributeError(f"module 'bvpkit' has no attribute {name!r}")
 
 
-class _Package(types.ModuleType):
-    """The package's module type: ``bvpkit.sweep`` stays the function.
-
-    Importing the submodule ``bvpkit.sweep`` makes Python set the package's attribute
-    ``sweep`` to that module, which would hide the function of the same name; that one
-    assignment is declined (the module stays reachable as ``sys.modules["bvpkit.sweep"]``
-    and through ``from bvpkit.sweep import ...``).
-    """
-
-    def __setattr__(self, name: str, value: object) -> None:
-        if name in _LAZY and name == _LAZY[name] and isinstance(value, types.ModuleType):
-            return
-        super().__setattr__(name, value)
-
-
-sys.modules[__name__].__class__ = _Package
 
 
 def __dir__() -> list[str]:
@@ -73,7 +55,7 @@ __version__ = "0.1.0"
 
 def load(path):  # noqa: ANN001, ANN201
     """Read a TOML spec file into a :class:`Problem` (its solver settings carried along)."""
-    from .spec import load as _load
+    from .io.spec import load as _load
 
     return _load(path)
 

@@ -1,3 +1,3 @@
-from .cli import run
+from .io.cli import run
 
 run()

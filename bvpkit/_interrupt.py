@@ -1,9 +1,9 @@
 """Ctrl-C while the ``bvpkit`` command is still starting.
 
-The console script imports the package before :func:`bvpkit.cli.run` can catch anything, and
+The console script imports the package before :func:`bvpkit.io.cli.run` can catch anything, and
 an interrupt in that window would end in Python's own traceback (and no JSON). So when the
 running program is the ``bvpkit`` command itself, the package's first lines install
-:func:`early_interrupt` as the handler of SIGINT; :func:`bvpkit.cli.run` hands Ctrl-C back to
+:func:`early_interrupt` as the handler of SIGINT; :func:`bvpkit.io.cli.run` hands Ctrl-C back to
 Python's usual ``KeyboardInterrupt`` as soon as it can handle that. Imported as a library,
 bvpkit changes no signal handling.
 """

@@ -8,7 +8,7 @@ import pytest
 from scipy.special import ellipk
 
 import bvpkit
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 
 
 def wedge():
@@ -104,8 +104,8 @@ def test_a_drawn_branch_turns_by_at_most_the_angle_bound():
     data = np.column_stack([b.parameter, b.outputs["y'(0)"]])
     d = np.diff(data / np.ptp(data, axis=0), axis=0)
     cosine = np.sum(d[:-1] * d[1:], axis=1) / (np.linalg.norm(d[:-1], axis=1) * np.linalg.norm(d[1:], axis=1))
-    # the bound stated in the docs (bvpkit.continuation.MAX_ANGLE, common practice, no source)
-    assert np.degrees(np.arccos(np.clip(cosine, -1, 1))).max() <= math.degrees(bvpkit.continuation.MAX_ANGLE) + 1e-6
+    # the bound stated in the docs (bvpkit.families.continuation.MAX_ANGLE, common practice, no source)
+    assert np.degrees(np.arccos(np.clip(cosine, -1, 1))).max() <= math.degrees(bvpkit.families.continuation.MAX_ANGLE) + 1e-6
     assert len(b.folds) == 1
 
 
@@ -180,7 +180,7 @@ def _root_of_w_tan_w_is_one() -> float:
      "analytic: v = w exp(-x/4) removes the first derivative: mu_1 = a - b^2/4 - (pi/L)^2"),
 ])
 def test_the_principal_eigenvalue_of_linear_steady_states(equation, conditions, domain, a, exact, source):
-    from bvpkit.stability import principal_eigenvalue, stable
+    from bvpkit.families.stability import principal_eigenvalue, stable
 
     sol = bvpkit.solve(bvpkit.Problem([equation], conditions, domain, constants={"a": a}), tol=1e-8)
     assert principal_eigenvalue(sol) == pytest.approx(exact(a), rel=1e-6, abs=1e-8), source
@@ -224,7 +224,7 @@ def test_the_bundled_ignition_spec_traces_with_its_stability(capsys):
 def test_the_principal_eigenvalue_of_a_coupled_pair():
     # u_t = u'' - (u - v), v_t = v'' - (2 v - u), u'(0) = v'(0) = 0, u(1) = 1, v(1) = 0; analytic:
     # modes cos(pi x / 2) times the eigenvectors of A = [[-1, 1], [1, -2]]: mu_1 = -(pi/2)^2 + max eig A
-    from bvpkit.stability import principal_eigenvalue
+    from bvpkit.families.stability import principal_eigenvalue
 
     p = bvpkit.Problem(["u'' = u - v", "v'' = 2*v - u"], ["u'(0) = 0", "u(1) = 1", "v'(0) = 0", "v(1) = 0"], (0, 1))
     sol = bvpkit.solve(p, tol=1e-9)

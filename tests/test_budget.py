@@ -1,4 +1,4 @@
-"""Budgets on symbolic work (bvpkit.budget) and the hostile problems that needed them.
+"""Budgets on symbolic work (bvpkit.language.budget) and the hostile problems that needed them.
 
 Each hostile problem below is built in a child process, which must answer (a Problem, or
 one bvpkit error) within 30 s of wall time and 1 GB of peak resident memory, measured in
@@ -17,8 +17,8 @@ import time
 import pytest
 
 import bvpkit
-from bvpkit import budget as budget_module
-from bvpkit.budget import budget, check_sizes
+from bvpkit.language import budget as budget_module
+from bvpkit.language.budget import budget, check_sizes
 
 SECONDS, MEGABYTES = 30.0, 1000
 

@@ -6,12 +6,12 @@ import threading
 import pytest
 
 import bvpkit
-from bvpkit import codegen
+from bvpkit.generated import codegen
 
 
 @pytest.fixture()
 def cache(tmp_path, monkeypatch):
-    from bvpkit import prepared
+    from bvpkit.reduce import prepared
 
     monkeypatch.setenv(codegen.CACHE_VARIABLE, str(tmp_path))
     codegen._MEMORY.clear()
@@ -26,7 +26,7 @@ def _problem(k=3.0):
 
 
 def _form(k=3.0):
-    from bvpkit.reduce import standard_form
+    from bvpkit.reduce.form import standard_form
 
     return standard_form(_problem(k))
 
@@ -85,7 +85,7 @@ def test_cache_can_be_turned_off(tmp_path, monkeypatch):
 SPECS = sorted(p.name for p in (__import__("pathlib").Path(__file__).parents[1] / "specs").glob("*.toml"))
 _WARM = """
 import sys
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 specs, extra = sys.argv[1].split(","), sys.argv[2:]
 codes = []
 for spec in specs:
@@ -149,7 +149,7 @@ def test_a_set_value_makes_a_different_prepared_problem(tmp_path):
 
 
 def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(cache):
-    from bvpkit import prepared
+    from bvpkit.reduce import prepared
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "cantilever_shelf.toml"
     original = bvpkit.load(spec)
@@ -174,7 +174,7 @@ def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(
 
 @pytest.mark.parametrize("damage", ["truncate", "tamper"])
 def test_a_damaged_prepared_problem_is_ignored(cache, damage):
-    from bvpkit import prepared
+    from bvpkit.reduce import prepared
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "pin_fin.toml"
     key = prepared.spec_key(spec, {})
@@ -205,7 +205,7 @@ def test_the_cache_keeps_only_the_newest_files_of_a_kind(cache, monkeypatch):
     import os
     import time
 
-    from bvpkit import compiled
+    from bvpkit.generated import compiled
 
     monkeypatch.setattr(compiled, "CACHE_KEEP", 3)
     for i in range(5):
@@ -221,7 +221,7 @@ def test_public_names_survive_importing_their_modules_first():
     import subprocess
     import sys
 
-    code = ("import bvpkit.sweep, bvpkit.continuation, bvpkit.driver, bvpkit; "
+    code = ("import bvpkit.families.sweep, bvpkit.families.continuation, bvpkit.solver.driver, bvpkit; "
             "print(callable(bvpkit.sweep), callable(bvpkit.trace), callable(bvpkit.solve))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout.strip()
     assert out == "True True True"

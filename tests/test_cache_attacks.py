@@ -21,7 +21,9 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit import compiled, prepared, program
+from bvpkit.generated import compiled
+from bvpkit.reduce import prepared
+from bvpkit.generated import program
 from bvpkit.errors import ProgramError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -63,7 +65,7 @@ def _paths(folder, monkeypatch):
     """The cache files a solve of the pin fin reads, named as bvpkit names them (an attacker
     can compute the names: the key is the spec's content, the stamp the installed code)."""
     monkeypatch.setenv(compiled.CACHE_VARIABLE, str(folder))
-    from bvpkit.reduce import standard_form
+    from bvpkit.reduce.form import standard_form
 
     system = folder / f"system-{standard_form(bvpkit.load(SPEC)).key()}-{compiled.code_stamp()}.json"
     return system, prepared._file(prepared.spec_key(SPEC, {}))
@@ -106,7 +108,7 @@ def test_a_planted_entry_in_the_old_source_format_never_runs(tmp_path, monkeypat
     monkeypatch.setenv(compiled.CACHE_VARIABLE, "off")
     plain = bvpkit.load(SPEC)
     bvpkit.solve(plain)
-    from bvpkit.reduce import standard_form
+    from bvpkit.reduce.form import standard_form
 
     body = {"key": None, "prepared": json.loads(json.dumps(bvpkit.prepare(plain).plain()))}
     system, problem = _paths(folder, monkeypatch)
@@ -447,7 +449,7 @@ def test_hostile_program_trees_are_refused_by_name(what):
 
 
 def test_a_program_list_that_is_not_a_systems_functions_is_refused():
-    from bvpkit.layout import StateLayout
+    from bvpkit.generated.layout import StateLayout
 
     layout = StateLayout(key="k", independent="x", functions=(("y", 2),), states=(("y", 0), ("y", 1)), users=2,
                          regions=1, parameters=(), constants=())

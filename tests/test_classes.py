@@ -74,7 +74,7 @@ def test_the_eigenvalue_guess_of_a_column_whose_modes_keep_one_sign(mode):
     # keeps one sign, so the modes are told apart by the order of the loads alone; mode 3's
     # guess once came out at 1.7e10. Analytic: P_k = (2k - 1)^2 pi^2 EI / (4 L^2) (Euler); the
     # guess is a trapezoidal-rule eigenvalue on 121 nodes, so 1% is its accuracy here.
-    from bvpkit import guess
+    from bvpkit.reduce import guess
 
     p = bvpkit.prepare(bvpkit.Problem(["EI*w'''' + P*w'' = 0"],
                                       ["w(0) = 0", "w'(0) = 0", "w''(L) = 0", "EI*w'''(L) + P*w'(L) = 0"],

@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit.cli import PLOT_INSTALL, main
+from bvpkit.io.cli import PLOT_INSTALL, main
 
 ROOT = Path(__file__).resolve().parent.parent
 SPECS = sorted((ROOT / "specs").glob("*.toml"))
@@ -128,7 +128,7 @@ def test_the_exit_code_survives_a_reader_that_went_away(tmp_path):
 
 # -- output paths ----------------------------------------------------------------------------
 def test_a_folder_swapped_for_a_link_during_the_solve_cannot_redirect_a_save_file(tmp_path, monkeypatch, capsys):
-    import bvpkit.driver as driver
+    import bvpkit.solver.driver as driver
 
     work, outside = tmp_path / "work", tmp_path / "outside"
     work.mkdir()

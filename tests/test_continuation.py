@@ -8,7 +8,7 @@ import pytest
 from scipy.optimize import minimize_scalar
 
 import bvpkit
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 
 from catalogue import bratu_slope
 

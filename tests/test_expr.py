@@ -8,7 +8,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from bvpkit.errors import ExpressionError
-from bvpkit.expr import parse, parse_equation
+from bvpkit.language.expr import parse, parse_equation
 
 x = sp.Symbol("x")
 f = sp.Function("f")

@@ -11,7 +11,7 @@ import pytest
 import sympy as sp
 
 import bvpkit
-from bvpkit.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
+from bvpkit.methods.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
 
 from catalogue import BLASIUS_FPP0, EI, L, L_FIN, M_FIN, Q, blasius, bratu, bratu_t, cantilever, fin, simply_supported
 
@@ -47,7 +47,7 @@ def test_the_banded_embedding_solves_the_matrix_and_its_transpose(kind, n_p):
 
 
 def test_a_singular_matrix_is_said_to_be_singular():
-    from bvpkit.discrete import SingularMatrix
+    from bvpkit.methods.discrete import SingularMatrix
 
     left = np.zeros((3, 2, 2))
     with pytest.raises(SingularMatrix, match="singular"):
@@ -125,7 +125,7 @@ def test_the_block_matrix_is_the_sum_of_its_blocks_entry_by_entry(k, n, n_p, n_b
 
 
 def test_a_large_sparse_system_solves_alike_by_both_factorisations(monkeypatch):
-    import bvpkit.discrete as discrete
+    import bvpkit.methods.discrete as discrete
 
     prepared = bvpkit.prepare(_chain(25))
     monkeypatch.setattr(discrete, "sparse_pays", lambda pattern: True)
@@ -139,7 +139,7 @@ def test_a_large_sparse_system_solves_alike_by_both_factorisations(monkeypatch):
 
 # -- preparation ----------------------------------------------------------------------------------
 def test_quick_derivatives_are_sympys():
-    from bvpkit.codegen import _quick_derivative
+    from bvpkit.generated.codegen import _quick_derivative
 
     x, y, k = sp.symbols("x y k", real=True)
     for e in (-k * x**2 + k * y**2, 3 * x * y, k * x ** sp.Rational(3, 2), 2 * x + 5, k / x**2, k * x**2 * y):
@@ -159,9 +159,9 @@ def test_equations_in_any_order_are_isolated_one_by_one():
 
 # -- sweeps ---------------------------------------------------------------------------------------
 def test_a_small_sweep_starts_no_workers(monkeypatch):
-    import bvpkit.sweep  # noqa: F401
+    import bvpkit.families.sweep  # noqa: F401
 
-    module = sys.modules["bvpkit.sweep"]
+    module = sys.modules["bvpkit.families.sweep"]
     started = []
     monkeypatch.setattr(module, "_default_executor", lambda count: started.append(count))
     p = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c'(1) = Bi*(1 - c(1))"], (0, 1),

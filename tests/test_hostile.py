@@ -19,9 +19,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import bvpkit
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 from bvpkit.errors import BvpkitError
-from bvpkit.spec import loads
+from bvpkit.io.spec import loads
 from bvpkit.testing import scaled_examples
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -265,7 +265,7 @@ def test_numerical_faults_name_cause_place_and_remedy(equations, conditions, kwa
         assert word in sol.message, (word, sol.message)
 
 
-# values below 1e-300 in magnitude are refused as input (bvpkit.limits): drawn as zero here
+# values below 1e-300 in magnitude are refused as input (bvpkit.language.limits): drawn as zero here
 _ENDS = st.floats(-3, 3).map(lambda v: v if abs(v) >= 1e-300 else 0.0)
 
 
@@ -307,7 +307,7 @@ def test_json_output_is_valid_also_on_failure(argv, capsys):
 
 
 def test_ctrl_c_exits_cleanly_with_its_code(monkeypatch, capsys):
-    import bvpkit.cli as cli
+    import bvpkit.io.cli as cli
 
     def interrupted(args):  # noqa: ANN001
         raise KeyboardInterrupt

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from bvpkit import cli
+from bvpkit.io import cli
 
 ROOT = Path(__file__).resolve().parents[1]
 BASE = {

@@ -208,8 +208,8 @@ def test_collocation_matches_scipy_solve_bvp(case):
 ])
 def test_hager_estimate_of_the_stability_constant_equals_the_exact_norm(equations, conditions, domain, monkeypatch):
     # exact value: the inverse of the same Newton matrix, formed column by column
-    from bvpkit import diagnostics
-    from bvpkit.discrete import CollocationEquations
+    from bvpkit.methods import diagnostics
+    from bvpkit.methods.discrete import CollocationEquations
 
     sol = bvpkit.solve(bvpkit.Problem(equations, conditions, domain), method="collocation", tol=1e-6)
     view = sol.interpolant  # the standard form: mesh t, stacked states, parameters, constants

@@ -1,6 +1,6 @@
 """Figures ready for a report: every output on its panel, units in the labels, folds in the
 legend, smooth branches, design charts with one curve per slower value and log axes on
-geometric grids (bvpkit.plots, reached through Branch.plot and SweepResult.plot)."""
+geometric grids (bvpkit.io.plots, reached through Branch.plot and SweepResult.plot)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 import bvpkit
-from bvpkit import plots
+from bvpkit.io import plots
 from bvpkit.errors import OptionError
 
 pytest.importorskip("matplotlib")
@@ -127,7 +127,7 @@ def test_asking_for_an_output_the_result_lacks_names_what_it_has(branch, chart, 
 
 
 def test_cli_plots_carry_the_spec_title_and_units(tmp_path, monkeypatch, capsys):
-    from bvpkit import cli
+    from bvpkit.io import cli
 
     spec = tmp_path / "fin.toml"
     spec.write_text("""

@@ -100,7 +100,7 @@ def test_evaluate_refuses_unknown_names_and_too_high_derivatives():
 
 
 def test_default_guess_meets_linear_conditions():
-    from bvpkit.guess import from_recipes, initial_mesh
+    from bvpkit.reduce.guess import from_recipes, initial_mesh
 
     p = make(["y'' = y"], ["y(0) = 2", "y'(1) + y(1) = 3"])
     prepared = bvpkit.prepare(p)

@@ -10,9 +10,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import bvpkit
-from bvpkit import program
+from bvpkit.generated import program
 from bvpkit.errors import ProgramError
-from bvpkit.expr import FUNCTIONS as LANGUAGE
+from bvpkit.language.expr import FUNCTIONS as LANGUAGE
 
 
 def _quantity(entries, temps=(), args=(("x", ["_x"]), ("y", ["_y0", "_y1"]))):
@@ -237,11 +237,11 @@ def test_the_deepest_tree_allowed_builds_and_one_level_more_is_refused():
 def test_a_real_system_program_passes_the_source_check_and_needs_no_attribute():
     import ast
 
-    from bvpkit import codegen
+    from bvpkit.generated import codegen
 
     problem = bvpkit.Problem(["y'' = -k*exp(y)*erf(y) + atan2(y, x + 1)"], ["y(0) = 0", "y(1) = abs(y'(1))"],
                              (0, 1), constants={"k": 0.5})
-    from bvpkit.reduce import standard_form
+    from bvpkit.reduce.form import standard_form
 
     programs, _ = codegen._system_programs(standard_form(problem))
     source = "".join(program.render(q) for q in programs)
@@ -253,8 +253,8 @@ def test_a_real_system_program_passes_the_source_check_and_needs_no_attribute():
 def test_codegen_names_what_it_cannot_express():
     import sympy as sp
 
-    from bvpkit import codegen
-    from bvpkit.reduce import X
+    from bvpkit.generated import codegen
+    from bvpkit.reduce.form import X
 
     with pytest.raises(ProgramError, match="cannot express Piecewise"):
         codegen._tree(sp.Piecewise((X, X > 0), (0, True)))

@@ -23,7 +23,7 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit import cli
+from bvpkit.io import cli
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text()
@@ -155,7 +155,7 @@ def test_the_sweep_block_runs_as_a_plain_script(tmp_path):
 
 
 def test_the_spec_block_loads_and_solves():
-    from bvpkit.spec import loads
+    from bvpkit.io.spec import loads
 
     (block,) = _blocks("toml", "[problem]")
     solution = bvpkit.solve(loads(block, "README"))
@@ -167,7 +167,7 @@ def test_the_spec_block_loads_and_solves():
 
 
 def test_the_units_block_labels_the_pin_fin_as_shown():
-    from bvpkit.spec import loads
+    from bvpkit.io.spec import loads
 
     (block,) = _blocks("toml", "[units]")
     fin = (ROOT / "specs" / "pin_fin.toml").read_text().split("[units]")[0]

@@ -13,7 +13,7 @@ import pytest
 from scipy.special import erf
 
 import bvpkit
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 from bvpkit.errors import OptionError
 from bvpkit.status import Status
 
@@ -272,7 +272,9 @@ def test_auto_claims_no_false_success_on_test_set_instances(name, tol):
 # -- the paths of continuation, one by one -------------------------------------------------------
 @pytest.mark.parametrize("which", ["_homotopy", "_reach"])
 def test_each_path_reaches_blasius_on_a_finite_domain(which):
-    from bvpkit import driver, homotopy, start
+    from bvpkit.solver import driver
+    from bvpkit.solver import homotopy
+    from bvpkit.solver import start
     from bvpkit.methods.base import Trial
 
     problem = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(12) = 1"], (0, 12))

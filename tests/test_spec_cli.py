@@ -9,8 +9,8 @@ import pytest
 
 import bvpkit
 from bvpkit import SpecError
-from bvpkit.cli import main
-from bvpkit.spec import loads
+from bvpkit.io.cli import main
+from bvpkit.io.spec import loads
 from bvpkit.status import Status, failures_page, failures_table
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -79,7 +79,7 @@ def test_a_region_with_equations_of_its_own():
 
 
 def test_a_multipoint_problem_from_a_spec_and_the_command_line(tmp_path, capsys):
-    from bvpkit.cli import main
+    from bvpkit.io.cli import main
 
     spec = tmp_path / "shelf.toml"
     spec.write_text(

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import bvpkit
-from bvpkit.cli import main
+from bvpkit.io.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -147,9 +147,9 @@ def test_a_worker_rebuilds_the_problem_without_sympy(tmp_path, monkeypatch):
     import importlib
     import pickle
 
-    from bvpkit import codegen
+    from bvpkit.generated import codegen
 
-    sweep_module = importlib.import_module("bvpkit.sweep")  # bvpkit.sweep is the function
+    sweep_module = importlib.import_module("bvpkit.families.sweep")  # bvpkit.sweep is the function
 
     monkeypatch.setenv(codegen.CACHE_VARIABLE, str(tmp_path / "cache"))
     units = []
@@ -165,7 +165,7 @@ def test_a_worker_rebuilds_the_problem_without_sympy(tmp_path, monkeypatch):
     (tmp_path / "unit.pickle").write_bytes(pickle.dumps(units[0]))
     script = textwrap.dedent(f"""
         import pickle, sys
-        from bvpkit.sweep import _solve_unit
+        from bvpkit.families.sweep import _solve_unit
         rows = _solve_unit(pickle.loads(open({str(tmp_path / "unit.pickle")!r}, "rb").read()))
         print(repr([round(r["outputs"]["3*c'(1)/phi**2"], 12) for r in rows]), "sympy" in sys.modules)
     """)

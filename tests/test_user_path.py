@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 
 import bvpkit
-from bvpkit import cli
-from bvpkit.spec import loads
+from bvpkit.io import cli
+from bvpkit.io.spec import loads
 from bvpkit.errors import BvpkitError, ProblemError, SpecError
 
 # -- a fin whose conductivity grows with temperature: k = k0 (1 + b T) ----------------------------

@@ -32,9 +32,9 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..compiled import CompiledSystem
-from ..diagnostics import crossings, hermite
-from ..discrete import midpoint_values
+from ..generated.compiled import CompiledSystem
+from .diagnostics import crossings, hermite
+from .discrete import midpoint_values
 from ..status import Status
 
 # Each round of tightening asks for this fraction of the tolerance times the ratio of the

@@ -31,8 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..diagnostics import Hermite, hermite, stability_constant
-from ..discrete import CollocationEquations, SingularMatrix
+from .diagnostics import Hermite, hermite, stability_constant
+from .discrete import CollocationEquations, SingularMatrix
 from ..status import Status
 from .base import Method, Outcome, Trial
 

@@ -12,7 +12,7 @@ meets the equations at the four Lobatto points ``c = 0, (5 - sqrt 5)/10, (5 + sq
 Newton's method on the nodes, the two interior stages and the parameters; the stages are
 eliminated interval by interval (batched dense solves, no Python work per interval), which
 leaves the bordered block-bidiagonal matrix of 4th-order collocation for the nodes,
-factored by :func:`bvpkit.discrete.factor_blocks`.
+factored by :func:`bvpkit.methods.discrete.factor_blocks`.
 
 Error control and estimate: every solve is repeated on the halved mesh; their difference,
 at the output points and between them (through the C1 cubic interpolant a ``Solution``
@@ -31,9 +31,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..diagnostics import stability_constant
-from ..discrete import SingularMatrix, factor_blocks, one_blas_thread
-from ..features import seeded
+from .diagnostics import stability_constant
+from .discrete import SingularMatrix, factor_blocks, one_blas_thread
+from ..reduce.features import seeded
 from ..status import Status
 from .base import Method, Outcome, Trial
 
@@ -251,7 +251,7 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
     """Per interval of the coarse mesh, the largest relative difference ``|u - u_fine| / (1 +
     |u_fine|)`` at its output points and between them (the coarse output's C1 cubic, as a
     Solution evaluates it, against the fine polynomials)."""
-    from ..diagnostics import hermite
+    from .diagnostics import hermite
 
     xo, yo = coarse.output()
     mid = 0.5 * (xo[1:] + xo[:-1])

@@ -27,9 +27,9 @@ import math
 import numpy as np
 import scipy.sparse as sparse
 
-from ..diagnostics import crossings, hermite, survey
-from ..discrete import SingularMatrix, factor_blocks
-from ..features import pieces
+from .diagnostics import crossings, hermite, survey
+from .discrete import SingularMatrix, factor_blocks
+from ..reduce.features import pieces
 from ..status import Status
 from .base import Method, Outcome, Trial
 

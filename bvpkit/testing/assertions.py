@@ -114,7 +114,7 @@ def assert_solves(problem, solution, *, tol: float | None = None, points: np.nda
 
 
 def _condition_value(problem, solution, c: sp.Expr) -> float | None:  # noqa: ANN001
-    from ..expr import DomainIntegral
+    from ..language.expr import DomainIntegral
 
     if c.has(DomainIntegral):
         return None  # checked through the added state by the solver; skip here

@@ -98,7 +98,7 @@ def _condition(u: sp.Expr, kind: str, point: sp.Expr, side: int, alpha: sp.Expr)
 
 
 def _problem(lhs: sp.Expr, u: sp.Expr, conditions: list, domain: tuple, label: str) -> Manufactured:
-    from ..problem import Problem
+    from ..language.problem import Problem
 
     g = lhs.subs(U(X), u).doit()
     equation = sp.Eq(lhs, g)
@@ -206,7 +206,7 @@ def semi_infinite_problems() -> Any:
 
     @st.composite
     def draw(draw_: Any) -> Manufactured:
-        from ..problem import Problem
+        from ..language.problem import Problem
 
         u = draw_(smooth_functions(decaying=True))
         q = draw_(_number(st, 0.5, 4))

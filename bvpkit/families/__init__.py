@@ -1,0 +1,1 @@
+"""Families of solutions: continuation, fold curves, sweeps, stability."""

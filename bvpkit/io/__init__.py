@@ -1,0 +1,1 @@
+"""Input and output: TOML specs, the command line, plots."""

@@ -1,0 +1,1 @@
+"""The reduce stage: the standard form, one transform object per problem class, the prepared problem."""

@@ -1,0 +1,393 @@
+"""The prepared problem: a problem in the standard form, as plain data, ready to solve.
+
+:func:`prepare` does SymPy's work once per problem structure (the reduction to the standard
+form, code generation, the guess recipes, the outputs) and hands back a :class:`Prepared`:
+plain data (the state layout, the generated code of the system and of the outputs, guess
+recipes, the values of the constants and parameter guesses, and the facts the map back to
+the user's variable and states needs). ``solve``, ``trace``, ``sweep``, sweep workers and the
+disk cache all take it; none of them imports SymPy for it.
+
+``with_constants`` swaps values without new code, and checks them like values written in
+the file (ends and interfaces in order, finite): the one place every value reaching a
+solve passes (:func:`bvpkit.language.problem.check_positions`).
+
+A second ``bvpkit solve`` of the same spec file takes the preparation from the disk cache
+(:func:`cached`, :func:`remember`), keyed by the spec file's bytes, the ``--set`` values and
+the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and carries a
+SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
+a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
+from other code is ignored and rewritten. Generated functions travel as programs (plain
+data, :mod:`bvpkit.generated.program`), never as code: they are printed and checked afresh when built.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..generated.compiled import (
+    _MEMORY,
+    CompiledSystem,
+    _cache_dir,
+    assemble,
+    build_quantity,
+    code_stamp,
+    note,
+    read_json,
+    write_json,
+)
+from ..errors import BvpkitError, OptionError, ProblemError, closest
+from .guess import GuessRecipe
+from ..generated.layout import LENGTH, StateLayout
+from .quantity import Quantity
+
+#: First placement of an infinite end, measured from the finite one (the driver moves it out).
+DEFAULT_TRUNCATION = 10.0
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """A problem ready to solve (see the module docstring); plain data only.
+
+    Attributes
+    ----------
+    facts : dict
+        What the problem says, as plain data: ``title``, ``independent``, ``unknowns``,
+        ``orders``, ``outputs`` (name -> text), ``settings``, ``arguments`` (to rebuild the
+        symbolic problem on demand), ``points`` (ends and interfaces as written), ``own``
+        (region values of constants), ``key``.
+    layout : StateLayout
+    system : dict
+        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.generated.program`),
+        Jacobian ``pattern``, and condition ``sides``.
+    recipes : dict of str to GuessRecipe
+    quantities : dict of str to Quantity
+        The outputs (and other expressions prepared with them), compiled.
+    constants : dict of str to float
+        Values of the problem's constants.
+    parameters : dict of str to float
+        Guesses of the unknown parameters (the eigenvalue's is 0: it comes from a
+        discretised eigenproblem).
+    """
+
+    facts: dict
+    layout: StateLayout
+    system: dict
+    recipes: dict
+    quantities: dict
+    constants: dict
+    parameters: dict = field(default_factory=dict)
+
+    # -- what the numerical side asks -------------------------------------------------------
+    @property
+    def compiled(self) -> CompiledSystem:
+        found = _MEMORY.get(self.layout.key)
+        if found is None:
+            s = self.system
+            found = assemble(self.layout, s["programs"], np.array(s["pattern"], dtype=bool), np.array(s["sides"], dtype=int))
+        return found
+
+    @property
+    def title(self) -> str:
+        return self.facts["title"]
+
+    @property
+    def independent(self) -> str:
+        return self.facts["independent"]
+
+    @property
+    def outputs(self) -> dict[str, str]:
+        return dict(self.facts["outputs"])
+
+    @property
+    def settings(self) -> dict[str, Any]:
+        return dict(self.facts["settings"])
+
+    @property
+    def infinite(self) -> tuple[bool, bool]:
+        return self.layout.infinite
+
+    @property
+    def orders(self) -> dict[str, int]:
+        return dict(self.layout.functions)
+
+    def k(self, length: float | None = None) -> np.ndarray:
+        """The constants' values in the order of the compiled ``k`` (the truncation length of an
+        infinite end ``length``, default :data:`DEFAULT_TRUNCATION`)."""
+        own = self.facts["own"]
+        values = []
+        for name in self.layout.constants:
+            if name == LENGTH:
+                values.append(DEFAULT_TRUNCATION if length is None else float(length))
+            elif name in own:
+                values.append(own[name])
+            else:
+                values.append(self.constants[name])
+        return np.array(values, dtype=float)
+
+    def p0(self) -> np.ndarray:
+        return np.array([self.parameters.get(q, 0.0) for q in self.layout.parameters], dtype=float)
+
+    def features(self, p: np.ndarray, k: np.ndarray) -> tuple:
+        """The narrow features and corners of the equations' terms in the independent variable
+        alone at these values (:func:`bvpkit.features.locate`; empty when there are none)."""
+        from .features import locate
+
+        return locate(self.system.get("features"), p, k)
+
+    # -- new values --------------------------------------------------------------------------
+    def with_constants(self, **values: float) -> Prepared:
+        """The same problem with other values of some constants (no new code); checked like
+        values in the file."""
+        from ..language.problem import _numbers
+
+        missing = [k for k in values if k not in self.constants]
+        if missing:
+            raise ProblemError(
+                f"'{missing[0]}' is not a constant of this problem{closest(missing[0], self.constants)}"
+            )
+        new = dataclasses.replace(self, constants={**self.constants, **_numbers(values, "constant", names_known=True)})
+        new.check()
+        return new
+
+    def with_parameters(self, **values: float) -> Prepared:
+        """The same problem with other guesses of its unknown parameters."""
+        from ..language.problem import _numbers
+
+        missing = [k for k in values if k not in self.parameters]
+        if missing:
+            raise OptionError(f"'{missing[0]}' is not an unknown parameter{closest(missing[0], self.parameters)}")
+        return dataclasses.replace(self, parameters={**self.parameters, **_numbers(values, "unknown parameter",
+                                                                                     names_known=True)})
+
+    def check(self, p: np.ndarray | None = None, k: np.ndarray | None = None) -> None:
+        """Ends and interfaces in order and finite for these values (the one check of values)."""
+        from .guess import positions
+        from ..language.problem import check_positions
+
+        with np.errstate(all="ignore"):
+            maps = np.asarray(self.compiled.maps(self.p0() if p is None else p, self.k() if k is None else k), float)
+        values = positions(maps)
+        if self.infinite[0]:
+            values[0] = -math.inf
+        if self.infinite[1]:
+            values[-1] = math.inf
+        check_positions(list(values), self.facts["points"], self.independent)
+
+    # -- expressions -------------------------------------------------------------------------
+    def quantity(self, text: str) -> Quantity:
+        """An expression of the solution, compiled (from the preparation, or now, with SymPy)."""
+        found = self.quantities.get(text) or _QUANTITIES.get((self.facts["key"], text))
+        if found is None:
+            from .quantity import compile_quantity
+            from .form import standard_form
+
+            problem = self.problem()
+            found = compile_quantity(problem, standard_form(problem), text)
+            if len(_QUANTITIES) > 2_000:
+                _QUANTITIES.clear()
+            _QUANTITIES[(self.facts["key"], text)] = found
+        return found
+
+    def recipe(self, name: str, expression: Any) -> GuessRecipe:
+        """A guess expression for ``name`` given at solve time, as a recipe (SymPy's work)."""
+        from .guess import expression_recipe
+        from .form import standard_form
+
+        problem = self.problem()
+        parsed = problem._guesses({name: expression})[name]
+        return expression_recipe(problem, standard_form(problem), name, parsed)
+
+    def problem(self):  # noqa: ANN201 - a bvpkit.Problem
+        """The symbolic problem (rebuilt from its arguments on first need, with SymPy)."""
+        found = _PROBLEMS.get(self.facts["key"])
+        if found is None:
+            from ..language.problem import Problem
+
+            arguments = dict(self.facts["arguments"])
+            found = Problem(**arguments)
+            _PROBLEMS[self.facts["key"]] = found
+        return found.with_constants(**self.constants) if found.constants != self.constants else found
+
+    # -- plain data ---------------------------------------------------------------------------
+    def plain(self) -> dict[str, Any]:
+        return {"facts": self.facts, "layout": self.layout.as_dict(), "system": self.system,
+                "recipes": {k: r.plain() for k, r in self.recipes.items()},
+                "quantities": {k: q.plain() for k, q in self.quantities.items()},
+                "constants": self.constants, "parameters": self.parameters}
+
+    @classmethod
+    def from_plain(cls, data: Mapping[str, Any]) -> Prepared:
+        return cls(
+            facts=dict(data["facts"]),
+            layout=StateLayout.from_dict(data["layout"]),
+            system=dict(data["system"]),
+            recipes={k: GuessRecipe.from_plain(r) for k, r in data["recipes"].items()},
+            quantities={k: Quantity.from_plain(q) for k, q in data["quantities"].items()},
+            constants={k: float(v) for k, v in data["constants"].items()},
+            parameters={k: float(v) for k, v in data["parameters"].items()},
+        )
+
+    def __repr__(self) -> str:
+        return f"<Prepared {self.facts.get('title') or self.layout.row_names}>"
+
+
+_PREPARED: dict[str, Prepared] = {}
+_PROBLEMS: dict[str, Any] = {}
+_QUANTITIES: dict[tuple[str, str], Quantity] = {}
+
+
+def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
+    """The prepared problem of ``problem`` (SymPy's work done once per problem structure).
+
+    ``bvpkit.solve``, ``trace`` and ``sweep`` call it; call it yourself to solve many
+    variations of one problem without touching SymPy again (``prepared.with_constants``).
+    """
+    from ..language.problem import Problem
+
+    if isinstance(problem, Prepared):
+        return problem
+    if not isinstance(problem, Problem):
+        raise OptionError(f"expected a bvpkit.Problem, got {type(problem).__name__}")
+    key = problem.key(generated=True)
+    template = _PREPARED.get(key)
+    if template is None:
+        template = _prepare(problem, key)
+        if len(_PREPARED) > 200:
+            _PREPARED.clear()
+        _PREPARED[key] = template
+        _PROBLEMS.setdefault(key, problem)
+    facts = {**template.facts, "title": problem.title, "settings": dict(problem.settings),
+             "arguments": _plain_arguments(problem), "own": _own(problem)}
+    return dataclasses.replace(template, facts=facts, constants=dict(problem.constants),
+                               parameters=_parameters(problem))
+
+
+def _own(problem) -> dict[str, float]:  # noqa: ANN001
+    return {f"{name}@{r + 1}": float(value) for r, region in enumerate(problem.regions)
+            for name, value in region.constants.items()}
+
+
+def _parameters(problem) -> dict[str, float]:  # noqa: ANN001
+    values = dict(problem.unknown_parameters)
+    if problem.eigenvalue:
+        values[problem.eigenvalue] = 0.0
+    return values
+
+
+def _plain_arguments(problem) -> dict[str, Any]:  # noqa: ANN001
+    """The problem's arguments, with the values of its constants as they are now."""
+    return {**problem.arguments, "constants": dict(problem.constants)}
+
+
+def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
+    from ..generated.codegen import compile_system
+    from .guess import guess_recipes
+    from .quantity import compile_quantity
+    from .form import standard_form
+
+    form = standard_form(problem)
+    compiled = compile_system(form)
+    facts = {
+        "key": key, "title": problem.title, "independent": problem.independent, "unknowns": list(problem.unknowns),
+        "outputs": dict(problem.outputs), "settings": dict(problem.settings), "arguments": _plain_arguments(problem),
+        "points": problem.point_labels, "own": _own(problem),
+    }
+    system = {"programs": list(compiled.programs), "pattern": compiled.jac_pattern.tolist(),
+              "sides": compiled.bc_sides.tolist(), "features": _feature_terms(form)}
+    quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
+    return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,
+                    dict(problem.constants), _parameters(problem))
+
+
+def _feature_terms(form) -> dict | None:  # noqa: ANN001
+    """The terms that can make narrow features (:func:`bvpkit.features.terms`), or None: a
+    hint for the first mesh, never a reason to refuse a problem."""
+    from ..errors import ProgramError
+    from ..language.budget import budget, step_seconds
+    from .features import terms
+
+    try:
+        with budget("looking for narrow features of the equations", seconds=min(2.0, step_seconds()),
+                    advice="simplify the terms in the independent variable alone"):
+            return terms(form)
+    except (ProgramError, ProblemError, TypeError, ValueError, RecursionError):
+        return None
+
+
+# -- the disk cache of spec files' preparations --------------------------------------------------
+_KIND = "problem"
+
+
+def spec_key(path: str | Path, overrides: Mapping[str, float]) -> str | None:
+    """Key of a spec file with ``--set`` values (None when the file cannot be read)."""
+    try:
+        data = Path(path).read_bytes()
+    except OSError:
+        return None
+    digest = hashlib.sha256()
+    digest.update(code_stamp().encode())
+    digest.update(b"\0" + data + b"\0")
+    digest.update(json.dumps(sorted(overrides.items())).encode())
+    return digest.hexdigest()[:32]
+
+
+def _file(key: str) -> Path | None:
+    folder = _cache_dir()
+    return None if folder is None else folder / f"{_KIND}-{key}-{code_stamp()}.json"
+
+
+def cached(key: str | None) -> Prepared | None:
+    """The preparation kept under ``key`` (no SymPy), or None (missing, skipped, damaged)."""
+    path = None if key is None else _file(key)
+    if path is None:
+        return None
+    body = read_json(path)
+    if body is None:
+        return None
+    try:
+        if body["key"] != key:
+            raise KeyError("key")
+        prepared = Prepared.from_plain(body["prepared"])
+        # every program is validated and built now, not in the middle of a solve
+        features = prepared.system.get("features")
+        if features is not None and not (isinstance(features, dict) and isinstance(features.get("corner"), list)):
+            raise TypeError("features")
+        for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
+                        *_programs(prepared.quantities.values()),
+                        *([features["program"]] if features is not None else [])]:
+            build_quantity(program)
+        prepared.compiled  # noqa: B018 - builds the system's programs now
+        return prepared
+    except (ValueError, KeyError, TypeError, IndexError, AttributeError, RecursionError) as err:
+        why = err.one_line() if isinstance(err, BvpkitError) else "it does not hold a preparation"
+        note(f"cache entry {path.name} skipped: {why}")
+        return None
+
+
+def _programs(quantities) -> list[dict]:  # noqa: ANN001
+    found = []
+    for q in quantities:
+        found.append(q.program)
+        found += [p[0] for p in q.points if isinstance(p[0], dict)]
+        found += _programs(q.integrals)
+    return found
+
+
+def remember(key: str | None, prepared: Prepared) -> None:
+    """Keep ``prepared`` under ``key``; never raises (a cache costs speed, not correctness)."""
+    path = None if key is None else _file(key)
+    if path is None:
+        return
+    try:
+        write_json(path, {"key": key, "prepared": prepared.plain()})
+    except (TypeError, ValueError):
+        return  # not JSON-ready (SymPy objects in the arguments): costs speed only

@@ -1,0 +1,450 @@
+"""``Solution``: the answer, in the user's variable and states, how far to trust it, and ways
+to ask it questions.
+
+A solution is computed in the standard form (``t`` on ``[0, 1]``, the regions' states
+stacked in ``Y``); :class:`Interpolant` is the one map back: region ``r`` covers
+``x = c_r + h_r t`` and holds rows ``r * size ... (r + 1) * size - 1`` of ``Y``, and a
+derivative in ``x`` is one in ``t`` divided by ``h_r``.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .._output import json_ready, write_columns
+from ..methods.diagnostics import Diagnostics, hermite
+from ..errors import BvpkitError
+from ..reduce.guess import nudged, physical, positions, rate, standard
+from ..status import Status
+from ..language.units import label, units_of
+
+# Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
+# times smooth functions of it to well below the solver's own error.
+_GAUSS_POINTS = 5
+
+
+class Interpolant:
+    """A solution as a function of the user's variable (the C1 cubic of every method).
+
+    Parameters
+    ----------
+    compiled : CompiledSystem
+    t : ndarray, shape (m,)
+        The standard mesh.
+    y : ndarray, shape (n, m)
+        The stacked states.
+    p, k : ndarray
+        Parameters and constants (they fix the region maps).
+
+    Calling it with points ``x`` gives the states of a region at ``x``, shape
+    ``(states per region, len(x))``; at an interface ``side = -1`` (default) reads the
+    region on the left, ``+1`` the one on the right.
+    """
+
+    def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001
+        self.compiled = compiled
+        self.layout = compiled.layout
+        self.t, self.y, self.p, self.k = (np.asarray(a, float) for a in (t, y, p, k))
+        with np.errstate(all="ignore"):
+            self.maps = np.asarray(compiled.maps(self.p, self.k), float)
+        self.points = positions(self.maps)
+        self.powers = np.array([self.layout.power(r) for r in range(self.layout.regions)])  # x = c + h t**d
+        self._spline = hermite(compiled, self.t, self.y, self.p, self.k)
+
+    @property
+    def ends(self) -> tuple[float, float]:
+        """The solved interval in the user's variable (a truncated infinite end where placed)."""
+        return float(self.points[0]), float(self.points[-1])
+
+    def region(self, x: np.ndarray, side: int = -1) -> np.ndarray:
+        """The region each point lies in (at an interface: by ``side``)."""
+        x = np.asarray(x, float)
+        inner = self.points[1:-1]
+        r = np.searchsorted(inner, x, side="left" if side < 0 else "right")
+        return np.clip(r, 0, self.layout.regions - 1)
+
+    def standard(self, x: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """The standard variable of points ``x`` in regions ``r``."""
+        return standard(x, self.maps[r, 0], self.maps[r, 1], self.powers[r])
+
+    def _pick(self, stacked: np.ndarray, r: np.ndarray) -> np.ndarray:
+        size = self.layout.region_size
+        rows = r[None, :] * size + np.arange(size)[:, None]
+        return stacked[rows, np.arange(r.size)[None, :]]
+
+    def __call__(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
+        x = np.atleast_1d(np.asarray(x, float))
+        r = self.region(x, side) if regions is None else np.asarray(regions)
+        return self._pick(self._spline(self.standard(x, r)), r)
+
+    def slopes(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
+        """The states' derivatives in the user's variable, from the equations."""
+        x = np.atleast_1d(np.asarray(x, float))
+        r = self.region(x, side) if regions is None else np.asarray(regions)
+        t = nudged(self.standard(x, r), self.powers[r])
+        with np.errstate(all="ignore"):
+            f = self.compiled.rhs(t, self._spline(t), self.p, self.k)
+        return self._pick(f, r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
+
+    def derivative(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
+        """The derivative of the interpolating cubic itself (not of the equations) in the user's
+        variable: a check that owes nothing to the right-hand side."""
+        x = np.atleast_1d(np.asarray(x, float))
+        r = self.region(x, side) if regions is None else np.asarray(regions)
+        t = nudged(self.standard(x, r), self.powers[r])
+        return self._pick(self._spline.derivative()(t), r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
+
+    def inside(self, x: np.ndarray) -> bool:
+        a, b = self.ends
+        slack = 1e-12 * max(1.0, abs(a), abs(b))
+        return bool(np.isfinite(x).all() and x.min() >= a - slack and x.max() <= b + slack)
+
+
+class Solution:
+    """Result of :func:`bvpkit.solve`.
+
+    Attributes
+    ----------
+    success : bool
+        True when the solve converged and its error estimate meets the tolerance.
+    status : Status
+        The outcome (``status.word`` is the status word; see ``docs/failures.md``).
+    message : str
+        What happened, in words a person can act on.
+    method : str
+        The method that produced this answer.
+    x : ndarray, shape (m,)
+        The final mesh in the user's variable, region after region (an interface appears
+        twice: as the end of one region and the start of the next); on the truncated
+        interval for an infinite domain.
+    y : ndarray, shape (n, m)
+        The states at ``x`` (SciPy's layout); ``state_names`` says what each row holds.
+    parameters : dict of str to float
+        Values of the unknown parameters.
+    parameter_errors : dict of str to float
+        Their estimated absolute errors (NaN when not estimated).
+    outputs : dict of str to float
+        The problem's named outputs, evaluated (empty when the solve failed).
+    output_errors : dict of str to float
+        Estimated absolute errors of the outputs (from the refined solve and, for infinite
+        domains, the previous truncation).
+    diagnostics : Diagnostics
+        Residuals, error estimates, iterations, what was tried.
+    prepared : Prepared
+        The prepared problem this solves (``prepared.with_constants`` for variations).
+    """
+
+    def __init__(
+        self,
+        prepared,  # noqa: ANN001 - bvpkit.reduce.prepared.Prepared
+        k: np.ndarray,
+        status: Status,
+        message: str,
+        method: str,
+        t: np.ndarray,
+        y: np.ndarray,
+        p: np.ndarray,
+        diagnostics: Diagnostics,
+        parameter_errors: np.ndarray | None = None,
+        reference: Interpolant | None = None,
+        previous: Interpolant | None = None,
+    ):
+        self.prepared = prepared
+        self.status = status
+        self.success = status.success
+        self.message = message
+        self.method = method
+        self.diagnostics = diagnostics
+        compiled = prepared.compiled
+        self.interpolant = Interpolant(compiled, t, y, p, k)
+        layout = compiled.layout
+        size, regions = layout.region_size, layout.regions
+        self.x = physical(self.interpolant.t, self.interpolant.maps, layout.stretch).ravel()
+        self.y = np.concatenate([self.interpolant.y[r * size:(r + 1) * size] for r in range(regions)], axis=1)
+        names = layout.parameters
+        self.parameters = {q: float(v) for q, v in zip(names, self.interpolant.p)}
+        errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
+        self.parameter_errors = {q: float(v) for q, v in zip(names, errs)}
+        self._reference, self._previous = reference, previous
+        self.outputs: dict[str, float] = {}
+        self.output_errors: dict[str, float] = {}
+        if self.success:
+            for name, text in prepared.outputs.items():
+                self.outputs[name], self.output_errors[name] = self._output(text)
+
+    # -- public questions ---------------------------------------------------------------
+    @property
+    def state_names(self) -> tuple[str, ...]:
+        """What each row of ``y`` holds: ``("f", "f'", "f''")``."""
+        return self.interpolant.layout.state_names
+
+    @property
+    def independent(self) -> str:
+        return self.prepared.independent
+
+    def problem(self):  # noqa: ANN201 - a bvpkit.Problem
+        """The symbolic problem solved (rebuilt with SymPy if this solution came from a cache)."""
+        return self.prepared.problem()
+
+    def evaluate(self, expression: str, at: Any = None, *, allow_failed: bool = False) -> float | np.ndarray:
+        """Evaluate an expression of the solution.
+
+        Parameters
+        ----------
+        expression : str
+            Point values (``"f''(0)"``, ``"y(1/2)"``, ``"f'(inf)"``, ``"w(L-)"``), states and
+            derivatives at the running point (``"f'"``), ``integral(...)`` over the domain,
+            the independent variable, constants and parameters, in the expression language.
+        at : array_like, optional
+            Points at which to evaluate an expression that depends on the running point.
+        allow_failed : bool
+            Evaluate even though the solve failed (its numbers are not to be trusted);
+            without it, a failed solution raises.
+
+        Returns
+        -------
+        float or ndarray, shape (len(at),)
+        """
+        self._check_success("evaluate", allow_failed)
+        return _evaluate(self.interpolant, self.prepared, self.prepared.quantity(expression), expression, at)
+
+    def integrate(self, expression: str, *, allow_failed: bool = False) -> float:
+        """Integral of an expression of the running point over the whole domain.
+
+        For an infinite domain the integral is taken up to the truncation length, after
+        checking that the integrand has decayed there; otherwise an error says so.
+        """
+        self._check_success("integrate", allow_failed)
+        quantity = self.prepared.quantity(expression)
+        value, tail = _integral(self.interpolant, self.prepared, quantity)
+        a, b = self.interpolant.ends
+        if any(self.prepared.infinite) and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
+            raise BvpkitError(
+                f"the integrand of '{expression}' is {tail:.3g} at the truncated end "
+                f"{self.independent} = {b:.6g}: the integral over the infinite domain does not converge"
+            )
+        return value
+
+    def table(self, *, allow_failed: bool = False) -> dict[str, np.ndarray]:
+        """Columns of the mesh solution: the independent variable, then every state.
+
+        A failed solve raises (as :meth:`evaluate` does) unless ``allow_failed=True``.
+        """
+        self._check_success("table", allow_failed)
+        columns = {self.independent: self.x}
+        for name, row in zip(self.state_names, self.y):
+            columns[name] = row
+        return columns
+
+    def to_csv(self, path: str | Path, *, allow_failed: bool = False) -> None:
+        """Write :meth:`table` as CSV (one row per mesh node).
+
+        Column headers carry the units the problem gives (``x [m]``). A failed solve raises
+        unless ``allow_failed=True``; then every header says that the numbers are those of a
+        failed solve (``y (failed: mesh_limit)``), so no reader of the file can take them for
+        an answer.
+        """
+        self._check_success("to_csv", allow_failed)
+        units = self.units
+        columns = {label(name, units, self.independent): values
+                   for name, values in self.table(allow_failed=True).items()}
+        if not self.success:
+            columns = {f"{name} (failed: {self.status.word})": values for name, values in columns.items()}
+        write_columns(path, columns)
+
+    @property
+    def units(self) -> dict[str, str]:
+        """The units the problem gives for its names (labels only; ``{}`` when none)."""
+        return units_of(self.prepared)
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready data: outcome, outputs with errors (null when the solve failed),
+        parameters, diagnostics."""
+        outputs = self.outputs if self.success else {name: None for name in self.prepared.outputs}
+        errors = self.output_errors if self.success else {name: None for name in self.prepared.outputs}
+        return json_ready(
+            {
+                "success": self.success,
+                "status": self.status.word,
+                "message": self.message,
+                "method": self.method,
+                "outputs": outputs,
+                "output_errors": errors,
+                "parameters": self.parameters if self.success else {name: None for name in self.parameters},
+                "parameter_errors": self.parameter_errors if self.success else {name: None for name in self.parameters},
+                "state_names": list(self.state_names),
+                "diagnostics": self.diagnostics.as_dict(),
+            }
+        )
+
+    def summary(self) -> str:
+        """A short human summary: outcome, method and why, outputs with errors, diagnostics."""
+        d = self.diagnostics
+        head = "solved" if self.success else f"FAILED ({self.status.word})"
+        lines = [f"{head}: {self.message}", f"method: {d.selection}"]
+        if self.success:
+            units = self.units
+            shown = [(name, value, self.parameter_errors[name]) for name, value in self.parameters.items()]
+            shown += [(name, value, self.output_errors[name]) for name, value in self.outputs.items()]
+            for name, value, error in shown:
+                unit = f" {units[name]}" if name in units else ""
+                note = "" if math.isfinite(value) else "  (not a finite number: check the expression)"
+                lines.append(f"  {name} = {value:.12g}{unit}  (+/- {_fmt_err(error)}){note}")
+        elif self.prepared.outputs or self.parameters:
+            lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
+        facts = [
+            f"{d.iterations} Newton iteration{_s(d.iterations)}",
+            f"{d.mesh_nodes} nodes",
+            f"residual {d.max_residual:.2g}",
+            f"boundary residual {d.bc_residual:.2g}",
+            f"error estimate {_fmt_err(d.error_estimate)}",
+        ]
+        if d.truncation_length is not None:
+            facts.append(f"infinity placed at {d.truncation_length:.4g}")
+        if d.condition is not None:
+            facts.append(f"stability constant {d.condition:.2g}")
+        facts.append(f"{d.seconds:.3g} s")
+        lines.append("  " + ", ".join(facts))
+        if len(d.attempts) > 1:
+            tried = "; ".join(f"{a.method} on [{a.domain[0]:.4g}, {a.domain[1]:.4g}]: {a.status}" for a in d.attempts)
+            lines.append(f"  tried: {tried}")
+        return "\n".join(lines)
+
+    def __repr__(self) -> str:
+        return f"<Solution {self.status.word} by {self.method}: {self.message}>"
+
+    # -- internals ----------------------------------------------------------------------
+    def _check_success(self, asked: str, allow_failed: bool) -> None:
+        """The numbers of a failed solve are not an answer: refuse them unless asked for."""
+        if self.success or allow_failed:
+            return
+        cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
+        action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
+                  "to_csv": "write them (every column header then says the solve failed)"}[asked]
+        raise BvpkitError(
+            f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "
+            f"Fix the cause, or pass allow_failed=True to {action} anyway"
+        )
+
+    def _output(self, text: str) -> tuple[float, float]:
+        quantity = self.prepared.quantity(text)
+        value = float(_evaluate(self.interpolant, self.prepared, quantity, text, None))
+        error = 0.0 if self._reference is not None else math.nan
+        for other in (self._reference, self._previous):
+            if other is None:
+                continue
+            try:
+                error += abs(value - float(_evaluate(other, self.prepared, quantity, text, None)))
+            except BvpkitError:
+                error = math.nan  # e.g. a point outside the shorter truncated domain
+        return value, error
+
+
+def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
+    """A compiled quantity on a solution (see bvpkit.reduce.quantity)."""
+    from ..reduce.guess import _function
+
+    values = [_point_value(view, prepared, point) for point in quantity.points]
+    values += [_integral(view, prepared, q)[0] for q in quantity.integrals]
+    if at is None:
+        if quantity.running:
+            raise BvpkitError(
+                f"'{text}' depends on the running point {prepared.independent}; pass at=[...] or evaluate "
+                "at a point, e.g. f(0)"
+            )
+        points = np.array([view.ends[0]])
+    else:
+        points = np.atleast_1d(np.asarray(at, dtype=float))
+        if points.ndim != 1:
+            raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
+        _check_inside(view, prepared, points)
+    r = view.region(points)
+    result = _running(view, quantity, points, r, np.array(values, dtype=float), _function)
+    if at is None:
+        return float(result[0])
+    return result if np.ndim(at) else float(result[0])
+
+
+def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, values: np.ndarray,  # noqa: ANN001
+             function_of) -> np.ndarray:  # noqa: ANN001
+    layout = view.layout
+    f = function_of(quantity.program)
+    if quantity.running:
+        states = view(points, regions=r)
+        slopes = view.slopes(points, regions=r)
+        highest = [slopes[layout.index(name, order - 1)] for name, order in layout.functions]
+        inputs = np.vstack([states[: layout.users], *highest]) if highest else states[: layout.users]
+    else:
+        inputs = np.zeros((layout.users + len(layout.functions), points.size))
+    with np.errstate(all="ignore"):
+        result = f(points, inputs, view.p, view.k, values)[0]
+    return np.broadcast_to(result, points.shape).astype(float)
+
+
+def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
+    """The value of one point-value placeholder ``(point, state, order, side)``."""
+    from ..reduce.guess import _function
+
+    where, state, order, side = point
+    if isinstance(where, dict):  # a point that depends on the constants: its program
+        with np.errstate(all="ignore"):
+            where = float(_function(where)(np.zeros(1), view.p, view.k)[0, 0])
+    a, b = view.ends
+    if math.isinf(where):
+        where = b if where > 0 else a
+    _check_inside(view, prepared, np.array([where]))
+    side = side or (1 if where <= a else -1)
+    highest = view.layout.states[state][1] != order
+    row = (view.slopes if highest else view)(np.array([where]), side=side)
+    return float(row[state, 0])
+
+
+def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # noqa: ANN001
+    """The integral of a quantity over every region, and the integrand at the far end."""
+    from ..reduce.guess import _function
+
+    nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
+    values = np.array([_point_value(view, prepared, point) for point in quantity.points]
+                      + [_integral(view, prepared, q)[0] for q in quantity.integrals], dtype=float)
+    total = 0.0
+    t = view.t
+    h = np.diff(t)
+    mid = 0.5 * (t[1:] + t[:-1])
+    s = (mid[:, None] + 0.5 * h[:, None] * nodes[None, :]).ravel()
+    w = (0.5 * h[:, None] * weights[None, :]).ravel()
+    for region in range(view.layout.regions):
+        c, scale = view.maps[region]
+        x = c + scale * s ** view.powers[region]
+        r = np.full(x.size, region)
+        dx = w * rate(s, scale, view.powers[region])
+        total += float(np.sum(_running(view, quantity, x, r, values, _function) * dx))
+    b = view.ends[1]
+    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[0])
+    return total, tail
+
+
+def _check_inside(view: Interpolant, prepared, points: np.ndarray) -> None:  # noqa: ANN001
+    if view.inside(points):
+        return
+    a, b = view.ends
+    slack = 1e-12 * max(1.0, abs(a), abs(b))
+    bad = points[~((points >= a - slack) & (points <= b + slack))]
+    shown = bad[0] if bad.size else float("nan")
+    note = " (the infinite domain was truncated there)" if any(prepared.infinite) else ""
+    raise BvpkitError(
+        f"{prepared.independent} = {shown:g} is outside the solved interval [{a:.6g}, {b:.6g}]{note}"
+    )
+
+
+def _s(count: int) -> str:
+    return "" if count == 1 else "s"
+
+
+def _fmt_err(value: float | None) -> str:
+    if value is None or not math.isfinite(value):
+        return "not estimated"
+    return f"{value:.2g}"
