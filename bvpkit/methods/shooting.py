@@ -47,6 +47,10 @@ _BLOWUP = 1e150  # a state this large is a blow-up, not a solution
 _MAX_CALLS = 60_000  # right-hand-side calls per integration (~5000 DOP853 steps): bounds time and memory
 
 
+# Below this integration tolerance the refined re-solve of the error estimate cannot be 100 times
+# tighter (the floor above), so it shares the dense output's error between steps and cannot see
+# it: the dense output is then checked on its own (Shooting._dense).
+_DENSE_CHECK = 100 * _IVP_FLOOR
 _EPS = 2.2e-16  # machine epsilon: a stability constant times it bounds the accuracy any method can reach
 _ILL = (": the problem is so ill-conditioned that double precision cannot reach the tolerance, whatever the "
         "method")
@@ -437,7 +441,8 @@ class Shooting(Method):
             )
         segments = nodes.size - 1
         h = np.diff(nodes)
-        flow = self._dense(trial, nodes, s, p, rtol, stiff, flow)
+        if rtol < _DENSE_CHECK:
+            flow = self._dense(trial, nodes, s, p, rtol, stiff, flow)
 
         # Each segment's end misses the next node state by the continuity residual; spread
         # that miss linearly over the segment so the output is continuous at the nodes (a
@@ -477,7 +482,9 @@ class Shooting(Method):
         in the middle of the steps of a run whose step values were good to 1e-13). The pass is
         repeated with the largest step halved until two passes agree to a tenth of the
         tolerance in the middle of the coarser one's steps (at most three times); the finer
-        is kept.
+        is kept. Used near the integrator's tolerance floor only: above it, the error estimate's
+        re-solve with a 100 times tighter integrator sees this error, and the tolerance is
+        tightened until it meets the tolerance.
         """
         n, segments = trial.compiled.n, nodes.size - 1
         for _ in range(3):
