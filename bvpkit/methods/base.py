@@ -77,7 +77,7 @@ class Trial:
         Meshes on which Newton's method may fail to converge, from the start, before the method
         gives up with :attr:`~bvpkit.status.Status.NOT_CONVERGED` (the selector sets it when
         continuation from an easier problem can take over; None: no limit, refinement goes on).
-    features : tuple of bvpkit.features.Feature
+    features : tuple of bvpkit.reduce.features.Feature
         Narrow features and corners of the equations' terms in ``t`` alone, found before the
         solve: a method's first mesh keeps the points graded into them, its integrators stop at
         the corners and take short steps across them.

@@ -147,6 +147,18 @@ class Hermite:
             out[:, outside] = np.nan
         return out
 
+    def pairs(self, rows, points):  # noqa: ANN001, ANN201
+        """The values ``S_rows[k](points[k])``: one state per point (what a search for the
+        zeros of single states needs, without evaluating every state everywhere)."""
+        import numpy as np
+
+        points, i, h, t, outside = self._locate(points)
+        t2, t3 = t * t, t * t * t
+        h00, h10, h01, h11 = 2 * t3 - 3 * t2 + 1, t3 - 2 * t2 + t, -2 * t3 + 3 * t2, t3 - t2
+        out = (h00 * self.y[rows, i] + h10 * h * self.dy[rows, i] + h01 * self.y[rows, i + 1]
+               + h11 * h * self.dy[rows, i + 1])
+        return np.where(outside, np.nan, out)
+
     def derivative(self):  # noqa: ANN201
         """A callable giving the interpolant's first derivative."""
         import numpy as np
@@ -213,6 +225,7 @@ def crossings(spline, points, values):  # noqa: ANN001, ANN201
     a, b = points[left].copy(), points[left + 1].copy()
     fa, fb = values[rows, left].copy(), values[rows, left + 1].copy()
     columns = np.arange(rows.size)
+    pairs = getattr(spline, "pairs", None)
     best = 0.5 * (a + b)
     for step in range(_CROSSING_STEPS):
         with np.errstate(all="ignore"):
@@ -221,7 +234,7 @@ def crossings(spline, points, values):  # noqa: ANN001, ANN201
         inside = np.isfinite(guess) & (guess > a) & (guess < b)
         middle = np.where(inside & (step % 3 != 2), guess, 0.5 * (a + b))
         with np.errstate(all="ignore"):
-            at = spline(middle)[rows, columns]
+            at = pairs(rows, middle) if pairs is not None else spline(middle)[rows, columns]
         best = middle
         if np.all((np.abs(at) <= _NEAR_ZERO) | ~np.isfinite(at) | (b - a <= 4e-16 * np.maximum(1.0, np.abs(b)))):
             break

@@ -567,7 +567,7 @@ def _check_floor(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nd
 
 def _integrate(solve_ivp, rhs, start: np.ndarray, options: dict, parts: list):  # noqa: ANN001, ANN202
     """``solve_ivp`` over ``tau`` in ``[0, 1]`` in the pieces ``(a, b, max_step)`` of
-    :func:`bvpkit.features.pieces`: restarted at each corner of the equations, and with steps
+    :func:`bvpkit.reduce.features.pieces`: restarted at each corner of the equations, and with steps
     no longer than a narrow feature's width across it (an integrator that steps over a
     feature never sees it). One call when there is one piece; otherwise the pieces' results
     joined into one (their dense outputs too)."""

@@ -135,7 +135,7 @@ def terms(form) -> dict | None:  # noqa: ANN001 - a reduce.StandardForm
 
 # -- before a solve (no SymPy) ------------------------------------------------------------
 _FUNCTIONS: dict[str, Any] = {}
-_FOUND: dict[tuple, tuple[Feature, ...]] = {}
+_FOUND: dict[tuple, tuple[dict, tuple[Feature, ...]]] = {}
 
 
 def _function(program: dict):  # noqa: ANN202
@@ -159,8 +159,8 @@ def locate(found: dict | None, p: np.ndarray, k: np.ndarray) -> tuple[Feature, .
     p, k = np.asarray(p, float), np.asarray(k, float)
     key = (id(found), p.tobytes(), k.tobytes())
     known = _FOUND.get(key)
-    if known is not None:
-        return known
+    if known is not None and known[0] is found:  # the same terms (an id is reused only once they are gone)
+        return known[1]
     try:
         with np.errstate(all="ignore"):
             result = _locate(_function(found["program"]), list(found["corner"]), p, k)
@@ -168,7 +168,7 @@ def locate(found: dict | None, p: np.ndarray, k: np.ndarray) -> tuple[Feature, .
         result = ()
     if len(_FOUND) > 256:
         _FOUND.clear()
-    _FOUND[key] = result
+    _FOUND[key] = (found, result)
     return result
 
 

@@ -67,7 +67,9 @@ class Prepared:
     layout : StateLayout
     system : dict
         The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.generated.program`),
-        Jacobian ``pattern``, and condition ``sides``.
+        Jacobian ``pattern``, condition ``sides``, and ``features``: the terms in the independent
+        variable alone that can make narrow features, compiled (:func:`bvpkit.reduce.features.terms`;
+        None when there are none).
     recipes : dict of str to GuessRecipe
     quantities : dict of str to Quantity
         The outputs (and other expressions prepared with them), compiled.
@@ -138,7 +140,7 @@ class Prepared:
 
     def features(self, p: np.ndarray, k: np.ndarray) -> tuple:
         """The narrow features and corners of the equations' terms in the independent variable
-        alone at these values (:func:`bvpkit.features.locate`; empty when there are none)."""
+        alone at these values (:func:`bvpkit.reduce.features.locate`; empty when there are none)."""
         from .features import locate
 
         return locate(self.system.get("features"), p, k)
@@ -309,7 +311,7 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
 
 
 def _feature_terms(form) -> dict | None:  # noqa: ANN001
-    """The terms that can make narrow features (:func:`bvpkit.features.terms`), or None: a
+    """The terms that can make narrow features (:func:`bvpkit.reduce.features.terms`), or None: a
     hint for the first mesh, never a reason to refuse a problem."""
     from ..errors import ProgramError
     from ..language.budget import budget, step_seconds

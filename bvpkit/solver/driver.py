@@ -429,7 +429,7 @@ def settle(prepared: Prepared, k: np.ndarray, outcome: Outcome, attempts: list, 
 def _features_resolved(prepared: Prepared, outcome: Outcome, k: np.ndarray, status: Status,
                         message: str) -> tuple[Status, str]:
     """A success whose mesh does not hold a narrow feature of the equations
-    (:func:`bvpkit.features.unresolved`) is no success: the method never saw the feature, and
+    (:func:`bvpkit.reduce.features.unresolved`) is no success: the method never saw the feature, and
     its error estimate cannot either."""
     missed = _features.unresolved(outcome.x, prepared.features(outcome.p, k))
     if missed is None:

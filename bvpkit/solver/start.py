@@ -44,7 +44,7 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tupl
     """Mesh, states and parameters to start from: ``guess`` (a solution, carried onto ``k``, or
     expressions per function) over the problem's own recipes, moved into the domain of the
     equations when needed, and the eigenvalue guess of an eigenvalue problem. The mesh holds
-    points graded into the narrow features of the equations (:mod:`bvpkit.features`).
+    points graded into the narrow features of the equations (:mod:`bvpkit.reduce.features`).
 
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled
