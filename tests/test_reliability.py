@@ -46,9 +46,9 @@ def _peak_cases():
     for eps in (1e-2, 1e-3, 1e-4):
         for tol in (1e-4, 1e-7):
             for method in METHODS:
-                # shooting takes 3 to 20 s a case below eps = 1e-2: the default run keeps eps = 1e-2
-                # and (below) the case that once gave a false success, eps = 1e-4 at tol = 1e-4
-                slow = method in SHOOTING and eps != 1e-2
+                # shooting takes 3 to 20 s a case: the default run keeps eps = 1e-2 at tol = 1e-4 and
+                # (below) the case that once gave a false success, eps = 1e-4 at tol = 1e-4
+                slow = method in SHOOTING and (eps != 1e-2 or tol != 1e-4)
                 marks = [pytest.mark.slow] if slow else []
                 cases.append(pytest.param(eps, tol, method, marks=marks, id=f"eps{eps:g}-tol{tol:g}-{method}"))
     return cases
