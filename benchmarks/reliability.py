@@ -60,8 +60,9 @@ TIMEOUT = 30.0  # seconds per solve; shooting at tol 1e-7 on the peak takes 15 s
 MAX_NODES = 100_000
 FALSE_FACTOR = 10.0
 _UNIFORM, _CLUSTER, _SMALLEST = 20_001, 300, 1e-9
-_BETWEEN_CAP = 30_000  # points between the nodes measured per answer (evenly thinned above)
+_BETWEEN_CAP = 10_000  # points between the nodes measured per answer (evenly thinned above)
 _SLOPE_SHARE = 1e-2  # a numerical exact slope is used where its own error is below this x tol
+_UNTIMED = 900.0  # seconds allowed to preparing a problem and measuring an answer (not the solver's time)
 
 # -- the probes -------------------------------------------------------------------------------
 _W, _C = 1e-4, 0.3137  # the heater: width and centre (our own rod)
@@ -155,28 +156,41 @@ CASES: dict[str, Case] = {c.name: c for c in [*PROBES, *(_from_instance(i.name) 
 def numerical_slope(f: Callable, x: np.ndarray, a: float, b: float) -> tuple[np.ndarray, np.ndarray]:
     """``f'(x)`` and an estimate of its error: central differences (one-sided within a step of an
     end) at steps ``(b - a) 2**-j``, each improved by one Richardson step, taken per point where
-    two successive improved values agree best."""
+    the improved value agrees best with those of the neighbouring steps (never better than the
+    round-off of the differences at that step)."""
     x = np.asarray(x, float)
-    steps = (b - a) * 2.0 ** -np.arange(3, 44)
-    first = []
-    for h in steps:
-        left, right = x - h >= a, x + h <= b
-        central = (f(np.clip(x + h, a, b)) - f(np.clip(x - h, a, b))) / (2 * h)
-        forward = (-3 * f(x) + 4 * f(np.clip(x + h, a, b)) - f(np.clip(x + 2 * h, a, b))) / (2 * h)
-        backward = (3 * f(x) - 4 * f(np.clip(x - h, a, b)) + f(np.clip(x - 2 * h, a, b))) / (2 * h)
-        first.append(np.where(left & right, central, np.where(right, forward, backward)))
-    d = np.array(first)
-    improved = (4 * d[1:] - d[:-1]) / 3
+    steps = (b - a) * 2.0 ** -np.arange(3, 41)
+    value = f(x)
+    first = np.empty((steps.size, x.size))
+    for i, h in enumerate(steps):
+        inner = (x - h >= a) & (x + h <= b)
+        d = np.empty(x.size)
+        d[inner] = (f(x[inner] + h) - f(x[inner] - h)) / (2 * h)
+        right = ~inner & (x + 2 * h <= b)
+        d[right] = (-3 * value[right] + 4 * f(x[right] + h) - f(x[right] + 2 * h)) / (2 * h)
+        left = ~inner & ~right
+        d[left] = (3 * value[left] - 4 * f(x[left] - h) + f(x[left] - 2 * h)) / (2 * h)
+        first[i] = d
+    improved = (4 * first[1:] - first[:-1]) / 3
     change = np.abs(np.diff(improved, axis=0))
-    # agreement with both neighbours, and never below the round-off of the differences at that step
-    # (two tiny steps can give the same rounded value by chance)
     agreement = np.maximum(change[1:], change[:-1])
-    size = np.abs(f(x))
-    agreement = np.maximum(agreement, 8 * np.finfo(float).eps * (1 + size)[None, :] / steps[2:-1, None])
+    agreement = np.maximum(agreement, 8 * np.finfo(float).eps * (1 + np.abs(value))[None, :] / steps[2:-1, None])
     agreement = np.where(np.isfinite(agreement), agreement, np.inf)
     best = np.argmin(agreement, axis=0)
     columns = np.arange(x.size)
     return improved[best + 1, columns], agreement[best, columns]
+
+
+def reference_grid(case: Case) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The fine grid of an exact case (the test set's: uniform points and geometric clusters at the
+    ends and layers), the exact slope there and that slope's error estimate."""
+    a, b = (float(v) for v in case.domain)
+    near = np.geomspace(_SMALLEST * (b - a), 0.3 * (b - a), _CLUSTER)
+    parts = [np.linspace(a, b, _UNIFORM), a + near, b - near, *(c + s * near for c in case.focus for s in (-1, 1))]
+    grid = np.unique(np.concatenate(parts))
+    grid = grid[(grid >= a) & (grid <= b)]
+    slope, error = _slopes(case, grid)
+    return grid, slope, error
 
 
 @dataclass
@@ -228,22 +242,14 @@ def _relative(values: np.ndarray, exact: np.ndarray, use: np.ndarray | None = No
     return float(np.max(error)) if np.isfinite(error).all() else math.inf
 
 
-def _prepare(name: str) -> dict:
+def _prepare(name: str, grid=None, slope=None, slope_error=None) -> dict:  # noqa: ANN001
     import bvpkit
 
     case = CASES[name]
     problem = bvpkit.Problem(list(case.equations), list(case.conditions), case.domain, constants=dict(case.constants),
                              independent=case.independent)
-    prepared = bvpkit.prepare(problem)
-    grid = slope = slope_error = None
-    if case.kind == "exact":
-        a, b = (float(v) for v in case.domain)
-        near = np.geomspace(_SMALLEST * (b - a), 0.3 * (b - a), _CLUSTER)
-        parts = [np.linspace(a, b, _UNIFORM), a + near, b - near, *(c + s * near for c in case.focus for s in (-1, 1))]
-        grid = np.unique(np.concatenate(parts))
-        grid = grid[(grid >= a) & (grid <= b)]
-        slope, slope_error = _slopes(case, grid)
-    _PREPARED[name] = (prepared, grid, slope, slope_error)
+    _PREPARED[name] = (bvpkit.prepare(problem), grid, slope, slope_error)
+    _LAST.clear()
     return {}
 
 
@@ -254,18 +260,32 @@ def _slopes(case: Case, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return numerical_slope(case.exact, x, a, b)
 
 
+_LAST: dict[str, Any] = {}
+
+
 def _solve(name: str, method: str, tol: float, max_nodes: int) -> dict:
+    """The timed solve; the answer is kept for :func:`_measure`."""
     import bvpkit
 
-    case = CASES[name]
-    prepared, grid, slope, slope_error = _PREPARED[name]
+    prepared = _PREPARED[name][0]
+    _LAST.clear()
     start = time.perf_counter()
     sol = bvpkit.solve(prepared, method=method, tol=tol, max_nodes=max_nodes)
     seconds = time.perf_counter() - start
     d = sol.diagnostics
     estimate = d.error_estimate if d.error_estimate is not None and math.isfinite(d.error_estimate) else None
-    out = {"outcome": sol.status.word, "success": bool(sol.success), "estimate": estimate, "seconds": seconds,
-           "used": sol.method, "message": sol.message[:400]}
+    _LAST.update(name=name, tol=tol, solution=sol)
+    return {"outcome": sol.status.word, "success": bool(sol.success), "estimate": estimate, "seconds": seconds,
+            "used": sol.method, "message": sol.message[:400]}
+
+
+def _measure(name: str) -> dict:
+    """The true errors of the last answer (untimed): ``y`` and ``y'`` on the fine grid and between
+    the answer's nodes, or the reference quantity."""
+    case = CASES[name]
+    _, grid, slope, slope_error = _PREPARED[name]
+    sol, tol = _LAST["solution"], _LAST["tol"]
+    out: dict[str, Any] = {}
     try:
         if case.kind == "exact":
             mesh = np.asarray(sol.x, float)
@@ -287,7 +307,7 @@ def _solve(name: str, method: str, tol: float, max_nodes: int) -> dict:
             value = sol.evaluate(case.quantity, allow_failed=True)
             out["error_y"] = abs(value - case.reference) / (1 + abs(case.reference))
     except Exception as err:  # noqa: BLE001 - an answer that cannot be measured is reported as such
-        out["message"] += f"; not measured: {type(err).__name__}: {err}"[:200]
+        out["note"] = f"; not measured: {type(err).__name__}: {err}"[:200]
     return out
 
 
@@ -298,7 +318,8 @@ def _worker(conn) -> None:  # noqa: ANN001
             return
         try:
             kind, name, *rest = job
-            conn.send(("ok", _prepare(name) if kind == "prepare" else _solve(name, *rest)))
+            work = {"prepare": _prepare, "solve": _solve, "measure": _measure}[kind]
+            conn.send(("ok", work(name, *rest)))
         except BaseException as err:  # noqa: BLE001 - everything goes back to the parent as data
             conn.send(("crashed", f"{type(err).__name__}: {err}"[:300] + "\n" + traceback.format_exc(limit=3)))
 
@@ -385,11 +406,12 @@ def run(names: Sequence[str] | None = None, *, quick: bool = False, probes_only:
                 case_tols = (case.tols or (1e-4,))[:1] if case.probe else (QUICK_TOLERANCE,)
             else:
                 case_tols = case.tols or TOLERANCES
+            reference = reference_grid(case) if case.kind == "exact" else (None, None, None)
             for tol in case_tols:
                 for method in case.methods or methods:
                     failed = ""
                     if case.name not in child.prepared:
-                        kind, reply = child.ask(("prepare", case.name), 300.0)
+                        kind, reply = child.ask(("prepare", case.name, *reference), _UNTIMED)
                         if kind == "ok":
                             child.prepared.add(case.name)
                         else:
@@ -398,11 +420,19 @@ def run(names: Sequence[str] | None = None, *, quick: bool = False, probes_only:
                         runs.append(Run(case.name, tol, method, "crashed", message=failed))
                         continue
                     kind, reply = child.ask(("solve", case.name, method, tol, max_nodes), timeout)
-                    if kind == "ok":
-                        runs.append(Run(case.name, tol, method, **reply))
-                    else:
+                    if kind != "ok":
                         runs.append(Run(case.name, tol, method, kind, seconds=timeout if kind == "timeout" else math.nan,
                                         message=str(reply).splitlines()[0] if reply else ""))
+                        continue
+                    run_ = Run(case.name, tol, method, **reply)
+                    kind, measured = child.ask(("measure", case.name), _UNTIMED)
+                    if kind == "ok":
+                        run_.message += measured.pop("note", "")
+                        for key, value in measured.items():
+                            setattr(run_, key, value)
+                    else:
+                        run_.message += f"; not measured: {kind}"
+                    runs.append(run_)
     finally:
         child.close()
     return report(chosen, refused, runs, methods, timeout, time.perf_counter() - started), runs
