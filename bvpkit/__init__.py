@@ -26,7 +26,7 @@ from .status import Status  # noqa: E402
 # a cached `bvpkit solve` never imports SymPy.
 _LAZY = {
     "Attempt": "methods.diagnostics", "Diagnostics": "methods.diagnostics", "Branch": "families.continuation",
-    "Fold": "families.continuation", "trace": "families.continuation", "solve": "solver.driver",
+    "Fold": "families.continuation", "trace": "families.continuation", "solve": "public",
     "Problem": "language.problem", "Solution": "solver.solution", "Interpolant": "solver.solution",
     "Prepared": "reduce.prepared", "prepare": "reduce.prepared", "BranchPoint": "families.continuation",
     "FoldCurve": "families.foldcurve", "fold_curve": "families.foldcurve", "sweep": "families.sweep",

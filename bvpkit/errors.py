@@ -67,7 +67,7 @@ class OptionError(BvpkitError):
 
 
 class ProgramError(BvpkitError):
-    """Plain data of a generated function (a program, see :mod:`bvpkit.generated.program`) is outside
+    """Plain data of a generated function (a program, see :mod:`bvpkit.programs.program`) is outside
     its grammar, or an expression cannot be written in it. A cache entry that raises it is
     skipped and regenerated."""
 

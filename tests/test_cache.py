@@ -6,7 +6,7 @@ import threading
 import pytest
 
 import bvpkit
-from bvpkit.generated import codegen
+from bvpkit.programs import codegen
 
 
 @pytest.fixture()
@@ -205,7 +205,7 @@ def test_the_cache_keeps_only_the_newest_files_of_a_kind(cache, monkeypatch):
     import os
     import time
 
-    from bvpkit.generated import compiled
+    from bvpkit.programs import compiled
 
     monkeypatch.setattr(compiled, "CACHE_KEEP", 3)
     for i in range(5):

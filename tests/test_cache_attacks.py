@@ -21,10 +21,9 @@ from pathlib import Path
 import pytest
 
 import bvpkit
-from bvpkit.generated import compiled
-from bvpkit.reduce import prepared
-from bvpkit.generated import program
 from bvpkit.errors import ProgramError
+from bvpkit.programs import compiled, program
+from bvpkit.reduce import prepared
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = ROOT / "specs" / "pin_fin.toml"
@@ -449,7 +448,7 @@ def test_hostile_program_trees_are_refused_by_name(what):
 
 
 def test_a_program_list_that_is_not_a_systems_functions_is_refused():
-    from bvpkit.generated.layout import StateLayout
+    from bvpkit.programs.layout import StateLayout
 
     layout = StateLayout(key="k", independent="x", functions=(("y", 2),), states=(("y", 0), ("y", 1)), users=2,
                          regions=1, parameters=(), constants=())

@@ -11,7 +11,6 @@ from scipy.integrate import solve_ivp
 import bvpkit
 
 
-
 @pytest.mark.parametrize("k", [1, 2, 3, 4, 5])
 def test_sine_eigenvalues_by_mode(k):
     p = bvpkit.Problem(["y'' + lam*y = 0"], ["y(0) = 0", "y(pi) = 0"], (0, "pi"), eigenvalue="lam", mode=k)
@@ -74,12 +73,14 @@ def test_the_eigenvalue_guess_of_a_column_whose_modes_keep_one_sign(mode):
     # keeps one sign, so the modes are told apart by the order of the loads alone; mode 3's
     # guess once came out at 1.7e10. Analytic: P_k = (2k - 1)^2 pi^2 EI / (4 L^2) (Euler); the
     # guess is a trapezoidal-rule eigenvalue on 121 nodes, so 1% is its accuracy here.
-    from bvpkit.reduce import guess
+    from bvpkit.reduce.eigenvalue import eigen_guess
+    from bvpkit.reduce.guess import initial_mesh
 
     p = bvpkit.prepare(bvpkit.Problem(["EI*w'''' + P*w'' = 0"],
                                       ["w(0) = 0", "w'(0) = 0", "w''(L) = 0", "EI*w'''(L) + P*w'(L) = 0"],
                                       (0, "L"), constants={"EI": EI, "L": LENGTH}, eigenvalue="P", mode=mode))
-    _, load = guess.eigen_guess(p.compiled, guess.initial_mesh(41), p.k(), mode)
+    (eigenvalue,) = p.transforms
+    _, load = eigen_guess(p.compiled, initial_mesh(41), p.k(), eigenvalue.index, mode)
     assert load == pytest.approx((2 * mode - 1) ** 2 * math.pi**2 * EI / (4 * LENGTH**2), rel=1e-2)
     # and the solve calls it the mode asked for (it said other_mode from mode 2 on)
     sol = bvpkit.solve(p, tol=1e-9)

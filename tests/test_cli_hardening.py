@@ -4,7 +4,6 @@ outlive their parent, and sweeps from a plain script (issues 16 and 17)."""
 
 import json
 import os
-import shutil
 import signal
 import sqlite3
 import subprocess

@@ -5,12 +5,11 @@ import math
 
 import numpy as np
 import pytest
+from catalogue import bratu_slope
 from scipy.optimize import minimize_scalar
 
 import bvpkit
 from bvpkit.io.cli import main
-
-from catalogue import bratu_slope
 
 
 def bratu(lam=1.0):

@@ -9,11 +9,23 @@ import sys
 import numpy as np
 import pytest
 import sympy as sp
+from catalogue import (
+    BLASIUS_FPP0,
+    EI,
+    L_FIN,
+    M_FIN,
+    L,
+    Q,
+    blasius,
+    bratu,
+    bratu_t,
+    cantilever,
+    fin,
+    simply_supported,
+)
 
 import bvpkit
 from bvpkit.methods.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
-
-from catalogue import BLASIUS_FPP0, EI, L, L_FIN, M_FIN, Q, blasius, bratu, bratu_t, cantilever, fin, simply_supported
 
 
 # -- the banded embedding of every Newton matrix --------------------------------------------------
@@ -139,7 +151,7 @@ def test_a_large_sparse_system_solves_alike_by_both_factorisations(monkeypatch):
 
 # -- preparation ----------------------------------------------------------------------------------
 def test_quick_derivatives_are_sympys():
-    from bvpkit.generated.codegen import _quick_derivative
+    from bvpkit.programs.codegen import _quick_derivative
 
     x, y, k = sp.symbols("x y k", real=True)
     for e in (-k * x**2 + k * y**2, 3 * x * y, k * x ** sp.Rational(3, 2), 2 * x + 5, k / x**2, k * x**2 * y):

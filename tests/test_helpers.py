@@ -7,7 +7,7 @@ from hypothesis import strategies as st
 from scipy.interpolate import CubicHermiteSpline
 
 from bvpkit.methods.diagnostics import Hermite
-from bvpkit.reduce.guess import interior_zeros
+from bvpkit.reduce.eigenvalue import interior_zeros
 
 
 @given(st.integers(2, 30), st.integers(0, 2**32 - 1))

@@ -19,8 +19,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import bvpkit
-from bvpkit.io.cli import main
 from bvpkit.errors import BvpkitError
+from bvpkit.io.cli import main
 from bvpkit.io.spec import loads
 from bvpkit.testing import scaled_examples
 

@@ -5,11 +5,10 @@ import math
 
 import numpy as np
 import pytest
+from catalogue import BLASIUS_FPP0, bratu, bratu_slope
 
 import bvpkit
 from bvpkit.methods import REGISTRY
-
-from catalogue import BLASIUS_FPP0, bratu, bratu_slope
 
 METHODS = sorted(REGISTRY)
 # Troesch, mu = 5: y'(0) = 4.575046e-2 (Roberts and Shipman 1976, J. Comput. Phys. 10, to 7

@@ -1,6 +1,6 @@
 """Figures ready for a report: every output on its panel, units in the labels, folds in the
 legend, smooth branches, design charts with one curve per slower value and log axes on
-geometric grids (bvpkit.io.plots, reached through Branch.plot and SweepResult.plot)."""
+geometric grids (bvpkit.families.plots, reached through Branch.plot and SweepResult.plot)."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 
 import bvpkit
-from bvpkit.io import plots
 from bvpkit.errors import OptionError
+from bvpkit.families import plots
 
 pytest.importorskip("matplotlib")
 

@@ -10,9 +10,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import bvpkit
-from bvpkit.generated import program
 from bvpkit.errors import ProgramError
 from bvpkit.language.expr import FUNCTIONS as LANGUAGE
+from bvpkit.programs import program
 
 
 def _quantity(entries, temps=(), args=(("x", ["_x"]), ("y", ["_y0", "_y1"]))):
@@ -237,7 +237,7 @@ def test_the_deepest_tree_allowed_builds_and_one_level_more_is_refused():
 def test_a_real_system_program_passes_the_source_check_and_needs_no_attribute():
     import ast
 
-    from bvpkit.generated import codegen
+    from bvpkit.programs import codegen
 
     problem = bvpkit.Problem(["y'' = -k*exp(y)*erf(y) + atan2(y, x + 1)"], ["y(0) = 0", "y(1) = abs(y'(1))"],
                              (0, 1), constants={"k": 0.5})
@@ -253,7 +253,7 @@ def test_a_real_system_program_passes_the_source_check_and_needs_no_attribute():
 def test_codegen_names_what_it_cannot_express():
     import sympy as sp
 
-    from bvpkit.generated import codegen
+    from bvpkit.programs import codegen
     from bvpkit.reduce.form import X
 
     with pytest.raises(ProgramError, match="cannot express Piecewise"):

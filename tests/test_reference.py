@@ -4,11 +4,10 @@ import math
 
 import numpy as np
 import pytest
+from catalogue import BLASIUS_FPP0, CASES, blasius, bratu, bratu_slope, bratu_t
 
 import bvpkit
 from bvpkit.methods import REGISTRY
-
-from catalogue import BLASIUS_FPP0, CASES, bratu, bratu_slope, bratu_t, blasius
 
 
 @pytest.mark.parametrize("case", CASES, ids=lambda c: c.name)

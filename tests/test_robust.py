@@ -13,8 +13,8 @@ import pytest
 from scipy.special import erf
 
 import bvpkit
-from bvpkit.io.cli import main
 from bvpkit.errors import OptionError
+from bvpkit.io.cli import main
 from bvpkit.status import Status
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -272,10 +272,8 @@ def test_auto_claims_no_false_success_on_test_set_instances(name, tol):
 # -- the paths of continuation, one by one -------------------------------------------------------
 @pytest.mark.parametrize("which", ["_homotopy", "_reach"])
 def test_each_path_reaches_blasius_on_a_finite_domain(which):
-    from bvpkit.solver import driver
-    from bvpkit.solver import homotopy
-    from bvpkit.solver import start
     from bvpkit.methods.base import Trial
+    from bvpkit.solver import driver, homotopy, start
 
     problem = bvpkit.Problem(["f''' + f*f''/2 = 0"], ["f(0) = 0", "f'(0) = 0", "f'(12) = 1"], (0, 12))
     prepared = bvpkit.prepare(problem)
@@ -288,7 +286,7 @@ def test_each_path_reaches_blasius_on_a_finite_domain(which):
     assert paths["_reach"].start == pytest.approx(1 / 12)  # from a domain of unit length
     outcome, how = homotopy.follow(prepared, paths[which], trial)
     assert outcome.ok and int(how.split()[0]) >= 3, outcome.message
-    sol = driver.settle(prepared, k, outcome, [], "", 0.0, 1e-8)
+    sol = driver.settle(prepared, driver.Run(outcome, k, [], "", 1e-8), 0.0)
     assert sol.evaluate("f''(0)") == pytest.approx(0.3320573362, abs=2e-9)  # Boyd 1999, as above
 
 

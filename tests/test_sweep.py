@@ -147,7 +147,7 @@ def test_a_worker_rebuilds_the_problem_without_sympy(tmp_path, monkeypatch):
     import importlib
     import pickle
 
-    from bvpkit.generated import codegen
+    from bvpkit.programs import codegen
 
     sweep_module = importlib.import_module("bvpkit.families.sweep")  # bvpkit.sweep is the function
 

@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 
 import bvpkit
+from bvpkit.errors import BvpkitError, ProblemError, SpecError
 from bvpkit.io import cli
 from bvpkit.io.spec import loads
-from bvpkit.errors import BvpkitError, ProblemError, SpecError
 
 # -- a fin whose conductivity grows with temperature: k = k0 (1 + b T) ----------------------------
 FIN = {"conditions": ["T(0) = 1", "T'(1) = 0"], "domain": (0, 1), "constants": {"b": 0.4, "m2": 2.0}}

@@ -52,20 +52,21 @@ from typing import Any
 
 import numpy as np
 
-from . import arclength as arc
 from .._output import json_ready, progress_bar, write_columns
+from ..errors import OptionError, closest
+from ..language.problem import Problem
+from ..language.units import labelled
+from ..methods.base import Outcome, Trial, compare
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
-from ..solver.driver import DEFAULT_TOL, GROWTH, MAX_LENGTHENINGS, settle, solve, solve_at
-from ..errors import OptionError, closest
-from ..reduce.guess import Start, truncation_change
-from ..generated.layout import LENGTH
-from ..methods.base import Outcome
+from ..reduce.mapping import Start, positions
 from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import Run, options, settle, solve, solve_at
 from ..solver.solution import Solution
-from .stability import stable
 from ..status import Status
-from ..language.units import labelled
+from . import arclength as arc
+from . import plots
+from .stability import stable
 
 _GROW, _SHRINK = 1.5, 0.5
 _TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
@@ -258,10 +259,9 @@ class Branch:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Draw every output (or ``output``) against the parameter, folds marked (``plot`` extra;
-        options of :func:`bvpkit.io.plots.branch_figure`)."""
-        from ..io.plots import branch_figure
+        options of :func:`bvpkit.families.plots.branch_figure`)."""
 
-        return branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+        return plots.branch_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def output_values(solution: Solution, expressions: dict[str, str]) -> dict[str, float]:
@@ -365,7 +365,6 @@ def trace(
     Branch
         Ctrl-C keeps what was traced: the branch is returned with ``success`` False.
     """
-    from ..language.problem import Problem
 
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"trace() takes a bvpkit.Problem, got {type(problem).__name__}")
@@ -386,7 +385,7 @@ def trace(
     angle = MAX_ANGLE if max_angle is None else _number(max_angle, "max_angle")
     if not 0 < angle < math.pi / 2:
         raise OptionError(f"max_angle must be between 0 and pi/2 radians, got {angle!r}")
-    tol = float(tol if tol is not None else prepared.settings.get("tol", DEFAULT_TOL))
+    tol = options(prepared.settings, {"tol": tol}).tol
     names = _resolve_outputs(prepared, outputs)
     tracer = _Tracer(prepared, name, start, stop, names, tol, method, step, max_points, progress)
     tracer.fixed, tracer.verify, tracer.requested, tracer.return_to = fixed_step, verify, requested, return_to
@@ -425,8 +424,6 @@ class _Tracer:
         self.compiled = prepared.compiled
         self.free = self.compiled.freeing(name)  # the constant solved for: the last parameter
         self.index = self.compiled.layout.constants.index(name)
-        self.infinite = any(prepared.infinite)
-        self.length_at = prepared.layout.constants.index(LENGTH) if self.infinite else None
         self.bar = progress_bar(progress, max_points)
         self.fixed, self.verify, self.switch = False, True, True
         self.requested: list[float] = []
@@ -436,7 +433,7 @@ class _Tracer:
         self.since = 0  # index in points where the current branch starts (after a branch switch)
         self.points: list[_Point] = []
         self.turned = False  # a fold passed or a branch switched: return_to applies from now on
-        self.k: np.ndarray | None = None  # the constants of the trace (the truncation length held)
+        self.k: np.ndarray | None = None  # the constants of the trace (what a class's check moved held)
         self.last_method = method or "auto"
         self._seen: tuple[Solution, np.ndarray] | None = None  # the last candidate's outputs
         self.probe = np.random.default_rng(20261202)  # fixed: the border of the branch test
@@ -462,7 +459,7 @@ class _Tracer:
 
     # -- accepting points -------------------------------------------------------------------
     def _accept(self, value: float, sol: Solution, how: str, point: _Point | None = None) -> _Point:
-        sol = self._far_field(value, sol)
+        sol = self._checked(value, sol)
         point = point if point is not None and point.solution is sol else _Point(value, sol)
         if self.points and how != "requested":
             self._orient(point)
@@ -534,51 +531,23 @@ class _Tracer:
             return 0.0
         return math.acos(max(-1.0, min(1.0, float(first @ second) / (a * b))))
 
-    # -- infinite domains: the far-field check -------------------------------------------------
-    def _far_field(self, value: float, sol: Solution) -> Solution:
-        """Hold the truncation unless the far field says otherwise (see the module docstring)."""
-        if not self.infinite or not sol.success:
-            return sol
-        view = sol.interpolant
-        layout = view.layout
-        size = layout.region_size
-        rows = slice((layout.regions - 1) * size, layout.regions * size)
-        spline = hermite(self.compiled, view.t, view.y, view.p, view.k)
-
-        def settled(points: np.ndarray, part: slice) -> np.ndarray:
-            # per state: the smaller of the relative changes of its value and of its slope
-            # over the tail (a state that grows linearly there, like the stream function of a
-            # boundary layer, has settled when its slope has)
-            y = spline(points)
-            with np.errstate(all="ignore"):
-                f = np.asarray(self.compiled.rhs(points, y, view.p, view.k), float)
-            y, f = y[part], f[part]
-            value = np.abs(y[:, 1] - y[:, 0]) / (1.0 + np.abs(y[:, 1]))
-            slope = np.abs(f[:, 1] - f[:, 0]) / (1.0 + np.abs(f[:, 1]))
-            return np.fmin(value, np.where(np.isfinite(slope), slope, np.inf))
-
-        change = settled(np.array([_TAIL, 1.0]), rows)
-        if all(layout.infinite) or layout.infinite[0]:
-            change = np.concatenate([change, settled(np.array([1 - _TAIL, 0.0]), slice(0, size))])
-        if float(np.max(change)) <= self.tol:
+    # -- each class's check of a point (the far field of an infinite end) ----------------------
+    def _checked(self, value: float, sol: Solution) -> Solution:
+        """``sol`` after each class's check along a trace (:meth:`Transform.along`); constants a
+        class moved (infinity placed further out) hold for the later points."""
+        if not sol.success or not self.prepared.transforms:
             return sol
         here = self.prepared.with_constants(**{self.name: value})
-        current = sol
-        for _ in range(MAX_LENGTHENINGS):  # as the truncation loop of solve
-            view = current.interpolant
-            k = view.k.copy()
-            k[self.length_at] *= GROWTH
-            longer = solve_at(here, k, current, tol=self.tol, method=self.last_method, verify=self.verify)
-            if not longer.success:
-                return current
-            done = Start(self.compiled, view.t, view.y, view.p, view.k)
-            moved = Start(self.compiled, longer.interpolant.t, longer.interpolant.y, longer.interpolant.p, k)
-            if truncation_change(done, moved) <= 0.5 * self.tol:
-                return current
-            # infinity moves out, for this and later points, until the solution stops changing
-            self.k[self.length_at] = k[self.length_at]
-            current = longer
-        return current
+
+        def resolve(k: np.ndarray, guess: Any) -> Solution:
+            return solve_at(here, k, guess, tol=self.tol, method=self.last_method, verify=self.verify)
+
+        kept = sol
+        for transform in self.prepared.transforms:
+            kept = transform.along(kept, resolve, self.tol)
+        if kept is not sol:
+            self.k = np.array(kept.interpolant.k, float)
+        return kept
 
     # -- the trace ----------------------------------------------------------------------
     def run(self) -> Branch:
@@ -589,7 +558,7 @@ class _Tracer:
         try:
             with np.errstate(all="ignore"):
                 here = self.prepared.with_constants(**{self.name: self.start})
-                first = solve(here, tol=self.tol, method=self.method, verify=self.verify)
+                first = solve(here, tol=self.tol, method=self.method, verify=self.verify, follow=trace)
                 if not first.success:
                     b.message = f"the first point ({self.name} = {self.start:g}) did not solve: {first.message}"
                     return b
@@ -950,13 +919,11 @@ class _Tracer:
         if math.isfinite(estimate) and estimate > self.tol:
             outcome.message += (". Near a fold the states are sensitive to the parameter; arclength steps keep "
                                 "their mesh")
-        length = float(k[self.length_at]) if self.infinite else None
-        return settle(self.prepared.with_constants(**{self.name: value}), k, outcome, [attempt],
-                      "pseudo-arclength continuation near a fold", seconds, self.tol, length)
+        here = self.prepared.with_constants(**{self.name: value})
+        run = Run(outcome, k, [attempt], "pseudo-arclength continuation near a fold", self.tol, here.independent)
+        return settle(here, run, seconds)
 
     def _ends(self, p: np.ndarray, k: np.ndarray) -> tuple[float, float]:
-        from ..reduce.guess import positions
-
         ends = positions(np.asarray(self.compiled.maps(p, k), float))
         return float(ends[0]), float(ends[-1])
 
@@ -968,7 +935,6 @@ class _Tracer:
         a fold). At a fold (``fold``), or where that matrix is singular, the distance to the
         exact branch instead (the defect solved with the bordered matrix ``[G_z; t]``).
         Returns the estimate and the corrected point ``(x, y, p)``."""
-        from ..methods.base import Trial, compare
 
         y, pz = eq.split(z)
         p = pz[:-1]

@@ -25,18 +25,20 @@ from typing import Any
 
 import numpy as np
 
-from . import arclength as arc
 from .._output import json_ready, write_columns
-from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
+from ..errors import OptionError, closest
+from ..language.problem import Problem
+from ..language.units import labelled
+from ..methods.base import Outcome, Trial, compare
 from ..methods.diagnostics import Attempt, hermite
 from ..methods.discrete import CollocationEquations, SingularMatrix
-from ..solver.driver import DEFAULT_TOL, settle
-from ..errors import OptionError, closest
-from ..methods.base import Outcome, Trial, compare
 from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import Run, options, settle
 from ..solver.solution import Solution
 from ..status import Status
-from ..language.units import labelled
+from . import arclength as arc
+from . import plots
+from .continuation import MAX_ANGLE, MAX_DRIFT, _number, _resolve_outputs, _Tracer, output_values
 
 _GROW, _SHRINK = 1.5, 0.5
 #: Over a positive range of more than two decades (drawn on a log scale) a step changes the
@@ -126,10 +128,9 @@ class FoldCurve:
 
     def plot(self, path: str | Path, **options: Any) -> Any:
         """Draw the fold curve and the outputs along it, cusps marked (``plot`` extra; options of
-        :func:`bvpkit.io.plots.fold_curve_figure`); returns the figure."""
-        from ..io.plots import fold_curve_figure
+        :func:`bvpkit.families.plots.fold_curve_figure`); returns the figure."""
 
-        return fold_curve_figure(self, path, **options)
+        return plots.fold_curve_figure(self, path, **options)
 
 
 def fold_curve(
@@ -176,7 +177,6 @@ def fold_curve(
     -------
     FoldCurve
     """
-    from ..language.problem import Problem
 
     if not isinstance(problem, Problem | Prepared):
         raise OptionError(f"fold_curve() takes a bvpkit.Problem, got {type(problem).__name__}")
@@ -191,7 +191,7 @@ def fold_curve(
         raise OptionError("start and stop must differ")
     requested = sorted({_number(v, "a value of at") for v in (at or [])})
     angle = MAX_ANGLE if max_angle is None else _number(max_angle, "max_angle")
-    tol = float(tol if tol is not None else prepared.settings.get("tol", DEFAULT_TOL))
+    tol = options(prepared.settings, {"tol": tol}).tol
     labels = _resolve_outputs(prepared, outputs)
     curve = FoldCurve(name, along, labels)
     started = time.perf_counter()
@@ -237,7 +237,6 @@ def _first_fold(problem: Prepared, name: str, lo: float, hi: float, labels: dict
 
 class _Follower:
     """Pseudo-arclength along the fold curve (see the module docstring)."""
-
     def __init__(self, prepared: Prepared, name: str, along: str, fold, tol: float, requested: list[float],  # noqa: ANN001
                  angle: float, max_points: int, curve: FoldCurve):
         self.prepared, self.name, self.along, self.tol = prepared, name, along, tol
@@ -448,5 +447,6 @@ class _Follower:
         # constant says nothing about this point, which the bordered system fixes well
         outcome.condition = math.nan
         here = self.prepared.with_constants(**{self.name: float(z[-2]), self.along: float(z[-1])})
-        return settle(here, k, outcome, [attempt], "a fold followed in two constants", 0.0, self.tol)
+        return settle(here, Run(outcome, k, [attempt], "a fold followed in two constants", self.tol, here.independent),
+                      0.0)
 

@@ -51,8 +51,8 @@ def principal_eigenvalue(solution: Any) -> float | None:
         return None
     view = solution.interpolant
     c, layout = view.compiled, view.layout
-    if (layout.regions != 1 or layout.singular or any(layout.infinite) or layout.parameters
-            or any(layout.power(r) != 1 for r in range(layout.regions))
+    classes = solution.prepared.transforms
+    if (layout.regions != 1 or not all(t.keeps_evolution for t in classes) or layout.parameters
             or layout.users != len(layout.states) or any(order != 2 for _, order in layout.functions)):
         return None
     x, y, p, k = view.t, view.y, view.p, view.k

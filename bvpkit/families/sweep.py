@@ -63,7 +63,12 @@ import numpy as np
 from .._output import json_ready, progress_bar, write_columns
 from ..errors import OptionError, closest
 from ..language.limits import LARGEST, SMALLEST, in_range
+from ..language.problem import Problem
 from ..language.units import labelled
+from ..reduce.prepared import Prepared, prepare
+from ..solver.driver import solve
+from . import plots
+from .continuation import trace  # the path follower of the selector's continuation
 
 #: Points of the fast axis per unit of work: long enough for continuation to pay off,
 #: short enough to spread a grid over the workers.
@@ -78,7 +83,6 @@ PARENT_CHECK = 0.5
 @dataclass(frozen=True)
 class _Unit:
     """One chunk of one grid line: what a worker needs, as plain data."""
-
     problem_key: str
     fast: str
     fast_values: tuple[float, ...]
@@ -102,7 +106,6 @@ _WORKER_PROBLEMS: dict[str, Any] = {}
 def _worker_problem(unit: _Unit):  # noqa: ANN202
     prepared = _WORKER_PROBLEMS.get(unit.problem_key)
     if prepared is None:
-        from ..reduce.prepared import Prepared
 
         prepared = _WORKER_PROBLEMS[unit.problem_key] = Prepared.from_plain(unit.prepared)
     return prepared
@@ -132,8 +135,6 @@ def _abandoned_check():  # noqa: ANN202 - a callable returning bool
 
 def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     """Solve one chunk in order, each point seeded by the previous one (runs in a worker)."""
-    from ..solver.driver import solve
-
     prepared = _worker_problem(unit)
     named = {text: name for name, text in prepared.outputs.items()}
     options = dict(unit.options)
@@ -150,13 +151,13 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
             if previous is not None and "method" not in options:
                 # the neighbour's method, started from its solution: no new plan (and no survey)
                 # while it works; the selector's full plan when it does not
-                sol = solve(here, guess=previous, method=previous.method, **options)
+                sol = solve(here, guess=previous, method=previous.method, follow=trace, **options)
                 if not sol.success:
-                    sol = solve(here, guess=previous, **options)
+                    sol = solve(here, guess=previous, follow=trace, **options)
             else:
-                sol = solve(here, guess=previous, **options)
+                sol = solve(here, guess=previous, follow=trace, **options)
             if not sol.success and previous is not None:
-                sol = solve(here, **options)  # a cold start as a second chance
+                sol = solve(here, follow=trace, **options)  # a cold start as a second chance
         except Exception as err:  # noqa: BLE001 - a point that raises is stored as failed
             rows.append(_row(point, {}, False, "bad_input", "", math.nan, f"{type(err).__name__}: {err}", 0,
                              time.perf_counter() - started))
@@ -183,7 +184,6 @@ def _row(point, outputs, success, status, method, error, message, iterations, se
 
 class _Store:
     """SQLite store of finished points, keyed by the problem's content and the grid point."""
-
     def __init__(self, path: str | Path | None):
         self.path = ":memory:" if path is None else str(path)
         self.db = None
@@ -300,10 +300,9 @@ class SweepResult:
 
     def plot(self, path: str | Path, output: str | None = None, **options: Any) -> Any:
         """Design chart: one curve per value of the slower parameters, every output (or ``output``)
-        on its own panel (``plot`` extra; options of :func:`bvpkit.io.plots.sweep_figure`)."""
-        from ..io.plots import sweep_figure
+        on its own panel (``plot`` extra; options of :func:`bvpkit.families.plots.sweep_figure`)."""
 
-        return sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
+        return plots.sweep_figure(self, path, [output] if output else options.pop("outputs", None), **options)
 
 
 def _axes(prepared, grid: Mapping[str, Sequence[float]]) -> dict[str, np.ndarray]:  # noqa: ANN001
@@ -395,7 +394,6 @@ class _MainHidden:
 
 class _WorkerProcess(SpawnProcess):
     """A spawned worker that starts without the caller's ``__main__`` (see :class:`_MainHidden`)."""
-
     def start(self) -> None:
         # SIGINT blocked while the worker is made: the worker inherits the mask and never
         # sees Ctrl-C (the parent handles it), even while it is still importing; in the
@@ -480,8 +478,6 @@ def sweep(
     -------
     SweepResult
     """
-    from ..reduce.prepared import Prepared, prepare
-    from ..language.problem import Problem
 
     if _starting_worker():
         # an executor of the caller's that imports __main__ again in its workers
@@ -504,7 +500,7 @@ def sweep(
     # (no SymPy in the workers)
     quantities = {**prepared.quantities, **{text: prepared.quantity(text) for text in labels.values()}}
     plain = dataclasses.replace(prepared, quantities=quantities).plain()
-    solver = {k: v for k, v in prepared.settings.items() if k in ("method", "tol", "max_nodes", "verify", "truncation")}
+    solver = {k: v for k, v in prepared.options.as_dict().items() if k in prepared.settings}
     problem_key = _key((prepared.facts["key"], sorted(prepared.constants.items()), sorted(prepared.facts["own"].items()),
                         sorted(solver.items()), sorted(labels.values()), sorted(options.items()), sorted(axes)))
     names = list(axes)

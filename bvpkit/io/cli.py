@@ -22,8 +22,11 @@ from typing import Any
 from .._interrupt import MESSAGE as INTERRUPTED
 from .._interrupt import early_interrupt, wants_json
 from .._output import json_ready
-from ..status import Status
+from ..errors import BvpkitError, MissingExtraError, OptionError, closest
+from ..language import limits
+from ..language.options import OPTIONS
 from ..language.units import label, units_of
+from ..status import Status
 
 _EPILOG = "exit codes: " + ", ".join(f"{s.exit_code} {s.word}" for s in Status)
 
@@ -36,12 +39,39 @@ def _methods() -> list[str]:
 
 class _Parser(argparse.ArgumentParser):
     """Usage errors are bad input: one line (or one JSON object with --json), exit code 2."""
-
     def error(self, message: str):  # noqa: ANN201
         if "--json" in getattr(self, "_argv", sys.argv[1:]):
             print(json.dumps({"success": False, "status": Status.BAD_INPUT.word, "message": message}))
             sys.exit(Status.BAD_INPUT.exit_code)
         super().error(message)
+
+
+def _option_flags(parser: argparse.ArgumentParser, names: Any, says: dict[str, str] | None = None) -> None:
+    """The flags of solve options (language/options.py: one entry each, shared with the
+    spec's ``[solver]`` table and Python's keywords); the library checks the values."""
+    kinds = {"number": float, "count": int, "word": str}
+    for name in names:
+        option = OPTIONS[name]
+        words = (says or {}).get(name, option.says)
+        if option.kind == "switch":
+            parser.add_argument(option.flag, dest=name, action="store_const", const=not option.default, help=words)
+        elif name == "method":
+            parser.add_argument(option.flag, dest=name, choices=_methods(), help=words)
+        else:
+            parser.add_argument(option.flag, dest=name, type=kinds[option.kind], help=words,
+                                metavar="SECONDS" if name == "time_limit" else None)
+
+
+def _flag_values(args: argparse.Namespace, names: Any) -> dict[str, Any]:
+    """The values of option flags, checked here so that an error names the flag typed."""
+    values = {name: getattr(args, name, None) for name in names}
+    for name, value in values.items():
+        if value is not None:
+            try:
+                OPTIONS[name].check(value)
+            except OptionError as err:
+                raise OptionError(str(err).replace(name, OPTIONS[name].flag, 1)) from None
+    return values
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -59,15 +89,7 @@ def _parser() -> argparse.ArgumentParser:
         "solve", help="solve the problem of a TOML spec", description="Solve the problem of a TOML spec and print a summary.", epilog=_EPILOG
     )
     solve.add_argument("spec", help="path of the TOML spec file")
-    solve.add_argument("--method", choices=_methods(), help="solution method (default: the spec's, else auto)")
-    solve.add_argument("--tol", type=float, help="tolerance on the relative error (default: the spec's, else 1e-6)")
-    solve.add_argument("--max-nodes", type=int, help="mesh limit")
-    solve.add_argument("--no-verify", action="store_true", help="skip the error estimate (faster)")
-    solve.add_argument("--homotopy", metavar="NAME",
-                       help="continuation from an easier problem: auto (default), off, or a constant to "
-                       "continue in")
-    solve.add_argument("--time-limit", type=float, metavar="SECONDS",
-                       help="time for the whole solve (default 8)")
+    _option_flags(solve, OPTIONS)
     solve.add_argument(
         "--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)"
     )
@@ -89,8 +111,7 @@ def _parser() -> argparse.ArgumentParser:
     trace.add_argument("--output", action="append", metavar="EXPR",
                        help="an expression (or output name) to record; repeatable (default: the spec's)")
     trace.add_argument("--max-points", type=int, help="upper bound on the points (default 200)")
-    trace.add_argument("--tol", type=float, help="tolerance of each point")
-    trace.add_argument("--method", choices=_methods(), help="method of the natural steps")
+    _option_flags(trace, ["tol", "method"], {"tol": "tolerance of each point", "method": "method of the natural steps"})
     trace.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     trace.add_argument("--csv", metavar="FILE", help="write the branch as CSV")
     trace.add_argument("--json", action="store_true", help="print the branch as JSON instead of a table")
@@ -119,7 +140,7 @@ def _parser() -> argparse.ArgumentParser:
     folds.add_argument("--output", action="append", metavar="EXPR", help="an expression or output name; repeatable")
     folds.add_argument("--at", action="append", type=float, metavar="VALUE",
                        help="locate the fold exactly at this value of the second constant; repeatable")
-    folds.add_argument("--tol", type=float, help="tolerance of each point")
+    _option_flags(folds, ["tol"], {"tol": "tolerance of each point"})
     folds.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     folds.add_argument("--csv", metavar="FILE", help="write the curve as CSV")
     folds.add_argument("--json", action="store_true", help="print the curve as JSON instead of a table")
@@ -141,8 +162,7 @@ def _parser() -> argparse.ArgumentParser:
         "--grid", action="append", metavar="NAME=FROM:TO:COUNT[:geometric] | NAME=V1,V2,...",
         help="an axis of the grid (repeatable; the first is the fast axis); replaces the spec's [sweep] grid",
     )
-    sweep.add_argument("--tol", type=float, help="tolerance of each point")
-    sweep.add_argument("--method", choices=_methods(), help="solution method")
+    _option_flags(sweep, ["tol", "method"], {"tol": "tolerance of each point"})
     sweep.add_argument("--csv", metavar="FILE", help="write the table as CSV")
     sweep.add_argument("--json", action="store_true", help="print the table as JSON")
     sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra; the suffix names "
@@ -158,7 +178,6 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _constants(pairs: list[str]) -> dict[str, float]:
-    from ..errors import OptionError
 
     values = {}
     for pair in pairs:
@@ -173,7 +192,6 @@ def _constants(pairs: list[str]) -> dict[str, float]:
 
 
 def _no_nul(name: str, what: str) -> None:
-    from ..errors import OptionError
 
     if "\x00" in name:
         raise OptionError(f"{what} {name!r} holds a NUL character")
@@ -181,8 +199,6 @@ def _no_nul(name: str, what: str) -> None:
 
 def _writable(name: str | None) -> Path | None:
     """A path given on the command line: the user's choice, but its folder must exist."""
-    from ..errors import OptionError
-
     if name is None:
         return None
     _no_nul(name, "output file")
@@ -199,8 +215,6 @@ def _writable(name: str | None) -> Path | None:
 
 def _picture(name: str | None) -> Path | None:
     """A ``--plot`` file: checked before any computation (matplotlib there, a format it writes)."""
-    from ..errors import MissingExtraError, OptionError
-
     path = _writable(name)
     if path is None:
         return None
@@ -233,7 +247,6 @@ class SpecOutput:
     """
 
     def __init__(self, name: str, overwrite: bool, key: str):
-        from ..errors import OptionError
 
         self.name, self.overwrite, self.key = name, overwrite, key
         _no_nul(name, f"output file named in the spec's [save] {key}")
@@ -254,8 +267,6 @@ class SpecOutput:
 
     def open(self):  # noqa: ANN201 - a text file object
         """The file, opened for writing without following any link on its way."""
-        from ..errors import OptionError
-
         nofollow = getattr(os, "O_NOFOLLOW", 0)
         flags = os.O_WRONLY | os.O_CREAT | nofollow | (os.O_TRUNC if self.overwrite else os.O_EXCL)
         try:
@@ -297,8 +308,7 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
-    from ..solver.driver import solve
-    from ..errors import OptionError
+    from ..public import solve
     from ..reduce.prepared import cached, prepare, remember, spec_key
 
     overrides = _constants(args.set)
@@ -317,17 +327,7 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
     if save.get("report_json"):
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
-    if args.max_nodes is not None and args.max_nodes < 10:
-        raise OptionError("--max-nodes must be at least 10")
-    solution = solve(
-        problem,
-        method=args.method,
-        tol=args.tol,
-        max_nodes=args.max_nodes,
-        verify=False if args.no_verify else None,
-        homotopy=args.homotopy,
-        time_limit=args.time_limit,
-    )
+    solution = solve(problem, **_flag_values(args, OPTIONS))
     if fresh:
         remember(key, problem)
     # the user asked for the file: a failed solve's is written too, every header saying it failed
@@ -353,7 +353,6 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
 
 def _trace(args: argparse.Namespace) -> tuple[int, Any]:
     from .. import load, trace
-    from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
     problem = load(args.spec)
@@ -417,7 +416,6 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
 
 def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
     from .. import fold_curve, load
-    from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
     problem = load(args.spec)
@@ -458,9 +456,7 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load
-    from .. import sweep
-    from ..errors import MissingExtraError, OptionError
+    from .. import load, sweep
 
     _writable(args.csv), _picture(args.plot)
     if args.store is not None:
@@ -531,7 +527,6 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
         names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
         for name in names:
             if name is not None and name not in problem.constants:
-                from ..errors import OptionError, closest
 
                 raise OptionError(f"{args.spec}: [{section}] names '{name}', which is not a constant of the problem"
                                   f"{closest(name, problem.constants)}")
@@ -630,7 +625,6 @@ def _main(arguments: list[str]) -> int:
     args = parser.parse_args(arguments)
     wants_json = getattr(args, "json", False)
     try:
-        from ..errors import BvpkitError
 
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
                    "fold-curve": _fold_curve}[args.command]
@@ -697,8 +691,6 @@ def _fail(status: Status, message: str, wants_json: bool) -> int:
 
 
 def _number(value: Any, what: str) -> float:
-    from ..language import limits
-    from ..errors import OptionError
 
     try:
         return limits.check_value(value, what)
@@ -708,7 +700,6 @@ def _number(value: Any, what: str) -> float:
 
 def _grid(items: list[str]) -> dict[str, list[float]]:
     """``--grid`` axes: ``NAME=FROM:TO:COUNT[:geometric|linear]`` or ``NAME=V1,V2,...``, in order."""
-    from ..errors import OptionError
     from ..families.sweep import axis_values
 
     grid: dict[str, list[float]] = {}

@@ -64,10 +64,14 @@ from pydantic import (
     StrictInt,
     StrictStr,
     ValidationError,
+    create_model,
 )
 
 from ..errors import BvpkitError, ExpressionError, SpecError
+from ..language import limits
+from ..language.options import OPTIONS
 from ..language.problem import Problem
+from ..language.units import check_units, names_with_units
 
 #: Spec files larger than this are refused unread: a real spec is a few kilobytes.
 MAX_SPEC_BYTES = 1_000_000
@@ -100,14 +104,10 @@ class ProblemSection(_Model):
     regions: list[RegionSection] | None = None
 
 
-class SolverSection(_Model):
-    method: StrictStr = "auto"
-    tol: Number | None = None
-    max_nodes: StrictInt | None = None
-    verify: StrictBool | None = None
-    truncation: Number | None = None
-    homotopy: StrictStr | None = None
-    time_limit: Number | None = None
+#: The ``[solver]`` table: one key per solve option (language/options.py), of its kind.
+_KINDS = {"number": Number, "count": StrictInt, "switch": StrictBool, "word": StrictStr}
+SolverSection = create_model("SolverSection", __base__=_Model,
+                             **{o.name: (_KINDS[o.kind] | None, None) for o in OPTIONS.values()})
 
 
 class TraceSection(_Model):
@@ -452,7 +452,6 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
     except BvpkitError as err:
         raise SpecError(f"{source}: [problem] {err}") from err
     if spec.units:
-        from ..language.units import check_units, names_with_units
 
         try:
             check_units(spec.units, names_with_units(problem), "[units]")
@@ -463,7 +462,6 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
 
 def _values(name: str, axis: Any, source: str) -> list[float]:
     """A grid axis: a list as given, or ``{from, to, count, spacing = linear | geometric}``."""
-    from ..language import limits
     from ..families.sweep import axis_values
 
     try:

@@ -17,9 +17,10 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from . import limits as _limits
 from .._lazy import LazyModule, applied_undef
 from ..errors import ExpressionError, ProblemError, closest
+from . import limits as _limits
+from .options import SolveOptions
 
 sp = LazyModule("sympy")  # imported when a problem is first built from text
 _expr = LazyModule("bvpkit.language.expr")
@@ -34,9 +35,8 @@ _SOLUTION_AS_GUESS = (
 
 
 def _is_solution(value: Any) -> bool:
-    from ..solver.solution import Solution
-
-    return isinstance(value, Solution)
+    """Whether ``value`` is a solution (it has the map back every Solution carries)."""
+    return hasattr(value, "interpolant") and hasattr(value, "prepared")
 
 
 def _check_guess_kind(guess: Any) -> None:
@@ -187,6 +187,7 @@ class Problem:
         self.constants = _numbers(constants or {}, "constant")
         self.unknown_parameters = _numbers(unknown_parameters or {}, "unknown parameter")
         self.settings = dict(settings or {})
+        self.options = SolveOptions.make(self.settings)  # the solver's settings, checked once
         overlap = set(self.constants) & set(self.unknown_parameters)
         if overlap:
             raise ProblemError(f"'{sorted(overlap)[0]}' is both a constant and an unknown parameter")

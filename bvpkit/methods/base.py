@@ -14,7 +14,7 @@ Contract of a method (subclass :class:`Method`):
    two to estimate the error of ``outcome``, and tightens the tolerance when the estimate
    misses it. A method need not know how the estimate is used.
 
-4. Class attributes declare what the method takes and is good at (``takes_singular_term``,
+4. Class attributes declare what the method takes and is good at (``takes``,
    ``strengths``, ``rank``); the selector filters and orders on them, and no module outside
    ``methods/`` tests a method's name.
 
@@ -32,16 +32,17 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..generated.compiled import CompiledSystem
+from ..language.options import TOL_FLOOR
+from ..programs.compiled import NEEDS, CompiledSystem
+from ..status import Status
 from .diagnostics import crossings, hermite
 from .discrete import midpoint_values
-from ..status import Status
 
 # Each round of tightening asks for this fraction of the tolerance times the ratio of the
 # tolerance to the error seen; three rounds cover a miss of several orders of magnitude.
 _TIGHTEN_SAFETY = 0.3
 _TIGHTEN_ROUNDS = 3
-_SMALLEST_TOL = 1e-13  # below this, double precision round-off dominates any method
+_SMALLEST_TOL = TOL_FLOOR  # below this, double precision round-off dominates any method
 
 
 @dataclass
@@ -159,15 +160,23 @@ class Method:
     #: thin layers and fronts), "growth" (splits steep growth of the sensitivities),
     #: "default" (the first choice for a smooth problem).
     strengths: ClassVar[frozenset[str]] = frozenset()
-    #: Whether the method takes a term ``S y / t`` singular at ``t = 0`` (the standard form's).
-    takes_singular_term: ClassVar[bool] = False
+    #: What the method takes beyond a plain standard form: the needs of problem classes
+    #: (``"singular_term"``: a term ``S y / t`` singular at ``t = 0``); the selector offers a
+    #: problem only to the methods that take all its classes need.
+    takes: ClassVar[frozenset[str]] = frozenset()
 
     def solve(self, trial: Trial) -> Outcome:
         """Solve, check the result is finite, and (if asked) estimate and control the error.
 
         An error raised inside SciPy on the way (non-finite values it refuses, a failed
-        factorisation) becomes a failed outcome that says so, never a traceback.
+        factorisation) becomes a failed outcome that says so, never a traceback. A system
+        that needs what the method does not take (``compiled.needs``) is not tried.
         """
+        missing = sorted(trial.compiled.needs - self.takes)
+        if missing:
+            return Outcome(Status.NOT_CONVERGED, f"{self.name.replace('_', ' ')} cannot take "
+                           f"{', '.join(NEEDS.get(m, m) for m in missing)}; use a method that does",
+                           np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float))
         try:
             return self._solve_and_verify(trial)
         except (ValueError, ArithmeticError, np.linalg.LinAlgError, RuntimeError) as err:

@@ -31,10 +31,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..language.options import TOL_FLOOR
+from ..status import Status
+from .base import Method, Outcome, Trial, compare
 from .diagnostics import Hermite, hermite, stability_constant
 from .discrete import CollocationEquations, SingularMatrix
-from ..status import Status
-from .base import Method, Outcome, Trial
 
 _ROUNDS = 10  # rounds allowed that add no nodes (as solve_bvp's max_iteration)
 _SETTLED = 1e-10  # a full Newton step below this relative size: the iteration has converged
@@ -188,7 +189,6 @@ def check_by_defect(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np
     stability constant of an ill-conditioned problem. Returns ``(estimate, stability
     constant)``, ``(inf, inf)`` when the matrix is singular or the values are not finite.
     """
-    from .base import Outcome, Trial, compare
 
     with np.errstate(all="ignore"):
         try:
@@ -222,7 +222,7 @@ class Collocation(Method):
     summary = "4th-order Lobatto IIIA collocation with residual control and mesh refinement (exact Jacobians)"
     rank = 0
     strengths = frozenset({"layers", "default"})
-    takes_singular_term = True
+    takes = frozenset({"singular_term"})
 
     def _solve_and_verify(self, trial: Trial) -> Outcome:
         """The base class's solve and error estimate; a miss of the tolerance where the residual
@@ -281,7 +281,7 @@ class Collocation(Method):
         return self._lobatto(trial, x, y, p)
 
     def _lobatto(self, trial: Trial, x: np.ndarray, y: np.ndarray, p: np.ndarray) -> Outcome:
-        tol = max(trial.tol, 1e-13)
+        tol = max(trial.tol, TOL_FLOOR)
         iterations, rms, code, rounds = 0, None, 3, 0
         floor = 0.0  # the largest residual of this round left unrefined at the round-off level
         unsettled: list[int] = []  # meshes on which Newton did not converge

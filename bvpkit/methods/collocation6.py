@@ -31,11 +31,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .diagnostics import stability_constant
-from .discrete import SingularMatrix, factor_blocks, one_blas_thread
+from ..language.options import TOL_FLOOR
 from ..reduce.features import seeded
 from ..status import Status
 from .base import Method, Outcome, Trial
+from .diagnostics import hermite, stability_constant
+from .discrete import SingularMatrix, factor_blocks, one_blas_thread
 
 _ROOT5 = math.sqrt(5.0)
 _C = np.array([0.0, (5 - _ROOT5) / 10, (5 + _ROOT5) / 10, 1.0])
@@ -82,7 +83,6 @@ def _output_mesh(x: np.ndarray) -> np.ndarray:
 @dataclass
 class _Discrete:
     """A converged solve on one mesh: nodes ``y (n, m)``, stages ``Z (n, m-1, 2)``, parameters."""
-
     x: np.ndarray
     y: np.ndarray
     z: np.ndarray
@@ -251,7 +251,6 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
     """Per interval of the coarse mesh, the largest relative difference ``|u - u_fine| / (1 +
     |u_fine|)`` at its output points and between them (the coarse output's C1 cubic, as a
     Solution evaluates it, against the fine polynomials)."""
-    from .diagnostics import hermite
 
     xo, yo = coarse.output()
     mid = 0.5 * (xo[1:] + xo[:-1])
@@ -273,7 +272,6 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
 @dataclass
 class _State:
     """The finer solve of the last round, the reference of the error estimate."""
-
     reference: Outcome
 
 
@@ -284,20 +282,16 @@ class SixthOrderCollocation(Method):
     #: "tight": the method to prefer at tight tolerances on smooth problems (its cost per
     #: digit falls with the order).
     strengths = frozenset({"tight"})
-    takes_singular_term = False
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x0, y0 = np.asarray(trial.x, float), np.array(trial.y, dtype=float)
         p = np.asarray(trial.p, float)
-        if c.layout.singular:
-            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end; use collocation",
-                           x0, y0, p)
         if x0.size < 2 or not np.all(np.diff(x0) > 0):
             return Outcome(Status.NOT_CONVERGED, "the starting mesh is not strictly increasing", x0, y0, p)
         if not (np.isfinite(y0).all() and np.isfinite(p).all()):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x0, y0, p)
-        tol = max(trial.tol, 1e-13)
+        tol = max(trial.tol, TOL_FLOOR)
         # the starting mesh: the guess's, thinned (each interval of this method does the work
         # of several of the 4th-order one)
         x = x0[::2] if x0.size > 21 else x0.copy()

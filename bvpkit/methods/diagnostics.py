@@ -7,6 +7,9 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+from .._output import json_ready
+from .discrete import block_matrix, one_blas_thread
+
 
 @dataclass
 class Attempt:
@@ -103,8 +106,6 @@ class Diagnostics:
 
     def as_dict(self) -> dict[str, Any]:
         """Plain JSON-ready data (non-finite floats become None)."""
-        from .._output import json_ready
-
         return json_ready(dataclasses.asdict(self))
 
 
@@ -308,7 +309,6 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     # Jacobians would cost more than the solve it guides.
     every = max(1, -(-(x.size - 1) // (_SURVEY_POINTS - 1)))
     at = np.unique(np.concatenate([np.arange(0, x.size, every), [x.size - 1]]))
-    from .discrete import one_blas_thread
 
     with np.errstate(all="ignore"), one_blas_thread(compiled.n):  # threaded eigvals: 20x slower on 2 busy cores
         jac = compiled.jac(x[at], y[:, at], p, k)  # (n, n, len(at))
@@ -338,7 +338,6 @@ def condition_estimate(compiled, x, y, p, k, max_unknowns: int = 200_000) -> flo
     import numpy as np
     from scipy.sparse.linalg import splu
 
-    from .discrete import block_matrix
 
     n, m = y.shape
     n_p = len(p)

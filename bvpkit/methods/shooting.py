@@ -27,11 +27,12 @@ import math
 import numpy as np
 import scipy.sparse as sparse
 
-from .diagnostics import crossings, hermite, survey
-from .discrete import SingularMatrix, factor_blocks
 from ..reduce.features import pieces
 from ..status import Status
 from .base import Method, Outcome, Trial
+from .collocation import check_by_defect
+from .diagnostics import crossings, hermite, survey
+from .discrete import SingularMatrix, factor_blocks
 
 # Integration tolerance relative to the tolerance asked: the integrator's local control
 # leaves a global error of a few times its rtol on smooth problems.
@@ -76,7 +77,6 @@ class _State:
 @dataclasses.dataclass
 class _Flow:
     """Result of integrating every segment from given node states."""
-
     ends: np.ndarray  # (n, M) states at the segment ends
     phi: np.ndarray  # (n, n, M)
     psi: np.ndarray  # (n, n_p, M)
@@ -86,8 +86,7 @@ class _Flow:
 
 class Shooting(Method):
     """Shared engine; subclasses fix how segments are chosen."""
-
-    takes_singular_term = False  # the sensitivities of a start off S y(0) = 0 blow up at t = 0
+    # takes no singular term: the sensitivities of a start off S y(0) = 0 blow up at t = 0
 
     fixed_segments: int | None = None  # 1 for single shooting
 
@@ -137,8 +136,6 @@ class Shooting(Method):
         the values by round-off) says nothing against the answer; the method's own estimate
         decides there.
         """
-        from .collocation import check_by_defect
-
         c, k = trial.compiled, trial.k
         check, condition = check_by_defect(c, outcome.x, outcome.y, outcome.p, k)
         state = outcome.workspace
@@ -165,9 +162,6 @@ class Shooting(Method):
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
         x, y, p = np.asarray(trial.x, float), np.asarray(trial.y, float), np.asarray(trial.p, float)
-        if c.layout.singular:
-            return Outcome(Status.NOT_CONVERGED, "the equations are singular at the left end (a term like "
-                           "(2/x) y'); shooting would need a series start there: use collocation", x, y, p)
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(p))):
             return Outcome(Status.NON_FINITE, "the guess holds NaN or inf", x, y, p)
         facts = survey(c, x, y, p, k)
@@ -557,8 +551,6 @@ def _check_floor(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nd
     moves when the values are perturbed by a few units of round-off (a fixed pattern, so the
     figure is the same from run to run), times two. A check at or below it measures
     round-off, not the solution."""
-    from .collocation import check_by_defect
-
     pattern = np.cos(np.arange(y.size, dtype=float) * 0.7548776662).reshape(y.shape)  # in [-1, 1], no period
     noisy = y + 4.0 * _EPS * np.abs(y) * pattern
     moved, _ = check_by_defect(compiled, x, noisy, p, k)

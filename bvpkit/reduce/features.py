@@ -39,6 +39,8 @@ from typing import Any
 
 import numpy as np
 
+from ..programs.compiled import build_quantity
+
 #: Samples of the arguments over the standard variable ``[0, 1]``.
 _SAMPLES = 2049
 #: A term narrower than this (in the standard variable) is a feature: collocation's first mesh
@@ -101,7 +103,7 @@ def terms(form) -> dict | None:  # noqa: ANN001 - a reduce.StandardForm
     ``2 j`` and ``2 j + 1``), or None when there are none."""
     import sympy as sp
 
-    from ..generated.codegen import compile_expressions
+    from ..programs.codegen import compile_expressions
     from .form import X
 
     states = set(form.y)
@@ -142,8 +144,6 @@ def _function(program: dict):  # noqa: ANN202
     key = json.dumps(program, sort_keys=True)
     function = _FUNCTIONS.get(key)
     if function is None:
-        from ..generated.compiled import build_quantity
-
         if len(_FUNCTIONS) > 500:
             _FUNCTIONS.clear()
         function = _FUNCTIONS[key] = build_quantity(program)

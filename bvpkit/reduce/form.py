@@ -8,32 +8,28 @@ The standard form is the one kind of problem every method solves (Ascher and Rus
 
 with ``Y`` the states, ``p`` the unknown parameters (as many conditions more than states),
 ``k`` the constants (known values, changed without new code) and ``S`` the matrix of a term
-singular at ``t = 0`` (zero for most problems). Each problem class is one small transform
-on the way there, applied to a first-order system in the user's variable:
+singular at ``t = 0`` (zero for most problems). The core steps are here:
 
 * :func:`_first_order` -- highest derivatives isolated; the state layout ``f, f', f'', g``;
-* :func:`_integrals` -- each ``integral(...)`` of a condition becomes an added state
-  ``z' = integrand``, ``z(a) = 0``, read as ``z(b)``;
-* :func:`_eigenvalue` -- the eigenvalue an unknown parameter, the normalisation
-  ``integral(sum of squares) = 1`` an added state with two conditions;
-* :func:`_phase` -- a periodic orbit of autonomous equations pinned by ``u'(a) = 0``;
-* :func:`_stretch` -- fractional powers of ``x - a`` at a finite left end (``1/sqrt(x)``,
-  ``x**(3/2)``) removed by ``x - a = xi**d``, ``d`` from the exponents seen: the region is
-  mapped by ``x = c + h t**d`` (the map's power is kept in ``StandardForm.stretch``);
-* :func:`_singular` -- a term ``S y / (x - a)`` singular at the left end split off;
+* :func:`_given_conditions` -- the user's conditions in symbols of point values;
 * :func:`_map` -- each region ``[X_r, X_r+1]`` mapped onto ``[0, 1]`` by ``x = c_r + h_r t``:
-  a fixed end, an unknown one (free boundary: ``h_r`` holds the parameter), or an infinite
-  one (truncated at the length ``_length``, a constant the driver chooses);
-* :func:`_stack` -- the regions' states stacked into one ``Y``; every state continuous at an
-  interface unless a condition takes its one-sided values; conditions at any point become
+  a fixed end, or an unknown one (free boundary: ``h_r`` holds the parameter);
+* :func:`_assemble` -- the regions' states stacked into one ``Y``; every state continuous at
+  an interface unless a condition takes its one-sided values; conditions at any point become
   conditions on ``Y(0)`` and ``Y(1)``.
+
+Each problem class is one transform object in a module of its own (integral conditions,
+eigenvalues, periodic orbits, weak end singularities, the singular term, infinite ends:
+:mod:`bvpkit.reduce.classes` lists them), whose symbolic hooks :func:`_build` runs on a
+:class:`Reduction` at fixed points of the steps above (:mod:`bvpkit.reduce.transform`).
 
 Two transforms of a finished standard form serve the selector's continuation from an easy
 problem (:func:`path_form`): the nonlinear terms scaled by ``_homotopy`` (0: the problem
 linearised about a constant state, 1: the user's), and the domain shortened by ``_reach``.
 
-Nothing outside this module knows which classes a problem belongs to: the methods, the
-selector and continuation see the standard form only, and one map (``x = c_r + h_r t`` and
+Nothing outside the reduce stage knows which classes a problem belongs to: the methods see
+the standard form only; the driver, continuation and settling call the transforms' hooks; one
+map (``x = c_r + h_r t`` and
 the state rows of each region, kept in :class:`StandardForm`) takes a solution back to the
 user's variable and states. User names never reach generated code: states are ``_y0``,
 ``_y1``, ..., parameters ``_p0``, constants ``_k0``, the variable ``_x``.
@@ -44,17 +40,17 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 from dataclasses import dataclass, field, fields
+from typing import Any
 
 import sympy as sp
 from sympy.core.function import AppliedUndef
 
-from ..language.budget import budget, check_sizes
 from ..errors import ProblemError
-from ..language.expr import DomainIntegral
-from ..generated.layout import LENGTH, StateLayout, States
+from ..language.budget import budget, check_sizes
+from ..programs.codegen import X  # the method variable t (named _x in generated code)
+from ..programs.layout import StateLayout, States
+from .classes import PIPELINE
 
-#: The method variable t (named _x in generated code, as every method calls it x).
-X = sp.Symbol("_x", real=True)
 #: The user's (physical) variable while a region's system is being formed.
 _PHYSICAL = sp.Symbol("_xphys", real=True)
 
@@ -97,17 +93,15 @@ class StandardForm(States):
         The ends and interfaces in ``p`` and ``k`` (``oo`` for an infinite end).
     singular : tuple of tuple of sympy.Expr, or None
         ``S`` (size of ``Y``), nonzero in the first region's rows only.
-    infinite : (bool, bool)
-    eigenvalue : int or None
-        Index in ``parameters`` of the eigenvalue; ``mode`` the mode asked for.
-    phase : bool
-        A phase condition was added (a periodic orbit).
     point_conditions : (tuple of sympy.Expr, tuple of (str, int, int, int))
         The user's conditions in point-value symbols, and what each symbol is:
         ``(symbol name, state, point, side)``; read by the default guess.
     stretch : tuple of int
         Per region, the power ``d`` of its map ``x = c_r + h_r t**d`` (empty: every map
-        affine, ``d = 1``); see :func:`_stretch`.
+        affine, ``d = 1``); see :mod:`bvpkit.reduce.stretch`.
+    transforms : tuple of Transform
+        The problem's classes, as the plain-data objects whose numerical hooks the solve
+        driver, continuation and settling call (:mod:`bvpkit.reduce.transform`).
     """
 
     independent: str
@@ -123,12 +117,9 @@ class StandardForm(States):
     maps: tuple
     points: tuple
     singular: tuple | None = None
-    infinite: tuple[bool, bool] = (False, False)
-    eigenvalue: int | None = None
-    mode: int | None = None
-    phase: bool = False
     point_conditions: tuple = ()
     stretch: tuple = ()
+    transforms: tuple = ()
     y: tuple = field(init=False, repr=False)
     ya: tuple = field(init=False, repr=False)
     yb: tuple = field(init=False, repr=False)
@@ -157,8 +148,7 @@ class StandardForm(States):
         return StateLayout(
             key=self.key(), independent=self.independent, functions=self.functions, states=self.states,
             users=self.users, regions=self.regions, parameters=self.parameters, constants=self.constants,
-            condition_kinds=self.condition_kinds, infinite=self.infinite, singular=self.singular is not None,
-            eigenvalue=self.eigenvalue, mode=self.mode, phase=self.phase, stretch=tuple(self.stretch),
+            condition_kinds=self.condition_kinds, singular=self.singular is not None, stretch=tuple(self.stretch),
         )
 
 
@@ -186,20 +176,35 @@ def standard_form(problem) -> StandardForm:  # noqa: ANN001 - a bvpkit.Problem (
 
 
 @dataclass
-class _Names:
-    """The internal symbols of a problem's names."""
+class Names:
+    """The names of a problem's constants ``k`` and parameters ``p`` and their internal symbols.
+
+    The lists are filled first (the problem's own names, then each class's, see
+    :meth:`bvpkit.reduce.transform.Transform.names`); :meth:`seal` then makes the symbols."""
 
     constants: list[str]
     parameters: list[str]
-    k: dict  # user Symbol -> k symbol (the problem's values)
-    p: dict
-    own: list[dict]  # per region: user Symbol -> k symbol of the region's own value
+    own_names: list[dict] = field(default_factory=list)  # per region: name -> index in constants
+    k: dict = field(default_factory=dict)  # user Symbol -> k symbol (the problem's values)
+    p: dict = field(default_factory=dict)
+    own: list[dict] = field(default_factory=list)  # per region: user Symbol -> k symbol of its own value
+
+    def seal(self, problem) -> None:  # noqa: ANN001
+        k = _symbols("k", len(self.constants))
+        p = _symbols("p", len(self.parameters))
+        self.k = {sp.Symbol(c): k[i] for i, c in enumerate(problem.constants)}
+        self.p = {sp.Symbol(q): p[i] for i, q in enumerate(self.parameters)}
+        self.own = [{sp.Symbol(name): k[i] for name, i in own.items()} for own in self.own_names]
+
+    def symbol(self, name: str) -> sp.Symbol:
+        """The ``k`` symbol of a constant added by a class (``_length``)."""
+        return sp.Symbol(f"_k{self.constants.index(name)}", real=True)
 
     def region(self, r: int) -> dict:
         return {**self.k, **self.own[r], **self.p}
 
 
-def _names(problem) -> _Names:  # noqa: ANN001
+def _names(problem, classes) -> Names:  # noqa: ANN001
     constants = list(problem.constants)
     own_names: list[dict] = []
     for r, region in enumerate(problem.regions):
@@ -208,115 +213,174 @@ def _names(problem) -> _Names:  # noqa: ANN001
             constants.append(f"{name}@{r + 1}")
             own[name] = len(constants) - 1
         own_names.append(own)
-    if any(problem.infinite):
-        constants.append(LENGTH)
-    parameters = list(problem.unknown_parameters) + ([problem.eigenvalue] if problem.eigenvalue else [])
-    k = _symbols("k", len(constants))
-    p = _symbols("p", len(parameters))
-    return _Names(
-        constants, parameters,
-        {sp.Symbol(c): k[i] for i, c in enumerate(problem.constants)},
-        {sp.Symbol(q): p[i] for i, q in enumerate(parameters)},
-        [{sp.Symbol(name): k[i] for name, i in own.items()} for own in own_names],
-    )
+    names = Names(constants, list(problem.unknown_parameters), own_names)
+    for cls in classes:
+        cls.names(problem, names)
+    names.seal(problem)
+    return names
+
+
+@dataclass
+class Reduction:
+    """A problem on its way to the standard form: what the transforms' symbolic hooks read and
+    change (see :mod:`bvpkit.reduce.transform`).
+
+    Attributes
+    ----------
+    problem : Problem
+    names : Names
+    user_states, states : list of (str, int)
+        One region's user states, and all its states (user states, then added ones).
+    local : tuple of sympy.Symbol
+        One region's state symbols while its system is formed (room for every added state).
+    systems : list of list of sympy.Expr
+        Per region, the right-hand sides in the user's variable ``_xphys`` and ``local``.
+    substitutions : dict
+        Replacements made in every given condition (an integral by its added state's end value).
+    given : list of sympy.Expr
+        The user's conditions in point-value symbols (see :meth:`value`).
+    conditions : list of (sympy.Expr, str)
+        Every condition and its kind (``given``, ``added``, ``phase``, ``continuity``).
+    points : tuple of sympy.Expr
+        Ends and interfaces in the symbols of ``k`` and ``p``.
+    ends : tuple of sympy.Expr
+        The ends the regions' maps run between (in ``xi`` after a stretch).
+    power : int
+        The power ``d`` of a stretch ``x - a = xi**d`` (1: none).
+    singular : list of list of sympy.Expr or None
+        ``S`` of a term ``S y / (x - a)`` of the first region (one region's size).
+    maps : list of (sympy.Expr, sympy.Expr)
+        Per region ``(c_r, h_r)``: ``x = c_r + h_r t``.
+    """
+
+    problem: Any
+    names: Names
+    user_states: list
+    states: list
+    local: tuple
+    systems: list
+    substitutions: dict = field(default_factory=dict)
+    given: list = field(default_factory=list)
+    conditions: list = field(default_factory=list)
+    points: tuple = ()
+    ends: tuple = ()
+    power: int = 1
+    singular: list | None = None
+    maps: list = field(default_factory=list)
+    values: dict = field(default_factory=dict)
+    scratch: dict = field(default_factory=dict)  # what a class keeps between its own hooks, by kind
+
+    @property
+    def last(self) -> int:
+        """Index of the right end in ``points``."""
+        return len(self.problem.points) - 1
+
+    def value(self, state: int, point: int, side: int) -> sp.Symbol:
+        """The symbol of a state's value at an end or interface (``side`` -1: from the left)."""
+        side = side or (1 if point == 0 else -1)  # written f(L): continuous there, read from the left
+        if (point == 0 and side < 0) or (point == self.last and side > 0):  # pragma: no cover - refused by Problem
+            raise ProblemError("a one-sided value outside the domain")
+        return self.values.setdefault((state, point, side), sp.Symbol(f"_v{state}_{point}_{side}", real=True))
+
+    def add_state(self, description: str, rhs_per_region: list) -> int:
+        """An added state (``(description, 0)``) with its right-hand side in each region."""
+        self.states.append((description, 0))
+        for system, f in zip(self.systems, rhs_per_region):
+            system.append(f)
+        return len(self.states) - 1
+
+    @property
+    def parameter_symbols(self) -> set:
+        return set(self.names.p.values())
 
 
 def _build(problem) -> StandardForm:  # noqa: ANN001
-    names = _names(problem)
+
+    classes = [cls for cls in PIPELINE if cls.applies(problem)]
+    names = _names(problem, classes)
     functions = tuple((f, problem.orders[f]) for f in problem.unknowns)
     user_states = tuple((f, j) for f, order in functions for j in range(order))
-    added = len({g for c in problem.conditions for g in c.atoms(DomainIntegral)}) + (problem.eigenvalue is not None)
-    local = _symbols("s", len(user_states) + added)  # one region's states while its system is formed
+    room = len(user_states) + sum(cls.room(problem) for cls in classes)
+    local = _symbols("s", room)  # one region's states while its system is formed
     # 1. each region's first-order system in the user's variable
     systems = [_first_order(problem, region, user_states, local, names.region(r))
                for r, region in enumerate(problem.regions)]
-    states = list(user_states)
-    # 2-3. added states: integrals of the conditions, the eigenvalue's normalisation
-    integrals = _integrals(problem, systems, states, user_states, local, names)
-    normalisation = _eigenvalue(problem, systems, states, local, names)
-    # 4. conditions in point-value symbols
-    values: dict[tuple[int, int, int], sp.Symbol] = {}
-
-    def value(state: int, point: int, side: int) -> sp.Symbol:
-        last = len(problem.points) - 1
-        side = side or (1 if point == 0 else -1)  # written f(L): continuous there, read from the left
-        if (point == 0 and side < 0) or (point == last and side > 0):  # pragma: no cover - refused by Problem
-            raise ProblemError("a one-sided value outside the domain")
-        return values.setdefault((state, point, side), sp.Symbol(f"_v{state}_{point}_{side}", real=True))
-
-    given = _given_conditions(problem, user_states, integrals, value, names)
-    point_conditions = tuple(given)
-    conditions: list[tuple[sp.Expr, str]] = [(c, "given") for c in given]
-    last = len(problem.points) - 1
-    for z in range(len(user_states), len(states)):
-        conditions.append((value(z, 0, 1), "added"))
-    if normalisation is not None:
-        conditions.append((value(normalisation, last, -1) - 1, "added"))
-    if problem.phase:
-        conditions.append((_phase(problem, systems[0], local, value, names), "phase"))
-    for j in range(1, last):
-        for i, (name, order) in enumerate(states):
+    work = Reduction(problem, names, list(user_states), list(user_states), local, systems)
+    work.points = tuple(p.xreplace(names.region(0)) for p in problem.points)
+    # 2. added states (integrals of the conditions, the eigenvalue's normalisation)
+    for cls in classes:
+        cls.states(work)
+    # 3. conditions: the user's, each class's, continuity at interfaces
+    work.given = _given_conditions(work)
+    work.conditions = [(c, "given") for c in work.given]
+    for cls in classes:
+        cls.conditions(work)
+    for j in range(1, work.last):
+        for i, (name, order) in enumerate(work.states):
             if i < len(user_states) and (name, order) in problem.jumps[j]:
                 continue
             kind = "continuity" if i < len(user_states) else "added"
-            conditions.append((value(i, j, -1) - value(i, j, 1), kind))
-    # 5. singular terms, 6. the map onto [0, 1], 7. the stack
-    points = tuple(p.xreplace(names.region(0)) for p in problem.points)
-    with budget("looking for fractional powers of the independent variable at the left end"):
-        power, stretched = _stretch(problem, systems, points, set(names.p.values()))
-    with budget("splitting off the singular term", advice="write the singular coefficient in a simpler form"):
-        singular = _singular(problem, systems, stretched, local, len(states), set(names.p.values()))
-    if singular is not None:
-        check_sizes({f"the right-hand side of state {i}": e for i, e in enumerate(singular[1])},
-                    step="splitting off the singular term")
-    maps = _map(stretched, names)
+            work.conditions.append((work.value(i, j, -1) - work.value(i, j, 1), kind))
+    # 4. rewrites of the equations (a stretch of the variable, the singular term)
+    work.ends = work.points
+    for cls in classes:
+        cls.system(work)
+    # 5. the map of each region onto [0, 1], then each class's
+    work.maps = _map(work.ends)
+    for cls in classes:
+        cls.maps(work)
+    return _assemble(work, [t for t in (cls.finish(work) for cls in classes) if t is not None])
+
+
+def _assemble(work: Reduction, transforms: list) -> StandardForm:
+    """The regions' systems mapped onto ``[0, 1]`` and stacked into one ``Y``; conditions on
+    ``Y(0)`` and ``Y(1)``."""
+    problem, names, systems = work.problem, work.names, work.systems
     rhs = []
     for r, system in enumerate(systems):
-        c, h = maps[r]
-        for i, f in enumerate(system):
-            regular = f if singular is None or r else singular[1][i]
-            rhs.append(h * regular.xreplace({_PHYSICAL: c + h * X}))
-    n_region = len(states)
+        c, h = work.maps[r]
+        for f in system:
+            rhs.append(h * f.xreplace({_PHYSICAL: c + h * X}))
+    n_region = len(work.states)
     total = n_region * len(systems)
     y = _symbols("y", total)
     for r in range(len(systems)):
-        swap = {local[i]: y[r * n_region + i] for i in range(n_region)}
+        swap = {work.local[i]: y[r * n_region + i] for i in range(n_region)}
         for i in range(n_region):
             rhs[r * n_region + i] = rhs[r * n_region + i].xreplace(swap)
     ya, yb = _symbols("ya", total), _symbols("yb", total)
     ends = {}
-    for (state, point, side), symbol in values.items():
+    for (state, point, side), symbol in work.values.items():
         ends[symbol] = yb[(point - 1) * n_region + state] if side < 0 else ya[point * n_region + state]
-    stacked = [c.xreplace(ends) for c, _ in conditions]
+    stacked = [c.xreplace(ends) for c, _ in work.conditions]
     matrix = None
-    if singular is not None:
+    if work.singular is not None:
+        S = work.singular
         matrix = tuple(
-            tuple(singular[0][i][j] if i < n_region and j < n_region else sp.Integer(0) for j in range(total))
+            tuple(S[i][j] if i < n_region and j < n_region else sp.Integer(0) for j in range(total))
             for i in range(total)
         )
-    if power > 1:  # the map in the user's variable: x = a + (h_xi t)**d
-        maps = [(points[0], maps[0][1] ** power)]
-    names_of_values = tuple((symbol.name, state, point, side) for (state, point, side), symbol in values.items())
+    maps = list(work.maps)
+    if work.power > 1:  # the map in the user's variable: x = a + (h_xi t)**d
+        maps = [(work.points[0], maps[0][1] ** work.power)]
+    names_of_values = tuple((symbol.name, state, point, side) for (state, point, side), symbol in work.values.items())
     return StandardForm(
         independent=problem.independent,
-        functions=functions,
-        states=tuple(states),
-        users=len(user_states),
+        functions=tuple((f, problem.orders[f]) for f in problem.unknowns),
+        states=tuple(work.states),
+        users=len(work.user_states),
         regions=len(systems),
         rhs=tuple(rhs),
         conditions=tuple(stacked),
-        condition_kinds=tuple(kind for _, kind in conditions),
+        condition_kinds=tuple(kind for _, kind in work.conditions),
         parameters=tuple(names.parameters),
         constants=tuple(names.constants),
         maps=tuple(maps),
-        points=points,
+        points=work.points,
         singular=matrix,
-        infinite=tuple(problem.infinite),
-        eigenvalue=len(names.parameters) - 1 if problem.eigenvalue else None,
-        mode=problem.mode,
-        phase=bool(problem.phase),
-        point_conditions=(point_conditions, names_of_values),
-        stretch=(power,) if power > 1 else (),
+        point_conditions=(tuple(work.given), names_of_values),
+        stretch=(work.power,) if work.power > 1 else (),
+        transforms=tuple(transforms),
     )
 
 
@@ -357,186 +421,27 @@ def _local_replace(problem, user_states, local) -> dict:  # noqa: ANN001
     return replace
 
 
-def _integrals(problem, systems, states, user_states, local, names) -> dict:  # noqa: ANN001
-    """Integrals over the domain in the conditions: added states ``z' = integrand``, ``z(a) = 0``."""
-    found: dict = {}
-    for c in problem.conditions:
-        for g in sorted(c.atoms(DomainIntegral), key=sp.default_sort_key):
-            if g not in found:
-                found[g] = len(states)
-                states.append((f"integral({_as_written(g.args[0], problem)})", 0))
-    replace = _local_replace(problem, user_states, local)
-    for r, system in enumerate(systems):
-        for g in found:
-            system.append(g.args[0].xreplace({**replace, **names.region(r)}))
-    return found
-
-
-def _users(problem) -> int:  # noqa: ANN001
-    return sum(problem.orders.values())
-
-
-def _eigenvalue(problem, systems, states, local, names) -> int | None:  # noqa: ANN001
-    """An eigenvalue problem: linear checks, and the normalisation as an added state."""
-    if problem.eigenvalue is None:
-        return None
-    lam = names.p[sp.Symbol(problem.eigenvalue)]
-    users = _users(problem)
-    for system in systems:
-        with budget("checking that the eigenvalue problem is linear"):
-            _check_linear(system[:users], local[:users], lam, problem)
-    values = [local[i] for i, (_, order) in enumerate(states[:users]) if order == 0]
-    states.append(("integral of the squares (normalisation)", 0))
-    for system in systems:
-        system.append(sum(v**2 for v in values))
-    return len(states) - 1
-
-
-def _given_conditions(problem, user_states, integrals, value, names) -> list:  # noqa: ANN001
+def _given_conditions(work: Reduction) -> list:
     """The user's conditions with point values (and integrals) as point-value symbols."""
-    last = len(problem.points) - 1
+    problem, names = work.problem, work.names
     result = []
     for c in problem.conditions:
-        swap: dict = {g: value(i, last, -1) for g, i in integrals.items()}
+        swap: dict = dict(work.substitutions)
         for pv in problem.point_values(c):
             j = problem.which_point(pv.point)
-            swap[pv.node] = value(user_states.index((pv.name, pv.order)), j, pv.side)
+            swap[pv.node] = work.value(work.user_states.index((pv.name, pv.order)), j, pv.side)
         swap.update({s: names.k.get(s, names.p.get(s)) for s in c.free_symbols if s in names.k or s in names.p})
-        condition = c.xreplace(swap)
-        _check_eigen_condition(problem, condition, names)
-        result.append(condition)
+        result.append(c.xreplace(swap))
     return result
 
 
-def _phase(problem, system, local, value, names) -> sp.Expr:  # noqa: ANN001
-    """``u'(a) = 0`` for the first unknown: the derivative of the first state at the left end."""
-    a = problem.points[0].xreplace(names.region(0))
-    swap = {local[i]: value(i, 0, 1) for i in range(len(system))}
-    swap[_PHYSICAL] = a
-    return system[0].xreplace(swap)
-
-
-#: The largest power ``d`` of a stretch ``x - a = xi**d`` (halves, thirds and sixths of
-#: exponents are common; beyond, the stretched map crowds the mesh at one end too much).
-_MAX_STRETCH = 6
-
-
-def _stretch(problem, systems, points, parameters: set):  # noqa: ANN001, ANN202
-    """Fractional powers of ``x - a`` at the finite left end ``a`` removed by ``x - a = xi**d``.
-
-    ``1/sqrt(x)``, ``sqrt(x)`` and ``x**(3/2)`` at ``a = 0`` make the equations singular (or
-    the solution not smooth) there; with ``x = a + xi**d``, ``d`` the least common
-    denominator of the exponents (times the order of their bases at ``a``), every such power
-    is a whole power of ``xi``, and ``dY/dxi = d xi**(d-1) F(a + xi**d, Y)``: the Jacobian
-    factor absorbs a ``1/sqrt`` (Thomas-Fermi's ``y'' = y**(3/2)/sqrt(x)`` becomes regular).
-    The states stay derivatives in ``x``, so conditions and outputs are unchanged.
-
-    Returns ``(d, points)``: ``d`` (1 when nothing is stretched) and the ends for the
-    singular split and the map, in ``xi`` for a stretched problem (``0`` and
-    ``(b - a)**(1/d)``); ``systems[0]`` is rewritten in ``xi`` in place. Only a single region
-    with a fixed (not unknown) left end is stretched.
-    """
-    a = points[0]
-    if len(systems) != 1 or a in (sp.oo, -sp.oo) or a.free_symbols & parameters:
-        return 1, points
-    z = sp.Dummy("z", positive=True)
-    power = 1
-    for f in systems[0]:
-        shifted = f.xreplace({_PHYSICAL: a + z})
-        for base, exponent in (q.as_base_exp() for q in shifted.atoms(sp.Pow)):
-            if not (exponent.is_Rational and not exponent.is_Integer and base.has(z)):
-                continue
-            try:
-                lead = sp.Poly(base.as_leading_term(z).as_independent(z)[1], z)
-                order = sp.Integer(lead.monoms()[0][0]) if lead.is_monomial else None
-            except (sp.PolynomialError, ValueError, TypeError, NotImplementedError):
-                order = None
-            if order is None or order == 0:
-                continue
-            power = int(sp.ilcm(power, sp.Rational(order * exponent).q))
-    if power == 1:
-        return 1, points
-    if power > _MAX_STRETCH:
-        raise ProblemError(
-            f"the equations hold powers of {problem.independent} - {a} with exponents that need a stretch "
-            f"{problem.independent} - {a} = xi**{power} (at most {_MAX_STRETCH} is done): write them with "
-            "simpler exponents"
-        )
-    xi = sp.Dummy("xi", positive=True)
-    stretched = [power * xi ** (power - 1) * f.xreplace({_PHYSICAL: a + xi**power}) for f in systems[0]]
-    systems[0][:] = [f.xreplace({xi: _PHYSICAL}) for f in stretched]
-    b = points[-1]
-    return power, (sp.Integer(0), b if b in (sp.oo, -sp.oo) else (b - a) ** sp.Rational(1, power))
-
-
-def _singular(problem, systems, points, local, n: int, parameters: set):  # noqa: ANN001, ANN202
-    """Split ``S s / (x - a)`` off the first region's equations, singular at the left end ``a``.
-
-    Returns ``(S, regular right-hand sides of the first region)`` or None. A term singular at
-    any other end or interface, or not of this form, is refused by name.
-    """
-    name = problem.independent
-    last = len(points) - 1
-    for r, system in enumerate(systems):
-        for j, end in ((r, points[r]), (r + 1, points[r + 1])):
-            if j == 0 or end in (sp.oo, -sp.oo):
-                continue
-            if any(_blows_up(f.xreplace({_PHYSICAL: end})) for f in system):
-                where = "the right end" if j == last else "an interface"
-                raise ProblemError(
-                    f"the equations are singular at {where} {name} = {end}: bvpkit treats singular terms at the "
-                    f"left end only{'; reverse the direction of ' + name if j == last else ''}"
-                )
-    a = points[0]
-    first = systems[0]
-    if a in (sp.oo, -sp.oo):
-        return None
-    rows = [i for i, f in enumerate(first) if _blows_up(f.xreplace({_PHYSICAL: a}))]
-    if not rows:
-        return None
-    if a.free_symbols & parameters:
-        raise ProblemError(
-            f"the equations are singular at the left end {name} = {a}, which is an unknown parameter; this "
-            "combination is not supported (a singular end must be fixed)"
-        )
-    S = [[sp.Integer(0)] * n for _ in range(n)]
-    regular = list(first)
-    s = local[:n]
-    for i in rows:
-        g = sp.cancel(sp.together((_PHYSICAL - a) * first[i]))
-        for j in range(n):
-            entry = sp.simplify(sp.diff(g, s[j]).xreplace({_PHYSICAL: a}))
-            if entry.has(*s) or _blows_up(entry):
-                raise ProblemError(
-                    f"the singular coefficient {sp.sstr(entry)} at {name} = {a} is not of the form S y/({name} - a)"
-                )
-            S[i][j] = entry
-        rest = sp.cancel(sp.together(first[i] - sum(S[i][j] * s[j] for j in range(n)) / (_PHYSICAL - a)))
-        if _blows_up(rest.xreplace({_PHYSICAL: a})):
-            raise ProblemError(
-                f"the term {sp.sstr(first[i])} is singular at {name} = {a} in a way bvpkit cannot treat (only "
-                f"terms S y/({name} - a) are, e.g. (2/{name})*y')"
-            )
-        regular[i] = rest
-    return S, regular
-
-
-def _map(points, names) -> list:  # noqa: ANN001
-    """Per region ``(c_r, h_r)``: ``x = c_r + h_r t`` maps ``t`` in ``[0, 1]`` onto the region."""
-    length = sp.Symbol(f"_k{names.constants.index(LENGTH)}", real=True) if LENGTH in names.constants else None
+def _map(ends: tuple) -> list:
+    """Per region ``(c_r, h_r)``: ``x = c_r + h_r t`` maps ``t`` in ``[0, 1]`` onto the region
+    (None where an end is infinite: :mod:`bvpkit.reduce.infinite` places it)."""
     maps = []
-    last = len(points) - 1
-    for r in range(last):
-        left, right = points[r], points[r + 1]
-        left_inf, right_inf = left in (sp.oo, -sp.oo), right in (sp.oo, -sp.oo)
-        if left_inf and right_inf:
-            maps.append((-length, 2 * length))
-        elif right_inf:
-            maps.append((left, length))
-        elif left_inf:
-            maps.append((right - length, length))
-        else:
-            maps.append((left, right - left))
+    for left, right in zip(ends[:-1], ends[1:]):
+        finite = left not in (sp.oo, -sp.oo) and right not in (sp.oo, -sp.oo)
+        maps.append((left, right - left) if finite else None)
     return maps
 
 
@@ -608,38 +513,6 @@ def _as_written(e: sp.Expr, problem) -> str:  # noqa: ANN001
     for f in e.atoms(AppliedUndef):
         swap[f] = sp.Symbol(f.func.__name__)
     return sp.sstr(e.xreplace(swap))
-
-
-def _check_linear(rhs, s, lam, problem) -> None:  # noqa: ANN001
-    """An eigenvalue problem must be linear and homogeneous, and linear in the eigenvalue."""
-    name = problem.eigenvalue
-    jac = sp.Matrix(rhs).jacobian(list(s))
-    if any(jac.has(v) for v in s) or any(sp.simplify(r.xreplace({v: 0 for v in s})) != 0 for r in rhs):
-        raise ProblemError(
-            f"eigenvalue '{name}': the equations must be linear and homogeneous in the unknown "
-            "functions (no terms without them, no products of them)"
-        )
-    if any(sp.simplify(sp.diff(entry, lam, 2)) != 0 for entry in jac):
-        raise ProblemError(
-            f"eigenvalue '{name}': the equations are not linear in the eigenvalue once solved for the highest "
-            f"derivatives; write them so that it multiplies the functions, e.g. y'' + {name}*y = 0"
-        )
-
-
-def _check_eigen_condition(problem, condition: sp.Expr, names) -> None:  # noqa: ANN001
-    if problem.eigenvalue is None:
-        return
-    name = problem.eigenvalue
-    lam = names.p[sp.Symbol(name)]
-    ends = [s for s in condition.free_symbols if s.name.startswith("_v")]
-    if sp.diff(condition, lam, 2) != 0:
-        raise ProblemError(f"eigenvalue '{name}': the boundary conditions are not linear in it")
-    zero = condition.xreplace({s: 0 for s in ends})
-    if sp.simplify(zero) != 0 or any(sp.diff(condition, s, 2) != 0 for s in ends):
-        raise ProblemError(
-            f"eigenvalue '{name}': the conditions must be linear and homogeneous (= 0); bvpkit adds the "
-            "normalisation itself"
-        )
 
 
 def _blows_up(e: sp.Expr) -> bool:

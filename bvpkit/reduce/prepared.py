@@ -17,7 +17,7 @@ the bvpkit code (``compiled.code_stamp``). A cache file is written atomically an
 SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
 a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
 from other code is ignored and rewritten. Generated functions travel as programs (plain
-data, :mod:`bvpkit.generated.program`), never as code: they are printed and checked afresh when built.
+data, :mod:`bvpkit.programs.program`), never as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations
@@ -25,7 +25,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -33,7 +32,11 @@ from typing import Any
 
 import numpy as np
 
-from ..generated.compiled import (
+from ..errors import BvpkitError, OptionError, ProblemError, ProgramError, closest
+from ..language.budget import budget, step_seconds
+from ..language.options import SolveOptions
+from ..language.problem import Problem, _numbers, check_positions
+from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
     _cache_dir,
@@ -44,13 +47,13 @@ from ..generated.compiled import (
     read_json,
     write_json,
 )
-from ..errors import BvpkitError, OptionError, ProblemError, closest
+from ..programs.layout import StateLayout
+from . import classes  # noqa: F401 - registers the problem classes, for reading them back
+from .features import locate, terms
 from .guess import GuessRecipe
-from ..generated.layout import LENGTH, StateLayout
+from .mapping import positions
 from .quantity import Quantity
-
-#: First placement of an infinite end, measured from the finite one (the driver moves it out).
-DEFAULT_TRUNCATION = 10.0
+from .transform import Transform
 
 
 @dataclass(frozen=True)
@@ -66,7 +69,7 @@ class Prepared:
         (region values of constants), ``key``.
     layout : StateLayout
     system : dict
-        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.generated.program`),
+        The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.programs.program`),
         Jacobian ``pattern``, condition ``sides``, and ``features``: the terms in the independent
         variable alone that can make narrow features, compiled (:func:`bvpkit.reduce.features.terms`;
         None when there are none).
@@ -78,6 +81,9 @@ class Prepared:
     parameters : dict of str to float
         Guesses of the unknown parameters (the eigenvalue's is 0: it comes from a
         discretised eigenproblem).
+    transforms : tuple of Transform
+        The problem's classes (:mod:`bvpkit.reduce.transform`): the driver, continuation and
+        settling call their hooks.
     """
 
     facts: dict
@@ -87,6 +93,7 @@ class Prepared:
     quantities: dict
     constants: dict
     parameters: dict = field(default_factory=dict)
+    transforms: tuple = ()
 
     # -- what the numerical side asks -------------------------------------------------------
     @property
@@ -114,25 +121,37 @@ class Prepared:
         return dict(self.facts["settings"])
 
     @property
-    def infinite(self) -> tuple[bool, bool]:
-        return self.layout.infinite
+    def options(self) -> SolveOptions:
+        """The solver's settings of the problem (a spec's ``[solver]``), as typed options."""
+        return SolveOptions.make(self.facts["settings"])
+
+    @property
+    def truncated(self) -> bool:
+        """Whether the domain solved on is a truncation of the problem's (an infinite end)."""
+        ends = [0.0, 1.0]
+        for t in self.transforms:
+            ends = t.ends(ends)
+        return ends != [0.0, 1.0]
+
+    @property
+    def needs(self) -> frozenset[str]:
+        """What a method must take to solve this problem (its classes' needs)."""
+        return frozenset().union(*(t.needs for t in self.transforms))
 
     @property
     def orders(self) -> dict[str, int]:
         return dict(self.layout.functions)
 
-    def k(self, length: float | None = None) -> np.ndarray:
-        """The constants' values in the order of the compiled ``k`` (the truncation length of an
-        infinite end ``length``, default :data:`DEFAULT_TRUNCATION`)."""
-        own = self.facts["own"]
+    def k(self, options: Any = None) -> np.ndarray:
+        """The constants' values in the order of the compiled ``k``: the problem's, each
+        region's own, and those the classes add for the solve's ``options`` (their defaults
+        when None)."""
+        own = {**self.facts["own"]}
+        for t in self.transforms:
+            own.update(t.constants(options))
         values = []
         for name in self.layout.constants:
-            if name == LENGTH:
-                values.append(DEFAULT_TRUNCATION if length is None else float(length))
-            elif name in own:
-                values.append(own[name])
-            else:
-                values.append(self.constants[name])
+            values.append(own[name] if name in own else self.constants[name])
         return np.array(values, dtype=float)
 
     def p0(self) -> np.ndarray:
@@ -141,15 +160,12 @@ class Prepared:
     def features(self, p: np.ndarray, k: np.ndarray) -> tuple:
         """The narrow features and corners of the equations' terms in the independent variable
         alone at these values (:func:`bvpkit.reduce.features.locate`; empty when there are none)."""
-        from .features import locate
-
         return locate(self.system.get("features"), p, k)
 
     # -- new values --------------------------------------------------------------------------
     def with_constants(self, **values: float) -> Prepared:
         """The same problem with other values of some constants (no new code); checked like
         values in the file."""
-        from ..language.problem import _numbers
 
         missing = [k for k in values if k not in self.constants]
         if missing:
@@ -162,8 +178,6 @@ class Prepared:
 
     def with_parameters(self, **values: float) -> Prepared:
         """The same problem with other guesses of its unknown parameters."""
-        from ..language.problem import _numbers
-
         missing = [k for k in values if k not in self.parameters]
         if missing:
             raise OptionError(f"'{missing[0]}' is not an unknown parameter{closest(missing[0], self.parameters)}")
@@ -172,25 +186,20 @@ class Prepared:
 
     def check(self, p: np.ndarray | None = None, k: np.ndarray | None = None) -> None:
         """Ends and interfaces in order and finite for these values (the one check of values)."""
-        from .guess import positions
-        from ..language.problem import check_positions
-
         with np.errstate(all="ignore"):
             maps = np.asarray(self.compiled.maps(self.p0() if p is None else p, self.k() if k is None else k), float)
-        values = positions(maps)
-        if self.infinite[0]:
-            values[0] = -math.inf
-        if self.infinite[1]:
-            values[-1] = math.inf
-        check_positions(list(values), self.facts["points"], self.independent)
+        values = list(positions(maps))
+        for t in self.transforms:
+            values = t.ends(values)
+        check_positions(values, self.facts["points"], self.independent)
 
     # -- expressions -------------------------------------------------------------------------
     def quantity(self, text: str) -> Quantity:
         """An expression of the solution, compiled (from the preparation, or now, with SymPy)."""
         found = self.quantities.get(text) or _QUANTITIES.get((self.facts["key"], text))
         if found is None:
-            from .quantity import compile_quantity
             from .form import standard_form
+            from .quantity import compile_quantity
 
             problem = self.problem()
             found = compile_quantity(problem, standard_form(problem), text)
@@ -201,8 +210,8 @@ class Prepared:
 
     def recipe(self, name: str, expression: Any) -> GuessRecipe:
         """A guess expression for ``name`` given at solve time, as a recipe (SymPy's work)."""
-        from .guess import expression_recipe
         from .form import standard_form
+        from .guess import expression_recipe
 
         problem = self.problem()
         parsed = problem._guesses({name: expression})[name]
@@ -212,7 +221,6 @@ class Prepared:
         """The symbolic problem (rebuilt from its arguments on first need, with SymPy)."""
         found = _PROBLEMS.get(self.facts["key"])
         if found is None:
-            from ..language.problem import Problem
 
             arguments = dict(self.facts["arguments"])
             found = Problem(**arguments)
@@ -224,7 +232,8 @@ class Prepared:
         return {"facts": self.facts, "layout": self.layout.as_dict(), "system": self.system,
                 "recipes": {k: r.plain() for k, r in self.recipes.items()},
                 "quantities": {k: q.plain() for k, q in self.quantities.items()},
-                "constants": self.constants, "parameters": self.parameters}
+                "constants": self.constants, "parameters": self.parameters,
+                "transforms": [t.plain() for t in self.transforms]}
 
     @classmethod
     def from_plain(cls, data: Mapping[str, Any]) -> Prepared:
@@ -236,6 +245,7 @@ class Prepared:
             quantities={k: Quantity.from_plain(q) for k, q in data["quantities"].items()},
             constants={k: float(v) for k, v in data["constants"].items()},
             parameters={k: float(v) for k, v in data["parameters"].items()},
+            transforms=tuple(Transform.from_plain(t) for t in data["transforms"]),
         )
 
     def __repr__(self) -> str:
@@ -253,7 +263,6 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
     ``bvpkit.solve``, ``trace`` and ``sweep`` call it; call it yourself to solve many
     variations of one problem without touching SymPy again (``prepared.with_constants``).
     """
-    from ..language.problem import Problem
 
     if isinstance(problem, Prepared):
         return problem
@@ -291,10 +300,10 @@ def _plain_arguments(problem) -> dict[str, Any]:  # noqa: ANN001
 
 
 def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
-    from ..generated.codegen import compile_system
+    from ..programs.codegen import compile_system
+    from .form import standard_form
     from .guess import guess_recipes
     from .quantity import compile_quantity
-    from .form import standard_form
 
     form = standard_form(problem)
     compiled = compile_system(form)
@@ -307,16 +316,12 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
               "sides": compiled.bc_sides.tolist(), "features": _feature_terms(form)}
     quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
     return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,
-                    dict(problem.constants), _parameters(problem))
+                    dict(problem.constants), _parameters(problem), form.transforms)
 
 
 def _feature_terms(form) -> dict | None:  # noqa: ANN001
     """The terms that can make narrow features (:func:`bvpkit.reduce.features.terms`), or None: a
     hint for the first mesh, never a reason to refuse a problem."""
-    from ..errors import ProgramError
-    from ..language.budget import budget, step_seconds
-    from .features import terms
-
     try:
         with budget("looking for narrow features of the equations", seconds=min(2.0, step_seconds()),
                     advice="simplify the terms in the independent variable alone"):

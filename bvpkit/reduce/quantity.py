@@ -29,7 +29,7 @@ class Quantity:
     Attributes
     ----------
     program : dict
-        The generated function ``quantity(x, y, p, k, t)`` as plain data (:mod:`bvpkit.generated.program`);
+        The generated function ``quantity(x, y, p, k, t)`` as plain data (:mod:`bvpkit.programs.program`);
         ``y`` holds the user states of a region, then the highest derivative of each function.
     points : list of (float or dict, int, int, int)
         ``(point, state, order, side)`` per point value: the point a number (``inf`` for an
@@ -63,9 +63,8 @@ def input_symbols(form) -> tuple:  # noqa: ANN001 - a StandardForm
 
 def compile_quantity(problem, form, text: str, parsed: Any = None) -> Quantity:  # noqa: ANN001
     """Compile an expression of the solution of ``problem`` (with standard form ``form``)."""
-    from ..generated.codegen import compile_expressions
     from ..language.expr import DomainIntegral
-    from .form import X
+    from ..programs.codegen import X, compile_expressions
 
     e = parsed if parsed is not None else problem.parse_quantity(text, where=f"expression '{text}'")
     y = input_symbols(form)

@@ -34,6 +34,9 @@ from typing import Any
 import numpy as np
 
 from ..methods.base import Outcome, Trial
+from ..methods.collocation import Collocation
+from ..methods.diagnostics import hermite
+from ..reduce import guess as _guess
 from ..status import Status
 
 #: Tolerance of the solves along a path: they start Newton's method at the next value, so a
@@ -91,7 +94,6 @@ class Path:
 @dataclass
 class Facts:
     """What the symbolic problem says about the paths it allows (worked out once per problem)."""
-
     small: dict  # user constant -> value, for small constants multiplying a highest derivative
     far_field: bool  # a condition at the right end on derivatives only, or an infinite end
     reach: bool  # a single region with a fixed finite left end: the domain can grow
@@ -135,7 +137,10 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
                     small[symbol.name] = float(value)
     right = set(form.yb)
     value_rows = {i for i, (_, order) in enumerate(form.states) if order == 0}
-    far = bool(form.infinite[1])
+    ends = [0.0, 1.0]
+    for transform in prepared.transforms:
+        ends = transform.ends(ends)
+    far = math.isinf(ends[-1])
     for c in form.conditions:
         used = c.free_symbols & right
         if used and not any(form.yb[i] in used for i in value_rows) and not c.free_symbols & set(form.ya):
@@ -156,7 +161,7 @@ def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN
             return [_small_path(named, value)]
         return [Path(named, 0.0, value, False, f"{named} continued from 0 to {value:g}")]
     result = [_small_path(name, value) for name, value in found.small.items()]
-    if found.nonlinear and trial.compiled.layout.eigenvalue is None:
+    if found.nonlinear:
         result.append(Path("_homotopy", 0.0, 1.0, False, "the nonlinear terms scaled by s from 0 to 1",
                            own=True))
     if found.far_field and found.reach:
@@ -186,7 +191,7 @@ def _system(prepared):  # noqa: ANN001, ANN202
     key = prepared.layout.key
     found = _SYSTEMS.get(key)
     if found is None:
-        from ..generated.codegen import compile_system
+        from ..programs.codegen import compile_system
         from ..reduce.form import path_form, standard_form
 
         found = compile_system(path_form(standard_form(prepared.problem())))
@@ -217,7 +222,6 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     """The solution of the problem with its nonlinear terms linearised about a constant state
     (the path form at ``s = 0``) on ``trial``'s mesh, or None: a start inside the domain of
     the equations when the default guess is not."""
-    from ..methods.collocation import Collocation
 
     system = _system(prepared)
     anchor = _anchors(system, trial, trial.k)
@@ -227,20 +231,19 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     result = Collocation().solve(dataclasses.replace(trial, compiled=system, k=k, verify=False))
     if not result.ok:
         return None
-    from ..methods.diagnostics import hermite
 
     return hermite(system, result.x, result.y, result.p, k)(trial.x)
 
 
 # -- following a path ----------------------------------------------------------------------
-def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: ANN001
-    """Follow ``path`` to the user's problem and solve it from there.
+def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str]:  # noqa: ANN001
+    """Follow ``path`` to the user's problem and solve it from there (a turn on the way taken
+    by ``trace``, the path follower, when one is given).
 
     Returns the outcome of the final solve (collocation at ``trial.tol``, with its estimate;
     a failure says where the path stopped) and how it got there, in words (the problems
     solved on the way, a turn taken by pseudo-arclength).
     """
-    from ..methods.collocation import Collocation
 
     method = Collocation()
     if path.own:
@@ -285,7 +288,7 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: 
             continue
         step *= _SHRINK
         if step < _MIN_FRACTION:
-            turned = _around(prepared, path, trial, system, at, value)
+            turned = _around(prepared, path, trial, system, at, value, trace)
             if turned is None:
                 # the last step's own failure says most (a layer the mesh limit cannot resolve)
                 stopped = _stopped(trial, f"the path stopped at {_shown(path, value)}: shorter and shorter "
@@ -303,8 +306,6 @@ def follow(prepared, path: Path, trial: Trial) -> tuple[Outcome, str]:  # noqa: 
 
 def _fresh(prepared, system, trial: Trial, k: np.ndarray):  # noqa: ANN001, ANN202
     """The default guess for the first problem of a path (its own domain, for a grown one)."""
-    from ..reduce import guess as _guess
-
     if system is trial.compiled:
         return trial.x, trial.y, trial.p
     try:
@@ -329,7 +330,6 @@ def _predict(system, last: Outcome, previous, value: float, target: float, path:
     """A secant prediction of the solution at ``target`` from the last two, on the last mesh."""
     if previous is None or path.geometric and path.name == "_reach":
         return last.x, last.y, last.p
-    from ..methods.diagnostics import hermite
 
     before, where = previous
     span = value - where
@@ -348,13 +348,12 @@ def _predict(system, last: Outcome, previous, value: float, target: float, path:
     return last.x, y, p
 
 
-def _around(prepared, path: Path, trial: Trial, system, at, value: float) -> Outcome | None:  # noqa: ANN001
-    """The path around a turn, by pseudo-arclength continuation (``trace``) from its start;
-    the solution at its end, or None."""
-    if any(trial.compiled.layout.infinite) or trial.out_of_time():
+def _around(prepared, path: Path, trial: Trial, system, at, value: float,  # noqa: ANN001
+            trace=None) -> Outcome | None:  # noqa: ANN001
+    """The path around a turn, by pseudo-arclength continuation (``trace``, the path follower
+    the selector was given) from its start; the solution at its end, or None."""
+    if trace is None or prepared.truncated or trial.out_of_time():
         return None
-    from ..families.continuation import trace
-
     traced = _traceable(prepared, path, system, trial, at)
     try:
         branch = trace(traced, path.name, start=path.start, stop=path.stop, method="collocation",
@@ -379,8 +378,9 @@ def _traceable(prepared, path: Path, system, trial: Trial, at):  # noqa: ANN001,
         return dataclasses.replace(prepared, facts=facts_)
     k = at(path.start)
     names = system.layout.constants
+    own = {name for transform in prepared.transforms for name in transform.constants(None)}  # the classes' own
     constants = {**prepared.constants, **{name: float(k[i]) for i, name in enumerate(names)
-                                         if name.startswith("_") and name != "_length"}}
+                                         if name.startswith("_") and name not in own}}
     plain = {"programs": list(system.programs), "pattern": system.jac_pattern.tolist(),
              "sides": system.bc_sides.tolist()}
     return dataclasses.replace(prepared, facts=facts_, layout=system.layout, system=plain,
@@ -401,17 +401,17 @@ def _stopped(trial: Trial, why: str) -> Outcome:
 
 
 # -- a value with no solution near it -------------------------------------------------------
-def no_solution(prepared, trial: Trial) -> str:  # noqa: ANN001
+def no_solution(prepared, trial: Trial, trace=None) -> str:  # noqa: ANN001
     """Words saying that the problem may have no solution at the constants' values, from a
     fold seen along a quick trace of a constant towards its value ('' when none is seen).
 
     Each constant that the equations depend on along the guess (not a small constant of the
     highest derivative: there a failure is a layer) is traced from ``_PROBE_FROM`` of its
     value towards it; a fold passed on the way, with the trace never reaching the value,
-    says that the solutions turn back before it.
+    says that the solutions turn back before it. Nothing is said without ``trace``.
     """
-    from ..families.continuation import trace
-
+    if trace is None:
+        return ""
     found = facts(prepared)
     layout = trial.compiled.layout
     with np.errstate(all="ignore"):

@@ -16,11 +16,12 @@ from typing import Any
 import numpy as np
 
 from .._output import json_ready, write_columns
-from ..methods.diagnostics import Diagnostics, hermite
 from ..errors import BvpkitError
-from ..reduce.guess import nudged, physical, positions, rate, standard
-from ..status import Status
 from ..language.units import label, units_of
+from ..methods.diagnostics import Diagnostics, hermite
+from ..programs.compiled import quantity_function
+from ..reduce.mapping import nudged, physical, positions, rate, standard
+from ..status import Status
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -222,7 +223,7 @@ class Solution:
         quantity = self.prepared.quantity(expression)
         value, tail = _integral(self.interpolant, self.prepared, quantity)
         a, b = self.interpolant.ends
-        if any(self.prepared.infinite) and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
+        if self.prepared.truncated and abs(tail) * (b - a) > 1e-6 * max(1.0, abs(value)):
             raise BvpkitError(
                 f"the integrand of '{expression}' is {tail:.3g} at the truncated end "
                 f"{self.independent} = {b:.6g}: the integral over the infinite domain does not converge"
@@ -346,8 +347,6 @@ class Solution:
 
 def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> float | np.ndarray:  # noqa: ANN001
     """A compiled quantity on a solution (see bvpkit.reduce.quantity)."""
-    from ..reduce.guess import _function
-
     values = [_point_value(view, prepared, point) for point in quantity.points]
     values += [_integral(view, prepared, q)[0] for q in quantity.integrals]
     if at is None:
@@ -363,7 +362,7 @@ def _evaluate(view: Interpolant, prepared, quantity, text: str, at: Any) -> floa
             raise BvpkitError("at= must be a number or a 1-D sequence of numbers")
         _check_inside(view, prepared, points)
     r = view.region(points)
-    result = _running(view, quantity, points, r, np.array(values, dtype=float), _function)
+    result = _running(view, quantity, points, r, np.array(values, dtype=float), quantity_function)
     if at is None:
         return float(result[0])
     return result if np.ndim(at) else float(result[0])
@@ -387,12 +386,10 @@ def _running(view: Interpolant, quantity, points: np.ndarray, r: np.ndarray, val
 
 def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
     """The value of one point-value placeholder ``(point, state, order, side)``."""
-    from ..reduce.guess import _function
-
     where, state, order, side = point
     if isinstance(where, dict):  # a point that depends on the constants: its program
         with np.errstate(all="ignore"):
-            where = float(_function(where)(np.zeros(1), view.p, view.k)[0, 0])
+            where = float(quantity_function(where)(np.zeros(1), view.p, view.k)[0, 0])
     a, b = view.ends
     if math.isinf(where):
         where = b if where > 0 else a
@@ -405,8 +402,6 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
 
 def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # noqa: ANN001
     """The integral of a quantity over every region, and the integrand at the far end."""
-    from ..reduce.guess import _function
-
     nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
     values = np.array([_point_value(view, prepared, point) for point in quantity.points]
                       + [_integral(view, prepared, q)[0] for q in quantity.integrals], dtype=float)
@@ -421,9 +416,9 @@ def _integral(view: Interpolant, prepared, quantity) -> tuple[float, float]:  # 
         x = c + scale * s ** view.powers[region]
         r = np.full(x.size, region)
         dx = w * rate(s, scale, view.powers[region])
-        total += float(np.sum(_running(view, quantity, x, r, values, _function) * dx))
+        total += float(np.sum(_running(view, quantity, x, r, values, quantity_function) * dx))
     b = view.ends[1]
-    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, _function)[0])
+    tail = float(_running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, quantity_function)[0])
     return total, tail
 
 
@@ -434,7 +429,7 @@ def _check_inside(view: Interpolant, prepared, points: np.ndarray) -> None:  # n
     slack = 1e-12 * max(1.0, abs(a), abs(b))
     bad = points[~((points >= a - slack) & (points <= b + slack))]
     shown = bad[0] if bad.size else float("nan")
-    note = " (the infinite domain was truncated there)" if any(prepared.infinite) else ""
+    note = " (the infinite domain was truncated there)" if prepared.truncated else ""
     raise BvpkitError(
         f"{prepared.independent} = {shown:g} is outside the solved interval [{a:.6g}, {b:.6g}]{note}"
     )

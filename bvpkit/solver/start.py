@@ -4,8 +4,9 @@ From a previous solution (carried onto the new constants), from expressions the 
 per function, or from the problem's own guess recipes (:mod:`bvpkit.reduce.guess`); a default guess
 that leaves the domain of the equations (``sqrt``, ``log``, fractional powers of the states)
 is lifted to the positive side or replaced by the solution of the linearised problem of
-continuation; an eigenvalue problem starts from the eigenvalue guess. ``solve``, the
-infinite-domain loop and ``solve_at`` (continuation) all start here (:mod:`bvpkit.solver.driver`).
+continuation; then each problem class may start its own way (an eigenvalue problem from
+its eigenvalue guess). ``solve``, the classes' loops around it and ``solve_at``
+(continuation) all start here (:mod:`bvpkit.solver.driver`).
 """
 
 from __future__ import annotations
@@ -15,12 +16,14 @@ from typing import Any
 
 import numpy as np
 
-from ..reduce import guess as _guess
-from . import homotopy
 from ..errors import OptionError, closest
-from ..reduce.features import seeded
+from ..language.options import SolveOptions
 from ..methods.base import Trial
+from ..reduce import guess as _guess
+from ..reduce.features import seeded
+from ..reduce.mapping import Start, carried
 from ..reduce.prepared import Prepared
+from . import homotopy
 from .solution import Solution
 
 
@@ -28,7 +31,7 @@ def check_guess(prepared: Prepared, guess: Any) -> None:
     """Refuse a guess that is neither a mapping of expressions nor a solution with the same states."""
     if guess is None or isinstance(guess, Mapping):
         return
-    if isinstance(guess, Solution | _guess.Start):
+    if isinstance(guess, Solution | Start):
         layout = guess.interpolant.layout if isinstance(guess, Solution) else guess.layout
         if layout.row_names != prepared.layout.row_names:
             raise OptionError(
@@ -40,38 +43,35 @@ def check_guess(prepared: Prepared, guess: Any) -> None:
     )
 
 
-def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions) -> tuple[np.ndarray, np.ndarray,
+                                                                                           np.ndarray]:
     """Mesh, states and parameters to start from: ``guess`` (a solution, carried onto ``k``, or
     expressions per function) over the problem's own recipes, moved into the domain of the
-    equations when needed, and the eigenvalue guess of an eigenvalue problem. The mesh holds
+    equations when needed, then each class's own start (the eigenvalue guess of an
+    eigenvalue problem: :meth:`bvpkit.reduce.transform.Transform.start`). The mesh holds
     points graded into the narrow features of the equations (:mod:`bvpkit.reduce.features`).
 
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled
-    layout = compiled.layout
-    nodes = min(_guess.INITIAL_NODES, chosen["max_nodes"] // 2)
-    if isinstance(guess, Solution | _guess.Start):
+    nodes = min(_guess.INITIAL_NODES, chosen.max_nodes // 2)
+    if isinstance(guess, Solution | Start):
         start = as_start(guess)
         p = start.p.copy()
-        t = seeded(start.t, prepared.features(p, k), chosen["max_nodes"] // 2)
-        return t, _guess.carried(start, compiled, t, p, k), p
+        t = seeded(start.t, prepared.features(p, k), chosen.max_nodes // 2)
+        return t, carried(start, compiled, t, p, k), p
     p = prepared.p0()
-    t = seeded(_guess.initial_mesh(nodes), prepared.features(p, k), chosen["max_nodes"] // 2)
+    t = seeded(_guess.initial_mesh(nodes), prepared.features(p, k), chosen.max_nodes // 2)
     recipes = dict(prepared.recipes)
     for name, expression in (guess or {}).items():
         if name not in recipes:
             raise OptionError(f"guess for '{name}', which is not an unknown function{closest(name, recipes)}")
         recipes[name] = prepared.recipe(name, expression)
     y = _guess.from_recipes(recipes, compiled, t, p, k)
-    if layout.eigenvalue is None and not defined(compiled, t, y, p, k):
+    if not defined(compiled, t, y, p, k):
         own = {n for n, r in recipes.items() if r.kind == "expression"}
         y = _inside(prepared, t, y, p, k, chosen, own=own)
-    if layout.eigenvalue is not None:
-        vectors, lam = _guess.eigen_guess(compiled, t, k, layout.mode)
-        if not guess:
-            y[layout.user_rows] = vectors[layout.user_rows]
-        p[layout.eigenvalue] = lam
-        _guess.fill_integrals(compiled, t, y, p, k)
+    for transform in prepared.transforms:
+        y, p = transform.start(prepared, t, y, p, k, bool(guess))
     return t, y, p
 
 
@@ -82,7 +82,7 @@ def defined(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray
                     and np.isfinite(compiled.jac(t, y, p, k)).all())
 
 
-def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: dict,
+def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, chosen: SolveOptions,
             own: set) -> np.ndarray:
     """A default guess moved into the domain of the equations (``sqrt``, ``log``, fractional
     powers of the states), when the conditions allow it: first lifted to the positive side
@@ -105,8 +105,8 @@ def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: 
         if defined(compiled, t, lifted, p, k):
             return lifted
     try:
-        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen["tol"], 1e-3),
-                                                     chosen["max_nodes"], False))
+        linear = homotopy.linearised(prepared, Trial(compiled, t, y, p, k, max(chosen.tol, 1e-3),
+                                                     chosen.max_nodes, False))
     except Exception:  # noqa: BLE001 - no linearised problem here: the guess as it was
         return y
     if linear is not None and defined(compiled, t, linear, p, k):
@@ -114,9 +114,9 @@ def _inside(prepared: Prepared, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: 
     return y
 
 
-def as_start(guess: Any) -> _guess.Start:
-    """A previous solution (or a start) as a :class:`~bvpkit.reduce.guess.Start`."""
-    if isinstance(guess, _guess.Start):
+def as_start(guess: Any) -> Start:
+    """A previous solution (or a start) as a :class:`~bvpkit.reduce.mapping.Start`."""
+    if isinstance(guess, Start):
         return guess
     view = guess.interpolant
-    return _guess.Start(view.compiled, view.t, view.y, view.p, view.k)
+    return Start(view.compiled, view.t, view.y, view.p, view.k)

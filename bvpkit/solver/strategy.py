@@ -35,16 +35,17 @@ from typing import Any
 import numpy as np
 
 from .. import methods
-from ..methods.diagnostics import Attempt, survey
 from ..errors import OptionError
 from ..methods.base import Outcome, Trial
+from ..methods.diagnostics import Attempt, hermite, survey
+from ..programs.compiled import NEEDS
 from ..status import Status
+from . import homotopy
 
 
 @dataclass
 class Step:
     """One step of a plan: a method, or continuation along a path into a method."""
-
     name: str  # the method's registry name, or "continuation"
     reason: str
     weight: float  # its share of the time budget, relative to the steps after it
@@ -57,7 +58,6 @@ class Step:
 @dataclass
 class Plan:
     """Steps to try in order, each with the reason it is in that place."""
-
     steps: list[Step]
 
     @property
@@ -80,11 +80,15 @@ class Context:
         or the name of a constant to continue in (tried first).
     deadline : float or None
         ``time.perf_counter()`` value by which the whole solve should end.
+    follow : callable or None
+        The path follower (``bvpkit.trace``): continuation takes a turn on its path with it,
+        and the diagnosis of a value with no solution traces with it; None: neither.
     """
 
     prepared: Any = None
     homotopy: str = "auto"
     deadline: float | None = None
+    follow: Any = None
 
 
 CONTINUATION = "continuation"
@@ -109,7 +113,8 @@ _NEWTON_FAILED = (Status.NOT_CONVERGED, Status.MESH_LIMIT, Status.SINGULAR, Stat
 
 def _ordered(trial: Trial) -> list[type]:
     """The registered methods that can take this problem, in the order of their ranks."""
-    return sorted((m for m in methods.REGISTRY.values() if m.takes_singular_term or not trial.compiled.layout.singular),
+    needs = trial.compiled.needs
+    return sorted((m for m in methods.REGISTRY.values() if needs <= m.takes),
                   key=lambda m: m.rank)
 
 
@@ -122,9 +127,9 @@ def _first(candidates: list[type], strength: str) -> type:
 
 def _why(trial: Trial, name: str) -> str:
     """Why the default method goes first, in words read from the survey."""
-    if trial.compiled.layout.singular:
-        return ("the equations hold a term S y/(x - a) singular at the left end, which "
-                f"{name} treats exactly (the methods without it are left out)")
+    if trial.compiled.needs:
+        held = ", ".join(NEEDS.get(n, n) for n in sorted(trial.compiled.needs))
+        return f"the equations hold {held}, which {name} treats exactly (the methods without it are left out)"
     facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
     if not math.isfinite(facts.stiffness):
         return "the Jacobian is not finite along the guess; the most forgiving start"
@@ -150,9 +155,10 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
     """
     if method != "auto":
         chosen = methods.get(method)  # validates the name
-        if trial.compiled.layout.singular and not chosen.takes_singular_term:
+        missing = sorted(trial.compiled.needs - chosen.takes)
+        if missing:
             able = ", ".join(m.name for m in _ordered(trial))
-            raise OptionError(f"method {method!r} cannot take the term S y/(x - a) singular at the left end of "
+            raise OptionError(f"method {method!r} cannot take {', '.join(NEEDS.get(n, n) for n in missing)} of "
                               f"this problem; use {able} or auto")
         return Plan([Step(method, "asked for by name", 1.0)])
     context = context or Context()
@@ -325,8 +331,6 @@ def _nonlinear(trial: Trial) -> bool:
 
 def _paths(context: Context, trial: Trial):  # noqa: ANN202
     """The paths of continuation the problem allows, or why there are none (a str)."""
-    from . import homotopy
-
     named = context.homotopy if context.homotopy not in ("auto", "off") else None
     try:
         paths = homotopy.paths(context.prepared, named, trial)
@@ -337,14 +341,12 @@ def _paths(context: Context, trial: Trial):  # noqa: ANN202
 
 def _follow(context: Context, trial: Trial, step: Step, paths: list) -> tuple[Outcome, str]:
     """Continuation along ``paths`` in turn, within this step's share."""
-    from . import homotopy
-
     tried = []
     failed = None
     for path in paths:
         if trial.out_of_time():
             break
-        result, how = homotopy.follow(context.prepared, path, trial)
+        result, how = homotopy.follow(context.prepared, path, trial, context.follow)
         result.method = result.method or "collocation"
         if result.ok:
             result.message = f"continued from an easier problem ({path.words}, {how}): {result.message}"
@@ -371,10 +373,9 @@ def _no_path(trial: Trial, why: str) -> Outcome:
 
 
 def _no_solution(context: Context, trial: Trial) -> str:
-    from . import homotopy
-
     try:
-        return homotopy.no_solution(context.prepared, dataclasses.replace(trial, deadline=context.deadline))
+        return homotopy.no_solution(context.prepared, dataclasses.replace(trial, deadline=context.deadline),
+                                    context.follow)
     except Exception:  # noqa: BLE001 - a diagnosis that cannot run says nothing
         return ""
 
@@ -409,7 +410,6 @@ def _disagreement(result: Outcome, converged: list[tuple[str, Outcome]], trial: 
     claim has no better title than the earlier one (seen on an ill-conditioned problem:
     shooting claimed 1e-13 where collocation honestly reported 0.05 and the truth was 10).
     """
-    from ..methods.diagnostics import hermite
 
     for name, other in converged:
         points = other.x

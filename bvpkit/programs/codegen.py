@@ -4,10 +4,10 @@ Each generated function evaluates over a whole mesh at once: states ``y`` have s
 ``(n, m)`` (SciPy's layout) or ``(n,)`` for a single point, and the output follows.
 Common subexpressions are eliminated across a function's entries.
 
-What this module produces is a *program* (:mod:`bvpkit.generated.program`): the function as plain
+What this module produces is a *program* (:mod:`bvpkit.programs.program`): the function as plain
 data, trees of numbers, internal symbols (``_x``, ``_y0``, ``_p0``, ``_k0``, ``_t0``) and a
 fixed set of operations. Any SymPy node outside that grammar is refused here by name. The
-callables are built from programs by :func:`bvpkit.generated.program.build`, whatever their origin
+callables are built from programs by :func:`bvpkit.programs.program.build`, whatever their origin
 (made just now, or read from a cache), so no stored text is ever executed.
 """
 
@@ -19,8 +19,9 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from . import program as _program
+from ..errors import ProgramError
 from ..language.budget import budget
+from . import program as _program
 from .compiled import (
     _MEMORY,
     CACHE_VARIABLE,
@@ -31,9 +32,10 @@ from .compiled import (
     skipped,
     write_cache,
 )
-from ..errors import ProgramError
 from .program import check_source
-from ..reduce.form import StandardForm, X
+
+#: The method variable t (named _x in generated code, as every method calls it x).
+X = sp.Symbol("_x", real=True)
 
 # names of compiled.py and program.py that code and tests reach through this module
 __all__ = ["CACHE_VARIABLE", "CompiledSystem", "check_source", "compile_expressions", "compile_system",
@@ -91,7 +93,7 @@ def _number(e: sp.Expr) -> int | float:
 
 
 def _tree(e: sp.Basic) -> Any:
-    """The plain tree of a SymPy expression (see :mod:`bvpkit.generated.program`)."""
+    """The plain tree of a SymPy expression (see :mod:`bvpkit.programs.program`)."""
     if e.is_Symbol:
         if not _program.SYMBOL.fullmatch(e.name):
             raise ProgramError(f"generated code cannot hold the name '{e.name}' (not an internal symbol)")
@@ -189,7 +191,7 @@ def _function_program(
     return program
 
 
-def _bc_sides(form: StandardForm) -> np.ndarray:
+def _bc_sides(form) -> np.ndarray:
     sides = []
     ya, yb, p = set(form.ya), set(form.yb), set(form.p)  # once: the loop stays linear in the size
     for e in form.conditions:
@@ -253,7 +255,7 @@ def _derivatives(exprs, symbols) -> dict:  # noqa: ANN001
     return found
 
 
-def _system_programs(form: StandardForm) -> tuple[list[dict[str, Any]], np.ndarray]:
+def _system_programs(form) -> tuple[list[dict[str, Any]], np.ndarray]:
     """Programs of the standard form's callables: ``rhs``, its Jacobians in ``y``, ``p`` and the
     constants ``k`` (continuation frees a constant by reading its column), the conditions and
     their Jacobians, the singular matrix and the region maps."""
@@ -288,12 +290,12 @@ def _system_programs(form: StandardForm) -> tuple[list[dict[str, Any]], np.ndarr
     return programs, pattern
 
 
-def compile_system(form: StandardForm) -> CompiledSystem:
+def compile_system(form) -> CompiledSystem:
     """Generate (or fetch from the in-process or disk cache) the callables of ``form``.
 
     The disk cache (``~/.cache/bvpkit`` or ``$BVPKIT_CACHE_DIR``; ``off`` disables it) is
     keyed by the form's content and the bvpkit code (compiled.code_stamp) and holds
-    programs (plain data), which :func:`bvpkit.generated.program.build` validates, prints and checks
+    programs (plain data), which :func:`bvpkit.programs.program.build` validates, prints and checks
     before anything is compiled, whatever their origin.
     """
     key = form.key()

@@ -11,10 +11,6 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 from typing import Any
 
-#: Name of the constant that holds the truncation length of an infinite end (user names
-#: cannot start with "_").
-LENGTH = "_length"
-
 
 class States:
     """What a region's ``states`` (``(function, derivative order)`` per state) tell."""
@@ -62,12 +58,8 @@ class StateLayout(States):
         ``name@r`` a region's own value of a constant).
     condition_kinds : tuple of str
         Per condition: ``given``, ``continuity``, ``added`` or ``phase``.
-    infinite : (bool, bool)
     singular : bool
         A term ``S Y / t`` singular at ``t = 0`` is part of the equations.
-    eigenvalue : int or None
-        Index in ``parameters`` of the eigenvalue; ``mode`` the mode asked for.
-    phase : bool
     stretch : tuple of int
         Per region, the power ``d`` of its map ``x = c_r + h_r t**d`` (empty: all affine).
     """
@@ -81,11 +73,7 @@ class StateLayout(States):
     parameters: tuple[str, ...]
     constants: tuple[str, ...]
     condition_kinds: tuple[str, ...] = ()
-    infinite: tuple[bool, bool] = (False, False)
     singular: bool = False
-    eigenvalue: int | None = None
-    mode: int | None = None
-    phase: bool = False
     stretch: tuple[int, ...] = ()
 
     @property
@@ -124,6 +112,5 @@ class StateLayout(States):
             fields[name] = tuple((str(a), int(b)) for a, b in fields[name])
         for name in ("parameters", "constants", "condition_kinds"):
             fields[name] = tuple(fields[name])
-        fields["infinite"] = tuple(bool(v) for v in fields["infinite"])
         fields["stretch"] = tuple(int(v) for v in fields.get("stretch", ()))
         return cls(**fields)

@@ -4,8 +4,8 @@ Nothing here imports SymPy: a system whose programs are in the cache (keyed by i
 and the bvpkit code, see code_stamp) is rebuilt from them alone. ``codegen.py`` makes the
 programs in the first place.
 
-A program is the plain data of one generated function (:mod:`bvpkit.generated.program`); callables are
-built from programs by :func:`bvpkit.generated.program.build`, which prints Python source from them
+A program is the plain data of one generated function (:mod:`bvpkit.programs.program`); callables are
+built from programs by :func:`bvpkit.programs.program.build`, which prints Python source from them
 afresh and checks it before compiling. No stored text is ever executed.
 
 Cache files are read only from a folder owned by the user and not writable by group or
@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from .. import __version__
 from ..errors import ProgramError
 from .layout import StateLayout
 from .program import build
@@ -38,6 +39,10 @@ def note(message: str) -> None:
     if message not in _NOTED:
         _NOTED.add(message)
         _LOG.warning(message)
+
+
+#: What each need of a system is, in words (refusals of a method that does not take it).
+NEEDS = {"singular_term": "the term S y/(x - a) singular at the left end"}
 
 
 class CompiledSystem:
@@ -69,7 +74,7 @@ class CompiledSystem:
         solve its Newton steps with a banded LU.
     programs : tuple of dict
         The generated functions as plain data (what the disk cache stores; see
-        :mod:`bvpkit.generated.program`).
+        :mod:`bvpkit.programs.program`).
     """
 
     def __init__(self, layout: StateLayout, functions: dict[str, Callable], pattern: np.ndarray,
@@ -86,6 +91,12 @@ class CompiledSystem:
             self.kjac = functools.partial(self._flat_singular, functions["kjac"])
         else:
             self.rhs, self.jac, self.pjac, self.kjac = (functions[name] for name in ("rhs", "jac", "pjac", "kjac"))
+
+    @property
+    def needs(self) -> frozenset[str]:
+        """What a method must take to solve this system beyond a plain standard form
+        (``"singular_term"``: the term ``S Y / t``); methods declare what they take."""
+        return frozenset({"singular_term"}) if self.layout.singular else frozenset()
 
     def bc_jac(self, ya, yb, p, k):  # noqa: ANN001, ANN201
         f = self._f
@@ -362,7 +373,6 @@ def code_stamp() -> str:
         import hashlib
         import os
 
-        from .. import __version__
 
         folder = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))  # the package
         digest = hashlib.sha256()
@@ -476,7 +486,7 @@ def _expected_shapes(layout: StateLayout, m: int) -> dict[str, list[int]]:
 
 
 def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray, sides: np.ndarray) -> CompiledSystem:
-    """The callables of a standard form's ``programs`` (see :func:`bvpkit.generated.program.build`).
+    """The callables of a standard form's ``programs`` (see :func:`bvpkit.programs.program.build`).
 
     Raises
     ------
@@ -518,8 +528,24 @@ def skipped(key: str, err: ProgramError) -> None:
     note(f"cache entry {_cache_file(key).name} skipped: {err.one_line()}")
 
 
+_QUANTITY_FUNCTIONS: dict[str, Callable] = {}
+
+
+def quantity_function(program: dict) -> Callable:
+    """The callable of a quantity's program, built once per program text."""
+    import json
+
+    key = json.dumps(program, sort_keys=True)
+    function = _QUANTITY_FUNCTIONS.get(key)
+    if function is None:
+        if len(_QUANTITY_FUNCTIONS) > 4_000:
+            _QUANTITY_FUNCTIONS.clear()
+        function = _QUANTITY_FUNCTIONS[key] = build_quantity(program)
+    return function
+
+
 def build_quantity(program: dict) -> Callable:
-    """The ``quantity`` function of ``program`` (see :func:`bvpkit.generated.program.build`),
+    """The ``quantity`` function of ``program`` (see :func:`bvpkit.programs.program.build`),
     carrying the program as ``.program`` (what a cache of quantities stores)."""
     if not isinstance(program, dict) or program.get("name") != "quantity":
         raise ProgramError("a compiled quantity must be a program named 'quantity'")

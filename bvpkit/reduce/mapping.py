@@ -1,0 +1,119 @@
+"""The map between the standard variable and the user's, and solutions carried across maps.
+
+Region ``r`` of a standard form covers ``x = c_r + h_r t**d_r`` for ``t`` in ``[0, 1]``
+(``d_r = 1`` but for a stretched region: :mod:`bvpkit.reduce.stretch`); ``(c_r, h_r)``
+come from the compiled ``maps(p, k)`` (a free end or a truncation length moves them). These
+few functions are the one place that map is written; the map back of a solution
+(:class:`bvpkit.solver.solution.Interpolant`), the first iterate and the classes' loops use
+them. :class:`Start` is a guess as standard-form arrays, and :func:`carried` reads a
+previous solution on another problem's maps (other constants, a longer truncation).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..methods.diagnostics import hermite
+
+
+def positions(maps: np.ndarray) -> np.ndarray:
+    """The ends and interfaces ``(X_0, ..., X_R)`` in the user's variable, from the region
+    maps ``(c_r, h_r)`` (a truncated infinite end where it is placed now)."""
+    return np.concatenate([maps[:, 0], [maps[-1, 0] + maps[-1, 1]]])
+
+
+def physical(t: np.ndarray, maps: np.ndarray, stretch: tuple = ()) -> np.ndarray:
+    """The user's variable of every region at the standard mesh ``t``: ``(regions, len(t))``.
+
+    Region ``r`` covers ``x = c_r + h_r t**d_r`` (``stretch`` holds the powers ``d_r``; empty:
+    all 1, the affine map of most problems)."""
+    t = np.asarray(t, float)[None, :]
+    powers = np.array([stretch[r] if r < len(stretch) else 1 for r in range(maps.shape[0])], float)[:, None]
+    return maps[:, 0:1] + maps[:, 1:2] * (t if not len(stretch) else np.abs(t) ** powers * np.sign(t))
+
+
+def standard(x: np.ndarray, c: np.ndarray, h: np.ndarray, power: np.ndarray | int = 1) -> np.ndarray:
+    """The standard variable ``t`` of points ``x`` of regions with maps ``x = c + h t**power``."""
+    s = (np.asarray(x, float) - c) / h
+    if np.all(np.asarray(power) == 1):
+        return s
+    return np.sign(s) * np.abs(s) ** (1.0 / np.asarray(power, float))
+
+
+#: Where a stretched map's ``dx/dt`` vanishes (``t = 0``), slopes are read this close to it:
+#: ``x - a = h t**d`` is then below 1e-24 h, and the slope's limit is reached to round-off.
+_NEAR_END = 1e-12
+
+
+def nudged(t: np.ndarray, power: np.ndarray | int = 1) -> np.ndarray:
+    """``t`` with the ends of stretched maps (``t = 0``, ``power > 1``) moved to ``_NEAR_END``,
+    where ``dx/dt`` is not zero, so a slope ``(dY/dt) / (dx/dt)`` reads its limit."""
+    t = np.asarray(t, float)
+    return np.where((np.asarray(power) > 1) & (t < _NEAR_END), _NEAR_END, t)
+
+
+def rate(t: np.ndarray, h: np.ndarray, power: np.ndarray | int = 1) -> np.ndarray:
+    """``dx/dt`` of the maps ``x = c + h t**power`` at ``t`` (``h`` for an affine map)."""
+    t = np.asarray(t, float)
+    power = np.asarray(power, float)
+    if np.all(power == 1):
+        return np.broadcast_to(np.asarray(h, float), np.broadcast(t, h).shape).astype(float)
+    return h * power * np.abs(t) ** (power - 1.0)
+
+
+class Start:
+    """A guess given as standard-form arrays (what continuation predicts), used like a Solution.
+
+    Parameters
+    ----------
+    compiled : CompiledSystem
+    t : ndarray, shape (m,)
+        The standard mesh.
+    y : ndarray, shape (n, m)
+    p : ndarray, shape (n_p,)
+    k : ndarray
+        The constants it belongs to (its region maps).
+    """
+
+    def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001
+        self.compiled = compiled
+        self.t, self.y, self.p, self.k = (np.asarray(a, float) for a in (t, y, p, k))
+
+    @property
+    def layout(self):  # noqa: ANN201
+        return self.compiled.layout
+
+
+def carried(start, compiled, t: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
+            hold: bool = False) -> np.ndarray:
+    """The states of a previous solution (or :class:`Start`) on the standard mesh ``t`` of a
+    problem with the same layout but other constants (other region maps).
+
+    Each region's states are read at the same points of the user's variable; beyond the
+    previous solution's own interval (a longer truncation of an infinite domain) they are
+    continued along their slope at the end, or held at their end values (``hold``: for
+    states that decay towards a value the slope would overshoot, out of the domain of a
+    fractional power).
+    """
+    layout = compiled.layout
+    old_maps = np.asarray(compiled.maps(start.p, start.k), float)
+    new_maps = np.asarray(compiled.maps(p, k), float)
+    if np.allclose(old_maps, new_maps, rtol=0, atol=0) and t.size == start.t.size and np.array_equal(t, start.t):
+        return start.y.copy()
+    spline = hermite(start.compiled, start.t, start.y, start.p, start.k)
+    size = layout.region_size
+    y = np.empty((layout.n, t.size))
+    with np.errstate(all="ignore"):
+        slopes = start.compiled.rhs(start.t[[0, -1]], start.y[:, [0, -1]], start.p, start.k)
+    for r in range(layout.regions):
+        rows = slice(r * size, (r + 1) * size)
+        d = layout.power(r)
+        x = new_maps[r, 0] + new_maps[r, 1] * t**d
+        s = standard(x, old_maps[r, 0], old_maps[r, 1], d)
+        values = spline(np.clip(s, 0.0, 1.0))[rows]
+        right, left = s > 1.0, s < 0.0
+        if not hold:
+            values[:, right] += slopes[rows, 1:2] * (s[right] - 1.0)
+            values[:, left] += slopes[rows, 0:1] * s[left]
+        y[rows] = values
+    return y
