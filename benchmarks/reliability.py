@@ -380,7 +380,7 @@ def _methods() -> list[str]:
 
 def run(names: Sequence[str] | None = None, *, quick: bool = False, probes_only: bool = False,
         tols: Sequence[float] | None = None, timeout: float = TIMEOUT, max_nodes: int = MAX_NODES,
-        progress: bool = True) -> tuple[str, list[Run]]:
+        progress: bool = True, level: str = "###") -> tuple[str, list[Run]]:
     """Run the benchmark; returns the report (Markdown) and the runs."""
     if names:
         chosen = [CASES[n] for n in names]
@@ -435,7 +435,7 @@ def run(names: Sequence[str] | None = None, *, quick: bool = False, probes_only:
                     runs.append(run_)
     finally:
         child.close()
-    return report(chosen, refused, runs, methods, timeout, time.perf_counter() - started), runs
+    return report(chosen, refused, runs, methods, timeout, time.perf_counter() - started, level), runs
 
 
 # -- the report -------------------------------------------------------------------------------
@@ -471,7 +471,7 @@ class _Count:
 
 
 def report(chosen: list[Case], refused: list[str], runs: list[Run], methods: list[str], timeout: float,
-           seconds: float) -> str:
+           seconds: float, level: str = "###") -> str:
     import bvpkit
 
     stamp = datetime.datetime.now().strftime("%Y-%m-%d %H:%M")
@@ -485,7 +485,7 @@ def report(chosen: list[Case], refused: list[str], runs: list[Run], methods: lis
         c.timeouts += r.outcome == "timeout"
     total_false = sum(c.false_successes for c in counts.values())
     lines = [
-        f"### Reliability, run of {stamp}",
+        f"{level} Reliability, run of {stamp}",
         "",
         f"bvpkit {bvpkit.__version__}; machine: {machine()}; {timeout:g} s per solve (child process); "
         f"total {seconds / 60:.1f} min.",
@@ -550,7 +550,8 @@ def main(argv: Sequence[str] = ()) -> None:
     unknown = [n for n in args.only or [] if n not in CASES]
     if unknown:
         parser.error(f"unknown problem {unknown[0]!r}; the problems are: {', '.join(CASES)}")
-    text, runs = run(args.only, quick=args.quick, probes_only=args.probes, tols=args.tol, timeout=args.timeout)
+    text, runs = run(args.only, quick=args.quick, probes_only=args.probes, tols=args.tol, timeout=args.timeout,
+                     level="##")
     print(text)
     if args.out:
         from .__main__ import prepend
