@@ -135,4 +135,117 @@ def pellet_sweep(repeats: int = 3) -> str:
     return "\n".join(lines)
 
 
-SECTIONS = [pellet_sweep]
+
+
+# -- issue 25: charts of small problems on one core, against a hand loop of seeded solve_bvp ------
+_FIN_H = (0.2, 1.0, 5.0)  # tip coefficients (1/m) of our own pin fin: 3 slow values
+_FIN_M = np.linspace(1.0, 12.0, 100)  # fin parameter m (1/m): the fast axis
+_BRATU_LAM = np.linspace(0.05, 3.4, 300)
+
+
+def _hand_fin(tol: float) -> list[float]:
+    """theta'' = m^2 theta, theta(0) = 1, theta'(1) + H theta(1) = 0: each point seeded by its neighbour."""
+    out = []
+    for H in _FIN_H:
+        x = np.linspace(0, 1, 11)
+        y = np.vstack([np.ones_like(x), np.zeros_like(x)])
+        for m in _FIN_M:
+            res = solve_bvp(lambda x, y, m=m: np.vstack([y[1], m * m * y[0]]),
+                            lambda a, b, H=H: np.array([a[0] - 1.0, b[1] + H * b[0]]), x, y, tol=tol,
+                            fun_jac=lambda x, y, m=m: np.array([[np.zeros_like(x), np.ones_like(x)],
+                                                                [np.full_like(x, m * m), np.zeros_like(x)]]),
+                            bc_jac=lambda a, b, H=H: (np.array([[1.0, 0.0], [0.0, 0.0]]),
+                                                      np.array([[0.0, 0.0], [H, 1.0]])))
+            if res.success:
+                x, y = res.x, res.y
+            out.append(res.sol(0.0)[1])
+    return out
+
+
+def _hand_bratu(tol: float) -> list[float]:
+    """y'' + lam e^y = 0, y(0) = y(1) = 0, lower branch: each point seeded by its neighbour."""
+    out = []
+    x = np.linspace(0, 1, 11)
+    y = np.zeros((2, x.size))
+    for lam in _BRATU_LAM:
+        res = solve_bvp(lambda x, y, lam=lam: np.vstack([y[1], -lam * np.exp(y[0])]),
+                        lambda a, b: np.array([a[0], b[0]]), x, y, tol=tol,
+                        fun_jac=lambda x, y, lam=lam: np.array([[np.zeros_like(x), np.ones_like(x)],
+                                                                [-lam * np.exp(y[0]), np.zeros_like(x)]]),
+                        bc_jac=lambda a, b: (np.array([[1.0, 0.0], [0.0, 0.0]]), np.array([[0.0, 0.0], [1.0, 0.0]])))
+        if res.success:
+            x, y = res.x, res.y
+        out.append(res.sol(0.0)[1])
+    return out
+
+
+def small_charts(repeats: int = 5, tol: float = 1e-6) -> str:
+    """Targets (issue 25): a 300-point chart of a small linear problem on one core <= 0.3x a hand loop
+    of seeded solve_bvp calls with analytic Jacobians; a nonlinear one <= 0.5x."""
+    import math
+
+    fin = bvpkit.Problem(["T'' = m**2*T"], ["T(0) = 1", "T'(1) + H*T(1) = 0"], (0, 1),
+                         constants={"m": 1.0, "H": 1.0}, outputs={"slope": "T'(0)"})
+    bratu = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.05},
+                           outputs={"slope": "y'(0)"})
+    charts = [
+        ("linear: pin fin, m x H = 100 x 3", fin, {"m": _FIN_M, "H": list(_FIN_H)}, _hand_fin, 0.3,
+         np.array([-m * (math.sinh(m) + H / m * math.cosh(m)) / (math.cosh(m) + H / m * math.sinh(m))
+                   for H in _FIN_H for m in _FIN_M]), "analytic"),
+        ("nonlinear: Bratu, lam = 300 values to 3.4", bratu, {"lam": _BRATU_LAM}, _hand_bratu, 0.5, None,
+         "analytic (lower branch)"),
+    ]
+    lines = ["### Charts of small problems on one core, tol = 1e-6", "",
+             "bvpkit.sweep with workers=1 (this process), each point with its error estimate, against a hand loop "
+             "of solve_bvp calls with analytic Jacobians, each seeded by its neighbour. Medians of alternating runs.",
+             "", "| chart | hand loop (s) | bvpkit.sweep (s) | ratio (target) | points solved together | "
+             "max rel. error hand / bvpkit | largest estimate |", "| --- | --- | --- | --- | --- | --- | --- |"]
+    for name, problem, grid, hand, target, exact, source in charts:
+        prepared = bvpkit.prepare(problem)
+        bvpkit.sweep(prepared, {k: (v[:3] if k != "H" else v[:1]) for k, v in grid.items()}, workers=1)
+        times = {"hand": [], "sweep": []}
+        for _ in range(repeats):
+            start = time.perf_counter()
+            mine = hand(tol)
+            times["hand"].append(time.perf_counter() - start)
+            start = time.perf_counter()
+            result = bvpkit.sweep(prepared, grid, workers=1)
+            times["sweep"].append(time.perf_counter() - start)
+        if exact is None:  # analytic Bratu slope t tanh(t/4), t = sqrt(2 lam) cosh(t/4), lower root
+            from scipy.optimize import brentq
+
+            exact = np.array([(lambda t: t * math.tanh(t / 4))(
+                brentq(lambda t, lam=lam: t - math.sqrt(2 * lam) * math.cosh(t / 4), 1e-9, 4.7987))
+                for lam in _BRATU_LAM])
+        got = np.asarray(result.column("slope"), float)
+        errors = (float(np.max(np.abs(np.asarray(mine) - exact) / np.abs(exact))),
+                  float(np.max(np.abs(got - exact) / np.abs(exact))))
+        together = _counted(prepared, grid)
+        h, s = statistics.median(times["hand"]), statistics.median(times["sweep"])
+        estimates = [row["error_estimate"] for row in result.table if row["success"]]
+        lines.append(f"| {name} | {h:.3f} | {s:.3f} | {s / h:.2f} (<= {target}) | {together} of "
+                     f"{len(result.table)} | {errors[0]:.1e} / {errors[1]:.1e} ({source}) | "
+                     f"{max(estimates):.1e} |")
+    return "\n".join(lines) + "\n"
+
+
+def _counted(prepared, grid) -> int:  # noqa: ANN001
+    """How many points of one more run of the chart the batch settled (counted by wrapping it)."""
+    import bvpkit.families.batched as batched
+
+    original, count = batched.solve_points, [0]
+
+    def counting(*args, **kwargs):  # noqa: ANN002, ANN003, ANN202
+        found = original(*args, **kwargs)
+        count[0] += sum(sol is not None for sol in found)
+        return found
+
+    batched.solve_points = counting
+    try:
+        bvpkit.sweep(prepared, grid, workers=1)
+    finally:
+        batched.solve_points = original
+    return count[0]
+
+
+SECTIONS = [pellet_sweep, small_charts]

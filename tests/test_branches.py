@@ -230,3 +230,39 @@ def test_the_principal_eigenvalue_of_a_coupled_pair():
     sol = bvpkit.solve(p, tol=1e-9)
     exact = -(math.pi / 2) ** 2 + max(np.linalg.eigvalsh(np.array([[-1.0, 1.0], [1.0, -2.0]])))
     assert principal_eigenvalue(sol) == pytest.approx(exact, rel=1e-8)
+
+
+# -- folds met without failed overshoots; a spiral of folds ends the trace ----------------------
+def test_a_trace_round_a_fold_tries_no_step_past_it(monkeypatch):
+    # Bratu: natural steps run up to the fold at lam = 3.513830719 (analytic: the maximum of
+    # lam = 8 (theta / cosh(theta / 4))^2 over theta; digits from memory); every solve the trace asks for converges: the fold is foreseen from the
+    # tangents, or a bounded mesh fails fast and arclength takes over (no solve at a value
+    # with no solution that refines to the global mesh limit)
+    from bvpkit.families import continuation
+
+    asked = []
+    real = continuation.solve_at
+
+    def spy(*args, **kwargs):  # noqa: ANN002, ANN003, ANN202
+        sol = real(*args, **kwargs)
+        asked.append(sol.status.word)
+        return sol
+
+    monkeypatch.setattr(continuation, "solve_at", spy)
+    p = bvpkit.Problem(["y'' + lam*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), constants={"lam": 0.1})
+    branch = bvpkit.trace(p, "lam", start=0.1, stop=5.0, outputs=["y'(0)"], tol=1e-8)
+    assert branch.folds and branch.folds[0].parameter == pytest.approx(3.513830719125162, rel=1e-8)
+    assert asked and "mesh_limit" not in asked, asked
+
+
+def test_the_spiral_of_folds_of_the_sphere_ends_the_trace_by_itself():
+    # Frank-Kamenetskii in a sphere: the branch winds through infinitely many folds towards the
+    # singular solution y = ln(2 / (lam r^2)) at lam = 2 (analytic; Joseph and Lundgren 1973):
+    # the trace stops by itself and says so, with the limit from the folds it saw
+    p = bvpkit.Problem(["y'' + (2/r)*y' + lam*exp(y) = 0"], ["y'(0) = 0", "y(1) = 0"], (0, 1), independent="r",
+                       constants={"lam": 0.1})
+    branch = bvpkit.trace(p, "lam", start=0.1, stop=5.0, outputs=["y(0)"])
+    assert "spirals" in branch.message and len(branch.folds) >= 4, branch.message
+    limit = float(branch.message.split("close in on lam = ")[1].split(" ")[0])
+    assert limit == pytest.approx(2.0, abs=0.01)
+    assert len(branch.parameter) < 200  # ended before the point budget

@@ -189,3 +189,51 @@ def test_hostile_problems_are_answered_within_30_s_and_1_gb(name, tmp_path):
     assert report["seconds"] < SECONDS, report
     assert report["megabytes"] < MEGABYTES, report
     assert "\n" not in report["outcome"] and report["outcome"], report
+
+
+# -- the preparation as a whole, and the continuation's inside the solve's time limit --------
+def _small_chain(n=30):
+    # a small constant multiplying each highest derivative: the continuation's facts look for it
+    return bvpkit.Problem([f"eps*u{i}'' = u{(i + 1) % n} - u{i}" for i in range(n)],
+                          [f"u{i}(0) = 0" for i in range(n)] + [f"u{i}(1) = 1" for i in range(n)], (0, 1),
+                          constants={"eps": 1e-3})
+
+
+def test_the_continuations_facts_differentiate_each_equation_once_not_by_every_unknown(monkeypatch):
+    import sympy as sp
+
+    from bvpkit.solver import homotopy
+
+    prepared = bvpkit.prepare(_small_chain())
+    calls = []
+    diff = sp.diff
+    monkeypatch.setattr(sp, "diff", lambda *args, **kwargs: calls.append(1) or diff(*args, **kwargs))
+    found = homotopy._facts(prepared)
+    assert found.small == {"eps": 1e-3}
+    # once per equation for its highest derivative, and once per state in each row of the
+    # first-order form (60 rows, two states each at most): not 30 x 30 for the first part
+    assert len(calls) <= 30 + 2 * 60
+
+
+def test_the_continuations_preparation_stops_at_the_solves_time_limit(monkeypatch):
+    from bvpkit.solver import homotopy
+
+    prepared = bvpkit.prepare(_small_chain(3))
+    homotopy._FACTS.clear()
+    monkeypatch.setattr(homotopy, "_facts", lambda p: _spin(30))  # symbolic work that would run on
+    with pytest.raises(bvpkit.ProblemError, match="continuation's paths took longer than .* time_limit"):
+        homotopy.facts(prepared, deadline=time.perf_counter() + 0.2)
+
+
+def test_a_preparation_as_a_whole_is_bounded_and_says_how_to_raise_the_bound(monkeypatch):
+    from bvpkit.programs import codegen
+    from bvpkit.reduce import prepared
+
+    monkeypatch.setenv(budget_module.PREPARATION_VARIABLE, "0.3")
+    monkeypatch.setattr(codegen, "_system_programs", lambda form: _spin(30))
+    codegen._MEMORY.clear()
+    prepared._PREPARED.clear()
+    monkeypatch.setenv("BVPKIT_CACHE_DIR", "off")
+    with pytest.raises(bvpkit.ProblemError, match="preparing the problem .* took longer than 0.3 s .*"
+                                                  "BVPKIT_PREPARATION_SECONDS"):
+        bvpkit.prepare(bvpkit.Problem(["y'' = -y*y + x"], ["y(0) = 0", "y(1) = 1"], (0, 1)))

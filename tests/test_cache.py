@@ -6,6 +6,7 @@ import threading
 import pytest
 
 import bvpkit
+from bvpkit.io.specfile import read_spec
 from bvpkit.programs import codegen
 
 
@@ -58,7 +59,7 @@ def test_a_corrupted_cache_file_is_regenerated(cache, damage):
     codegen._MEMORY.clear()
     sol = bvpkit.solve(_problem())
     assert sol.success
-    assert json.loads(path.read_text())["sha256"]  # rewritten whole
+    assert json.loads(path.read_text())["signature"]  # rewritten whole
 
 
 def test_concurrent_writers_leave_one_valid_file(cache):
@@ -78,6 +79,41 @@ def test_cache_can_be_turned_off(tmp_path, monkeypatch):
     codegen._MEMORY.clear()
     assert bvpkit.solve(_problem(2.0)).success
     assert not any(tmp_path.iterdir())
+
+
+# -- keys by exact content: numbers that print alike to 15 digits are different problems ----
+
+def _kink(level):
+    return bvpkit.Problem([f"y'' = 1e15*(max({level}, y) - 1)"], ["y(0) = 0", "y(1) = 0"], (0, 1))
+
+
+@pytest.mark.parametrize("order", [("1.0000000000000049", "1.0"), ("1.0", "1.0000000000000049")])
+def test_numbers_equal_to_fifteen_digits_do_not_share_compiled_code(monkeypatch, order):
+    import sympy as sp
+
+    from bvpkit.reduce import prepared
+
+    monkeypatch.setenv(codegen.CACHE_VARIABLE, "off")
+    codegen._MEMORY.clear()
+    prepared._PREPARED.clear()
+    found = {}
+    for level in order:
+        sol = bvpkit.solve(_kink(level))
+        found[level] = sol
+    # analytic: with level 1.0, y'' = 0 wherever y < 1 and both ends are 0, so y = 0
+    assert found["1.0"].success
+    assert abs(found["1.0"].evaluate("y", 0.5)) < 1e-12
+    # with level 1 + 22*2**-52, y'' is a positive constant below the level: y(1/2) < 0
+    # (analytic: y = c x (x - 1)/2 with c = 1e15*(level - 1) > 0, as rounded by the code)
+    assert found["1.0000000000000049"].evaluate("y", 0.5) < -0.5
+    # the same in SymPy input, where the text shown is the same 15 digits
+    x = sp.Symbol("x")
+    y = sp.Function("y")(x)
+    forms = [bvpkit.Problem([sp.Eq(y.diff(x, 2), sp.Float(1e15) * (sp.Max(sp.Float(c), y) - 1))],
+                            ["y(0) = 0", "y(1) = 0"], (0, 1)) for c in (1.0000000000000049, 1.0)]
+    assert forms[0].equation_text == forms[1].equation_text
+    assert forms[0].key() != forms[1].key()
+    assert abs(bvpkit.solve(forms[1]).evaluate("y", 0.5)) < 1e-12  # analytic: y = 0, as above
 
 
 # -- prepared problems: a second `bvpkit solve` of the same spec without SymPy ------------
@@ -149,16 +185,18 @@ def test_a_set_value_makes_a_different_prepared_problem(tmp_path):
 
 
 def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(cache):
+    from bvpkit.io import kept
     from bvpkit.reduce import prepared
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "cantilever_shelf.toml"
     original = bvpkit.load(spec)
     expected = bvpkit.solve(original)
-    key = prepared.spec_key(spec, {})
-    prepared.remember(key, bvpkit.prepare(original))
+    text = read_spec(spec)
+    key = kept.spec_key(text, {})
+    kept.remember(key, bvpkit.prepare(original), text, {})
     codegen._MEMORY.clear()
     prepared._PROBLEMS.clear()
-    light = prepared.cached(key)
+    light = kept.cached(key, text, {})
     assert isinstance(light, bvpkit.Prepared)
     solution = bvpkit.solve(light)
     assert solution.outputs == expected.outputs
@@ -167,20 +205,21 @@ def test_a_prepared_problem_solves_like_the_original_and_builds_sympy_on_demand(
     assert solution.evaluate("w''(0.3)") == pytest.approx(expected.evaluate("w''(0.3)"), rel=1e-12)
     assert prepared._PROBLEMS
     # with_constants on the rebuilt problem does not reuse point values of the old constants
-    longer = prepared.cached(key).with_constants(L=1.5)
+    longer = kept.cached(key, text, {}).with_constants(L=1.5)
     assert bvpkit.solve(longer).outputs["tip_deflection_m"] == pytest.approx(
         bvpkit.solve(original.with_constants(L=1.5)).outputs["tip_deflection_m"], rel=1e-10)
 
 
 @pytest.mark.parametrize("damage", ["truncate", "tamper"])
 def test_a_damaged_prepared_problem_is_ignored(cache, damage):
-    from bvpkit.reduce import prepared
+    from bvpkit.io import kept
 
     spec = __import__("pathlib").Path(__file__).parents[1] / "specs" / "pin_fin.toml"
-    key = prepared.spec_key(spec, {})
+    text = read_spec(spec)
+    key = kept.spec_key(text, {})
     problem = bvpkit.load(spec)
     bvpkit.solve(problem)
-    prepared.remember(key, bvpkit.prepare(problem))
+    kept.remember(key, bvpkit.prepare(problem), text, {})
     path = next(cache.glob("problem-*.json"))
     text = path.read_text()
     if damage == "truncate":
@@ -189,7 +228,7 @@ def test_a_damaged_prepared_problem_is_ignored(cache, damage):
         data = json.loads(text)
         data["body"]["prepared"]["facts"]["title"] = "changed"  # the checksum no longer matches
         path.write_text(json.dumps(data))
-    assert prepared.cached(key) is None
+    assert kept.cached(key, text, {}) is None
 
 
 def test_importing_bvpkit_imports_no_sympy():

@@ -1,7 +1,9 @@
 """Attacks on the disk cache and on what travels in it.
 
-A cache folder can be shared (group drives, cluster scratch, container images, CI caches), and
-a checksum beside the data guards against damage, not against a writer. What is checked here:
+A cache folder can be shared (group drives, cluster scratch, container images, CI caches).
+Entries are signed with a key kept in the folder, so an entry edited or written without it is
+skipped; a writer who holds the key is the harder case, and most tests below play it (they
+sign what they plant) to reach the checks behind the signature. What is checked here:
 planted entries never run code (nothing stored is executed: programs are plain data, printed
 afresh and checked before compiling), the source check refuses every escape we know of,
 hostile program trees are refused by name, and cache files or folders that are not the
@@ -21,9 +23,11 @@ from pathlib import Path
 import pytest
 
 import bvpkit
+import bvpkit.reduce.prepared
 from bvpkit.errors import ProgramError
+from bvpkit.io import kept
+from bvpkit.io.specfile import read_spec
 from bvpkit.programs import compiled, program
-from bvpkit.reduce import prepared
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = ROOT / "specs" / "pin_fin.toml"
@@ -67,7 +71,7 @@ def _paths(folder, monkeypatch):
     from bvpkit.reduce.form import standard_form
 
     system = folder / f"system-{standard_form(bvpkit.load(SPEC)).key()}-{compiled.code_stamp()}.json"
-    return system, prepared._file(prepared.spec_key(SPEC, {}))
+    return system, kept._file(kept.spec_key(read_spec(SPEC), {}))
 
 
 @pytest.fixture(scope="module")
@@ -114,7 +118,7 @@ def test_a_planted_entry_in_the_old_source_format_never_runs(tmp_path, monkeypat
     key = standard_form(plain).key()
     system.write_text(json.dumps({"key": key, "source": payload, "pattern": [[False, True], [True, False]],
                                   "sides": [0, 1], "sha256": hashlib.sha256(payload.encode()).hexdigest()}))
-    body["key"] = prepared.spec_key(SPEC, {})
+    body["key"] = kept.spec_key(read_spec(SPEC), {})
     inner = body["prepared"]
     inner["system"] = {**inner["system"], "source": payload}
     del inner["system"]["programs"]
@@ -174,7 +178,7 @@ def test_a_planted_program_with_hostile_nodes_is_refused_and_the_answer_stays_ri
     else:
         target = next(r for r in body["prepared"]["recipes"].values() if r["program"])["program"]
     target["entries"][0][1] = HOSTILE_TREES[what]
-    data["sha256"] = compiled.checksum(body)  # the writer recomputes the checksum
+    data["signature"] = compiled.signature(body)  # a writer who holds the key signs it
     path.write_text(json.dumps(data))
     if where == "system":
         problem.unlink()  # so that the system entry is the one read
@@ -186,13 +190,146 @@ def test_a_planted_program_with_hostile_nodes_is_refused_and_the_answer_stays_ri
     assert notes[0].endswith(_refusal(HOSTILE_TREES[what]))
 
 
+def _plain_checksum(body):
+    """What a writer without the key can compute: the checksum entries once carried."""
+    return hashlib.sha256(json.dumps(body, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+
+
+@pytest.mark.parametrize("where", ["problem", "system"])
+def test_an_edited_number_is_skipped_with_one_note_and_the_answer_stays_right(warm, where):
+    """A number changed in an entry by a writer without the cache's key (the checksum it can
+    compute recomputed): the entry is not used."""
+    folder, system, problem = warm
+    path = problem if where == "problem" else system
+    data = json.loads(path.read_text())
+    if where == "problem":
+        data["body"]["prepared"]["constants"]["h"] = 80.0  # the spec says 40
+    else:
+        rhs = next(q for q in data["body"]["programs"] if q["name"] == "rhs")
+        text = json.dumps(rhs)
+        number = re.search(r"(?<![\w.])(\d+\.\d+|\d+)(?![\w.])", json.dumps(rhs["entries"] + rhs["temps"])).group(1)
+        edited = json.loads(text.replace(number, repr(float(number) * 2), 1))
+        assert edited != rhs
+        data["body"]["programs"] = [edited if q["name"] == "rhs" else q for q in data["body"]["programs"]]
+        problem.unlink()  # so that the system entry is the one read
+    data["sha256"] = _plain_checksum(data["body"])
+    path.write_text(json.dumps(data))
+    done = _solve(folder)
+    _tip(done)  # analytic, as above: the spec's own numbers
+    assert _notes(done) == [f"bvpkit: note: cache entry {path.name} skipped: it is not signed with this "
+                            "cache's key (edited, or made elsewhere)"]
+
+
+def _sign(path, data):
+    data["signature"] = compiled.signature(data["body"])  # a writer who holds the key
+    path.write_text(json.dumps(data))
+
+
+@pytest.mark.parametrize(("edit", "why"), [
+    (lambda body: body["prepared"]["constants"].update(h=80.0), "differs from the spec"),
+    (lambda body: body["prepared"]["facts"]["settings"]["save"].update(report_json="planted.json"),
+     "differs from the spec"),
+    (lambda body: body["prepared"]["facts"]["settings"].update(tol=0.5), "differs from the spec"),
+    (lambda body: body.update(spec=body["spec"].replace("40", "80")), "made for another spec"),
+    (lambda body: body.update(set=[["h", 80.0]]), "made for another spec"),
+])
+def test_a_signed_entry_is_used_only_for_the_spec_it_was_made_for(warm, edit, why):
+    """Even signed, an entry whose spec, values or settings are not the spec's is skipped; and
+    no file is written that the spec does not name."""
+    folder, _, problem = warm
+    data = json.loads(problem.read_text())
+    edit(data["body"])
+    _sign(problem, data)
+    done = _solve(folder)
+    _tip(done)
+    notes = _notes(done)
+    assert len(notes) == 1 and notes[0].startswith(f"bvpkit: note: cache entry {problem.name} skipped:"), notes
+    assert why in notes[0]
+    assert not (folder.parent / "planted.json").exists()
+
+
+def test_an_entry_made_for_another_spec_is_not_used_under_this_ones_name(warm, tmp_path):
+    folder, _, problem = warm
+    other = tmp_path / "other"
+    other.mkdir()
+    shelf = ROOT / "specs" / "cantilever_shelf.toml"
+    env = {**os.environ, compiled.CACHE_VARIABLE: str(folder)}
+    done = subprocess.run([sys.executable, "-m", "bvpkit", "solve", str(shelf)], capture_output=True, text=True,
+                          env=env, cwd=other, timeout=120)
+    assert done.returncode == 0, done.stderr
+    made = next(p for p in folder.glob("problem-*.json") if p != problem)
+    data = json.loads(made.read_text())
+    data["body"]["key"] = json.loads(problem.read_text())["body"]["key"]
+    _sign(problem, data)
+    done = _solve(folder)
+    _tip(done)
+    assert len(_notes(done)) == 1 and "made for another spec" in _notes(done)[0]
+
+
+def test_an_entry_too_large_to_build_is_skipped_before_anything_is_built(warm):
+    folder, _, problem = warm
+    data = json.loads(problem.read_text())
+    quantity = data["body"]["prepared"]["quantities"]["theta(L)"]["program"]
+    quantity["entries"][0][1] = ["add", *(["mul", 1.5, "_x"] for _ in range(program.MAX_STORED_NODES // 3 + 1))]
+    _sign(problem, data)
+    done = _solve(folder)
+    _tip(done)
+    assert _notes(done) == [f"bvpkit: note: cache entry {problem.name} skipped: it holds more than "
+                            f"{program.MAX_STORED_NODES} terms (a larger system is generated afresh)"]
+
+
+def _leaves(item, at=()):
+    if isinstance(item, dict):
+        for k, v in item.items():
+            yield from _leaves(v, (*at, k))
+    elif isinstance(item, list):
+        for i, v in enumerate(item):
+            yield from _leaves(v, (*at, i))
+    else:
+        yield at
+
+
+_ODD = [0, 1, -1, 2, 3, 1000, 2**63, 0.5, -0.0, 1e308, True, False, None, "", "x", "_length", "given", [], {}, [0]]
+
+
+def test_single_value_changes_of_a_signed_entrys_layout_never_give_an_internal_error(warm, monkeypatch, capsys):
+    """Each changed value of the layout (signed, so only the entry's own checks stand between
+    it and the solve): the answer is right, or the entry is skipped with one note."""
+    import random
+
+    from bvpkit.io.cli import main
+
+    folder, _, problem = warm
+    monkeypatch.chdir(folder.parent)
+    clean = json.loads(problem.read_text())
+    spots = [("layout", *at) for at in _leaves(clean["body"]["prepared"]["layout"])]
+    spots += [("system", "sides", i) for i in range(len(clean["body"]["prepared"]["system"]["sides"]))]
+    rng = random.Random(22)  # the same draws every run
+    for _ in range(40):
+        at, value = rng.choice(spots), rng.choice(_ODD)
+        data = json.loads(json.dumps(clean))
+        node = data["body"]["prepared"]
+        for step in at[:-1]:
+            node = node[step]
+        node[at[-1]] = value
+        _sign(problem, data)
+        compiled._MEMORY.clear()
+        bvpkit.reduce.prepared._PROBLEMS.clear()
+        compiled._NOTED.clear()
+        code = main(["solve", str(SPEC)])
+        out, err = capsys.readouterr()
+        assert code == 0, (at, value, err)
+        assert float(re.search(r"tip_excess_temperature_K = (\S+)", out).group(1)) == pytest.approx(TIP, rel=1e-9)
+        assert len(_notes(subprocess.CompletedProcess([], 0, out, err))) <= 1, (at, value, err)
+
+
 @needs_root
 def test_an_entry_of_another_user_is_not_used_even_when_well_formed(warm):
     folder, _, problem = warm
     data = json.loads(problem.read_text())
     quantity = data["body"]["prepared"]["quantities"]["theta(L)"]["program"]
     quantity["entries"][0][1] = ["mul", 2, quantity["entries"][0][1]]  # a wrong answer in the grammar
-    data["sha256"] = compiled.checksum(data["body"])
+    data["signature"] = compiled.signature(data["body"])
     problem.write_text(json.dumps(data))
     # control: the user's own entry is trusted, so the doubled value shows
     value = float(re.search(r"tip_excess_temperature_K = (\S+)", _solve(folder).stdout).group(1))
@@ -268,7 +405,7 @@ def test_a_sweep_workers_preparation_with_a_hostile_program_is_refused(tmp_path,
     compiled._MEMORY.clear()
     body["system"]["programs"][0]["entries"][0][1] = ["getattr", "_y0", "_y1"]
     with pytest.raises(ProgramError, match="unknown operation 'getattr'"):
-        prepared.Prepared.from_plain(body).compiled
+        bvpkit.reduce.prepared.Prepared.from_plain(body).compiled
 
 
 # -- the source check -------------------------------------------------------------------------
@@ -427,6 +564,15 @@ HOSTILE = {
     "entry index \\[0\\] is outside the shape \\[2\\], or repeated":
         _rhs(entries=[[[0], "_y0"], [[0], "_y1"]]),
     "unknown field 'source'": {**_rhs(), "source": "import os"},
+    # arithmetic on Python numbers has no cost bounded by size: 3**1000000000 runs for
+    # minutes, 2**(2**53) ends in MemoryError, 1.0/0.0 raises
+    "'pow' of numbers alone": _rhs(["add", "_y0", ["pow", 3, 1000000000]]),
+    "'pow' of numbers alone \\(a program": _rhs(["pow", ["neg", 3], 1000000000]),
+    "'div' of numbers alone": _rhs(["add", "_y0", ["div", 1.0, 0.0]]),
+    "'exp' of numbers alone": _rhs(["mul", "_y0", ["exp", 1000]]),
+    "'mul' of more than one whole number": _rhs(["mul", 2**53, 2**53, 2**53, "_y0"]),
+    "'add' of more than one whole number": _rhs(["add", *([2**53] * 40), "_y0"]),
+    "temporary 0 is a number alone": _rhs(temps=[["_t0", 3]], entries=[[[0], ["pow", "_t0", 1000000000]]]),
     "a str .* where a program": "def rhs(): pass",
 }
 

@@ -126,6 +126,60 @@ def test_the_exit_code_survives_a_reader_that_went_away(tmp_path):
 
 
 # -- output paths ----------------------------------------------------------------------------
+_SPEC_ERRORS = """
+import sys
+from bvpkit.io.cli import main
+runs = [line.split("\t") for line in sys.argv[1].splitlines()]
+codes = [main(run) for run in runs[:int(sys.argv[2])]]
+print("heavy before parsing:", [m for m in ("sympy", "pydantic", "scipy.sparse") if m in sys.modules])
+codes += [main(run) for run in runs[int(sys.argv[2]):]]
+print("codes:", *codes)
+"""
+
+
+def test_specs_that_cannot_be_read_or_evaluated_are_one_error_each(tmp_path):
+    """A device, a FIFO (no writer: a reader would wait for ever), a 50 MB file: refused as they
+    are opened, before anything heavy is imported (under a second, without a clock in the
+    test); then constants SymPy cannot evaluate: one error each, exit 2, in check too."""
+    fifo = tmp_path / "fifo.toml"
+    os.mkfifo(fifo)
+    big = tmp_path / "big.toml"
+    with open(big, "wb") as handle:
+        handle.truncate(50 * 2**20)
+    runs = [[command, str(path)] for command in ("solve", "check", "trace", "sweep", "fold-curve")
+            for path in ("/dev/zero", big, fifo, tmp_path)]
+    unreadable = len(runs)
+    for text in ("erfc(1e300)*y", "min(y, acos(2))"):
+        spec = tmp_path / f"spec{len(runs)}.toml"
+        spec.write_text(GOOD.replace("-y", text))
+        runs += [["check", str(spec)], ["solve", str(spec)], ["solve", "--json", str(spec)]]
+    done = subprocess.run([sys.executable, "-c", _SPEC_ERRORS, "\n".join("\t".join(r) for r in runs), str(unreadable)],
+                          capture_output=True, text=True, env=_env(tmp_path), cwd=tmp_path, timeout=120)
+    out = done.stdout.splitlines()
+    assert "heavy before parsing: []" in out
+    assert out[-1] == "codes: " + " ".join(["2"] * len(runs))
+    lines = done.stderr.splitlines()
+    assert len(lines) == len(runs) - 2 and all(line.startswith("bvpkit: bad_input: ") for line in lines), lines
+    assert sum("not a regular file" in line for line in lines) == 10
+    assert sum("limited to 1000000" in line for line in lines) == 5
+    assert sum("is a folder" in line for line in lines) == 5
+    assert sum("cannot be evaluated" in line for line in lines) == 4
+    reports = [json.loads(line) for line in out if line.startswith("{")]
+    assert [r["status"] for r in reports] == ["bad_input", "bad_input"]
+
+
+@pytest.mark.skipif(not os.path.exists("/dev/full"), reason="needs /dev/full")
+@pytest.mark.parametrize("argv", [["solve", "--json"], ["solve"], ["check", "--json"]])
+def test_a_full_standard_output_is_one_line_and_exit_2(argv, tmp_path):
+    spec = tmp_path / "good.toml"
+    spec.write_text(GOOD)
+    with open("/dev/full", "w") as full:
+        done = subprocess.run([*_command(), *argv, str(spec)], stdout=full, stderr=subprocess.PIPE, text=True,
+                              env=_env(tmp_path), cwd=tmp_path, timeout=120)
+    assert done.returncode == 2
+    assert done.stderr == "bvpkit: bad_input: cannot write the standard output: No space left on device\n"
+
+
 def test_a_folder_swapped_for_a_link_during_the_solve_cannot_redirect_a_save_file(tmp_path, monkeypatch, capsys):
     import bvpkit.solver.driver as driver
 

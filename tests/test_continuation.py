@@ -39,6 +39,26 @@ def test_bratu_fold_is_located_to_1e8(bratu_branch):
     assert fold.outputs["y'(0)"] == pytest.approx(4.0, rel=1e-6)  # analytic: t tanh(t/4) = 4 at the fold
 
 
+def test_a_first_step_far_beyond_the_range_is_clamped_and_the_fold_is_found(monkeypatch):
+    """A first step of 1e80 once cost minutes (halved one failed solve at a time at the end of
+    the range); it is clamped to a quarter of the range, and halving is bounded by a count."""
+    from bvpkit.families import continuation
+
+    tried = []
+    at = continuation._Tracer._at
+
+    def counted(self, target, guess, *args, **kwargs):
+        tried.append(target)
+        return at(self, target, guess, *args, **kwargs)
+
+    monkeypatch.setattr(continuation._Tracer, "_at", counted)
+    b = bvpkit.trace(bratu(0.1), "lam", start=0.1, stop=5.0, step=1e80, outputs=["y'(0)"])
+    assert abs(tried[0] - 0.1) <= (5.0 - 0.1) / 4 * (1 + 1e-12)
+    assert len(tried) < 100  # natural solves in all (about 20 here)
+    assert len(b.folds) == 1
+    assert b.folds[0].parameter == pytest.approx(bratu_fold(), rel=1e-6)  # analytic, 3.51383071912516
+
+
 def test_bratu_branch_goes_past_the_fold_onto_the_upper_family(bratu_branch):
     b = bratu_branch
     lam, slope = b.parameter, b.outputs["y'(0)"]

@@ -99,7 +99,7 @@ def test_every_one_line_problem_class_solves():
     (block,) = _blocks("python", "eigenvalue=\"lam\"")
     problems = [eval(compile(ast.Expression(s.value), "<README>", "eval"), {"bvpkit": bvpkit})  # noqa: S307
                 for s in ast.parse(block).body]
-    assert len(problems) == 7
+    assert len(problems) == 9
     for problem in problems:
         solution = bvpkit.solve(problem)
         assert solution.success, f"{problem.equation_text}: {solution.message}"
@@ -109,6 +109,10 @@ def test_every_one_line_problem_class_solves():
     assert orbit.parameters["T"] == pytest.approx(6.663286866, rel=1e-6)
     # analytic: the third eigenvalue of y'' + lam y = 0, y(0) = y(pi) = 0, is 3^2
     assert bvpkit.solve(problems[0]).parameters["lam"] == pytest.approx(9.0, rel=1e-6)
+    # McKean 1970 (analytic): the front of u'' + c u' + u (1 - u)(u - a) = 0 moves at c = sqrt(2) (1/2 - a)
+    assert bvpkit.solve(problems[7]).parameters["c"] == pytest.approx(2**0.5 * 0.2, rel=1e-6)
+    # analytic: T = 1/r outside the sphere, T'(1) = -1
+    assert bvpkit.solve(problems[8]).evaluate("T'(1)") == pytest.approx(-1.0, rel=1e-6)
 
 
 def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):

@@ -11,7 +11,7 @@ import bvpkit
 from bvpkit.methods import REGISTRY
 from bvpkit.methods.base import Outcome, Trial, compare
 from bvpkit.methods.diagnostics import crossings
-from bvpkit.reduce import features
+from bvpkit.methods import features
 from bvpkit.reduce.prepared import prepare
 from bvpkit.status import Status
 

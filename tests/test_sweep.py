@@ -175,3 +175,42 @@ def test_a_worker_rebuilds_the_problem_without_sympy(tmp_path, monkeypatch):
     assert imported.strip() == "False", out.stderr
     expected = [round(r["effectiveness"], 12) for r in result.table]
     assert eval(values) == expected  # noqa: S307 - our own repr of a list of floats
+
+
+def _slab():
+    # analytic: c'' = phi**2 c, c(0) = 1, c(1) = 0 gives c'(0) = -phi coth(phi)
+    return bvpkit.Problem(["c'' = phi**2*c"], ["c(0) = 1", "c(1) = 0"], (0, 1), constants={"phi": 1.0},
+                          outputs={"flux": "c'(0)"})
+
+
+def test_stored_rows_are_checked_and_a_bad_one_is_solved_again_with_a_note(tmp_path, monkeypatch, caplog):
+    """Rows of a store are checked as cache entries are: an edited value, a row of {} or a list,
+    a row without status, a row moved to another point: each solved again, with one note."""
+    import logging
+
+    monkeypatch.setenv("BVPKIT_CACHE_DIR", str(tmp_path / "cache"))
+    store = tmp_path / "slab.sqlite"
+    grid = {"phi": [0.5, 1.0, 1.5, 2.0, 2.5, 3.0]}
+    first = bvpkit.sweep(_slab(), grid, store=store, executor="serial")
+    assert first.solved == 6
+    with sqlite3.connect(store) as db:
+        rows = dict(db.execute("SELECT point, row FROM points").fetchall())
+        points = sorted(rows)
+        edited = json.loads(rows[points[0]])
+        edited["outputs"]["c'(0)"] = 42.0  # the signature of the row no longer fits
+        no_status = {k: v for k, v in json.loads(rows[points[3]]).items() if k != "status"}
+        for point, text in [(points[0], json.dumps(edited)), (points[1], "{}"), (points[2], "[1, 2]"),
+                            (points[3], json.dumps(no_status)), (points[4], rows[points[5]])]:
+            db.execute("UPDATE points SET row = ? WHERE point = ?", (text, point))
+    from bvpkit.programs import compiled
+
+    compiled._NOTED.clear()
+    with caplog.at_level(logging.WARNING, logger="bvpkit.cache"):
+        again = bvpkit.sweep(_slab(), grid, store=store, executor="serial")
+    assert again.solved == 5 and again.reused == 1
+    notes = [r.getMessage() for r in caplog.records if r.name == "bvpkit.cache"]
+    assert len(notes) == 1 and "5 stored points skipped" in notes[0], notes
+    for row in again.table:  # analytic, as above
+        assert row["success"] and row["flux"] == pytest.approx(-row["phi"] / math.tanh(row["phi"]), rel=1e-6)
+    third = bvpkit.sweep(_slab(), grid, store=store, executor="serial")  # the store is whole again
+    assert third.solved == 0 and third.reused == 6

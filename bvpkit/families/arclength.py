@@ -33,6 +33,9 @@ from scipy.sparse.linalg import splu
 from ..methods.discrete import CollocationEquations, SingularMatrix
 
 _MAX_NEWTON = 12
+#: A chord step that shrinks the correction by less than this (against the step before) has
+#: the corrector form the Jacobian afresh at its iterate.
+_CHORD_RATE = 0.3
 #: Column ordering of SuperLU for the bordered matrices: the minimum-degree ordering of
 #: A^T + A keeps the block-bidiagonal structure with its dense border row to about twice the
 #: matrix's own entries; SuperLU's default (COLAMD) filled a 5179-unknown wedge-flow matrix
@@ -120,10 +123,13 @@ def inner(eq: CollocationEquations, u: np.ndarray, v: np.ndarray) -> float:
     return float(np.sum(eq.weights * u * v))
 
 
-def tangent(eq: CollocationEquations, z: np.ndarray, previous: np.ndarray, extra=None) -> tuple[np.ndarray, float]:  # noqa: ANN001
+def tangent(eq: CollocationEquations, z: np.ndarray, previous: np.ndarray, extra=None,  # noqa: ANN001
+            keep: list | None = None) -> tuple[np.ndarray, float]:
     """Unit tangent (weighted norm) at ``z`` oriented like ``previous``, and the sign of
     ``det [G_z; previous]`` (times the orientation), which changes at a simple branch point.
-    ``extra`` adds equations as in :func:`correct` (their Jacobian rows)."""
+    ``extra`` adds equations as in :func:`correct` (their Jacobian rows). ``keep``, when
+    given, receives the factorisation of ``[G_z; previous]``: the next :func:`correct` reuses
+    it as its chord matrix."""
     rows = [eq.jacobian(z)]
     if extra is not None:
         rows.append(extra(z)[1])
@@ -136,44 +142,69 @@ def tangent(eq: CollocationEquations, z: np.ndarray, previous: np.ndarray, extra
     sign = determinant_sign(lu)
     if inner(eq, t, previous) < 0:
         t = -t
+    if keep is not None:
+        keep[:] = [lu]
     return t, sign
 
 
 def correct(eq: CollocationEquations, predicted: np.ndarray, direction: np.ndarray, tol: float,
-            extra=None) -> tuple[np.ndarray | None, int]:  # noqa: ANN001
+            extra=None, chord=None) -> tuple[np.ndarray | None, int]:  # noqa: ANN001
     """Newton on ``G(z) = 0`` and ``<direction, z - predicted> = 0``; None when it does not converge.
 
-    ``extra``, when given, is a callable ``z -> (residuals, Jacobian rows)`` adding equations
-    (the fold condition of a fold curve)."""
+    Returns the corrected point and the work done, in Newton steps (each factorisation, and
+    the chord steps together as one). ``extra``, when given, is a callable
+    ``z -> (residuals, Jacobian rows)`` adding equations (the fold condition of a fold
+    curve). ``chord``, when given, is a factorisation of a
+    nearby bordered matrix (the last point's tangent's, :func:`tangent` ``keep``): the steps
+    reuse it (a chord method, Keller 1977) while they contract by a factor of at least
+    :data:`_CHORD_RATE`, and the matrix is formed and factored afresh at the iterate when
+    they do not: one factorisation a point instead of one an iteration on a smooth branch."""
     z = predicted.copy()
     border = direction * eq.weights
     last = math.inf
+    lu = chord
+    made = reused = 0  # factorisations made here, steps taken with an older one
     for it in range(1, _MAX_NEWTON + 1):
         with np.errstate(all="ignore"):
             g = eq.residual(z)
-            rows = [eq.jacobian(z)]
             residuals = [g]
             if extra is not None:
                 more, jac = extra(z)
                 residuals.append(np.atleast_1d(more))
-                rows.append(jac)
         r = np.concatenate([*residuals, [inner(eq, direction, z - predicted)]])
         if not np.isfinite(r).all():
             return None, it
         try:
-            step = _lu(bordered(rows[0], *rows[1:], border)).solve(-r)
+            if lu is None:
+                with np.errstate(all="ignore"):
+                    rows = [eq.jacobian(z)] + ([jac] if extra is not None else [])
+                lu = _lu(bordered(rows[0], *rows[1:], border))
+                fresh, made = True, made + 1
+            else:
+                fresh, reused = False, reused + 1
+            step = lu.solve(-r)
         except RuntimeError:
             return None, it
+        if not np.isfinite(step).all():
+            return None, it
+        size_now = float(np.max(np.abs(step) / (1.0 + np.abs(z + step))))
+        if not fresh and size_now > _CHORD_RATE * last:
+            lu = None  # the old matrix no longer contracts well: a Newton step at this iterate
+            if size_now > last:
+                continue  # this step would lead away: taken from the fresh matrix instead
         z = z + step
         if not np.isfinite(z).all():
             return None, it
         size = float(np.max(np.abs(step) / (1.0 + np.abs(z))))
+        # the work done, counted as Newton steps (step control reads it): each factorisation,
+        # and the chord steps together as one
+        work = made + (1 if reused else 0)
         if size <= 0.01 * tol:
-            return z, it
+            return z, work
         # the round-off floor: steps that stop shrinking while already below the tolerance
         # (an exact Newton would halve its exponent each time; these no longer get smaller)
         if size <= tol and it > 2 and size > 0.5 * last:
-            return z, it
+            return z, work
         last = size
     return None, _MAX_NEWTON
 

@@ -77,7 +77,22 @@ MAX_ANGLE = math.radians(8.0)
 MAX_DRIFT = 0.2
 #: Smallest natural step, relative to the range: below it the trace switches to arclength steps.
 FLOOR = 1e-7
-_TAIL = 0.9  # the far-field check compares the states at t = 1 and t = 0.9 of the infinite region
+#: Most halvings in a row of a natural step (log2(1/FLOOR) is 23): a step that keeps failing
+#: is given up after this many solves, whatever it started from.
+MAX_HALVINGS = 24
+#: A natural step's solve may refine its mesh up to this many times the last point's nodes
+#: (at least _MESH_LEAST): a step past a fold has no solution, and its Newton iterations on
+#: ever finer meshes up to the global limit cost more than the rest of a trace (two such
+#: steps took 4.4 s of an 8.6 s Bratu trace); a step that only needs more nodes is retried
+#: without the bound.
+_MESH_ROOM, _MESH_LEAST = 8, 400
+#: A fold predicted within this part of the natural step hands over to arclength before the
+#: step is tried (from the change of the tangent's parameter component along the branch).
+_FOLD_AHEAD = 1.2
+#: Folds that close in on one value, each gap at most this part of the one before (in three
+#: gaps running), make a spiral: the branch winds through ever more folds towards a limit
+#: point (a singular solution), and the trace ends there, saying so.
+_SPIRAL_RATIO, _SPIRAL_FOLDS = 0.6, 4
 _OUTPUT_FLOOR = 0.05  # an output's scale in the drawn plane: its spread so far, at least 5% of its size
 _SETTLED = 4  # points on a branch before its drawn angle is checked while tracing
 
@@ -416,7 +431,10 @@ class _Tracer:
         self.prepared, self.name, self.start, self.stop = prepared, name, start, stop
         self.tol, self.method, self.max_points = tol, method, max_points
         self.span = abs(stop - start)
-        self.step = abs(step) if step else self.span / 50
+        # a first step is at most the largest a natural step grows to (a quarter of the range):
+        # a step of 1e80 would otherwise be halved one failed solve at a time, at the end of
+        # the range where every target is clipped
+        self.step = min(abs(step), self.span / 4) if step else self.span / 50
         self.lo, self.hi = min(start, stop), max(start, stop)
         self.direction = 1.0 if stop > start else -1.0
         self.edge = stop  # the end of the range the natural steps head for
@@ -439,11 +457,18 @@ class _Tracer:
         self.probe = np.random.default_rng(20261202)  # fixed: the border of the branch test
 
     # -- solving at a value --------------------------------------------------------------------
-    def _at(self, value: float, guess: Any) -> Solution:
+    def _at(self, value: float, guess: Any, bounded: bool = False) -> Solution:
+        """The solution at ``value``; ``bounded``: one attempt, its mesh bounded by the last
+        point's (a natural step that may have overshot a fold fails fast)."""
         k = self.k.copy()
         k[self.index] = value
         here = self.prepared.with_constants(**{self.name: value})
-        sol = solve_at(here, k, guess, tol=self.tol, method=self.last_method, verify=self.verify)
+        limit = None
+        if bounded and self.points:
+            limit = max(_MESH_ROOM * self.points[-1].solution.diagnostics.mesh_nodes, _MESH_LEAST)
+        sol = solve_at(here, k, guess, tol=self.tol, method=self.last_method, verify=self.verify, max_nodes=limit)
+        if limit is not None:
+            return sol
         if not sol.success and self.last_method != (self.method or "auto"):
             sol = solve_at(here, k, guess, tol=self.tol, method=self.method or "auto", verify=self.verify)
         if sol.success:
@@ -705,21 +730,31 @@ class _Tracer:
     def _natural(self, step: float) -> tuple[bool, str] | None:
         """Natural steps until the branch turns (None: go on in arclength) or the trace ends."""
         b = self.branch
+        halvings = 0  # in a row: a count, not a clock, bounds the search for a step that works
         while len(b.solutions) < self.max_points:
             last = self.points[-1]
             value = last.value
             target, ends, requested = self._edges(value, value + self.direction * step)
+            taken = abs(target - value)  # the step actually tried: halving starts from it
+            if not self.fixed and self._fold_ahead(target):
+                return None  # a fold lies within this step: round it by pseudo-arclength
             guess = self._predict(target)
-            sol = self._at(target, guess)
+            sol = self._at(target, guess, bounded=True)
+            if not sol.success and sol.status is Status.MESH_LIMIT:
+                if self._turning_ahead():
+                    return None  # no solution on a bounded mesh with the branch already turning
+                sol = self._at(target, guess)  # a point that needs a finer mesh than the last one
             point = _Point(target, sol) if sol.success else None
             turning = False
             if point is not None and len(self.points) >= 1:
                 turning, too_sharp = self._geometry(last, point)
                 too_sharp = too_sharp or self._plane_turn(target, sol) > self.max_angle
-                if too_sharp and not requested and not ends and step > self.span * FLOOR and not self.fixed:
-                    step *= _SHRINK
+                if (too_sharp and not requested and not ends and step > self.span * FLOOR and not self.fixed
+                        and halvings < MAX_HALVINGS):
+                    step, halvings = min(step, taken) * _SHRINK, halvings + 1
                     continue
             if point is not None and not turning:
+                halvings = 0
                 self._accept(target, sol, "natural", point)
                 if requested:
                     self.branch.requested.setdefault(target, []).append(self.branch.solutions[-1])
@@ -735,11 +770,59 @@ class _Tracer:
                     easy = sol.diagnostics.iterations <= 4
                     step = min(step * (_GROW if easy else 1.0), self.span / 4)
                 continue
-            if not turning and step > self.span * 1e-3:
-                step *= _SHRINK
+            if not turning and step > self.span * 1e-3 and halvings < MAX_HALVINGS and not self._turning_ahead():
+                step, halvings = min(step, taken) * _SHRINK, halvings + 1
                 continue
             return None  # the branch turns (or natural steps fail): pseudo-arclength
         return False, self._done(f"stopped after max_points = {self.max_points} points")
+
+    def _turning_ahead(self) -> bool:
+        """Whether the last tangent's parameter component is small enough that a failed step
+        more likely met a fold than a hard point (arclength goes on at once then)."""
+        tangent = self.points[-1].tangent
+        if tangent is None:
+            return False
+        size = arc.norm(self._equations(self.points[-1]), tangent)
+        return size > 0 and abs(float(tangent[-1])) / size < 2 * _TURNING
+
+    def _fold_ahead(self, target: float) -> bool:
+        """Whether a fold lies before ``target``: the parameter component ``l'`` of the unit
+        tangent at the last two points, extrapolated linearly in the arclength ``s`` to zero,
+        puts the fold at ``s* = l'_1 ds / (l'_0 - l'_1)`` past the last point and its value at
+        ``l_1 + l'_1 s* / 2`` (the parameter is quadratic in ``s`` near a fold)."""
+        if len(self.points) - self.since < 2:
+            return False
+        prev, last = self.points[-2], self.points[-1]
+        if prev.tangent is None or last.tangent is None or not self._same_k(prev, last):
+            return False
+        eq = self._equations(last)
+        size0 = arc.norm(self._equations(prev), prev.tangent)
+        size1 = arc.norm(eq, last.tangent)
+        ds = arc.norm(eq, self._secant(prev, last))
+        if not (size0 > 0 and size1 > 0 and ds > 0):
+            return False
+        l0, l1 = float(prev.tangent[-1]) / size0, float(last.tangent[-1]) / size1
+        l0, l1 = l0 * self.direction, l1 * self.direction  # positive while the parameter moves on
+        if not (0 < l1 < l0):
+            return False
+        s_star = l1 * ds / (l0 - l1)
+        fold = last.value + self.direction * l1 * s_star / 2
+        return (target - fold) * self.direction > -(_FOLD_AHEAD - 1) * abs(target - last.value)
+
+    def _spiral(self) -> tuple[bool, str] | None:
+        """The end of a trace whose folds close in on a limit (see ``_SPIRAL_RATIO``), or None."""
+        folds = [f.parameter for f in self.branch.folds]
+        if len(folds) < _SPIRAL_FOLDS:
+            return None
+        gaps = np.abs(np.diff(folds[-_SPIRAL_FOLDS:]))
+        if not (np.all(gaps > 0) and np.all(gaps[1:] <= _SPIRAL_RATIO * gaps[:-1])):
+            return None
+        a, b, c = folds[-3:]
+        limit = c - (c - b) ** 2 / ((c - b) - (b - a))  # Aitken's extrapolation of the folds
+        return False, self._done(
+            f"the branch spirals: its folds close in on {self.name} = {limit:.6g} (each gap about "
+            f"{float(np.mean(gaps[1:] / gaps[:-1])):.2g} of the one before), a limit it winds round through ever "
+            f"more folds (a singular solution); stopped there")
 
     def _same_k(self, a: _Point, b: _Point) -> bool:
         """Whether two points share every constant but the traced one (the truncation length:
@@ -796,14 +879,17 @@ class _Tracer:
             return False, self._done(f"pseudo-arclength could not start at {self.name} = {point.value:.6g}")
         ds = first_ds = self._first_ds(eq, z)
         min_ds = ds * 1e-6
+        chord: list = []  # the factorisation of the last tangent's matrix, reused by the corrector
         while len(b.solutions) < self.max_points:
             started = time.perf_counter()
             predicted = z + ds * tangent
-            z_new, its = arc.correct(eq, predicted, tangent, self.tol)
+            reuse = chord[0] if chord and chord[1] is eq else None
+            z_new, its = arc.correct(eq, predicted, tangent, self.tol, chord=reuse)
             reason = None
             if z_new is not None:
                 try:
-                    t_new, sign = arc.tangent(eq, z_new, tangent)
+                    kept: list = []
+                    t_new, sign = arc.tangent(eq, z_new, tangent, keep=kept)
                 except SingularMatrix:
                     z_new, reason = None, "the bordered Jacobian was singular there"
             if z_new is None:
@@ -828,6 +914,9 @@ class _Tracer:
             if tangent[-1] * t_new[-1] < 0:
                 self._locate_fold(eq, z, tangent, ds, (float(tangent[-1]), float(t_new[-1])))
                 self.turned = True
+                spiral = self._spiral()
+                if spiral is not None:
+                    return spiral
                 if self.first_fold_only and self.branch.folds:
                     return True, self._done(f"stopped at the first fold, {self.name} = {self.branch.folds[0].parameter:.10g}")
             for r in self._crossed(lam_old, lam_new):
@@ -850,6 +939,7 @@ class _Tracer:
                 if better.success:
                     sol, new = better, _Point(lam_new, better)  # its tangent: from the last point's
             accepted = self._accept(lam_new, sol, "arclength", new)
+            chord = [kept[0], eq]
             if self._pending_branch is not None:
                 end = self._branch_point()
                 if end is not None:

@@ -5,6 +5,11 @@ fast axis. Work is cut into chunks of grid lines (fixed slow parameters, a conti
 of the fast one) and each chunk is solved in order, every solve started from its
 neighbour's solution (continuation), so a chunk, not a point, is the unit of work.
 
+After the first point of a unit, the rest of its points are solved together, as one
+vectorised Newton system on a shared mesh (:mod:`bvpkit.families.batched`, where the problem allows),
+each with its own line search, convergence test, residual check, error estimate and
+stability constant; a point the batch leaves is solved alone, seeded by its neighbour.
+
 Units are small and picklable (the problem's own arguments, its prepared plain facts and
 programs (plain data), numbers; never code or compiled functions); a worker rebuilds a problem once,
 without SymPy (``prepared.py``), and keeps it. Inside a unit each point starts from its
@@ -141,14 +146,24 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
     rows = []
     previous = None
     abandoned = _abandoned_check()
-    for value in unit.fast_values:
+    together: dict[int, Any] = {}  # solutions of the points solved in one Newton system
+    batch = _batched().applies(prepared, options) and len(unit.fast_values) > 2
+    for position, value in enumerate(unit.fast_values):
         if abandoned():
             break  # nobody waits for this unit any more: stop between two points
         point = {**dict(unit.slow), unit.fast: value}
         started = time.perf_counter()
+        if batch and previous is not None and previous.success:
+            # the rest of the chunk at once, from this solution; a point it leaves is solved alone below
+            batch = False
+            rest = [{**dict(unit.slow), unit.fast: v} for v in unit.fast_values[position:]]
+            found = _batched().solve_points(prepared, rest, previous, options)
+            together = {position + i: sol for i, sol in enumerate(found) if sol is not None}
         try:
             here = prepared.with_constants(**point)
-            if previous is not None and "method" not in options:
+            if position in together:
+                sol = together[position]
+            elif previous is not None and "method" not in options:
                 # the neighbour's method, started from its solution: no new plan (and no survey)
                 # while it works; the selector's full plan when it does not
                 sol = solve(here, guess=previous, method=previous.method, follow=trace, **options)
@@ -170,16 +185,81 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
                 name = named.get(text)
                 values[text] = sol.outputs[name] if name in sol.outputs else float(sol.evaluate(text))
         d = sol.diagnostics
+        seconds = d.seconds if position in together else time.perf_counter() - started  # its share of the batch
         rows.append(_row(point, values, sol.success, sol.status.word, sol.method, d.error_estimate, sol.message,
-                         d.iterations, time.perf_counter() - started))
+                         d.iterations, seconds))
         previous = sol if sol.success else None
     return rows
+
+
+def _batched():  # noqa: ANN202 - the module, imported when a unit first needs it
+    from . import batched
+
+    return batched
 
 
 def _row(point, outputs, success, status, method, error, message, iterations, seconds) -> dict[str, Any]:  # noqa: ANN001
     return {"point": point, "outputs": outputs, "success": bool(success), "status": status, "method": method,
             "error_estimate": float(error) if error is not None else math.nan, "message": message,
             "iterations": int(iterations), "seconds": float(seconds)}
+
+
+_ROW_FIELDS = {"point": dict, "outputs": dict, "success": bool, "status": str, "method": str,
+               "error_estimate": float, "message": str, "iterations": int, "seconds": float}
+MAX_ROW_BYTES = 100_000  # a stored row's JSON text: a message, a point and its outputs (a few hundred bytes)
+
+
+def _signed_row(problem: str, row: dict, key: bytes | None) -> str:
+    """A row's JSON text, with the signature of the row, its problem and its point under the
+    cache's key (see :func:`bvpkit.programs.compiled.signing_key`) when there is one."""
+    from ..programs.compiled import signature
+
+    body = dict(row)
+    if key is not None:
+        body["signature"] = signature([problem, _grid_key(row["point"]), row], key)
+    return json.dumps(body, allow_nan=True)
+
+
+def _valid_row(problem: str, point: str, text: Any, success: Any, outputs: Sequence[str],
+               key: bytes | None) -> dict | None:
+    """A stored row as this sweep wrote it, or None: not JSON, fields missing or of the wrong
+    kind, a point other than the one it is stored under, outputs other than the sweep's, a
+    status that is not one of bvpkit's; or, when the cache has a key, a signature that is not
+    its own (an edited value, a row copied from another point, problem or machine)."""
+    import hmac
+
+    from ..programs.compiled import signature
+    from ..status import Status
+
+    if type(text) is not str or len(text) > MAX_ROW_BYTES:
+        return None
+    try:
+        row = json.loads(text)
+    except (ValueError, RecursionError):
+        return None
+    if type(row) is not dict or set(row) - {"signature"} != set(_ROW_FIELDS):
+        return None
+    stamp = row.pop("signature", None)
+    if key is not None and (type(stamp) is not str or not hmac.compare_digest(
+            stamp, signature([problem, point, row], key) or "")):
+        return None
+    for name, kind in _ROW_FIELDS.items():
+        value = row[name]
+        if not (type(value) is kind or (kind is float and type(value) is int)):
+            return None
+    try:
+        if _grid_key(row["point"]) != point or row["success"] != bool(success) or row["iterations"] < 0:
+            return None
+    except (TypeError, ValueError, AttributeError):
+        return None
+    values = row["outputs"]
+    if (not all(type(v) in (int, float) for v in values.values())
+            or (row["success"] and set(values) != set(outputs)) or not set(values) <= set(outputs)):
+        return None
+    status = {s.word: s for s in Status}.get(row["status"])
+    if status is None or status.success != row["success"]:
+        return None
+    return row
 
 
 class _Store:
@@ -227,19 +307,37 @@ class _Store:
             return  # written before stores carried their id
         raise self._refused("a database of another program" if found != STORE_ID else "its tables differ")
 
-    def done(self, problem: str, retry_failed: bool) -> dict[str, dict]:
-        query = "SELECT point, row FROM points WHERE problem = ?" + (" AND success = 1" if retry_failed else "")
+    def done(self, problem: str, retry_failed: bool, outputs: Sequence[str]) -> dict[str, dict]:
+        """The finished points of ``problem`` whose rows pass :func:`_valid_row`; the others
+        are left out (solved again), said in one note."""
+        from ..programs.compiled import note, signing_key
+
+        query = "SELECT point, row, success FROM points WHERE problem = ?"
+        key = signing_key()
+        found, refused = {}, 0
         try:
-            return {point: json.loads(row) for point, row in self.db.execute(query, (problem,))}
-        except (sqlite3.DatabaseError, ValueError) as err:
+            for point, text, success in self.db.execute(query, (problem,)):
+                row = _valid_row(problem, point, text, success, outputs, key)
+                if row is None:
+                    refused += 1
+                elif row["success"] or not retry_failed:
+                    found[point] = row
+        except sqlite3.DatabaseError as err:
             raise self._refused(f"unreadable: {err}") from None
+        if refused:
+            note(f"sweep store {self.path}: {refused} stored point{'s' if refused > 1 else ''} skipped (edited, "
+                 "damaged, or stored without this cache's key) and solved again")
+        return found
 
     def write(self, problem: str, rows: list[dict]) -> None:
+        from ..programs.compiled import signing_key
+
+        key = signing_key(create=True)
         try:
             with self.db:  # one transaction per unit
                 self.db.executemany(
                     "INSERT OR REPLACE INTO points (problem, point, row, success) VALUES (?, ?, ?, ?)",
-                    [(problem, _grid_key(r["point"]), json.dumps(r, allow_nan=True), int(r["success"])) for r in rows],
+                    [(problem, _grid_key(r["point"]), _signed_row(problem, r, key), int(r["success"])) for r in rows],
                 )
         except sqlite3.DatabaseError as err:
             raise OptionError(f"cannot write to the store {self.path}: {err}") from None
@@ -508,7 +606,7 @@ def sweep(
     started = time.perf_counter()
     db = _Store(store)
     try:
-        done = db.done(problem_key, retry_failed)
+        done = db.done(problem_key, retry_failed, list(labels.values()))
         units = []
         for slow_values in itertools.product(*(axes[n] for n in slow_names)):
             slow = tuple(zip(slow_names, map(float, slow_values)))

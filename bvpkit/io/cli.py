@@ -37,6 +37,21 @@ def _methods() -> list[str]:
     return ["auto", *REGISTRY]
 
 
+class _Methods:
+    """The ``--method`` choices, read from the registry only when asked (a value given, or
+    the help shown): importing the methods brings in SciPy's sparse modules, which a spec
+    refused on reading must not wait for."""
+
+    def __contains__(self, name: object) -> bool:
+        return name in _methods()
+
+    def __iter__(self):  # noqa: ANN204
+        return iter(_methods())
+
+    def __len__(self) -> int:
+        return len(_methods())
+
+
 class _Parser(argparse.ArgumentParser):
     """Usage errors are bad input: one line (or one JSON object with --json), exit code 2."""
     def error(self, message: str):  # noqa: ANN201
@@ -55,8 +70,9 @@ def _option_flags(parser: argparse.ArgumentParser, names: Any, says: dict[str, s
         words = (says or {}).get(name, option.says)
         if option.kind == "switch":
             parser.add_argument(option.flag, dest=name, action="store_const", const=not option.default, help=words)
-        elif name == "method":
-            parser.add_argument(option.flag, dest=name, choices=_methods(), help=words)
+        elif name == "method":  # the names listed only when asked (the registry imports SciPy)
+            parser.add_argument(option.flag, dest=name, choices=_Methods(), metavar="METHOD",
+                                help=f"{words}: %(choices)s")
         else:
             parser.add_argument(option.flag, dest=name, type=kinds[option.kind], help=words,
                                 metavar="SECONDS" if name == "time_limit" else None)
@@ -308,18 +324,18 @@ def safe_output_path(name: str, overwrite: bool) -> Path:
 
 
 def _solve(args: argparse.Namespace) -> tuple[int, Any]:
-    from ..public import solve
-    from ..reduce.prepared import cached, prepare, remember, spec_key
-
     overrides = _constants(args.set)
-    key = spec_key(args.spec, overrides)
-    problem = cached(key)  # prepared by an earlier run: no parsing, no SymPy
+    text = args.spec_text  # read once (see _main): the key, the check of a kept preparation, the problem
+    from ..errors import BvpkitError, ProgramError
+    from .kept import cached, remember, spec_key
+
+    key = spec_key(text, overrides)
+    problem = cached(key, text, overrides)  # prepared by an earlier run: no parsing, no SymPy
     fresh = problem is None
     if fresh:
-        from .. import load
-
-        loaded = load(args.spec)
-        problem = prepare(loaded.with_constants(**overrides) if overrides else loaded)
+        problem = _prepare_spec(args.spec, text, overrides)
+    # the files to write come from the spec's text (a kept preparation is used only when its
+    # settings agree with it, and then they are replaced by the text's own)
     save = problem.settings.get("save", {})
     csv_path = _writable(args.csv)
     csv_out = json_out = None
@@ -327,9 +343,22 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         csv_out = SpecOutput(save["solution_csv"], args.overwrite, "solution_csv")
     if save.get("report_json"):
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
-    solution = solve(problem, **_flag_values(args, OPTIONS))
+    options = _flag_values(args, OPTIONS)
+    from ..public import solve  # after the problem is read: a bad spec does not wait for SciPy
+
+    try:
+        solution = solve(problem, **options)
+    except Exception as err:  # noqa: BLE001 - only a kept preparation is retried; a fresh one's error stands
+        if fresh or (isinstance(err, BvpkitError) and not isinstance(err, ProgramError)):
+            raise
+        # a kept preparation that passed every check and still fails in use: prepared afresh
+        from ..programs.compiled import note
+
+        note(f"cache entry for {args.spec} skipped: it failed in use ({type(err).__name__}); prepared afresh")
+        problem, fresh = _prepare_spec(args.spec, text, overrides), True
+        solution = solve(problem, **options)
     if fresh:
-        remember(key, problem)
+        remember(key, problem, text, overrides)
     # the user asked for the file: a failed solve's is written too, every header saying it failed
     if csv_path is not None:
         solution.to_csv(csv_path, allow_failed=True)
@@ -351,11 +380,27 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     return solution.status.exit_code, None
 
 
+def _load(args: argparse.Namespace):  # noqa: ANN202 - a Problem
+    """The problem of the spec file (its text read once, in _main), validated."""
+    from .spec import loads
+
+    return loads(args.spec_text, str(args.spec))
+
+
+def _prepare_spec(path: str, text: str, overrides: dict[str, float]):  # noqa: ANN202 - a Prepared
+    from ..reduce.prepared import prepare
+    from .spec import loads
+
+    loaded = loads(text, str(path))
+    return prepare(loaded.with_constants(**overrides) if overrides else loaded)
+
+
 def _trace(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load, trace
+    from .. import trace
+    from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
-    problem = load(args.spec)
+    problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     settings = dict(problem.settings.get("trace", {}))
@@ -415,10 +460,11 @@ def _trace(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import fold_curve, load
+    from .. import fold_curve
+    from ..errors import OptionError
 
     _writable(args.csv), _picture(args.plot)
-    problem = load(args.spec)
+    problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
     settings = dict(problem.settings.get("fold_curve", {}))
@@ -456,13 +502,14 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
 
 
 def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load, sweep
+    from .. import sweep
+    from ..errors import MissingExtraError, OptionError
 
     _writable(args.csv), _picture(args.plot)
     if args.store is not None:
         _no_nul(args.store, "store")
     grid = _grid(args.grid) if args.grid else None
-    problem = load(args.spec)
+    problem = _load(args)
     settings = dict(problem.settings.get("sweep") or {})
     if grid is not None:
         settings["grid"] = grid
@@ -516,10 +563,9 @@ def _units_line(units: dict[str, str], names: Sequence[str]) -> str:
 
 
 def _check(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import load
     from ..reduce.form import standard_form
 
-    problem = load(args.spec)
+    problem = _load(args)
     form = standard_form(problem)
     report = check_report(problem, form)
     for section in ("trace", "sweep"):
@@ -611,6 +657,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _main(arguments)
     except KeyboardInterrupt:
         return _interrupted(wants_json)
+    except _OutputFailed as err:  # the standard output cannot take the outcome: said on stderr
+        return _fail(Status.BAD_INPUT, f"cannot write the standard output: {err}", False)
 
 
 def _wants_json(arguments: Sequence[str]) -> bool:
@@ -628,9 +676,17 @@ def _main(arguments: list[str]) -> int:
 
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
                    "fold-curve": _fold_curve}[args.command]
+        if getattr(args, "spec", None) is not None:
+            from .specfile import read_spec
+
+            # once, first, before anything heavy is imported: a FIFO, a device or a file past
+            # the size limit is refused in a fraction of a second, and never read whole
+            args.spec_text = read_spec(args.spec)
         code, report = handler(args)
     except KeyboardInterrupt:
         return _interrupted(wants_json)
+    except _OutputFailed:
+        raise
     except BvpkitError as err:
         return _fail(Status.BAD_INPUT, err.one_line(), wants_json)
     except OSError as err:  # writing an output file failed after all (disk full, permissions)
@@ -663,27 +719,47 @@ def _ignore_interrupts() -> None:
         pass
 
 
+class _OutputFailed(Exception):  # noqa: N818 - not an error of the input: the standard output is full or gone
+    """The standard output refused a write (a full disk, ``> /dev/full``)."""
+
+
 def _say(text: str, stream: Any = None) -> None:
     """Print a line; a reader that went away (``| head``, ``| true``) silences the rest, nothing more.
 
-    The exit code is the outcome's, whatever happened to the output.
+    The exit code is the outcome's, whatever happened to the output. Any other failure to
+    write the standard output (a full disk) raises :class:`_OutputFailed`, which :func:`main`
+    says in one line on standard error (exit code 2); standard error's own failures are
+    ignored.
     """
     stream = stream or sys.stdout
     try:
         print(text, file=stream, flush=True)
     except BrokenPipeError:
-        try:
-            devnull = os.open(os.devnull, os.O_WRONLY)
-            os.dup2(devnull, stream.fileno())  # Python's final flush at exit must not fail again
-            os.close(devnull)
-        except (OSError, ValueError):
-            pass
+        _silence(stream)
+    except OSError as err:
+        _silence(stream)
+        if stream is sys.stdout:
+            raise _OutputFailed(err.strerror or type(err).__name__) from None
+
+
+def _silence(stream: Any) -> None:
+    """Point ``stream`` at the null device: Python's final flush at exit must not fail again."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, stream.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):
+        pass
 
 
 def _fail(status: Status, message: str, wants_json: bool) -> int:
     if wants_json:
-        _say(json.dumps({"success": False, "status": status.word, "message": message}))
-    elif message.lower().startswith((status.word, status.word.replace("_", " "))):
+        try:
+            _say(json.dumps({"success": False, "status": status.word, "message": message}))
+            return status.exit_code
+        except _OutputFailed:  # the line goes to standard error instead
+            pass
+    if message.lower().startswith((status.word, status.word.replace("_", " "))):
         _say(f"bvpkit: {message}", sys.stderr)  # the message says the status itself: once is enough
     else:
         _say(f"bvpkit: {status.word}: {message}", sys.stderr)

@@ -72,9 +72,7 @@ from ..language import limits
 from ..language.options import OPTIONS
 from ..language.problem import Problem
 from ..language.units import check_units, names_with_units
-
-#: Spec files larger than this are refused unread: a real spec is a few kilobytes.
-MAX_SPEC_BYTES = 1_000_000
+from .specfile import read_spec
 
 Number = StrictInt | StrictFloat
 End = StrictInt | StrictFloat | StrictStr
@@ -479,21 +477,4 @@ def loads(text: str, source: str = "<spec>") -> Problem:
 
 def load(path: str | Path) -> Problem:
     """Read a spec file -> :class:`Problem` (solver settings and outputs carried along)."""
-    path = Path(path)
-    try:
-        size = path.stat().st_size
-        if size > MAX_SPEC_BYTES:
-            raise SpecError(f"{path}: {size} bytes; spec files are limited to {MAX_SPEC_BYTES}")
-        with open(path, "rb") as handle:
-            raw = handle.read(MAX_SPEC_BYTES + 1)
-    except FileNotFoundError:
-        raise SpecError(f"{path}: no such file") from None
-    except IsADirectoryError:
-        raise SpecError(f"{path}: is a folder, not a spec file") from None
-    except OSError as err:
-        raise SpecError(f"{path}: cannot read ({err.strerror})") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise SpecError(f"{path}: not UTF-8 text (byte {err.start})") from None
-    return loads(text, str(path))
+    return loads(read_spec(path), str(Path(path)))

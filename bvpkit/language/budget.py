@@ -48,6 +48,15 @@ from ..errors import ProblemError
 STEP_SECONDS = 10.0
 #: Name of the environment variable that overrides :data:`STEP_SECONDS`.
 SECONDS_VARIABLE = "BVPKIT_SYMBOLIC_SECONDS"
+#: Wall-clock seconds the preparation of a problem may take as a whole, over all its steps:
+#: reading it (:class:`~bvpkit.Problem`: parsing and the reduction to the standard form),
+#: preparing it (:func:`~bvpkit.prepare`: code generation, guess recipes, outputs), and the
+#: continuation's own preparation (its facts and the linearised path form), which is also
+#: bounded by what is left of the solve's time limit. Three steps at the cap of one still
+#: fit. ``BVPKIT_PREPARATION_SECONDS`` changes it.
+PREPARATION_SECONDS = 30.0
+#: Name of the environment variable that overrides :data:`PREPARATION_SECONDS`.
+PREPARATION_VARIABLE = "BVPKIT_PREPARATION_SECONDS"
 #: Nodes (operations and atoms) allowed in one expression after a step. The largest
 #: expression of the bundled specs and the test catalogue has about 120 (a singular
 #: coefficient with 20 factors); a runaway expansion makes millions. 20,000 is far above
@@ -73,7 +82,16 @@ _SAVED: dict[str, Any] = {}
 
 def step_seconds() -> float:
     """The cap on one step: :data:`STEP_SECONDS` or the environment's override."""
-    text = os.environ.get(SECONDS_VARIABLE)
+    return _seconds(SECONDS_VARIABLE, STEP_SECONDS)
+
+
+def preparation_seconds() -> float:
+    """The cap on a preparation as a whole: :data:`PREPARATION_SECONDS` or the environment's override."""
+    return _seconds(PREPARATION_VARIABLE, PREPARATION_SECONDS)
+
+
+def _seconds(variable: str, default: float) -> float:
+    text = os.environ.get(variable)
     if text:
         try:
             value = float(text)
@@ -81,7 +99,7 @@ def step_seconds() -> float:
             value = 0.0
         if value > 0 and value == value:
             return value
-    return STEP_SECONDS
+    return default
 
 
 def _can_alarm() -> bool:
@@ -104,7 +122,7 @@ def _arm() -> None:
 
 
 @contextmanager
-def budget(what: str, *, seconds: float | None = None, advice: str = "") -> Iterator[None]:
+def budget(what: str, *, seconds: float | None = None, advice: str = "", variable: str = "") -> Iterator[None]:
     """Stop the symbolic step run inside this block after ``seconds`` of wall time.
 
     Parameters
@@ -115,6 +133,9 @@ def budget(what: str, *, seconds: float | None = None, advice: str = "") -> Iter
         The cap (default :func:`step_seconds`).
     advice : str, optional
         What the user can do, appended to the error.
+    variable : str, optional
+        The environment variable that sets ``seconds``, named in the error (default: the
+        step's own, :data:`SECONDS_VARIABLE`, when ``seconds`` is not given).
 
     Raises
     ------
@@ -138,10 +159,9 @@ def budget(what: str, *, seconds: float | None = None, advice: str = "") -> Iter
         if expired.ticket is not ticket:
             raise  # an enclosing budget's deadline: it reports
         tail = f"; {advice}" if advice else ""
-        raise ProblemError(
-            f"{what} took longer than {limit:g} s and was stopped{tail} "
-            f"(the cap is set by {SECONDS_VARIABLE})"
-        ) from None
+        setter = SECONDS_VARIABLE if seconds is None else variable or "the time limit"
+        raise ProblemError(f"{what} took longer than {limit:g} s and was stopped{tail} (the cap is set by {setter})"
+                           ) from None
     finally:
         _ACTIVE[:] = [entry for entry in _ACTIVE if entry[1] is not ticket]
         if _ACTIVE:
@@ -153,6 +173,18 @@ def budget(what: str, *, seconds: float | None = None, advice: str = "") -> Iter
             since = _SAVED.pop("since")
             if delay > 0:  # a timer of the program's own: give back what is left of it
                 signal.setitimer(signal.ITIMER_REAL, max(delay - (time.monotonic() - since), 1e-3), interval)
+
+
+@contextmanager
+def preparation(what: str, *, deadline: float | None = None, advice: str = "") -> Iterator[None]:
+    """A :func:`budget` of :func:`preparation_seconds` around a whole preparation (its steps
+    keep their own caps inside it), ended sooner by ``deadline`` (``time.perf_counter()``
+    seconds: a solve's time limit)."""
+    limit, variable = preparation_seconds(), PREPARATION_VARIABLE
+    if deadline is not None and deadline - time.perf_counter() < limit:
+        limit, variable = max(deadline - time.perf_counter(), 0.05), "the solve's time_limit"
+    with budget(what, seconds=limit, advice=advice, variable=variable):
+        yield
 
 
 def size(expression: Any, limit: int = MAX_NODES) -> int:

@@ -474,7 +474,17 @@ class _Parser:
                     f"'{name}' takes {nargs} argument{'s' if nargs > 1 else ''}, got {len(args)}",
                     token,
                 )
-            return self._checked(func(*args), token)
+            try:
+                value = func(*args)
+            except ExpressionError:
+                raise
+            except (ArithmeticError, ValueError, TypeError, RecursionError) as err:
+                # SymPy evaluates a function of constants as it builds it: erfc(1e300) overflows
+                # inside mpmath, min(y, acos(2)) cannot order a complex constant
+                shown = ", ".join(_short(a) for a in args)
+                raise self._error(f"{name}({shown}) cannot be evaluated ({_reason(err)}); check its "
+                                  "arguments' range", token) from None
+            return self._checked(value, token)
         if name == INTEGRAL:
             if primes or not called:
                 raise self._error("write integral(expression) for an integral over the domain", token)
@@ -550,6 +560,17 @@ def _combine(operation: str, a: complex, b: complex) -> complex:
     if result == 0 and a != 0 and b != 0:
         return complex(math.inf)
     return result
+
+
+def _reason(err: Exception) -> str:
+    """SymPy's or mpmath's complaint in a few words of ours."""
+    if isinstance(err, OverflowError):
+        return "a number in it is too large for floating point"
+    if isinstance(err, ZeroDivisionError):
+        return "a division by zero"
+    if "comparable" in str(err):
+        return "an argument is not a real number"
+    return "it has no real value"
 
 
 def _short(e: sp.Expr) -> str:

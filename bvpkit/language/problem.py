@@ -11,7 +11,6 @@ standard form, then compiled code); see ``reduce.py`` and ``prepared.py``.
 
 from __future__ import annotations
 
-import hashlib
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
@@ -20,6 +19,7 @@ from typing import Any
 from .._lazy import LazyModule, applied_undef
 from ..errors import ExpressionError, ProblemError, closest
 from . import limits as _limits
+from .exact import exact_key
 from .options import SolveOptions
 
 sp = LazyModule("sympy")  # imported when a problem is first built from text
@@ -225,8 +225,10 @@ class Problem:
         # The reduction validates what only it can see (isolating the highest derivatives,
         # singular terms), so a Problem that constructs is a Problem that can be prepared.
         from ..reduce.form import standard_form
+        from .budget import preparation
 
-        standard_form(self)
+        with preparation("reducing the problem to first order", advice="simplify the equations"):
+            standard_form(self)
 
     def __setattr__(self, name: str, value: Any) -> None:
         if self.__dict__.get("_frozen"):
@@ -520,12 +522,14 @@ class Problem:
     def _same(self, p: sp.Expr, q: sp.Expr) -> bool:
         if p == q:
             return True
+        if p.has(sp.oo, -sp.oo) or q.has(sp.oo, -sp.oo):
+            return False  # inf and -inf are different ends (their float difference compares as "near")
         if p.is_number and q.is_number:
             try:
                 return abs(float(p) - float(q)) <= 1e-12 * max(1.0, abs(float(q)))
             except (TypeError, ValueError):
                 return False
-        return sp.simplify(p - q) == 0 if not (p.has(sp.oo) or q.has(sp.oo)) else False
+        return sp.simplify(p - q) == 0
 
     def which_point(self, point: sp.Expr) -> int | None:
         """Index of ``point`` among :attr:`points` (ends and interfaces), or None."""
@@ -625,6 +629,15 @@ class Problem:
         total = sum(self.orders.values())
         jumping = sum(len(s) for s in jumps.values())
         needed = total + free + jumping - self_phase
+        if self._shifts():
+            first = self.unknowns[0]
+            more = ("" if len(self.conditions) < needed else
+                    "; with it the count is one over: make a constant such as a front's speed an unknown parameter")
+            raise ProblemError(
+                f"the solution can be shifted along {self.independent} (the equations do not hold {self.independent} "
+                f"and every condition is at -inf or inf); fix it with a condition such as {first}(0) = ... (a value "
+                f"between those at the two ends){more}"
+            )
         if len(self.conditions) == needed:
             return
         parts = [" + ".join(f"{self.orders[n]} for {n}" for n in self.unknowns)]
@@ -646,10 +659,27 @@ class Problem:
             interfaces = (f"; at the interface{'s' if len(self.points) > 3 else ''} {self.independent} = {held} every "
                           "state is continuous unless a condition takes its one-sided values (f(L-), f(L+)), and "
                           "each state that jumps needs one more condition")
+        both = ""
+        if all(self.infinite):
+            both = "; on (-inf, inf) a second-order equation usually takes one condition at each end"
+            if (len(self.conditions) == needed + 1 and len(self.points) > 2
+                    and not any(self.x in _without_functions(eq).free_symbols for eq in self.equations)):
+                both += ("; a front placed by a condition inside, such as u(0) = 1/2, needs its speed as an unknown "
+                         "parameter")
         raise ProblemError(
             f"{len(self.conditions)} boundary condition(s) given, {needed} needed ({text}): the count must "
-            f"equal the total differential order plus the number of unknown parameters{interfaces}"
+            f"equal the total differential order plus the number of unknown parameters{interfaces}{both}"
         )
+
+    def _shifts(self) -> bool:
+        """Whether every solution can be moved along the variable: both ends infinite, no point
+        inside, no equation holding the variable, and no condition holding it (in an integral
+        such as ``integral(x*u) = 0``, which would fix the position)."""
+        if not all(self.infinite) or len(self.points) > 2:
+            return False
+        if any(self.x in _without_functions(eq).free_symbols for eq in self.equations):
+            return False
+        return not any(self.x in c.free_symbols for c in self.conditions)
 
     def _needs_phase(self) -> bool:
         """A periodic problem with an unknown period on autonomous equations needs a phase condition.
@@ -750,13 +780,15 @@ class Problem:
         """A hash of the problem's structure: what it says, not the values of its constants or
         the guesses of its parameters (those change without new code). With ``generated``,
         also what else is turned into code: the guess expressions and the outputs."""
-        parts = [self.independent, self.unknowns, self.equation_text, self.condition_text,
-                 [sp.srepr(p) for p in self.points], list(self.constants), list(self.unknown_parameters),
+        # the parsed expressions, every number by its exact binary value (text printed by
+        # SymPy shows 15 digits: 1.0 and 1.0000000000000049 alike)
+        parts = [self.independent, self.unknowns, self.equations, self.conditions,
+                 list(self.points), list(self.constants), list(self.unknown_parameters),
                  self.eigenvalue, self.mode,
-                 [(r.equation_text, sorted(r.constants)) for r in self.regions]]
+                 [(r.equations, sorted(r.constants)) for r in self.regions]]
         if generated:
-            parts += [sorted((k, sp.srepr(v)) for k, v in self.guess.items()), sorted(self.outputs.items())]
-        return hashlib.sha256(repr(parts).encode()).hexdigest()[:32]
+            parts += [sorted(self.guess.items()), sorted(self.outputs.items())]
+        return exact_key(parts)
 
     @property
     def point_labels(self) -> list[str]:

@@ -78,7 +78,7 @@ class Trial:
         Meshes on which Newton's method may fail to converge, from the start, before the method
         gives up with :attr:`~bvpkit.status.Status.NOT_CONVERGED` (the selector sets it when
         continuation from an easier problem can take over; None: no limit, refinement goes on).
-    features : tuple of bvpkit.reduce.features.Feature
+    features : tuple of bvpkit.methods.features.Feature
         Narrow features and corners of the equations' terms in ``t`` alone, found before the
         solve: a method's first mesh keeps the points graded into them, its integrators stop at
         the corners and take short steps across them.
@@ -164,6 +164,13 @@ class Method:
     #: (``"singular_term"``: a term ``S y / t`` singular at ``t = 0``); the selector offers a
     #: problem only to the methods that take all its classes need.
     takes: ClassVar[frozenset[str]] = frozenset()
+    #: The cost model the selector reads for a method declaring "tight": the order of accuracy
+    #: in the mesh spacing (0: no mesh, e.g. shooting) and the work per mesh node of a whole
+    #: solve with its error estimate, relative to a method of ``node_cost`` 1. A mesh of
+    #: order ``q`` needs nodes ~ ``tol**(-1/q)``, so the work of two methods compares as
+    #: ``node_cost * tol**(-1/q)``.
+    order: ClassVar[int] = 0
+    node_cost: ClassVar[float] = 1.0
 
     def solve(self, trial: Trial) -> Outcome:
         """Solve, check the result is finite, and (if asked) estimate and control the error.

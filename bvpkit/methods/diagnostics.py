@@ -300,6 +300,22 @@ class Survey:
 _SURVEY_POINTS = 11
 
 
+def _real_parts(matrices):  # noqa: ANN001, ANN202
+    """Real parts of the eigenvalues of a stack of square matrices ``(k, n, n)``, shape ``(k, n)``;
+    one and two states in closed form (LAPACK's call per matrix costs more than the arithmetic)."""
+    import numpy as np
+
+    n = matrices.shape[-1]
+    if n == 1:
+        return matrices[:, :, 0]
+    if n == 2:
+        a, b, c, d = matrices[:, 0, 0], matrices[:, 0, 1], matrices[:, 1, 0], matrices[:, 1, 1]
+        half = 0.5 * (a + d)
+        root = np.sqrt(np.maximum(0.25 * (a - d) ** 2 + b * c, 0.0))  # complex pair: no real part added
+        return np.stack([half + root, half - root], axis=1)
+    return np.linalg.eigvals(matrices).real
+
+
 def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     """Survey the growth and stiffness of the linearised problem along the guess ``(x, y)``."""
     import numpy as np
@@ -313,14 +329,14 @@ def survey(compiled, x, y, p, k) -> Survey:  # noqa: ANN001
     with np.errstate(all="ignore"), one_blas_thread(compiled.n):  # threaded eigvals: 20x slower on 2 busy cores
         jac = compiled.jac(x[at], y[:, at], p, k)  # (n, n, len(at))
         finite = bool(np.isfinite(jac).all())
-        eig = np.linalg.eigvals(np.moveaxis(jac, -1, 0)) if finite else np.full((at.size, 1), np.nan)
-    if not np.isfinite(eig).all():
+        real = _real_parts(np.moveaxis(jac, -1, 0)) if finite else np.full((at.size, 1), np.nan)
+    if not np.isfinite(real).all():
         return Survey(float(x[-1] - x[0]), math.inf, math.inf, np.full(x.size, np.inf))
-    sampled = np.maximum(eig.real.max(axis=1), 0.0)
+    sampled = np.maximum(real.max(axis=1), 0.0)
     rates = np.interp(x, x[at], sampled)
     log_growth = float(np.sum(0.5 * (rates[1:] + rates[:-1]) * np.diff(x)))
     length = float(x[-1] - x[0])
-    stiffness = float(np.abs(eig.real).max() * length)
+    stiffness = float(np.abs(real).max() * length)
     return Survey(length, math.exp(min(log_growth, 700.0)), stiffness, rates)
 
 

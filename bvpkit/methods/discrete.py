@@ -213,10 +213,10 @@ def _augmented(left, right, parameters, a, b, dp):  # noqa: ANN001, ANN202
     """
     k, n = left.shape[0] + 1, left.shape[1]
     n_p = 0 if parameters is None else parameters.shape[2]
-    touches_right = np.any(b != 0, axis=1)
-    right_rows = np.flatnonzero(touches_right)
-    left_rows = np.flatnonzero(~touches_right)
-    carried = np.flatnonzero(np.any(a[right_rows] != 0, axis=0)) if right_rows.size else np.zeros(0, int)
+    touches_right = (b != 0).any(axis=1)
+    right_rows = touches_right.nonzero()[0]
+    left_rows = (~touches_right).nonzero()[0]
+    carried = (a[right_rows] != 0).any(axis=0).nonzero()[0] if right_rows.size else np.zeros(0, int)
     q = carried.size
     N = n + q + n_p
     if q == 0 and n_p == 0:
@@ -465,8 +465,9 @@ class CollocationEquations:
             f = c.rhs(self.x, y, p, k)
             ym = midpoint_values(y, f, h)
         # (m, n, n) and (m-1, n, n), contiguous: batched products run twice as fast on them
-        J = np.ascontiguousarray(np.moveaxis(c.jac(self.x, y, p, k), -1, 0))
-        Jm = np.ascontiguousarray(np.moveaxis(c.jac(self.mid, ym, p, k), -1, 0))
+        # (transpose, not np.moveaxis: the latter's axis checks cost more than the copy here)
+        J = np.ascontiguousarray(c.jac(self.x, y, p, k).transpose(2, 0, 1))
+        Jm = np.ascontiguousarray(c.jac(self.mid, ym, p, k).transpose(2, 0, 1))
         if seen is not None:
             seen.update(J=J, Jm=Jm)
         hh = h[:, None, None]
@@ -480,8 +481,8 @@ class CollocationEquations:
         right[:, diagonal, diagonal] += 1.0
         block = None
         if self.n_p:
-            P = np.moveaxis(c.pjac(self.x, y, p, k), -1, 0)  # (m, n, n_p)
-            Pm = np.moveaxis(c.pjac(self.mid, ym, p, k), -1, 0)
+            P = c.pjac(self.x, y, p, k).transpose(2, 0, 1)  # (m, n, n_p)
+            Pm = c.pjac(self.mid, ym, p, k).transpose(2, 0, 1)
             dym = -hh / 8 * (P[1:] - P[:-1])
             block = -hh / 6 * (P[:-1] + P[1:] + 4 * (Pm + Jm @ dym))
         return left, right, block, c.bc_jac(y[:, 0], y[:, -1], p, k)

@@ -27,25 +27,27 @@ import math
 import numpy as np
 import scipy.sparse as sparse
 
-from ..reduce.features import pieces
 from ..status import Status
+from . import variational
 from .base import Method, Outcome, Trial
 from .collocation import check_by_defect
 from .diagnostics import crossings, hermite, survey
 from .discrete import SingularMatrix, factor_blocks
+from .features import pieces
+from .variational import _BLOWUP, _MAX_CALLS, _MAX_NEWTON, _MIN_STEP, _BlowUp, _Flow
 
 # Integration tolerance relative to the tolerance asked: the integrator's local control
 # leaves a global error of a few times its rtol on smooth problems.
 _IVP_SHARE = 0.1
 _IVP_FLOOR = 1e-13  # DOP853 refuses rtol below 100 * machine epsilon
-_MAX_NEWTON = 40
-_MIN_STEP = 1.0 / 256  # smallest line-search step before giving up
+# One segment integrates the whole interval: DOP853's global error there was 25 times its rtol
+# (Blasius on [0, 10]), so a tenth of the tolerance missed it and cost a second, tightened
+# solve; a hundredth costs 10**(1/8) = 1.33 times the steps of an order-8 method.
+_ONE_SEGMENT_SHARE = 0.01
 _STIFF = 2000.0  # max |Re eig J| * length above which an implicit integrator is used
 _SEGMENT_LOG_GROWTH = math.log(20.0)  # target sensitivity growth per segment (along the guess)
 _SPLIT_GROWTH = 1e6  # a segment whose sensitivities grow more than this is split
 _MAX_SEGMENTS = 400
-_BLOWUP = 1e150  # a state this large is a blow-up, not a solution
-_MAX_CALLS = 60_000  # right-hand-side calls per integration (~5000 DOP853 steps): bounds time and memory
 
 
 # Below this integration tolerance the refined re-solve of the error estimate cannot be 100 times
@@ -57,12 +59,6 @@ _ILL = (": the problem is so ill-conditioned that double precision cannot reach 
         "method")
 
 
-class _BlowUp(Exception):
-    def __init__(self, x: float, state: int, what: str, segment: int = -1):
-        super().__init__(what)
-        self.x, self.state, self.what, self.segment = x, state, what, segment
-
-
 @dataclasses.dataclass
 class _State:
     """What a converged shooting solve keeps for its refined re-solve: its segments' nodes and
@@ -72,16 +68,7 @@ class _State:
     nodes: np.ndarray
     stiff: bool
     states: object = None
-
-
-@dataclasses.dataclass
-class _Flow:
-    """Result of integrating every segment from given node states."""
-    ends: np.ndarray  # (n, M) states at the segment ends
-    phi: np.ndarray  # (n, n, M)
-    psi: np.ndarray  # (n, n_p, M)
-    dense: object  # OdeSolution of the stacked system (or None)
-    max_growth: np.ndarray  # (M,) max |Phi| per segment
+    secant: object = None  # single shooting: its last Newton matrix (a variational.Secant)
 
 
 class Shooting(Method):
@@ -175,17 +162,25 @@ class Shooting(Method):
         s = spline(nodes[:-1])
         if not np.all(np.isfinite(s)):
             s = np.array([np.interp(nodes[:-1], x, row) for row in y])
-        rtol = max(_IVP_FLOOR, trial.tol * _IVP_SHARE)
+        rtol = max(_IVP_FLOOR, trial.tol * (_ONE_SEGMENT_SHARE if nodes.size == 2 else _IVP_SHARE))
         return self._newton(trial, nodes, s, p, rtol, stiff)
 
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
-        """The same solve with a 100 times tighter integrator, started from ``outcome``."""
+        """The same solve with a tighter integrator, started from ``outcome`` (100 times tighter;
+        one segment: 10 times, from the solve's own matrix, on the solve's halved mesh)."""
         refined = dataclasses.replace(trial, tol=max(trial.tol * 1e-2, _IVP_FLOOR / _IVP_SHARE),
                                       x=outcome.x, y=outcome.y, p=outcome.p)
         state = outcome.workspace
         if not isinstance(state, _State):
             return self._solve(refined)
         s = outcome.y[:, np.searchsorted(outcome.x, state.nodes[:-1])]
+        if state.secant is not None:
+            # one segment: the re-solve starts from the solve's own matrix and gives its states on
+            # the solve's halved mesh (what the estimate compares), with no output mesh of its own;
+            # a tenth of the solve's own integration error is all the estimate needs
+            rtol = max(_IVP_FLOOR, trial.tol * _ONE_SEGMENT_SHARE * 0.1)
+            return variational.reference(self, refined, state.nodes, s, outcome.p, rtol, state.secant, outcome.x,
+                                         trial.tol)
         rtol = max(_IVP_FLOOR, refined.tol * _IVP_SHARE)
         return self._newton(refined, state.nodes, s, outcome.p, rtol, state.stiff)
 
@@ -209,6 +204,8 @@ class Shooting(Method):
               stiff: bool, dense: bool = False, sensitivities: bool = True, max_step: float = np.inf) -> _Flow:
         c, k = trial.compiled, trial.k
         n, n_p, segments = c.n, c.n_parameters, nodes.size - 1
+        if segments == 1 and not stiff:  # one point per call: the fused variational system
+            return variational.one_segment_flow(trial, nodes, s, p, rtol, dense, sensitivities, max_step)
         t0, h = nodes[:-1], np.diff(nodes)
         size = n + (n * n + n * n_p if sensitivities else 0)
         start = np.zeros((size, segments))
@@ -258,7 +255,8 @@ class Shooting(Method):
             options.update(method="Radau", jac_sparsity=block)
         else:
             options.update(method="DOP853")
-        result = _integrate(solve_ivp, rhs, start.ravel(), options, pieces(trial.features, t0, h))
+        result = variational.integrate(solve_ivp, rhs, (0.0, 1.0), start.ravel(), options,
+                                       pieces(trial.features, t0, h))
         if result.status != 0:
             tau = float(result.t[-1]) if result.t.size else 0.0
             where = t0 + tau * h
@@ -295,6 +293,8 @@ class Shooting(Method):
     def _newton(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
                 stiff: bool) -> Outcome:
         n = trial.compiled.n
+        if nodes.size == 2 and not stiff and n + trial.compiled.n_parameters <= variational.MAX_BROYDEN:
+            return variational.secant_newton(self, trial, nodes, s, p, rtol)
         x_guess, y_guess = np.asarray(trial.x, float), np.asarray(trial.y, float)
 
         def failure(status: Status, message: str, iterations: int) -> Outcome:
@@ -411,13 +411,15 @@ class Shooting(Method):
         keep = np.argsort(starts)
         return new_nodes[order], new_s[:, keep]
 
-    def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix) -> Outcome:  # noqa: ANN001
-        """Build the output mesh from the dense output, fine enough for the C1 interpolant."""
+    def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix, flow=None) -> Outcome:  # noqa: ANN001
+        """Build the output mesh from the dense output, fine enough for the C1 interpolant
+        (``flow``: the last trial's, when it was integrated with its dense output)."""
         c, k, n = trial.compiled, trial.k, trial.compiled.n
         # A tiny Newton step is not enough: on an ill-conditioned shooting matrix the step
         # stalls while the conditions are still missed. Check the residual itself.
         try:  # one pass: the dense output changes none of the integrator's steps
-            flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
+            if flow is None or flow.dense is None:
+                flow = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False)
         except _BlowUp as err:  # pragma: no cover - the same integration just succeeded
             return Outcome(Status.INTEGRATION_FAILED, str(err), trial.x, trial.y, p, iterations=iterations)
         residual = self._residual(trial, s, p, flow)
@@ -447,7 +449,7 @@ class Shooting(Method):
         def states(points: np.ndarray) -> np.ndarray:
             j = np.clip(np.searchsorted(nodes, points, side="right") - 1, 0, segments - 1)
             tau = np.clip((points - nodes[j]) / h[j], 0.0, 1.0)
-            values = flow.dense(tau).reshape(n, segments, tau.size)
+            values = variational.dense_values(flow.dense, tau).reshape(n, segments, tau.size)
             return values[:, j, np.arange(tau.size)] + tau * gap[:, j]
 
         taus = np.unique(np.concatenate([np.linspace(0, 1, 5), flow.dense.ts]))
@@ -538,10 +540,13 @@ def _output_mesh(trial: Trial, x: np.ndarray, states, p: np.ndarray, rtol: float
             scale = c.row_scale(p, k) + np.abs(f)
             slope_miss = np.max(np.abs(spline.derivative()(mid) - f) / scale, axis=0)
             noise = np.max(10.0 * rtol * (1.0 + np.abs(exact)) / h / scale, axis=0)
-        bad = (miss > trial.tol * 0.1) | ((slope_miss > trial.tol**0.75) & (slope_miss > noise))
+        slow = (slope_miss > trial.tol**0.75) & (slope_miss > noise)
+        bad = (miss > trial.tol * 0.1) | slow
         if not bad.any() or x.size > trial.max_nodes:
             break
-        x = np.sort(np.concatenate([x, mid[bad]]))
+        # split each interval by the factor its miss predicts (a cubic's error goes as h**4, its slope's as h**3)
+        x = variational.subdivide(x, bad, np.maximum((miss / (trial.tol * 0.1)) ** 0.25,
+                                                      np.where(slow, slope_miss / trial.tol**0.75, 0.0) ** (1 / 3)))
         y = states(x)
     return x, y
 
@@ -556,35 +561,3 @@ def _check_floor(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nd
     moved, _ = check_by_defect(compiled, x, noisy, p, k)
     return 2.0 * abs(moved - check) if math.isfinite(moved) else 0.0
 
-
-def _integrate(solve_ivp, rhs, start: np.ndarray, options: dict, parts: list):  # noqa: ANN001, ANN202
-    """``solve_ivp`` over ``tau`` in ``[0, 1]`` in the pieces ``(a, b, max_step)`` of
-    :func:`bvpkit.reduce.features.pieces`: restarted at each corner of the equations, and with steps
-    no longer than a narrow feature's width across it (an integrator that steps over a
-    feature never sees it). One call when there is one piece; otherwise the pieces' results
-    joined into one (their dense outputs too)."""
-    if len(parts) == 1:
-        return solve_ivp(rhs, (0.0, 1.0), start, **options)
-    from types import SimpleNamespace
-
-    from scipy.integrate import OdeSolution
-
-    times, states, solutions = [np.zeros(1)], [start[:, None]], []
-    result = None
-    for a, b, step in parts:
-        chosen = dict(options, max_step=min(options.get("max_step", np.inf), step))
-        result = solve_ivp(rhs, (a, b), start, **chosen)
-        if result.status != 0:
-            result.t = np.concatenate([*times, result.t])
-            return result
-        times.append(result.t[1:])
-        states.append(result.y[:, 1:])
-        if options.get("dense_output"):
-            solutions.append(result.sol)
-        start = result.y[:, -1]
-    sol = None
-    if solutions:
-        ts = np.concatenate([solutions[0].ts, *(s.ts[1:] for s in solutions[1:])])
-        sol = OdeSolution(ts, [piece for s in solutions for piece in s.interpolants])
-    return SimpleNamespace(status=0, message=result.message, t=np.concatenate(times), y=np.concatenate(states, axis=1),
-                           sol=sol)

@@ -21,6 +21,7 @@ import sympy as sp
 
 from ..errors import ProgramError
 from ..language.budget import budget
+from ..language.exact import exact_key
 from . import program as _program
 from .compiled import (
     _MEMORY,
@@ -174,6 +175,18 @@ def _function_program(
     exprs = [e.replace(sp.DiracDelta, lambda *_: sp.S.Zero) if e.has(sp.DiracDelta) else e
              for e in (entries[key] for key in keys)]
     temps, reduced = sp.cse(exprs, symbols=sp.numbered_symbols("_t"), order="none")
+    # a constant CSE pulled out (2*pi used twice) goes back into the expressions as one number:
+    # programs never hold arithmetic on Python numbers (bvpkit.programs.program)
+    numeric: dict = {}
+    kept = []
+    for t, e in temps:
+        e = e.xreplace(numeric) if numeric else e
+        if e.is_number:
+            numeric[t] = e
+        else:
+            kept.append((t, e))
+    if numeric:
+        temps, reduced = kept, [e.xreplace(numeric) for e in reduced]
     # programs name temporaries _t0, _t1, ... in the order they are defined
     names = {t: sp.Symbol(f"_t{i}") for i, (t, _) in enumerate(temps)}
     try:
@@ -322,7 +335,7 @@ def compile_expressions(
 ) -> Callable:
     """A vectorised callable ``(*args) -> ndarray, shape (len(exprs), m)`` (cached by content),
     carrying its program as ``.program``."""
-    key = (tuple(sp.srepr(e) for e in exprs), tuple((a, tuple(map(str, s))) for a, s in args), mesh)
+    key = exact_key([list(exprs), [(a, list(s)) for a, s in args], mesh])
     cached = _QUANTITIES.get(key)
     if cached is None:
         entries = {(i,): e for i, e in enumerate(exprs)}

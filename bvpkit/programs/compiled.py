@@ -10,8 +10,9 @@ afresh and checks it before compiling. No stored text is ever executed.
 
 Cache files are read only from a folder owned by the user and not writable by group or
 others, only when they are regular files owned by the user (opened without following
-symbolic links) and at most ``CACHE_FILE_LIMIT`` bytes long. Anything else is skipped, with
-one note on the ``bvpkit.cache`` logger (the command line prints it to standard error).
+symbolic links) and at most ``CACHE_FILE_LIMIT`` bytes long, and used only when signed with
+the folder's key (:func:`signing_key`). Anything else is skipped, with one note on the
+``bvpkit.cache`` logger (the command line prints it to standard error).
 """
 
 from __future__ import annotations
@@ -27,7 +28,7 @@ import numpy as np
 from .. import __version__
 from ..errors import ProgramError
 from .layout import StateLayout
-from .program import build
+from .program import build, stored_size
 
 _LOG = logging.getLogger("bvpkit.cache")
 _LOG.addHandler(logging.NullHandler())  # a library does not print; the command line adds a handler
@@ -386,16 +387,66 @@ def code_stamp() -> str:
     return _STAMP[0]
 
 
-def checksum(body: Any) -> str:
-    """SHA-256 of a JSON-ready body (a guard against damage, not against a writer)."""
+KEY_FILE = "entry-key"  # in the cache folder: the secret every entry is signed with
+
+
+def signing_key(create: bool = False) -> bytes | None:
+    """The secret (32 random bytes, a file of mode 0600 in the private cache folder) that
+    signs every cache entry, or None (no private folder; with ``create``, a missing or
+    damaged key file is made anew, which leaves every older entry unsigned).
+
+    An entry is used only when its signature is this key's: an entry edited or written by
+    anyone who does not hold the key (a changed number, a file from another machine or
+    another copy of the folder) is skipped. A writer who can read the key (the user's own
+    account) can sign; against it, the program grammar's bounds still hold.
+    """
+    import os
+    import secrets
+
+    folder = private_folder(create=create)
+    if folder is None:
+        return None
+    path = folder / KEY_FILE
+    data = read_private(path)
+    if data is not None and len(data) == 32:
+        return data
+    if not create:
+        return None
+    fresh = secrets.token_bytes(32)
+    try:
+        if data is None and not path.exists():
+            try:  # the first writer wins; the others read its key
+                handle = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_NOFOLLOW", 0), 0o600)
+            except FileExistsError:
+                return signing_key(create=False)
+            with os.fdopen(handle, "wb") as out:
+                out.write(fresh)
+        else:  # damaged: replaced whole
+            write_atomically(path, fresh)
+            if read_private(path) != fresh:
+                return None
+    except OSError:
+        return None
+    return fresh
+
+
+def signature(body: Any, key: bytes | None = None) -> str | None:
+    """HMAC-SHA-256 of a JSON-ready body under the cache's :func:`signing_key` (None without one)."""
     import hashlib
+    import hmac
     import json
 
-    return hashlib.sha256(json.dumps(body, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+    key = key or signing_key()
+    if key is None:
+        return None
+    text = json.dumps(body, sort_keys=True, separators=(",", ":"))
+    return hmac.new(key, text.encode(), hashlib.sha256).hexdigest()
 
 
 def read_json(path: Any) -> Any:
-    """A cache file's ``body`` (see :func:`write_json`), or None: missing, skipped, damaged."""
+    """A cache file's ``body`` (see :func:`write_json`), or None: missing, skipped, damaged,
+    or not signed with this cache's key."""
+    import hmac
     import json
 
     if path is None or private_folder() is None:
@@ -406,19 +457,28 @@ def read_json(path: Any) -> Any:
     try:
         stored = json.loads(data)
         body = stored["body"]
-        if stored["sha256"] != checksum(body):
-            raise ValueError("checksum")
-    except (ValueError, KeyError, TypeError, RecursionError):
+        if type(stored.get("signature")) is not str:
+            raise ValueError("format")
+        wanted = signature(body)
+        if wanted is None or not hmac.compare_digest(stored["signature"], wanted):
+            note(f"cache entry {path.name} skipped: it is not signed with this cache's key (edited, or made "
+                 "elsewhere)")
+            return None
+    except (ValueError, KeyError, TypeError, AttributeError, RecursionError):
         note(f"cache entry {path.name} skipped: damaged or in an older format")
         return None
     return body
 
 
 def write_json(path: Any, body: Any) -> None:
-    """Keep a JSON-ready ``body`` with its checksum (see :func:`write_atomically`)."""
+    """Keep a JSON-ready ``body`` signed with the cache's key (see :func:`write_atomically`)."""
     import json
 
-    write_atomically(path, json.dumps({"body": body, "sha256": checksum(body)}, separators=(",", ":")))
+    if private_folder(create=True) is None:
+        return
+    signed = signature(body, signing_key(create=True))
+    if signed is not None:
+        write_atomically(path, json.dumps({"body": body, "signature": signed}, separators=(",", ":")))
 
 
 def read_cache(key: str) -> tuple[list, np.ndarray, np.ndarray] | None:
@@ -428,12 +488,15 @@ def read_cache(key: str) -> tuple[list, np.ndarray, np.ndarray] | None:
     if body is None:
         return None
     try:
-        if body["key"] != key or type(body["programs"]) is not list:
+        if type(body) is not dict or body.get("key") != key or type(body.get("programs")) is not list:
             raise ValueError("key")
+        stored_size(body["programs"])  # before anything is sized or built from it
         return body["programs"], np.array(body["pattern"], dtype=bool), np.array(body["sides"], dtype=int)
-    except (ValueError, KeyError, TypeError):
+    except ProgramError as err:
+        note(f"cache entry {path.name} skipped: {err.one_line()}")
+    except (ValueError, KeyError, TypeError, OverflowError, RecursionError):
         note(f"cache entry {path.name} skipped: it does not hold what its name says")
-        return None
+    return None
 
 
 def write_cache(key: str, programs: Sequence[dict], pattern: np.ndarray, sides: np.ndarray) -> None:
@@ -448,7 +511,7 @@ def write_cache(key: str, programs: Sequence[dict], pattern: np.ndarray, sides: 
 CACHE_KEEP = 500  # files of each kind (system-, problem-) kept; the oldest go first
 
 
-def write_atomically(path: Any, text: str) -> None:
+def write_atomically(path: Any, text: str | bytes) -> None:
     """Write a cache file: a temporary file (mode 0600) in the same folder, then ``os.replace``
     (safe for concurrent writers and readers); then drop the oldest files of the same kind
     beyond ``CACHE_KEEP``. Writes only into a private folder (made with mode 0700 if
@@ -462,7 +525,7 @@ def write_atomically(path: Any, text: str) -> None:
         if private_folder(create=True) != path.parent:
             return
         handle, temporary = tempfile.mkstemp(prefix=f".{kind}-", suffix=".tmp", dir=path.parent)  # mode 0600
-        with os.fdopen(handle, "w") as out:
+        with os.fdopen(handle, "wb" if isinstance(text, bytes) else "w") as out:
             out.write(text)
         os.replace(temporary, path)
         files = list(path.parent.glob(f"{kind}-*.json"))
@@ -499,13 +562,28 @@ def assemble(layout: StateLayout, programs: Sequence[dict], pattern: np.ndarray,
             or not np.isin(sides, (0, 1, 2)).all()):
         raise ProgramError("the Jacobian pattern or the condition sides do not fit the state layout")
     shapes = _expected_shapes(layout, sides.size)
+    n, n_p, n_k = layout.n, len(layout.parameters), len(layout.constants)
+    xyk = [["x", 1], ["y", n], ["p", n_p], ["k", n_k]]
+    ab = [["ya", n], ["yb", n], ["p", n_p], ["k", n_k]]
+    arguments = {name: (xyk, "y") if name in ("rhs", "jac", "pjac", "kjac") else ([["p", n_p], ["k", n_k]], None)
+                 if name in ("singular_matrix", "region_maps") else (ab, None) for name in shapes}
     if (not isinstance(programs, Sequence) or len(programs) != len(_FUNCTIONS)
             or any(not isinstance(q, dict) or q.get("name") not in shapes
-                   or q.get("shape") != shapes[q["name"]] for q in programs)):
+                   or q.get("shape") != shapes[q["name"]] for q in programs)
+            or sorted(q["name"] for q in programs) != sorted(_FUNCTIONS)
+            or any((_arity(q), q.get("mesh")) != arguments[q["name"]] for q in programs)):
         raise ProgramError("the programs are not the functions of a system with this state layout")
     compiled = CompiledSystem(layout, build(programs), pattern, sides, tuple(programs))
     _MEMORY[layout.key] = compiled
     return compiled
+
+
+def _arity(program: dict) -> list:
+    """``[[argument, number of symbols], ...]`` of a program (the grammar checks the symbols)."""
+    args = program.get("args")
+    if type(args) is not list or not all(type(a) is list and len(a) == 2 and type(a[1]) is list for a in args):
+        return []
+    return [[a[0], len(a[1])] for a in args]
 
 
 def load_compiled(layout: StateLayout) -> CompiledSystem | None:
@@ -531,8 +609,16 @@ def skipped(key: str, err: ProgramError) -> None:
 _QUANTITY_FUNCTIONS: dict[str, Callable] = {}
 
 
+_QUANTITY_BY_IDENTITY: dict[int, tuple[dict, Callable]] = {}
+
+
 def quantity_function(program: dict) -> Callable:
     """The callable of a quantity's program, built once per program text."""
+    # the same program object again (a guess recipe's, an output's, on every solve): found
+    # without printing it to a key; the entry keeps the object alive, so its id is not reused
+    known = _QUANTITY_BY_IDENTITY.get(id(program))
+    if known is not None and known[0] is program:
+        return known[1]
     import json
 
     key = json.dumps(program, sort_keys=True)
@@ -541,6 +627,9 @@ def quantity_function(program: dict) -> Callable:
         if len(_QUANTITY_FUNCTIONS) > 4_000:
             _QUANTITY_FUNCTIONS.clear()
         function = _QUANTITY_FUNCTIONS[key] = build_quantity(program)
+    if len(_QUANTITY_BY_IDENTITY) > 4_000:
+        _QUANTITY_BY_IDENTITY.clear()
+    _QUANTITY_BY_IDENTITY[id(program)] = (program, function)
     return function
 
 

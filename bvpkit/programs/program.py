@@ -80,6 +80,10 @@ MAX_NODES = 500_000  # tree nodes in one program: the largest of the bundled spe
 MAX_SYMBOLS = 10_000  # symbols one argument unpacks (states, parameters, constants, point values)
 MAX_OUTPUT_SIZE = 1_000_000  # entries of the output before the mesh axis: a dense Jacobian of 1000 states
 MAX_INTEGER = 2**53  # larger integers are written as floats by codegen (exact up to here)
+MAX_STORED_NODES = 60_000  # tree nodes in all the programs of one cache entry, counted before any is
+#   built: printing, checking and compiling cost about 40 microseconds a node (2 to 3 s at this
+#   size on a shared machine), so a planted entry cannot cost more. The 600-state reacting chain
+#   of benchmarks/scale.py has 9,000; a larger system is generated afresh each time, not read
 
 
 # -- validation and printing ------------------------------------------------------------------
@@ -182,6 +186,16 @@ class _Printer:
         if (arity is None and len(operands) < 2) or (arity is not None and len(operands) != arity):
             wanted = "two or more" if arity is None else str(arity)
             raise self.fail(f"'{op}' takes {wanted} operands, got {len(operands)}")
+        # What a program may cost is bounded by its size only if no arithmetic is done on
+        # Python numbers (an integer power such as 3**1000000000 runs for minutes, 1.0/0.0
+        # raises): codegen folds every constant into one number, so an operation always has
+        # an operand that comes from an argument (a NumPy value), and a sum or product holds
+        # at most one whole number.
+        constant = [_constant(item) for item in operands]
+        if all(constant) and not (op == "neg" and type(operands[0]) in (int, float)):
+            raise self.fail(f"'{op}' of numbers alone (a program holds each constant as one number)")
+        if op in ("add", "mul") and sum(_constant(item) is int for item in operands) > 1:
+            raise self.fail(f"'{op}' of more than one whole number (a program holds each constant as one number)")
         if op in ("add", "mul"):
             level, sign = (_ADD, " + ") if op == "add" else (_MUL, " * ")
             parts = [(sign, self.tree(operands[0], known, depth + 1))]
@@ -260,6 +274,8 @@ class _Printer:
         for i, temp in enumerate(temps):
             if type(temp) is not list or len(temp) != 2 or temp[0] != f"_t{i}":
                 raise self.fail(f"temporary {i} must be [\"_t{i}\", tree]")
+            if _constant(temp[1]):
+                raise self.fail(f"temporary {i} is a number alone (it would carry Python arithmetic)")
             body.append(self.statement(f"_t{i}", temp[1], known))
             known.add(f"_t{i}")
         seen = set()
@@ -288,6 +304,13 @@ class _Printer:
         return "\n".join(lines) + "\n"
 
 
+def _constant(node: Any) -> type | None:
+    """``int`` or ``float`` for a number or the negation of one, else None."""
+    if type(node) is list and len(node) == 2 and node[0] == "neg":
+        node = node[1]
+    return type(node) if type(node) in (int, float) else None
+
+
 def _shown(value: Any) -> str:
     text = repr(value)
     return text if len(text) <= 40 else text[:37] + "..."
@@ -295,6 +318,28 @@ def _shown(value: Any) -> str:
 
 def _kind(value: Any) -> str:
     return "an empty list" if value == [] else f"a {type(value).__name__} ({_shown(value)})"
+
+
+def stored_size(programs: Iterable[Any], limit: int = MAX_STORED_NODES) -> int:
+    """The number of tree nodes in ``programs`` (plain data as read from a cache), counted
+    without recursion and stopping past ``limit``; a :class:`~bvpkit.errors.ProgramError`
+    when there are more (nothing is built from them)."""
+    count, stack = 0, []
+    for program in programs:
+        if type(program) is not dict:
+            continue  # the grammar refuses it when built
+        for part in ("temps", "entries"):
+            items = program.get(part)
+            if type(items) is list:
+                stack += [item[1] for item in items if type(item) is list and len(item) == 2]
+    while stack:
+        node = stack.pop()
+        count += 1
+        if count > limit:
+            raise ProgramError(f"it holds more than {limit} terms (a larger system is generated afresh)")
+        if type(node) is list:
+            stack += node[1:]
+    return count
 
 
 def validate(program: Any) -> None:
@@ -325,6 +370,9 @@ _BINARY = (ast.Add, ast.Sub, ast.Mult, ast.Div, ast.Pow)
 
 class _SourceCheck:
     """Deny by default: each node type the printer emits is accepted in its place only."""
+
+    def __init__(self) -> None:
+        self.called: set[str] = set()  # the callables the source names (bound by build)
 
     @staticmethod
     def fail(node: ast.AST, what: str) -> ProgramError:
@@ -405,6 +453,7 @@ class _SourceCheck:
                 if node.keywords or len(node.args) != CALLABLES[f.id]:
                     raise self.fail(node, f"{f.id} takes {CALLABLES[f.id]} positional argument(s), "
                                           "no keywords")
+                self.called.add(f.id)
                 stack += node.args
             elif kind is ast.Subscript:
                 value = node.value
@@ -432,14 +481,20 @@ def check_source(source: str) -> ast.Module:
     tuples of sizes. Nothing else: no attributes, strings, subscripts of anything but the
     arguments, imports, lambdas, comprehensions, keywords, dunder names.
     """
+    return _checked(source)[0]
+
+
+def _checked(source: str) -> tuple[ast.Module, set[str]]:
+    """:func:`check_source`, and the names of the callables the source calls."""
     if not isinstance(source, str):
         raise ProgramError(f"generated source must be text, got {type(source).__name__}")
     try:
         tree = ast.parse(source, "<bvpkit-generated>", "exec")
     except (SyntaxError, ValueError, RecursionError, MemoryError) as err:
         raise ProgramError(f"generated source refused: it does not parse ({type(err).__name__})") from None
-    _SourceCheck().module(tree)
-    return tree
+    checker = _SourceCheck()
+    checker.module(tree)
+    return tree, checker.called
 
 
 def _callables(names: Iterable[str]) -> dict[str, Callable]:
@@ -482,8 +537,7 @@ def build(programs: Iterable[Mapping[str, Any]]) -> dict[str, Callable]:
         names.append(program["name"])
     if len(set(names)) != len(names):
         raise ProgramError(f"two programs share a name among {names}")
-    tree = check_source("".join(sources))
-    used = {n.func.id for n in ast.walk(tree) if type(n) is ast.Call}
+    tree, used = _checked("".join(sources))
     namespace: dict[str, Any] = {"__builtins__": {}, **_callables(used)}
     # The source was printed from validated plain data just now and passed check_source:
     # it names nothing but its arguments, internal symbols and the callables bound above.

@@ -12,6 +12,7 @@ of the eigenvalues).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -24,6 +25,9 @@ from .guess import fill_integrals, initial_mesh
 from .transform import Transform, register
 
 sp = LazyModule("sympy")
+
+#: The added state that integrates the squares of the functions.
+NORMALISATION = "integral of the squares (normalisation)"
 
 
 @register
@@ -57,7 +61,7 @@ class Eigenvalue(Transform):
             with budget("checking that the eigenvalue problem is linear"):
                 _check_linear(system[:users], work.local[:users], lam, problem)
         values = [work.local[i] for i, (_, order) in enumerate(work.states[:users]) if order == 0]
-        work.scratch[cls.kind] = work.add_state("integral of the squares (normalisation)",
+        work.scratch[cls.kind] = work.add_state(NORMALISATION,
                                                 [sum(v**2 for v in values)] * len(work.systems))
 
     @classmethod
@@ -89,6 +93,13 @@ class Eigenvalue(Transform):
             y[layout.user_rows] = vectors[layout.user_rows]
         p[self.index] = lam
         fill_integrals(compiled, t, y, p, k)
+        if not given:
+            # the vectors are normalised in t; the normalisation holds in the user's variable
+            # (dx = h dt): scaled so that it is met at the start
+            total = float(y[layout.rows(layout.states.index((NORMALISATION, 0)))[-1], -1])
+            if math.isfinite(total) and total > 0:
+                y[layout.user_rows] /= math.sqrt(total)
+                fill_integrals(compiled, t, y, p, k)
         return y, p
 
     def check(self, prepared, outcome, k):  # noqa: ANN001, ANN201

@@ -38,7 +38,6 @@ user's variable and states. User names never reach generated code: states are ``
 from __future__ import annotations
 
 import dataclasses
-import hashlib
 from dataclasses import dataclass, field, fields
 from typing import Any
 
@@ -47,6 +46,7 @@ from sympy.core.function import AppliedUndef
 
 from ..errors import ProblemError
 from ..language.budget import budget, check_sizes
+from ..language.exact import exact_key
 from ..programs.codegen import X  # the method variable t (named _x in generated code)
 from ..programs.layout import StateLayout, States
 from .classes import PIPELINE
@@ -138,8 +138,9 @@ class StandardForm(States):
         """A content hash: equal forms have equal keys (the compiled-code cache key)."""
         cached = self.__dict__.get("_key")
         if cached is None:
-            text = repr(tuple(getattr(self, f.name) for f in fields(self) if f.init))
-            cached = hashlib.sha256(text.encode()).hexdigest()[:32]
+            # every number by its exact binary value: forms that print alike to 15 digits
+            # (1.0 and 1.0000000000000049) must not share compiled code
+            cached = exact_key(tuple(getattr(self, f.name) for f in fields(self) if f.init))
             object.__setattr__(self, "_key", cached)
         return cached
 

@@ -4,8 +4,11 @@ Per unknown function, in order of preference: a guess passed to ``solve``, the p
 own guess expression, or a default: the lowest-degree polynomial (in the user's variable,
 over the whole domain) that satisfies the function's linear conditions, at the ends and at
 interfaces (so ``y(0) = 0, y(1) = 1`` gives ``y = x``, and ``f(0) = f'(0) = 0, f'(L) = 1``
-gives ``f = x**2 / (2 L)``). Each guess is a :class:`GuessRecipe`: plain data made once
-with SymPy (``prepared.py``), then evaluated on any mesh and for any constants without it.
+gives ``f = x**2 / (2 L)``). On a domain infinite at both ends the polynomial is one of
+``s = tanh(x / w)`` (``w`` an eighth of the truncated domain), which levels off towards
+both ends: ``u(-inf) = 1, u(0) = 1/2, u(inf) = 0`` gives the front ``(1 - tanh(x / w)) / 2``
+rather than a straight line through the far ends. Each guess is a :class:`GuessRecipe`:
+plain data made once with SymPy (``prepared.py``), then evaluated on any mesh and for any constants without it.
 Added states (integrals) start from the running integrals of their integrands (the map
 between t and the user's variable is in :mod:`bvpkit.reduce.mapping`).
 """
@@ -37,9 +40,10 @@ class GuessRecipe:
     """How to guess one unknown function on any mesh, as plain data (no SymPy).
 
     ``kind`` is ``"expression"`` (``program`` computes the function and its derivatives from
-    ``(x, p, k)``) or ``"polynomial"`` (the lowest-degree polynomial meeting the linear
+    ``(x, p, k)``), ``"polynomial"`` (the lowest-degree polynomial meeting the linear
     conditions on the function alone: ``conditions`` lists each one's ``(point, derivative)``
-    terms, and ``program`` computes their coefficients and constants from ``(p, k)``).
+    terms, and ``program`` computes their coefficients and constants from ``(p, k)``) or
+    ``"levelled"`` (the same, a polynomial of ``tanh(x / w)``: a domain infinite at both ends).
     Programs are plain data (:mod:`bvpkit.programs.program`).
     """
 
@@ -70,6 +74,10 @@ class GuessRecipe:
             if all(math.isfinite(v) for v in row.values()) and math.isfinite(constant):
                 rows.append(row)
                 rhs.append(-constant)
+        if self.kind == "levelled":
+            found = _fit_levelled(rows, rhs, self.order, x, float(points[0]), float(points[-1]))
+            if found is not None:
+                return found
         return _fit(rows, rhs, self.order, x, float(points[0]), float(points[-1]))
 
     def plain(self) -> dict[str, Any]:
@@ -155,7 +163,8 @@ def _polynomial_recipe(form, name: str, order: int, index: tuple | None = None) 
     if not terms_found:
         return GuessRecipe(name, order, "polynomial")
     f = compile_expressions(exprs, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x")
-    return GuessRecipe(name, order, "polynomial", f.program, terms_found)
+    kind = "levelled" if form.points[0] == -sp.oo and form.points[-1] == sp.oo else "polynomial"
+    return GuessRecipe(name, order, kind, f.program, terms_found)
 
 
 def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray, a: float, b: float) -> np.ndarray:
@@ -185,6 +194,52 @@ def _fit(rows: list[dict], rhs: list[float], order: int, x: np.ndarray, a: float
     # -4e-16, outside the domain of u**1.5 or sqrt(u)
     size = np.max(np.abs(values), axis=1, keepdims=True) if values.size else 0.0
     return np.where(np.abs(values) <= 64 * np.finfo(float).eps * size, 0.0, values)
+
+
+#: The levelled guess of a domain infinite at both ends uses ``tanh(x / w)`` with ``w`` this
+#: part of the truncated domain: it has levelled off to within 1e-3 at the truncation points.
+_LEVEL_WIDTH = 1.0 / 8
+
+
+def _fit_levelled(rows: list[dict], rhs: list[float], order: int, x: np.ndarray, a: float,
+                  b: float) -> np.ndarray | None:
+    """The lowest-degree polynomial of ``s = tanh((x - m) / w)`` (``m`` the middle of
+    ``[a, b]``, ``w`` a part of its length) meeting ``rows`` as :func:`_fit` does, and its
+    derivatives in ``x`` up to ``order - 1`` at ``x``; None when the conditions ask what such a
+    function cannot give (a slope other than zero far out)."""
+    if not rows:
+        return np.zeros((order, x.size))
+    width = _LEVEL_WIDTH * (b - a)
+    if not (math.isfinite(width) and width > 0):
+        return None
+    middle = 0.5 * (a + b)
+    degree = max(len(rows) - 1, 0)
+    top = max(order, 1 + max(j for row in rows for _, j in row))
+    # d/dx of a polynomial P(s) is (1 - s**2) P'(s) / w: each basis function s**i and its
+    # derivatives in x, as polynomials of s
+    ladder = []
+    for i in range(degree + 1):
+        polys = [np.polynomial.Polynomial([0.0] * i + [1.0])]
+        for _ in range(top - 1):
+            polys.append(np.polynomial.Polynomial([1.0, 0.0, -1.0]) * polys[-1].deriv() / width)
+        ladder.append(polys)
+
+    def s_of(points: np.ndarray) -> np.ndarray:
+        return np.tanh((np.asarray(points, float) - middle) / width)
+
+    matrix = np.array([[sum(g * ladder[i][j](s_of(end)) for (end, j), g in row.items()) for i in range(degree + 1)]
+                       for row in rows])
+    target = np.array(rhs, float)
+    coefficients = np.linalg.lstsq(matrix, target, rcond=None)[0]
+    miss = float(np.max(np.abs(matrix @ coefficients - target)))
+    size = 1.0 + float(np.max(np.abs(target)))
+    if not (np.isfinite(coefficients).all() and miss <= 1e-6 * size
+            and float(np.max(np.abs(coefficients))) <= 1e3 * size):
+        return None
+    s = s_of(x)
+    values = np.array([sum(c * ladder[i][j](s) for i, c in enumerate(coefficients)) for j in range(order)])
+    scale = np.max(np.abs(values), axis=1, keepdims=True) if values.size else 0.0
+    return np.where(np.abs(values) <= 64 * np.finfo(float).eps * scale, 0.0, values)
 
 
 # -- guesses on a mesh (no SymPy) --------------------------------------------------------------

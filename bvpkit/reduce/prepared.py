@@ -12,44 +12,37 @@ the file (ends and interfaces in order, finite): the one place every value reach
 solve passes (:func:`bvpkit.language.problem.check_positions`).
 
 A second ``bvpkit solve`` of the same spec file takes the preparation from the disk cache
-(:func:`cached`, :func:`remember`), keyed by the spec file's bytes, the ``--set`` values and
-the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and carries a
-SHA-256 checksum; it is read with the checks of ``compiled.read_private`` (a private folder,
-a regular file of the user's, a size cap), and one that is unreadable, damaged, refused or
-from other code is ignored and rewritten. Generated functions travel as programs (plain
-data, :mod:`bvpkit.programs.program`), never as code: they are printed and checked afresh when built.
+(:func:`cached`, :func:`remember`), keyed by the spec file's text, the ``--set`` values and
+the bvpkit code (``compiled.code_stamp``). A cache file is written atomically and signed with
+the cache's key (``compiled.signing_key``); it is read with the checks of
+``compiled.read_private`` (a private folder, a regular file of the user's, a size cap), and
+used only for the spec text and values it was made for, after the checks of :func:`cached`.
+One that is unreadable, damaged, unsigned, refused or from other code is ignored and
+rewritten. Generated functions travel as programs (plain data, :mod:`bvpkit.programs.program`), never
+as code: they are printed and checked afresh when built.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import hashlib
-import json
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from ..errors import BvpkitError, OptionError, ProblemError, ProgramError, closest
+from ..errors import OptionError, ProblemError, ProgramError, closest
 from ..language.budget import budget, step_seconds
 from ..language.options import SolveOptions
 from ..language.problem import Problem, _numbers, check_positions
+from ..methods.features import MAX_TERMS, locate
 from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
-    _cache_dir,
     assemble,
-    build_quantity,
-    code_stamp,
-    note,
-    read_json,
-    write_json,
 )
 from ..programs.layout import StateLayout
 from . import classes  # noqa: F401 - registers the problem classes, for reading them back
-from .features import locate, terms
 from .guess import GuessRecipe
 from .mapping import positions
 from .quantity import Quantity
@@ -71,7 +64,7 @@ class Prepared:
     system : dict
         The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.programs.program`),
         Jacobian ``pattern``, condition ``sides``, and ``features``: the terms in the independent
-        variable alone that can make narrow features, compiled (:func:`bvpkit.reduce.features.terms`;
+        variable alone that can make narrow features, compiled (:func:`feature_terms`;
         None when there are none).
     recipes : dict of str to GuessRecipe
     quantities : dict of str to Quantity
@@ -159,7 +152,7 @@ class Prepared:
 
     def features(self, p: np.ndarray, k: np.ndarray) -> tuple:
         """The narrow features and corners of the equations' terms in the independent variable
-        alone at these values (:func:`bvpkit.reduce.features.locate`; empty when there are none)."""
+        alone at these values (:func:`bvpkit.methods.features.locate`; empty when there are none)."""
         return locate(self.system.get("features"), p, k)
 
     # -- new values --------------------------------------------------------------------------
@@ -271,7 +264,11 @@ def prepare(problem) -> Prepared:  # noqa: ANN001 - a bvpkit.Problem
     key = problem.key(generated=True)
     template = _PREPARED.get(key)
     if template is None:
-        template = _prepare(problem, key)
+        from ..language.budget import preparation
+
+        with preparation("preparing the problem (code generation, guesses, outputs)",
+                         advice="simplify the equations, or split them with added unknown functions"):
+            template = _prepare(problem, key)
         if len(_PREPARED) > 200:
             _PREPARED.clear()
         _PREPARED[key] = template
@@ -320,81 +317,53 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
 
 
 def _feature_terms(form) -> dict | None:  # noqa: ANN001
-    """The terms that can make narrow features (:func:`bvpkit.reduce.features.terms`), or None: a
+    """The terms that can make narrow features (:func:`feature_terms`), or None: a
     hint for the first mesh, never a reason to refuse a problem."""
     try:
         with budget("looking for narrow features of the equations", seconds=min(2.0, step_seconds()),
                     advice="simplify the terms in the independent variable alone"):
-            return terms(form)
+            return feature_terms(form)
     except (ProgramError, ProblemError, TypeError, ValueError, RecursionError):
         return None
 
 
-# -- the disk cache of spec files' preparations --------------------------------------------------
-_KIND = "problem"
+def feature_terms(form) -> dict | None:  # noqa: ANN001 - a reduce.StandardForm
+    """The terms of ``form``'s right-hand side that can make a narrow feature and depend on the
+    independent variable (and constants, parameters) alone, compiled: ``{"program": ...,
+    "corner": [bool per term]}`` (the program gives the argument and the term, in rows
+    ``2 j`` and ``2 j + 1``), or None when there are none. :mod:`bvpkit.methods.features` says
+    which terms (``exp``, ``tanh``, ``erf``, ``erfc``, ``atan``, ``log`` and negative or
+    fractional powers of their argument; ``abs``, ``sign``, steps, ``min`` and ``max``, a corner
+    where their argument or the difference of their sides is zero) and what is done with them."""
+    import sympy as sp
 
+    from ..programs.codegen import compile_expressions
+    from .form import X
 
-def spec_key(path: str | Path, overrides: Mapping[str, float]) -> str | None:
-    """Key of a spec file with ``--set`` values (None when the file cannot be read)."""
-    try:
-        data = Path(path).read_bytes()
-    except OSError:
+    states = set(form.y)
+    smooth = (sp.exp, sp.tanh, sp.erf, sp.erfc, sp.atan, sp.log)
+    corners = (sp.Abs, sp.sign, sp.Heaviside)
+    found: dict[Any, tuple[Any, bool]] = {}
+    for entry in form.rhs:
+        if not entry.has(X):
+            continue
+        for node in sp.preorder_traversal(entry):
+            if len(found) >= MAX_TERMS:
+                break
+            if not node.has(X) or node in found or node.free_symbols & states:
+                continue
+            if isinstance(node, smooth):
+                found[node] = (node.args[0], False)
+            elif isinstance(node, corners):
+                found[node] = (node.args[0], True)
+            elif isinstance(node, sp.Min | sp.Max) and len(node.args) >= 2:
+                found[node] = (node.args[0] - node.args[1], True)
+            elif isinstance(node, sp.Pow) and node.exp.is_number and not (node.exp.is_integer and node.exp >= 0):
+                found[node] = (node.base, False)
+    if not found:
         return None
-    digest = hashlib.sha256()
-    digest.update(code_stamp().encode())
-    digest.update(b"\0" + data + b"\0")
-    digest.update(json.dumps(sorted(overrides.items())).encode())
-    return digest.hexdigest()[:32]
-
-
-def _file(key: str) -> Path | None:
-    folder = _cache_dir()
-    return None if folder is None else folder / f"{_KIND}-{key}-{code_stamp()}.json"
-
-
-def cached(key: str | None) -> Prepared | None:
-    """The preparation kept under ``key`` (no SymPy), or None (missing, skipped, damaged)."""
-    path = None if key is None else _file(key)
-    if path is None:
-        return None
-    body = read_json(path)
-    if body is None:
-        return None
-    try:
-        if body["key"] != key:
-            raise KeyError("key")
-        prepared = Prepared.from_plain(body["prepared"])
-        # every program is validated and built now, not in the middle of a solve
-        features = prepared.system.get("features")
-        if features is not None and not (isinstance(features, dict) and isinstance(features.get("corner"), list)):
-            raise TypeError("features")
-        for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
-                        *_programs(prepared.quantities.values()),
-                        *([features["program"]] if features is not None else [])]:
-            build_quantity(program)
-        prepared.compiled  # noqa: B018 - builds the system's programs now
-        return prepared
-    except (ValueError, KeyError, TypeError, IndexError, AttributeError, RecursionError) as err:
-        why = err.one_line() if isinstance(err, BvpkitError) else "it does not hold a preparation"
-        note(f"cache entry {path.name} skipped: {why}")
-        return None
-
-
-def _programs(quantities) -> list[dict]:  # noqa: ANN001
-    found = []
-    for q in quantities:
-        found.append(q.program)
-        found += [p[0] for p in q.points if isinstance(p[0], dict)]
-        found += _programs(q.integrals)
-    return found
-
-
-def remember(key: str | None, prepared: Prepared) -> None:
-    """Keep ``prepared`` under ``key``; never raises (a cache costs speed, not correctness)."""
-    path = None if key is None else _file(key)
-    if path is None:
-        return
-    try:
-        write_json(path, {"key": key, "prepared": prepared.plain()})
-    except (TypeError, ValueError):
-        return  # not JSON-ready (SymPy objects in the arguments): costs speed only
+    exprs = []
+    for node, (argument, _) in found.items():
+        exprs += [argument, node]
+    program = compile_expressions(exprs, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").program
+    return {"program": program, "corner": [corner for _, corner in found.values()]}

@@ -167,15 +167,16 @@ def _once(job: Job) -> Run:
 
 
 def solve_at(prepared: Prepared, k: np.ndarray, guess: Any, *, tol: float, method: str = "auto",
-             verify: bool = True, change: float | None = None) -> Solution:
+             verify: bool = True, change: float | None = None, max_nodes: int | None = None) -> Solution:
     """One solve at the constants ``k`` exactly as given: no class's loop runs (a truncated
     infinite end stays where ``k`` puts it). Continuation calls it at each point of a trace,
     checking its classes its own way (:meth:`Transform.along`); ``change`` is an error it
     measured beyond the method's (reported with the solution). No continuation from an
     easier problem here: a trace that fails at a value shortens its step or turns to
-    pseudo-arclength instead."""
+    pseudo-arclength instead; ``max_nodes`` bounds its mesh (a step past a fold fails fast)."""
     started = time.perf_counter()
-    chosen = options(prepared.settings, {"method": method, "tol": tol, "verify": verify, "homotopy": "off"})
+    chosen = options(prepared.settings, {"method": method, "tol": tol, "verify": verify, "homotopy": "off",
+                                         "max_nodes": max_nodes})
     run = _once(Job(prepared, chosen, guess, np.asarray(k, float), chosen.tol))
     run.extra_error = change
     return settle(prepared, run, time.perf_counter() - started)

@@ -33,6 +33,8 @@ from typing import Any
 
 import numpy as np
 
+from ..errors import ProblemError
+from ..language.budget import preparation
 from ..methods.base import Outcome, Trial
 from ..methods.collocation import Collocation
 from ..methods.diagnostics import hermite
@@ -104,12 +106,14 @@ _FACTS: dict[str, Facts] = {}
 _SYSTEMS: dict[str, Any] = {}
 
 
-def facts(prepared) -> Facts:  # noqa: ANN001 - a Prepared
-    """The paths ``prepared`` allows (SymPy's work, once per problem)."""
+def facts(prepared, deadline: float | None = None) -> Facts:  # noqa: ANN001 - a Prepared
+    """The paths ``prepared`` allows (SymPy's work, once per problem; within the preparation's
+    cap and ``deadline``, see :func:`bvpkit.language.budget.preparation`)."""
     key = prepared.facts["key"] + repr(sorted(prepared.constants.items()))
     found = _FACTS.get(key)
     if found is None:
-        found = _facts(prepared)
+        with preparation("working out the continuation's paths", deadline=deadline):
+            found = _facts(prepared)
         if len(_FACTS) > 200:
             _FACTS.clear()
         _FACTS[key] = found
@@ -125,16 +129,19 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
     form = standard_form(problem)
     small = {}
     x = problem.x
-    for eq in problem.equations:
+    candidates = {sp.Symbol(name) for name, value in problem.constants.items() if 0 < abs(value) < _SMALL}
+    # only an equation holding a small constant, and only its own highest derivatives (not
+    # every equation by every unknown's: 90,000 derivatives for a chain of 300 equations)
+    for eq in (e for e in problem.equations if candidates and e.free_symbols & candidates):
+        present = eq.atoms(sp.Derivative)
         for name in problem.unknowns:
             top = sp.Derivative(sp.Function(name)(x), (x, problem.orders[name]))
+            if top not in present:
+                continue
             coefficient = sp.diff(eq, top)
-            for symbol in coefficient.free_symbols:
-                value = problem.constants.get(symbol.name)
-                if value is None or not 0 < abs(value) < _SMALL:
-                    continue
+            for symbol in coefficient.free_symbols & candidates:
                 if sp.simplify(coefficient.xreplace({symbol: 0})) == 0:
-                    small[symbol.name] = float(value)
+                    small[symbol.name] = float(problem.constants[symbol.name])
     right = set(form.yb)
     value_rows = {i for i, (_, order) in enumerate(form.states) if order == 0}
     ends = [0.0, 1.0]
@@ -145,7 +152,8 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
         used = c.free_symbols & right
         if used and not any(form.yb[i] in used for i in value_rows) and not c.free_symbols & set(form.ya):
             far = True
-    nonlinear = any(sp.diff(f, v).has(*form.y) for f in form.rhs for v in f.free_symbols & set(form.y))
+    states = set(form.y)
+    nonlinear = any(sp.diff(f, v).free_symbols & states for f in form.rhs for v in f.free_symbols & states)
     a = form.points[0]
     reach = form.regions == 1 and a not in (sp.oo, -sp.oo) and not a.free_symbols & set(form.p)
     return Facts(small, far, reach, nonlinear)
@@ -154,7 +162,7 @@ def _facts(prepared) -> Facts:  # noqa: ANN001
 def paths(prepared, named: str | None, trial: Trial) -> list[Path]:  # noqa: ANN001
     """The paths to try, in order: the one named, else a small constant of the highest
     derivative, the nonlinear terms scaled, the domain grown (those the problem allows)."""
-    found = facts(prepared)
+    found = facts(prepared, trial.deadline)
     if named:
         value = float(prepared.constants[named])
         if named in found.small:
@@ -186,15 +194,17 @@ def _length(trial: Trial) -> float:
 
 
 # -- the path form -------------------------------------------------------------------------
-def _system(prepared):  # noqa: ANN001, ANN202
-    """The compiled path form of ``prepared`` (code generated once per problem structure)."""
+def _system(prepared, deadline: float | None = None):  # noqa: ANN001, ANN202
+    """The compiled path form of ``prepared`` (code generated once per problem structure,
+    within the preparation's cap and ``deadline``)."""
     key = prepared.layout.key
     found = _SYSTEMS.get(key)
     if found is None:
         from ..programs.codegen import compile_system
         from ..reduce.form import path_form, standard_form
 
-        found = compile_system(path_form(standard_form(prepared.problem())))
+        with preparation("preparing the linearised problem of the continuation", deadline=deadline):
+            found = compile_system(path_form(standard_form(prepared.problem())))
         if len(_SYSTEMS) > 100:
             _SYSTEMS.clear()
         _SYSTEMS[key] = found
@@ -223,7 +233,7 @@ def linearised(prepared, trial: Trial) -> np.ndarray | None:  # noqa: ANN001
     (the path form at ``s = 0``) on ``trial``'s mesh, or None: a start inside the domain of
     the equations when the default guess is not."""
 
-    system = _system(prepared)
+    system = _system(prepared, trial.deadline)
     anchor = _anchors(system, trial, trial.k)
     if anchor is None:
         return None
@@ -247,7 +257,10 @@ def follow(prepared, path: Path, trial: Trial, trace=None) -> tuple[Outcome, str
 
     method = Collocation()
     if path.own:
-        system = _system(prepared)
+        try:
+            system = _system(prepared, trial.deadline)
+        except ProblemError as err:  # its preparation ran past its cap or the time limit
+            return _stopped(trial, err.one_line()), "no solve"
         anchor = _anchors(system, trial, trial.k)
         if anchor is None:
             why = "the linearised problem is not defined at any constant state tried"
@@ -412,7 +425,7 @@ def no_solution(prepared, trial: Trial, trace=None) -> str:  # noqa: ANN001
     """
     if trace is None:
         return ""
-    found = facts(prepared)
+    found = facts(prepared, trial.deadline)
     layout = trial.compiled.layout
     with np.errstate(all="ignore"):
         kjac = np.asarray(trial.compiled.kjac(trial.x, trial.y, trial.p, trial.k))

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..methods.base import Outcome
 from ..methods.diagnostics import Diagnostics, condition_estimate, hermite, residuals
-from ..reduce.features import unresolved, words
+from ..methods.features import unresolved, words
 from ..reduce.mapping import Start, physical, positions
 from ..reduce.prepared import Prepared
 from ..status import Status
@@ -238,7 +238,7 @@ def _growth_on_halving(compiled, outcome: Outcome, k: np.ndarray) -> float:  # n
 def _features_resolved(prepared: Prepared, outcome: Outcome, k: np.ndarray, status: Status,
                        message: str) -> tuple[Status, str]:
     """A success whose mesh does not hold a narrow feature of the equations
-    (:func:`bvpkit.reduce.features.unresolved`) is no success: the method never saw the feature,
+    (:func:`bvpkit.methods.features.unresolved`) is no success: the method never saw the feature,
     and its error estimate cannot either."""
     missed = unresolved(outcome.x, prepared.features(outcome.p, k))
     if missed is None:

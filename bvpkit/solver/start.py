@@ -20,7 +20,7 @@ from ..errors import OptionError, closest
 from ..language.options import SolveOptions
 from ..methods.base import Trial
 from ..reduce import guess as _guess
-from ..reduce.features import seeded
+from ..methods.features import seeded
 from ..reduce.mapping import Start, carried
 from ..reduce.prepared import Prepared
 from . import homotopy
@@ -49,7 +49,7 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
     expressions per function) over the problem's own recipes, moved into the domain of the
     equations when needed, then each class's own start (the eigenvalue guess of an
     eigenvalue problem: :meth:`bvpkit.reduce.transform.Transform.start`). The mesh holds
-    points graded into the narrow features of the equations (:mod:`bvpkit.reduce.features`).
+    points graded into the narrow features of the equations (:mod:`bvpkit.methods.features`).
 
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled

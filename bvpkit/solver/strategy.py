@@ -125,12 +125,27 @@ def _first(candidates: list[type], strength: str) -> type:
     return candidates[0]
 
 
-def _why(trial: Trial, name: str) -> str:
+def _tight(trial: Trial, candidates: list[type], first: type, facts) -> tuple[type, float] | None:  # noqa: ANN001
+    """A method declaring "tight" whose cost model predicts less work than ``first`` at this
+    tolerance on this (smooth) problem, with the predicted ratio of work; None otherwise."""
+    if not (facts is not None and math.isfinite(facts.stiffness) and facts.stiffness < STIFF and first.order):
+        return None
+    best = None
+    for m in candidates:
+        if "tight" in m.strengths and m.order > first.order:
+            ratio = (m.node_cost / first.node_cost) * trial.tol ** (1 / first.order - 1 / m.order)
+            if ratio < 1 and (best is None or ratio < best[1]):
+                best = (m, ratio)
+    return best
+
+
+def _why(trial: Trial, name: str, facts=None) -> str:  # noqa: ANN001
     """Why the default method goes first, in words read from the survey."""
     if trial.compiled.needs:
         held = ", ".join(NEEDS.get(n, n) for n in sorted(trial.compiled.needs))
         return f"the equations hold {held}, which {name} treats exactly (the methods without it are left out)"
-    facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
+    if facts is None:
+        facts = survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
     if not math.isfinite(facts.stiffness):
         return "the Jacobian is not finite along the guess; the most forgiving start"
     if facts.stiffness >= STIFF:
@@ -148,8 +163,10 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
     """Order the steps for ``trial``; a named method is tried alone.
 
     With ``"auto"``: the default method (collocation: declared ``"default"``, it takes every
-    problem, and it measured fastest) first; continuation next when the problem allows a
-    path (:func:`bvpkit.solver.homotopy.paths`) and the context has the prepared problem; then the
+    problem, and it measured fastest) first, unless a method declaring ``"tight"`` predicts
+    less work by the declared cost models (``order``, ``node_cost``) on a smooth problem;
+    continuation next when the problem allows a path (:func:`bvpkit.solver.homotopy.paths`)
+    and the context has the prepared problem; then the
     other methods in the order of their ranks. A constant named for continuation puts
     continuation first.
     """
@@ -169,7 +186,19 @@ def plan(trial: Trial, method: str = "auto", context: Context | None = None) -> 
     if named and context.prepared is not None:
         steps.append(Step(CONTINUATION, f"continuation in {context.homotopy} asked for by name",
                           _WEIGHTS["named"]))
-    steps.append(Step(first.name, _why(trial, first.name.replace("_", " ")), _WEIGHTS["first"]))
+    facts = None if trial.compiled.needs else survey(trial.compiled, trial.x, trial.y, trial.p, trial.k)
+    tight = _tight(trial, candidates, first, facts)
+    if tight is not None:
+        chosen, ratio = tight
+        reason = (f"tolerance {trial.tol:.2g} is tight and the problem smooth (|eigenvalue| x length "
+                  f"{facts.stiffness:.2g}): by the declared orders and work per node ({chosen.order} against "
+                  f"{first.order}, {chosen.node_cost / first.node_cost:g} times the work), "
+                  f"{chosen.name.replace('_', ' ')} needs about {ratio:.2f} of the work of "
+                  f"{first.name.replace('_', ' ')}")
+        first = chosen
+    else:
+        reason = _why(trial, first.name.replace("_", " "), facts)
+    steps.append(Step(first.name, reason, _WEIGHTS["first"]))
     if context.homotopy == "auto" and context.prepared is not None:
         steps.append(Step(CONTINUATION, f"{first.name.replace('_', ' ')} found no solution from the guess: "
                           "continuation from an easier problem", _WEIGHTS[CONTINUATION]))
@@ -325,8 +354,9 @@ def _nonlinear(trial: Trial) -> bool:
         other = y + 0.25 * scale * np.cos(np.arange(y.shape[0]) + 1.0)[:, None]
         a = trial.compiled.jac(trial.x, y, trial.p, trial.k)
         b = trial.compiled.jac(trial.x, other, trial.p, trial.k)
-    finite = np.isfinite(a) & np.isfinite(b)
-    return bool(not finite.all() or not np.allclose(a[finite], b[finite], rtol=1e-10, atol=1e-12))
+        # np.allclose's test (|a - b| <= atol + rtol |b|), written out: allclose costs more than the probe
+        close = np.abs(a - b) <= 1e-12 + 1e-10 * np.abs(b)
+    return not bool(close.all())  # NaN or inf anywhere compares as not close: nonlinear
 
 
 def _paths(context: Context, trial: Trial):  # noqa: ANN202

@@ -6,7 +6,8 @@ converge at once to ``y = 0`` and estimate an error of round-off, a confident wr
 Terms that depend on the independent variable alone (sources, coefficients, forcing) can be
 examined before the solve, cheaply and without the solution:
 
-* at preparation (:func:`terms`, SymPy's work once per problem structure), every term of
+* at preparation (:func:`bvpkit.reduce.prepared.feature_terms`, SymPy's work once per problem
+  structure), every term of
   the standard form's right-hand side that can make a narrow feature and holds no state is
   collected with its *argument*: ``exp``, ``tanh``, ``erf``, ``erfc``, ``atan``, ``log`` and
   fractional or negative powers (their argument ``u``), ``abs``, ``sign``, steps, ``min`` and
@@ -56,7 +57,7 @@ _FINEST = 1e-13
 #: At most this many candidate points per argument; more is an oscillation, not a feature.
 _PER_TERM = 50
 #: At most this many terms are examined.
-_MAX_TERMS = 64
+MAX_TERMS = 64
 #: Steps of bisection and golden section (each bracket starts within one sample interval).
 _BISECTIONS = 52
 _GOLDEN = 64
@@ -95,46 +96,6 @@ class Feature:
         return self.width >= _FINEST * max(1.0, abs(self.centre))
 
 
-# -- preparation (SymPy) ------------------------------------------------------------------
-def terms(form) -> dict | None:  # noqa: ANN001 - a reduce.StandardForm
-    """The terms of ``form``'s right-hand side that can make a narrow feature and depend on the
-    independent variable (and constants, parameters) alone, compiled: ``{"program": ...,
-    "corner": [bool per term]}`` (the program gives the argument and the term, in rows
-    ``2 j`` and ``2 j + 1``), or None when there are none."""
-    import sympy as sp
-
-    from ..programs.codegen import compile_expressions
-    from .form import X
-
-    states = set(form.y)
-    smooth = (sp.exp, sp.tanh, sp.erf, sp.erfc, sp.atan, sp.log)
-    corners = (sp.Abs, sp.sign, sp.Heaviside)
-    found: dict[Any, tuple[Any, bool]] = {}
-    for entry in form.rhs:
-        if not entry.has(X):
-            continue
-        for node in sp.preorder_traversal(entry):
-            if len(found) >= _MAX_TERMS:
-                break
-            if not node.has(X) or node in found or node.free_symbols & states:
-                continue
-            if isinstance(node, smooth):
-                found[node] = (node.args[0], False)
-            elif isinstance(node, corners):
-                found[node] = (node.args[0], True)
-            elif isinstance(node, sp.Min | sp.Max) and len(node.args) >= 2:
-                found[node] = (node.args[0] - node.args[1], True)
-            elif isinstance(node, sp.Pow) and node.exp.is_number and not (node.exp.is_integer and node.exp >= 0):
-                found[node] = (node.base, False)
-    if not found:
-        return None
-    exprs = []
-    for node, (argument, _) in found.items():
-        exprs += [argument, node]
-    program = compile_expressions(exprs, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").program
-    return {"program": program, "corner": [corner for _, corner in found.values()]}
-
-
 # -- before a solve (no SymPy) ------------------------------------------------------------
 _FUNCTIONS: dict[str, Any] = {}
 _FOUND: dict[tuple, tuple[dict, tuple[Feature, ...]]] = {}
@@ -151,7 +112,7 @@ def _function(program: dict):  # noqa: ANN202
 
 
 def locate(found: dict | None, p: np.ndarray, k: np.ndarray) -> tuple[Feature, ...]:
-    """The narrow features and corners of the terms ``found`` (:func:`terms`) at these values of
+    """The narrow features and corners of the terms ``found`` (:func:`bvpkit.reduce.prepared.feature_terms`) at these values of
     the parameters and constants, in order of position (a cheap search; see the module
     docstring). Never raises: a term that cannot be evaluated is passed over."""
     if not found:
