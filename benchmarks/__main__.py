@@ -7,6 +7,9 @@ is also added at the top of FILE (made with a heading if it does not exist), new
 
 ``python -m benchmarks testset ...`` runs the test set instead (see benchmarks/testset.py): it is
 long, is not part of the default run, and writes a file only when given ``--out FILE``.
+``python -m benchmarks reliability ...`` runs the reliability benchmark over the probes and the
+whole test set (see benchmarks/reliability.py; the section ``reliability_probes`` of the
+default run is its probes alone).
 """
 
 from __future__ import annotations
@@ -16,11 +19,11 @@ import datetime
 import sys
 from pathlib import Path
 
-from . import collocation, complex, continuation, robust, scale, shooting, startup, sweeps
+from . import collocation, complex, continuation, reliability, robust, scale, shooting, startup, sweeps
 from .harness import machine
 
 SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS,
-          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS]
+          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS, *reliability.SECTIONS]
 HEADING = "# Benchmark results (newest first)"
 
 
@@ -42,6 +45,9 @@ def main(argv: list[str]) -> None:
         from . import testset
 
         testset.main(argv[1:])
+        return
+    if argv[:1] == ["reliability"]:
+        reliability.main(argv[1:])
         return
     names = [bench.__name__ for bench in SUITES]
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__.splitlines()[0])

@@ -22,6 +22,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import BvpkitError
+from ..methods.features import MAX_TERMS
 from ..programs.compiled import (
     _cache_dir,
     code_stamp,
@@ -85,8 +86,10 @@ def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | No
             raise _Refused("the spec does not read as the one it was made for")
         prepared = Prepared.from_plain(body["prepared"])
         system = prepared.system.get("programs")
+        features = _features(prepared.system.get("features"))
         stored_size([*(system if type(system) is list else []),
-                     *(r.program for r in prepared.recipes.values()), *_programs(prepared.quantities.values())])
+                     *(r.program for r in prepared.recipes.values()), *_programs(prepared.quantities.values()),
+                     *features])
         mine = {"title": prepared.facts.get("title"), "settings": prepared.facts.get("settings"),
                 "arguments": prepared.facts.get("arguments"), "own": prepared.facts.get("own"),
                 "outputs": prepared.facts.get("outputs"), "constants": prepared.constants,
@@ -103,7 +106,7 @@ def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | No
         # every program is validated and built now, not in the middle of a solve, and kept
         # where the solve looks for it (built once)
         for program in [*(r.program for r in prepared.recipes.values() if r.program is not None),
-                        *_programs(prepared.quantities.values())]:
+                        *_programs(prepared.quantities.values()), *features]:
             if type(program) is not dict or program.get("name") != "quantity":
                 raise _Refused("a compiled output or guess is not a program of one")
             quantity_function(program)
@@ -116,6 +119,20 @@ def cached(key: str, text: str, overrides: Mapping[str, float]) -> Prepared | No
         why = err.one_line() if isinstance(err, BvpkitError) else "it does not hold a preparation"
         note(f"cache entry {path.name} skipped: {why}")
     return None
+
+
+def _features(found) -> list:  # noqa: ANN001
+    """The program of a kept preparation's terms that can make narrow features (none: ``[]``),
+    refused (``_Refused``) unless it is in the form :func:`bvpkit.reduce.prepared.feature_terms`
+    makes: a program of two rows per term and one corner flag per term."""
+    if found is None:
+        return []
+    corner = found.get("corner") if type(found) is dict else None
+    program = found.get("program") if type(found) is dict else None
+    if (type(corner) is not list or not 0 < len(corner) <= MAX_TERMS or any(type(c) is not bool for c in corner)
+            or type(program) is not dict or program.get("shape") != [2 * len(corner)]):
+        raise _Refused("its narrow features of the equations are not in their form")
+    return [program]
 
 
 _KINDS = frozenset({"given", "continuity", "added", "phase"})

@@ -35,7 +35,7 @@ import numpy as np
 from ..language.options import TOL_FLOOR
 from ..programs.compiled import NEEDS, CompiledSystem
 from ..status import Status
-from .diagnostics import hermite
+from .diagnostics import crossings, hermite
 from .discrete import midpoint_values
 
 # Each round of tightening asks for this fraction of the tolerance times the ratio of the
@@ -78,6 +78,10 @@ class Trial:
         Meshes on which Newton's method may fail to converge, from the start, before the method
         gives up with :attr:`~bvpkit.status.Status.NOT_CONVERGED` (the selector sets it when
         continuation from an easier problem can take over; None: no limit, refinement goes on).
+    features : tuple of bvpkit.methods.features.Feature
+        Narrow features and corners of the equations' terms in ``t`` alone, found before the
+        solve: a method's first mesh keeps the points graded into them, its integrators stop at
+        the corners and take short steps across them.
     """
 
     compiled: CompiledSystem
@@ -91,6 +95,7 @@ class Trial:
     place: Callable[[float], str] = lambda t: f"t = {t:.6g}"  # noqa: E731
     deadline: float | None = None
     patience: int | None = None
+    features: tuple = ()
 
     def out_of_time(self) -> bool:
         """Whether the attempt's time budget is spent."""
@@ -244,8 +249,10 @@ class Method:
 
 
 def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, np.ndarray]:
-    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes and midpoints (of the
-    algebraic unknowns too, solved from the equations on each).
+    """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes, midpoints and the
+    zero crossings of the reference's states between them (:func:`~bvpkit.diagnostics.crossings`:
+    where the relative difference of a state that is large elsewhere peaks); of the algebraic
+    unknowns too, solved from the equations on each.
 
     Returns the state estimate (which includes the parameters) and the per-parameter
     absolute differences.
@@ -253,6 +260,7 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
     compiled, k = trial.compiled, trial.k
     x = outcome.x
     mid = 0.5 * (x[1:] + x[:-1])
+    spline = hermite(compiled, reference.x, reference.y, reference.p, k)
     if reference.x.size == 2 * x.size - 1 and np.array_equal(reference.x[::2], x) and np.array_equal(
             reference.x[1::2], mid):
         # the reference lives on the halved mesh: its values are the comparison points
@@ -262,20 +270,25 @@ def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, 
         mine = np.empty_like(reference.y)
         mine[:, ::2] = outcome.y
         mine[:, 1::2] = midpoint_values(outcome.y, f, h)
-        theirs = reference.y
+        points, theirs = reference.x, reference.y
     else:
         points = np.sort(np.concatenate([x, mid]))
         mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(points)
-        theirs = hermite(compiled, reference.x, reference.y, reference.p, k)(points)
+        theirs = spline(points)
     estimate = float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs))))
     if getattr(compiled, "layout", None) is not None and compiled.layout.algebraic:
         # the algebraic unknowns too, each solved from the equations on both solutions
-        points = reference.x if theirs is reference.y else np.sort(np.concatenate([x, mid]))
         with np.errstate(all="ignore"):
             z_mine = compiled.algebraic(points, mine, outcome.p, k)
             z_theirs = compiled.algebraic(points, theirs, reference.p, k)
             gap = np.abs(z_mine - z_theirs) / (1.0 + np.abs(z_theirs))
         estimate = max(estimate, float(np.max(gap)) if np.isfinite(gap).all() else np.inf)
+    roots = crossings(spline, points, theirs)
+    if roots.size:
+        theirs = spline(roots)
+        mine = hermite(compiled, outcome.x, outcome.y, outcome.p, k)(roots)
+        with np.errstate(all="ignore"):
+            estimate = max(estimate, float(np.max(np.abs(mine - theirs) / (1.0 + np.abs(theirs)))))
     p_errors = np.abs(outcome.p - reference.p)
     if p_errors.size:
         estimate = max(estimate, float(np.max(p_errors / (1.0 + np.abs(reference.p)))))

@@ -36,6 +36,7 @@ from ..status import Status
 from .base import Method, Outcome, Trial
 from .diagnostics import hermite, stability_constant
 from .discrete import SingularMatrix, factor_blocks, one_blas_thread
+from .features import seeded
 
 _ROOT5 = math.sqrt(5.0)
 _C = np.array([0.0, (5 - _ROOT5) / 10, (5 + _ROOT5) / 10, 1.0])
@@ -310,6 +311,7 @@ class SixthOrderCollocation(Method):
         wanted = int(math.ceil(_FIRST_NODES * max(1.0, _FIRST_TOL / tol) ** (1 / self.order)))
         if x.size < wanted:
             x = _split(x, np.full(x.size - 1, -(-(wanted - 1) // (x.size - 1))))
+        x = seeded(x, trial.features)  # the narrow features of the equations stay seeded
         y, z = _start(c, None, x, y0, x0, p, k)
         previous: _Discrete | None = None
         ready: _Discrete | None = None

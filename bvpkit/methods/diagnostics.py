@@ -148,6 +148,18 @@ class Hermite:
             out[:, outside] = np.nan
         return out
 
+    def pairs(self, rows, points):  # noqa: ANN001, ANN201
+        """The values ``S_rows[k](points[k])``: one state per point (what a search for the
+        zeros of single states needs, without evaluating every state everywhere)."""
+        import numpy as np
+
+        points, i, h, t, outside = self._locate(points)
+        t2, t3 = t * t, t * t * t
+        h00, h10, h01, h11 = 2 * t3 - 3 * t2 + 1, t3 - 2 * t2 + t, -2 * t3 + 3 * t2, t3 - t2
+        out = (h00 * self.y[rows, i] + h10 * h * self.dy[rows, i] + h01 * self.y[rows, i + 1]
+               + h11 * h * self.dy[rows, i + 1])
+        return np.where(outside, np.nan, out)
+
     def derivative(self):  # noqa: ANN201
         """A callable giving the interpolant's first derivative."""
         import numpy as np
@@ -178,6 +190,62 @@ def hermite(compiled, x, y, p, k) -> Hermite:  # noqa: ANN001
     with np.errstate(all="ignore"):
         slopes = compiled.rhs(x, y, p, k)
     return Hermite(x, y, slopes)
+
+
+_CROSSING_STEPS = 60  # enough for bisection to shrink a bracket of [0, 1] to round-off
+_NEAR_ZERO = 1e-3  # |y| below this: 1 / (1 + |y|) is within 0.1 % of its value at the root
+
+
+def crossings(spline, points, values):  # noqa: ANN001, ANN201
+    """Where a state of ``spline`` crosses zero between consecutive ``points``.
+
+    ``values`` is ``spline(points)``, shape ``(n, len(points))``. A relative difference
+    ``|dy| / (1 + |y|)`` is largest where ``y`` itself passes through zero, and a state that
+    is large everywhere else (a slope ``1e5`` on both sides of a symmetric peak) crosses
+    zero between any two samples: comparing at nodes and midpoints alone can miss a
+    difference a hundred times the one seen. Each sign change of a state between two
+    consecutive points (not near zero at either) is found by false position (the Illinois variant) on that state of
+    the interpolant, to ``|y| <= 1e-3`` or a bracket at round-off. Returns the sorted points
+    (possibly empty).
+    """
+    import numpy as np
+
+    points = np.asarray(points, float)
+    values = np.asarray(values, float)
+    if points.size < 2:
+        return np.empty(0)
+    with np.errstate(all="ignore"):
+        # a sign change between two values that are already near zero needs no root: the
+        # measure 1 / (1 + |y|) is at its harshest at those points themselves
+        near = np.minimum(np.abs(values[:, :-1]), np.abs(values[:, 1:])) <= _NEAR_ZERO
+        change = ((np.sign(values[:, :-1]) * np.sign(values[:, 1:]) < 0) & ~near
+                  & np.isfinite(values[:, :-1] * values[:, 1:]))
+    rows, left = np.nonzero(change)
+    if rows.size == 0:
+        return np.empty(0)
+    a, b = points[left].copy(), points[left + 1].copy()
+    fa, fb = values[rows, left].copy(), values[rows, left + 1].copy()
+    columns = np.arange(rows.size)
+    pairs = getattr(spline, "pairs", None)
+    best = 0.5 * (a + b)
+    for step in range(_CROSSING_STEPS):
+        with np.errstate(all="ignore"):
+            guess = (a * fb - b * fa) / (fb - fa)
+        # bisect every third step, and where false position gives nothing inside the bracket
+        inside = np.isfinite(guess) & (guess > a) & (guess < b)
+        middle = np.where(inside & (step % 3 != 2), guess, 0.5 * (a + b))
+        with np.errstate(all="ignore"):
+            at = pairs(rows, middle) if pairs is not None else spline(middle)[rows, columns]
+        best = middle
+        if np.all((np.abs(at) <= _NEAR_ZERO) | ~np.isfinite(at) | (b - a <= 4e-16 * np.maximum(1.0, np.abs(b)))):
+            break
+        left_side = np.sign(at) == np.sign(fa)
+        # Illinois: halve the value kept at the end that stays, so the bracket closes from both sides
+        fb = np.where(left_side, fb * 0.5, fb)
+        fa = np.where(left_side, fa, fa * 0.5)
+        a, fa = np.where(left_side, middle, a), np.where(left_side, at, fa)
+        b, fb = np.where(left_side, b, middle), np.where(left_side, fb, at)
+    return np.unique(best)
 
 
 def residuals(compiled, x, y, p, k) -> tuple[float, float]:  # noqa: ANN001

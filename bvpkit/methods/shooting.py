@@ -31,8 +31,9 @@ from ..status import Status
 from . import variational
 from .base import Method, Outcome, Trial
 from .collocation import check_by_defect
-from .diagnostics import hermite, survey
+from .diagnostics import crossings, hermite, survey
 from .discrete import SingularMatrix, factor_blocks
+from .features import pieces
 from .variational import _BLOWUP, _MAX_CALLS, _MAX_NEWTON, _MIN_STEP, _BlowUp, _Flow
 
 # Integration tolerance relative to the tolerance asked: the integrator's local control
@@ -49,6 +50,10 @@ _SPLIT_GROWTH = 1e6  # a segment whose sensitivities grow more than this is spli
 _MAX_SEGMENTS = 400
 
 
+# Below this integration tolerance the refined re-solve of the error estimate cannot be 100 times
+# tighter (the floor above), so it shares the dense output's error between steps and cannot see
+# it: the dense output is then checked on its own (Shooting._dense).
+_DENSE_CHECK = 100 * _IVP_FLOOR
 _EPS = 2.2e-16  # machine epsilon: a stability constant times it bounds the accuracy any method can reach
 _ILL = (": the problem is so ill-conditioned that double precision cannot reach the tolerance, whatever the "
         "method")
@@ -57,10 +62,12 @@ _ILL = (": the problem is so ill-conditioned that double precision cannot reach 
 @dataclasses.dataclass
 class _State:
     """What a converged shooting solve keeps for its refined re-solve: its segments' nodes and
-    whether it integrated with the implicit method."""
+    whether it integrated with the implicit method; and its dense output (``states(points)``,
+    the solution between the nodes as the integrator computed it), for checks on other meshes."""
 
     nodes: np.ndarray
     stiff: bool
+    states: object = None
     secant: object = None  # single shooting: its last Newton matrix (a variational.Secant)
 
 
@@ -89,8 +96,7 @@ class Shooting(Method):
         outcome = super()._solve_and_verify(trial)
         if not (trial.verify and outcome.status in (Status.SOLVED, Status.ERROR_TOO_LARGE)):
             return outcome
-
-        check, condition = check_by_defect(trial.compiled, outcome.x, outcome.y, outcome.p, trial.k)
+        check, condition = self._check(trial, outcome)
         if condition is not None and math.isfinite(condition):
             outcome.condition = condition
         own = outcome.error_estimate if outcome.error_estimate is not None else 0.0
@@ -107,6 +113,42 @@ class Shooting(Method):
                 + Status.ERROR_TOO_LARGE.hint
             )
         return outcome
+
+    def _check(self, trial: Trial, outcome: Outcome) -> tuple[float, float | None]:
+        """The deferred-correction check of ``outcome`` (``(estimate, stability constant)``), on
+        a mesh fit for it before it may fail the answer.
+
+        The check is collocation's: on the output mesh, which was built to carry the
+        integrator's solution, not for a fourth-order defect, part of what it reports is its own
+        discretisation error. Where it misses the tolerance, the mesh is halved with values from
+        the integrator's dense output (the method's own solution, not an interpolant), up to
+        twice and within ``max_nodes``; the answer is then given on the finer mesh. A figure at
+        the check's round-off floor (measured: the change of the check under a perturbation of
+        the values by round-off) says nothing against the answer; the method's own estimate
+        decides there.
+        """
+        c, k = trial.compiled, trial.k
+        check, condition = check_by_defect(c, outcome.x, outcome.y, outcome.p, k)
+        state = outcome.workspace
+        states = state.states if isinstance(state, _State) else None
+        x, y = outcome.x, outcome.y
+        for _ in range(2):
+            if check <= trial.tol or states is None or 2 * x.size - 1 > max(trial.max_nodes, outcome.x.size):
+                break
+            fine = np.empty(2 * x.size - 1)
+            fine[::2], fine[1::2] = x, 0.5 * (x[1:] + x[:-1])
+            fine_y = states(fine)
+            fine_check, fine_condition = check_by_defect(c, fine, fine_y, outcome.p, k)
+            if not fine_check < check:
+                break
+            x, y, check, condition = fine, fine_y, fine_check, fine_condition
+        if x is not outcome.x:
+            outcome.x, outcome.y = x, y
+        if check > trial.tol and math.isfinite(check):
+            floor = _check_floor(c, x, y, outcome.p, k, check)
+            if check <= floor:
+                check = min(check, outcome.error_estimate if outcome.error_estimate is not None else check)
+        return check, condition
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
@@ -163,11 +205,11 @@ class Shooting(Method):
 
     # -- integration --------------------------------------------------------------------
     def _flow(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float,
-              stiff: bool, dense: bool = False, sensitivities: bool = True) -> _Flow:
+              stiff: bool, dense: bool = False, sensitivities: bool = True, max_step: float = np.inf) -> _Flow:
         c, k = trial.compiled, trial.k
         n, n_p, segments = c.n, c.n_parameters, nodes.size - 1
         if segments == 1 and not stiff:  # one point per call: the fused variational system
-            return variational.one_segment_flow(trial, nodes, s, p, rtol, dense, sensitivities)
+            return variational.one_segment_flow(trial, nodes, s, p, rtol, dense, sensitivities, max_step)
         t0, h = nodes[:-1], np.diff(nodes)
         size = n + (n * n + n * n_p if sensitivities else 0)
         start = np.zeros((size, segments))
@@ -211,13 +253,14 @@ class Shooting(Method):
 
         from scipy.integrate import solve_ivp  # imported here: a collocation-only run never needs it
 
-        options = dict(rtol=rtol, atol=rtol, dense_output=dense)
+        options = dict(rtol=rtol, atol=rtol, dense_output=dense, max_step=max_step)
         if stiff:
             block = sparse.kron(np.ones((size, size)), sparse.eye(segments))
             options.update(method="Radau", jac_sparsity=block)
         else:
             options.update(method="DOP853")
-        result = solve_ivp(rhs, (0.0, 1.0), start.ravel(), **options)
+        result = variational.integrate(solve_ivp, rhs, (0.0, 1.0), start.ravel(), options,
+                                       pieces(trial.features, t0, h))
         if result.status != 0:
             tau = float(result.t[-1]) if result.t.size else 0.0
             where = t0 + tau * h
@@ -375,7 +418,7 @@ class Shooting(Method):
     def _finish(self, trial, nodes, s, p, rtol, stiff, iterations, matrix, flow=None) -> Outcome:  # noqa: ANN001
         """Build the output mesh from the dense output, fine enough for the C1 interpolant
         (``flow``: the last trial's, when it was integrated with its dense output)."""
-        c, k, n = trial.compiled, trial.k, trial.compiled.n
+        n = trial.compiled.n
         # A tiny Newton step is not enough: on an ill-conditioned shooting matrix the step
         # stalls while the conditions are still missed. Check the residual itself.
         try:  # one pass: the dense output changes none of the integrator's steps
@@ -398,6 +441,8 @@ class Shooting(Method):
             )
         segments = nodes.size - 1
         h = np.diff(nodes)
+        if rtol < _DENSE_CHECK:
+            flow = self._dense(trial, nodes, s, p, rtol, stiff, flow)
 
         # Each segment's end misses the next node state by the continuity residual; spread
         # that miss linearly over the segment so the output is continuous at the nodes (a
@@ -412,37 +457,52 @@ class Shooting(Method):
             return values[:, j, np.arange(tau.size)] + tau * gap[:, j]
 
         taus = np.unique(np.concatenate([np.linspace(0, 1, 5), flow.dense.ts]))
+        # a last step of round-off size (the integrator landing on tau = 1) is no interval of its
+        # own: a node that close to the next one only feeds round-off into checks of slopes
+        taus = taus[np.concatenate([[True], np.diff(taus)[1:] > 1e-9, [True]])]
         # segment points, clipped (t_j + 1 * h_j may round past the end), ends exact
         x = np.clip((nodes[:-1, None] + taus[None, :] * h[:, None]).ravel(), nodes[0], nodes[-1])
         x = np.unique(np.concatenate([[nodes[0]], x, [nodes[-1]]]))
         keep = np.concatenate([np.diff(x) > 1e-14 * max(1.0, float(np.abs(x).max())), [True]])
         keep[0] = True
         x = x[keep]
-        y = states(x)
-        # Refine where the C1 cubic interpolant (what a Solution evaluates) misses the
-        # integrator's own dense output by more than a tenth of the tolerance.
-        # Its derivative must also follow the equations to about tol**0.75 (the accuracy a
-        # cubic's derivative has when its values are good to tol).
-        for _ in range(8):
-            mid = 0.5 * (x[1:] + x[:-1])
-            exact = states(mid)
-            spline = hermite(c, x, y, p, k)
-            miss = np.max(np.abs(spline(mid) - exact) / (1.0 + np.abs(exact)), axis=0)
-            with np.errstate(all="ignore"):
-                f = c.slopes(mid, exact, p, k)
-                slope_miss = np.max(np.abs(spline.derivative()(mid) - f) / (c.row_scale(p, k) + np.abs(f)), axis=0)
-            bad = (miss > trial.tol * 0.1) | (slope_miss > trial.tol**0.75)
-            if not bad.any() or x.size > trial.max_nodes:
-                break
-            # split each interval by the factor its miss predicts (a cubic's error goes as h**4, its slope's as h**3)
-            x = variational.subdivide(x, bad, np.maximum((miss / (trial.tol * 0.1)) ** 0.25,
-                                                          (slope_miss / trial.tol**0.75) ** (1 / 3)))
-            y = states(x)
+        x, y = _output_mesh(trial, x, states, p, rtol)
         outcome = Outcome(Status.SOLVED, f"converged in {iterations} Newton iteration{'s' if iterations != 1 else ''} with {segments} "
                           f"segment{'s' if segments > 1 else ''} ({'Radau' if stiff else 'DOP853'})",
                           x, y, p, iterations=iterations)
-        outcome.workspace = _State(nodes, stiff)
+        outcome.workspace = _State(nodes, stiff, states)
         return outcome
+
+    def _dense(self, trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float, stiff: bool,
+               flow: _Flow) -> _Flow:
+        """A dense output good to the tolerance between the integrator's steps, not only at them.
+
+        The integrator controls its error at the end of each step; its dense output between
+        them is of a lower order, and on long smooth steps misses by far more (seen: 1.5e-11
+        in the middle of the steps of a run whose step values were good to 1e-13). The pass is
+        repeated with the largest step halved until two passes agree to a tenth of the
+        tolerance in the middle of the coarser one's steps (at most three times); the finer
+        is kept. Used near the integrator's tolerance floor only: above it, the error estimate's
+        re-solve with a 100 times tighter integrator sees this error, and the tolerance is
+        tightened until it meets the tolerance.
+        """
+        n, segments = trial.compiled.n, nodes.size - 1
+        for _ in range(3):
+            ts = flow.dense.ts
+            probe = 0.5 * (ts[1:] + ts[:-1])
+            try:
+                finer = self._flow(trial, nodes, s, p, rtol, stiff, dense=True, sensitivities=False,
+                                   max_step=0.5 * float(np.max(np.diff(ts))))
+            except _BlowUp:
+                return flow
+            coarse_values = flow.dense(probe).reshape(n, segments, probe.size)
+            fine_values = finer.dense(probe).reshape(n, segments, probe.size)
+            with np.errstate(all="ignore"):
+                change = float(np.max(np.abs(coarse_values - fine_values) / (1.0 + np.abs(fine_values))))
+            flow = finer
+            if change <= 0.1 * trial.tol:
+                break
+        return flow
 
     def _blowup_message(self, trial: Trial, err: _BlowUp, when: str) -> str:
         names = trial.compiled.layout.row_names
@@ -450,3 +510,58 @@ class Shooting(Method):
         hint = ("; try method = \"multiple_shooting\" or \"collocation\""
                 if self.fixed_segments == 1 else "; try method = \"collocation\" or a better guess")
         return f"integration failed {when}: {err.what}{which} near {trial.place(err.x)}{hint}"
+
+
+def _output_mesh(trial: Trial, x: np.ndarray, states, p: np.ndarray, rtol: float):  # noqa: ANN001, ANN202
+    """The output mesh of a shooting solution: ``x`` refined until the C1 cubic interpolant (what
+    a Solution evaluates) follows the integrator's dense output ``states`` between the nodes.
+
+    Refined where the cubic misses the dense output by more than a tenth of the tolerance, or its
+    derivative misses the equations by more than about ``tol**0.75`` (the accuracy a cubic's
+    derivative has when its values are good to tol) and more than the dense output's own noise
+    (``rtol`` of the values over the interval: the pieces of the dense output meet only to the
+    integrator's accuracy, and a slope read across a tiny interval at such a seam is noise).
+    The zero crossings of the states become nodes: there the relative measure
+    ``|dy| / (1 + |y|)`` is at its harshest. Returns ``(x, y)``.
+    """
+    c, k = trial.compiled, trial.k
+    y = states(x)
+    for _ in range(8):
+        roots = crossings(states, x, y)
+        if roots.size:  # not on top of a node already
+            j = np.clip(np.searchsorted(x, roots), 1, x.size - 1)
+            roots = roots[np.minimum(roots - x[j - 1], x[j] - roots) > 1e-6 * (x[j] - x[j - 1])]
+        if roots.size:
+            x = np.sort(np.concatenate([x, roots]))
+            y = states(x)
+        h = np.diff(x)
+        mid = x[:-1] + 0.5 * h
+        exact = states(mid)
+        spline = hermite(c, x, y, p, k)
+        miss = np.max(np.abs(spline(mid) - exact) / (1.0 + np.abs(exact)), axis=0)
+        with np.errstate(all="ignore"):
+            f = c.slopes(mid, exact, p, k)
+            scale = c.row_scale(p, k) + np.abs(f)
+            slope_miss = np.max(np.abs(spline.derivative()(mid) - f) / scale, axis=0)
+            noise = np.max(10.0 * rtol * (1.0 + np.abs(exact)) / h / scale, axis=0)
+        slow = (slope_miss > trial.tol**0.75) & (slope_miss > noise)
+        bad = (miss > trial.tol * 0.1) | slow
+        if not bad.any() or x.size > trial.max_nodes:
+            break
+        # split each interval by the factor its miss predicts (a cubic's error goes as h**4, its slope's as h**3)
+        x = variational.subdivide(x, bad, np.maximum((miss / (trial.tol * 0.1)) ** 0.25,
+                                                      np.where(slow, slope_miss / trial.tol**0.75, 0.0) ** (1 / 3)))
+        y = states(x)
+    return x, y
+
+
+def _check_floor(compiled, x: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray, check: float) -> float:  # noqa: ANN001
+    """The round-off floor of the deferred-correction check at ``(x, y)``: how far the check
+    moves when the values are perturbed by a few units of round-off (a fixed pattern, so the
+    figure is the same from run to run), times two. A check at or below it measures
+    round-off, not the solution."""
+    pattern = np.cos(np.arange(y.size, dtype=float) * 0.7548776662).reshape(y.shape)  # in [-1, 1], no period
+    noisy = y + 4.0 * _EPS * np.abs(y) * pattern
+    moved, _ = check_by_defect(compiled, x, noisy, p, k)
+    return 2.0 * abs(moved - check) if math.isfinite(moved) else 0.0
+

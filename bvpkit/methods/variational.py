@@ -27,6 +27,7 @@ from ..programs.compiled import CompiledSystem
 from ..programs.program import build
 from ..status import Status
 from .base import Outcome, Trial
+from .features import pieces
 
 # what shooting and these paths share: limits of an integration and the records of its result
 _MAX_NEWTON = 40
@@ -365,8 +366,9 @@ def _finish(shooting, trial: Trial, nodes: np.ndarray, u: np.ndarray, n: int, rt
 
 
 def one_segment_flow(trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarray, rtol: float, dense: bool,
-                     sensitivities: bool):
-    """:meth:`Shooting._flow` for one segment and an explicit integrator, on :func:`fused_rhs`."""
+                     sensitivities: bool, max_step: float = np.inf):
+    """:meth:`Shooting._flow` for one segment and an explicit integrator, on :func:`fused_rhs`
+    (``max_step`` in the segment variable ``tau``, as there)."""
     from scipy.integrate import solve_ivp
 
 
@@ -390,7 +392,9 @@ def one_segment_flow(trial: Trial, nodes: np.ndarray, s: np.ndarray, p: np.ndarr
     # integrated in the standard variable itself: the same steps as in tau, no scaling per call
     fun = fused_rhs(point_system(c), np.asarray(p, float), np.asarray(k, float), n, n_p, sensitivities, _MAX_CALLS,
                     trouble)
-    result = solve_ivp(fun, (t0, t0 + h), start, method="DOP853", rtol=rtol, atol=rtol, dense_output=dense)
+    parts = [(t0 + a * h, t0 + b * h, step * h) for a, b, step in pieces(trial.features, np.array([t0]), np.array([h]))]
+    result = integrate(solve_ivp, fun, (t0, t0 + h), start,
+                       dict(method="DOP853", rtol=rtol, atol=rtol, dense_output=dense, max_step=max_step * h), parts)
     if result.status != 0:
         where = float(result.t[-1]) if result.t.size else t0
         raise _BlowUp(where, -1, f"the integrator's step size collapsed ({result.message.rstrip('.')})")
@@ -453,3 +457,36 @@ def subdivide(x: np.ndarray, bad: np.ndarray, factor: np.ndarray) -> np.ndarray:
     added = [(lows[bad & (pieces == q)][:, None] + widths[bad & (pieces == q)][:, None] * (np.arange(1, q) / q)).ravel()
              for q in np.unique(pieces[bad])]
     return np.sort(np.concatenate([x, *added]))
+
+
+def integrate(solve_ivp, fun, span: tuple[float, float], start: np.ndarray, options: dict, parts: list):  # noqa: ANN001, ANN202
+    """``solve_ivp`` over ``span`` in the pieces ``(a, b, max_step)`` of
+    :func:`bvpkit.methods.features.pieces` (in the same variable): restarted at each corner of the
+    equations, and with steps no longer than a narrow feature's width across it (an integrator
+    that steps over a feature never sees it). One call when there is one piece; otherwise the
+    pieces' results joined into one (their dense outputs too)."""
+    if len(parts) <= 1:
+        return solve_ivp(fun, span, start, **options)
+    from types import SimpleNamespace
+
+    from scipy.integrate import OdeSolution
+
+    times, states, solutions = [np.array([span[0]], float)], [start[:, None]], []
+    result = None
+    for a, b, step in parts:
+        chosen = dict(options, max_step=min(options.get("max_step", np.inf), step))
+        result = solve_ivp(fun, (a, b), start, **chosen)
+        if result.status != 0:
+            result.t = np.concatenate([*times, result.t])
+            return result
+        times.append(result.t[1:])
+        states.append(result.y[:, 1:])
+        if options.get("dense_output"):
+            solutions.append(result.sol)
+        start = result.y[:, -1]
+    sol = None
+    if solutions:
+        ts = np.concatenate([solutions[0].ts, *(s.ts[1:] for s in solutions[1:])])
+        sol = OdeSolution(ts, [piece for s in solutions for piece in s.interpolants])
+    return SimpleNamespace(status=0, message=result.message, t=np.concatenate(times),
+                           y=np.concatenate(states, axis=1), sol=sol)

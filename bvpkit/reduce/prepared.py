@@ -31,9 +31,11 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import OptionError, ProblemError, closest
+from ..errors import OptionError, ProblemError, ProgramError, closest
+from ..language.budget import budget, step_seconds
 from ..language.options import SolveOptions
 from ..language.problem import Problem, _not_a_constant, changed_numbers, check_positions
+from ..methods.features import MAX_TERMS, locate
 from ..programs.compiled import (
     _MEMORY,
     CompiledSystem,
@@ -61,7 +63,9 @@ class Prepared:
     layout : StateLayout
     system : dict
         The compiled system as plain data: generated ``programs`` (:mod:`bvpkit.programs.program`),
-        Jacobian ``pattern``, and condition ``sides``.
+        Jacobian ``pattern``, condition ``sides``, and ``features``: the terms in the independent
+        variable alone that can make narrow features, compiled (:func:`feature_terms`;
+        None when there are none).
     recipes : dict of str to GuessRecipe
     quantities : dict of str to Quantity
         The outputs (and other expressions prepared with them), compiled.
@@ -160,6 +164,11 @@ class Prepared:
         for t in self.transforms:
             out = t.outward(out)
         return out
+
+    def features(self, p: np.ndarray, k: np.ndarray) -> tuple:
+        """The narrow features and corners of the equations' terms in the independent variable
+        alone at these values (:func:`bvpkit.methods.features.locate`; empty when there are none)."""
+        return locate(self.system.get("features"), p, k)
 
     # -- new values --------------------------------------------------------------------------
     def with_constants(self, **values: float) -> Prepared:
@@ -361,7 +370,60 @@ def _prepare(problem, key: str) -> Prepared:  # noqa: ANN001
         "points": problem.point_labels, "own": _own(problem),
     }
     system = {"programs": list(compiled.programs), "pattern": compiled.raw_pattern.tolist(),
-              "sides": compiled.bc_sides.tolist()}
+              "sides": compiled.bc_sides.tolist(), "features": _feature_terms(form)}
     quantities = {text: compile_quantity(problem, form, text) for text in problem.outputs.values()}
     return Prepared(facts, compiled.layout, system, guess_recipes(problem, form), quantities,
                     dict(problem.constants), _parameters(problem), form.transforms)
+
+
+def _feature_terms(form) -> dict | None:  # noqa: ANN001
+    """The terms that can make narrow features (:func:`feature_terms`), or None: a
+    hint for the first mesh, never a reason to refuse a problem."""
+    try:
+        with budget("looking for narrow features of the equations", seconds=min(2.0, step_seconds()),
+                    advice="simplify the terms in the independent variable alone"):
+            return feature_terms(form)
+    except (ProgramError, ProblemError, TypeError, ValueError, RecursionError):
+        return None
+
+
+def feature_terms(form) -> dict | None:  # noqa: ANN001 - a reduce.StandardForm
+    """The terms of ``form``'s right-hand side that can make a narrow feature and depend on the
+    independent variable (and constants, parameters) alone, compiled: ``{"program": ...,
+    "corner": [bool per term]}`` (the program gives the argument and the term, in rows
+    ``2 j`` and ``2 j + 1``), or None when there are none. :mod:`bvpkit.methods.features` says
+    which terms (``exp``, ``tanh``, ``erf``, ``erfc``, ``atan``, ``log`` and negative or
+    fractional powers of their argument; ``abs``, ``sign``, steps, ``min`` and ``max``, a corner
+    where their argument or the difference of their sides is zero) and what is done with them."""
+    import sympy as sp
+
+    from ..programs.codegen import compile_expressions
+    from .form import X
+
+    states = set(form.y)
+    smooth = (sp.exp, sp.tanh, sp.erf, sp.erfc, sp.atan, sp.log)
+    corners = (sp.Abs, sp.sign, sp.Heaviside)
+    found: dict[Any, tuple[Any, bool]] = {}
+    for entry in form.rhs:
+        if not entry.has(X):
+            continue
+        for node in sp.preorder_traversal(entry):
+            if len(found) >= MAX_TERMS:
+                break
+            if not node.has(X) or node in found or node.free_symbols & states:
+                continue
+            if isinstance(node, smooth):
+                found[node] = (node.args[0], False)
+            elif isinstance(node, corners):
+                found[node] = (node.args[0], True)
+            elif isinstance(node, sp.Min | sp.Max) and len(node.args) >= 2:
+                found[node] = (node.args[0] - node.args[1], True)
+            elif isinstance(node, sp.Pow) and node.exp.is_number and not (node.exp.is_integer and node.exp >= 0):
+                found[node] = (node.base, False)
+    if not found:
+        return None
+    exprs = []
+    for node, (argument, _) in found.items():
+        exprs += [argument, node]
+    program = compile_expressions(exprs, [("x", [X]), ("p", form.p), ("k", form.k)], mesh="x").program
+    return {"program": program, "corner": [corner for _, corner in found.values()]}

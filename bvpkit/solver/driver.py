@@ -22,10 +22,10 @@ from ..errors import OptionError, closest
 from ..language.options import DEFAULT_TOL, SolveOptions
 from ..language.problem import Problem
 from ..methods.base import Trial
-from ..reduce.mapping import physical, positions
+from ..reduce.mapping import positions
 from ..reduce.prepared import Prepared, prepare
 from . import strategy
-from .settle import Run, settle
+from .settle import Run, place, settle
 from .solution import Solution
 from .start import check_guess, initial
 
@@ -159,27 +159,11 @@ def _once(job: Job) -> Run:
     with np.errstate(all="ignore"):
         ends = positions(np.asarray(compiled.maps(p, job.k), float))
     trial = Trial(compiled, t, y, p, job.k, job.tol, job.options.max_nodes, job.options.verify,
-                  place=place(compiled, p, job.k))
+                  place=place(compiled, p, job.k), features=prepared.features(p, job.k))
     context = strategy.Context(prepared, job.options.homotopy, job.deadline, job.follow)
     outcome, attempts, selection = strategy.run(trial, job.options.method, (float(ends[0]), float(ends[-1])),
                                                 context)
     return Run(outcome, job.k, attempts, selection, job.tol, prepared.independent)
-
-
-def place(compiled, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
-    """How a point of the standard variable reads in the user's variable, for messages."""
-    with np.errstate(all="ignore"):
-        maps = np.asarray(compiled.maps(p, k), float)
-    name = compiled.layout.independent
-
-    def where(t: float) -> str:
-        xs = physical(np.array([float(t)]), maps, compiled.layout.stretch)[:, 0]
-        if xs.size == 1:
-            return f"{name} = {xs[0]:.6g}"
-        return f"{name} = " + " / ".join(f"{x:.6g}" for x in xs) + " (the same place in each region)"
-
-    return where
-
 
 
 def solve_at(prepared: Prepared, k: np.ndarray, guess: Any, *, tol: float, method: str = "auto",

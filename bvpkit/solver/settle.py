@@ -20,8 +20,9 @@ from typing import Any
 import numpy as np
 
 from ..methods.base import Outcome
-from ..methods.diagnostics import Diagnostics, condition_estimate, residuals
-from ..reduce.mapping import Start, positions
+from ..methods.diagnostics import Diagnostics, condition_estimate, hermite, residuals
+from ..methods.features import unresolved, words
+from ..reduce.mapping import Start, physical, positions
 from ..reduce.prepared import Prepared
 from ..status import Status
 from .homotopy import earlier_end
@@ -34,6 +35,10 @@ _ROUNDING = float(np.finfo(float).eps)
 #: of the Jacobian is more than the problem's fast modes explain: the layers of the test set
 #: (benchmarks/testset.py) stay below 50 times, y'' + pi^2 y = 0 at its eigenvalue is 1e7 times.
 _NEAR_SINGULAR = 1e3
+#: Growth of the stability constant on halving the mesh above which it has no limit: a
+#: singular problem's grows 4 times (the trapezoidal rule's second order), a well-posed one's
+#: converges (y'' + pi^2 y = 0 at its eigenvalue: 4.0; the layers of the test set: 1.0 to 1.3).
+_DIVERGING = 3.0
 _SAMPLES = 21  # points where the Jacobian's eigenvalues are read for that comparison
 #: Round-off times the stability constant up to this is an accuracy worth reporting as reached
 #: (precision_limit); above, the problem is too ill-conditioned for any answer (error_too_large).
@@ -111,6 +116,9 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
     # The last guards: success never comes with non-finite values or an estimate above tol.
     if status is Status.SOLVED and not (np.isfinite(outcome.y).all() and np.isfinite(outcome.p).all()):
         status, message = Status.NON_FINITE, "the solution holds NaN or inf; " + Status.NON_FINITE.hint
+    if status is Status.SOLVED:
+        # ... nor with a narrow feature of the equations that the answer's mesh steps over
+        status, message = _features_resolved(prepared, outcome, k, status, message)
     attainable = condition * _ROUNDING if condition is not None and math.isfinite(condition) else math.inf
     missed = (status is Status.SOLVED and tol is not None and math.isfinite(estimate)
               and estimate > tol * (1 + 1e-9))
@@ -153,8 +161,12 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
         warning = _nearly_singular(compiled, outcome, k, condition, tol)
         if warning:
             status, message = Status.NEARLY_SINGULAR, f"{message}; but {warning}"
+    elif status is Status.PRECISION_LIMIT and tol is not None and condition is not None:
+        # round-off times a huge stability constant: say when the cause is a singular problem
+        warning = _nearly_singular(compiled, outcome, k, condition, tol)
+        if warning:
+            message = f"{message}; {warning}"
     if status.success and layout.parameters:
-
         note = earlier_end(prepared, outcome.x, outcome.y, outcome.p, k)
         if note:
             message = f"{message}; note: {note}"
@@ -201,12 +213,60 @@ def _nearly_singular(compiled, outcome: Outcome, k: np.ndarray, condition: float
     """
     size = 1.0 + float(np.max(np.abs(outcome.y[compiled.layout.user_rows]), initial=0.0))
     relative = condition / size
-    if not (math.isfinite(relative) and relative * tol > 1.0):
+    if not (math.isfinite(relative) and relative > _NEAR_SINGULAR):
         return ""
     if relative <= _NEAR_SINGULAR * (1.0 + _fastest(compiled, outcome, k)):
         return ""
-    return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance "
-            f"of {tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+    if relative * tol > 1.0:
+        return (f"the problem is nearly singular here (stability constant {condition:.2g}, against a tolerance "
+                f"of {tol:.2g}): {_likely_cause(compiled, outcome, k)}")
+    growth = _growth_on_halving(compiled, outcome, k)
+    if not growth >= _DIVERGING:
+        return ""
+    return (f"the problem is singular here (its stability constant, {condition:.2g} on this mesh, grows "
+            f"{growth:.2g} times when the mesh is halved: it has no bound, whatever the tolerance): "
+            f"{_likely_cause(compiled, outcome, k)}")
+
+
+def _growth_on_halving(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001
+    """How much the stability constant (``condition_estimate``, trapezoidal rule) grows when the
+    solution's mesh is halved: about 1 for a well-posed problem, where it converges; about 4
+    for a singular linearised problem, where the discrete eigenvalue closing on zero (at the
+    rule's second order) sets the figure and the constant has no limit. NaN when it cannot
+    be estimated."""
+    x = outcome.x
+    fine = np.empty(2 * x.size - 1)
+    fine[::2], fine[1::2] = x, 0.5 * (x[1:] + x[:-1])
+    with np.errstate(all="ignore"):
+        y = hermite(compiled, x, outcome.y, outcome.p, k)(fine)
+        if not np.isfinite(y).all():
+            return math.nan
+        coarse = condition_estimate(compiled, x, outcome.y, outcome.p, k)
+        halved = condition_estimate(compiled, fine, y, outcome.p, k)
+    if coarse is None or halved is None or not (coarse > 0 and math.isfinite(coarse)):
+        return math.nan
+    return halved / coarse
+
+
+def _features_resolved(prepared: Prepared, outcome: Outcome, k: np.ndarray, status: Status,
+                       message: str) -> tuple[Status, str]:
+    """A success whose mesh does not hold a narrow feature of the equations
+    (:func:`bvpkit.methods.features.unresolved`) is no success: the method never saw the feature,
+    and its error estimate cannot either."""
+    missed = unresolved(outcome.x, prepared.features(outcome.p, k))
+    if missed is None:
+        return status, message
+    compiled = prepared.compiled
+    with np.errstate(all="ignore"):
+        scale = float(np.abs(np.asarray(compiled.maps(outcome.p, k), float)[0, 1]))
+    what = words(missed, place(compiled, outcome.p, k), scale)
+    if not missed.representable:
+        why = (f"{what}: narrower than double precision can resolve there, so no mesh holds it; write the term "
+               "as a step (min, max) or widen it")
+    else:
+        why = (f"{what}, which the final mesh of {outcome.x.size} nodes does not resolve (the method stepped over "
+               "it, and its error estimate cannot see it); raise max_nodes or give a finer first guess there")
+    return Status.MESH_LIMIT, f"{message}, but the equations hold {why}"
 
 
 def _fastest(compiled, outcome: Outcome, k: np.ndarray) -> float:  # noqa: ANN001
@@ -246,3 +306,18 @@ def _likely_cause(compiled, outcome: Outcome, k: np.ndarray) -> str:  # noqa: AN
     return ("a fold or branch point of the family of solutions is likely nearby (another solution may be "
             "close); trace a constant through this value (bvpkit trace) to see the family, and give a guess "
             "to pick a branch")
+
+
+def place(compiled, p: np.ndarray, k: np.ndarray):  # noqa: ANN001, ANN201
+    """How a point of the standard variable reads in the user's variable, for messages."""
+    with np.errstate(all="ignore"):
+        maps = np.asarray(compiled.maps(p, k), float)
+    name = compiled.layout.independent
+
+    def where(t: float) -> str:
+        xs = physical(np.array([float(t)]), maps, compiled.layout.stretch)[:, 0]
+        if xs.size == 1:
+            return f"{name} = {xs[0]:.6g}"
+        return f"{name} = " + " / ".join(f"{x:.6g}" for x in xs) + " (the same place in each region)"
+
+    return where

@@ -21,6 +21,7 @@ from ..errors import OptionError
 from ..language.options import SolveOptions
 from ..methods.base import Trial
 from ..reduce import guess as _guess
+from ..methods.features import seeded
 from ..reduce.mapping import Start, carried
 from ..reduce.prepared import Prepared
 from . import homotopy
@@ -48,7 +49,8 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
     """Mesh, states and parameters to start from: ``guess`` (a solution, carried onto ``k``, or
     expressions per function) over the problem's own recipes, moved into the domain of the
     equations when needed, then each class's own start (the eigenvalue guess of an
-    eigenvalue problem: :meth:`bvpkit.reduce.transform.Transform.start`).
+    eigenvalue problem: :meth:`bvpkit.reduce.transform.Transform.start`). The mesh holds
+    points graded into the narrow features of the equations (:mod:`bvpkit.methods.features`).
 
     ``chosen`` holds the solve's options (``tol`` and ``max_nodes`` are read)."""
     compiled = prepared.compiled
@@ -56,13 +58,13 @@ def initial(prepared: Prepared, k: np.ndarray, guess: Any, chosen: SolveOptions)
     if isinstance(guess, Solution | Start):
         start = as_start(guess)
         p = start.p.copy()
-        t = start.t.copy()
+        t = seeded(start.t.copy(), prepared.features(p, k), chosen.max_nodes // 2)
         y = carried(start, compiled, t, p, k)
         for transform in prepared.transforms:
             transform.begin(prepared, t, y, p, k, start)
         return t, y, p
     p = prepared.p0()
-    t = _guess.initial_mesh(nodes)
+    t = seeded(_guess.initial_mesh(nodes), prepared.features(p, k), chosen.max_nodes // 2)
     recipes = dict(prepared.recipes)
     for name, expression in (guess or {}).items():
         recipes.update(prepared.recipes_for(name, expression))
