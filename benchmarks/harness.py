@@ -123,3 +123,13 @@ class Child:
             except (BrokenPipeError, OSError):
                 pass
         self.stop()
+
+
+RESULTS_HEADING = "# Benchmark results (newest first)"
+
+
+def prepend(path: Path, text: str) -> None:
+    """Add a run at the top of a results file (below its heading), newest first."""
+    previous = path.read_text() if path.exists() else RESULTS_HEADING + "\n\n"
+    head, _, rest = previous.partition("\n\n")
+    path.write_text(head + "\n\n" + text + ("\n" + rest if rest else ""))

@@ -49,7 +49,7 @@ from typing import Any
 import numpy as np
 from scipy import special
 
-from .harness import Child, machine
+from .harness import Child, machine, prepend
 from .testset_check import check_exact
 from .testset_instances import BY_NAME, INSTANCES, QUICK
 
@@ -505,8 +505,6 @@ def main(argv: Sequence[str] = ()) -> None:
                      level="##")
     print(text)
     if args.out:
-        from .__main__ import prepend
-
         prepend(Path(args.out), text)
         print(f"added to {args.out}", file=sys.stderr)
     if any(r.false_success for r in runs):
