@@ -3,6 +3,7 @@ fields that decay like a power (asymptotic conditions), and their bad input. Eac
 has its source beside it."""
 
 import math
+import re
 
 import numpy as np
 import pytest
@@ -126,6 +127,16 @@ def test_a_limit_the_equations_do_not_approach_is_not_reported_solved():
     sol = bvpkit.solve(p)
     assert not sol.success
     assert sol.status is bvpkit.Status.TRUNCATION, sol.message
+
+
+def test_a_nonlinear_algebraic_decay_is_not_solved_and_says_how_the_changes_fall():
+    # y'' = 2 y^3, y(0) = 1, y(inf) = 0: y = 1/(1 + x) (analytic), so truncating at L changes the
+    # solution by O(1/L); the linearised far field (y'' = 0) shows no decay to fit
+    sol = bvpkit.solve(bvpkit.Problem(["y'' = 2*y**3"], ["y(0) = 1", "y(inf) = 0"], (0, "inf")), method="collocation")
+    assert sol.status is bvpkit.Status.TRUNCATION, sol.message
+    q = float(re.search(r"falls only like L\^-([0-9.]+)", sol.message).group(1))
+    assert 0.8 < q < 1.2  # analytic: the change of a 1/x tail falls like 1/L
+    assert "far-field condition of your own" in sol.message
 
 
 def test_an_exponential_far_field_keeps_the_conditions_as_written():

@@ -288,6 +288,7 @@ class Infinite(Transform):
         attempts: list = []
         previous = None
         change = math.inf
+        changes: list[float] = []  # the change at each lengthening, to say how it falls
         run = None
         fit = any(self.far)  # the far-field map is fitted before each solve (the identity unless Euler type)
         for _ in range(MAX_LENGTHENINGS):
@@ -325,6 +326,7 @@ class Infinite(Transform):
                 change = truncation_change(
                     Start(compiled, previous.outcome.x, previous.outcome.y, previous.outcome.p, previous.k),
                     Start(compiled, run.outcome.x, run.outcome.y, run.outcome.p, run.k))
+                changes.append(change)
                 if change <= _SHARE_TRUNCATION * tol:
                     run.extra_error = change
                     run.notes["truncation_length"] = length
@@ -338,7 +340,7 @@ class Infinite(Transform):
         if run.outcome.ok:
             run.outcome.status = Status.TRUNCATION
             run.outcome.message = (f"the solution still changed by {change:.2g} when infinity was moved out to "
-                                   f"{shorter:.4g}; " + Status.TRUNCATION.hint)
+                                   f"{shorter:.4g}; " + (_slow_decay(changes, growth) or Status.TRUNCATION.hint))
             run.extra_error = change
             run.notes["truncation_length"] = shorter
             return run
@@ -626,3 +628,21 @@ def truncation_change(old: Start, new: Start) -> float:
 
 
 __all__ = ["DEFAULT_TRUNCATION", "GROWTH", "Infinite", "LENGTH", "MAX_LENGTHENINGS", "positions", "truncation_change"]
+
+
+def _slow_decay(changes: list[float], growth: float) -> str:
+    """Words for changes that fall steadily but too slowly: like a power ``L**-q`` of the length
+    (q from the last three changes), the mark of a solution that approaches its limit like a
+    power of x where the linearised equations show no such far field (a nonlinear one, such as
+    y'' = 2*y**3 with y = 1/(1 + x)). Empty when the changes do not fall like that."""
+    last = [c for c in changes[-3:] if math.isfinite(c) and c > 0]
+    if len(last) < 3:
+        return ""
+    rates = [math.log(a / b) / math.log(growth) for a, b in zip(last, last[1:])]
+    if not all(0.2 < q < 4 for q in rates) or abs(rates[0] - rates[1]) > 0.3 * max(rates):
+        return ""
+    q = rates[-1]
+    return (f"the change falls only like L^-{q:.2g} as the length L grows: the solution approaches its limit like "
+            "a power of x, which the linearised equations do not show, so no far-field condition can be fitted. "
+            "Solve on a finite domain with a far-field condition of your own from the decay you expect "
+            "(for y ~ C/x: y(L) + L*y'(L) = 0), or use variables in which the far field decays faster")
