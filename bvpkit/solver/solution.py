@@ -23,6 +23,7 @@ from ..programs.compiled import quantity_function
 from ..reduce.mapping import nudged, physical, positions, rate, standard
 from ..status import Status
 from . import plots
+from . import sensitivity as _sensitivity
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -376,6 +377,94 @@ class Solution:
             lines.append(f"  tried: {tried}")
         return "\n".join(lines)
 
+    def sensitivity(self, outputs: Any = None, wrt: Any = None, *, estimate: bool = True) -> _sensitivity.Sensitivities:
+        """Exact derivatives of outputs with respect to constants.
+
+        Parameters
+        ----------
+        outputs : str, list of str or dict of str to str, optional
+            Expressions of the solution that give one number (``"theta(L)"``,
+            ``"integral(theta)"``, ``"-k*theta'(0)"``, a parameter's or the eigenvalue's name),
+            or labels mapped to them; default: the problem's outputs and unknown parameters.
+        wrt : str or list of str, optional
+            The constants (default: all of the problem's), a domain end written as a constant
+            included.
+        estimate : bool
+            Estimate each derivative's error by the difference on the solution's mesh and on
+            the halved mesh (default True; False costs half).
+
+        Returns
+        -------
+        Sensitivities
+            ``derivatives[output][constant]``, ``errors`` alike, ``matrix``, ``summary()``.
+
+        The derivative is that of the collocation solution on the solution's mesh (fourth
+        order, Newton matrix formed at the solution with exact Jacobians; one solve per
+        constant), see :mod:`bvpkit.solver.sensitivity`. A failed solve raises.
+        """
+        self._check_success("sensitivity", False)
+        labels = self._expressions(outputs)
+        names = self._constants_named(wrt)
+        indices = [self.interpolant.layout.constants.index(name) for name in names]
+        quantities = {label: self.prepared.quantity(text) for label, text in labels.items()}
+        for label, text in labels.items():
+            if quantities[label].running:
+                raise BvpkitError(f"sensitivity: output '{text}' depends on the running point "
+                                  f"{self.independent}; give a point, e.g. {text}(0)")
+            if quantities[label].parts != 1:
+                raise BvpkitError(f"sensitivity: output '{text}' has complex values; ask for re(...) and im(...)")
+        values = {label: float(self.evaluate(text)) for label, text in labels.items()}
+        matrix, errors = self.derivatives([(text, None) for text in labels.values()], indices, estimate=estimate)
+        return _sensitivity.Sensitivities(tuple(labels), tuple(names), values, matrix, errors)
+
+    def derivatives(self, items: list, indices: list[int], *, estimate: bool = True) -> tuple[np.ndarray, np.ndarray]:
+        """Derivatives of expressions ``(text, at)`` (``at`` None for one value, or points:
+        one row per point) in the compiled constants ``indices``; their error estimates."""
+        prepared, compiled = self.prepared, self.interpolant.compiled
+        quantities = [(prepared.quantity(text), text, at) for text, at in items]
+
+        def view_of(t, y, p, k):  # noqa: ANN001, ANN202
+            return Interpolant(compiled, t, y, p, k)
+
+        def values_of(view: Interpolant) -> np.ndarray:
+            return np.concatenate([np.real(np.atleast_1d(_evaluate(view, prepared, q, text, at)))
+                                   for q, text, at in quantities])
+
+        v = self.interpolant
+        return _sensitivity.derivatives(compiled, v.t, v.y, v.p, v.k, indices, view_of, values_of, estimate)
+
+    def _expressions(self, outputs: Any) -> dict[str, str]:
+        if outputs is None:
+            labels = {name: name for name in self.parameters}
+            labels.update(self.prepared.outputs)
+        elif isinstance(outputs, str):
+            labels = {outputs: outputs}
+        elif isinstance(outputs, dict):
+            labels = {str(k): str(v) for k, v in outputs.items()}
+        else:
+            labels = {str(o): str(o) for o in outputs}
+        if not labels:
+            raise BvpkitError("sensitivity: no outputs: name the expressions, e.g. outputs=[\"y(1)\"]")
+        return labels
+
+    def _constants_named(self, wrt: Any) -> list[str]:
+        constants = self.prepared.constants
+        names = list(constants) if wrt is None else [wrt] if isinstance(wrt, str) else list(wrt)
+        if not names:
+            raise BvpkitError("sensitivity: no constants named in wrt=[...]; the problem has none" if not constants
+                              else f"sensitivity: no constants named in wrt=[...]; the problem's are {', '.join(constants)}")
+        layout = self.interpolant.layout
+        for name in names:
+            if name not in constants:
+                known = ", ".join(constants) or "none"
+                raise BvpkitError(f"sensitivity: '{name}' is not a constant of the problem (its constants: {known})")
+            if name not in layout.constants:
+                raise BvpkitError(f"sensitivity: constant '{name}' is not a real constant of the standard form "
+                                  "(complex constants and region values are not covered)")
+        if len(set(names)) != len(names):
+            raise BvpkitError("sensitivity: a constant is named twice in wrt=[...]")
+        return names
+
     def __repr__(self) -> str:
         return f"<Solution {self.status.word} by {self.method}: {self.message}>"
 
@@ -387,6 +476,7 @@ class Solution:
         cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
         action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
                   "parameter_values": "get the last iterate's values", "plot": "draw them",
+                  "sensitivity": "differentiate them anyway (not offered: a failed solve has no derivatives)",
                   "to_csv": "write them (every column header then says the solve failed)"}[asked]
         raise BvpkitError(
             f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "

@@ -1,0 +1,208 @@
+"""Exact derivatives of a solution's outputs with respect to its constants.
+
+A solution ``z = (Y on the mesh, p)`` of the collocation equations ``G(z, k) = 0`` moves with
+the constants ``k`` as ``G_z dz/dk = -G_k``: one factorisation of the Newton matrix ``G_z``
+and one solve per constant (the forward form) give the exact derivative of the discrete
+solution. The Jacobian in the constants is compiled with the system (the columns
+``CompiledSystem.freeing`` gives continuation), so a constant that sets a domain end (the
+map ``x = c + h t`` onto the standard interval holds it), a free end, an unknown parameter
+and an eigenvalue (both parameters of the standard form) are all covered the same way.
+
+The solve that made the solution does not hand its factorisation on (the methods differ:
+shooting keeps none), so the Newton matrix of the fourth-order collocation equations is
+formed afresh at the solution on its own mesh (after Newton steps that put the solution on
+those equations exactly: none or one for a collocation solution), with exact Jacobians from
+the compiled system.
+
+An output ``O(z, k)`` (a point value, an integral, an output expression, a parameter) is an
+explicit function of the discrete solution; its derivative ``dO/dk = O_z dz/dk + O_k`` is the
+derivative of ``eps -> O(z + eps dz/dk, k + eps e)`` at 0, taken by a five-point centred
+difference of that explicit function (no solve in it; truncation ``~ step**4``, round-off
+``~ 1e-16 / step``: about 12 digits of the discrete derivative).
+
+The error estimate is the difference of the derivatives on the solution's mesh and on the
+halved mesh (the solution carried there and put on its equations by Newton's method); the
+value given is the halved mesh's with Richardson's correction for the fourth order.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.sparse.linalg import splu
+
+from ..errors import BvpkitError
+from ..methods.diagnostics import hermite
+from ..methods.discrete import CollocationEquations, SingularMatrix
+
+#: Relative step of the centred difference along the tangent (truncation ~ step**4 = 1e-12,
+#: round-off ~ 1e-16 / step = 1e-13 relative to the output's size).
+_STEP = 1e-3
+#: Newton steps that put a solution on the collocation equations of a mesh (from a solution
+#: of the same problem: quadratic from close by).
+_POLISH_STEPS = 8
+_POLISH_TOL = 1e-13
+#: Richardson's factor for the fourth-order equations: the halved mesh's error is 1/16 of the mesh's.
+_ORDER_FACTOR = 15.0
+
+
+@dataclass
+class Sensitivities:
+    """Derivatives of outputs with respect to constants (from :meth:`Solution.sensitivity`).
+
+    Attributes
+    ----------
+    outputs : tuple of str
+        The outputs' labels (rows).
+    wrt : tuple of str
+        The constants (columns).
+    values : dict of str to float
+        Each output's value on the solution.
+    derivatives : dict of str to dict of str to float
+        ``derivatives[output][constant]``.
+    errors : dict of str to dict of str to float
+        Estimated absolute errors of the derivatives (the difference on the solution's mesh
+        and on the halved mesh; NaN when not estimated).
+    matrix, error_matrix : ndarray, shape (len(outputs), len(wrt))
+        The same as arrays.
+    """
+
+    outputs: tuple
+    wrt: tuple
+    values: dict
+    matrix: np.ndarray
+    error_matrix: np.ndarray
+    derivatives: dict = field(init=False)
+    errors: dict = field(init=False)
+
+    def __post_init__(self) -> None:
+        self.derivatives = {o: {w: float(self.matrix[i, j]) for j, w in enumerate(self.wrt)}
+                            for i, o in enumerate(self.outputs)}
+        self.errors = {o: {w: float(self.error_matrix[i, j]) for j, w in enumerate(self.wrt)}
+                       for i, o in enumerate(self.outputs)}
+
+    def table(self) -> dict[str, list]:
+        """Columns: output, constant, value, derivative, error (one row per pair)."""
+        rows: dict[str, list] = {"output": [], "constant": [], "value": [], "derivative": [], "error": []}
+        for o in self.outputs:
+            for w in self.wrt:
+                rows["output"].append(o)
+                rows["constant"].append(w)
+                rows["value"].append(self.values[o])
+                rows["derivative"].append(self.derivatives[o][w])
+                rows["error"].append(self.errors[o][w])
+        return rows
+
+    def summary(self) -> str:
+        """A plain-text table: one row per output, one column per constant (``d output / d constant``)."""
+        width = max([len(o) for o in self.outputs] + [6])
+        head = " " * width + "".join(f"  {'d/d' + w:>26}" for w in self.wrt)
+        lines = [head]
+        for o in self.outputs:
+            cells = "".join(f"  {_cell(self.derivatives[o][w], self.errors[o][w]):>26}" for w in self.wrt)
+            lines.append(f"{o:<{width}}{cells}")
+        return "\n".join(lines)
+
+    def as_dict(self) -> dict:
+        return {"values": dict(self.values), "derivatives": self.derivatives, "errors": self.errors}
+
+
+def _cell(value: float, error: float) -> str:
+    if math.isfinite(error):
+        return f"{value:.10g} (+/- {error:.1g})"
+    return f"{value:.10g}"
+
+
+class Tangents:
+    """The derivatives of a discrete solution in the constants ``indices`` on one mesh.
+
+    ``z`` holds the solution on the mesh (states node-major, then parameters); ``dz`` its
+    derivatives, shape ``(len(z), len(indices))``.
+    """
+
+    def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
+                 indices: Sequence[int]):
+        self.compiled, self.t, self.k, self.indices = compiled, t, np.asarray(k, float), list(indices)
+        own = CollocationEquations(compiled, t, self.k)
+        z = _polished(own, own.join(y, p))
+        self.y, self.p = own.split(z)
+        names = [compiled.layout.constants[i] for i in self.indices]
+        freed = CollocationEquations(compiled.freeing(*names), t, self.k)
+        full = freed.jacobian(np.concatenate([z, self.k[self.indices]])).tocsc()
+        size = z.size
+        try:
+            lu = splu(full[:, :size].tocsc())
+        except RuntimeError:
+            raise SingularMatrix("the Newton matrix at the solution is singular") from None
+        dz = lu.solve(-full[:, size:].toarray())
+        if not np.isfinite(dz).all():
+            raise SingularMatrix("the Newton matrix at the solution is singular")
+        self.dy = [own.split(dz[:, j])[0] for j in range(dz.shape[1])]
+        self.dp = [own.split(dz[:, j])[1] for j in range(dz.shape[1])]
+
+    def derivatives(self, view_of: Callable, values_of: Callable) -> np.ndarray:
+        """``d values / d k`` for the constants, shape ``(len(values), len(indices))``:
+        ``values_of(view_of(t, y, p, k))`` differenced along each tangent."""
+        columns = []
+        for j, i in enumerate(self.indices):
+            scale = abs(self.k[i]) if self.k[i] != 0 else 1.0
+            step = _STEP * scale
+            e = np.zeros_like(self.k)
+            e[i] = 1.0
+            at = {}
+            for s in (-2, -1, 1, 2):
+                eps = s * step
+                view = view_of(self.t, self.y + eps * self.dy[j], self.p + eps * self.dp[j], self.k + eps * e)
+                at[s] = np.asarray(values_of(view), float)
+            columns.append((at[-2] - 8 * at[-1] + 8 * at[1] - at[2]) / (12 * step))
+        return np.column_stack(columns) if columns else np.zeros((0, 0))
+
+
+def _polished(eq: CollocationEquations, z: np.ndarray) -> np.ndarray:
+    """``z`` put on the collocation equations of ``eq`` by Newton's method (exact Jacobians)."""
+    for _ in range(_POLISH_STEPS):
+        r = eq.residual(z)
+        if not np.isfinite(r).all():
+            raise SingularMatrix("the collocation equations are not finite at the solution")
+        try:
+            step = splu(eq.jacobian(z).tocsc()).solve(r)
+        except RuntimeError:
+            raise SingularMatrix("the Newton matrix at the solution is singular") from None
+        z = z - step
+        if np.max(np.abs(step) / (1.0 + np.abs(z))) < _POLISH_TOL:
+            break
+    return z
+
+
+def halved(t: np.ndarray) -> np.ndarray:
+    """The mesh with every interval cut in two."""
+    return np.sort(np.concatenate([t, 0.5 * (t[1:] + t[:-1])]))
+
+
+def derivatives(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
+                indices: Sequence[int], view_of: Callable, values_of: Callable,
+                estimate: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Derivatives of ``values_of(view)`` in the constants ``indices``, and their error
+    estimates (NaN without ``estimate``), shape ``(len(values), len(indices))`` each.
+
+    Without ``estimate``: on the solution's mesh alone. With it: on the halved mesh too;
+    the value is the halved mesh's, corrected by Richardson's rule for the fourth order, and
+    the error the difference of the two meshes' derivatives (an upper estimate of the halved
+    mesh's error, itself larger than the corrected value's).
+    """
+    try:
+        coarse = Tangents(compiled, t, y, p, k, indices).derivatives(view_of, values_of)
+        if not estimate:
+            return coarse, np.full_like(coarse, np.nan)
+        fine_t = halved(t)
+        fine_y = hermite(compiled, t, y, p, k)(fine_t)
+        fine = Tangents(compiled, fine_t, fine_y, p, k, indices).derivatives(view_of, values_of)
+    except SingularMatrix as err:
+        raise BvpkitError(
+            f"sensitivity: {err}; the outputs do not depend smoothly on the constants here (a fold or "
+            "a branch point of the solution family)"
+        ) from None
+    return fine + (fine - coarse) / _ORDER_FACTOR, np.abs(fine - coarse)
