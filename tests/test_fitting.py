@@ -1,0 +1,104 @@
+"""Constants fitted to measurements (issue 27, part 2)."""
+
+import math
+
+import numpy as np
+import pytest
+
+import bvpkit
+
+M_TRUE, SIGMA = 2.0, 0.01
+X = np.linspace(0.05, 1.0, 20)
+
+
+def _fin(m=1.0):
+    return bvpkit.Problem(["theta'' = m**2*theta"], ["theta(0) = 1", "theta'(L) = 0"], (0, "L"),
+                          constants={"m": m, "L": 1.0})
+
+
+def _profile(x, m, L=1.0):
+    # analytic: theta = cosh(m (L - x)) / cosh(m L)
+    return np.cosh(m * (L - x)) / np.cosh(m * L)
+
+
+def _noisy(seed=27):
+    rng = np.random.default_rng(seed)
+    return _profile(X, M_TRUE) + SIGMA * rng.standard_normal(X.size)
+
+
+def test_fin_m_from_twenty_noisy_samples():
+    result = bvpkit.fit(_fin(), {"theta": (X, _noisy())}, vary={"m": 1.0}, sigma=SIGMA)
+    assert result.success and result.status is bvpkit.Status.SOLVED, result.message
+    m, se = result.values["m"], result.errors["m"]
+    assert abs(m - M_TRUE) < 4 * se
+    # linearised standard error sigma / sqrt(sum (d theta/dm)^2), d theta/dm analytic at the true m:
+    # d/dm cosh(m(L-x))/cosh(mL) = ((L-x) sinh(m(L-x)) cosh(mL) - L cosh(m(L-x)) sinh(mL)) / cosh(mL)^2
+    L = 1.0
+    d = ((L - X) * np.sinh(M_TRUE * (L - X)) * np.cosh(M_TRUE * L)
+         - L * np.cosh(M_TRUE * (L - X)) * np.sinh(M_TRUE * L)) / np.cosh(M_TRUE * L) ** 2
+    linear = SIGMA / math.sqrt(np.sum(d ** 2))
+    assert linear / 2 < se < 2 * linear
+    assert result.residuals["theta"].shape == (20,)
+    assert result.solution.success and result.degrees_of_freedom == 19
+    assert result.covariance.shape == (1, 1) and "m = " in result.summary()
+    assert result.solution.prepared.constants["m"] == pytest.approx(m)
+
+
+def test_two_constants_with_a_tip_biot_number():
+    def exact(x, m, bi):  # analytic: theta'' = m^2 theta, theta(0) = 1, theta'(1) + Bi theta(1) = 0
+        return (np.cosh(m * (1 - x)) + bi / m * np.sinh(m * (1 - x))) / (np.cosh(m) + bi / m * np.sinh(m))
+
+    rng = np.random.default_rng(7)
+    y = exact(X, 2.0, 1.0) + SIGMA * rng.standard_normal(X.size)
+    fin = bvpkit.Problem(["theta'' = m**2*theta"], ["theta(0) = 1", "theta'(1) + Bi*theta(1) = 0"], (0, 1),
+                         constants={"m": 1.5, "Bi": 0.5})
+    result = bvpkit.fit(fin, {"theta": (X, y)}, vary={"m": 1.5, "Bi": 0.5}, sigma=SIGMA)
+    assert result.success, result.message
+    for name, true in (("m", 2.0), ("Bi", 1.0)):
+        assert abs(result.values[name] - true) < 4 * result.errors[name]
+        assert 0 < result.errors[name] < 1
+    assert -1 < result.correlation[0, 1] < 1
+
+
+def test_a_product_pair_is_not_identifiable():
+    fin = bvpkit.Problem(["theta'' = a*b*theta"], ["theta(0) = 1", "theta'(1) = 0"], (0, 1),
+                         constants={"a": 2.0, "b": 1.0})
+    result = bvpkit.fit(fin, {"theta": (X, _noisy())}, vary={"a": 2.0, "b": 1.5}, sigma=SIGMA)
+    assert not result.success and result.status is bvpkit.Status.NOT_IDENTIFIABLE
+    assert result.status.word == "not_identifiable"
+    assert result.determined == "a*b" and "a*b" in result.message
+    assert not any(math.isfinite(e) for e in result.errors.values())
+    # what the data do determine is fitted: a*b = m^2
+    assert result.values["a"] * result.values["b"] == pytest.approx(M_TRUE ** 2, rel=0.05)
+
+
+def test_point_outputs_and_several_data_sets():
+    fin = _fin(1.5)
+    # analytic: -theta'(0) = m tanh(m L) for the fin above
+    slope = M_TRUE * math.tanh(M_TRUE)
+    result = bvpkit.fit(fin, {"theta": (X, _noisy(), np.full(X.size, SIGMA)), "-theta'(0)": (slope, 0.01)},
+                        vary={"m": None}, bounds={"m": (0.1, 10)})
+    assert result.success and abs(result.values["m"] - M_TRUE) < 4 * result.errors["m"]
+    assert set(result.residuals) == {"theta", "-theta'(0)"}
+
+
+@pytest.mark.parametrize("kwargs, match", [
+    ({"data": {"theta": ([0.5, 2.0], [0.3, 0.1])}}, "outside the domain"),
+    ({"data": {"2*m": 3.0}}, "names no unknown"),
+    ({"vary": {"h": 1.0}}, "'h', not a constant"),
+    ({"sigma": 0.0}, "finite and positive"),
+    ({"sigma": math.nan}, "finite and positive"),
+    ({"sigma": {"theta": [0.1, -1.0]}}, "finite and positive"),
+    ({"data": {"theta": ([0.5], [0.3])}, "vary": {"m": 1.0, "L": 1.0}}, "cannot determine 2 constants"),
+])
+def test_bad_input_is_refused_before_any_solve(kwargs, match, monkeypatch):
+    from bvpkit.solver import driver
+
+    def no_solve(*args, **kw):
+        raise AssertionError("a solve ran")
+
+    monkeypatch.setattr(driver, "solve", no_solve)
+    args = {"data": {"theta": ([0.25, 0.5], [0.6, 0.4])}, "vary": {"m": 1.0}, "sigma": 0.1} | kwargs
+    with pytest.raises(bvpkit.BvpkitError, match=match) as err:
+        bvpkit.fit(_fin(), args.pop("data"), **args)
+    assert "\n" not in str(err.value)
