@@ -29,8 +29,9 @@ import numpy as np
 from ..errors import BvpkitError
 from ..reduce.mapping import positions
 from ..solver import driver
-from ..solver.solution import Solution
+from ..solver.solution import Solution, sampling
 from ..status import Status
+from . import batched
 from .continuation import trace
 
 #: The information matrix's smallest singular value below this fraction of its largest: the
@@ -459,3 +460,35 @@ def _numbers(values: Any, what: str) -> np.ndarray:
     if not np.isfinite(a).all():
         raise BvpkitError(f"fit: {what} hold a value that is not a finite number")
     return a
+
+
+#: Points of the sampling check solved together in one vectorised Newton system (memory:
+#: states x points x nodes floats per array).
+_CHUNK = 250
+
+
+@sampling
+def _sample(solution: Solution, names: list, draws: np.ndarray, expressions: list) -> np.ndarray:
+    """Outputs at drawn values of constants: the points solved as a sweep's are (together where
+    the problem allows, :mod:`bvpkit.families.batched`; alone otherwise, each from ``solution``)."""
+    prepared = solution.prepared
+    tol = solution.diagnostics.tol
+    options = {"tol": tol, "verify": True}
+    points = [dict(zip(names, map(float, d))) for d in draws]
+    table = np.full((len(points), len(expressions)), np.nan)
+    batch = batched.applies(prepared, options)
+    for begin in range(0, len(points), _CHUNK):
+        chunk = points[begin:begin + _CHUNK]
+        found = batched.solve_points(prepared, chunk, solution, options) if batch else [None] * len(chunk)
+        for i, (point, sol) in enumerate(zip(chunk, found)):
+            if sol is None:
+                try:
+                    sol = driver.solve(prepared.with_constants(**point), tol=tol, guess=solution, follow=trace)
+                except BvpkitError:  # a drawn value the problem refuses (a negative length): a failed sample
+                    continue
+            if sol.success:
+                try:
+                    table[begin + i] = [np.real(sol.evaluate(e)) for e in expressions]
+                except BvpkitError:
+                    continue
+    return table

@@ -28,7 +28,7 @@ value given is the halved mesh's with Richardson's correction for the fourth ord
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -206,3 +206,66 @@ def derivatives(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nda
             "a branch point of the solution family)"
         ) from None
     return fine + (fine - coarse) / _ORDER_FACTOR, np.abs(fine - coarse)
+
+
+@dataclass
+class Propagation:
+    """Spread of outputs from the spread of constants (from :meth:`Solution.propagate`).
+
+    Attributes
+    ----------
+    outputs : tuple of str
+    values : dict of str to float
+        The outputs on the solution.
+    deviations : dict of str to float
+        First-order standard deviations ``sqrt(diag(S C S^T))`` (``S`` the sensitivities,
+        ``C`` the constants' covariance).
+    covariance : ndarray, shape (len(outputs), len(outputs))
+        First-order covariance of the outputs.
+    sensitivities : Sensitivities
+    sampled : dict of str to float or None
+        Standard deviations of the outputs over the samples (None when not sampled).
+    sampled_mean : dict of str to float or None
+    samples : ndarray, shape (n_samples, len(outputs)) or None
+        The outputs of each sampled solve (NaN where a solve failed); ``failed`` counts those.
+    """
+
+    outputs: tuple
+    values: dict
+    deviations: dict
+    covariance: np.ndarray
+    sensitivities: Sensitivities
+    sampled: dict | None = None
+    sampled_mean: dict | None = None
+    samples: np.ndarray | None = None
+    failed: int = 0
+
+    def summary(self) -> str:
+        width = max([len(o) for o in self.outputs] + [6])
+        lines = []
+        for o in self.outputs:
+            line = f"{o:<{width}}  {self.values[o]:.10g} +/- {self.deviations[o]:.4g} (first order)"
+            if self.sampled is not None:
+                line += f", {self.sampled[o]:.4g} over {self.samples.shape[0]} samples"
+            lines.append(line)
+        if self.failed:
+            lines.append(f"{self.failed} sampled solve{'s' if self.failed != 1 else ''} failed (left out)")
+        return "\n".join(lines)
+
+
+def covariance_of(names: Sequence[str], deviations: Mapping | None, covariance) -> np.ndarray:  # noqa: ANN001
+    """The constants' covariance from their standard deviations or a given matrix (checked)."""
+    n = len(names)
+    if covariance is not None:
+        c = np.asarray(covariance, float)
+        if c.shape != (n, n):
+            raise BvpkitError(f"propagate: the covariance must be {n} x {n} (one row per constant: {', '.join(names)})")
+        if not np.isfinite(c).all() or not np.allclose(c, c.T, rtol=1e-10, atol=0):
+            raise BvpkitError("propagate: the covariance must be finite and symmetric")
+        if np.linalg.eigvalsh(c).min() < -1e-12 * max(np.abs(c).max(), 1e-300):
+            raise BvpkitError("propagate: the covariance is not positive semi-definite")
+        return c
+    sd = np.array([deviations[name] for name in names], float)
+    if not (np.isfinite(sd).all() and (sd >= 0).all()):
+        raise BvpkitError("propagate: standard deviations of the constants must be finite and not negative")
+    return np.diag(sd ** 2)

@@ -25,6 +25,20 @@ from ..status import Status
 from . import plots
 from . import sensitivity as _sensitivity
 
+#: The sampling of :meth:`Solution.propagate`: solves at many values of the constants, a
+#: sweep's work, which sits above this stage; given by :func:`sampling` (bvpkit.families.fitting
+#: gives it when imported, as the driver is given its tracer).
+_SAMPLER = None
+
+
+def sampling(function):  # noqa: ANN001, ANN201
+    """Set the function that solves a solution's problem at drawn constants:
+    ``function(solution, names, draws, expressions) -> ndarray (len(draws), len(expressions))``."""
+    global _SAMPLER
+    _SAMPLER = function
+    return function
+
+
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
 _GAUSS_POINTS = 5
@@ -416,6 +430,60 @@ class Solution:
         values = {label: float(self.evaluate(text)) for label, text in labels.items()}
         matrix, errors = self.derivatives([(text, None) for text in labels.values()], indices, estimate=estimate)
         return _sensitivity.Sensitivities(tuple(labels), tuple(names), values, matrix, errors)
+
+    def propagate(self, deviations: Any, outputs: Any = None, *, covariance: Any = None, samples: int = 0,
+                  seed: int | None = None) -> _sensitivity.Propagation:
+        """Standard deviations of outputs from those of constants, to first order through the
+        exact sensitivities; with ``samples=N``, checked by solving at ``N`` draws of the
+        constants (normal, with that covariance).
+
+        Parameters
+        ----------
+        deviations : mapping of str to float, or a FitResult
+            Standard deviations of constants (``{"h": 2.0, "k": 5.0}``); a fit's result gives
+            its constants' covariance.
+        outputs : as for :meth:`sensitivity`
+        covariance : array_like, shape (n, n), optional
+            The constants' covariance, in the order of ``deviations`` (replaces their squares).
+        samples : int
+            Solves of the sampling check (0: none). They run as a sweep's points do (many
+            points in one vectorised Newton system where the problem allows; the rest alone,
+            each started from this solution).
+        seed : int, optional
+            Seed of the draws.
+        """
+        if hasattr(deviations, "covariance") and hasattr(deviations, "names"):  # a fit's result
+            if not deviations.success:
+                raise BvpkitError(f"propagate: the fit did not succeed ({deviations.status.word}): its covariance "
+                                  "is not an answer")
+            names, covariance = list(deviations.names), deviations.covariance
+            deviations = None
+        else:
+            if not isinstance(deviations, dict) or not deviations:
+                raise BvpkitError("propagate: give the constants' standard deviations, e.g. {\"h\": 2.0}")
+            names = list(deviations)
+        names = self._constants_named(names)
+        c = _sensitivity.covariance_of(names, deviations, covariance)
+        s = self.sensitivity(outputs, names, estimate=False)
+        spread = s.matrix @ c @ s.matrix.T
+        result = _sensitivity.Propagation(s.outputs, s.values,
+                                          {o: float(math.sqrt(max(spread[i, i], 0.0))) for i, o in enumerate(s.outputs)},
+                                          spread, s)
+        if samples:
+            if not isinstance(samples, int) or samples < 2:
+                raise BvpkitError(f"propagate: samples must be a whole number of at least 2, got {samples!r}")
+            if _SAMPLER is None:
+                raise BvpkitError("propagate: sampling solves through bvpkit.solve's machinery; import bvpkit.fit first")
+            rng = np.random.default_rng(seed)
+            mean = np.array([self.prepared.constants[n] for n in names], float)
+            draws = rng.multivariate_normal(mean, c, size=samples, method="eigh")
+            expressions = self._expressions(outputs)
+            table = _SAMPLER(self, names, draws, list(expressions.values()))
+            ok = np.isfinite(table).all(axis=1)
+            result.samples, result.failed = table, int(samples - ok.sum())
+            result.sampled = {o: float(np.std(table[ok, i], ddof=1)) for i, o in enumerate(s.outputs)}
+            result.sampled_mean = {o: float(np.mean(table[ok, i])) for i, o in enumerate(s.outputs)}
+        return result
 
     def derivatives(self, items: list, indices: list[int], *, estimate: bool = True) -> tuple[np.ndarray, np.ndarray]:
         """Derivatives of expressions ``(text, at)`` (``at`` None for one value, or points:
