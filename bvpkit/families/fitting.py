@@ -59,6 +59,8 @@ class FitResult:
         ``model - data`` per data set (by its expression).
     weighted : ndarray
         All residuals divided by their sigmas, in the order of the data sets.
+    data : dict of str to (ndarray or None, ndarray, ndarray)
+        Each data set's points (None for a point output), values and sigmas.
     chi_square : float
         ``sum(weighted**2)``; ``degrees_of_freedom`` is the number of data less ``n``.
     solution : Solution
@@ -237,7 +239,7 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
         status = Status.SOLVED
         message = f"converged after {state['solves']} solves"
     return FitResult(values=values, errors=errors, covariance=covariance, correlation=correlation, names=tuple(names),
-                     residuals=raw, weighted=r, chi_square=chi2, degrees_of_freedom=dof, solution=sol,
+                     residuals=raw, weighted=r, data={s.text: (s.at, s.measured, s.sigma) for s in sets}, chi_square=chi2, degrees_of_freedom=dof, solution=sol,
                      success=status is Status.SOLVED, status=status, message=message, determined=determined,
                      evaluations=state["solves"], jacobians=state["jacobians"],
                      seconds=time.perf_counter() - started)
@@ -251,7 +253,7 @@ def _prepare(problem: Any):  # noqa: ANN202
 
 def _failed(names: list, sets: list, status: Status, message: str, state: dict, started: float) -> FitResult:
     return FitResult(values={}, errors={}, covariance=None, correlation=None, names=tuple(names),
-                     residuals={}, weighted=np.zeros(0), chi_square=math.nan, degrees_of_freedom=0,
+                     residuals={}, weighted=np.zeros(0), data={}, chi_square=math.nan, degrees_of_freedom=0,
                      solution=state.get("failed"), success=False, status=status, message=message, determined=None,
                      evaluations=state["solves"], jacobians=state["jacobians"], seconds=time.perf_counter() - started)
 

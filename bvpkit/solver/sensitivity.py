@@ -99,10 +99,10 @@ class Sensitivities:
     def summary(self) -> str:
         """A plain-text table: one row per output, one column per constant (``d output / d constant``)."""
         width = max([len(o) for o in self.outputs] + [6])
-        head = " " * width + "".join(f"  {'d/d' + w:>26}" for w in self.wrt)
+        head = " " * width + "".join(f"  {'d/d' + w:>30}" for w in self.wrt)
         lines = [head]
         for o in self.outputs:
-            cells = "".join(f"  {_cell(self.derivatives[o][w], self.errors[o][w]):>26}" for w in self.wrt)
+            cells = "".join(f"  {_cell(self.derivatives[o][w], self.errors[o][w]):>30}" for w in self.wrt)
             lines.append(f"{o:<{width}}{cells}")
         return "\n".join(lines)
 
