@@ -102,3 +102,56 @@ def test_bad_input_is_refused_before_any_solve(kwargs, match, monkeypatch):
     with pytest.raises(bvpkit.BvpkitError, match=match) as err:
         bvpkit.fit(_fin(), args.pop("data"), **args)
     assert "\n" not in str(err.value)
+
+
+# -- the command line ---------------------------------------------------------------------------
+ROOT = __import__("pathlib").Path(__file__).parents[1]
+RIG = ROOT / "specs" / "fin_rig_calibration.toml"
+
+
+def test_fit_command_on_the_bundled_rig(capsys):
+    import json
+
+    from bvpkit.io.cli import main
+
+    assert main(["fit", str(RIG), "--json"]) == 0
+    report = json.loads(capsys.readouterr().out)
+    # the readings were made from the analytic profile with h = 31 W/(m^2 K) plus noise of 0.4 K
+    # (made up for the bundled spec; seed 2026)
+    assert abs(report["values"]["h"] - 31.0) < 4 * report["errors"]["h"]
+    assert 0.1 < report["errors"]["h"] < 1.0 and report["status"] == "solved"
+    # h and k enter only as h/k (fin equation and tip condition): not identifiable, exit code of its own
+    code = main(["fit", str(RIG), "--vary", "h=20,k=100"])
+    out = capsys.readouterr().out
+    assert code == bvpkit.Status.NOT_IDENTIFIABLE.exit_code and "h/k" in out and "not determined alone" in out
+
+
+def test_solve_with_a_sensitivity_table(capsys):
+    import json
+
+    from bvpkit.io.cli import main
+
+    assert main(["solve", str(ROOT / "specs" / "pin_fin.toml"), "--sensitivity", "h,L", "--json"]) == 0
+    report = json.loads(capsys.readouterr().out)
+    d = report["sensitivity"]["derivatives"]["tip_excess_temperature_K"]
+    # analytic: theta(L) = theta_b / cosh(mL), m^2 = 4h/(kD): d theta(L)/dL = -theta_b m sinh(mL)/cosh(mL)^2
+    m = math.sqrt(4 * 40.0 / (200.0 * 0.005))
+    assert d["L"] == pytest.approx(-45.0 * m * math.sinh(m * 0.08) / math.cosh(m * 0.08) ** 2, rel=1e-7)
+    assert main(["solve", str(ROOT / "specs" / "pin_fin.toml"), "--sensitivity", "hh"]) == 2
+    assert "'hh', which is not a constant" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("csv_text, args, match", [
+    ("x,theta\n0.1,abc\n", [], "is not a number"),
+    ("y,theta\n0.1,3\n", [], "first column must be the independent variable 'x'"),
+    ("x,theta\n0.1,3\n0.5,2\n", ["--vary", "q=1"], "'q', not a constant"),
+    ("x,theta\n", [], "no measurements"),
+])
+def test_fit_command_refuses_bad_files(tmp_path, capsys, csv_text, args, match):
+    from bvpkit.io.cli import main
+
+    data = tmp_path / "readings.csv"
+    data.write_text(csv_text)
+    assert main(["fit", str(RIG), "--data", str(data), *args]) == 2
+    err = capsys.readouterr().err
+    assert match in err and err.count("\n") <= 2
