@@ -170,7 +170,9 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
         if state["x"] is not None and np.array_equal(x, state["x"]):
             return state["solution"]
         here = prepared.with_constants(**{n: float(v) for n, v in zip(names, x)})
-        sol = driver.solve(here, tol=tol, method=method, guess=state["guess"], follow=trace)
+        # the iterations' solves skip the error estimate (the residual control stays); the
+        # solution at the fitted values is solved again with it, below
+        sol = driver.solve(here, tol=tol, method=method, guess=state["guess"], verify=False, follow=trace)
         state["solves"] += 1
         state["x"], state["solution"] = np.array(x, float), sol if sol.success else None
         if sol.success:
@@ -217,7 +219,15 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
         failed = state.get("failed")
         return _failed(names, sets, failed.status if failed else Status.NOT_CONVERGED,
                        f"the solve at the fitted values failed: {failed.message if failed else ''}", state, started)
-    # the final statistics on the solution with its error estimate (the fit's own solves may skip it)
+    # the final statistics on the solution with its error estimate (the iterations' solves skip it)
+    final = driver.solve(prepared.with_constants(**dict(zip(names, map(float, x)))), tol=tol, method=method,
+                         guess=sol, follow=trace)
+    state["solves"] += 1
+    if not final.success:
+        return _failed(names, sets, final.status, f"the solve at the fitted values failed: {final.message}",
+                       {**state, "failed": final}, started)
+    state["x"], state["solution"] = np.array(x, float), final
+    sol = final
     r = residuals(x)
     J = jacobian(x)
     values = dict(zip(names, map(float, x)))
@@ -281,7 +291,7 @@ def _statistics(names: list, x: np.ndarray, J: np.ndarray, factor: float):  # no
     else:
         null = vt[-1]
     # the direction along which the constants move without changing the fit (relative changes)
-    involved = [i for i in np.argsort(-np.abs(null)) if abs(null[i]) > 1e-3 * np.abs(null).max()]
+    involved = [i for i in range(n) if abs(null[i]) > 1e-3 * np.abs(null).max()]
     determined = _combination([names[i] for i in involved], null[involved], x[involved])
     covariance = np.full((n, n), np.nan)
     correlation = np.full((n, n), np.nan)
@@ -305,7 +315,7 @@ def _combination(names: list, null: np.ndarray, values: np.ndarray) -> str:
         return f"nothing of {names[0]}"
     if len(names) == 2 and np.all(values != 0):
         alpha, beta = null[1], -null[0]
-        if abs(beta) > abs(alpha) * (1 + 1e-6):
+        if abs(beta) > abs(alpha) * (1 + 1e-3):  # the first of equals stays first
             names, alpha, beta = names[::-1], beta, alpha
         q = beta / alpha
         power = _fraction(abs(q))

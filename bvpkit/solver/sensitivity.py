@@ -41,6 +41,8 @@ from ..methods.discrete import CollocationEquations, SingularMatrix
 #: Relative step of the centred difference along the tangent (truncation ~ step**4 = 1e-12,
 #: round-off ~ 1e-16 / step = 1e-13 relative to the output's size).
 _STEP = 1e-3
+#: The same for the three-point difference (truncation ~ step**2 = 1e-10, round-off ~ 1e-11).
+_STEP_COARSE = 1e-5
 #: Newton steps that put a solution on the collocation equations of a mesh (from a solution
 #: of the same problem: quadratic from close by).
 _POLISH_STEPS = 8
@@ -127,54 +129,62 @@ class Tangents:
                  indices: Sequence[int]):
         self.compiled, self.t, self.k, self.indices = compiled, t, np.asarray(k, float), list(indices)
         own = CollocationEquations(compiled, t, self.k)
-        z = _polished(own, own.join(y, p))
+        z, lu = _polished(own, own.join(y, p))
         self.y, self.p = own.split(z)
         names = [compiled.layout.constants[i] for i in self.indices]
         freed = CollocationEquations(compiled.freeing(*names), t, self.k)
         full = freed.jacobian(np.concatenate([z, self.k[self.indices]])).tocsc()
-        size = z.size
-        try:
-            lu = splu(full[:, :size].tocsc())
-        except RuntimeError:
-            raise SingularMatrix("the Newton matrix at the solution is singular") from None
-        dz = lu.solve(-full[:, size:].toarray())
+        dz = lu.solve(-full[:, z.size:].toarray())
         if not np.isfinite(dz).all():
             raise SingularMatrix("the Newton matrix at the solution is singular")
         self.dy = [own.split(dz[:, j])[0] for j in range(dz.shape[1])]
         self.dp = [own.split(dz[:, j])[1] for j in range(dz.shape[1])]
 
-    def derivatives(self, view_of: Callable, values_of: Callable) -> np.ndarray:
+    def derivatives(self, view_of: Callable, values_of: Callable, fine: bool = True) -> np.ndarray:
         """``d values / d k`` for the constants, shape ``(len(values), len(indices))``:
-        ``values_of(view_of(t, y, p, k))`` differenced along each tangent."""
+        ``values_of(view_of(t, y, p, k))`` differenced along each tangent (five points; with
+        ``fine`` False three, about ten digits at half the cost: a fit's Jacobian)."""
         columns = []
         for j, i in enumerate(self.indices):
             scale = abs(self.k[i]) if self.k[i] != 0 else 1.0
-            step = _STEP * scale
+            step = (_STEP if fine else _STEP_COARSE) * scale
             e = np.zeros_like(self.k)
             e[i] = 1.0
             at = {}
-            for s in (-2, -1, 1, 2):
+            for s in (-2, -1, 1, 2) if fine else (-1, 1):
                 eps = s * step
                 view = view_of(self.t, self.y + eps * self.dy[j], self.p + eps * self.dp[j], self.k + eps * e)
                 at[s] = np.asarray(values_of(view), float)
-            columns.append((at[-2] - 8 * at[-1] + 8 * at[1] - at[2]) / (12 * step))
+            if fine:
+                columns.append((at[-2] - 8 * at[-1] + 8 * at[1] - at[2]) / (12 * step))
+            else:
+                columns.append((at[1] - at[-1]) / (2 * step))
         return np.column_stack(columns) if columns else np.zeros((0, 0))
 
 
-def _polished(eq: CollocationEquations, z: np.ndarray) -> np.ndarray:
-    """``z`` put on the collocation equations of ``eq`` by Newton's method (exact Jacobians)."""
+def _polished(eq: CollocationEquations, z: np.ndarray):  # noqa: ANN202
+    """``z`` put on the collocation equations of ``eq`` by Newton's method (exact Jacobians),
+    and the LU of the Newton matrix of the last step: at the solution to round-off (the step
+    it made was below ``_POLISH_TOL``), so it serves the tangents."""
+    lu = None
     for _ in range(_POLISH_STEPS):
         r = eq.residual(z)
         if not np.isfinite(r).all():
             raise SingularMatrix("the collocation equations are not finite at the solution")
         try:
-            step = splu(eq.jacobian(z).tocsc()).solve(r)
+            lu = splu(eq.jacobian(z).tocsc())
         except RuntimeError:
             raise SingularMatrix("the Newton matrix at the solution is singular") from None
+        step = lu.solve(r)
+        if not np.isfinite(step).all():
+            raise SingularMatrix("the Newton matrix at the solution is singular")
         z = z - step
         if np.max(np.abs(step) / (1.0 + np.abs(z))) < _POLISH_TOL:
-            break
-    return z
+            return z, lu
+    try:
+        return z, splu(eq.jacobian(z).tocsc())
+    except RuntimeError:
+        raise SingularMatrix("the Newton matrix at the solution is singular") from None
 
 
 def halved(t: np.ndarray) -> np.ndarray:
@@ -188,13 +198,14 @@ def derivatives(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nda
     """Derivatives of ``values_of(view)`` in the constants ``indices``, and their error
     estimates (NaN without ``estimate``), shape ``(len(values), len(indices))`` each.
 
-    Without ``estimate``: on the solution's mesh alone. With it: on the halved mesh too;
+    Without ``estimate``: on the solution's mesh alone (three-point differences of the
+    outputs along the tangents, about ten digits: a fit's Jacobian). With it: on the halved mesh too;
     the value is the halved mesh's, corrected by Richardson's rule for the fourth order, and
     the error the difference of the two meshes' derivatives (an upper estimate of the halved
     mesh's error, itself larger than the corrected value's).
     """
     try:
-        coarse = Tangents(compiled, t, y, p, k, indices).derivatives(view_of, values_of)
+        coarse = Tangents(compiled, t, y, p, k, indices).derivatives(view_of, values_of, fine=estimate)
         if not estimate:
             return coarse, np.full_like(coarse, np.nan)
         fine_t = halved(t)
