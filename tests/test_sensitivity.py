@@ -78,3 +78,41 @@ def test_bad_requests_are_refused_by_name(fin):
 def test_default_outputs_and_constants(fin):
     s = fin.sensitivity(["theta(L/2)"])
     assert s.wrt == ("m", "L") and np.isfinite(s.matrix).all()
+
+
+def test_classes_singular_centre_regions_algebraic_infinite_complex():
+    # analytic: pellet c'' + (2/r) c' = phi^2 c, c'(0) = 0, c(1) = 1 gives c'(1) = phi coth(phi) - 1,
+    # d/dphi = coth(phi) - phi / sinh(phi)^2
+    pellet = bvpkit.Problem(["c'' + (2/r)*c' = phi**2*c"], ["c'(0) = 0", "c(1) = 1"], (0, 1), independent="r",
+                            constants={"phi": 2.0})
+    d = bvpkit.solve(pellet, tol=1e-8).sensitivity("c'(1)", wrt="phi").derivatives["c'(1)"]["phi"]
+    assert d == pytest.approx(1 / math.tanh(2.0) - 2.0 / math.sinh(2.0) ** 2, abs=1e-7)
+    # analytic: two layers in series, q = dT / (a/k1 + R + b/k2); dq/dR = -q^2/dT, dq/da = -q^2/(k1 dT)
+    wall = bvpkit.Problem(["T' = -q/k", "q' = 0"], ["T(0) = 1150", "T(a + b) = 320", "T(a-) - T(a+) = R*q(a)"],
+                          (0, "a + b"), constants={"k": 1.4, "a": 0.23, "b": 0.11, "R": 0.02},
+                          regions=[{"end": "a", "constants": {"k": 1.4}}, {"constants": {"k": 0.16}}])
+    s = bvpkit.solve(wall, tol=1e-8).sensitivity("q(0)", wrt=["a", "R"])
+    q = 830 / (0.23 / 1.4 + 0.02 + 0.11 / 0.16)
+    assert s.derivatives["q(0)"]["R"] == pytest.approx(-q * q / 830, rel=1e-9)
+    assert s.derivatives["q(0)"]["a"] == pytest.approx(-q * q / 830 / 1.4, rel=1e-9)
+    # analytic: theta = exp(-m x) on (0, inf): theta'(0) = -m
+    far = bvpkit.Problem(["theta'' = m**2*theta"], ["theta(0) = 1", "theta(inf) = 0"], (0, "inf"),
+                         constants={"m": 2.0})
+    assert bvpkit.solve(far, tol=1e-8).sensitivity("theta'(0)", wrt="m").derivatives["theta'(0)"]["m"] == \
+        pytest.approx(-1.0, abs=1e-7)
+    # analytic: T = exp(-sqrt(i w) x), |T(x)| = exp(-sqrt(w/2) x): d|T(0.1)|/dw = -0.1/(2 sqrt(2w)) exp(-0.1 sqrt(w/2))
+    ground = bvpkit.Problem(["T'' = 1j*w*T"], ["T(0) = 1", "T(inf) = 0"], (0, "inf"), constants={"w": 2.0})
+    d = bvpkit.solve(ground, tol=1e-8).sensitivity("abs(T(0.1))", wrt="w").derivatives["abs(T(0.1))"]["w"]
+    assert d == pytest.approx(-0.1 / (2 * math.sqrt(4.0)) * math.exp(-0.1), abs=1e-7)
+
+
+def test_algebraic_unknowns_against_centred_difference():
+    # reference: a centred difference of two tight solves (step 1e-5)
+    cooler = bvpkit.Problem(["Th' = -a*(Th - Tw)", "Tc' = -b*(Tw - Tc)", "0 = h1*(Th - Tw) - h2*(Tw - Tc)"],
+                            ["Th(0) = 1", "Tc(1) = 0"], (0, 1), unknowns=["Th", "Tc", "Tw"],
+                            constants={"a": 2.0, "b": 1.5, "h1": 1.0, "h2": 3.0})
+    d = bvpkit.solve(cooler, tol=1e-8).sensitivity("Tw(0)", wrt="a").derivatives["Tw(0)"]["a"]
+    h = 1e-5
+    up = bvpkit.solve(cooler.with_constants(a=2 + h), tol=1e-11).evaluate("Tw(0)")
+    down = bvpkit.solve(cooler.with_constants(a=2 - h), tol=1e-11).evaluate("Tw(0)")
+    assert d == pytest.approx((up - down) / (2 * h), abs=1e-6)
