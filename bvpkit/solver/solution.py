@@ -416,7 +416,9 @@ class Solution:
         order, Newton matrix formed at the solution with exact Jacobians; one solve per
         constant), see :mod:`bvpkit.solver.sensitivity`. A failed solve raises.
         """
-        self._check_success("sensitivity", False)
+        if not self.success:
+            raise BvpkitError(f"sensitivity(): this solve failed ({self.status.word}), so it has no derivatives; "
+                              "fix the cause and solve again")
         labels = self._expressions(outputs)
         names = self._constants_named(wrt)
         indices = [self.interpolant.layout.constants.index(name) for name in names]
@@ -544,7 +546,6 @@ class Solution:
         cause = self.message if len(self.message) <= 160 else self.message[:157] + "..."
         action = {"evaluate": "look at them", "integrate": "integrate them", "table": "get the table",
                   "parameter_values": "get the last iterate's values", "plot": "draw them",
-                  "sensitivity": "differentiate them anyway (not offered: a failed solve has no derivatives)",
                   "to_csv": "write them (every column header then says the solve failed)"}[asked]
         raise BvpkitError(
             f"{asked}(): this solve failed ({self.status.word}), so its numbers are not an answer: {cause}. "
