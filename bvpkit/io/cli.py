@@ -674,9 +674,10 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
     form = standard_form(problem)
     report = check_report(problem, form)
     _check_solver(problem, form)
-    for section in ("trace", "sweep"):
+    for section in ("trace", "sweep", "fit"):
         settings = problem.settings.get(section) or {}
-        names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
+        names = ([settings.get("parameter")] if section == "trace" else
+                 list(settings.get("grid") or {}) if section == "sweep" else list(settings.get("vary") or {}))
         for name in names:
             if name is not None and name not in problem.constants:
 
