@@ -122,19 +122,38 @@ class Tangents:
     """The derivatives of a discrete solution in the constants ``indices`` on one mesh.
 
     ``z`` holds the solution on the mesh (states node-major, then parameters); ``dz`` its
-    derivatives, shape ``(len(z), len(indices))``.
+    derivatives, shape ``(len(z), len(indices))``. The solution is first put on the
+    collocation equations of the mesh by Newton's method (``steps`` at most; one serves a
+    fit, whose solves met the tolerance on this mesh); the Jacobian of its last step, with
+    the constants' columns beside it, gives the tangents.
     """
 
     def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray,  # noqa: ANN001
-                 indices: Sequence[int]):
+                 indices: Sequence[int], steps: int = _POLISH_STEPS):
         self.compiled, self.t, self.k, self.indices = compiled, t, np.asarray(k, float), list(indices)
-        own = CollocationEquations(compiled, t, self.k)
-        z, lu = _polished(own, own.join(y, p))
-        self.y, self.p = own.split(z)
         names = [compiled.layout.constants[i] for i in self.indices]
         freed = CollocationEquations(compiled.freeing(*names), t, self.k)
-        full = freed.jacobian(np.concatenate([z, self.k[self.indices]])).tocsc()
-        dz = lu.solve(-full[:, z.size:].toarray())
+        own = CollocationEquations(compiled, t, self.k)
+        z = own.join(y, p)
+        size = z.size
+        for _ in range(steps):
+            full = np.concatenate([z, self.k[self.indices]])
+            r = freed.residual(full)
+            if not np.isfinite(r).all():
+                raise SingularMatrix("the collocation equations are not finite at the solution")
+            matrix = freed.jacobian(full).tocsc()
+            try:
+                lu = splu(matrix[:, :size])
+            except RuntimeError:
+                raise SingularMatrix("the Newton matrix at the solution is singular") from None
+            step = lu.solve(r)
+            if not np.isfinite(step).all():
+                raise SingularMatrix("the Newton matrix at the solution is singular")
+            z = z - step
+            if np.max(np.abs(step) / (1.0 + np.abs(z))) < _POLISH_TOL:
+                break
+        self.y, self.p = own.split(z)
+        dz = lu.solve(-matrix[:, size:].toarray())
         if not np.isfinite(dz).all():
             raise SingularMatrix("the Newton matrix at the solution is singular")
         self.dy = [own.split(dz[:, j])[0] for j in range(dz.shape[1])]
@@ -162,31 +181,6 @@ class Tangents:
         return np.column_stack(columns) if columns else np.zeros((0, 0))
 
 
-def _polished(eq: CollocationEquations, z: np.ndarray):  # noqa: ANN202
-    """``z`` put on the collocation equations of ``eq`` by Newton's method (exact Jacobians),
-    and the LU of the Newton matrix of the last step: at the solution to round-off (the step
-    it made was below ``_POLISH_TOL``), so it serves the tangents."""
-    lu = None
-    for _ in range(_POLISH_STEPS):
-        r = eq.residual(z)
-        if not np.isfinite(r).all():
-            raise SingularMatrix("the collocation equations are not finite at the solution")
-        try:
-            lu = splu(eq.jacobian(z).tocsc())
-        except RuntimeError:
-            raise SingularMatrix("the Newton matrix at the solution is singular") from None
-        step = lu.solve(r)
-        if not np.isfinite(step).all():
-            raise SingularMatrix("the Newton matrix at the solution is singular")
-        z = z - step
-        if np.max(np.abs(step) / (1.0 + np.abs(z))) < _POLISH_TOL:
-            return z, lu
-    try:
-        return z, splu(eq.jacobian(z).tocsc())
-    except RuntimeError:
-        raise SingularMatrix("the Newton matrix at the solution is singular") from None
-
-
 def halved(t: np.ndarray) -> np.ndarray:
     """The mesh with every interval cut in two."""
     return np.sort(np.concatenate([t, 0.5 * (t[1:] + t[:-1])]))
@@ -205,7 +199,8 @@ def derivatives(compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.nda
     mesh's error, itself larger than the corrected value's).
     """
     try:
-        coarse = Tangents(compiled, t, y, p, k, indices).derivatives(view_of, values_of, fine=estimate)
+        coarse = Tangents(compiled, t, y, p, k, indices, steps=_POLISH_STEPS if estimate else 1).derivatives(
+            view_of, values_of, fine=estimate)
         if not estimate:
             return coarse, np.full_like(coarse, np.nan)
         fine_t = halved(t)
