@@ -637,6 +637,10 @@ def _fit(args: argparse.Namespace) -> tuple[int, Any]:
     if not settings.get("vary"):
         raise OptionError(f"{args.spec}: fit needs the constants to vary: give --vary NAME=START or a [fit] section "
                           f"with vary = {{ NAME = START }} (constants: {', '.join(problem.constants) or 'none'})")
+    for name in settings["vary"]:
+        if name not in problem.constants:
+            raise OptionError(f"fit: vary names '{name}', which is not a constant of the problem"
+                              f"{closest(name, problem.constants)}")
     if args.data is not None:
         _no_nul(args.data, "data file")
         data_path = Path(args.data)
