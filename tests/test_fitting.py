@@ -155,3 +155,36 @@ def test_fit_command_refuses_bad_files(tmp_path, capsys, csv_text, args, match):
     assert main(["fit", str(RIG), "--data", str(data), *args]) == 2
     err = capsys.readouterr().err
     assert match in err and err.count("\n") <= 2
+
+
+def test_a_domain_end_fitted_and_the_noise_estimated_without_sigma():
+    rng = np.random.default_rng(3)
+    x = np.linspace(0.05, 0.9, 15)
+    y = _profile(x, 2.0, L=1.2) + 0.005 * rng.standard_normal(x.size)
+    given = bvpkit.fit(_fin(1.5), {"theta": (x, y)}, vary={"L": 1.0, "m": 1.5}, sigma=0.005)
+    assert given.success and all(abs(given.values[k] - t) < 4 * given.errors[k] for k, t in (("L", 1.2), ("m", 2.0)))
+    # without sigma the covariance is scaled by chi^2 / (N - n) of the unit-weight fit (common practice,
+    # no source): the errors are those of the fit with sigma times sqrt(chi^2_sigma / dof)
+    estimated = bvpkit.fit(_fin(1.5), {"theta": (x, y)}, vary={"L": 1.0, "m": 1.5})
+    factor = math.sqrt(given.chi_square / given.degrees_of_freedom)
+    for k in ("L", "m"):
+        assert estimated.values[k] == pytest.approx(given.values[k], rel=1e-6)
+        assert estimated.errors[k] == pytest.approx(given.errors[k] * factor, rel=1e-4)
+
+
+def test_a_solve_that_fails_inside_the_fit_shrinks_the_step(monkeypatch):
+    from bvpkit.solver import driver
+
+    real = driver.solve
+    calls = {"n": 0}
+
+    def flaky(problem, **kw):
+        calls["n"] += 1
+        sol = real(problem, **kw)
+        if calls["n"] == 2:  # the first trial step: reported failed, as a solve past a fold would be
+            sol.success = False
+        return sol
+
+    monkeypatch.setattr(driver, "solve", flaky)
+    result = bvpkit.fit(_fin(), {"theta": (X, _noisy())}, vary={"m": 1.0}, sigma=SIGMA)
+    assert calls["n"] > 3 and result.success and abs(result.values["m"] - M_TRUE) < 4 * result.errors["m"]
