@@ -31,7 +31,6 @@ from ..reduce.mapping import positions
 from ..solver import driver
 from ..solver.solution import Solution, sampling
 from ..status import Status
-from . import batched
 from .continuation import trace
 
 #: The information matrix's smallest singular value below this fraction of its largest: the
@@ -483,6 +482,8 @@ _CHUNK = 250
 def _sample(solution: Solution, names: list, draws: np.ndarray, expressions: list) -> np.ndarray:
     """Outputs at drawn values of constants: the points solved as a sweep's are (together where
     the problem allows, :mod:`bvpkit.families.batched`; alone otherwise, each from ``solution``)."""
+    from . import batched  # imported when a sampling first needs it (as the sweep does): a solve's start-up stays light
+
     prepared = solution.prepared
     tol = solution.diagnostics.tol
     options = {"tol": tol, "verify": True}
