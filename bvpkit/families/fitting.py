@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import dataclass
 from collections.abc import Mapping
 from typing import Any
 
@@ -41,6 +42,7 @@ _SINGULAR = 1e-7
 _CORRELATED = 1e-6
 
 
+@dataclass(repr=False)
 class FitResult:
     """The outcome of :func:`fit`.
 
@@ -68,12 +70,28 @@ class FitResult:
     determined : str or None
         When not identifiable: the combination the data determine (``"m*Bi"``).
     evaluations : int
-        Solves made (residuals) and ``jacobians``, exact Jacobians formed.
+        Solves made; ``jacobians``, exact Jacobians formed.
     seconds : float
     """
 
-    def __init__(self, **fields: Any):
-        self.__dict__.update(fields)
+    values: dict
+    errors: dict
+    covariance: np.ndarray | None
+    correlation: np.ndarray | None
+    names: tuple
+    residuals: dict
+    weighted: np.ndarray
+    data: dict
+    chi_square: float
+    degrees_of_freedom: int
+    solution: Solution | None
+    success: bool
+    status: Status
+    message: str
+    determined: str | None
+    evaluations: int
+    jacobians: int
+    seconds: float
 
     def summary(self) -> str:
         head = "fitted" if self.success else f"FAILED ({self.status.word})"
@@ -112,9 +130,13 @@ class FitResult:
         return f"<FitResult {self.status.word}: {self.values}>"
 
 
+@dataclass
 class _DataSet:
-    def __init__(self, text: str, at: np.ndarray | None, measured: np.ndarray, sigma: np.ndarray):
-        self.text, self.at, self.measured, self.sigma = text, at, measured, sigma
+    text: str
+    at: np.ndarray | None  # the points (None: a point output)
+    measured: np.ndarray
+    sigma: np.ndarray
+    explicit: bool  # sigmas given (else 1, and the noise is estimated from the residuals)
 
 
 def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
@@ -451,9 +473,7 @@ def _data_sets(prepared, data: Any, sigma: Any, values: Mapping[str, float]) -> 
         if not (np.isfinite(s).all() and (s > 0).all()):
             raise BvpkitError(f"fit: the sigmas of '{text}' must be finite and positive")
         s = np.broadcast_to(s, measured.shape).astype(float)
-        ds = _DataSet(text, at, measured, s)
-        ds.explicit = explicit
-        sets.append(ds)
+        sets.append(_DataSet(text, at, measured, s, explicit))
     if isinstance(sigma, Mapping):
         extra = [k for k in sigma if k not in [s.text for s in sets]]
         if extra:
