@@ -259,7 +259,7 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
         at += s.measured.size
     chi2 = float(r @ r)
     dof = total - len(names)
-    given = sigma is not None or any(s.explicit for s in sets)
+    given = sets[0].explicit
     factor = 1.0 if given else (chi2 / dof if dof > 0 else math.nan)
     covariance, correlation, errors, determined, why = _statistics(names, x, J, factor)
     if not out.success:
@@ -474,6 +474,10 @@ def _data_sets(prepared, data: Any, sigma: Any, values: Mapping[str, float]) -> 
             raise BvpkitError(f"fit: the sigmas of '{text}' must be finite and positive")
         s = np.broadcast_to(s, measured.shape).astype(float)
         sets.append(_DataSet(text, at, measured, s, explicit))
+    if len({s.explicit for s in sets}) > 1:
+        missing = next(s.text for s in sets if not s.explicit)
+        raise BvpkitError(f"fit: sigmas are given for some data sets but not for '{missing}'; give them for "
+                          "every data set, or for none (the noise then estimated from the residuals)")
     if isinstance(sigma, Mapping):
         extra = [k for k in sigma if k not in [s.text for s in sets]]
         if extra:
