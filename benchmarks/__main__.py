@@ -20,24 +20,17 @@ import sys
 from pathlib import Path
 
 from . import collocation, complex, continuation, fitting, reliability, robust, scale, shooting, startup, sweeps
-from .harness import machine
+from .harness import machine, prepend
 
 SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS,
-          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS, *fitting.SECTIONS, *reliability.SECTIONS]
-HEADING = "# Benchmark results (newest first)"
+          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS, *fitting.SECTIONS,
+          *reliability.SECTIONS]
 
 
 def report(sections: list[str]) -> str:
     """One run's text: a dated heading, the machine, then each section's table."""
     stamp = datetime.datetime.now().strftime("%Y-%m-%d %H:%M")
     return f"## Run of {stamp}\n\nMachine: {machine()}\n\n" + "\n".join(sections) + "\n"
-
-
-def prepend(path: Path, text: str) -> None:
-    """Add a run at the top of a results file (below its heading), newest first."""
-    previous = path.read_text() if path.exists() else HEADING + "\n\n"
-    head, _, rest = previous.partition("\n\n")
-    path.write_text(head + "\n\n" + text + ("\n" + rest if rest else ""))
 
 
 def main(argv: list[str]) -> None:

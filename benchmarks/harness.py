@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime
+import multiprocessing
 import os
 import platform
 import statistics
@@ -10,6 +11,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 RESULTS = Path(__file__).with_name("RESULTS.md")
 
@@ -70,3 +72,64 @@ def record(sections: list[str]) -> str:
     head, _, rest = previous.partition("\n\n")
     RESULTS.write_text(head + "\n\n" + text + ("\n" + rest if rest else ""))
     return text
+
+
+class Child:
+    """One worker process running ``worker(conn)`` (a module-level function, so that a spawned
+    process can import it), ended after a timeout and replaced on demand. ``prepared`` names the
+    problems the living process has prepared (emptied with each new process)."""
+
+    def __init__(self, worker: Callable) -> None:
+        self._worker = worker
+        self._ctx = multiprocessing.get_context("spawn")
+        self._proc = self._conn = None
+        self.prepared: set[str] = set()
+
+    def ask(self, job: tuple, timeout: float) -> tuple[str, Any]:
+        if self._proc is None or not self._proc.is_alive():
+            parent, child = self._ctx.Pipe()
+            self._proc = self._ctx.Process(target=self._worker, args=(child,), daemon=True)
+            self._proc.start()
+            child.close()
+            self._conn, self.prepared = parent, set()
+        self._conn.send(job)
+        if self._conn.poll(timeout):
+            try:
+                return self._conn.recv()
+            except EOFError:
+                self.stop()
+                return "crashed", "the child process died"
+        self.stop()
+        return "timeout", f"no answer within {timeout:g} s"
+
+    def stop(self) -> None:
+        if self._proc is None:
+            return
+        if self._proc.is_alive():
+            self._proc.terminate()
+            self._proc.join(5)
+            if self._proc.is_alive():
+                self._proc.kill()
+        self._proc.join()
+        self._conn.close()
+        self._proc = self._conn = None
+        self.prepared = set()
+
+    def close(self) -> None:
+        if self._proc is not None and self._proc.is_alive():
+            try:
+                self._conn.send(None)
+                self._proc.join(5)
+            except (BrokenPipeError, OSError):
+                pass
+        self.stop()
+
+
+RESULTS_HEADING = "# Benchmark results (newest first)"
+
+
+def prepend(path: Path, text: str) -> None:
+    """Add a run at the top of a results file (below its heading), newest first."""
+    previous = path.read_text() if path.exists() else RESULTS_HEADING + "\n\n"
+    head, _, rest = previous.partition("\n\n")
+    path.write_text(head + "\n\n" + text + ("\n" + rest if rest else ""))

@@ -38,7 +38,6 @@ from __future__ import annotations
 import argparse
 import datetime
 import math
-import multiprocessing
 import sys
 import time
 import traceback
@@ -50,7 +49,7 @@ from typing import Any
 import numpy as np
 from scipy import special
 
-from .harness import machine
+from .harness import Child, machine, prepend
 from .testset_check import check_exact
 from .testset_instances import BY_NAME, INSTANCES, QUICK
 
@@ -324,54 +323,6 @@ def _worker(conn) -> None:  # noqa: ANN001
             conn.send(("crashed", f"{type(err).__name__}: {err}"[:300] + "\n" + traceback.format_exc(limit=3)))
 
 
-class _Child:
-    """One worker process, ended after a timeout and replaced on demand."""
-
-    def __init__(self) -> None:
-        self._ctx = multiprocessing.get_context("spawn")
-        self._proc = self._conn = None
-        self.prepared: set[str] = set()
-
-    def ask(self, job: tuple, timeout: float) -> tuple[str, Any]:
-        if self._proc is None or not self._proc.is_alive():
-            parent, child = self._ctx.Pipe()
-            self._proc = self._ctx.Process(target=_worker, args=(child,), daemon=True)
-            self._proc.start()
-            child.close()
-            self._conn, self.prepared = parent, set()
-        self._conn.send(job)
-        if self._conn.poll(timeout):
-            try:
-                return self._conn.recv()
-            except EOFError:
-                self.stop()
-                return "crashed", "the child process died"
-        self.stop()
-        return "timeout", f"no answer within {timeout:g} s"
-
-    def stop(self) -> None:
-        if self._proc is None:
-            return
-        if self._proc.is_alive():
-            self._proc.terminate()
-            self._proc.join(5)
-            if self._proc.is_alive():
-                self._proc.kill()
-        self._proc.join()
-        self._conn.close()
-        self._proc = self._conn = None
-        self.prepared = set()
-
-    def close(self) -> None:
-        if self._proc is not None and self._proc.is_alive():
-            try:
-                self._conn.send(None)
-                self._proc.join(5)
-            except (BrokenPipeError, OSError):
-                pass
-        self.stop()
-
-
 def _methods() -> list[str]:
     from bvpkit.methods import REGISTRY
 
@@ -394,7 +345,7 @@ def run(names: Sequence[str] | None = None, *, quick: bool = False, probes_only:
     chosen = [c for c in chosen if c.name not in refused]
     methods = _methods()
     runs: list[Run] = []
-    child = _Child()
+    child = Child(_worker)
     started = time.perf_counter()
     try:
         for n, case in enumerate(chosen, 1):
@@ -554,8 +505,6 @@ def main(argv: Sequence[str] = ()) -> None:
                      level="##")
     print(text)
     if args.out:
-        from .__main__ import prepend
-
         prepend(Path(args.out), text)
         print(f"added to {args.out}", file=sys.stderr)
     if any(r.false_success for r in runs):

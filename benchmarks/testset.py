@@ -33,7 +33,6 @@ import argparse
 import dataclasses
 import datetime
 import math
-import multiprocessing
 import sys
 import time
 import traceback
@@ -46,7 +45,7 @@ from typing import Any
 import numpy as np
 from scipy.integrate import solve_bvp
 
-from .harness import machine
+from .harness import Child, machine
 from .testset_check import (
     EXACT_CONDITION_TOL,
     EXACT_RESIDUAL_TOL,
@@ -217,62 +216,6 @@ def _worker(conn) -> None:
             conn.send(("crashed", text + "\n" + traceback.format_exc(limit=3)))
 
 
-class _Child:
-    """One worker process; ended by its own handle after a timeout and replaced on demand."""
-
-    def __init__(self) -> None:
-        self._ctx = multiprocessing.get_context("spawn")
-        self._proc = None
-        self._conn = None
-        self.prepared: set[str] = set()
-
-    def _start(self) -> None:
-        parent, child = self._ctx.Pipe()
-        self._proc = self._ctx.Process(target=_worker, args=(child,), daemon=True)
-        self._proc.start()
-        child.close()
-        self._conn = parent
-        self.prepared = set()
-
-    def ask(self, job: tuple, timeout: float) -> tuple[str, Any]:
-        if self._proc is None or not self._proc.is_alive():
-            self._start()
-        self._conn.send(job)
-        if self._conn.poll(timeout):
-            try:
-                return self._conn.recv()
-            except EOFError:
-                self.stop()
-                return "crashed", "the child process died"
-        self.stop()
-        return "timeout", f"no answer within {timeout:g} s"
-
-    def stop(self) -> None:
-        if self._proc is None:
-            return
-        if self._proc.is_alive():
-            self._proc.terminate()
-            self._proc.join(5)
-            if self._proc.is_alive():
-                self._proc.kill()
-        self._proc.join()
-        self._conn.close()
-        self._proc = self._conn = None
-        self.prepared = set()
-
-    def close(self) -> None:
-        if self._proc is not None and self._proc.is_alive():
-            try:
-                self._conn.send(None)
-                self._proc.join(5)
-            except (BrokenPipeError, OSError):
-                pass
-        self.stop()
-
-
-# --- the run -------------------------------------------------------------------------------------
-
-
 def _control_check() -> None:
     """The exact-solution check must refuse wrong solutions; stop if it cannot."""
     base = BY_NAME["reaction_left_layer-eps1e-2"]
@@ -334,7 +277,7 @@ def run(
     usable = [i for i in chosen if checks[i.name].ok]
     solvers = _solvers()
     runs: list[Run] = []
-    child = _Child()
+    child = Child(_worker)
     started = time.perf_counter()
     try:
         for n, inst in enumerate(usable, 1):

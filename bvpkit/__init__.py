@@ -27,7 +27,7 @@ from .status import Status  # noqa: E402
 _LAZY = {
     "Attempt": "methods.diagnostics", "Diagnostics": "methods.diagnostics", "Branch": "families.continuation",
     "Fold": "families.continuation", "trace": "families.continuation", "solve": "public",
-    "Problem": "language.problem", "Solution": "solver.solution", "Interpolant": "solver.solution",
+    "Problem": "language.problem", "Solution": "solver.solution", "Interpolant": "reduce.mapping",
     "Prepared": "reduce.prepared", "prepare": "reduce.prepared", "BranchPoint": "families.continuation",
     "FoldCurve": "families.foldcurve", "fold_curve": "families.foldcurve", "sweep": "families.sweep",
     "SweepResult": "families.sweep", "fit": "families.fitting", "FitResult": "families.fitting",

@@ -453,19 +453,26 @@ def _prepare_spec(path: str, text: str, overrides: dict[str, float]):  # noqa: A
     return prepare(loaded.with_constants(**overrides) if overrides else loaded)
 
 
-def _trace(args: argparse.Namespace) -> tuple[int, Any]:
-    from .. import trace
-    from ..errors import OptionError
-
+def _family(args: argparse.Namespace, section: str, keys: tuple[str, ...]) -> tuple[Any, dict]:
+    """The spec's problem (with ``--set``) and its ``[section]`` settings, the flags of ``keys``
+    given on the command line taking their place; the output files checked first."""
     _writable(args.csv), _picture(args.plot)
     problem = _load(args)
     if args.set:
         problem = problem.with_constants(**_constants(args.set))
-    settings = dict(problem.settings.get("trace", {}))
-    for key in ("parameter", "start", "stop", "max_points"):
+    settings = dict(problem.settings.get(section, {}))
+    for key in keys:
         value = getattr(args, key)
         if value is not None:
             settings[key] = value
+    return problem, settings
+
+
+def _trace(args: argparse.Namespace) -> tuple[int, Any]:
+    from .. import trace
+    from ..errors import OptionError
+
+    problem, settings = _family(args, "trace", ("parameter", "start", "stop", "max_points"))
     for key in ("start", "stop"):
         if key in settings:
             settings[key] = _number(settings[key], f"trace {key}")
@@ -518,15 +525,7 @@ def _fold_curve(args: argparse.Namespace) -> tuple[int, Any]:
     from .. import fold_curve
     from ..errors import OptionError
 
-    _writable(args.csv), _picture(args.plot)
-    problem = _load(args)
-    if args.set:
-        problem = problem.with_constants(**_constants(args.set))
-    settings = dict(problem.settings.get("fold_curve", {}))
-    for key in ("parameter", "along", "start", "stop"):
-        value = getattr(args, key)
-        if value is not None:
-            settings[key] = value
+    problem, settings = _family(args, "fold_curve", ("parameter", "along", "start", "stop"))
     if args.output:
         settings["outputs"] = args.output
     missing = [key for key in ("parameter", "along", "start", "stop") if key not in settings]

@@ -112,6 +112,10 @@ class StateLayout(States):
         """The power ``d`` of region ``r``'s map ``x = c_r + h_r t**d`` (1: affine)."""
         return int(self.stretch[r]) if r < len(self.stretch) else 1
 
+    def mesh_nodes(self, points: int) -> int:
+        """The nodes of a solution whose standard mesh has ``points`` points (one mesh per region)."""
+        return points * self.regions
+
     def rows(self, i: int) -> list[int]:
         """The rows of ``Y`` that hold state ``i`` of each region, left to right."""
         return [r * len(self.states) + i for r in range(self.regions)]

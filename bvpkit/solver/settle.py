@@ -22,11 +22,11 @@ import numpy as np
 from ..methods.base import Outcome
 from ..methods.diagnostics import Diagnostics, condition_estimate, hermite, residuals
 from ..methods.features import unresolved, words
-from ..reduce.mapping import Start, physical, positions
+from ..reduce.mapping import Interpolant, Start, physical, positions
 from ..reduce.prepared import Prepared
 from ..status import Status
 from .homotopy import earlier_end
-from .solution import Interpolant, Solution
+from .solution import Solution
 
 #: Unit round-off of double precision: the stability constant times it is the smallest error
 #: any method can promise.
@@ -173,7 +173,7 @@ def settle(prepared: Prepared, run: Run, seconds: float) -> Solution:
     diagnostics = Diagnostics(
         method=outcome.method or (attempts[-1].method if attempts else ""),
         iterations=outcome.iterations,
-        mesh_nodes=int(outcome.x.size * layout.regions),
+        mesh_nodes=layout.mesh_nodes(outcome.x.size),
         max_residual=residual,
         bc_residual=bc_residual,
         error_estimate=estimate,

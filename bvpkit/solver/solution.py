@@ -18,9 +18,9 @@ import numpy as np
 from .._output import data_frame, json_ready, write_columns
 from ..errors import BvpkitError
 from ..language.units import label, units_of
-from ..methods.diagnostics import Diagnostics, hermite
+from ..methods.diagnostics import Diagnostics
 from ..programs.compiled import quantity_function
-from ..reduce.mapping import nudged, physical, positions, rate, standard
+from ..reduce.mapping import Interpolant
 from ..status import Status
 from . import plots
 from . import sensitivity as _sensitivity
@@ -42,102 +42,6 @@ def sampling(function):  # noqa: ANN001, ANN201
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
 _GAUSS_POINTS = 5
-
-
-class Interpolant:
-    """A solution as a function of the user's variable (the C1 cubic of every method).
-
-    Parameters
-    ----------
-    compiled : CompiledSystem
-    t : ndarray, shape (m,)
-        The standard mesh.
-    y : ndarray, shape (n, m)
-        The stacked states.
-    p, k : ndarray
-        Parameters and constants (they fix the region maps).
-
-    Calling it with points ``x`` gives the states of a region at ``x``, shape
-    ``(states per region, len(x))``; at an interface ``side = -1`` (default) reads the
-    region on the left, ``+1`` the one on the right. :meth:`algebraic` gives the algebraic
-    unknowns there (solved from the algebraic equations on the interpolated states, on this
-    solution's own branch: ``z`` holds them at the nodes).
-    """
-
-    def __init__(self, compiled, t: np.ndarray, y: np.ndarray, p: np.ndarray, k: np.ndarray):  # noqa: ANN001
-        t, y, p, k = (np.asarray(a, float) for a in (t, y, p, k))
-        with np.errstate(all="ignore"):
-            compiled = compiled.holding(t, y, p, k)  # its algebraic unknowns start from its own values
-            self.z = np.asarray(compiled.algebraic(t, y, p, k), float)
-        self.compiled = compiled
-        self.layout = compiled.layout
-        self.t, self.y, self.p, self.k = t, y, p, k
-        with np.errstate(all="ignore"):
-            self.maps = np.asarray(compiled.maps(self.p, self.k), float)
-        self.points = positions(self.maps)
-        self.powers = np.array([self.layout.power(r) for r in range(self.layout.regions)])  # x = c + h t**d
-        self._spline = hermite(compiled, self.t, self.y, self.p, self.k)
-
-    @property
-    def ends(self) -> tuple[float, float]:
-        """The solved interval in the user's variable (a truncated infinite end where placed)."""
-        return float(self.points[0]), float(self.points[-1])
-
-    def region(self, x: np.ndarray, side: int = -1) -> np.ndarray:
-        """The region each point lies in (at an interface: by ``side``)."""
-        x = np.asarray(x, float)
-        inner = self.points[1:-1]
-        r = np.searchsorted(inner, x, side="left" if side < 0 else "right")
-        return np.clip(r, 0, self.layout.regions - 1)
-
-    def standard(self, x: np.ndarray, r: np.ndarray) -> np.ndarray:
-        """The standard variable of points ``x`` in regions ``r``."""
-        return standard(x, self.maps[r, 0], self.maps[r, 1], self.powers[r])
-
-    def _pick(self, stacked: np.ndarray, r: np.ndarray) -> np.ndarray:
-        size = self.layout.region_size
-        rows = r[None, :] * size + np.arange(size)[:, None]
-        return stacked[rows, np.arange(r.size)[None, :]]
-
-    def __call__(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
-        x = np.atleast_1d(np.asarray(x, float))
-        r = self.region(x, side) if regions is None else np.asarray(regions)
-        return self._pick(self._spline(self.standard(x, r)), r)
-
-    def slopes(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
-        """The states' derivatives in the user's variable, from the equations."""
-        x = np.atleast_1d(np.asarray(x, float))
-        r = self.region(x, side) if regions is None else np.asarray(regions)
-        t = nudged(self.standard(x, r), self.powers[r])
-        with np.errstate(all="ignore"):
-            f = self.compiled.rhs(t, self._spline(t), self.p, self.k)
-        return self._pick(f, r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
-
-    def algebraic(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
-        """The algebraic unknowns of a region at ``x``, shape ``(len(layout.algebraic), len(x))``."""
-        x = np.atleast_1d(np.asarray(x, float))
-        r = self.region(x, side) if regions is None else np.asarray(regions)
-        size = len(self.layout.algebraic)
-        if not size:
-            return np.zeros((0, x.size))
-        t = self.standard(x, r)
-        with np.errstate(all="ignore"):
-            z = np.asarray(self.compiled.algebraic(t, self._spline(t), self.p, self.k), float)
-        rows = r[None, :] * size + np.arange(size)[:, None]
-        return z[rows, np.arange(r.size)[None, :]]
-
-    def derivative(self, x: Any, side: int = -1, regions: np.ndarray | None = None) -> np.ndarray:
-        """The derivative of the interpolating cubic itself (not of the equations) in the user's
-        variable: a check that owes nothing to the right-hand side."""
-        x = np.atleast_1d(np.asarray(x, float))
-        r = self.region(x, side) if regions is None else np.asarray(regions)
-        t = nudged(self.standard(x, r), self.powers[r])
-        return self._pick(self._spline.derivative()(t), r) / rate(t, self.maps[r, 1], self.powers[r])[None, :]
-
-    def inside(self, x: np.ndarray) -> bool:
-        a, b = self.ends
-        slack = 1e-12 * max(1.0, abs(a), abs(b))
-        return bool(np.isfinite(x).all() and x.min() >= a - slack and x.max() <= b + slack)
 
 
 class Solution:
@@ -202,13 +106,7 @@ class Solution:
         compiled = prepared.compiled
         self.interpolant = Interpolant(compiled, t, y, p, k)
         layout = compiled.layout
-        size, regions = layout.region_size, layout.regions
-        self.x = physical(self.interpolant.t, self.interpolant.maps, layout.stretch).ravel()
-        self.y = np.concatenate([self.interpolant.y[r * size:(r + 1) * size] for r in range(regions)], axis=1)
-        held = len(layout.algebraic)
-        if held:  # the algebraic unknowns at the nodes, rows after the states
-            z = self.interpolant.z
-            self.y = np.vstack([self.y, np.concatenate([z[r * held:(r + 1) * held] for r in range(regions)], axis=1)])
+        self.x, self.y = self.interpolant.user_nodes()
         names = layout.parameters
         errs = parameter_errors if parameter_errors is not None else np.full(len(names), np.nan)
         self._parameters = prepared.user_values({q: float(v) for q, v in zip(names, self.interpolant.p)})
@@ -375,7 +273,7 @@ class Solution:
             lines.append("  no outputs are given: the solve failed, and its numbers are not an answer")
         facts = [
             f"{d.iterations} Newton iteration{_s(d.iterations)}",
-            _nodes(d.mesh_nodes, self.prepared.layout.regions),
+            self.interpolant.nodes_text(d.mesh_nodes),
             f"residual {d.max_residual:.2g}",
             f"boundary residual {d.bc_residual:.2g}",
             f"error estimate {_fmt_err(d.error_estimate)}",
@@ -649,22 +547,10 @@ def _point_value(view: Interpolant, prepared, point) -> float:  # noqa: ANN001
 def _integral(view: Interpolant, prepared, quantity) -> tuple[np.ndarray, np.ndarray]:  # noqa: ANN001
     """The integral of a quantity over every region, and the integrand at the far end, each
     by parts (shape ``(parts,)``: its real and imaginary parts for a complex integrand)."""
-    nodes, weights = np.polynomial.legendre.leggauss(_GAUSS_POINTS)
     values = _placeholders(view, prepared, quantity)
-    total = np.zeros(quantity.parts)
-    t = view.t
-    h = np.diff(t)
-    mid = 0.5 * (t[1:] + t[:-1])
-    s = (mid[:, None] + 0.5 * h[:, None] * nodes[None, :]).ravel()
-    w = (0.5 * h[:, None] * weights[None, :]).ravel()
-    for region in range(view.layout.regions):
-        c, scale = view.maps[region]
-        x = c + scale * s ** view.powers[region]
-        r = np.full(x.size, region)
-        dx = w * rate(s, scale, view.powers[region])
-        total += np.sum(_running(view, quantity, x, r, values, quantity_function) * dx, axis=1)
-    b = view.ends[1]
-    tail = _running(view, quantity, np.array([b]), np.array([view.layout.regions - 1]), values, quantity_function)[:, 0]
+    x, r, dx = view.quadrature(_GAUSS_POINTS)
+    total = np.sum(_running(view, quantity, x, r, values, quantity_function) * dx, axis=1)
+    tail = _running(view, quantity, *view.far_end(), values, quantity_function)[:, 0]
     return total, tail
 
 
@@ -689,10 +575,3 @@ def _fmt_err(value: float | None) -> str:
     if value is None or not math.isfinite(value):
         return "not estimated"
     return f"{value:.2g}"
-
-
-def _nodes(count: int, regions: int) -> str:
-    """The nodes of a solution as its message counts them (per region) and in all."""
-    if regions <= 1:
-        return f"{count} nodes"
-    return f"{count} nodes ({count // regions} in each of its {regions} regions)"
