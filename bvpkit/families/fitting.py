@@ -190,7 +190,11 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
     def solved(x: np.ndarray) -> Solution | None:
         if state["x"] is not None and np.array_equal(x, state["x"]):
             return state["solution"]
-        here = prepared.with_constants(**{n: float(v) for n, v in zip(names, x)})
+        try:
+            here = prepared.with_constants(**{n: float(v) for n, v in zip(names, x)})
+        except BvpkitError as err:  # a value the problem refuses (a step too far): shrink the step
+            state["x"], state["solution"], state["refused"] = np.array(x, float), None, str(err)
+            return None
         # the iterations' solves skip the error estimate (the residual control stays); the
         # solution at the fitted values is solved again with it, below
         sol = driver.solve(here, tol=tol, method=method, guess=state["guess"], verify=False, follow=trace)
@@ -232,8 +236,11 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
         return _failed(names, sets, failed.status if failed is not None else Status.NOT_CONVERGED,
                        f"the solve at the start values failed: {cause}", state, started)
     scale = np.where(np.asarray(start) != 0, np.abs(start), 1.0)
-    out = least_squares(residuals, np.asarray(start, float), jac=jacobian, bounds=(low, high), method="trf",
-                        x_scale=scale, xtol=1e-10, ftol=1e-10, gtol=1e-10, max_nfev=max_solves)
+    try:
+        out = least_squares(residuals, np.asarray(start, float), jac=jacobian, bounds=(low, high), method="trf",
+                            x_scale=scale, xtol=1e-10, ftol=1e-10, gtol=1e-10, max_nfev=max_solves)
+    except BvpkitError as err:  # no derivatives where the solution family turns (a fold)
+        return _failed(names, sets, Status.NOT_CONVERGED, f"the fit stopped: {err}", state, started)
     x = out.x
     sol = solved(x)
     if sol is None:
