@@ -22,7 +22,7 @@ SIGMA = 0.01
 
 
 def _profile(x: np.ndarray, m: float, bi: float) -> np.ndarray:
-    # analytic: theta'' = m^2 theta, theta(0) = 1, theta'(1) + Bi theta(1) = 0
+    # analytic: theta'' = m^2 theta, theta(0) = 1, theta'(1) + Bi theta(1) = 0 (times b for theta(0) = b)
     return (np.cosh(m * (1 - x)) + bi / m * np.sinh(m * (1 - x))) / (np.cosh(m) + bi / m * np.sinh(m))
 
 
@@ -32,8 +32,8 @@ def _reference(x: np.ndarray, y: np.ndarray, start: np.ndarray, names: list[str]
     from scipy.optimize import least_squares
 
     def model(v: np.ndarray) -> np.ndarray:
-        m, bi = (v[0], v[1]) if len(names) == 2 else (v[0], 1.0)
-        return _profile(x, m, bi)
+        given = dict(zip(names, v))
+        return given.get("b", 1.0) * _profile(x, given["m"], given.get("Bi", 1.0))
 
     def jac(v: np.ndarray) -> np.ndarray:
         cols = []
@@ -68,12 +68,12 @@ def _hand_loop(prepared, x: np.ndarray, y: np.ndarray, names: list[str], start: 
     return out.x, np.sqrt(np.diag(np.linalg.inv(J.T @ J))), out.nfev + out.njev * len(names)
 
 
-def _case(title: str, names: list[str], true: dict, start: dict, n: int, seed: int, repeats: int = 5) -> str:
+def _case(title: str, names: list[str], true: dict, start: dict, n: int, seed: int, repeats: int = 9) -> str:
     x = np.linspace(0.05, 1.0, n)
     rng = np.random.default_rng(seed)
-    y = _profile(x, true["m"], true.get("Bi", 1.0)) + SIGMA * rng.standard_normal(n)
-    fin = bvpkit.Problem(["theta'' = m**2*theta"], ["theta(0) = 1", "theta'(1) + Bi*theta(1) = 0"], (0, 1),
-                         constants={"m": start["m"], "Bi": start.get("Bi", 1.0)})
+    y = true.get("b", 1.0) * _profile(x, true["m"], true.get("Bi", 1.0)) + SIGMA * rng.standard_normal(n)
+    fin = bvpkit.Problem(["theta'' = m**2*theta"], ["theta(0) = b", "theta'(1) + Bi*theta(1) = 0"], (0, 1),
+                         constants={"m": start["m"], "Bi": start.get("Bi", 1.0), "b": start.get("b", 1.0)})
     prepared = bvpkit.prepare(fin)
     s0 = np.array([start[k] for k in names])
     ref_values, ref_errors = _reference(x, y, s0, names)
@@ -117,9 +117,15 @@ def fin_fit_two() -> str:
                  ["m", "Bi"], {"m": 2.0, "Bi": 1.0}, {"m": 1.5, "Bi": 0.5}, 20, 7)
 
 
-SECTIONS = [fin_fit, fin_fit_two]
+def fin_fit_three() -> str:
+    return _case("Fit of m, a tip Biot number and the base value from 20 noisy samples: bvpkit.fit against a hand loop",
+                 ["m", "Bi", "b"], {"m": 2.0, "Bi": 1.0, "b": 1.0}, {"m": 1.5, "Bi": 0.5, "b": 0.8}, 20, 11)
+
+
+SECTIONS = [fin_fit, fin_fit_two, fin_fit_three]
 
 
 if __name__ == "__main__":  # pragma: no cover
     print(fin_fit())
     print(fin_fit_two())
+    print(fin_fit_three())
