@@ -9,6 +9,7 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 benchmarks_main = pytest.importorskip("benchmarks.__main__")
+harness = pytest.importorskip("benchmarks.harness")
 
 
 def _fake_suite(monkeypatch):  # noqa: ANN001, ANN202
@@ -35,7 +36,7 @@ def test_a_named_file_gets_the_run_at_its_top(monkeypatch, capsys, tmp_path):
     benchmarks_main.main(["--out", str(out)])
     benchmarks_main.main(["tiny", "--out", str(out)])
     text = out.read_text()
-    assert text.startswith(benchmarks_main.HEADING + "\n\n## Run of ")
+    assert text.startswith(harness.RESULTS_HEADING + "\n\n## Run of ")
     assert text.count("## Run of ") == 2 and text.count("### tiny") == 2
 
 

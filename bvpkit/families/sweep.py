@@ -163,9 +163,10 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
             found = _batched().solve_points(prepared, rest, previous, options)
             together = {position + i: sol for i, sol in enumerate(found) if sol is not None}
         try:
-            here = prepared.with_constants(**point)
-            if position in together:
-                sol = together[position]
+            sol = together.get(position)  # its values were checked when the batch took them
+            here = None if sol is not None else prepared.with_constants(**point)
+            if sol is not None:
+                pass
             elif previous is not None and "method" not in options:
                 # the neighbour's method, started from its solution: no new plan (and no survey)
                 # while it works; the selector's full plan when it does not
@@ -175,6 +176,7 @@ def _solve_unit(unit: _Unit) -> list[dict[str, Any]]:
             else:
                 sol = solve(here, guess=previous, follow=trace, **options)
             if not sol.success and previous is not None:
+                here = prepared.with_constants(**point) if here is None else here
                 sol = solve(here, follow=trace, **options)  # a cold start as a second chance
         except Exception as err:  # noqa: BLE001 - a point that raises is stored as failed
             rows.append(_row(point, {}, False, "bad_input", "", math.nan, f"{type(err).__name__}: {err}", 0,
