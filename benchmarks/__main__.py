@@ -20,7 +20,6 @@ import sys
 from pathlib import Path
 
 from . import collocation, complex, continuation, fitting, reliability, robust, scale, shooting, startup, sweeps
-from .harness import RESULTS_HEADING as HEADING  # noqa: F401 - the heading of a results file, as tests read it
 from .harness import machine, prepend
 
 SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS,
