@@ -19,11 +19,12 @@ import datetime
 import sys
 from pathlib import Path
 
-from . import collocation, complex, continuation, reliability, robust, scale, shooting, startup, sweeps
+from . import collocation, complex, continuation, fitting, reliability, robust, scale, shooting, startup, sweeps
 from .harness import machine, prepend
 
 SUITES = [*collocation.SECTIONS, *robust.SECTIONS, *shooting.SECTIONS, *continuation.SECTIONS,
-          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS, *reliability.SECTIONS]
+          *scale.SECTIONS, *sweeps.SECTIONS, *startup.SECTIONS, *complex.SECTIONS, *fitting.SECTIONS,
+          *reliability.SECTIONS]
 
 
 def report(sections: list[str]) -> str:

@@ -30,7 +30,7 @@ _LAZY = {
     "Problem": "language.problem", "Solution": "solver.solution", "Interpolant": "reduce.mapping",
     "Prepared": "reduce.prepared", "prepare": "reduce.prepared", "BranchPoint": "families.continuation",
     "FoldCurve": "families.foldcurve", "fold_curve": "families.foldcurve", "sweep": "families.sweep",
-    "SweepResult": "families.sweep",
+    "SweepResult": "families.sweep", "fit": "families.fitting", "FitResult": "families.fitting",
 }
 
 
@@ -66,6 +66,7 @@ __all__ = [
     "BranchPoint",
     "Fold",
     "FoldCurve",
+    "FitResult",
     "BvpkitError",
     "Interpolant",
     "Prepared",
@@ -85,5 +86,6 @@ __all__ = [
     "prepare",
     "solve",
     "sweep",
+    "fit",
     "trace",
 ]

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from .families import fitting  # noqa: F401 - gives Solution.propagate its sampler (a sweep's solves)
 from .families.continuation import trace
 from .solver import driver
 from .solver.solution import Solution

@@ -96,6 +96,15 @@ class Status(enum.Enum):
         "raise max_points (--max-points, or max_points under [trace] or [fold_curve]), or trace a "
         "narrower range",
     )
+    NOT_IDENTIFIABLE = (
+        "not_identifiable",
+        14,
+        "a fit converged, but the data do not determine the constants varied one by one: some of "
+        "them enter only in a combination (the message names the one the data determine), so "
+        "their separate values and errors are not an answer",
+        "vary the combination the message names (or one of the constants, the others held), or add "
+        "data that tell them apart (another quantity, other points)",
+    )
     BAD_INPUT = (
         "bad_input",
         2,

@@ -99,6 +99,7 @@ KEYS = {
     "outputs.tip": "text",
     "trace.parameter": "text", "trace.start": "number", "trace.stop": "number", "trace.max_points": "whole",
     "trace.outputs": "texts", "save.solution_csv": "text", "units.r": "text",
+    "fit.vary": "table", "fit.data": "text",
 }
 CASES = [(key, value) for key, kind in KEYS.items() for value in WRONG[kind]]
 
@@ -237,6 +238,31 @@ def test_bad_options_are_explained(options, expected, tmp_path, capsys, monkeypa
         code, said = stop.code, capsys.readouterr().err
     assert expected in said, said
     _clean(code, said, " ".join(options))
+
+
+FIT_OPTIONS = [
+    ([], "fit needs the constants to vary"),
+    (["--vary", "m9=1"], "not a constant"),
+    (["--vary", "m2=abc"], "NAME=NUMBER"),
+    (["--vary", "m2=3"], "fit needs measurements"),
+    (["--vary", "m2=3", "--data", "no_such.csv"], "no such file"),
+    (["--vary", "m2=3", "--data", "readings.csv", "--sigma", "0"], "finite and positive"),
+    (["--vary", "m2=3", "--data", "readings.csv", "--sigma", "nan"], "finite and positive"),
+    (["--vary", "m2=3,L=1", "--data", "short.csv"], "cannot determine 2 constants"),
+    (["--vary", "m2=3", "--data", "outside.csv"], "outside the domain"),
+    (["--vary", "m2=3", "--data", "constant.csv"], "names no unknown"),
+]
+
+
+@pytest.mark.parametrize(("options", "expected"), FIT_OPTIONS, ids=[" ".join(o) or "none" for o, _ in FIT_OPTIONS])
+def test_bad_fits_are_explained(options, expected, tmp_path, capsys, monkeypatch):
+    (tmp_path / "readings.csv").write_text("r,y\n0.25,0.6\n0.5,0.45\n")
+    (tmp_path / "short.csv").write_text("r,y\n0.25,0.6\n")
+    (tmp_path / "outside.csv").write_text("r,y\n0.25,0.6\n1.5,0.45\n")
+    (tmp_path / "constant.csv").write_text("r,2*m2\n0.25,0.6\n")
+    code, said = _run(tmp_path, capsys, monkeypatch, _spec({}), "fit", *options)
+    assert code == 2 and expected in said, said
+    _clean(code, said, "fit " + " ".join(options))
 
 
 # -- hypothesis: drawn values at drawn keys --------------------------------------------------------

@@ -187,3 +187,18 @@ def test_the_formats_a_plot_name_is_judged_by_without_matplotlib_are_ones_it_wri
 
     assert set(PICTURE_FORMATS) <= set(FigureCanvasBase.get_supported_filetypes())
     assert "png" in PICTURE_FORMATS and "pdf" in PICTURE_FORMATS and "svg" in PICTURE_FORMATS
+
+
+def test_a_fit_is_drawn_with_its_data_curve_and_residuals(tmp_path):
+    x = np.linspace(0.1, 1.0, 8)
+    y = np.cosh(2.0 * (1 - x)) / np.cosh(2.0)  # analytic fin profile, m = 2, no noise
+    fin = bvpkit.Problem(["theta'' = m**2*theta"], ["theta(0) = 1", "theta'(1) = 0"], (0, 1), constants={"m": 1.5},
+                         settings={"units": {"x": "m", "theta": "K"}})
+    result = bvpkit.fit(fin, {"theta": (x, y), "-theta'(0)": (2.0 * np.tanh(2.0), 0.01)}, vary={"m": 1.5},
+                        sigma={"theta": 0.01, "-theta'(0)": 0.01})
+    fig = plots.fit_figure(result, tmp_path / "fit.png")
+    top, below = fig.axes
+    assert (tmp_path / "fit.png").stat().st_size > 0
+    assert top.get_ylabel() == "theta [K]" and below.get_ylabel() == "residual / sigma"
+    labels = _legend(top)
+    assert any(t.startswith("fitted: m = 2") for t in labels) and any("-theta'(0)" in t for t in labels)

@@ -83,7 +83,7 @@ def _run_block(code: str, namespace: dict) -> int:
 
 
 def test_the_readme_has_the_blocks_this_test_runs():
-    assert len(_blocks("python")) == 6 and len(_blocks("toml")) == 2 and len(_blocks("bash")) >= 3
+    assert len(_blocks("python")) == 7 and len(_blocks("toml")) == 2 and len(_blocks("bash")) >= 3
 
 
 def test_the_tour_gives_the_values_it_shows():
@@ -126,6 +126,15 @@ def test_the_complex_block_gives_the_values_it_shows():
 
 
 @pytest.mark.extra
+def test_the_sensitivity_and_fit_block_gives_the_values_it_shows(capsys):
+    # the derivatives shown are analytic (pin fin, theta(L) = 1/cosh(mL)); the fit's values are
+    # those of its readings, made up for the README from cosh(2(1 - x))/cosh(2) plus noise
+    (block,) = _blocks("python", "bvpkit.fit(")
+    namespace: dict = {}
+    assert _run_block(block, namespace) >= 3
+    assert namespace["spread"].sampled is not None and "first order" in capsys.readouterr().out
+
+
 def test_the_trace_block_runs_and_finds_the_fold(tmp_path, monkeypatch):
     pytest.importorskip("matplotlib")
     (block,) = _blocks("python", "bvpkit.trace(")

@@ -113,6 +113,9 @@ def _parser() -> argparse.ArgumentParser:
     solve.add_argument("--plot", metavar="FILE.png", help="draw every unknown function, outputs marked (needs the "
                        "plot extra; the suffix names the format: png, pdf, svg, ...)")
     solve.add_argument("--json", action="store_true", help="print the result as JSON instead of a summary")
+    solve.add_argument("--sensitivity", metavar="NAME[,NAME...]",
+                       help="add a table of the exact derivatives of the outputs and unknown parameters in these "
+                       "constants (with error estimates)")
     solve.add_argument(
         "--overwrite", action="store_true", help="let files named in the spec's [save] replace existing files"
     )
@@ -187,6 +190,25 @@ def _parser() -> argparse.ArgumentParser:
     sweep.add_argument("--plot", metavar="FILE.png", help="draw the design chart (plot extra; the suffix names "
                        "the format)")
     sweep.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    fitting = commands.add_parser(
+        "fit", help="fit constants to measurements (values, standard errors, correlation)",
+        description="Fit constants of the spec's problem to measured values in a CSV file (a column named by the "
+        "independent variable, one per expression of the solution, an optional 'sigma' column); settings from "
+        "the spec's [fit] section or these options.", epilog=_EPILOG,
+    )
+    fitting.add_argument("spec", help="path of the TOML spec file")
+    fitting.add_argument("--data", metavar="FILE.csv", help="the measurements (default: the [fit] section's data, "
+                         "relative to the spec)")
+    fitting.add_argument("--vary", action="append", metavar="NAME=START[,NAME=START]",
+                         help="constants to fit and their start values (repeatable; replaces the [fit] section's)")
+    fitting.add_argument("--sigma", type=float, help="standard deviation of every measurement (replaces the spec's "
+                         "and a 'sigma' column; without any, the noise is estimated from the residuals)")
+    _option_flags(fitting, ["tol", "method"], {"tol": "tolerance of each solve"})
+    fitting.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
+    fitting.add_argument("--json", action="store_true", help="print the fit as JSON (values, errors, correlation)")
+    fitting.add_argument("--plot", metavar="FILE.png", help="draw the data with error bars, the fitted profile and "
+                         "the residuals (needs the plot extra)")
 
     check = commands.add_parser(
         "check", help="validate a spec without solving", description="Validate a spec and show its first-order form.", epilog=_EPILOG
@@ -359,6 +381,12 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     if save.get("report_json"):
         json_out = SpecOutput(save["report_json"], args.overwrite, "report_json")
     options = _flag_values(args, OPTIONS)
+    wrt = _names(args.sensitivity, "--sensitivity") if args.sensitivity is not None else None
+    if wrt is not None:
+        unknown = [n for n in wrt if n not in problem.constants]
+        if unknown:
+            raise OptionError(f"--sensitivity names '{unknown[0]}', which is not a constant of the problem"
+                              f"{closest(unknown[0], problem.constants)}")
     from ..public import solve  # after the problem is read: a bad spec does not wait for SciPy
 
     try:
@@ -380,6 +408,13 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
     if picture is not None:  # a failed solve's too, marked on the figure as no answer
         solution.plot(picture, allow_failed=True)
     report = solution.as_dict()
+    table = None
+    if wrt is not None and solution.success:
+        if not (problem.outputs or solution.parameters):
+            raise OptionError(f"{args.spec}: --sensitivity differentiates the outputs and unknown parameters, and "
+                              "the problem has none (add an [outputs] section)")
+        table = solution.sensitivity(None, wrt)
+        report["sensitivity"] = table.as_dict()
     for output, write in ((csv_out, lambda handle: solution.to_csv(handle, allow_failed=True)),
                           (json_out, lambda handle: handle.write(json.dumps(report, indent=2) + "\n"))):
         if output is not None:
@@ -390,6 +425,10 @@ def _solve(args: argparse.Namespace) -> tuple[int, Any]:
         return solution.status.exit_code, report
     title = f"{problem.title}\n" if problem.title else ""
     _say(title + solution.summary())
+    if table is not None:
+        _say("sensitivity (exact derivatives, +/- their estimated errors):\n" + table.summary())
+    elif wrt is not None:
+        _say("no sensitivity table: the solve failed")
     mesh = "mesh solution" if solution.success else "mesh solution of the failed solve (headers marked failed)"
     drawn = "plot" if solution.success else "plot of the failed solve (marked failed)"
     for path, what in ((csv_path or (csv_out and csv_out.path), mesh), (json_out and json_out.path, "report"),
@@ -572,6 +611,60 @@ def _sweep(args: argparse.Namespace) -> tuple[int, Any]:
     return code, None
 
 
+def _names(text: str, flag: str) -> list[str]:
+    names = [n.strip() for n in text.split(",")]
+    if not all(names):
+        raise OptionError(f"{flag} expects NAME[,NAME...], got {text!r}")
+    return names
+
+
+def _fit(args: argparse.Namespace) -> tuple[int, Any]:
+    from ..families.fitting import fit
+    from .measured import read_measurements
+
+    picture = _picture(args.plot)
+    problem = _load(args)
+    if args.set:
+        problem = problem.with_constants(**_constants(args.set))
+    settings = dict(problem.settings.get("fit") or {})
+    if args.vary:
+        vary: dict[str, Any] = {}
+        for item in args.vary:
+            vary.update(_constants([p for p in item.split(",") if p.strip()]) if "=" in item else
+                        {n: None for n in _names(item, "--vary")})
+        settings["vary"] = vary
+    if not settings.get("vary"):
+        raise OptionError(f"{args.spec}: fit needs the constants to vary: give --vary NAME=START or a [fit] section "
+                          f"with vary = {{ NAME = START }} (constants: {', '.join(problem.constants) or 'none'})")
+    for name in settings["vary"]:
+        if name not in problem.constants:
+            raise OptionError(f"fit: vary names '{name}', which is not a constant of the problem"
+                              f"{closest(name, problem.constants)}")
+    if args.data is not None:
+        _no_nul(args.data, "data file")
+        data_path = Path(args.data)
+    elif settings.get("data"):
+        data_path = Path(args.spec).parent / settings["data"]
+    else:
+        raise OptionError(f"{args.spec}: fit needs measurements: give --data FILE.csv or data = \"FILE.csv\" under [fit]")
+    sigma = args.sigma if args.sigma is not None else settings.get("sigma")
+    data = read_measurements(data_path, problem.independent, sigma)
+    options = _flag_values(args, ["tol", "method"])
+    result = fit(problem, data, vary=settings["vary"], sigma=sigma, bounds=settings.get("bounds"), **options)
+    if picture is not None and result.values:
+        from ..solver.plots import fit_figure
+
+        fit_figure(result, picture, title=problem.title, units=units_of(problem))
+    code = result.status.exit_code
+    if args.json:
+        return code, result.as_dict()
+    title = f"{problem.title}\n" if problem.title else ""
+    _say(title + result.summary() + _units_line(units_of(problem), list(result.names)))
+    if picture is not None and result.values:
+        _say(f"plot written to {picture}")
+    return code, None
+
+
 def _units_line(units: dict[str, str], names: Sequence[str]) -> str:
     shown = [f"{n} in {units[n]}" for n in dict.fromkeys(names) if n in units]
     return "\nunits: " + ", ".join(shown) if shown else ""
@@ -584,9 +677,10 @@ def _check(args: argparse.Namespace) -> tuple[int, Any]:
     form = standard_form(problem)
     report = check_report(problem, form)
     _check_solver(problem, form)
-    for section in ("trace", "sweep"):
+    for section in ("trace", "sweep", "fit"):
         settings = problem.settings.get(section) or {}
-        names = [settings.get("parameter")] if section == "trace" else list((settings.get("grid") or {}))
+        names = ([settings.get("parameter")] if section == "trace" else
+                 list(settings.get("grid") or {}) if section == "sweep" else list(settings.get("vary") or {}))
         for name in names:
             if name is not None and name not in problem.constants:
 
@@ -729,7 +823,7 @@ def _main(arguments: list[str]) -> int:
     try:
 
         handler = {"solve": _solve, "check": _check, "trace": _trace, "sweep": _sweep,
-                   "fold-curve": _fold_curve}[args.command]
+                   "fold-curve": _fold_curve, "fit": _fit}[args.command]
         if getattr(args, "spec", None) is not None:
             from .specfile import read_spec
 

@@ -36,6 +36,10 @@ A spec (all keys but ``[problem]``'s ``domain``, ``equations`` and ``conditions`
     [sweep.grid]
     Re_x = { from = 1e4, to = 1e6, count = 30, spacing = "geometric" }
 
+    [fit]             # for `bvpkit fit`: data (a CSV file, relative to the spec), vary, sigma, bounds
+    data = "plate_readings.csv"
+    vary = { Re_x = 1.0e5 }
+
     [units]           # optional labels in summaries, CSV headers and plots (never converted)
     Re_x = "1"        # any name of the problem: variable, constants, functions, outputs
 
@@ -159,6 +163,13 @@ class SweepSection(_Model):
     outputs: list[StrictStr] | None = None
 
 
+class FitSection(_Model):
+    data: StrictStr | None = None
+    vary: dict[str, Number]
+    sigma: Number | dict[str, Number] | None = None
+    bounds: dict[str, Annotated[list[Number], Field(min_length=2, max_length=2)]] | None = None
+
+
 class SaveSection(_Model):
     solution_csv: StrictStr | None = None
     report_json: StrictStr | None = None
@@ -175,6 +186,7 @@ class Spec(_Model):
     trace: TraceSection | None = None
     fold_curve: FoldCurveSection | None = None
     sweep: SweepSection | None = None
+    fit: FitSection | None = None
 
 
 #: At most this many problems of one spec are written out in full; a file with more is far
@@ -449,6 +461,8 @@ def to_problem(spec: Spec, source: str = "<spec>") -> Problem:
         settings["trace"] = {k: v for k, v in spec.trace.model_dump().items() if v is not None}
     if spec.fold_curve is not None:
         settings["fold_curve"] = {k: v for k, v in spec.fold_curve.model_dump().items() if v is not None}
+    if spec.fit is not None:
+        settings["fit"] = {k: v for k, v in spec.fit.model_dump().items() if v is not None}
     if spec.sweep is not None:
         grid = {name: _values(name, axis, source) for name, axis in spec.sweep.grid.items()}
         settings["sweep"] = {"grid": grid, "outputs": spec.sweep.outputs}

@@ -20,8 +20,8 @@ from ..language import limits
 MAX_SPEC_BYTES = 1_000_000
 
 
-def read_spec(path: str | Path) -> str:
-    """The text of the spec file at ``path``.
+def read_spec(path: str | Path, what: str = "spec file") -> str:
+    """The text of the spec file (or another small text file, ``what``) at ``path``.
 
     Raises
     ------
@@ -36,18 +36,18 @@ def read_spec(path: str | Path) -> str:
     except FileNotFoundError:
         raise SpecError(f"{path}: no such file") from None
     except IsADirectoryError:
-        raise SpecError(f"{path}: is a folder, not a spec file") from None
+        raise SpecError(f"{path}: is a folder, not a {what}") from None
     except OSError as err:
         raise SpecError(f"{path}: cannot read ({err.strerror})") from None
     try:
         info = os.fstat(handle)
         if stat.S_ISDIR(info.st_mode):
-            raise SpecError(f"{path}: is a folder, not a spec file")
+            raise SpecError(f"{path}: is a folder, not a {what}")
         if not stat.S_ISREG(info.st_mode):
             raise SpecError(f"{path}: not a regular file (a pipe, a device or a socket); "
-                            "give the path of a spec file")
+                            f"give the path of a {what}")
         if info.st_size > MAX_SPEC_BYTES:
-            raise SpecError(f"{path}: {info.st_size} bytes; spec files are limited to {MAX_SPEC_BYTES}")
+            raise SpecError(f"{path}: {info.st_size} bytes; a {what} is limited to {MAX_SPEC_BYTES}")
         chunks, size = [], 0
         while size <= MAX_SPEC_BYTES:  # the file may grow while it is read: never past the limit
             chunk = os.read(handle, MAX_SPEC_BYTES + 1 - size)
@@ -56,7 +56,7 @@ def read_spec(path: str | Path) -> str:
             chunks.append(chunk)
             size += len(chunk)
         if size > MAX_SPEC_BYTES:
-            raise SpecError(f"{path}: more than {MAX_SPEC_BYTES} bytes; spec files are limited to {MAX_SPEC_BYTES}")
+            raise SpecError(f"{path}: more than {MAX_SPEC_BYTES} bytes; a {what} is limited to {MAX_SPEC_BYTES}")
     except OSError as err:
         raise SpecError(f"{path}: cannot read ({err.strerror})") from None
     finally:
@@ -122,7 +122,7 @@ def spec_facts(text: str, overrides: dict[str, float]) -> dict | None:
         settings["save"] = {"solution_csv": save.get("solution_csv"), "report_json": save.get("report_json")}
         if table(data, "units"):
             settings["units"] = dict(data["units"])
-        for name in ("trace", "fold_curve"):
+        for name in ("trace", "fold_curve", "fit"):
             if name in data:
                 settings[name] = dict(table(data, name))
         if "sweep" in data:

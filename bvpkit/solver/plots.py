@@ -548,3 +548,39 @@ def _geometric(values: Any) -> bool:
         return False
     ratios = v[1:] / v[:-1]
     return bool(np.allclose(ratios, ratios[0], rtol=1e-6) and not np.isclose(ratios[0], 1.0))
+
+
+def fit_figure(result: Any, path: str | Path, *, title: str | None = None,
+               units: Mapping[str, str] | None = None) -> Any:
+    """Draw a fit (:func:`bvpkit.fit`): per data set of a function of the independent variable,
+    the measurements with error bars (one sigma) and the fitted curve, and below it the
+    residuals (data less model, in sigmas); point outputs are listed in the legend.
+
+    Returns the matplotlib figure."""
+    solution = result.solution
+    curves = [(text, given) for text, given in result.data.items() if given[0] is not None]
+    points = [(text, given) for text, given in result.data.items() if given[0] is None]
+    if not curves:
+        raise OptionError("a fit's figure draws data against the independent variable; this fit has none")
+    title, units, independent = _title_and_units(solution, title, units)
+    fig, axes = _figure(2 * len(curves))
+    a, b = solution.interpolant.ends
+    fine = np.linspace(a, b, PROFILE_SAMPLES)
+    shown = ", ".join(f"{n} = {result.values[n]:.5g}" + (f" +/- {result.errors[n]:.2g}" if np.isfinite(result.errors[n])
+                                                         else "") for n in result.names)
+    for i, (text, (x, y, sigma)) in enumerate(curves):
+        ax, below = axes[2 * i], axes[2 * i + 1]
+        ax.errorbar(x, y, yerr=sigma, fmt="o", ms=4, color="0.2", capsize=2.5, label="measured", zorder=4)
+        ax.plot(fine, np.asarray(solution.evaluate(text, at=fine), float), "-", color="tab:blue", lw=1.8,
+                label=f"fitted: {shown}", zorder=3)
+        for name, (_, value, s) in points if i == 0 else []:
+            ax.plot([], [], ls="none", label=f"{name}: measured {float(value[0]):.5g} +/- {float(s[0]):.2g}")
+        ax.set_ylabel(label(text, units, independent))
+        ax.legend(loc="best", fontsize=8.5, framealpha=0.9)
+        residual = -np.asarray(result.residuals[text], float) / sigma
+        below.axhline(0.0, color="0.45", lw=1.0)
+        below.plot(x, residual, "o", ms=4, color="tab:red")
+        below.set_ylabel("residual / sigma")
+    axes[-1].set_xlabel(label(independent, units, independent) if independent else "")
+    _finish(fig, axes, title, path)
+    return fig

@@ -23,6 +23,21 @@ from ..programs.compiled import quantity_function
 from ..reduce.mapping import Interpolant
 from ..status import Status
 from . import plots
+from . import sensitivity as _sensitivity
+
+#: The sampling of :meth:`Solution.propagate`: solves at many values of the constants, a
+#: sweep's work, which sits above this stage; given by :func:`sampling` (bvpkit.families.fitting
+#: gives it when imported, as the driver is given its tracer).
+_SAMPLER = None
+
+
+def sampling(function):  # noqa: ANN001, ANN201
+    """Set the function that solves a solution's problem at drawn constants:
+    ``function(solution, names, draws, expressions) -> ndarray (len(draws), len(expressions))``."""
+    global _SAMPLER
+    _SAMPLER = function
+    return function
+
 
 # Gauss-Legendre nodes per mesh interval for integrate(): exact for the cubic interpolant
 # times smooth functions of it to well below the solver's own error.
@@ -273,6 +288,150 @@ class Solution:
             tried = "; ".join(f"{a.method} on [{a.domain[0]:.4g}, {a.domain[1]:.4g}]: {a.status}" for a in d.attempts)
             lines.append(f"  tried: {tried}")
         return "\n".join(lines)
+
+    def sensitivity(self, outputs: Any = None, wrt: Any = None, *, estimate: bool = True) -> _sensitivity.Sensitivities:
+        """Exact derivatives of outputs with respect to constants.
+
+        Parameters
+        ----------
+        outputs : str, list of str or dict of str to str, optional
+            Expressions of the solution that give one number (``"theta(L)"``,
+            ``"integral(theta)"``, ``"-k*theta'(0)"``, a parameter's or the eigenvalue's name),
+            or labels mapped to them; default: the problem's outputs and unknown parameters.
+        wrt : str or list of str, optional
+            The constants (default: all of the problem's), a domain end written as a constant
+            included.
+        estimate : bool
+            Estimate each derivative's error by the difference on the solution's mesh and on
+            the halved mesh (default True; False costs half).
+
+        Returns
+        -------
+        Sensitivities
+            ``derivatives[output][constant]``, ``errors`` alike, ``matrix``, ``summary()``.
+
+        The derivative is that of the collocation solution on the solution's mesh (fourth
+        order, Newton matrix formed at the solution with exact Jacobians; one solve per
+        constant), see :mod:`bvpkit.solver.sensitivity`. A failed solve raises.
+        """
+        if not self.success:
+            raise BvpkitError(f"sensitivity(): this solve failed ({self.status.word}), so it has no derivatives; "
+                              "fix the cause and solve again")
+        labels = self._expressions(outputs)
+        names = self._constants_named(wrt)
+        indices = [self.interpolant.layout.constants.index(name) for name in names]
+        quantities = {label: self.prepared.quantity(text) for label, text in labels.items()}
+        for label, text in labels.items():
+            if quantities[label].running:
+                raise BvpkitError(f"sensitivity: output '{text}' depends on the running point "
+                                  f"{self.independent}; give a point, e.g. {text}(0)")
+            if quantities[label].parts != 1:
+                raise BvpkitError(f"sensitivity: output '{text}' has complex values; ask for re(...) and im(...)")
+        values = {label: float(self.evaluate(text)) for label, text in labels.items()}
+        matrix, errors = self.derivatives([(text, None) for text in labels.values()], indices, estimate=estimate)
+        return _sensitivity.Sensitivities(tuple(labels), tuple(names), values, matrix, errors)
+
+    def propagate(self, deviations: Any, outputs: Any = None, *, covariance: Any = None, samples: int = 0,
+                  seed: int | None = None) -> _sensitivity.Propagation:
+        """Standard deviations of outputs from those of constants, to first order through the
+        exact sensitivities; with ``samples=N``, checked by solving at ``N`` draws of the
+        constants (normal, with that covariance).
+
+        Parameters
+        ----------
+        deviations : mapping of str to float, or a FitResult
+            Standard deviations of constants (``{"h": 2.0, "k": 5.0}``); a fit's result gives
+            its constants' covariance.
+        outputs : as for :meth:`sensitivity`
+        covariance : array_like, shape (n, n), optional
+            The constants' covariance, in the order of ``deviations`` (replaces their squares).
+        samples : int
+            Solves of the sampling check (0: none). They run as a sweep's points do (many
+            points in one vectorised Newton system where the problem allows; the rest alone,
+            each started from this solution).
+        seed : int, optional
+            Seed of the draws.
+        """
+        if hasattr(deviations, "covariance") and hasattr(deviations, "names"):  # a fit's result
+            if not deviations.success:
+                raise BvpkitError(f"propagate: the fit did not succeed ({deviations.status.word}): its covariance "
+                                  "is not an answer")
+            names, covariance = list(deviations.names), deviations.covariance
+            deviations = None
+        else:
+            if not isinstance(deviations, dict) or not deviations:
+                raise BvpkitError("propagate: give the constants' standard deviations, e.g. {\"h\": 2.0}")
+            names = list(deviations)
+        names = self._constants_named(names)
+        c = _sensitivity.covariance_of(names, deviations, covariance)
+        s = self.sensitivity(outputs, names, estimate=False)
+        spread = s.matrix @ c @ s.matrix.T
+        result = _sensitivity.Propagation(s.outputs, s.values,
+                                          {o: float(math.sqrt(max(spread[i, i], 0.0))) for i, o in enumerate(s.outputs)},
+                                          spread, s)
+        if samples:
+            if not isinstance(samples, int) or samples < 2:
+                raise BvpkitError(f"propagate: samples must be a whole number of at least 2, got {samples!r}")
+            if _SAMPLER is None:
+                raise BvpkitError("propagate: sampling solves through bvpkit.solve's machinery; import bvpkit.fit first")
+            rng = np.random.default_rng(seed)
+            mean = np.array([self.prepared.constants[n] for n in names], float)
+            draws = rng.multivariate_normal(mean, c, size=samples, method="eigh")
+            expressions = self._expressions(outputs)
+            table = _SAMPLER(self, names, draws, list(expressions.values()))
+            ok = np.isfinite(table).all(axis=1)
+            result.samples, result.failed = table, int(samples - ok.sum())
+            result.sampled = {o: float(np.std(table[ok, i], ddof=1)) for i, o in enumerate(s.outputs)}
+            result.sampled_mean = {o: float(np.mean(table[ok, i])) for i, o in enumerate(s.outputs)}
+        return result
+
+    def derivatives(self, items: list, indices: list[int], *, estimate: bool = True) -> tuple[np.ndarray, np.ndarray]:
+        """Derivatives of expressions ``(text, at)`` (``at`` None for one value, or points:
+        one row per point) in the compiled constants ``indices``; their error estimates."""
+        prepared, compiled = self.prepared, self.interpolant.compiled
+        quantities = [(prepared.quantity(text), text, at) for text, at in items]
+
+        def view_of(t, y, p, k):  # noqa: ANN001, ANN202
+            return Interpolant(compiled, t, y, p, k)
+
+        def values_of(view: Interpolant) -> np.ndarray:
+            return np.concatenate([np.real(np.atleast_1d(_evaluate(view, prepared, q, text, at)))
+                                   for q, text, at in quantities])
+
+        v = self.interpolant
+        return _sensitivity.derivatives(compiled, v.t, v.y, v.p, v.k, indices, view_of, values_of, estimate)
+
+    def _expressions(self, outputs: Any) -> dict[str, str]:
+        if outputs is None:
+            labels = {name: name for name in self.parameters}
+            labels.update(self.prepared.outputs)
+        elif isinstance(outputs, str):
+            labels = {outputs: outputs}
+        elif isinstance(outputs, dict):
+            labels = {str(k): str(v) for k, v in outputs.items()}
+        else:
+            labels = {str(o): str(o) for o in outputs}
+        if not labels:
+            raise BvpkitError("sensitivity: no outputs: name the expressions, e.g. outputs=[\"y(1)\"]")
+        return labels
+
+    def _constants_named(self, wrt: Any) -> list[str]:
+        constants = self.prepared.constants
+        names = list(constants) if wrt is None else [wrt] if isinstance(wrt, str) else list(wrt)
+        if not names:
+            raise BvpkitError("sensitivity: no constants named in wrt=[...]; the problem has none" if not constants
+                              else f"sensitivity: no constants named in wrt=[...]; the problem's are {', '.join(constants)}")
+        layout = self.interpolant.layout
+        for name in names:
+            if name not in constants:
+                known = ", ".join(constants) or "none"
+                raise BvpkitError(f"sensitivity: '{name}' is not a constant of the problem (its constants: {known})")
+            if name not in layout.constants:
+                raise BvpkitError(f"sensitivity: constant '{name}' is not a real constant of the standard form "
+                                  "(complex constants and region values are not covered)")
+        if len(set(names)) != len(names):
+            raise BvpkitError("sensitivity: a constant is named twice in wrt=[...]")
+        return names
 
     def __repr__(self) -> str:
         return f"<Solution {self.status.word} by {self.method}: {self.message}>"
