@@ -26,11 +26,11 @@ from .status import Status  # noqa: E402
 # a cached `bvpkit solve` never imports SymPy.
 _LAZY = {
     "Attempt": "methods.diagnostics", "Diagnostics": "methods.diagnostics", "Branch": "families.continuation",
-    "Fold": "families.continuation", "trace": "families.continuation", "solve": "public",
+    "Fold": "families.continuation", "trace": "public", "solve": "public",
     "Problem": "language.problem", "Solution": "solver.solution", "Interpolant": "reduce.mapping",
     "Prepared": "reduce.prepared", "prepare": "reduce.prepared", "BranchPoint": "families.continuation",
-    "FoldCurve": "families.foldcurve", "fold_curve": "families.foldcurve", "sweep": "families.sweep",
-    "SweepResult": "families.sweep", "fit": "families.fitting", "FitResult": "families.fitting",
+    "FoldCurve": "families.foldcurve", "fold_curve": "public", "sweep": "public",
+    "SweepResult": "families.sweep", "fit": "public", "FitResult": "families.fitting",
 }
 
 

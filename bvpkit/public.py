@@ -1,17 +1,22 @@
-"""``bvpkit.solve``: the solve driver wired to its path follower.
+"""The public entry points that make solutions, wired to what sits above the solver.
 
 The selector's continuation from an easier problem takes a turn on its path, and diagnoses a
 value with no solution near it, by tracing (:func:`bvpkit.trace`); the driver sits below
-continuation, so it is given the tracer rather than importing it. This module, above both,
-is where the two meet: the public ``solve`` is the driver's, with ``follow=trace``.
+continuation, so it is given the tracer rather than importing it. A solution's sampling check
+of :meth:`~bvpkit.Solution.propagate` solves at many constants, as a sweep does; it is given
+its sampler by :mod:`bvpkit.families.fitting`. This module, above both, is where they meet:
+``bvpkit.solve`` is the driver's with ``follow=trace``, and ``bvpkit.trace``, ``fold_curve``,
+``sweep`` and ``fit`` are reached through here, so that every solution a user gets has both.
 """
 
 from __future__ import annotations
 
 from typing import Any
 
-from .families import fitting  # noqa: F401 - gives Solution.propagate its sampler (a sweep's solves)
 from .families.continuation import trace
+from .families.fitting import fit
+from .families.foldcurve import fold_curve
+from .families.sweep import sweep
 from .solver import driver
 from .solver.solution import Solution
 
@@ -38,3 +43,6 @@ solve.__doc__ = (driver.solve.__doc__ or "").replace(
         problem to go round a turn, and to look for a fold when no solution is found; the
         public ``bvpkit.solve`` passes it (without it those two steps are skipped).
 """, "")
+
+
+__all__ = ["fit", "fold_curve", "solve", "sweep", "trace"]

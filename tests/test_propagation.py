@@ -1,6 +1,8 @@
 """Uncertainty of constants carried to outputs (issue 27, part 3)."""
 
 import math
+import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -55,3 +57,14 @@ def test_a_fit_gives_its_covariance(fin):
 def test_bad_requests(fin, args, kwargs, match):
     with pytest.raises(bvpkit.BvpkitError, match=match):
         fin.propagate(*args, **kwargs)
+
+
+def test_a_solution_from_a_trace_in_a_fresh_process_can_be_sampled():
+    # the sampler is wired where the public entry points are: a user who only traces gets it too
+    code = ("import bvpkit\n"
+            "p = bvpkit.Problem([\"T'' = m**2*T\"], ['T(0) = 1', \"T'(1) = 0\"], (0, 1), constants={'m': 1.0})\n"
+            "s = bvpkit.trace(p, 'm', start=1.0, stop=2.0).solutions[-1]\n"
+            "print(s.propagate({'m': 0.05}, ['T(1)'], samples=20, seed=1).failed)\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120, check=False)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.split() == ["0"]

@@ -373,7 +373,8 @@ class Solution:
             if not isinstance(samples, int) or samples < 2:
                 raise BvpkitError(f"propagate: samples must be a whole number of at least 2, got {samples!r}")
             if _SAMPLER is None:
-                raise BvpkitError("propagate: sampling solves through bvpkit.solve's machinery; import bvpkit.fit first")
+                raise BvpkitError("propagate: sampling solves at many constants through bvpkit's sweep machinery, which is "
+                                  "wired when bvpkit.solve, trace, sweep or fit is first used (import bvpkit and call those)")
             rng = np.random.default_rng(seed)
             mean = np.array([self.prepared.constants[n] for n in names], float)
             draws = rng.multivariate_normal(mean, c, size=samples, method="eigh")
