@@ -329,3 +329,10 @@ def test_no_traceback_reaches_the_user_in_a_fresh_process(tmp_path):
                          timeout=120)
     assert out.returncode == 2 and "Traceback" not in out.stderr
     assert re.fullmatch(r"bvpkit: bad_input: .*attribute access is not allowed.*\n", out.stderr)
+
+
+def test_a_constant_that_overflows_the_jacobian_is_a_status_without_a_warning():
+    # m**2 = inf in double precision: the linearity probe meets inf - inf; warnings are errors here
+    p = bvpkit.Problem(["T'' = m**2*T"], ["T(0) = 1", "T'(1) + T(1) = 0"], (0, 1), constants={"m": 1e300})
+    sol = bvpkit.solve(p)
+    assert sol.status is bvpkit.Status.NON_FINITE and "overflow" in sol.message

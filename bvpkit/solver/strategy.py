@@ -383,10 +383,10 @@ def _nonlinear(trial: Trial) -> bool:
         if len(trial.p) and _free_end(trial):
             moved = trial.p + 0.25 * (1.0 + np.abs(trial.p))
             pairs.append((a, trial.compiled.jac(trial.x, y, moved, trial.k)))
-    for a, b in pairs:
-        close = np.abs(a - b) <= 1e-12 + 1e-10 * np.abs(b)
-        if not bool(close.all()):  # NaN or inf anywhere compares as not close: nonlinear
-            return True
+        for a, b in pairs:
+            close = np.abs(a - b) <= 1e-12 + 1e-10 * np.abs(b)  # inf - inf: NaN, quietly
+            if not bool(close.all()):  # NaN or inf anywhere compares as not close: nonlinear
+                return True
     return False
 
 
