@@ -157,6 +157,27 @@ def test_fit_command_refuses_bad_files(tmp_path, capsys, csv_text, args, match):
     assert match in err and err.count("\n") <= 2
 
 
+def test_a_sigma_column_of_the_file_comes_before_the_specs_figure(tmp_path, capsys):
+    import json
+
+    from bvpkit.io.cli import main
+
+    # our own readings of the rig (made up): the spec says sigma = 0.4 for files without a column
+    data = tmp_path / "readings.csv"
+    data.write_text("x,theta,sigma\n0.01,52,0\n0.03,40,0.4\n0.05,31,0.4\n")
+    assert main(["fit", str(RIG), "--data", str(data)]) == 2  # a sigma of 0 in the column is refused
+    assert "must be finite and positive" in capsys.readouterr().err
+    data.write_text("x,theta,sigma\n0.01,52,0.4\n0.03,40,0.4\n0.05,31,0.4\n")
+    assert main(["fit", str(RIG), "--data", str(data), "--json"]) == 0
+    same = json.loads(capsys.readouterr().out)["errors"]["h"]
+    data.write_text("x,theta,sigma\n0.01,52,0.8\n0.03,40,0.8\n0.05,31,0.8\n")
+    assert main(["fit", str(RIG), "--data", str(data), "--json"]) == 0
+    doubled = json.loads(capsys.readouterr().out)["errors"]["h"]
+    assert doubled == pytest.approx(2 * same, rel=1e-3)  # analytic: standard errors scale with sigma
+    assert main(["fit", str(RIG), "--data", str(data), "--sigma", "0.4", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["errors"]["h"] == pytest.approx(same, rel=1e-6)  # the flag replaces it
+
+
 def test_a_domain_end_fitted_and_the_noise_estimated_without_sigma():
     rng = np.random.default_rng(3)
     x = np.linspace(0.05, 0.9, 15)

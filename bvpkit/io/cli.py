@@ -202,8 +202,8 @@ def _parser() -> argparse.ArgumentParser:
                          "relative to the spec)")
     fitting.add_argument("--vary", action="append", metavar="NAME=START[,NAME=START]",
                          help="constants to fit and their start values (repeatable; replaces the [fit] section's)")
-    fitting.add_argument("--sigma", type=float, help="standard deviation of every measurement (replaces the spec's "
-                         "and a 'sigma' column; without any, the noise is estimated from the residuals)")
+    fitting.add_argument("--sigma", type=float, help="standard deviation of every measurement (replaces a 'sigma' "
+                         "column and the spec's; without any, the noise is estimated from the residuals)")
     _option_flags(fitting, ["tol", "method"], {"tol": "tolerance of each solve"})
     fitting.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="change a constant (repeatable)")
     fitting.add_argument("--json", action="store_true", help="print the fit as JSON (values, errors, correlation)")
@@ -647,8 +647,11 @@ def _fit(args: argparse.Namespace) -> tuple[int, Any]:
         data_path = Path(args.spec).parent / settings["data"]
     else:
         raise OptionError(f"{args.spec}: fit needs measurements: give --data FILE.csv or data = \"FILE.csv\" under [fit]")
-    sigma = args.sigma if args.sigma is not None else settings.get("sigma")
-    data = read_measurements(data_path, problem.independent, sigma)
+    # the flag replaces every other sigma; a sigma column of the file (one per reading) comes
+    # before the spec's single figure, which serves files without one
+    data = read_measurements(data_path, problem.independent, args.sigma)
+    per_reading = any(len(item) == 3 for item in data.values())
+    sigma = args.sigma if args.sigma is not None or per_reading else settings.get("sigma")
     options = _flag_values(args, ["tol", "method"])
     result = fit(problem, data, vary=settings["vary"], sigma=sigma, bounds=settings.get("bounds"), **options)
     if picture is not None and result.values:
