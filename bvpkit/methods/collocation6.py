@@ -62,6 +62,10 @@ _PIECE_MIDS = np.array([0.5 * _C[1], 0.5, 0.5 * (_C[2] + 1.0)])
 _W_MIDS = np.vander(_PIECE_MIDS, 5, increasing=True) @ _W  # (3, 4): W_j at those points
 _L_MID = (np.vander([0.5], 4, increasing=True) * np.arange(1, 5)) @ _W[1:]  # (1, 4): L_j(1/2)
 _MAX_NEWTON = 16
+# Simplified Newton steps (the last factors kept) are taken while the contraction seen promises
+# convergence within this many of them: a simplified step costs a residual and batched products,
+# a third of a full one (measured on Blasius), but converges only linearly.
+_REUSE_STEPS = 2
 _MAX_ROUNDS = 12
 _SAFETY = 0.5  # a round is accepted at this share of the tolerance
 _AIM = 0.1  # ... and a refinement aims at this share: one more node now is cheaper than one more round
@@ -164,25 +168,40 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
             tol: float) -> _Discrete:
     """Damped Newton on the 4-stage Lobatto IIIA equations of one mesh, stages condensed.
 
+    Each full iteration forms the Jacobians at the nodes and stages in one call, inverts the
+    ``2n x 2n`` stage blocks of all intervals in one batched call and factors the condensed
+    node system (:func:`factor_blocks`). While the contraction seen (of the residual after a
+    full step, of the steps after a simplified one) promises a step below the threshold within
+    ``_REUSE_STEPS`` steps, the next step reuses those factors (a simplified Newton step: a
+    residual, batched products and a solve with the factors kept); a simplified step that does
+    not lower the residual is discarded and the matrix formed afresh. A solve ends on a
+    full-length step below the threshold, a full Newton step or a simplified one that at least
+    halved the step before it, so the step bounds the error left.
+
     Raises :class:`SingularMatrix` on a singular matrix, ``ArithmeticError`` when it does not
     converge.
     """
     n, m = y.shape
     n_p = p.size
     h = np.diff(x)
-    hh = h[:, None, None]
-    stage_x = _positions(x).ravel()
-    eye = np.eye(n)
+    points = np.concatenate([x, _positions(x).ravel()])  # the nodes, then the stages interval by interval
     threshold = max(1e-2 * tol, 1e-13)
     scale = np.concatenate([np.repeat(1.0 / h, n), np.ones(n + n_p)])
+    eye2 = np.eye(2 * n)
+    eye = np.eye(n)
+    hA = h[:, None, None] * _A[None, 1:3, :]  # (m-1, 2, 4): h a_sl for the two interior stages
+    hB = h[:, None] * _B[None, :]  # (m-1, 4)
+    width = 2 * n + n_p + 1  # columns of the condensed blocks: y_i, y_i+1, p, the residual
+
+    def values(y, z):  # noqa: ANN001, ANN202 - states at every point, in the order of ``points``
+        return np.concatenate([y, z.reshape(n, -1)], axis=1)
 
     def residual(y, z, p):  # noqa: ANN001, ANN202
-        fn = compiled.rhs(x, y, p, k)
-        fs = compiled.rhs(stage_x, z.reshape(n, -1), p, k).reshape(n, m - 1, 2)
-        F = np.stack([fn[:, :-1], fs[:, :, 0], fs[:, :, 1], fn[:, 1:]], axis=2)  # (n, m-1, 4)
-        increments = h[None, :, None] * np.einsum("nij,sj->nis", F, _A[1:])  # (n, m-1, 3)
-        gs = z - y[:, :-1, None] - increments[:, :, :2]  # (n, m-1, 2)
-        ge = y[:, 1:] - y[:, :-1] - increments[:, :, 2]  # (n, m-1)
+        f = compiled.rhs(points, values(y, z), p, k)
+        fs = f[:, m:].reshape(n, m - 1, 2)
+        F = np.stack([f[:, :m - 1], fs[:, :, 0], fs[:, :, 1], f[:, 1:m]], axis=2)  # (n, m-1, 4)
+        gs = z - y[:, :-1, None] - np.einsum("nij,isj->nis", F, hA)  # (n, m-1, 2)
+        ge = y[:, 1:] - y[:, :-1] - np.einsum("nij,ij->ni", F, hB)  # (n, m-1)
         return gs, ge, compiled.bc(y[:, 0], y[:, -1], p, k)
 
     def size(gs, ge, bc):  # noqa: ANN001, ANN202 - residuals in derivative units
@@ -191,52 +210,51 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
 
     gs, ge, bc = residual(y, z, p)
     norm = size(gs, ge, bc)
+    reuse, last, rows_bound = False, math.inf, None
     for iteration in range(1, _MAX_NEWTON + 1):
         if not math.isfinite(norm):
             raise ArithmeticError("the residual holds NaN or inf")
-        Jn = np.moveaxis(compiled.jac(x, y, p, k), -1, 0)  # (m, n, n)
-        Js = np.moveaxis(compiled.jac(stage_x, z.reshape(n, -1), p, k), -1, 0).reshape(m - 1, 2, n, n)
-        Jl, Jr = Jn[:-1], Jn[1:]
-        # stage rows (s = 1, 2 of the interior stages): d/dZ, d/dy_i, d/dy_i+1
-        Kss = np.empty((m - 1, 2 * n, 2 * n))
-        Ksi = np.empty((m - 1, 2 * n, n))
-        Ksr = np.empty((m - 1, 2 * n, n))
-        for s in range(2):
-            rows = slice(s * n, (s + 1) * n)
-            for l in range(2):
-                Kss[:, rows, l * n:(l + 1) * n] = (eye if s == l else 0.0) - hh * _A[s + 1, l + 1] * Js[:, l]
-            Ksi[:, rows] = -eye - hh * _A[s + 1, 0] * Jl
-            Ksr[:, rows] = -hh * _A[s + 1, 3] * Jr
-        KeY = np.concatenate([-hh * _B[1] * Js[:, 0], -hh * _B[2] * Js[:, 1]], axis=2)  # (m-1, n, 2n)
-        Kei = -eye - hh * _B[0] * Jl
-        Ker = eye - hh * _B[3] * Jr
-        gs_flat = np.moveaxis(gs, 1, 0).transpose(0, 2, 1).reshape(m - 1, 2 * n)  # rows (stage, state)
-        columns = [Ksi, Ksr]
-        if n_p:
-            Pn = np.moveaxis(compiled.pjac(x, y, p, k), -1, 0)
-            Ps = np.moveaxis(compiled.pjac(stage_x, z.reshape(n, -1), p, k), -1, 0).reshape(m - 1, 2, n, n_p)
-            Ksp = np.concatenate([-hh * (_A[s + 1, 0] * Pn[:-1] + _A[s + 1, 1] * Ps[:, 0] + _A[s + 1, 2] * Ps[:, 1]
-                                         + _A[s + 1, 3] * Pn[1:]) for s in range(2)], axis=1)
-            Kep = -hh * (_B[0] * Pn[:-1] + _B[1] * Ps[:, 0] + _B[2] * Ps[:, 1] + _B[3] * Pn[1:])
-            columns.append(Ksp)
-        columns.append(gs_flat[:, :, None])
-        try:
-            X = np.linalg.solve(Kss, np.concatenate(columns, axis=2))
-        except np.linalg.LinAlgError:
-            raise SingularMatrix("a stage block is singular") from None
-        left = Kei - KeY @ X[:, :, :n]
-        right = Ker - KeY @ X[:, :, n:2 * n]
-        pblock = Kep - KeY @ X[:, :, 2 * n:2 * n + n_p] if n_p else None
-        rhs_e = ge.T - np.einsum("ijk,ik->ij", KeY, X[:, :, -1])
-        a, b, dp = compiled.bc_jac(y[:, 0], y[:, -1], p, k)
-        lu = factor_blocks(left, right, pblock, a, b, dp if n_p else None, scale)
+        if not reuse:
+            J = compiled.jac(points, values(y, z), p, k)  # (n, n, points)
+            Jn = np.moveaxis(J[:, :, :m], -1, 0)  # (m, n, n)
+            Js = np.moveaxis(J[:, :, m:], -1, 0).reshape(m - 1, 2, n, n)
+            Jl, Jr = Jn[:-1], Jn[1:]
+            JsT = Js.transpose(0, 2, 1, 3)  # (m-1, n, 2, n): [i, a, l, b]
+            # stage rows s = 1, 2: d/dZ_l = delta_sl - h a_sl J(Z_l), d/dy_i, d/dy_i+1, d/dp
+            Kss = eye2 - (hA[:, :, None, 1:3, None] * JsT[:, None]).reshape(m - 1, 2 * n, 2 * n)
+            cols = np.empty((m - 1, 2, n, width))
+            cols[:, :, :, :n] = -eye - hA[:, :, 0, None, None] * Jl[:, None]
+            cols[:, :, :, n:2 * n] = -hA[:, :, 3, None, None] * Jr[:, None]
+            if n_p:
+                P = np.moveaxis(compiled.pjac(points, values(y, z), p, k), -1, 0)  # (points, n, n_p)
+                Pn, Ps = P[:m], P[m:].reshape(m - 1, 2, n, n_p)
+                cols[:, :, :, 2 * n:2 * n + n_p] = -(hA[:, :, 0, None, None] * Pn[:-1, None]
+                                                     + np.einsum("isl,ilab->isab", hA[:, :, 1:3], Ps)
+                                                     + hA[:, :, 3, None, None] * Pn[1:, None])
+                Kep = -(hB[:, 0, None, None] * Pn[:-1] + np.einsum("il,ilab->iab", hB[:, 1:3], Ps)
+                        + hB[:, 3, None, None] * Pn[1:])
+            cols = cols.reshape(m - 1, 2 * n, width)
+            KeY = -(hB[:, None, 1:3, None] * JsT).reshape(m - 1, n, 2 * n)  # end rows, d/dZ
+            try:
+                inverse = np.linalg.inv(Kss)
+            except np.linalg.LinAlgError:
+                raise SingularMatrix("a stage block is singular") from None
+            X = inverse @ cols[:, :, :-1]  # the stages' response to y_i, y_i+1, p
+            KX = KeY @ X
+            left = -eye - hB[:, 0, None, None] * Jl - KX[:, :, :n]
+            right = eye - hB[:, 3, None, None] * Jr - KX[:, :, n:2 * n]
+            pblock = Kep - KX[:, :, 2 * n:] if n_p else None
+            a, b, dp = compiled.bc_jac(y[:, 0], y[:, -1], p, k)
+            lu = factor_blocks(left, right, pblock, a, b, dp if n_p else None, scale)
+            rows_bound = np.max(np.sum(np.abs(Jn), axis=2), axis=1)
+        gs_flat = gs.transpose(1, 2, 0).reshape(m - 1, 2 * n)  # rows (stage, state)
+        Xg = np.einsum("ijk,ik->ij", inverse, gs_flat)
+        rhs_e = ge.T - np.einsum("ijk,ik->ij", KeY, Xg)
         step = lu.solve(-scale * np.concatenate([rhs_e.ravel(), bc]))  # rows scaled as the matrix's
         dy = step[: n * m].reshape(m, n).T
         dp_ = step[n * m:]
-        dZ = -(X[:, :, -1] + np.einsum("ijk,ki->ij", X[:, :, :n], dy[:, :-1])
-               + np.einsum("ijk,ki->ij", X[:, :, n:2 * n], dy[:, 1:]))
-        if n_p:
-            dZ -= np.einsum("ijk,k->ij", X[:, :, 2 * n:2 * n + n_p], dp_)
+        known = np.concatenate([dy[:, :-1].T, dy[:, 1:].T, np.broadcast_to(dp_, (m - 1, n_p))], axis=1)
+        dZ = -(Xg + np.einsum("ijk,ik->ij", X, known))
         dz = dZ.reshape(m - 1, 2, n).transpose(2, 0, 1)
         alpha = 1.0
         while True:
@@ -246,16 +264,26 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
             new_norm = size(*parts)
             if new_norm < norm or (alpha == 1.0 and new_norm <= 10 * norm and norm < 1e-8) or alpha < 1 / 64:
                 break
+            if reuse:  # a simplified step that does not help: form the matrix afresh, step again
+                break
             alpha *= 0.5
-        if not math.isfinite(new_norm):
+        if not math.isfinite(new_norm) and not reuse:
             raise ArithmeticError("Newton's step ran into NaN or inf")
-        y, z, p, (gs, ge, bc), norm = y_new, z_new, p_new, parts, new_norm
         change = max(float(np.max(np.abs(alpha * dy) / (1 + np.abs(y)))),
                      float(np.max(np.abs(alpha * dp_) / (1 + np.abs(p)), initial=0.0)))
-        if alpha == 1.0 and change <= threshold:
-            rows = np.max(np.sum(np.abs(Jn), axis=2), axis=1)  # |J| at the nodes (row sums)
-            reach = float(np.max(h * np.maximum(rows[:-1], rows[1:]), initial=0.0))
-            return _Discrete(x, y, z, p, iteration, lu, scale, reach)
+        if reuse and not (new_norm < norm or (new_norm <= 10 * norm and norm < 1e-8)):
+            reuse = False  # the kept factors no longer help: discard the step, form the matrix afresh
+            continue
+        # the contraction of this step: of the steps for a simplified one, else of the residual
+        rate = change / last if reuse else new_norm / norm
+        y, z, p, (gs, ge, bc), norm = y_new, z_new, p_new, parts, new_norm
+        if alpha == 1.0 and change <= threshold and (not reuse or rate <= 0.5):
+            h_rows = h * np.maximum(rows_bound[:-1], rows_bound[1:])
+            return _Discrete(x, y, z, p, iteration, lu, scale, float(np.max(h_rows, initial=0.0)))
+        # keep the factors while the contraction brings the step below the threshold within
+        # _REUSE_STEPS simplified steps (each costs a fraction of a full one)
+        reuse = alpha == 1.0 and change * rate ** _REUSE_STEPS <= threshold
+        last = change
     raise ArithmeticError(f"Newton's method did not converge in {_MAX_NEWTON} iterations")
 
 
@@ -349,7 +377,7 @@ class SixthOrderCollocation(Method):
         x = x0[::2] if x0.size > 21 else x0.copy()
         if x[-1] != x0[-1]:
             x = np.append(x, x0[-1])
-        wanted = int(math.ceil(_FIRST_NODES * max(1.0, _FIRST_TOL / tol) ** (1 / self.order)))
+        wanted = int(math.ceil(_FIRST_NODES * max(1.0, _FIRST_TOL / max(tol, float(__import__("os").environ.get("FIRSTTOL", "0")))) ** (1 / self.order)))
         if x.size < wanted:
             x = _split(x, np.full(x.size - 1, -(-(wanted - 1) // (x.size - 1))))
         x = seeded(x, trial.features)  # the narrow features of the equations stay seeded
