@@ -34,7 +34,7 @@ import numpy as np
 from ..language.options import TOL_FLOOR
 from ..status import Status
 from .base import Method, Outcome, Trial
-from .diagnostics import hermite, stability_constant
+from .diagnostics import Hermite, stability_constant
 from .discrete import SingularMatrix, factor_blocks, one_blas_thread
 from .features import seeded
 
@@ -327,7 +327,11 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
     xo, yo = coarse.output()
     mid = 0.5 * (xo[1:] + xo[:-1])
     points = np.concatenate([xo, mid])
-    mine = np.concatenate([yo, hermite(compiled, xo, yo, coarse.p, k)(mid)], axis=1)
+    F = coarse.slopes(compiled, k)  # f at the output points, as a Solution's interpolant takes them
+    slopes = np.empty_like(yo)
+    slopes[:, ::3], slopes[:, 1::3], slopes[:, 2::3] = np.concatenate([F[:, :, 0], F[:, -1:, 3]], axis=1), \
+        F[:, :, 1], F[:, :, 2]
+    mine = np.concatenate([yo, Hermite(xo, yo, slopes)(mid)], axis=1)
     theirs = fine.at(compiled, points, k)
     diff = np.max(np.abs(mine - theirs) / (1 + np.abs(theirs)), axis=0)
     if coarse.p.size:
@@ -377,7 +381,7 @@ class SixthOrderCollocation(Method):
         x = x0[::2] if x0.size > 21 else x0.copy()
         if x[-1] != x0[-1]:
             x = np.append(x, x0[-1])
-        wanted = int(math.ceil(_FIRST_NODES * max(1.0, _FIRST_TOL / max(tol, float(__import__("os").environ.get("FIRSTTOL", "0")))) ** (1 / self.order)))
+        wanted = int(math.ceil(_FIRST_NODES * max(1.0, _FIRST_TOL / tol) ** (1 / self.order)))
         if x.size < wanted:
             x = _split(x, np.full(x.size - 1, -(-(wanted - 1) // (x.size - 1))))
         x = seeded(x, trial.features)  # the narrow features of the equations stay seeded
