@@ -12,13 +12,17 @@ meets the equations at the four Lobatto points ``c = 0, (5 - sqrt 5)/10, (5 + sq
 Newton's method on the nodes, the two interior stages and the parameters; the stages are
 eliminated interval by interval (batched dense solves, no Python work per interval), which
 leaves the bordered block-bidiagonal matrix of 4th-order collocation for the nodes,
-factored by :func:`bvpkit.methods.discrete.factor_blocks`.
+factored by :func:`bvpkit.methods.discrete.factor_blocks`; while Newton's method contracts
+fast, simplified steps reuse those factors.
 
-Error control and estimate: every solve is repeated on the halved mesh; their difference,
-at the output points and between them (through the C1 cubic interpolant a ``Solution``
-evaluates), estimates the error of the coarser one, which is the one returned (so the
-estimate is that of the answer given, not a guess at a better one). Intervals whose share
-misses the tolerance are split by the factor the method's order predicts. The output holds
+Error control and estimate: a solve whose own defect estimate (the C1 cubic a ``Solution``
+evaluates against the collocation polynomial, and the polynomial's error from its defect at
+the interval midpoints) is far above the tolerance is refined by it at once; a solve expected
+to pass is repeated on the halved mesh, and their difference, at the output points and between
+them (through the C1 cubic interpolant), estimates the error of the coarser one, which is the
+one returned (so the estimate is that of the answer given, not a guess at a better one). Only
+that comparison accepts an answer. Intervals whose share misses the tolerance are split by the
+factor the method's order predicts. The output holds
 the nodes and the interior Lobatto points, so the cubic interpolant between them keeps up
 with the method's accuracy.
 """
@@ -360,12 +364,13 @@ class SixthOrderCollocation(Method):
     #: digit falls with the order).
     strengths = frozenset({"tight"})
     order = 6
-    #: Work per mesh node of a solve with its estimate against 4th-order collocation's: every
-    #: round solves the halved mesh too, and a node carries two stages. Measured with
-    #: benchmarks/collocation.py (sixth_order, tight_auto) on Blasius, Bratu, Troesch and a
-    #: beam: the sixth order is 1.0-1.4 times slower at tol 1e-10 and 1e-11 and 2 to 9 times
-    #: faster at 1e-12; 9 * tol**(1/4 - 1/6) = 1 places the break-even at 3.6e-12.
-    node_cost = 9.0
+    #: Work per mesh node of a solve with its estimate against 4th-order collocation's: the
+    #: last round solves the halved mesh too, and a node carries two stages. Measured with
+    #: benchmarks/collocation.py (sixth_order at 1e-10 and 1e-11, tight_auto) on Blasius, Bratu,
+    #: Troesch and a beam: the sixth order takes 0.97-1.18 times the fourth's time at 1e-10,
+    #: 0.08-1.01 at 1e-11 and 0.2-0.45 at 1e-12; 7.5 * tol**(1/4 - 1/6) = 1 places the
+    #: break-even at 3.2e-11.
+    node_cost = 7.5
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
