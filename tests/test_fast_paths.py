@@ -291,3 +291,11 @@ def test_the_sixth_order_defect_estimate_tracks_the_true_error_between_the_outpu
         worst = np.max(error.reshape(m - 1, 3), axis=1)  # per interval of the mesh
         # measured 1.0-2.5 on every interval (m = 9, 17, 33): the leading-order terms hold here
         assert np.all((expected >= 0.5 * worst) & (expected <= 5 * worst)), (m, expected / worst)
+
+
+def test_the_sixth_order_takes_a_guess_that_already_solves_the_problem():
+    # the zero guess of y'' = 0 with zero ends is the answer (analytic:
+    # y = 0); its residual is exactly zero, which the Newton iteration's contraction must take
+    sol = bvpkit.solve(bvpkit.Problem(["y'' = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1)), method="collocation6", tol=1e-6)
+    assert sol.success, sol.message
+    assert np.max(np.abs(sol.evaluate("y", at=np.linspace(0, 1, 5)))) == 0.0

@@ -279,7 +279,8 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
             reuse = False  # the kept factors no longer help: discard the step, form the matrix afresh
             continue
         # the contraction of this step: of the steps for a simplified one, else of the residual
-        rate = change / last if reuse else new_norm / norm
+        done, left = (change, last) if reuse else (new_norm, norm)
+        rate = done / left if left > 0 else 0.0  # a residual of exactly zero (a zero solution) is converged
         y, z, p, (gs, ge, bc), norm = y_new, z_new, p_new, parts, new_norm
         if alpha == 1.0 and change <= threshold and (not reuse or rate <= 0.5):
             h_rows = h * np.maximum(rows_bound[:-1], rows_bound[1:])
