@@ -267,3 +267,15 @@ def test_the_spiral_of_folds_of_the_sphere_ends_the_trace_by_itself():
     limit = float(branch.message.split("close in on lam = ")[1].split(" ")[0])
     assert limit == pytest.approx(2.0, abs=0.01)
     assert len(branch.parameter) < 200  # ended before the point budget
+
+
+@pytest.mark.parametrize("size", [1.0, 1e3, 1e6])
+def test_a_trace_rounds_a_fold_whatever_the_units_of_its_constant(size):
+    # Bratu with lam measured in units 1/size: the fold at lam = 3.51383071912516 size (analytic,
+    # from lam = 8 t^2 / cosh^2 t at its maximum); a trace in Re ~ 5000 must step as one in Re/1000
+    p = bvpkit.Problem(["y'' + (lam/S)*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1),
+                       constants={"lam": 0.1 * size, "S": size})
+    branch = bvpkit.trace(p, "lam", start=0.1 * size, stop=5.0 * size, outputs=["y'(0)"])
+    assert branch.success, branch.message
+    assert [f.parameter / size for f in branch.folds] == [pytest.approx(3.51383071912516, rel=1e-7)]
+    assert len(branch.parameter) <= 60  # as many points as the trace in lam itself (51 today)

@@ -9,6 +9,7 @@ import sys
 import numpy as np
 import pytest
 import sympy as sp
+from scipy.sparse import csc_matrix
 from catalogue import (
     BLASIUS_FPP0,
     EI,
@@ -25,7 +26,14 @@ from catalogue import (
 )
 
 import bvpkit
-from bvpkit.methods.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
+from bvpkit.methods.discrete import (
+    CollocationEquations,
+    SingularMatrix,
+    block_matrix,
+    factor_blocks,
+    sparse_lu,
+    sparse_pays,
+)
 
 
 # -- the banded embedding of every Newton matrix --------------------------------------------------
@@ -259,3 +267,13 @@ def test_the_sixth_order_method_converges_at_order_six():
     # superconvergence of Lobatto IIIA with 4 stages at the nodes: order 2s - 2 = 6
     # (Hairer and Wanner, Solving ODEs II, section IV.5)
     assert 5.6 < order < 6.6, (order, errors)
+
+
+def test_a_sparse_lu_of_a_diverged_iterate_is_refused_before_superlu_sees_it(capfd):
+    # entries of 1e162 (seen when a trace's corrector diverged): SuperLU's BLAS printed complaints
+    # to standard output and then failed; refused first, quietly, as a singular matrix
+    matrix = csc_matrix(np.array([[1.0, 2.0, 0.0], [1e162, 1.0, 3.0], [0.0, 4.0, 1e160]]))
+    with pytest.raises(SingularMatrix, match="diverging iterate"):
+        sparse_lu(matrix)
+    assert capfd.readouterr().out == ""
+    assert np.allclose(sparse_lu(csc_matrix(np.eye(3) * 2.0)).solve(np.ones(3)), 0.5)  # analytic

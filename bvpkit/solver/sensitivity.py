@@ -32,11 +32,10 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.sparse.linalg import splu
 
 from ..errors import BvpkitError
 from ..methods.diagnostics import hermite
-from ..methods.discrete import CollocationEquations, SingularMatrix
+from ..methods.discrete import CollocationEquations, SingularMatrix, sparse_lu
 
 #: Relative step of the centred difference along the tangent (truncation ~ step**4 = 1e-12,
 #: round-off ~ 1e-16 / step = 1e-13 relative to the output's size).
@@ -142,10 +141,7 @@ class Tangents:
             if not np.isfinite(r).all():
                 raise SingularMatrix("the collocation equations are not finite at the solution")
             matrix = freed.jacobian(full).tocsc()
-            try:
-                lu = splu(matrix[:, :size])
-            except RuntimeError:
-                raise SingularMatrix("the Newton matrix at the solution is singular") from None
+            lu = sparse_lu(matrix[:, :size], "the Newton matrix at the solution")
             step = lu.solve(r)
             if not np.isfinite(step).all():
                 raise SingularMatrix("the Newton matrix at the solution is singular")
