@@ -134,6 +134,19 @@ def test_the_ignition_limit_of_a_slab_against_the_biot_number():
         assert float(fold.prepared.constants["d"]) == pytest.approx(one.folds[0].parameter, abs=1e-8)
 
 
+def test_a_fold_curve_refined_on_its_forward_leg_still_traces_its_backward_leg():
+    # from Bi = 1 (where the fold is found) forward to 100 the mesh is refined at tol 1e-8; the
+    # backward leg to 0.1 once crashed on the finer mesh's border vectors (a raw ValueError)
+    curve = bvpkit.fold_curve(frank_kamenetskii_slab(), "d", along="Bi", start=0.1, stop=100.0, tol=1e-8)
+    assert curve.success, curve.message
+    assert curve.along[0] == pytest.approx(0.1) and curve.along[-1] == pytest.approx(100.0)
+    assert np.all(np.diff(curve.parameter) > 0)  # a higher Biot number needs more heat to ignite
+    # at Bi = 100 the fold of a one-parameter trace (common practice, no source)
+    one = bvpkit.trace(frank_kamenetskii_slab().with_constants(Bi=100.0, d=0.1), "d", start=0.1, stop=2.0,
+                       tol=1e-10, outputs=[])
+    assert curve.parameter[-1] == pytest.approx(one.folds[0].parameter, abs=1e-7)
+
+
 def test_a_fold_curve_reports_a_cusp():
     # y'' + d exp(y/(1 + y/g)) = 0 (an Arrhenius law with an activation number g): the S-shaped
     # branch's two folds meet in a cusp at g near 4.07 (Frank-Kamenetskii's slab: the folds vanish
@@ -267,3 +280,15 @@ def test_the_spiral_of_folds_of_the_sphere_ends_the_trace_by_itself():
     limit = float(branch.message.split("close in on lam = ")[1].split(" ")[0])
     assert limit == pytest.approx(2.0, abs=0.01)
     assert len(branch.parameter) < 200  # ended before the point budget
+
+
+@pytest.mark.parametrize("size", [1.0, 1e3, 1e6])
+def test_a_trace_rounds_a_fold_whatever_the_units_of_its_constant(size):
+    # Bratu with lam measured in units 1/size: the fold at lam = 3.51383071912516 size (analytic,
+    # from lam = 8 t^2 / cosh^2 t at its maximum); a trace in Re ~ 5000 must step as one in Re/1000
+    p = bvpkit.Problem(["y'' + (lam/S)*exp(y) = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1),
+                       constants={"lam": 0.1 * size, "S": size})
+    branch = bvpkit.trace(p, "lam", start=0.1 * size, stop=5.0 * size, outputs=["y'(0)"])
+    assert branch.success, branch.message
+    assert [f.parameter / size for f in branch.folds] == [pytest.approx(3.51383071912516, rel=1e-7)]
+    assert len(branch.parameter) <= 60  # as many points as the trace in lam itself (51 today)

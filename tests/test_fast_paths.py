@@ -9,6 +9,7 @@ import sys
 import numpy as np
 import pytest
 import sympy as sp
+from scipy.sparse import csc_matrix
 from catalogue import (
     BLASIUS_FPP0,
     EI,
@@ -25,7 +26,14 @@ from catalogue import (
 )
 
 import bvpkit
-from bvpkit.methods.discrete import CollocationEquations, block_matrix, factor_blocks, sparse_pays
+from bvpkit.methods.discrete import (
+    CollocationEquations,
+    SingularMatrix,
+    block_matrix,
+    factor_blocks,
+    sparse_lu,
+    sparse_pays,
+)
 
 
 # -- the banded embedding of every Newton matrix --------------------------------------------------
@@ -299,3 +307,13 @@ def test_the_sixth_order_takes_a_guess_that_already_solves_the_problem():
     sol = bvpkit.solve(bvpkit.Problem(["y'' = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1)), method="collocation6", tol=1e-6)
     assert sol.success, sol.message
     assert np.max(np.abs(sol.evaluate("y", at=np.linspace(0, 1, 5)))) == 0.0
+
+
+def test_a_sparse_lu_of_a_diverged_iterate_is_refused_before_superlu_sees_it(capfd):
+    # entries of 1e162 (seen when a trace's corrector diverged): SuperLU's BLAS printed complaints
+    # to standard output and then failed; refused first, quietly, as a singular matrix
+    matrix = csc_matrix(np.array([[1.0, 2.0, 0.0], [1e162, 1.0, 3.0], [0.0, 4.0, 1e160]]))
+    with pytest.raises(SingularMatrix, match="diverging iterate"):
+        sparse_lu(matrix)
+    assert capfd.readouterr().out == ""
+    assert np.allclose(sparse_lu(csc_matrix(np.eye(3) * 2.0)).solve(np.ones(3)), 0.5)  # analytic

@@ -28,9 +28,8 @@ import math
 
 import numpy as np
 import scipy.sparse as sparse
-from scipy.sparse.linalg import splu
 
-from ..methods.discrete import CollocationEquations, SingularMatrix
+from ..methods.discrete import CollocationEquations, sparse_lu
 
 _MAX_NEWTON = 12
 #: A chord step that shrinks the correction by less than this (against the step before) has
@@ -45,13 +44,8 @@ _ORDER = "MMD_AT_PLUS_A"
 
 def _lu(matrix):  # noqa: ANN001, ANN202
     """SuperLU of a bordered matrix; :class:`~bvpkit.methods.discrete.SingularMatrix` (a RuntimeError)
-    when it is exactly singular or holds NaN or inf."""
-    if not np.all(np.isfinite(matrix.data)):
-        raise SingularMatrix("the bordered matrix holds NaN or inf")
-    try:
-        return splu(matrix, permc_spec=_ORDER)
-    except RuntimeError as exc:
-        raise SingularMatrix(str(exc)) from None
+    when it is exactly singular or holds NaN, inf or the huge entries of a diverging iterate."""
+    return sparse_lu(matrix, "the bordered matrix", permc_spec=_ORDER)
 
 
 def _row(vector: np.ndarray) -> sparse.csr_matrix:

@@ -69,8 +69,8 @@ from . import arclength as arc
 from .stability import stable
 
 _GROW, _SHRINK = 1.5, 0.5
-_TURNING = 0.3  # |d lam / ds| below this: the branch is turning, step in arclength
-_STRAIGHT = 0.6  # |d lam / ds| above this (after a fold or a branch switch): back to natural steps
+_TURNING = 0.3  # |d lam / ds| (lam in its size, _size) below this: the branch is turning, step in arclength
+_STRAIGHT = 0.6  # |d lam / ds| (the same) above this (after a fold or a branch switch): back to natural steps
 #: Largest angle between successive secants or tangents of an accepted step (radians).
 MAX_ANGLE = math.radians(8.0)
 #: Largest distance of the corrected point from the predicted one, relative to the step.
@@ -561,7 +561,19 @@ class _Tracer:
         return sol
 
     def _equations(self, point: _Point) -> CollocationEquations:
-        return CollocationEquations(self.free, point.t, point.k)
+        return self._on(point.t, point.k)
+
+    def _on(self, x: np.ndarray, k: np.ndarray) -> CollocationEquations:
+        """The freed collocation equations on mesh ``x``, the traced constant measured in the
+        norm by its size (:meth:`_size`), so that a trace in Re = 5000 steps as one in Re/1000."""
+        sizes = np.ones(self.free.n_parameters)
+        sizes[-1] = self._size()
+        return CollocationEquations(self.free, x, k, sizes)
+
+    def _size(self) -> float:
+        """The traced constant's unit in the arclength norm: a tenth of the largest end of the
+        range, at least 1 (a range within 10 of 0 steps as it did)."""
+        return max(1.0, 0.1 * max(abs(self.lo), abs(self.hi)))
 
     def _inside(self, value: float) -> bool:
         slack = 1e-12 * max(1.0, abs(self.lo), abs(self.hi))
@@ -888,7 +900,7 @@ class _Tracer:
         if tangent is None:
             return False
         size = arc.norm(self._equations(self.points[-1]), tangent)
-        return size > 0 and abs(float(tangent[-1])) / size < 2 * _TURNING
+        return size > 0 and abs(float(tangent[-1])) / self._size() / size < 2 * _TURNING
 
     def _fold_ahead(self, target: float) -> bool:
         """Whether a fold lies before ``target``: the parameter component ``l'`` of the unit
@@ -942,7 +954,7 @@ class _Tracer:
         eq = self._equations(new)
         secant = self._secant(last, new)
         size = arc.norm(eq, secant)
-        turning = size > 0 and abs(secant[-1]) / size < _TURNING
+        turning = size > 0 and abs(secant[-1]) / self._size() / size < _TURNING
         too_sharp = False
         if len(self.points) - self.since >= 2 and self._same_k(self.points[-2], last):
             before = self._carry(self._secant(self.points[-2], last), last, new)
@@ -1061,7 +1073,7 @@ class _Tracer:
                 eq = self._equations(accepted)  # a refined mesh, or a longer truncation
             z, tangent, here = accepted.z, accepted.tangent, accepted.value
             ds = ds * _GROW if its <= 3 and smooth else ds * (_SHRINK if its >= 8 else 1.0)
-            if abs(float(tangent[-1])) > _STRAIGHT and self.turned and abs(lam_new - lam_old) > 0:
+            if abs(float(tangent[-1])) / self._size() > _STRAIGHT and self.turned and abs(lam_new - lam_old) > 0:
                 self.direction = 1.0 if lam_new > lam_old else -1.0
                 self.edge = self.hi if self.direction > 0 else self.lo
                 return None
@@ -1187,7 +1199,7 @@ class _Tracer:
         fine_x = np.sort(np.concatenate([x, 0.5 * (x[1:] + x[:-1])]))
         y, pz = eq.split(z0)
         y_fine = hermite(self.free, x, y, pz, eq.k)(fine_x)
-        fine = CollocationEquations(self.free, fine_x, eq.k)
+        fine = self._on(fine_x, eq.k)
         t_fine = arc.carry(t0, eq.n, x, fine_x)
         start = fine.join(y_fine, pz)
         try:

@@ -326,6 +326,8 @@ class _Follower:
         mu0 = float(z[-1])
         self.bounds = (min(start, stop), max(start, stop))
         forward = self._leg(eq, z, stop, extra, 1.0) if stop != mu0 else []
+        if start != mu0:
+            self._borders(eq, z)  # a refinement on the forward leg left the borders of its finer mesh
         backward = self._leg(eq, z, start, extra, -1.0) if start != mu0 else []
         first = self._point(eq, z, 0.0)
         if any(abs(r - mu0) <= 1e-12 * max(1.0, abs(r)) for r in self.requested):

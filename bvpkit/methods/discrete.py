@@ -123,6 +123,26 @@ class SingularMatrix(RuntimeError):
     """The Newton matrix is exactly singular (or holds NaN or inf)."""
 
 
+#: Entries beyond this mark a diverging iterate: products of two of them overflow inside a
+#: sparse LU, and SuperLU then fails after its BLAS has printed complaints to standard output
+#: (seen in a trace whose corrector diverged to entries of 1e162), which would spoil --json.
+HUGE_ENTRY = 1e100
+
+
+def sparse_lu(matrix, what: str = "the Newton matrix", **options):  # noqa: ANN001, ANN201
+    """SuperLU of ``matrix`` (CSC); :class:`SingularMatrix` when it is exactly singular, holds
+    NaN or inf, or entries beyond :data:`HUGE_ENTRY`, checked before SuperLU sees it."""
+    data = matrix.data
+    if not np.isfinite(data).all():
+        raise SingularMatrix(f"{what} holds NaN or inf")
+    if data.size and float(np.max(np.abs(data))) > HUGE_ENTRY:
+        raise SingularMatrix(f"{what} holds entries beyond {HUGE_ENTRY:.0e} (a diverging iterate)")
+    try:
+        return splu(matrix, **options)
+    except RuntimeError as err:
+        raise SingularMatrix(str(err)) from None
+
+
 # States up to which the banded LU is used whatever the blocks hold; above, a sparse LU when the
 # blocks are sparse and their coupling is local (a small bandwidth once reordered), so that
 # SuperLU's fill stays small. Measured (benchmarks/scale.py, "crossover" and "large"): on the
@@ -379,13 +399,8 @@ def factor_blocks(left: np.ndarray, right: np.ndarray, parameters: np.ndarray | 
             2 * SPARSE_DENSITY * n * n
     if sparse_blocks:
         matrix = block_matrix(left, right, parameters, a, b, dp if n_p else None)
-        if not np.isfinite(matrix.data).all():
-            raise SingularMatrix("the Newton matrix holds NaN or inf")
         matrix.eliminate_zeros()
-        try:
-            return Factored(size, lu=splu(matrix))
-        except RuntimeError as err:
-            raise SingularMatrix(str(err)) from None
+        return Factored(size, lu=sparse_lu(matrix))
     from scipy.linalg.lapack import dgbtrf
 
     L, R, A, B, maps = _augmented(left, right, parameters, a, b, dp)
@@ -407,8 +422,11 @@ class CollocationEquations:
     ``y_mid = (y_i + y_i+1)/2 - h/8 (f_i+1 - f_i)``, then the boundary conditions.
     """
 
-    def __init__(self, compiled, x: np.ndarray, k: np.ndarray):  # noqa: ANN001
+    def __init__(self, compiled, x: np.ndarray, k: np.ndarray, sizes: np.ndarray | None = None):  # noqa: ANN001
         self.c, self.x, self.k = compiled, x, k
+        # the typical size of each unknown parameter in the weighted norm (1: as it is); a
+        # path follower gives its parameter's, so that its steps do not depend on the units
+        self.sizes = sizes
         self.n, self.m = compiled.n, x.size
         self.n_p = compiled.n_parameters
         self.h = np.diff(x)
@@ -425,7 +443,8 @@ class CollocationEquations:
     @property
     def weights(self) -> np.ndarray:
         if self._weights is None:
-            self._weights = np.concatenate([np.repeat(node_weights(self.x), self.n), np.ones(self.n_p)])
+            sizes = np.ones(self.n_p) if self.sizes is None else np.asarray(self.sizes, float)
+            self._weights = np.concatenate([np.repeat(node_weights(self.x), self.n), 1.0 / sizes**2])
         return self._weights
 
     def row_scale(self) -> np.ndarray:
@@ -506,12 +525,7 @@ class CollocationEquations:
         with one_blas_thread(self.n):
             if self._sparse_blocks:
                 matrix = self._sparse_matrix(y, p, ym, scale)
-                if not np.isfinite(matrix.data).all():
-                    raise SingularMatrix("the collocation matrix holds NaN or inf")
-                try:
-                    return Factored(self.n * self.m + self.n_p, lu=splu(matrix))
-                except RuntimeError as err:
-                    raise SingularMatrix(str(err)) from None
+                return Factored(self.n * self.m + self.n_p, lu=sparse_lu(matrix, "the collocation matrix"))
             left, right, pblock, (a, b, dp) = self._blocks(y, p, ym)
             return factor_blocks(left, right, pblock, a, b, dp if self.n_p else None, scale, False)
 

@@ -32,11 +32,10 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.sparse.linalg import splu
 
 from ..errors import BvpkitError
 from ..methods.diagnostics import hermite
-from ..methods.discrete import CollocationEquations, SingularMatrix
+from ..methods.discrete import CollocationEquations, SingularMatrix, factor_blocks
 
 #: Relative step of the centred difference along the tangent (truncation ~ step**4 = 1e-12,
 #: round-off ~ 1e-16 / step = 1e-13 relative to the output's size).
@@ -135,17 +134,19 @@ class Tangents:
         freed = CollocationEquations(compiled.freeing(*names), t, self.k)
         own = CollocationEquations(compiled, t, self.k)
         z = own.join(y, p)
-        size = z.size
+        n_p = own.n_p
         for _ in range(steps):
-            full = np.concatenate([z, self.k[self.indices]])
-            r = freed.residual(full)
+            r = own.residual(z)
             if not np.isfinite(r).all():
                 raise SingularMatrix("the collocation equations are not finite at the solution")
-            matrix = freed.jacobian(full).tocsc()
-            try:
-                lu = splu(matrix[:, :size])
-            except RuntimeError:
-                raise SingularMatrix("the Newton matrix at the solution is singular") from None
+            # one evaluation of the Jacobian blocks with the constants freed: the states' and
+            # parameters' columns make the Newton matrix (LU by the solver's own banded or
+            # sparse path), the constants' columns the right-hand sides of the tangents
+            ys, ps = own.split(z)
+            left, right, columns, (a, b, dp) = freed._blocks(ys, np.concatenate([ps, self.k[self.indices]]))
+            with np.errstate(all="ignore"):
+                lu = factor_blocks(left, right, columns[:, :, :n_p] if n_p else None, a, b,
+                                   dp[:, :n_p] if n_p else None)
             step = lu.solve(r)
             if not np.isfinite(step).all():
                 raise SingularMatrix("the Newton matrix at the solution is singular")
@@ -153,7 +154,9 @@ class Tangents:
             if np.max(np.abs(step) / (1.0 + np.abs(z))) < _POLISH_TOL:
                 break
         self.y, self.p = own.split(z)
-        dz = lu.solve(-matrix[:, size:].toarray())
+        m_intervals, n = left.shape[0], left.shape[1]
+        constant_columns = np.concatenate([columns[:, :, n_p:].reshape(m_intervals * n, -1), dp[:, n_p:]])
+        dz = lu.solve(-constant_columns)
         if not np.isfinite(dz).all():
             raise SingularMatrix("the Newton matrix at the solution is singular")
         self.dy = [own.split(dz[:, j])[0] for j in range(dz.shape[1])]

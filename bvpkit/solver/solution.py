@@ -279,7 +279,8 @@ class Solution:
             f"error estimate {_fmt_err(d.error_estimate)}",
         ]
         if d.truncation_length is not None:
-            facts.append(f"infinity placed at {d.truncation_length:.4g}")
+            a, b = self.interpolant.ends
+            facts.append(f"solved on [{a:.4g}, {b:.4g}] for its infinite domain")
         if d.condition is not None:
             facts.append(f"stability constant {d.condition:.2g}")
         facts.append(f"{d.seconds:.3g} s")
