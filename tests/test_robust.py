@@ -315,3 +315,18 @@ def test_a_named_path_that_turns_twice_is_followed_around_its_folds():
     second = (named.evaluate("y'", at=x + h) - named.evaluate("y'", at=x - h)) / (2 * h)
     y = named.evaluate("y", at=x)
     assert np.max(np.abs(second + 6.0 * np.exp(y / (1 + y / 6.0)))) < 1e-3 * np.max(np.abs(second))
+
+
+def test_a_mesh_limit_at_a_tight_tolerance_calls_the_higher_order_next():
+    # van der Pol's limit cycle at mu = 1, tol 1e-11: the fourth order meets the mesh limit with
+    # Newton converged on every mesh; continuation from the linear oscillator then ended on the
+    # resting state (period undetermined) and the solve gave up with "ill-conditioned". The sixth
+    # order, tried next, needs about 5,000 nodes.
+    p = bvpkit.Problem(["u'' - mu*(1 - u**2)*u' + u = 0"], ["u(0) = u(T)", "u'(0) = u'(T)"], (0, "T"),
+                       constants={"mu": 1.0}, unknown_parameters={"T": 6.5}, guess={"u": "2*cos(2*pi*x/T)"})
+    sol = bvpkit.solve(p, tol=1e-11)
+    assert sol.success, sol.message
+    assert [a.method for a in sol.diagnostics.attempts] == ["collocation", "collocation6"]
+    assert "higher order" in sol.diagnostics.attempts[1].reason
+    # the period of van der Pol's cycle at mu = 1: 6.6632868593 (from memory; our tol 1e-10 solve agrees)
+    assert sol.parameters["T"] == pytest.approx(6.6632868593, abs=1e-9)

@@ -124,6 +124,9 @@ class Outcome:
         Registry name of the method that produced it (set by the selector).
     workspace : object
         The method's own state, read by its own ``_refine`` only (a typed record per method).
+    resolution : bool
+        A ``mesh_limit`` met with Newton's method converged on every mesh: the mesh could not
+        be made fine enough (a higher order may), not a start too far from a solution.
     """
 
     status: Status
@@ -138,6 +141,7 @@ class Outcome:
     reference: Outcome | None = None
     method: str = ""
     workspace: object = None
+    resolution: bool = False
 
     @property
     def ok(self) -> bool:

@@ -431,7 +431,8 @@ class Collocation(Method):
             message = "the collocation Newton matrix is singular; " + status.hint
         else:
             message = "Newton's method did not meet the boundary-condition tolerance; " + status.hint
-        return Outcome(status, message, x, y, p, iterations=int(iterations))
+        return Outcome(status, message, x, y, p, iterations=int(iterations),
+                       resolution=status is Status.MESH_LIMIT and settled)
 
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
         """A more accurate solution for the error estimate: the deferred correction of the

@@ -110,6 +110,8 @@ _PATIENCE = 2
 #: system stops it after this much more (seconds, or this part of the share if longer).
 _GRACE, _GRACE_SHARE = 0.5, 0.25
 # Failures that continuation from an easier problem can cure: Newton found no solution.
+#: Tolerances at or below which a mesh limit met with Newton converged calls a higher order next.
+_TIGHT_RESOLUTION = 1e-8
 _NEWTON_FAILED = (Status.NOT_CONVERGED, Status.MESH_LIMIT, Status.SINGULAR, Status.NON_FINITE)
 
 
@@ -288,6 +290,17 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
             stalled.append(result.status)
         if outcome is None or _better(result, outcome):
             outcome = result
+        if auto and result.resolution and trial.tol <= _TIGHT_RESOLUTION:
+            # the mesh limit met with Newton converged everywhere at a tight tolerance: the nodes
+            # a higher order needs fall as tol**(1/order); a higher order next (at loose
+            # tolerances the limit is a layer, where the adaptive integrators of shooting help)
+            order = methods.get(result.method or step.name).order
+            rest = steps[i + 1:]
+            higher = [s for s in rest if not s.continuation and methods.get(s.name).order > order]
+            reason = (f"{_label(attempts[-1])} met the mesh limit with Newton converged on every mesh at the "
+                      f"tight tolerance {trial.tol:.2g}: a higher order needs fewer nodes")
+            steps[i + 1:] = ([dataclasses.replace(s, reason=reason) for s in higher]
+                             + [s for s in rest if s not in higher])
         if auto and _hopeless(result, trial):
             ended = ("double precision bounds the accuracy here (round-off times the stability constant), so "
                      "no other method was tried")
@@ -353,8 +366,8 @@ def _continue(outcome: Outcome | None, nonlinear) -> bool:  # noqa: ANN001 - () 
     """Whether the failure seen calls for continuation: Newton found no solution (or the
     equations overflowed along the guess). The mesh limit of a linear problem is a layer the
     mesh could not resolve, which no easier start cures."""
-    if outcome is None or outcome.status not in _NEWTON_FAILED:
-        return False
+    if outcome is None or outcome.status not in _NEWTON_FAILED or outcome.resolution:
+        return False  # a mesh that could not be made fine enough: no easier start cures it
     return outcome.status is not Status.MESH_LIMIT or nonlinear()
 
 
