@@ -329,3 +329,17 @@ def test_a_mesh_limit_at_a_tight_tolerance_calls_the_higher_order_next():
     assert "higher order" in sol.diagnostics.attempts[1].reason
     # the period of van der Pol's cycle at mu = 1: 6.6632868593 (from memory; our tol 1e-10 solve agrees)
     assert sol.parameters["T"] == pytest.approx(6.6632868593, abs=1e-9)
+
+
+def test_a_continuation_that_lands_on_a_singular_solution_does_not_end_the_search():
+    # van der Pol at mu = 3 from a circle: Newton fails from the guess, and continuation from the
+    # linear oscillator lands on the resting state u = 0, where the period is undetermined (stability
+    # constant ~1e47). That was reported as an ill-conditioned problem; the other methods go on and
+    # multiple shooting finds the cycle.
+    p = bvpkit.Problem(["u'' - mu*(1 - u**2)*u' + u = 0"], ["u(0) = u(T)", "u'(0) = u'(T)"], (0, "T"),
+                       constants={"mu": 3.0}, unknown_parameters={"T": 8.0}, guess={"u": "2*cos(2*pi*x/T)"})
+    sol = bvpkit.solve(p, tol=1e-6)
+    assert sol.status is bvpkit.Status.SOLVED, sol.message
+    # the period of van der Pol's cycle at mu = 3: 8.8591 (from memory)
+    assert sol.parameters["T"] == pytest.approx(8.8591, abs=2e-4)
+    assert any(a.status == "singular_jacobian" and "resting state" in a.message for a in sol.diagnostics.attempts)

@@ -277,6 +277,14 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
                                 message=result.message, iterations=result.iterations,
                                 nodes=int(result.x.size), seconds=time.perf_counter() - start, domain=domain,
                                 error_estimate=result.error_estimate))
+        if result.ok and result.condition is not None and result.condition * _ROUNDING >= 1.0:
+            # converged where the problem is singular (round-off alone moves the answer by its own
+            # size): not a solution to report while other methods may find a regular one
+            result.status = Status.SINGULAR
+            result.message = (f"{result.message}, but the problem is singular at that solution (stability "
+                              f"constant {result.condition:.2g}): it is not determined there, as a periodic "
+                              "orbit's period is not at the resting state it circles")
+            attempts[-1].status, attempts[-1].message = result.status.word, result.message
         if result.ok:
             conflict = _disagreement(result, converged, trial)
             if conflict is None:
