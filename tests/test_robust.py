@@ -336,3 +336,28 @@ def test_a_mesh_limit_at_a_tight_tolerance_calls_the_higher_order_next():
     assert "higher order" in sol.diagnostics.attempts[1].reason
     # the period of van der Pol's cycle at mu = 1: 6.6632868593 (from memory; our tol 1e-10 solve agrees)
     assert sol.parameters["T"] == pytest.approx(6.6632868593, abs=1e-9)
+
+
+def test_a_continuation_that_lands_on_a_singular_solution_does_not_end_the_search():
+    # van der Pol at mu = 3 from a circle: Newton fails from the guess, and continuation from the
+    # linear oscillator lands on the resting state u = 0, where the period is undetermined (stability
+    # constant ~1e47). That was reported as an ill-conditioned problem; the other methods go on and
+    # multiple shooting finds the cycle.
+    p = bvpkit.Problem(["u'' - mu*(1 - u**2)*u' + u = 0"], ["u(0) = u(T)", "u'(0) = u'(T)"], (0, "T"),
+                       constants={"mu": 3.0}, unknown_parameters={"T": 8.0}, guess={"u": "2*cos(2*pi*x/T)"})
+    sol = bvpkit.solve(p, tol=1e-6)
+    assert sol.status is bvpkit.Status.SOLVED, sol.message
+    # the period of van der Pol's cycle at mu = 3: 8.8591 (from memory)
+    assert sol.parameters["T"] == pytest.approx(8.8591, abs=2e-4)
+    assert any(a.status == "singular_jacobian" and "resting state" in a.message for a in sol.diagnostics.attempts)
+
+
+def test_a_residual_at_its_round_off_floor_calls_the_higher_order_next():
+    # mode 5 of y'' + lam y = 0 at tol 1e-10: the fourth order's residual reaches its round-off
+    # floor on ~14,000 nodes (precision_limit); that verdict ended the search, but the sixth order
+    # meets the tolerance on far fewer nodes. analytic: lam = 25 pi^2
+    p = bvpkit.Problem(["y'' + lam*y = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1), eigenvalue="lam", mode=5)
+    sol = bvpkit.solve(p, tol=1e-10)
+    assert sol.success, sol.message
+    assert sol.parameters["lam"] == pytest.approx(25 * math.pi**2, abs=1e-8)
+    assert sol.diagnostics.attempts[-1].method == "collocation6"

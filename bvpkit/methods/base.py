@@ -125,8 +125,10 @@ class Outcome:
     workspace : object
         The method's own state, read by its own ``_refine`` only (a typed record per method).
     resolution : bool
-        A ``mesh_limit`` met with Newton's method converged on every mesh: the mesh could not
-        be made fine enough (a higher order may), not a start too far from a solution.
+        A ``mesh_limit`` met with Newton's method converged on every mesh, or a residual at its
+        round-off floor on a fine mesh (``precision_limit`` of the residual control): the mesh
+        could not be made fine enough (a higher order, on fewer nodes, may), not a start too far
+        from a solution.
     """
 
     status: Status

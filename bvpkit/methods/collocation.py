@@ -432,7 +432,7 @@ class Collocation(Method):
         else:
             message = "Newton's method did not meet the boundary-condition tolerance; " + status.hint
         return Outcome(status, message, x, y, p, iterations=int(iterations),
-                       resolution=status is Status.MESH_LIMIT and settled)
+                       resolution=(status is Status.MESH_LIMIT and settled) or code == 4)
 
     def _refine(self, trial: Trial, outcome: Outcome) -> Outcome:
         """A more accurate solution for the error estimate: the deferred correction of the

@@ -277,6 +277,14 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
                                 message=result.message, iterations=result.iterations,
                                 nodes=int(result.x.size), seconds=time.perf_counter() - start, domain=domain,
                                 error_estimate=result.error_estimate))
+        if result.ok and result.condition is not None and result.condition * _ROUNDING >= 1.0:
+            # converged where the problem is singular (round-off alone moves the answer by its own
+            # size): not a solution to report while other methods may find a regular one
+            result.status = Status.SINGULAR
+            result.message = (f"{result.message}, but the problem is singular at that solution (stability "
+                              f"constant {result.condition:.2g}): it is not determined there, as a periodic "
+                              "orbit's period is not at the resting state it circles")
+            attempts[-1].status, attempts[-1].message = result.status.word, result.message
         if result.ok:
             conflict = _disagreement(result, converged, trial)
             if conflict is None:
@@ -290,6 +298,7 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
             stalled.append(result.status)
         if outcome is None or _better(result, outcome):
             outcome = result
+        promoted = False
         if auto and result.resolution and trial.tol <= _TIGHT_RESOLUTION:
             # the mesh limit met with Newton converged everywhere at a tight tolerance: the nodes
             # a higher order needs fall as tol**(1/order); a higher order next (at loose
@@ -297,11 +306,12 @@ def run(trial: Trial, method: str = "auto", domain: tuple[float, float] = (0.0, 
             order = methods.get(result.method or step.name).order
             rest = steps[i + 1:]
             higher = [s for s in rest if not s.continuation and methods.get(s.name).order > order]
-            reason = (f"{_label(attempts[-1])} met the mesh limit with Newton converged on every mesh at the "
-                      f"tight tolerance {trial.tol:.2g}: a higher order needs fewer nodes")
+            reason = (f"{_label(attempts[-1])} could not make its mesh fine enough at the tight tolerance "
+                      f"{trial.tol:.2g} (Newton converged on every mesh): a higher order needs fewer nodes")
             steps[i + 1:] = ([dataclasses.replace(s, reason=reason) for s in higher]
                              + [s for s in rest if s not in higher])
-        if auto and _hopeless(result, trial):
+            promoted = bool(higher)
+        if auto and _hopeless(result, trial) and not promoted:
             ended = ("double precision bounds the accuracy here (round-off times the stability constant), so "
                      "no other method was tried")
             break
