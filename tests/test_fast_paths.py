@@ -269,6 +269,46 @@ def test_the_sixth_order_method_converges_at_order_six():
     assert 5.6 < order < 6.6, (order, errors)
 
 
+def test_the_sixth_order_defect_estimate_tracks_the_true_error_between_the_output_points():
+    # the estimate that picks the next mesh without a second solve (it never accepts one) must
+    # follow the true error of the interpolant a Solution evaluates, within a small factor
+    from bvpkit.methods.collocation6 import _newton, _positions
+    from bvpkit.methods.diagnostics import Hermite
+
+    prepared = bvpkit.prepare(bratu())
+    c, k = prepared.compiled, prepared.k()
+    t = bratu_t(1.0, "upper")
+
+    def exact(s):  # analytic: y = -2 log(cosh((x - 1/2) t/2) / cosh(t/4)), y' = -t tanh((x - 1/2) t/2)
+        return np.vstack([-2 * np.log(np.cosh((s - 0.5) * t / 2) / np.cosh(t / 4)), -t * np.tanh((s - 0.5) * t / 2)])
+
+    for m in (9, 17, 33):
+        x = np.linspace(0, 1, m)
+        y = np.vstack([16 * x * (1 - x), np.zeros(m)])
+        stages = _positions(x)
+        solved = _newton(c, x, y, np.stack([16 * stages * (1 - stages), np.zeros_like(stages)]), np.zeros(0), k, 1e-13)
+        expected = solved.defect_estimate(c, k)
+        xo, yo = solved.output()
+        mid = 0.5 * (xo[1:] + xo[:-1])
+        F = solved.slopes(c, k)
+        slopes = np.empty_like(yo)
+        slopes[:, ::3] = np.concatenate([F[:, :, 0], F[:, -1:, 3]], axis=1)
+        slopes[:, 1::3], slopes[:, 2::3] = F[:, :, 1], F[:, :, 2]
+        truth = exact(mid)
+        error = np.max(np.abs(Hermite(xo, yo, slopes)(mid) - truth) / (1 + np.abs(truth)), axis=0)
+        worst = np.max(error.reshape(m - 1, 3), axis=1)  # per interval of the mesh
+        # measured 1.0-2.5 on every interval (m = 9, 17, 33): the leading-order terms hold here
+        assert np.all((expected >= 0.5 * worst) & (expected <= 5 * worst)), (m, expected / worst)
+
+
+def test_the_sixth_order_takes_a_guess_that_already_solves_the_problem():
+    # the zero guess of y'' = 0 with zero ends is the answer (analytic:
+    # y = 0); its residual is exactly zero, which the Newton iteration's contraction must take
+    sol = bvpkit.solve(bvpkit.Problem(["y'' = 0"], ["y(0) = 0", "y(1) = 0"], (0, 1)), method="collocation6", tol=1e-6)
+    assert sol.success, sol.message
+    assert np.max(np.abs(sol.evaluate("y", at=np.linspace(0, 1, 5)))) == 0.0
+
+
 def test_a_sparse_lu_of_a_diverged_iterate_is_refused_before_superlu_sees_it(capfd):
     # entries of 1e162 (seen when a trace's corrector diverged): SuperLU's BLAS printed complaints
     # to standard output and then failed; refused first, quietly, as a singular matrix

@@ -12,13 +12,17 @@ meets the equations at the four Lobatto points ``c = 0, (5 - sqrt 5)/10, (5 + sq
 Newton's method on the nodes, the two interior stages and the parameters; the stages are
 eliminated interval by interval (batched dense solves, no Python work per interval), which
 leaves the bordered block-bidiagonal matrix of 4th-order collocation for the nodes,
-factored by :func:`bvpkit.methods.discrete.factor_blocks`.
+factored by :func:`bvpkit.methods.discrete.factor_blocks`; while Newton's method contracts
+fast, simplified steps reuse those factors.
 
-Error control and estimate: every solve is repeated on the halved mesh; their difference,
-at the output points and between them (through the C1 cubic interpolant a ``Solution``
-evaluates), estimates the error of the coarser one, which is the one returned (so the
-estimate is that of the answer given, not a guess at a better one). Intervals whose share
-misses the tolerance are split by the factor the method's order predicts. The output holds
+Error control and estimate: a solve whose own defect estimate (the C1 cubic a ``Solution``
+evaluates against the collocation polynomial, and the polynomial's error from its defect at
+the interval midpoints) is far above the tolerance is refined by it at once; a solve expected
+to pass is repeated on the halved mesh, and their difference, at the output points and between
+them (through the C1 cubic interpolant), estimates the error of the coarser one, which is the
+one returned (so the estimate is that of the answer given, not a guess at a better one). Only
+that comparison accepts an answer. Intervals whose share misses the tolerance are split by the
+factor the method's order predicts. The output holds
 the nodes and the interior Lobatto points, so the cubic interpolant between them keeps up
 with the method's accuracy.
 """
@@ -34,7 +38,7 @@ import numpy as np
 from ..language.options import TOL_FLOOR
 from ..status import Status
 from .base import Method, Outcome, Trial
-from .diagnostics import hermite, stability_constant
+from .diagnostics import Hermite, stability_constant
 from .discrete import SingularMatrix, factor_blocks, one_blas_thread
 from .features import seeded
 
@@ -57,7 +61,15 @@ _A = _lagrange_integrals(_C, _C)  # Lobatto IIIA: A[j, l] = integral_0^{c_j} L_l
 _W = np.linalg.solve(np.vander(np.linspace(0, 1, 5), 5, increasing=True),
                      _lagrange_integrals(_C, np.linspace(0, 1, 5)))
 _B = _A[-1]  # 1/12, 5/12, 5/12, 1/12
+# the midpoints of the three pieces an interval's output points cut it into, and the middle
+_PIECE_MIDS = np.array([0.5 * _C[1], 0.5, 0.5 * (_C[2] + 1.0)])
+_W_MIDS = np.vander(_PIECE_MIDS, 5, increasing=True) @ _W  # (3, 4): W_j at those points
+_L_MID = (np.vander([0.5], 4, increasing=True) * np.arange(1, 5)) @ _W[1:]  # (1, 4): L_j(1/2)
 _MAX_NEWTON = 16
+# Simplified Newton steps (the last factors kept) are taken while the contraction seen promises
+# convergence within this many of them: a simplified step costs a residual and batched products,
+# about 0.4 of a full one (Blasius, 21 to 453 intervals), but converges only linearly.
+_REUSE_STEPS = 2
 _MAX_ROUNDS = 12
 _SAFETY = 0.5  # a round is accepted at this share of the tolerance
 _AIM = 0.1  # ... and a refinement aims at this share: one more node now is cheaper than one more round
@@ -67,6 +79,16 @@ _REUSE = 0.5  # share of intervals to be halved above which the halved mesh (sol
 # the order predicts (at 1e-12 a first round on 20 intervals was wasted work).
 _FIRST_NODES, _FIRST_TOL = 20, 1e-6
 _ORDER = 5  # exponent of the split prediction: the nodes converge at 6, the interpolant between them at 5
+# The defect estimate of a round (:meth:`_Discrete.defect_estimate`): the defect of the
+# collocation polynomial at an interval's midpoint is ``d = -h**4 y5 w(1/2) / 24`` to leading
+# order (``w`` the node polynomial of c, ``y5`` the fifth derivative), and the polynomial's error
+# ``h**5 y5 / 24 * integral_0^theta w``, so the error is at most ``_DEFECT_GAIN * h * |d|``:
+_OMEGA = np.poly1d(np.poly(_C))
+_DEFECT_GAIN = float(np.max(np.abs(np.polyint(_OMEGA)(np.linspace(0, 1, 1001)))) / abs(_OMEGA(0.5)))  # 0.143
+# The estimate stands for the error of the polynomials only where the Jacobian changes the
+# error little across an interval (h |J| below this); on a stiff mesh every round is checked
+# against the halved mesh, as before.
+_SMOOTH = 10.0
 
 
 def _positions(x: np.ndarray) -> np.ndarray:
@@ -93,6 +115,7 @@ class _Discrete:
     iterations: int
     lu: object = None  # the last Newton matrix, factored (rows in derivative units)
     scale: np.ndarray | None = None
+    reach: float = math.inf  # the largest h |J| (row sums) over the intervals, from the last Newton matrix
     _slopes: np.ndarray | None = dataclasses.field(default=None, repr=False)
 
     def output(self) -> tuple[np.ndarray, np.ndarray]:
@@ -113,6 +136,25 @@ class _Discrete:
         F = self.slopes(compiled, k)  # (n, m-1, 4)
         return self.y[:, i] + h[i] * np.einsum("nij,ij->ni", F[:, i, :], W)
 
+    def defect_estimate(self, compiled, k: np.ndarray) -> np.ndarray:  # noqa: ANN001
+        """Per interval, the largest relative error of the output expected from this solve
+        alone, ``(m-1,)``: the C1 cubic through the output points against the collocation
+        polynomial at the middles of its three pieces, plus the polynomial's own error from its
+        defect ``u' - f(x, u)`` at the interval's midpoint (``_DEFECT_GAIN h |d|``, leading
+        order). It chooses the next mesh without solving the halved one; it never accepts one."""
+        h = np.diff(self.x)
+        F = self.slopes(compiled, k)  # (n, m-1, 4)
+        left = self.y[:, :-1, None]
+        u = left + h[None, :, None] * np.einsum("nij,sj->nis", F, _W_MIDS)  # (n, m-1, 3)
+        values = np.concatenate([left, self.z, self.y[:, 1:, None]], axis=2)  # at the output points
+        widths = h[None, :, None] * np.diff(_C)[None, None, :]
+        cubic = 0.5 * (values[:, :, 1:] + values[:, :, :-1]) + widths / 8 * (F[:, :, :-1] - F[:, :, 1:])
+        size = 1 + np.abs(u)
+        between = np.max(np.abs(cubic - u) / size, axis=(0, 2))
+        slope = np.einsum("nij,j->ni", F, _L_MID[0])  # u' at the midpoints
+        defect = slope - compiled.rhs(self.x[:-1] + 0.5 * h, u[:, :, 1], self.p, k)
+        return between + _DEFECT_GAIN * h * np.max(np.abs(defect) / size[:, :, 1], axis=0)
+
     def slopes(self, compiled, k: np.ndarray) -> np.ndarray:  # noqa: ANN001
         """``f`` at the four Lobatto points of every interval, ``(n, m-1, 4)`` (computed once)."""
         if self._slopes is None:
@@ -130,25 +172,40 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
             tol: float) -> _Discrete:
     """Damped Newton on the 4-stage Lobatto IIIA equations of one mesh, stages condensed.
 
+    Each full iteration forms the Jacobians at the nodes and stages in one call, inverts the
+    ``2n x 2n`` stage blocks of all intervals in one batched call and factors the condensed
+    node system (:func:`factor_blocks`). While the contraction seen (of the residual after a
+    full step, of the steps after a simplified one) promises a step below the threshold within
+    ``_REUSE_STEPS`` steps, the next step reuses those factors (a simplified Newton step: a
+    residual, batched products and a solve with the factors kept); a simplified step that does
+    not lower the residual is discarded and the matrix formed afresh. A solve ends on a
+    full-length step below the threshold, a full Newton step or a simplified one that at least
+    halved the step before it, so the step bounds the error left.
+
     Raises :class:`SingularMatrix` on a singular matrix, ``ArithmeticError`` when it does not
     converge.
     """
     n, m = y.shape
     n_p = p.size
     h = np.diff(x)
-    hh = h[:, None, None]
-    stage_x = _positions(x).ravel()
-    eye = np.eye(n)
+    points = np.concatenate([x, _positions(x).ravel()])  # the nodes, then the stages interval by interval
     threshold = max(1e-2 * tol, 1e-13)
     scale = np.concatenate([np.repeat(1.0 / h, n), np.ones(n + n_p)])
+    eye2 = np.eye(2 * n)
+    eye = np.eye(n)
+    hA = h[:, None, None] * _A[None, 1:3, :]  # (m-1, 2, 4): h a_sl for the two interior stages
+    hB = h[:, None] * _B[None, :]  # (m-1, 4)
+    width = 2 * n + n_p + 1  # columns of the condensed blocks: y_i, y_i+1, p, the residual
+
+    def values(y, z):  # noqa: ANN001, ANN202 - states at every point, in the order of ``points``
+        return np.concatenate([y, z.reshape(n, -1)], axis=1)
 
     def residual(y, z, p):  # noqa: ANN001, ANN202
-        fn = compiled.rhs(x, y, p, k)
-        fs = compiled.rhs(stage_x, z.reshape(n, -1), p, k).reshape(n, m - 1, 2)
-        F = np.stack([fn[:, :-1], fs[:, :, 0], fs[:, :, 1], fn[:, 1:]], axis=2)  # (n, m-1, 4)
-        increments = h[None, :, None] * np.einsum("nij,sj->nis", F, _A[1:])  # (n, m-1, 3)
-        gs = z - y[:, :-1, None] - increments[:, :, :2]  # (n, m-1, 2)
-        ge = y[:, 1:] - y[:, :-1] - increments[:, :, 2]  # (n, m-1)
+        f = compiled.rhs(points, values(y, z), p, k)
+        fs = f[:, m:].reshape(n, m - 1, 2)
+        F = np.stack([f[:, :m - 1], fs[:, :, 0], fs[:, :, 1], f[:, 1:m]], axis=2)  # (n, m-1, 4)
+        gs = z - y[:, :-1, None] - np.einsum("nij,isj->nis", F, hA)  # (n, m-1, 2)
+        ge = y[:, 1:] - y[:, :-1] - np.einsum("nij,ij->ni", F, hB)  # (n, m-1)
         return gs, ge, compiled.bc(y[:, 0], y[:, -1], p, k)
 
     def size(gs, ge, bc):  # noqa: ANN001, ANN202 - residuals in derivative units
@@ -157,52 +214,51 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
 
     gs, ge, bc = residual(y, z, p)
     norm = size(gs, ge, bc)
+    reuse, last, rows_bound = False, math.inf, None
     for iteration in range(1, _MAX_NEWTON + 1):
         if not math.isfinite(norm):
             raise ArithmeticError("the residual holds NaN or inf")
-        Jn = np.moveaxis(compiled.jac(x, y, p, k), -1, 0)  # (m, n, n)
-        Js = np.moveaxis(compiled.jac(stage_x, z.reshape(n, -1), p, k), -1, 0).reshape(m - 1, 2, n, n)
-        Jl, Jr = Jn[:-1], Jn[1:]
-        # stage rows (s = 1, 2 of the interior stages): d/dZ, d/dy_i, d/dy_i+1
-        Kss = np.empty((m - 1, 2 * n, 2 * n))
-        Ksi = np.empty((m - 1, 2 * n, n))
-        Ksr = np.empty((m - 1, 2 * n, n))
-        for s in range(2):
-            rows = slice(s * n, (s + 1) * n)
-            for l in range(2):
-                Kss[:, rows, l * n:(l + 1) * n] = (eye if s == l else 0.0) - hh * _A[s + 1, l + 1] * Js[:, l]
-            Ksi[:, rows] = -eye - hh * _A[s + 1, 0] * Jl
-            Ksr[:, rows] = -hh * _A[s + 1, 3] * Jr
-        KeY = np.concatenate([-hh * _B[1] * Js[:, 0], -hh * _B[2] * Js[:, 1]], axis=2)  # (m-1, n, 2n)
-        Kei = -eye - hh * _B[0] * Jl
-        Ker = eye - hh * _B[3] * Jr
-        gs_flat = np.moveaxis(gs, 1, 0).transpose(0, 2, 1).reshape(m - 1, 2 * n)  # rows (stage, state)
-        columns = [Ksi, Ksr]
-        if n_p:
-            Pn = np.moveaxis(compiled.pjac(x, y, p, k), -1, 0)
-            Ps = np.moveaxis(compiled.pjac(stage_x, z.reshape(n, -1), p, k), -1, 0).reshape(m - 1, 2, n, n_p)
-            Ksp = np.concatenate([-hh * (_A[s + 1, 0] * Pn[:-1] + _A[s + 1, 1] * Ps[:, 0] + _A[s + 1, 2] * Ps[:, 1]
-                                         + _A[s + 1, 3] * Pn[1:]) for s in range(2)], axis=1)
-            Kep = -hh * (_B[0] * Pn[:-1] + _B[1] * Ps[:, 0] + _B[2] * Ps[:, 1] + _B[3] * Pn[1:])
-            columns.append(Ksp)
-        columns.append(gs_flat[:, :, None])
-        try:
-            X = np.linalg.solve(Kss, np.concatenate(columns, axis=2))
-        except np.linalg.LinAlgError:
-            raise SingularMatrix("a stage block is singular") from None
-        left = Kei - KeY @ X[:, :, :n]
-        right = Ker - KeY @ X[:, :, n:2 * n]
-        pblock = Kep - KeY @ X[:, :, 2 * n:2 * n + n_p] if n_p else None
-        rhs_e = ge.T - np.einsum("ijk,ik->ij", KeY, X[:, :, -1])
-        a, b, dp = compiled.bc_jac(y[:, 0], y[:, -1], p, k)
-        lu = factor_blocks(left, right, pblock, a, b, dp if n_p else None, scale)
+        if not reuse:
+            J = compiled.jac(points, values(y, z), p, k)  # (n, n, points)
+            Jn = np.moveaxis(J[:, :, :m], -1, 0)  # (m, n, n)
+            Js = np.moveaxis(J[:, :, m:], -1, 0).reshape(m - 1, 2, n, n)
+            Jl, Jr = Jn[:-1], Jn[1:]
+            JsT = Js.transpose(0, 2, 1, 3)  # (m-1, n, 2, n): [i, a, l, b]
+            # stage rows s = 1, 2: d/dZ_l = delta_sl - h a_sl J(Z_l), d/dy_i, d/dy_i+1, d/dp
+            Kss = eye2 - (hA[:, :, None, 1:3, None] * JsT[:, None]).reshape(m - 1, 2 * n, 2 * n)
+            cols = np.empty((m - 1, 2, n, width))
+            cols[:, :, :, :n] = -eye - hA[:, :, 0, None, None] * Jl[:, None]
+            cols[:, :, :, n:2 * n] = -hA[:, :, 3, None, None] * Jr[:, None]
+            if n_p:
+                P = np.moveaxis(compiled.pjac(points, values(y, z), p, k), -1, 0)  # (points, n, n_p)
+                Pn, Ps = P[:m], P[m:].reshape(m - 1, 2, n, n_p)
+                cols[:, :, :, 2 * n:2 * n + n_p] = -(hA[:, :, 0, None, None] * Pn[:-1, None]
+                                                     + np.einsum("isl,ilab->isab", hA[:, :, 1:3], Ps)
+                                                     + hA[:, :, 3, None, None] * Pn[1:, None])
+                Kep = -(hB[:, 0, None, None] * Pn[:-1] + np.einsum("il,ilab->iab", hB[:, 1:3], Ps)
+                        + hB[:, 3, None, None] * Pn[1:])
+            cols = cols.reshape(m - 1, 2 * n, width)
+            KeY = -(hB[:, None, 1:3, None] * JsT).reshape(m - 1, n, 2 * n)  # end rows, d/dZ
+            try:
+                inverse = np.linalg.inv(Kss)
+            except np.linalg.LinAlgError:
+                raise SingularMatrix("a stage block is singular") from None
+            X = inverse @ cols[:, :, :-1]  # the stages' response to y_i, y_i+1, p
+            KX = KeY @ X
+            left = -eye - hB[:, 0, None, None] * Jl - KX[:, :, :n]
+            right = eye - hB[:, 3, None, None] * Jr - KX[:, :, n:2 * n]
+            pblock = Kep - KX[:, :, 2 * n:] if n_p else None
+            a, b, dp = compiled.bc_jac(y[:, 0], y[:, -1], p, k)
+            lu = factor_blocks(left, right, pblock, a, b, dp if n_p else None, scale)
+            rows_bound = np.max(np.sum(np.abs(Jn), axis=2), axis=1)
+        gs_flat = gs.transpose(1, 2, 0).reshape(m - 1, 2 * n)  # rows (stage, state)
+        Xg = np.einsum("ijk,ik->ij", inverse, gs_flat)
+        rhs_e = ge.T - np.einsum("ijk,ik->ij", KeY, Xg)
         step = lu.solve(-scale * np.concatenate([rhs_e.ravel(), bc]))  # rows scaled as the matrix's
         dy = step[: n * m].reshape(m, n).T
         dp_ = step[n * m:]
-        dZ = -(X[:, :, -1] + np.einsum("ijk,ki->ij", X[:, :, :n], dy[:, :-1])
-               + np.einsum("ijk,ki->ij", X[:, :, n:2 * n], dy[:, 1:]))
-        if n_p:
-            dZ -= np.einsum("ijk,k->ij", X[:, :, 2 * n:2 * n + n_p], dp_)
+        known = np.concatenate([dy[:, :-1].T, dy[:, 1:].T, np.broadcast_to(dp_, (m - 1, n_p))], axis=1)
+        dZ = -(Xg + np.einsum("ijk,ik->ij", X, known))
         dz = dZ.reshape(m - 1, 2, n).transpose(2, 0, 1)
         alpha = 1.0
         while True:
@@ -212,14 +268,27 @@ def _newton(compiled, x: np.ndarray, y: np.ndarray, z: np.ndarray, p: np.ndarray
             new_norm = size(*parts)
             if new_norm < norm or (alpha == 1.0 and new_norm <= 10 * norm and norm < 1e-8) or alpha < 1 / 64:
                 break
+            if reuse:  # a simplified step that does not help: form the matrix afresh, step again
+                break
             alpha *= 0.5
-        if not math.isfinite(new_norm):
+        if not math.isfinite(new_norm) and not reuse:
             raise ArithmeticError("Newton's step ran into NaN or inf")
-        y, z, p, (gs, ge, bc), norm = y_new, z_new, p_new, parts, new_norm
         change = max(float(np.max(np.abs(alpha * dy) / (1 + np.abs(y)))),
                      float(np.max(np.abs(alpha * dp_) / (1 + np.abs(p)), initial=0.0)))
-        if alpha == 1.0 and change <= threshold:
-            return _Discrete(x, y, z, p, iteration, lu, scale)
+        if reuse and not (new_norm < norm or (new_norm <= 10 * norm and norm < 1e-8)):
+            reuse = False  # the kept factors no longer help: discard the step, form the matrix afresh
+            continue
+        # the contraction of this step: of the steps for a simplified one, else of the residual
+        after, before = (change, last) if reuse else (new_norm, norm)
+        rate = after / before if before > 0 else 0.0  # a residual of exactly zero (a zero solution) is converged
+        y, z, p, (gs, ge, bc), norm = y_new, z_new, p_new, parts, new_norm
+        if alpha == 1.0 and change <= threshold and (not reuse or rate <= 0.5):
+            h_rows = h * np.maximum(rows_bound[:-1], rows_bound[1:])
+            return _Discrete(x, y, z, p, iteration, lu, scale, float(np.max(h_rows, initial=0.0)))
+        # keep the factors while the contraction brings the step below the threshold within
+        # _REUSE_STEPS simplified steps (each costs a fraction of a full one)
+        reuse = alpha == 1.0 and change * rate ** _REUSE_STEPS <= threshold
+        last = change
     raise ArithmeticError(f"Newton's method did not converge in {_MAX_NEWTON} iterations")
 
 
@@ -230,6 +299,11 @@ def _split(x: np.ndarray, pieces: np.ndarray) -> np.ndarray:
     inner = x[owner] + np.diff(x)[owner] * j / pieces[owner]
     inner[np.cumsum(pieces) - 1] = x[1:]  # the old nodes exactly
     return np.concatenate([x[:1], inner])
+
+
+def _pieces(error: np.ndarray, tol: float) -> np.ndarray:
+    """Into how many pieces each interval is cut for its ``error`` to fall to ``_AIM * tol``."""
+    return np.clip(np.ceil((error / (_AIM * tol)) ** (1 / _ORDER)), 1, _MAX_SPLIT).astype(int)
 
 
 def _halved(x: np.ndarray) -> np.ndarray:
@@ -258,7 +332,11 @@ def _indicator(compiled, coarse: _Discrete, fine: _Discrete, k: np.ndarray) -> n
     xo, yo = coarse.output()
     mid = 0.5 * (xo[1:] + xo[:-1])
     points = np.concatenate([xo, mid])
-    mine = np.concatenate([yo, hermite(compiled, xo, yo, coarse.p, k)(mid)], axis=1)
+    F = coarse.slopes(compiled, k)  # f at the output points, as a Solution's interpolant takes them
+    slopes = np.empty_like(yo)
+    slopes[:, ::3], slopes[:, 1::3], slopes[:, 2::3] = np.concatenate([F[:, :, 0], F[:, -1:, 3]], axis=1), \
+        F[:, :, 1], F[:, :, 2]
+    mine = np.concatenate([yo, Hermite(xo, yo, slopes)(mid)], axis=1)
     theirs = fine.at(compiled, points, k)
     diff = np.max(np.abs(mine - theirs) / (1 + np.abs(theirs)), axis=0)
     if coarse.p.size:
@@ -287,12 +365,13 @@ class SixthOrderCollocation(Method):
     #: digit falls with the order).
     strengths = frozenset({"tight"})
     order = 6
-    #: Work per mesh node of a solve with its estimate against 4th-order collocation's: every
-    #: round solves the halved mesh too, and a node carries two stages. Measured with
-    #: benchmarks/collocation.py (sixth_order, tight_auto) on Blasius, Bratu, Troesch and a
-    #: beam: the sixth order is 1.0-1.4 times slower at tol 1e-10 and 1e-11 and 2 to 9 times
-    #: faster at 1e-12; 9 * tol**(1/4 - 1/6) = 1 places the break-even at 3.6e-12.
-    node_cost = 9.0
+    #: Work per mesh node of a solve with its estimate against 4th-order collocation's: the
+    #: last round solves the halved mesh too, and a node carries two stages. Measured with
+    #: benchmarks/collocation.py (sixth_order at 1e-10 and 1e-11, tight_auto) on Blasius, Bratu,
+    #: Troesch and a beam: the sixth order takes 0.97-1.18 times the fourth's time at 1e-10,
+    #: 0.08-1.01 at 1e-11 and 0.2-0.45 at 1e-12; 7.5 * tol**(1/4 - 1/6) = 1 places the
+    #: break-even at 3.2e-11.
+    node_cost = 7.5
 
     def _solve(self, trial: Trial) -> Outcome:
         c, k = trial.compiled, trial.k
@@ -328,6 +407,16 @@ class SixthOrderCollocation(Method):
                         iterations += coarse.iterations
                     else:  # the last round's halved mesh is this round's mesh: solved already
                         coarse, ready = ready, None
+                    if coarse.reach <= _SMOOTH:
+                        # a round whose own defect shows it far from the tolerance is refined at
+                        # once; the halved mesh is solved only to check a mesh expected to pass
+                        expected = coarse.defect_estimate(c, k)
+                        if np.all(np.isfinite(expected)) and expected.max() > _SAFETY * tol:
+                            new_x = _split(x, _pieces(expected, tol))
+                            if 3 * (2 * new_x.size - 2) + 1 <= trial.max_nodes:  # its halved mesh too
+                                y, z = _start(c, coarse, new_x, y0, x0, coarse.p, k)
+                                x, p, previous = new_x, coarse.p, coarse
+                                continue
                     fx = _halved(x)
                     fy, fz = _start(c, coarse, fx, y0, x0, coarse.p, k)
                     fine = _newton(c, fx, fy, fz, coarse.p, k, tol)
@@ -358,7 +447,7 @@ class SixthOrderCollocation(Method):
                     reference.condition = stability_constant(fine.lu, fine.lu.size, fine.scale)
                     outcome.workspace = _State(reference)
                     return outcome
-                pieces = np.clip(np.ceil((indicator / (_AIM * tol)) ** (1 / _ORDER)), 1, _MAX_SPLIT).astype(int)
+                pieces = _pieces(indicator, tol)
                 if pieces.max() <= 2 and np.mean(pieces == 2) >= _REUSE:
                     new_x, ready = fx, fine  # most intervals halved: take the halved mesh, solved already
                 else:
