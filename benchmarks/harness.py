@@ -102,6 +102,17 @@ class Child:
         self.stop()
         return "timeout", f"no answer within {timeout:g} s"
 
+    def prepare(self, name: str, args: tuple = (), timeout: float | None = None) -> str:
+        """Have the worker prepare problem ``name`` once (the job ``("prepare", name, *args)``):
+        '' when it is ready, else why not (a line for the report)."""
+        if name in self.prepared:
+            return ""
+        kind, reply = self.ask(("prepare", name, *args), timeout)
+        if kind == "ok":
+            self.prepared.add(name)
+            return ""
+        return f"preparation: {kind}: {str(reply).splitlines()[0]}"
+
     def stop(self) -> None:
         if self._proc is None:
             return

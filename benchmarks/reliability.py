@@ -360,13 +360,7 @@ def run(names: Sequence[str] | None = None, *, quick: bool = False, probes_only:
             reference = reference_grid(case) if case.kind == "exact" else (None, None, None)
             for tol in case_tols:
                 for method in case.methods or methods:
-                    failed = ""
-                    if case.name not in child.prepared:
-                        kind, reply = child.ask(("prepare", case.name, *reference), _UNTIMED)
-                        if kind == "ok":
-                            child.prepared.add(case.name)
-                        else:
-                            failed = f"preparation: {kind}: {str(reply).splitlines()[0]}"
+                    failed = child.prepare(case.name, reference, _UNTIMED)
                     if failed:
                         runs.append(Run(case.name, tol, method, "crashed", message=failed))
                         continue

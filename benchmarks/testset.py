@@ -287,12 +287,7 @@ def run(
             failed = ""
             for tol in tols:
                 for solver in solvers:
-                    if inst.name not in child.prepared and not failed:
-                        kind, reply = child.ask(("prepare", inst.name), PREPARE_TIMEOUT)
-                        if kind == "ok":
-                            child.prepared.add(inst.name)
-                        else:
-                            failed = f"preparation: {kind}: {str(reply).splitlines()[0]}"
+                    failed = failed or child.prepare(inst.name, (), PREPARE_TIMEOUT)
                     if failed:
                         runs.append(Run(inst.name, tol, solver, "crashed", message=failed))
                         continue
