@@ -145,6 +145,7 @@ def test_solve_with_a_sensitivity_table(capsys):
     ("x,theta\n0.1,abc\n", [], "is not a number"),
     ("y,theta\n0.1,3\n", [], "first column must be the independent variable 'x'"),
     ("x,theta\n0.1,3\n0.5,2\n", ["--vary", "q=1"], "'q', which is not a constant"),
+    ("x,theta\n0.1,3\n0.5,2\n", ["--vary", "h=abc"], "--vary expects NAME=NUMBER"),
     ("x,theta\n", [], "no measurements"),
 ])
 def test_fit_command_refuses_bad_files(tmp_path, capsys, csv_text, args, match):

@@ -218,9 +218,9 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _constants(pairs: list[str]) -> dict[str, float | complex]:
-    """``--set NAME=VALUE`` pairs; a value ending in ``j`` is complex, as Python writes it
-    (``--set w=0.5+2j``), for a complex constant."""
+def _constants(pairs: list[str], flag: str = "--set") -> dict[str, float | complex]:
+    """``--set NAME=VALUE`` pairs (or another ``flag``'s); a value ending in ``j`` is complex, as
+    Python writes it (``--set w=0.5+2j``), for a complex constant."""
     values: dict[str, float | complex] = {}
     for pair in pairs:
         name, sep, value = pair.partition("=")
@@ -230,7 +230,7 @@ def _constants(pairs: list[str]) -> dict[str, float | complex]:
             text = value.strip()
             values[name.strip()] = complex(text.replace(" ", "")) if text[-1:] in ("j", "J") else float(text)
         except ValueError:
-            raise OptionError(f"--set expects NAME=NUMBER (or a complex number such as 0.5+2j), got {pair!r}") from None
+            raise OptionError(f"{flag} expects NAME=NUMBER (or a complex number such as 0.5+2j), got {pair!r}") from None
     return values
 
 
@@ -630,7 +630,7 @@ def _fit(args: argparse.Namespace) -> tuple[int, Any]:
     if args.vary:
         vary: dict[str, Any] = {}
         for item in args.vary:
-            vary.update(_constants([p for p in item.split(",") if p.strip()]) if "=" in item else
+            vary.update(_constants([p for p in item.split(",") if p.strip()], "--vary") if "=" in item else
                         {n: None for n in _names(item, "--vary")})
         settings["vary"] = vary
     if not settings.get("vary"):
