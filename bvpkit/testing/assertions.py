@@ -138,13 +138,25 @@ def _condition_value(problem, solution, c: sp.Expr) -> float | None:  # noqa: AN
     for pv in problem.point_values(c):
         side = "-" if pv.side < 0 else "+" if pv.side > 0 else ""
         where = "inf" if pv.point == sp.oo else "-inf" if pv.point == -sp.oo else sp.sstr(pv.point)
-        swap[pv.node] = sp.sympify(solution.evaluate(pv.name + "'" * pv.order + "(" + where + side + ")"))
-    e = c.xreplace(swap).xreplace({sp.Symbol(k): sp.sympify(v)
-                                   for k, v in {**problem.constants, **solution.parameters}.items()})
+        swap[pv.node] = _number(solution.evaluate(pv.name + "'" * pv.order + "(" + where + side + ")"))
+    values = {**problem.constants, **solution.parameters}
+    e = c.xreplace(swap).xreplace({sp.Symbol(k): _number(v) for k, v in values.items() if _number(v) is not None})
     try:
         return complex(e) if e.has(sp.I) else float(e)
     except TypeError:
         return None
+
+
+def _number(value: Any) -> sp.Expr | None:
+    """A SymPy number from a numeric value (real or complex), built without parsing anything;
+    None for what is not a number (a list of region values)."""
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, int | float | np.integer | np.floating):
+        return sp.Float(float(value))
+    if isinstance(value, complex | np.complexfloating):
+        return sp.Float(float(value.real)) + sp.I * sp.Float(float(value.imag))
+    return None
 
 
 def assert_matches_exact(solution, case: Manufactured, *, factor: float = 10.0, floor: float = 1e-11) -> float:  # noqa: ANN001
