@@ -21,14 +21,16 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
 from collections.abc import Mapping
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from .._output import json_ready
 from ..errors import BvpkitError
 from ..reduce.mapping import positions
+from ..reduce.prepared import prepare
 from ..solver import driver
 from ..solver.solution import Solution, sampling
 from ..status import Status
@@ -112,19 +114,13 @@ class FitResult:
         return "\n".join(lines)
 
     def as_dict(self) -> dict[str, Any]:
-        def plain(v: float) -> float | None:
-            return float(v) if math.isfinite(v) else None
-
-        def matrix(a: np.ndarray | None) -> list | None:
-            return None if a is None else [[plain(v) for v in row] for row in a]
-
-        return {"success": self.success, "status": self.status.word, "message": self.message,
-                "values": {k: plain(v) for k, v in self.values.items()},
-                "errors": {k: plain(v) for k, v in self.errors.items()},
-                "names": list(self.names), "covariance": matrix(self.covariance),
-                "correlation": matrix(self.correlation), "determined": self.determined,
-                "chi_square": plain(self.chi_square), "degrees_of_freedom": self.degrees_of_freedom,
-                "residuals": {k: [plain(x) for x in np.atleast_1d(v)] for k, v in self.residuals.items()}}
+        return json_ready({"success": self.success, "status": self.status.word, "message": self.message,
+                           "values": {k: float(v) for k, v in self.values.items()},
+                           "errors": {k: float(v) for k, v in self.errors.items()},
+                           "names": list(self.names), "covariance": self.covariance,
+                           "correlation": self.correlation, "determined": self.determined,
+                           "chi_square": float(self.chi_square), "degrees_of_freedom": self.degrees_of_freedom,
+                           "residuals": {k: np.atleast_1d(np.asarray(v, float)) for k, v in self.residuals.items()}})
 
     def __repr__(self) -> str:
         return f"<FitResult {self.status.word}: {self.values}>"
@@ -176,7 +172,7 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
     from scipy.optimize import least_squares
 
     started = time.perf_counter()
-    prepared = problem if hasattr(problem, "compiled") else _prepare(problem)
+    prepared = problem if hasattr(problem, "compiled") else prepare(problem)
     names, start = _varied(prepared, vary)
     sets = _data_sets(prepared, data, sigma, {**prepared.constants, **dict(zip(names, start))})
     low, high = _bounds(names, start, bounds)
@@ -281,12 +277,6 @@ def fit(problem: Any, data: Any, *, vary: Mapping[str, Any], sigma: Any = None,
                      success=status is Status.SOLVED, status=status, message=message, determined=determined,
                      evaluations=state["solves"], jacobians=state["jacobians"],
                      seconds=time.perf_counter() - started)
-
-
-def _prepare(problem: Any):  # noqa: ANN202
-    from ..reduce.prepared import prepare
-
-    return prepare(problem)
 
 
 def _failed(names: list, sets: list, status: Status, message: str, state: dict, started: float) -> FitResult:
@@ -513,7 +503,9 @@ _CHUNK = 250
 def _sample(solution: Solution, names: list, draws: np.ndarray, expressions: list) -> np.ndarray:
     """Outputs at drawn values of constants: the points solved as a sweep's are (together where
     the problem allows, :mod:`bvpkit.families.batched`; alone otherwise, each from ``solution``)."""
-    from . import batched  # imported when a sampling first needs it (as the sweep does): a solve's start-up stays light
+    from . import (
+        batched,  # imported when a sampling first needs it (as the sweep does): a solve's start-up stays light
+    )
 
     prepared = solution.prepared
     tol = solution.diagnostics.tol
