@@ -256,7 +256,7 @@ class Method:
 
 def compare(outcome: Outcome, reference: Outcome, trial: Trial) -> tuple[float, np.ndarray]:
     """Max relative difference ``|y - y_ref| / (1 + |y_ref|)`` at nodes, midpoints and the
-    zero crossings of the reference's states between them (:func:`~bvpkit.diagnostics.crossings`:
+    zero crossings of the reference's states between them (:func:`~bvpkit.methods.diagnostics.crossings`:
     where the relative difference of a state that is large elsewhere peaks); of the algebraic
     unknowns too, solved from the equations on each.
 

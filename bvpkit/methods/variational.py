@@ -65,7 +65,7 @@ class PointSystem:
     """``rhs``, ``jac`` and ``pjac`` of a system at one point: ``(x, y (n,), p, k)`` to ``(n,)``,
     ``(n, n)``, ``(n, n_p)``.
 
-    Built from the system's own programs with no mesh axis (:func:`bvpkit.program.build`:
+    Built from the system's own programs with no mesh axis (:func:`bvpkit.programs.program.build`:
     the same printer and source check); views that are not a plain compiled system (a
     singular term, constants freed by continuation) call their mesh functions on one column.
     """

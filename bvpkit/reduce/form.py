@@ -265,7 +265,7 @@ class Reduction:
         One region's symbols of the algebraic unknowns.
     equations, texts : list of list
         Per region, the equations still to be made first order, and their text (a class may
-        set some aside before: :meth:`~bvpkit.reduce.transform.Transform.equations`).
+        set some aside before: :meth:`~bvpkit.reduce.transform.Transform.set_aside`).
     constraints : list of list of sympy.Expr
         Per region, the algebraic equations ``0 = G`` in ``_xphys``, ``local`` and ``zlocal``,
         the ``j``-th determining the ``j``-th algebraic unknown.

@@ -143,7 +143,7 @@ class Transform:
 
     def begin(self, prepared: Any, t: Any, y: Any, p: Any, k: Any, guess: Any) -> None:
         """The start of a solve on the mesh ``t`` from the states ``y``: ``guess`` is the
-        previous solution carried from (a :class:`~bvpkit.reduce.guess.Start`), or the guess
+        previous solution carried from (a :class:`~bvpkit.reduce.mapping.Start`), or the guess
         recipes in force (name -> :class:`~bvpkit.reduce.guess.GuessRecipe`)."""
 
     def around(self, solve: Callable[[Any], Any]) -> Callable[[Any], Any]:
