@@ -326,8 +326,6 @@ class _Follower:
         mu0 = float(z[-1])
         self.bounds = (min(start, stop), max(start, stop))
         forward = self._leg(eq, z, stop, extra, 1.0) if stop != mu0 else []
-        if start != mu0:
-            self._borders(eq, z)  # a refinement on the forward leg left the borders of its finer mesh
         backward = self._leg(eq, z, start, extra, -1.0) if start != mu0 else []
         first = self._point(eq, z, 0.0)
         if any(abs(r - mu0) <= 1e-12 * max(1.0, abs(r)) for r in self.requested):
@@ -360,6 +358,8 @@ class _Follower:
     def _leg(self, eq: CollocationEquations, z: np.ndarray, end: float, extra, leg: float) -> list:  # noqa: ANN001
         """Arclength steps from ``z`` until ``along`` passes ``end``: ``(s, along, value, sol, requested)``
         each, ``s`` the arclength from the start of the curve, negative on the leg traced backwards."""
+        # the borders of this leg's own mesh (the other leg may have refined its mesh and borders)
+        self._borders(eq, z)
         sign = 1.0 if end > z[-1] else -1.0
         guess = self._unit_along(eq) * sign
         tangent, _ = arc.tangent(eq, z, guess, extra)
